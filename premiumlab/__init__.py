@@ -1,0 +1,1 @@
+"""premiumlab: GLM baselines, boosted trees and banded rating tables for insurance pricing."""
