@@ -1,0 +1,46 @@
+"""Numeric bands: edges, labels and assignment (lower edge inclusive, upper exclusive)."""
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+
+def band_label(lower: float, upper: float) -> str:
+    """Label of the band [lower, upper), e.g. "[21, 25)" or "[-inf, 21)"; numbers in `g` format."""
+    return f"[{format(lower, 'g')}, {format(upper, 'g')})"
+
+
+def band_labels(edges: np.ndarray | tuple[float, ...]) -> list[str]:
+    """Labels of the bands cut by interior `edges`: (-inf, e0), [e0, e1), ..., [e_last, inf)."""
+    full = np.concatenate([[-np.inf], np.asarray(edges, dtype=float), [np.inf]])
+    return [band_label(full[i], full[i + 1]) for i in range(len(full) - 1)]
+
+
+def assign_bands(values: np.ndarray, edges: np.ndarray | tuple[float, ...]) -> np.ndarray:
+    """Band index of each value: number of interior edges <= value (0 .. len(edges))."""
+    return np.searchsorted(np.asarray(edges, dtype=float), np.asarray(values, dtype=float), side="right")
+
+
+def banded(values: np.ndarray, edges: np.ndarray | tuple[float, ...]) -> pd.Categorical:
+    """Values as an ordered pandas Categorical of band labels."""
+    labels = band_labels(edges)
+    return pd.Categorical.from_codes(assign_bands(values, edges), categories=labels, ordered=True)
+
+
+def quantile_edges(values: np.ndarray, weights: np.ndarray, n_bands: int) -> np.ndarray:
+    """Interior edges at the weighted quantiles k/n_bands (k = 1..n_bands-1) of `values`.
+
+    An edge sits on an observed value, so each band holds roughly 1/n_bands of the weight; duplicate
+    edges (heavy ties) collapse, giving fewer bands. Edges are chosen above the minimum so that no band
+    is empty.
+    """
+    v = np.asarray(values, dtype=float)
+    w = np.asarray(weights, dtype=float)
+    order = np.argsort(v, kind="stable")
+    v, w = v[order], w[order]
+    cum = np.cumsum(w) / w.sum()
+    targets = np.arange(1, n_bands) / n_bands
+    idx = np.searchsorted(cum, targets, side="left")
+    idx = np.clip(idx + 1, 0, len(v) - 1)
+    edges = np.unique(v[idx])
+    return edges[edges > v[0]]

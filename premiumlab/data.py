@@ -1,0 +1,463 @@
+"""Books of policies: reading CSV/Parquet in chunks, data checks, the seeded split, banding.
+
+Row numbers in messages are 0-based data rows (the header is not counted), the same index that
+`predictions.parquet` calls `row`.
+"""
+from __future__ import annotations
+
+import hashlib
+from collections.abc import Iterator
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from premiumlab.bands import banded, quantile_edges
+from premiumlab.errors import InputError
+from premiumlab.spec import Factor, Spec
+
+CHUNK_ROWS = 500_000
+#: A level or band holding less than this share of the exposure is reported as thin.
+THIN_LEVEL_SHARE = 0.005
+#: A categorical factor with more levels than this is reported as having very many levels.
+MANY_LEVELS = 100
+#: Rows whose exposure exceeds this many terms are reported (exposure is usually at most one term).
+TERM = 1.0
+SHOW_ROWS = 5
+
+
+@dataclass(frozen=True)
+class Finding:
+    """One data finding: `error` stops every command but `validate`; `warning` is reported only."""
+
+    level: str
+    column: str
+    message: str
+
+    def __str__(self) -> str:
+        return f"{self.level}: {self.message}"
+
+
+@dataclass
+class Book:
+    """A validated book, typed: numeric factors float64, categorical factors as strings."""
+
+    path: str
+    frame: pd.DataFrame
+    exposure: np.ndarray
+    claim_count: np.ndarray
+    claim_amount: np.ndarray | None
+    current_premium: np.ndarray | None
+    policy: np.ndarray
+    holdout: np.ndarray
+    sha256: str
+    warnings: list[Finding] = field(default_factory=list)
+
+    @property
+    def n_rows(self) -> int:
+        return len(self.exposure)
+
+
+# --------------------------------------------------------------------------------------------
+# reading
+
+def _book_files(path: Path) -> list[Path]:
+    if not path.exists():
+        raise InputError(f"{path}: book not found")
+    if path.is_dir():
+        parts = sorted(p for p in path.iterdir() if p.suffix.lower() in (".parquet", ".pq"))
+        if not parts:
+            raise InputError(f"{path}: is a directory with no .parquet parts; expected a CSV or Parquet book")
+        return parts
+    if path.suffix.lower() not in (".csv", ".parquet", ".pq"):
+        raise InputError(f"{path}: unsupported book format '{path.suffix}'; use .csv or .parquet")
+    return [path]
+
+
+def book_sha256(path: str | Path) -> str:
+    """sha256 over the bytes of the book file (or its Parquet parts in name order)."""
+    h = hashlib.sha256()
+    for part in _book_files(Path(path)):
+        with open(part, "rb") as fh:
+            for block in iter(lambda: fh.read(1 << 20), b""):
+                h.update(block)
+    return h.hexdigest()
+
+
+def read_columns(path: str | Path) -> list[str]:
+    """The column names of a book, read from its header or Parquet schema."""
+    files = _book_files(Path(path))
+    if files[0].suffix.lower() == ".csv":
+        return list(_read_csv(files[0], nrows=0).columns)
+    import pyarrow.parquet as pq
+    try:
+        return list(pq.read_schema(files[0]).names)
+    except Exception as e:  # pyarrow raises several types for damaged files
+        raise InputError(f"{files[0]}: not a readable Parquet file ({type(e).__name__}: {e})") from None
+
+
+def _read_csv(path: Path, **kwargs) -> pd.DataFrame | Iterator[pd.DataFrame]:
+    try:
+        return pd.read_csv(path, dtype=str, keep_default_na=False, encoding="utf-8-sig", **kwargs)
+    except UnicodeDecodeError as e:
+        raise InputError(f"{path}: not UTF-8 text (byte {e.start})") from None
+    except pd.errors.EmptyDataError:
+        raise InputError(f"{path}: empty file, no header row") from None
+    except pd.errors.ParserError as e:
+        raise InputError(f"{path}: malformed CSV ({str(e).strip().splitlines()[-1]})") from None
+
+
+def iter_book(path: str | Path, columns: list[str], chunk_rows: int = CHUNK_ROWS
+              ) -> Iterator[tuple[int, pd.DataFrame]]:
+    """Yield (first row index, chunk) over the book; CSV values come as strings."""
+    offset = 0
+    for part in _book_files(Path(path)):
+        if part.suffix.lower() == ".csv":
+            reader = _read_csv(part, usecols=columns, chunksize=chunk_rows)
+            try:
+                for chunk in reader:
+                    yield offset, chunk.reset_index(drop=True)
+                    offset += len(chunk)
+            except UnicodeDecodeError as e:
+                raise InputError(f"{part}: not UTF-8 text (byte {e.start})") from None
+            except pd.errors.ParserError as e:
+                raise InputError(f"{part}: malformed CSV ({str(e).strip().splitlines()[-1]})") from None
+        else:
+            import pyarrow.parquet as pq
+            try:
+                pf = pq.ParquetFile(part)
+                for batch in pf.iter_batches(batch_size=chunk_rows, columns=columns):
+                    chunk = batch.to_pandas()
+                    yield offset, chunk
+                    offset += len(chunk)
+            except InputError:
+                raise
+            except Exception as e:
+                raise InputError(f"{part}: not a readable Parquet file ({type(e).__name__}: {e})") from None
+
+
+# --------------------------------------------------------------------------------------------
+# row checks (pure: a chunk in, findings out)
+
+def _rows(mask: np.ndarray, offset: int) -> str:
+    idx = np.flatnonzero(mask)[:SHOW_ROWS] + offset
+    more = ", ..." if mask.sum() > SHOW_ROWS else ""
+    return ", ".join(str(i) for i in idx) + more
+
+
+class _Collector:
+    """Collects findings per (level, column, check) across chunks: counts add, first rows kept."""
+
+    def __init__(self, source: str) -> None:
+        self.source = source
+        self.items: dict[tuple[str, str, str], list] = {}
+
+    def add(self, level: str, column: str, check: str, mask: np.ndarray, offset: int) -> None:
+        n = int(mask.sum())
+        if n == 0:
+            return
+        key = (level, column, check)
+        if key not in self.items:
+            self.items[key] = [0, []]
+        entry = self.items[key]
+        entry[0] += n
+        if len(entry[1]) < SHOW_ROWS:
+            idx = (np.flatnonzero(mask)[: SHOW_ROWS - len(entry[1])] + offset).tolist()
+            entry[1].extend(idx)
+
+    def note(self, level: str, column: str, message: str) -> None:
+        self.items[(level, column, message)] = [None, []]
+
+    def findings(self) -> list[Finding]:
+        out = []
+        for (level, column, check), (count, rows) in self.items.items():
+            if count is None:
+                out.append(Finding(level, column, f"{self.source}: {check}"))
+                continue
+            shown = ", ".join(map(str, rows)) + (", ..." if count > len(rows) else "")
+            out.append(Finding(level, column, f"{self.source}: column '{column}': {count} "
+                                              f"row{'s' if count != 1 else ''} {check} (rows {shown})"))
+        return out
+
+
+def _to_number(values: pd.Series) -> tuple[np.ndarray, np.ndarray]:
+    """(float values, mask of present-but-not-numeric entries); blanks become NaN, unmasked."""
+    if pd.api.types.is_numeric_dtype(values) and not pd.api.types.is_bool_dtype(values):
+        return values.to_numpy(dtype=float, na_value=np.nan), np.zeros(len(values), dtype=bool)
+    text = values.astype("string").str.strip()
+    num = pd.to_numeric(text, errors="coerce").to_numpy(dtype=float, na_value=np.nan)
+    blank = (text.isna() | (text == "")).to_numpy(dtype=bool)
+    bad = np.isnan(num) & ~blank & ~text.str.lower().isin(["nan"]).to_numpy(dtype=bool)
+    return num, bad
+
+
+def _as_text(values: pd.Series) -> np.ndarray:
+    """Levels as strings ("01" stays "01"); missing values become ""."""
+    if pd.api.types.is_float_dtype(values):
+        text = values.map(lambda v: "" if pd.isna(v) else format(v, "g"))
+    else:
+        text = values.astype("string").fillna("")
+    return text.str.strip().to_numpy(dtype=object)
+
+
+@dataclass
+class _Typed:
+    exposure: np.ndarray
+    count: np.ndarray
+    amount: np.ndarray | None
+    premium: np.ndarray | None
+    factors: dict[str, np.ndarray]
+    policy: np.ndarray | None
+    period: np.ndarray | None
+
+
+def check_chunk(chunk: pd.DataFrame, offset: int, spec: Spec, out: _Collector) -> _Typed:
+    """Type one chunk and record its row-level findings."""
+    c = spec.columns
+    expo, bad = _to_number(chunk[c.exposure])
+    out.add("error", c.exposure, "with a non-numeric exposure", bad, offset)
+    out.add("error", c.exposure, "with a missing exposure", np.isnan(expo) & ~bad, offset)
+    out.add("error", c.exposure, "with a non-finite exposure", np.isinf(expo), offset)
+    out.add("error", c.exposure, "with exposure <= 0", np.isfinite(expo) & (expo <= 0), offset)
+    out.add("warning", c.exposure, f"with exposure above {TERM:g} term", np.isfinite(expo) & (expo > TERM),
+            offset)
+
+    count, bad = _to_number(chunk[c.claim_count])
+    out.add("error", c.claim_count, "with a non-numeric claim count", bad, offset)
+    out.add("error", c.claim_count, "with a missing or non-finite claim count", ~np.isfinite(count) & ~bad,
+            offset)
+    out.add("error", c.claim_count, "with a negative claim count", count < 0, offset)
+    out.add("error", c.claim_count, "with a fractional claim count",
+            np.isfinite(count) & (count != np.round(count)), offset)
+
+    amount = None
+    if c.claim_amount is not None:
+        amount, bad = _to_number(chunk[c.claim_amount])
+        out.add("error", c.claim_amount, "with a non-numeric claim amount", bad, offset)
+        out.add("error", c.claim_amount, "with a missing or non-finite claim amount",
+                ~np.isfinite(amount) & ~bad, offset)
+        out.add("error", c.claim_amount, "with a negative claim amount", amount < 0, offset)
+        out.add("error", c.claim_amount, f"with a positive amount but zero claims in '{c.claim_count}'",
+                (amount > 0) & (count == 0), offset)
+        out.add("warning", c.claim_amount, "with nil claims (claims but amount 0; excluded from severity)",
+                (amount == 0) & (count > 0), offset)
+
+    premium = None
+    if c.current_premium is not None:
+        premium, bad = _to_number(chunk[c.current_premium])
+        out.add("error", c.current_premium, "with a non-numeric current premium", bad, offset)
+        out.add("error", c.current_premium, "with a missing, non-finite or non-positive current premium",
+                ~(np.isfinite(premium) & (premium > 0)) & ~bad, offset)
+
+    factors: dict[str, np.ndarray] = {}
+    for f in spec.factors:
+        factors[f.name] = _check_factor(chunk[f.name], f, offset, out)
+    policy = _as_text(chunk[c.policy_id]) if c.policy_id else None
+    if policy is not None:
+        out.add("error", c.policy_id, "with a missing policy id", policy == "", offset)
+    period = _as_text(chunk[c.period]) if c.period else None
+    if period is not None:
+        out.add("error", c.period, "with a missing period", period == "", offset)
+    return _Typed(expo, count, amount, premium, factors, policy, period)
+
+
+def _check_factor(values: pd.Series, f: Factor, offset: int, out: _Collector) -> np.ndarray:
+    if f.type == "numeric":
+        num, bad = _to_number(values)
+        out.add("error", f.name, "with a non-numeric value in a numeric factor", bad, offset)
+        out.add("error", f.name, "with a missing value", np.isnan(num) & ~bad, offset)
+        out.add("error", f.name, "with an infinite value", np.isinf(num), offset)
+        return num
+    text = _as_text(values)
+    out.add("error", f.name, "with a missing value", text == "", offset)
+    if f.levels is not None:
+        unknown = ~pd.Series(text).isin(f.levels).to_numpy() & (text != "")
+        out.add("error", f.name, f"with a level not in the spec's levels ({', '.join(f.levels)})", unknown,
+                offset)
+    return text
+
+
+# --------------------------------------------------------------------------------------------
+# book-level checks
+
+def _book_checks(t: _Typed, spec: Spec, out: _Collector) -> None:
+    c = spec.columns
+    n = len(t.exposure)
+    if n == 0:
+        out.note("error", "", "the book has no rows")
+        return
+    if np.nansum(t.count) == 0:
+        out.note("error", c.claim_count, f"the book has no claims (column '{c.claim_count}' sums to 0)")
+    if t.policy is not None and t.period is not None:
+        keys = pd.DataFrame({"p": t.policy, "t": t.period})
+        dup = keys.duplicated(keep="first").to_numpy()
+        out.add("error", c.policy_id, f"repeating an earlier ('{c.policy_id}', '{c.period}') pair", dup, 0)
+    elif t.policy is not None and c.period is None:
+        pass  # a policy may repeat (one row per policy and period) when no period column is named
+    expo = np.where(np.isfinite(t.exposure) & (t.exposure > 0), t.exposure, 0.0)
+    total = expo.sum()
+    codes: dict[str, np.ndarray] = {}
+    for f in spec.factors:
+        vals = t.factors[f.name]
+        uniq, inv = np.unique(vals.astype(str) if f.type == "categorical" else vals, return_inverse=True)
+        codes[f.name] = inv
+        if len(uniq) == 1:
+            out.note("error", f.name, f"factor '{f.name}' has one level only ({uniq[0]}); it cannot "
+                                      f"be rated")
+        if f.type == "categorical":
+            if len(uniq) > MANY_LEVELS:
+                out.note("warning", f.name, f"factor '{f.name}' has {len(uniq)} levels (more than "
+                                            f"{MANY_LEVELS}); consider grouping")
+            if total > 0:
+                share = np.bincount(inv, weights=expo, minlength=len(uniq)) / total
+                thin = [str(u) for u, s in zip(uniq, share) if s < THIN_LEVEL_SHARE]
+                if thin:
+                    out.note("warning", f.name, f"factor '{f.name}': {len(thin)} thin level(s) under "
+                                                f"{THIN_LEVEL_SHARE:.1%} of exposure: {', '.join(thin[:8])}")
+    names = [f.name for f in spec.factors]
+    for i, a in enumerate(names):
+        for b in names[i + 1:]:
+            ka, kb = codes[a], codes[b]
+            na, nb = ka.max() + 1, kb.max() + 1
+            if na != nb or na < 2:
+                continue
+            pairs = np.unique(ka.astype(np.int64) * nb + kb).size
+            if pairs == na:
+                out.note("error", b, f"factors '{a}' and '{b}' are identical up to relabelling; "
+                                     f"keep one of them")
+
+
+def _concat(parts: list[_Typed]) -> _Typed:
+    def cat(name: str):
+        vals = [getattr(p, name) for p in parts]
+        return None if vals[0] is None else np.concatenate(vals)
+    factors = {k: np.concatenate([p.factors[k] for p in parts]) for k in parts[0].factors}
+    return _Typed(cat("exposure"), cat("count"), cat("amount"), cat("premium"), factors, cat("policy"),
+                  cat("period"))
+
+
+def scan_book(path: str | Path, spec: Spec) -> tuple[_Typed, list[Finding]]:
+    """Read the whole book chunk by chunk, typing it and collecting every finding."""
+    p = Path(path)
+    header = read_columns(p)
+    needed = spec.columns.used() + spec.factor_names
+    missing = [col for col in needed if col not in header]
+    if missing:
+        hint = ""
+        if len(header) == 1 and any(sep in header[0] for sep in (";", "\t", "|")):
+            hint = " (the header is one column: is the delimiter a comma?)"
+        raise InputError(f"{p}: missing column{'s' if len(missing) > 1 else ''} "
+                         f"{', '.join(repr(m) for m in missing)}{hint}")
+    out = _Collector(str(p))
+    parts = [check_chunk(chunk, off, spec, out) for off, chunk in iter_book(p, needed)]
+    if not parts:
+        raise InputError(f"{p}: the book has no rows")
+    typed = _concat(parts)
+    _book_checks(typed, spec, out)
+    return typed, out.findings()
+
+
+# --------------------------------------------------------------------------------------------
+# the split
+
+def holdout_flags(policy: np.ndarray, seed: int, holdout: float) -> np.ndarray:
+    """True for held-out rows: u(seed, policy) < holdout, with u = SipHash-2-4(policy; key from seed)/2^64.
+
+    The hash depends only on the policy id and the seed, so a policy's rows stay together and the split
+    does not change with chunking or row order.
+    """
+    if holdout <= 0:
+        return np.zeros(len(policy), dtype=bool)
+    key = f"{seed:016d}"[-16:]
+    h = pd.util.hash_array(np.asarray(policy, dtype=object), hash_key=key, categorize=True)
+    u = h.astype(np.float64) / 2.0**64
+    return u < holdout
+
+
+def load_book(path: str | Path, spec: Spec) -> Book:
+    """Read, check and type a book; the first error stops with `InputError` (exit 2)."""
+    typed, findings = scan_book(path, spec)
+    errors = [f for f in findings if f.level == "error"]
+    if errors:
+        raise InputError(errors[0].message)
+    n = len(typed.exposure)
+    policy = typed.policy if typed.policy is not None else np.arange(n).astype(str).astype(object)
+    frame = pd.DataFrame({f.name: typed.factors[f.name] for f in spec.factors})
+    return Book(path=str(path), frame=frame, exposure=typed.exposure, claim_count=typed.count,
+                claim_amount=typed.amount, current_premium=typed.premium, policy=policy,
+                holdout=holdout_flags(policy, spec.split.seed, spec.split.holdout),
+                sha256=book_sha256(path), warnings=[f for f in findings if f.level == "warning"])
+
+
+# --------------------------------------------------------------------------------------------
+# banding and levels
+
+@dataclass(frozen=True)
+class Levels:
+    """How one factor is cut for tables and GLMs: band edges (numeric) or the level order."""
+
+    name: str
+    labels: tuple[str, ...]
+    base: str
+    edges: tuple[float, ...] | None = None
+
+
+def factor_levels(book: Book, spec: Spec, train: np.ndarray) -> dict[str, Levels]:
+    """Bands and level orders per factor, fixed on the training rows.
+
+    Numeric: the spec's edges, else exposure-quantile edges (`n_bands`). Categorical: the spec's
+    `levels` order, else levels sorted as strings. Base: the spec's `base`, else the largest exposure.
+    """
+    out = {}
+    for f in spec.factors:
+        values = book.frame[f.name].to_numpy()
+        if f.type == "numeric":
+            edges = np.asarray(f.bands) if f.bands is not None else quantile_edges(
+                values[train], book.exposure[train], f.n_bands)
+            cat = banded(values, edges)
+            labels = tuple(cat.categories)
+            codes = cat.codes
+            edges_t = tuple(float(e) for e in edges)
+        else:
+            labels = f.levels if f.levels is not None else tuple(sorted(set(values)))
+            codes = pd.Categorical(values, categories=labels).codes
+            edges_t = None
+        expo = np.bincount(codes[train], weights=book.exposure[train], minlength=len(labels))
+        base = f.base if f.base is not None else labels[int(np.argmax(expo))]
+        if f.base is not None and f.base not in labels:
+            raise InputError(f"{spec.source}: key 'factors.{f.name}.base': '{f.base}' is not one of its "
+                             f"levels or bands ({', '.join(labels[:10])})")
+        out[f.name] = Levels(f.name, labels, base, edges_t)
+    return out
+
+
+def categorise(book_frame: pd.DataFrame, levels: dict[str, Levels]) -> pd.DataFrame:
+    """Factor columns as ordered Categoricals of band or level labels."""
+    cols = {}
+    for name, lv in levels.items():
+        values = book_frame[name].to_numpy()
+        if lv.edges is not None:
+            cols[name] = banded(values, lv.edges)
+        else:
+            cols[name] = pd.Categorical(values, categories=list(lv.labels), ordered=True)
+    return pd.DataFrame(cols)
+
+
+def profile(book: Book, spec: Spec) -> dict[str, pd.DataFrame]:
+    """Exposure, claims, frequency, severity and loss cost per level or band, and overall."""
+    levels = factor_levels(book, spec, np.ones(book.n_rows, dtype=bool))
+    cats = categorise(book.frame, levels)
+    amount = book.claim_amount if book.claim_amount is not None else np.full(book.n_rows, np.nan)
+    base = pd.DataFrame({"exposure": book.exposure, "claims": book.claim_count, "amount": amount})
+    out = {}
+    for name in ["(overall)"] + list(levels):
+        key = np.zeros(book.n_rows, dtype=int) if name == "(overall)" else cats[name]
+        g = base.groupby(key, observed=False).sum(min_count=1)
+        if name == "(overall)":
+            g.index = ["all"]
+        g["frequency"] = g["claims"] / g["exposure"]
+        g["severity"] = g["amount"] / g["claims"]
+        g["loss_cost"] = g["amount"] / g["exposure"]
+        out[name] = g
+    return out

@@ -1,0 +1,86 @@
+"""Atomic outputs: work in a hidden temporary folder beside the target, rename into place at the end.
+
+The temporary folder is `.NAME.tmp-PID` beside the target; folders of processes that no longer run
+are swept at the next start. With `force`, an existing target is first moved aside to
+`.NAME.old-PID` and removed only after the new output is in place.
+"""
+from __future__ import annotations
+
+import os
+import re
+import shutil
+from collections.abc import Iterator
+from contextlib import contextmanager
+from pathlib import Path
+
+from premiumlab.errors import InputError
+
+_LEFTOVER = re.compile(r"^\.(?P<name>.+)\.(tmp|old)-(?P<pid>\d+)$")
+
+
+def _alive(pid: int) -> bool:
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        return True
+    return True
+
+
+def sweep_leftovers(parent: Path) -> None:
+    """Remove temporary folders and files left by processes that are no longer running."""
+    try:
+        entries = list(parent.iterdir())
+    except OSError:
+        return
+    for entry in entries:
+        m = _LEFTOVER.match(entry.name)
+        if m and int(m.group("pid")) != os.getpid() and not _alive(int(m.group("pid"))):
+            if entry.is_dir() and not entry.is_symlink():
+                shutil.rmtree(entry, ignore_errors=True)
+            else:
+                entry.unlink(missing_ok=True)
+
+
+def check_target(target: Path, force: bool) -> None:
+    """Refuse a target whose folder is missing or not a folder, or that exists without `force`."""
+    parent = target.parent
+    if not parent.exists():
+        raise InputError(f"{target}: the folder {parent} does not exist")
+    if not parent.is_dir():
+        raise InputError(f"{target}: {parent} is not a folder")
+    if (target.exists() or target.is_symlink()) and not force:
+        raise InputError(f"{target}: already exists; use --force to replace it")
+
+
+@contextmanager
+def atomic_output(target: str | Path, force: bool = False, kind: str = "dir") -> Iterator[Path]:
+    """Yield a temporary path (a folder for kind="dir", a file path for kind="file") beside `target`.
+
+    On success it is renamed to `target`; on any error it is removed and `target` is untouched.
+    """
+    target = Path(target)
+    check_target(target, force)
+    parent = target.parent
+    sweep_leftovers(parent)
+    tmp = parent / f".{target.name}.tmp-{os.getpid()}"
+    if tmp.exists():
+        shutil.rmtree(tmp) if tmp.is_dir() else tmp.unlink()
+    if kind == "dir":
+        tmp.mkdir()
+    try:
+        yield tmp
+    except BaseException:
+        if tmp.is_dir():
+            shutil.rmtree(tmp, ignore_errors=True)
+        else:
+            tmp.unlink(missing_ok=True)
+        raise
+    old = None
+    if target.exists() or target.is_symlink():
+        old = parent / f".{target.name}.old-{os.getpid()}"
+        os.replace(target, old)
+    os.replace(tmp, target)
+    if old is not None:
+        shutil.rmtree(old) if old.is_dir() and not old.is_symlink() else old.unlink()
