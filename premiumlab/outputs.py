@@ -84,3 +84,25 @@ def atomic_output(target: str | Path, force: bool = False, kind: str = "dir") ->
     os.replace(tmp, target)
     if old is not None:
         shutil.rmtree(old) if old.is_dir() and not old.is_symlink() else old.unlink()
+
+
+@contextmanager
+def atomic_files(targets: list[Path], force: bool = False) -> Iterator[Path]:
+    """Yield a hidden temporary folder; the files written there under the targets' names are moved
+    into place at the end (all targets share one folder). On any error nothing is moved."""
+    parent = targets[0].parent
+    for t in targets:
+        check_target(t, force)
+    sweep_leftovers(parent)
+    tmp = parent / f".{targets[0].name}.tmp-{os.getpid()}"
+    shutil.rmtree(tmp, ignore_errors=True)
+    tmp.mkdir()
+    try:
+        yield tmp
+        for t in targets:
+            if not (tmp / t.name).exists():
+                raise InputError(f"{t}: was not written")
+        for t in targets:
+            os.replace(tmp / t.name, t)
+    finally:
+        shutil.rmtree(tmp, ignore_errors=True)

@@ -442,6 +442,10 @@ def parse_spec(doc: dict, source: str = "spec") -> Spec:
         raise InputError(f"{_where(s, 'experience')}: development and trend need columns.period")
     if experience.trend and experience.future_midpoint is None:
         raise InputError(f"{_where(s, 'experience.future_midpoint')} is required with experience.trend")
+    if experience.configured:
+        raise InputError(f"{_where(s, 'experience')}: experience adjustments (development, trend, large-loss "
+                         f"cap) are not applied by this version; remove the section and prepare the amounts "
+                         f"beforehand, so that no output claims an adjustment it did not make")
     return Spec(columns=columns, factors=factors, split=split, glm=glm, gbm=gbm, table=table,
                 loadings=loadings, compliance=compliance, experience=experience, source=s, raw=doc)
 

@@ -1,0 +1,55 @@
+"""`validate`: every finding in a book, and its profile per level or band."""
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from premiumlab.data import Book, Finding, holdout_flags, profile, read_columns, scan_book
+from premiumlab.spec import Spec, load_spec
+
+
+@dataclass
+class ValidationReport:
+    """Findings (errors and warnings) and, when the book is usable, its profile."""
+
+    path: str
+    rows: int
+    findings: list[Finding]
+    profile: dict[str, pd.DataFrame] | None
+
+    @property
+    def errors(self) -> list[Finding]:
+        return [f for f in self.findings if f.level == "error"]
+
+    def text(self) -> str:
+        lines = [f"{self.path}: {self.rows} rows, {len(self.errors)} error(s), "
+                 f"{len(self.findings) - len(self.errors)} warning(s)"]
+        lines += [f"  {f}" for f in self.findings]
+        if self.profile is not None:
+            with pd.option_context("display.width", 120, "display.max_columns", 10,
+                                   "display.float_format", "{:,.4g}".format):
+                for name, table in self.profile.items():
+                    lines += ["", f"profile: {name}", table.to_string()]
+        return "\n".join(lines)
+
+
+def validate_book(book_path: str | Path, spec_path: str | Path) -> ValidationReport:
+    """Scan the whole book and report every finding; profile it when it has no errors."""
+    spec: Spec = load_spec(spec_path)
+    header = read_columns(book_path)
+    missing = [c for c in spec.columns.used() + spec.factor_names if c not in header]
+    if missing:
+        findings = [Finding("error", c, f"{book_path}: missing column '{c}'") for c in missing]
+        return ValidationReport(str(book_path), 0, findings, None)
+    typed, findings = scan_book(book_path, spec)
+    rows = len(typed.exposure)
+    if any(f.level == "error" for f in findings):
+        return ValidationReport(str(book_path), rows, findings, None)
+    policy = typed.policy if typed.policy is not None else np.arange(rows).astype(str).astype(object)
+    book = Book(str(book_path), pd.DataFrame({f.name: typed.factors[f.name] for f in spec.factors}),
+                typed.exposure, typed.count, typed.amount, typed.premium, policy,
+                holdout_flags(policy, spec.split.seed, spec.split.holdout), sha256="")
+    return ValidationReport(str(book_path), rows, findings, profile(book, spec))
