@@ -1,0 +1,4 @@
+"""`python -m premiumlab` runs the command line."""
+from premiumlab.cli import app
+
+app(prog_name="premiumlab")

@@ -1,0 +1,124 @@
+"""Reading and checking books: each finding names the column, the count and the first rows."""
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from premiumlab.data import holdout_flags, iter_book, load_book, scan_book
+from premiumlab.errors import InputError
+from premiumlab.spec import load_spec
+
+from conftest import small_book
+
+
+def findings_for(tmp_path, spec_file, edit) -> list[str]:
+    df = small_book()
+    df = edit(df) if edit else df
+    p = tmp_path / "b.csv"
+    df.to_csv(p, index=False)
+    _, findings = scan_book(p, load_spec(spec_file))
+    return [str(f) for f in findings]
+
+
+def _set(col, rows, value):
+    def edit(df):
+        df[col] = df[col].astype(object)
+        df.loc[rows, col] = value
+        return df
+    return edit
+
+
+@pytest.mark.parametrize("edit, fragment", [
+    (_set("exposure", [3, 9], -1.0), "column 'exposure': 2 rows with exposure <= 0 (rows 3, 9)"),
+    (_set("exposure", [4], 0.0), "1 row with exposure <= 0 (rows 4)"),
+    (_set("exposure", [5], ""), "with a missing exposure (rows 5)"),
+    (_set("exposure", [6], "inf"), "with a non-finite exposure (rows 6)"),
+    (_set("exposure", [7], "abc"), "non-numeric exposure (rows 7)"),
+    (_set("exposure", [8], 1.5), "warning: "),
+    (_set("claim_count", [2], 1.5), "fractional claim count (rows 2)"),
+    (_set("claim_count", [2], -1), "negative claim count (rows 2)"),
+    (_set("claim_count", [2], ""), "missing or non-finite claim count (rows 2)"),
+    (_set("claim_amount", [11], -5.0), "negative claim amount (rows 11)"),
+    (_set("age", [12], "old"), "column 'age': 1 row with a non-numeric value in a numeric factor (rows 12)"),
+    (_set("region", [13], ""), "column 'region': 1 row with a missing value (rows 13)"),
+    (_set("bonus", [14], "09"), "not in the spec's levels"),
+    (lambda df: df.assign(region="Northmoor"), "factor 'region' has one level only"),
+    (lambda df: df.assign(claim_count=0, claim_amount=0.0), "the book has no claims"),
+    (lambda df: df.assign(region=df["bonus"].map({"01": "x", "02": "y", "03": "z"})),
+     "factors 'region' and 'bonus' are identical up to relabelling"),
+    (lambda df: pd.concat([df, df.iloc[[0]]], ignore_index=True), "repeating an earlier ('policy_id', 'year') pair (rows 400)"),
+])
+def test_each_check_names_column_count_and_rows(tmp_path, spec_file, edit, fragment):
+    found = findings_for(tmp_path, spec_file, edit)
+    assert any(fragment in f for f in found), found
+
+
+def test_amount_with_zero_claims_and_nil_claims(tmp_path, spec_file):
+    def edit(df):
+        zero = df.index[df.claim_count == 0][:2]
+        nil = df.index[df.claim_count > 0][:3]
+        df.loc[zero, "claim_amount"] = 100.0
+        df.loc[nil, "claim_amount"] = 0.0
+        return df
+    found = findings_for(tmp_path, spec_file, edit)
+    assert any("2 rows with a positive amount but zero claims" in f for f in found)
+    assert any(f.startswith("warning") and "3 rows with nil claims" in f for f in found)
+
+
+def test_clean_book_has_no_errors_and_loads_typed(book_file, spec_file):
+    spec = load_spec(spec_file)
+    book = load_book(book_file, spec)
+    assert book.n_rows == 400
+    assert book.frame["age"].dtype == np.float64
+    assert set(book.frame["bonus"]) == {"01", "02", "03"}  # "01" stays "01"
+    assert len(book.sha256) == 64
+
+
+def test_first_error_stops_load(tmp_path, spec_file):
+    p = tmp_path / "b.csv"
+    small_book().assign(exposure=0.0).to_csv(p, index=False)
+    with pytest.raises(InputError, match="exposure <= 0"):
+        load_book(p, load_spec(spec_file))
+
+
+def test_missing_column_and_wrong_delimiter(tmp_path, spec_file):
+    p = tmp_path / "b.csv"
+    small_book().drop(columns=["region"]).to_csv(p, index=False)
+    with pytest.raises(InputError, match="missing column 'region'"):
+        load_book(p, load_spec(spec_file))
+    small_book().to_csv(p, index=False, sep=";")
+    with pytest.raises(InputError, match="delimiter"):
+        load_book(p, load_spec(spec_file))
+
+
+def test_split_is_stable_keeps_policies_together_and_has_the_right_share():
+    rng = np.random.default_rng(0)
+    policy = np.array([f"P{i}" for i in rng.integers(0, 50_000, 200_000)], dtype=object)
+    flags = holdout_flags(policy, seed=2026, holdout=0.2)
+    # same policy -> same flag
+    frame = pd.DataFrame({"p": policy, "h": flags})
+    assert frame.groupby("p")["h"].nunique().max() == 1
+    # chunking and order do not matter
+    parts = np.concatenate([holdout_flags(policy[i:i + 7_001], 2026, 0.2) for i in range(0, len(policy), 7_001)])
+    assert np.array_equal(parts, flags)
+    perm = rng.permutation(len(policy))
+    assert np.array_equal(holdout_flags(policy[perm], 2026, 0.2), flags[perm])
+    # share of policies held out: binomial, 50,000 policies -> sd 0.0018; 4 sd tolerance
+    share = frame.drop_duplicates("p")["h"].mean()
+    assert abs(share - 0.2) < 0.0072
+    assert not holdout_flags(policy, 2026, 0.0).any()
+    assert not np.array_equal(holdout_flags(policy, 2027, 0.2), flags)
+
+
+def test_csv_chunks_and_parquet_agree(tmp_path, spec_file):
+    df = small_book(1000)
+    csv, pq = tmp_path / "b.csv", tmp_path / "b.parquet"
+    df.to_csv(csv, index=False)
+    df.to_parquet(pq, index=False)
+    spec = load_spec(spec_file)
+    a, b = load_book(csv, spec), load_book(pq, spec)
+    assert np.array_equal(a.exposure, b.exposure) and np.array_equal(a.holdout, b.holdout)
+    assert a.frame.astype(str).equals(b.frame.astype(str))
+    offsets = [off for off, _ in iter_book(csv, ["exposure"], chunk_rows=300)]
+    assert offsets == [0, 300, 600, 900]
