@@ -1,0 +1,335 @@
+"""Numerics of the GLM baselines: one-hot design, aliasing, the cells and rows engines, row statistics.
+
+Every model is written in rate form: a row carries a numerator ``a`` (claim count or amount) and a
+weight ``w`` (exposure or claim count); the response is the rate ``y = a / w`` with variance
+``phi * mu**power / w`` and mean ``mu = exp(x'beta)`` (log link). Poisson frequency in this form has
+the same estimates, Fisher information and deviance as the count form with offset log(exposure);
+the row statistics are computed in the form statsmodels reports for the row-level fit.
+"""
+from __future__ import annotations
+
+import warnings
+from collections.abc import Iterator
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.linalg
+import statsmodels.api as sm
+
+CHUNK_ROWS = 1_000_000
+COEFFICIENT_TOLERANCE = 1e-10
+MAX_ITERATIONS = 100
+ALIAS_TOLERANCE = 1e-9
+CELLS_MIN_LIMIT = 1_000
+CELLS_SHARE_OF_ROWS = 0.05
+
+
+@dataclass(frozen=True)
+class Family:
+    """Exponential-dispersion family with log link; ``power`` is the variance power (V(mu) = mu**power)."""
+
+    name: str
+    power: float
+
+    def statsmodels(self) -> sm.families.Family:
+        """The statsmodels family (true Tweedie density, ``eql=False``)."""
+        log = sm.families.links.Log()
+        if self.name == "poisson":
+            return sm.families.Poisson(link=log)
+        if self.name == "gamma":
+            return sm.families.Gamma(link=log)
+        return sm.families.Tweedie(link=log, var_power=self.power, eql=False)
+
+    def row_view(
+        self, numerator: np.ndarray, weight: np.ndarray, rate: np.ndarray
+    ) -> tuple[np.ndarray, np.ndarray, np.ndarray | float]:
+        """(endog, mu, var_weights) of the row-level statsmodels fit for rows with fitted ``rate``.
+
+        Poisson: counts with mean exposure * rate and unit weights (offset form); others: the rate
+        itself with var_weights ``weight``.
+        """
+        if self.name == "poisson":
+            return numerator, weight * rate, 1.0
+        return numerator / weight, rate, weight
+
+
+POISSON = Family("poisson", 1.0)
+GAMMA = Family("gamma", 2.0)
+
+
+def tweedie_family(power: float) -> Family:
+    """Tweedie family with variance power ``power`` (1 < power < 2)."""
+    return Family("tweedie", float(power))
+
+
+@dataclass(frozen=True)
+class OneHotDesign:
+    """Treatment-coded one-hot design of rows held sparsely as one level code per factor and row.
+
+    The codes are the column indices of a CSR one-hot matrix. The full column space is
+    ``Intercept`` then every level of every factor (base levels included, never estimated).
+    """
+
+    factor_names: tuple[str, ...]
+    levels: tuple[tuple[str, ...], ...]
+    base_codes: tuple[int, ...]
+    codes: np.ndarray  # (n_rows, n_factors) int32
+
+    @property
+    def n_rows(self) -> int:
+        return int(self.codes.shape[0])
+
+    @property
+    def offsets(self) -> np.ndarray:
+        """Column of each factor's first level in the full space (the intercept is column 0)."""
+        return 1 + np.cumsum([0] + [len(lv) for lv in self.levels])[:-1].astype(np.int64)
+
+    @property
+    def n_full(self) -> int:
+        return 1 + sum(len(lv) for lv in self.levels)
+
+    def full_terms(self) -> list[str]:
+        """Term name of every full-space column: ``Intercept`` and ``factor[level]``."""
+        return ["Intercept"] + [f"{name}[{level}]" for name, lv in zip(self.factor_names, self.levels) for level in lv]
+
+    def base_columns(self) -> np.ndarray:
+        return self.offsets + np.asarray(self.base_codes, dtype=np.int64)
+
+    def take(self, rows: np.ndarray) -> OneHotDesign:
+        """The design restricted to ``rows`` (boolean mask or positions)."""
+        return OneHotDesign(self.factor_names, self.levels, self.base_codes, self.codes[rows])
+
+    def chunks(self, chunk_rows: int = CHUNK_ROWS) -> Iterator[slice]:
+        for start in range(0, self.n_rows, chunk_rows):
+            yield slice(start, min(start + chunk_rows, self.n_rows))
+
+    def linear_predictor(self, beta_full: np.ndarray, rows: slice = slice(None)) -> np.ndarray:
+        """x'beta for ``rows``; ``beta_full`` is indexed by full-space column."""
+        columns = self.codes[rows] + self.offsets[None, :]
+        return beta_full[0] + beta_full[columns].sum(axis=1)
+
+    def transpose_times(self, values: np.ndarray) -> np.ndarray:
+        """X'v in the full space."""
+        parts = [np.array([values.sum()])]
+        parts += [np.bincount(self.codes[:, j], values, minlength=len(lv)) for j, lv in enumerate(self.levels)]
+        return np.concatenate(parts)
+
+    def gram(self, weights: np.ndarray) -> np.ndarray:
+        """X'WX in the full space, assembled block by block from weighted counts of level pairs."""
+        gram = np.zeros((self.n_full, self.n_full))
+        offsets, sizes = self.offsets, [len(lv) for lv in self.levels]
+        totals = self.transpose_times(weights)
+        gram[0, :] = totals
+        gram[:, 0] = totals
+        gram[np.arange(1, self.n_full), np.arange(1, self.n_full)] = totals[1:]
+        for a in range(len(sizes)):
+            block_a = slice(offsets[a], offsets[a] + sizes[a])
+            for b in range(a + 1, len(sizes)):
+                pair = self.codes[:, a].astype(np.int64) * sizes[b] + self.codes[:, b]
+                block = np.bincount(pair, weights, minlength=sizes[a] * sizes[b]).reshape(sizes[a], sizes[b])
+                block_b = slice(offsets[b], offsets[b] + sizes[b])
+                gram[block_a, block_b] = block
+                gram[block_b, block_a] = block.T
+        return gram
+
+    def dense(self, columns: np.ndarray) -> np.ndarray:
+        """Dense design with the given full-space columns (for small designs, e.g. cells)."""
+        full = np.zeros((self.n_rows, self.n_full))
+        full[:, 0] = 1.0
+        rows = np.arange(self.n_rows)
+        for j, offset in enumerate(self.offsets):
+            full[rows, offset + self.codes[:, j]] = 1.0
+        return full[:, columns]
+
+
+@dataclass(frozen=True)
+class Cells:
+    """Distinct combinations of factor levels with the sums of their rows."""
+
+    design: OneHotDesign
+    numerator: np.ndarray
+    weight: np.ndarray
+    row_count: np.ndarray
+
+
+def aggregate_cells(design: OneHotDesign, numerator: np.ndarray, weight: np.ndarray) -> Cells:
+    """Group rows by their level codes (sorted cells) and sum numerator, weight and rows per cell."""
+    key = np.zeros(design.n_rows, dtype=np.int64)
+    span = 1
+    for j, lv in enumerate(design.levels):
+        if span * len(lv) >= 2**62:
+            key = np.unique(key, return_inverse=True)[1].astype(np.int64)
+            span = int(key.max()) + 1
+        key = key * len(lv) + design.codes[:, j]
+        span *= len(lv)
+    _, first_row, cell_of_row = np.unique(key, return_index=True, return_inverse=True)
+    n_cells = len(first_row)
+    return Cells(
+        design=design.take(first_row),
+        numerator=np.bincount(cell_of_row, numerator, minlength=n_cells),
+        weight=np.bincount(cell_of_row, weight, minlength=n_cells),
+        row_count=np.bincount(cell_of_row, minlength=n_cells).astype(float),
+    )
+
+
+@dataclass(frozen=True)
+class ColumnChoice:
+    """Estimated full-space columns, and the dropped ones with the reason."""
+
+    kept: np.ndarray
+    no_data: list[str]
+    collinear: list[str]
+
+
+def choose_columns(design: OneHotDesign, row_count: np.ndarray) -> ColumnChoice:
+    """Drop base levels, levels without rows, and columns in the span of earlier ones (in term order).
+
+    Rank is revealed by a Cholesky factorisation of X'X taken column by column in term order: a
+    column whose squared distance to the span of the kept ones is below ALIAS_TOLERANCE times its
+    squared norm is aliased (as a QR with columns kept in their given order would find).
+    """
+    gram = design.gram(row_count)
+    terms = design.full_terms()
+    base = set(design.base_columns().tolist())
+    kept: list[int] = []
+    factor = np.zeros((0, 0))
+    no_data, collinear = [], []
+    for column in range(design.n_full):
+        if column in base:
+            continue
+        if gram[column, column] == 0.0:
+            no_data.append(terms[column])
+            continue
+        cross = scipy.linalg.solve_triangular(factor, gram[kept, column], lower=True) if kept else np.zeros(0)
+        residual = gram[column, column] - cross @ cross
+        if residual <= ALIAS_TOLERANCE * gram[column, column]:
+            collinear.append(terms[column])
+            continue
+        size = len(kept)
+        grown = np.zeros((size + 1, size + 1))
+        grown[:size, :size] = factor
+        grown[size, :size] = cross
+        grown[size, size] = np.sqrt(residual)
+        factor = grown
+        kept.append(column)
+    return ColumnChoice(np.array(kept, dtype=np.int64), no_data, collinear)
+
+
+def choose_engine(n_rows: int, n_cells: int) -> str:
+    """``cells`` when the cells are few: at most max(CELLS_MIN_LIMIT, CELLS_SHARE_OF_ROWS * rows)."""
+    return "cells" if n_cells <= max(CELLS_MIN_LIMIT, CELLS_SHARE_OF_ROWS * n_rows) else "rows"
+
+
+@dataclass(frozen=True)
+class EngineFit:
+    """Estimates on the kept columns and the inverse Fisher information at unit dispersion."""
+
+    beta: np.ndarray
+    unit_covariance: np.ndarray
+    converged: bool
+    iterations: int
+
+
+def fit_on_cells(cells: Cells, kept: np.ndarray, family: Family) -> EngineFit:
+    """statsmodels GLM on the cells: Poisson on summed counts with offset log(summed exposure); Gamma
+    and Tweedie on summed numerator / summed weight with var_weights the summed weight. Exact: the
+    score and Fisher information of the rows depend only on these sums."""
+    exog = cells.design.dense(kept)
+    if family.name == "poisson":
+        model = sm.GLM(cells.numerator, exog, family=family.statsmodels(), offset=np.log(cells.weight))
+    else:
+        model = sm.GLM(
+            cells.numerator / cells.weight, exog, family=family.statsmodels(), var_weights=cells.weight
+        )
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        fit = model.fit(tol=COEFFICIENT_TOLERANCE, tol_criterion="params", maxiter=MAX_ITERATIONS)
+    return EngineFit(np.asarray(fit.params), np.asarray(fit.normalized_cov_params), bool(fit.converged),
+                     int(fit.fit_history["iteration"]))
+
+
+def fit_on_rows(
+    design: OneHotDesign, numerator: np.ndarray, weight: np.ndarray, kept: np.ndarray, family: Family
+) -> EngineFit:
+    """Fisher scoring (IRLS) on the sparse one-hot rows until every coefficient moves < 1e-10.
+
+    Working weights w * mu**(2 - power), working response eta + (y - mu) / mu, start
+    mu = (y + mean y) / 2 as statsmodels; covariance from X'WX at the final estimate.
+    """
+    rate = numerator / weight
+    mu = (rate + numerator.sum() / weight.sum()) / 2.0
+    eta = np.log(mu)
+    beta = np.full(len(kept), np.inf)
+    beta_full = np.zeros(design.n_full)
+    converged, iteration = False, 0
+    for iteration in range(1, MAX_ITERATIONS + 1):
+        working_weight = weight * mu ** (2.0 - family.power)
+        information = design.gram(working_weight)[np.ix_(kept, kept)]
+        score_side = design.transpose_times(working_weight * (eta + (rate - mu) / mu))[kept]
+        new_beta = scipy.linalg.cho_solve(scipy.linalg.cho_factor(information), score_side)
+        step = np.max(np.abs(new_beta - beta))
+        beta = new_beta
+        beta_full[kept] = beta
+        eta = design.linear_predictor(beta_full)
+        mu = np.exp(eta)
+        if step < COEFFICIENT_TOLERANCE:
+            converged = True
+            break
+    information = design.gram(weight * mu ** (2.0 - family.power))[np.ix_(kept, kept)]
+    unit_covariance = scipy.linalg.cho_solve(scipy.linalg.cho_factor(information), np.eye(len(kept)))
+    return EngineFit(beta, unit_covariance, converged, iteration)
+
+
+@dataclass(frozen=True)
+class RowStatistics:
+    """Row-level statistics as statsmodels reports them for the row-level fit with var_weights."""
+
+    n_rows: int
+    n_parameters: int
+    deviance: float
+    null_deviance: float
+    pearson_chi2: float
+    dispersion: float
+    llf: float
+
+    @property
+    def df_resid(self) -> int:
+        return self.n_rows - self.n_parameters
+
+    @property
+    def aic(self) -> float:
+        """-2 llf + 2 k, k the number of estimated coefficients (dispersion not counted)."""
+        return -2.0 * self.llf + 2.0 * self.n_parameters
+
+
+def row_statistics(
+    design: OneHotDesign,
+    beta_full: np.ndarray,
+    numerator: np.ndarray,
+    weight: np.ndarray,
+    family: Family,
+    n_parameters: int,
+    chunk_rows: int = CHUNK_ROWS,
+) -> RowStatistics:
+    """Deviance, null deviance (intercept only, rate sum(a)/sum(w)), Pearson chi2, dispersion
+    (chi2 / df_resid; 1 for Poisson) and log-likelihood at that dispersion, from partial sums over
+    row chunks. Log-likelihood, deviance and variance are statsmodels' own family functions."""
+    model_family = family.statsmodels()
+    null_rate = numerator.sum() / weight.sum()
+    deviance = null_deviance = pearson_chi2 = 0.0
+    for rows in design.chunks(chunk_rows):
+        rate = np.exp(design.linear_predictor(beta_full, rows))
+        endog, mu, var_weights = family.row_view(numerator[rows], weight[rows], rate)
+        deviance += model_family.deviance(endog, mu, var_weights)
+        pearson_chi2 += float(np.sum(var_weights * (endog - mu) ** 2 / model_family.variance(mu)))
+        _, null_mu, _ = family.row_view(numerator[rows], weight[rows], np.full(len(rate), null_rate))
+        null_deviance += model_family.deviance(endog, null_mu, var_weights)
+    n_rows = design.n_rows
+    dispersion = 1.0 if family.name == "poisson" else pearson_chi2 / (n_rows - n_parameters)
+    llf = 0.0
+    for rows in design.chunks(chunk_rows):
+        rate = np.exp(design.linear_predictor(beta_full, rows))
+        endog, mu, var_weights = family.row_view(numerator[rows], weight[rows], rate)
+        llf += model_family.loglike(endog, mu, var_weights=var_weights, scale=dispersion)
+    return RowStatistics(n_rows, n_parameters, float(deviance), float(null_deviance), pearson_chi2,
+                         float(dispersion), float(llf))
