@@ -76,7 +76,8 @@ def _require_positive_total(name: str, values: np.ndarray) -> None:
 
 
 def _check_power(power: float) -> None:
-    if not np.isfinite(power) or power < 0 or 0 < power < 1:
+    numeric = isinstance(power, (int, float, np.number)) and not isinstance(power, bool)
+    if not numeric or not np.isfinite(power) or power < 0 or 0 < power < 1:
         raise InputError(
             f"power: {power!r} is not a Tweedie power with a deviance here; use 0, 1, 1 < p < 2, 2 or p > 2"
         )
@@ -120,7 +121,7 @@ def _unit_deviance(y: np.ndarray, mu: np.ndarray, power: float) -> np.ndarray:
 
 
 def unit_deviance(y: ArrayLike, mu: ArrayLike, power: float) -> np.ndarray:
-    """Tweedie unit deviance d(y, mu) per row (units of y squared over the variance function).
+    """Tweedie unit deviance d(y, mu) per row, >= 0 and 0 only where y = mu.
 
     power 0: (y - mu)^2; 1 (Poisson): 2 (y log(y/mu) - y + mu); 2 (Gamma): 2 (log(mu/y) + y/mu - 1);
     1 < p < 2 and p > 2: 2 (y^(2-p)/((1-p)(2-p)) - y mu^(1-p)/(1-p) + mu^(2-p)/(2-p)).
@@ -334,15 +335,17 @@ def double_lift(
 
 
 def actual_vs_expected(
-    actual: ArrayLike, predicted: ArrayLike, exposure: ArrayLike, levels: pd.Series
+    actual: ArrayLike, predicted: ArrayLike, exposure: ArrayLike, levels: pd.Series | ArrayLike
 ) -> pd.DataFrame:
     """Actual against expected per level (or band) of one factor.
 
     Columns: `level`, `policies`, `exposure`, `actual` = sum(actual), `expected` =
     sum(predicted * exposure) (same units as actual), `actual_to_expected` = actual / expected.
-    Levels come in category order for a categorical series, otherwise sorted.
+    Levels come in category order for a categorical series (unused categories left out),
+    otherwise sorted; the series' name is used in error messages.
     """
     actual_arr, exposure_arr, predicted_arr = _checked_loss_inputs(actual, exposure, predicted=predicted)
+    levels = levels if isinstance(levels, pd.Series) else pd.Series(levels)
     name = levels.name if levels.name is not None else "levels"
     if len(levels) != actual_arr.size:
         raise InputError(f"length mismatch: actual has {actual_arr.size} rows, {name} has {len(levels)}")
@@ -411,16 +414,17 @@ def paired_bootstrap(
     Each resample draws n unit indices (rows, or the distinct `groups` such as policies) uniformly
     with replacement from `np.random.default_rng(seed).integers`; a unit drawn k times gets weight
     k, so the weights are multinomial(n, 1/n each) counts: exact resampling, not the Poisson(1)
-    approximation. Both
-    models see the same resample because `metric_fn(weights, *arrays)` computes the difference for
-    a whole batch of weight rows (shape (B, n_rows)) at once. The estimate is `metric_fn` with unit
-    weights; the interval is the 2.5 and 97.5 percentiles of the resampled differences.
+    approximation. Both models see the same resample because `metric_fn(weights, *arrays)`
+    computes the difference for a whole batch of weight rows (shape (B, n_rows)) at once; batches
+    hold about two million weights. The estimate is `metric_fn` with unit weights; the interval is
+    the 2.5 and 97.5 percentiles of the resampled differences.
     """
     if isinstance(n_boot, bool) or not isinstance(n_boot, (int, np.integer)) or n_boot < 2:
         raise InputError(f"n_boot: {n_boot!r} must be an integer >= 2")
     rows = arrays[0].shape[0] if arrays else 0
     if rows == 0 or any(a.shape[0] != rows for a in arrays):
-        raise InputError(f"arrays: need one or more arrays of equal, positive length, got {[a.shape[0] for a in arrays]}")
+        lengths = [a.shape[0] for a in arrays]
+        raise InputError(f"arrays: need one or more arrays of equal, positive length, got lengths {lengths}")
     if groups is None:
         unit_of_row = None
         units = rows
@@ -428,6 +432,9 @@ def paired_bootstrap(
         group_values = np.asarray(groups)
         if group_values.shape != (rows,):
             raise InputError(f"groups: expected {rows} rows, got shape {group_values.shape}")
+        missing = np.flatnonzero(pd.isna(group_values))
+        if missing.size:
+            raise InputError(f"groups: {missing.size} missing value(s), first at row {missing[0]}")
         _, unit_of_row = np.unique(group_values, return_inverse=True)
         units = int(unit_of_row.max()) + 1
     rng = np.random.default_rng(seed)
@@ -473,7 +480,8 @@ def deviance_difference(
     seed: int,
     groups: ArrayLike | None = None,
 ) -> BootstrapInterval:
-    """mean_deviance(a) - mean_deviance(b) with a paired bootstrap interval (> 0: b fits better)."""
+    """mean_deviance(a) - mean_deviance(b) with a paired bootstrap interval (> 0: b fits better).
+    `groups` (e.g. policy ids) resamples whole groups of rows together."""
     y_arr, w_arr, mu_a_arr, mu_b_arr = _checked_deviance_inputs(y, weight, power, mu_a=mu_a, mu_b=mu_b)
     unit_difference = _unit_deviance(y_arr, mu_a_arr, power) - _unit_deviance(y_arr, mu_b_arr, power)
     return paired_bootstrap(
@@ -503,10 +511,12 @@ def gini_difference(
     seed: int,
     groups: ArrayLike | None = None,
 ) -> BootstrapInterval:
-    """gini(a) - gini(b) with a paired bootstrap interval (> 0: a ranks risks better)."""
+    """gini(a) - gini(b) with a paired bootstrap interval (> 0: a ranks risks better).
+    `groups` (e.g. policy ids) resamples whole groups of rows together."""
     actual_arr, exposure_arr, a_arr, b_arr = _checked_loss_inputs(
         actual, exposure, pred_a=pred_a, pred_b=pred_b
     )
     return paired_bootstrap(
-        _gini_difference_batch, actual_arr, a_arr, b_arr, exposure_arr, n_boot=n_boot, seed=seed, groups=groups
+        _gini_difference_batch, actual_arr, a_arr, b_arr, exposure_arr,
+        n_boot=n_boot, seed=seed, groups=groups,
     )

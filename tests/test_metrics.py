@@ -234,6 +234,7 @@ def test_gini_bootstrap_speed(book: pd.DataFrame) -> None:
         (lambda: metrics.mean_deviance([1, -2], [1, 2], [1, 1], 1.5), r"y: 1 value\(s\) not >= 0 \(Tweedie power 1.5\), first at row 1"),
         (lambda: metrics.mean_deviance([0, 2], [1, 2], [1, 1], 2), r"y: 1 value\(s\) not > 0 \(Tweedie power 2\), first at row 0"),
         (lambda: metrics.mean_deviance([1, 2], [1, 2], [1, 1], 0.5), r"power: 0.5 is not a Tweedie power"),
+        (lambda: metrics.mean_deviance([1, 2], [1, 2], [1, 1], "1"), r"power: '1' is not a Tweedie power"),
         (lambda: metrics.mean_deviance(["a"], [1], [1], 1), r"y: values are not numeric"),
         (lambda: metrics.mean_deviance([[1, 2]], [[1, 2]], [[1, 1]], 1), r"y: expected a one-dimensional array"),
         (lambda: metrics.mean_deviance([], [], [], 1), r"y: no rows"),
