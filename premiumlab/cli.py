@@ -95,6 +95,16 @@ def fit(book: Annotated[Path, typer.Argument(help="Book (.csv, .parquet or a fol
 
 @app.command()
 @handled
+def compare(run: Annotated[Path, typer.Argument(help="Run directory written by `fit`.")]) -> None:
+    """Compare GLM and GBM on the holdout; write comparison.json and figures/."""
+    from premiumlab.comparison import compare as compare_run, summary_lines
+    result = compare_run(run)
+    typer.echo("\n".join(summary_lines(result)))
+    _echo_cautions(result["cautions"])
+
+
+@app.command()
+@handled
 def demo(out: Annotated[Path, typer.Option("--out", help="Folder for the demo outputs.")] = Path("demo-output"),
          policies: Annotated[Optional[int], typer.Option(help="Policies in the demo book.")] = None,
          force: Force = False) -> None:

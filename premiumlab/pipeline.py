@@ -36,6 +36,14 @@ class Run:
     def model_json(self, name: str) -> dict:
         return read_json(self.path / "models" / f"{name}.json")
 
+    def load_book(self, path: str | Path | None = None) -> Book:
+        """The run's book (recorded relative to the run folder, or `path`), checked by its sha256."""
+        p = Path(path) if path is not None else self.path / self.manifest["book"]["path_from_run"]
+        book = load_book(p, self.spec)
+        if book.sha256 != self.manifest["book"]["sha256"]:
+            raise InputError(f"{p}: this is not the book the run {self.path} was fitted on (sha256 differs)")
+        return book
+
 
 def parse_models(text: str) -> list[str]:
     """'glm,gbm' -> ['glm', 'gbm'], refusing unknown names."""
@@ -88,7 +96,8 @@ def fit(book_path: str | Path, spec_path: str | Path, out: str | Path, models: s
     with atomic_output(out, force=force) as tmp:
         (tmp / "models").mkdir()
         preds = pd.DataFrame({"row": np.arange(book.n_rows, dtype=np.int64), "holdout": book.holdout,
-                              "exposure": book.exposure, "claim_count": book.claim_count})
+                              "exposure": book.exposure, "claim_count": book.claim_count,
+                              "policy_group": pd.factorize(book.policy)[0].astype(np.int64)})
         if has_amount:
             preds["claim_amount"] = book.claim_amount
         glm_power = None
@@ -102,6 +111,9 @@ def fit(book_path: str | Path, spec_path: str | Path, out: str | Path, models: s
             fit_gbms(book, spec, train, glm_power, tmp, preds, progress=progress)
             timings["gbm_seconds"] = time.perf_counter() - t
         preds.to_parquet(tmp / "predictions.parquet", index=False)
+        if book.holdout.any():
+            from premiumlab.comparison import holdout_metrics
+            write_json(tmp / "metrics.json", holdout_metrics(preds, glm_power or 1.5))
         write_json(tmp / "levels.json", {k: {"labels": list(v.labels), "base": v.base,
                                              "edges": None if v.edges is None else list(v.edges)}
                                          for k, v in levels.items()})
