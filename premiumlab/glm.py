@@ -14,6 +14,7 @@ import numpy as np
 import pandas as pd
 import scipy.stats
 
+from premiumlab.cautions import DRAFT
 from premiumlab.errors import InputError
 from premiumlab.glm_engines import (
     GAMMA,
@@ -33,10 +34,6 @@ from premiumlab.glm_engines import (
 )
 from premiumlab.tweedie import POWER_GRID, profile_power
 
-CAUTION = (
-    "Draft for review by a qualified actuary: rates must be filed and approved under local rate "
-    "regulation before use."
-)
 ENGINES = ("auto", "cells", "rows")
 
 
@@ -177,7 +174,7 @@ class GlmResult:
             "aliased": list(self.aliased),
             "power_profile": [{key: _json_float(value) for key, value in entry.items()} for entry in self.power_profile],
             "notes": list(self.notes),
-            "caution": CAUTION,
+            "caution": DRAFT,
         }
 
     @classmethod
