@@ -217,7 +217,7 @@ def _check_vector(name: str, values: np.ndarray | None, rows: int, rule: Callabl
     ok = np.isfinite(array) & rule(array)
     if not ok.all():
         row = int(np.flatnonzero(~ok)[0])
-        raise InputError(f"{name}: row {row} has {array[row]!r}; values must be finite and {rule_text}")
+        raise InputError(f"{name}: row {row} has {float(array[row])!r}; values must be finite and {rule_text}")
     return array
 
 
@@ -375,10 +375,12 @@ def _select_settings(options: GbmOptions) -> list[dict]:
     return [grid[i] for i in sorted(picked)]
 
 
-def _deviance_eval(power: float) -> Callable[[np.ndarray, lgb.Dataset], tuple[str, float, bool]]:
-    """LightGBM feval: weighted mean deviance of the family (predictions on the response scale)."""
-    def evaluate(predictions: np.ndarray, data: lgb.Dataset) -> tuple[str, float, bool]:
-        return "deviance", mean_deviance(data.get_label(), predictions, data.get_weight(), power), False
+def _deviance_eval(label: np.ndarray, weight: np.ndarray,
+                   power: float) -> Callable[[np.ndarray, lgb.Dataset], tuple[str, float, bool]]:
+    """LightGBM feval on one validation fold: weighted mean deviance of the family, predictions on
+    the response scale. The float64 labels are used, not the Dataset's float32 copy."""
+    def evaluate(predictions: np.ndarray, _: lgb.Dataset) -> tuple[str, float, bool]:
+        return "deviance", mean_deviance(label, predictions, weight, power), False
     return evaluate
 
 
@@ -395,6 +397,17 @@ def _progress(description: str, total: int) -> Iterator[Callable[[], None]]:
         yield lambda: bar.advance(task)
 
 
+def _fold_fit(full: lgb.Dataset, data: TrainingData, setting: dict, train_rows: np.ndarray,
+              valid_rows: np.ndarray, options: GbmOptions) -> tuple[float, int]:
+    """(held-out deviance at the best round, best round count) of one setting on one fold."""
+    feval = _deviance_eval(data.label[valid_rows], data.weight[valid_rows], data.power)
+    booster = lgb.train({**data.base_params, **setting}, full.subset(train_rows),
+                        num_boost_round=options.max_rounds, valid_sets=[full.subset(valid_rows)],
+                        valid_names=["fold"], feval=feval,
+                        callbacks=[lgb.early_stopping(options.early_stopping_rounds, verbose=False)])
+    return float(booster.best_score["fold"]["deviance"]), int(booster.best_iteration or options.max_rounds)
+
+
 def cross_validate(data: TrainingData, settings: list[dict], options: GbmOptions) -> list[dict]:
     """One CV row per setting: fold deviances at each fold's best round, their mean and sample
     standard deviation, the folds' best rounds and their rounded mean (`rounds`)."""
@@ -405,20 +418,14 @@ def cross_validate(data: TrainingData, settings: list[dict], options: GbmOptions
                          "use fewer folds")
     full = data.dataset().construct()
     splits = [(np.flatnonzero(fold != k), np.flatnonzero(fold == k)) for k in range(options.folds)]
-    feval = _deviance_eval(data.power)
     table = []
     with _progress(f"cross-validating the {data.target} model", len(settings) * options.folds) as advance:
         for setting in settings:
-            deviances, rounds = [], []
+            results = []
             for train_rows, valid_rows in splits:
-                valid = full.subset(valid_rows)
-                booster = lgb.train({**data.base_params, **setting}, full.subset(train_rows),
-                                    num_boost_round=options.max_rounds, valid_sets=[valid], valid_names=["fold"],
-                                    feval=feval, callbacks=[lgb.early_stopping(options.early_stopping_rounds,
-                                                                               verbose=False)])
-                deviances.append(float(booster.best_score["fold"]["deviance"]))
-                rounds.append(int(booster.best_iteration or options.max_rounds))
+                results.append(_fold_fit(full, data, setting, train_rows, valid_rows, options))
                 advance()
+            deviances, rounds = [r[0] for r in results], [r[1] for r in results]
             table.append({"setting": setting, "mean_deviance": float(np.mean(deviances)),
                           "sd_deviance": float(np.std(deviances, ddof=1)),
                           "rounds": max(1, int(round(float(np.mean(rounds))))),
