@@ -105,6 +105,14 @@ def compare(run: Annotated[Path, typer.Argument(help="Run directory written by `
 
 @app.command()
 @handled
+def report(run: Annotated[Path, typer.Argument(help="Run directory written by `fit`.")]) -> None:
+    """Write RUN/report.html: one file with the comparison, figures, GLM tables and cautions."""
+    from premiumlab.report import write_report
+    typer.echo(f"wrote {write_report(run)}")
+
+
+@app.command()
+@handled
 def demo(out: Annotated[Path, typer.Option("--out", help="Folder for the demo outputs.")] = Path("demo-output"),
          policies: Annotated[Optional[int], typer.Option(help="Policies in the demo book.")] = None,
          force: Force = False) -> None:
