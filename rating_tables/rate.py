@@ -1,0 +1,225 @@
+"""The rater: relativities, pure and gross premium for every row of a book, vectorised (DESIGN 3.4).
+
+pure_premium  = ((base_rate x rel_1) x rel_2 ... x rel_k) x exposure   (factors in table order)
+gross_premium = max(minimum_premium, (pure x (1 + lae_ratio) + fixed_expense x exposure)
+                                     / (1 - variable_expense - profit)), rounded half to even
+                to `premium_decimals`.
+Exposure is the book's earned exposure, or one full term (1.0) per row with `annual=True`.
+Numeric values go to the band [lower, upper) that holds them (np.searchsorted on the lower edges;
+-inf and inf fall in the end bands); categorical values are compared as strings (pandas
+categoricals are mapped once per category, then taken by code). Errors name the 0-based book row.
+"""
+from __future__ import annotations
+
+import dataclasses
+
+import numpy as np
+import pandas as pd
+
+from rating_tables.errors import TableError
+from rating_tables.table import (Bands, CategoricalFactor, Loadings, NumericFactor,
+                                 RatingTable, band_index, mapping_to_side)
+
+
+def book_row(i: int) -> str:
+    """The text naming position `i` of a book as a 0-based row."""
+    return f"book row {i} (0-based)"
+
+
+def _column(book: pd.DataFrame, name: str, what: str) -> pd.Series:
+    if name not in book.columns:
+        raise TableError(f"{what}: the book has no column {name!r}", check="book", where=name)
+    return book[name]
+
+
+def numeric_values(series: pd.Series, what: str, row_offset: int = 0) -> np.ndarray:
+    """The column as float64; TableError at the first non-numeric or missing value."""
+    if isinstance(series.dtype, pd.CategoricalDtype):
+        series = pd.Series(np.asarray(series, dtype=object))
+    if pd.api.types.is_bool_dtype(series.dtype):
+        raise TableError(f"{what}: the column holds true/false values, not numbers", check="book")
+    if pd.api.types.is_numeric_dtype(series.dtype):
+        values = series.to_numpy(dtype=np.float64, na_value=np.nan)
+    else:
+        try:
+            values = series.astype("float64").to_numpy()
+        except (TypeError, ValueError):
+            coerced = pd.to_numeric(series, errors="coerce")
+            bad = np.flatnonzero(coerced.isna().to_numpy() & series.notna().to_numpy())
+            where = book_row(row_offset + int(bad[0])) if bad.size else "some row"
+            text = series.iloc[int(bad[0])] if bad.size else "?"
+            raise TableError(f"{what}: value {text!r} at {where} is not a number", check="book",
+                             where=where) from None
+    missing = np.flatnonzero(np.isnan(values))
+    if missing.size:
+        where = book_row(row_offset + int(missing[0]))
+        raise TableError(f"{what}: missing value at {where}", check="book", where=where)
+    return values
+
+
+def level_index(factor: CategoricalFactor, series: pd.Series, row_offset: int = 0) -> np.ndarray:
+    """Index into `factor.levels` of each value, compared as strings; unknown values take the
+    fallback level when the factor names one."""
+    what = f"factor {factor.name!r}"
+    if isinstance(series.dtype, pd.CategoricalDtype):
+        codes = series.cat.codes.to_numpy()
+        labels = [str(c) for c in series.cat.categories]
+    else:
+        codes, uniques = pd.factorize(series, use_na_sentinel=True)
+        labels = [str(u) for u in uniques]
+    missing = np.flatnonzero(codes < 0)
+    if missing.size:
+        where = book_row(row_offset + int(missing[0]))
+        raise TableError(f"{what}: missing value at {where}", check="book", factor=factor.name, where=where)
+    position = {level: i for i, level in enumerate(factor.levels)}
+    to_level = np.array([position.get(label, -1) for label in labels], dtype=np.intp)
+    unknown = to_level < 0
+    if unknown.any():
+        if factor.fallback is None:
+            first = int(np.flatnonzero(unknown[codes])[0])
+            where = book_row(row_offset + first)
+            raise TableError(f"{what}: level {labels[codes[first]]!r} at {where} is not in the table and the "
+                             "factor has no fallback", check="book", factor=factor.name, where=where)
+        to_level[unknown] = position[factor.fallback]
+    return to_level[codes]
+
+
+def _exposure(book: pd.DataFrame, exposure_column: str | None, annual: bool, row_offset: int) -> np.ndarray:
+    if annual:
+        return np.ones(len(book))
+    if exposure_column is None:
+        raise TableError("exposure: name the book's exposure column, or rate annual (one full term per row)",
+                         check="book")
+    what = f"exposure column {exposure_column!r}"
+    values = numeric_values(_column(book, exposure_column, what), what, row_offset)
+    bad = np.flatnonzero(~(np.isfinite(values) & (values >= 0)))
+    if bad.size:
+        where = book_row(row_offset + int(bad[0]))
+        raise TableError(f"{what}: value {values[bad[0]]!r} at {where} must be finite and >= 0", check="book",
+                         where=where)
+    return values
+
+
+def relativities(table: RatingTable, book: pd.DataFrame, row_offset: int = 0) -> dict[str, np.ndarray]:
+    """The build-up columns `rel_NAME` (interactions `rel_a__b`), in table order."""
+    cells: dict[str, np.ndarray] = {}
+    values: dict[str, np.ndarray] = {}
+    out: dict[str, np.ndarray] = {}
+    for factor in table.factors:
+        if isinstance(factor, NumericFactor):
+            what = f"factor {factor.name!r}"
+            values[factor.name] = numeric_values(_column(book, factor.name, what), what, row_offset)
+            cells[factor.name] = band_index(factor.lower, values[factor.name])
+            out[f"rel_{factor.name}"] = factor.relativity[cells[factor.name]]
+        elif isinstance(factor, CategoricalFactor):
+            series = _column(book, factor.name, f"factor {factor.name!r}")
+            cells[factor.name] = level_index(factor, series, row_offset)
+            out[f"rel_{factor.name}"] = factor.relativity[cells[factor.name]]
+        else:
+            i, j = (_side_index(table, side, side_cells, cells, values)
+                    for side, side_cells in zip(factor.of, (factor.a_cells, factor.b_cells)))
+            out[f"rel_{factor.name}"] = factor.relativity[i, j]
+    return out
+
+
+def _side_index(table: RatingTable, side: str, side_cells: Bands | tuple[str, ...],
+                cells: dict[str, np.ndarray], values: dict[str, np.ndarray]) -> np.ndarray:
+    if isinstance(side_cells, Bands):
+        return band_index(side_cells.lower, values[side])
+    main = table.factor(side)
+    assert isinstance(main, CategoricalFactor)
+    return mapping_to_side(main, side_cells)[cells[side]]
+
+
+def pure_premium(base_rate: float, rels: dict[str, np.ndarray], exposure: np.ndarray) -> np.ndarray:
+    """((base_rate x rel_1) x ... x rel_k) x exposure, money per row."""
+    pure = np.full(exposure.shape, base_rate)
+    for rel in rels.values():
+        pure *= rel
+    return pure * exposure
+
+
+def gross_premium(pure: np.ndarray, exposure: np.ndarray, loadings: Loadings, premium_decimals: int,
+                  apply_minimum: bool = True) -> np.ndarray:
+    """max(minimum_premium, (pure x (1 + lae_ratio) + fixed_expense x exposure) / (1 - variable_expense
+    - profit)), rounded half to even to `premium_decimals` (money per row)."""
+    gross = (pure * (1.0 + loadings.lae_ratio) + loadings.fixed_expense * exposure) \
+        / (1.0 - loadings.variable_expense - loadings.profit)
+    if apply_minimum:
+        gross = np.maximum(gross, loadings.minimum_premium)
+    return np.round(gross, premium_decimals)
+
+
+def rating_columns(table: RatingTable, book: pd.DataFrame, exposure_column: str | None = None,
+                   annual: bool = False, row_offset: int = 0) -> dict[str, np.ndarray]:
+    """The columns the rater adds: `rel_*` in table order, then `pure_premium`, `gross_premium`.
+
+    `row_offset` is added to row numbers in error messages (for books rated in batches).
+    """
+    exposure = _exposure(book, exposure_column, annual, row_offset)
+    out = relativities(table, book, row_offset)
+    out["pure_premium"] = pure_premium(table.base_rate, out, exposure)
+    out["gross_premium"] = gross_premium(out["pure_premium"], exposure, table.loadings,
+                                         table.rounding.premium_decimals)
+    return out
+
+
+def check_no_clash(existing: list[str], added: list[str], what: str) -> None:
+    """Refuse a book that already has a column the rater would add."""
+    clash = [c for c in added if c in set(existing)]
+    if clash:
+        raise TableError(f"{what}: the book already has a column {clash[0]!r}, which rating would add",
+                         check="book", where=clash[0])
+
+
+def added_columns(table: RatingTable) -> list[str]:
+    """Names of the columns `rate` adds, in order."""
+    return [f"rel_{f.name}" for f in table.factors] + ["pure_premium", "gross_premium"]
+
+
+def rate(table: RatingTable, book: pd.DataFrame, exposure_column: str | None = None,
+         annual: bool = False) -> pd.DataFrame:
+    """Rate every row of `book`: its columns plus `rel_*`, `pure_premium` and `gross_premium`.
+
+    `exposure_column` is the earned exposure (in the table's exposure unit); with `annual=True`
+    every row is rated for one full term and the column is not needed.
+    """
+    check_no_clash(list(book.columns), added_columns(table), "book")
+    return book.assign(**rating_columns(table, book, exposure_column, annual))
+
+
+def solve_base_rate(table: RatingTable, book: pd.DataFrame, exposure_column: str | None,
+                    target_total: float, annual: bool = False) -> tuple[RatingTable, dict]:
+    """The table with the base rate that makes sum(pure_premium) over `book` equal `target_total`.
+
+    Pure premium is linear in the base rate, so the new base rate is base_rate x off-balance factor,
+    with off-balance factor = target_total / sum(pure_premium at the current base rate). The table's
+    `target.total_pure_premium` is set to `target_total`. When a minimum premium is loaded, the report
+    also states its effect on the gross premium: sum(gross) / sum(gross without the minimum) - 1.
+    """
+    if isinstance(target_total, bool) or not isinstance(target_total, (int, float, np.number)) \
+            or not np.isfinite(target_total) or target_total <= 0:
+        raise TableError(f"target_total: must be a finite number > 0, got {target_total!r}", where="target_total")
+    exposure = _exposure(book, exposure_column, annual, 0)
+    rels = relativities(table, book)
+    before = float(pure_premium(table.base_rate, rels, exposure).sum())
+    if not before > 0:
+        raise TableError("book: the table rates it to a total pure premium of 0 (no exposure?)", check="book")
+    off_balance = float(target_total) / before
+    solved = dataclasses.replace(table, base_rate=table.base_rate * off_balance,
+                                 target={**table.target, "total_pure_premium": float(target_total)})
+    pure = pure_premium(solved.base_rate, rels, exposure)
+    report: dict = {"base_rate_before": table.base_rate, "base_rate": solved.base_rate,
+                    "off_balance_factor": off_balance, "total_pure_premium_before": before,
+                    "total_pure_premium": float(pure.sum()), "target_total_pure_premium": float(target_total)}
+    minimum = table.loadings.minimum_premium
+    if minimum > 0:
+        decimals = table.rounding.premium_decimals
+        without = gross_premium(pure, exposure, table.loadings, decimals, apply_minimum=False)
+        with_minimum = gross_premium(pure, exposure, table.loadings, decimals)
+        report["minimum_premium"] = {
+            "minimum_premium": minimum, "policies_at_minimum": int((without < minimum).sum()),
+            "share_at_minimum": float((without < minimum).mean()),
+            "gross_without_minimum": float(without.sum()), "gross_with_minimum": float(with_minimum.sum()),
+            "effect": float(with_minimum.sum() / without.sum() - 1.0)}
+    return solved, report
