@@ -1,0 +1,181 @@
+"""Audit of a rating table: promised directions, base levels at 1, optional relativity bounds.
+
+Structural rules (bands covering (-inf, inf) without gap or overlap, finite positive relativities,
+`file` paths inside the table folder) are enforced whenever a table is built or loaded, so a
+`RatingTable` already satisfies them; `audit_path` reports a folder that breaks them as a violation.
+"""
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass
+
+import numpy as np
+
+from rating_tables.errors import TableError
+from rating_tables.io import load
+from rating_tables.table import (MONOTONE, Bands, CategoricalFactor, Factor, InteractionFactor, MainFactor,
+                                 NumericFactor, RatingTable, band_index, band_label, cell_labels,
+                                 mapping_to_side)
+
+MONOTONE_TOLERANCE = 1e-12  # relative step below which a reversal is floating-point noise
+
+
+@dataclass(frozen=True)
+class Violation:
+    """One audit finding: which check, on which factor, where, what, and by how much.
+
+    `amount` is in the unit the detail states (relative step, distance from 1, distance beyond a bound).
+    """
+
+    check: str
+    factor: str | None
+    where: str | None
+    detail: str
+    amount: float | None = None
+
+    def __str__(self) -> str:
+        size = "" if self.amount is None else f" (by {self.amount:.6g})"
+        return f"{self.check}: {self.detail}{size}"
+
+
+def audit(table: RatingTable, promises: dict[str, str] | None = None,
+          bounds: dict[str, tuple[float | None, float | None]] | None = None) -> list[Violation]:
+    """Findings on `table`; an empty list means it passes.
+
+    Directions come from each factor's `monotone`, overridden or added by `promises`
+    ({factor: increasing|decreasing|none}). A promised factor must move that way band to band
+    (numeric) or level to level in file order (categorical); where it is in two-way tables the check
+    is on main effect x two-way relativities, for every combination of the other factors' cells.
+    Every factor needs a band or level whose relativity rounds to 1 at `relativity_decimals`
+    (|r - 1| <= 0.5 x 10**-decimals; a categorical's `base` level when named), a two-way table a
+    base row and a base column at 1. `bounds` ({factor or "*": (min, max)}, None for no limit)
+    bounds every relativity.
+    """
+    directions = {f.name: f.monotone for f in table.main_factors}
+    found: list[Violation] = []
+    for name, direction in (promises or {}).items():
+        if direction not in MONOTONE:
+            raise TableError(f"promises: direction {direction!r} for {name!r} must be one of {', '.join(MONOTONE)}",
+                             where=name)
+        if name not in directions:
+            found.append(Violation("promise", name, None, f"factor {name!r}: a direction ({direction}) is "
+                                   "promised but the table has no such numeric or categorical factor"))
+        else:
+            directions[name] = direction
+    for factor in table.main_factors:
+        if directions[factor.name] != "none":
+            found += _direction(table, factor, directions[factor.name])
+    tolerance = 0.5 * 10.0 ** -table.rounding.relativity_decimals
+    for factor in table.factors:
+        found += _base(factor, tolerance)
+    if bounds:
+        found += _bounds(table, bounds)
+    return found
+
+
+def audit_path(path: str | os.PathLike, promises: dict[str, str] | None = None,
+               bounds: dict[str, tuple[float | None, float | None]] | None = None) -> list[Violation]:
+    """Audit the table folder at `path`; a folder that fails to load gives one violation saying why."""
+    try:
+        table = load(path)
+    except TableError as e:
+        return [Violation(e.check, e.factor, e.where, str(e), e.amount)]
+    return audit(table, promises, bounds)
+
+
+def _grid(main: MainFactor, sides: list[Bands | tuple[str, ...]]) -> tuple[list[str], np.ndarray, list[np.ndarray]]:
+    """Cells along a factor fine enough for the main effect and every two-way side: their labels,
+    the main factor's index for each and each side's index for each."""
+    if isinstance(main, CategoricalFactor):
+        levels = np.arange(len(main.levels))
+        return list(main.levels), levels, [mapping_to_side(main, side)[levels] for side in sides]
+    lows = np.unique(np.concatenate([main.lower, *(side.lower for side in sides)]))
+    highs = np.append(lows[1:], np.inf)
+    labels = [band_label(lo, hi) for lo, hi in zip(lows, highs)]
+    return labels, band_index(main.lower, lows), [band_index(side.lower, lows) for side in sides]
+
+
+def _direction(table: RatingTable, main: MainFactor, direction: str) -> list[Violation]:
+    tables = [(f, f.of.index(main.name)) for f in table.interactions if main.name in f.of]
+    sides = [f.a_cells if k == 0 else f.b_cells for f, k in tables]
+    labels, main_index, side_index = _grid(main, sides)
+    if len(labels) < 2:
+        return []
+    combined = main.relativity[main_index].reshape((-1,) + (1,) * len(tables))
+    others: list[tuple[str, list[str]]] = []
+    for n, ((inter, k), index) in enumerate(zip(tables, side_index)):
+        matrix = inter.relativity if k == 0 else inter.relativity.T
+        shape = [len(labels)] + [1] * len(tables)
+        shape[n + 1] = matrix.shape[1]
+        combined = combined * matrix[index].reshape(shape)
+        other = inter.of[1 - k]
+        others.append((other, cell_labels(inter.b_cells if k == 0 else inter.a_cells)))
+    step = combined[1:] / combined[:-1] - 1.0
+    wrong = -step if direction == "increasing" else step
+    found = []
+    for i in np.flatnonzero((wrong > MONOTONE_TOLERANCE).reshape(len(labels) - 1, -1).any(axis=1)):
+        worst = np.unravel_index(int(np.argmax(wrong[i])), wrong[i].shape)
+        context = "".join(f", {name}={cells[j]}" for (name, cells), j in zip(others, worst))
+        count = int((wrong[i] > MONOTONE_TOLERANCE).sum())
+        where = f"{labels[i]} to {labels[i + 1]}"
+        before, after = combined[i][worst], combined[i + 1][worst]
+        spread = f" ({count} combinations of the other factors' cells, worst shown)" if count > 1 else ""
+        found.append(Violation("monotone", main.name, where,
+                               f"factor {main.name!r}, {where}{context}: promised {direction}, the relativity "
+                               f"goes from {before:.6g} to {after:.6g}{spread}; relative step", float(wrong[i][worst])))
+    return found
+
+
+def _base(factor: Factor, tolerance: float) -> list[Violation]:
+    deviation = np.abs(factor.relativity - 1.0)
+    if isinstance(factor, InteractionFactor):
+        found = []
+        for axis, what in ((1, "row"), (0, "column")):
+            worst = deviation.max(axis=axis)
+            if worst.min() > tolerance:
+                found.append(Violation("base_level", factor.name, what,
+                                       f"interaction {factor.name!r}: no base {what} with every relativity at 1; "
+                                       "closest has a distance from 1", float(worst.min())))
+        return found
+    if isinstance(factor, CategoricalFactor) and factor.base is not None:
+        i = factor.levels.index(factor.base)
+        if deviation[i] > tolerance:
+            return [Violation("base_level", factor.name, factor.base,
+                              f"factor {factor.name!r}: base level {factor.base!r} has relativity "
+                              f"{factor.relativity[i]:.6g}, not 1; distance", float(deviation[i]))]
+        return []
+    if deviation.min() > tolerance:
+        kind = "band" if isinstance(factor, NumericFactor) else "level"
+        return [Violation("base_level", factor.name, None,
+                          f"factor {factor.name!r}: no {kind} has relativity 1; the closest is at a distance",
+                          float(deviation.min()))]
+    return []
+
+
+def _bounds(table: RatingTable, bounds: dict[str, tuple[float | None, float | None]]) -> list[Violation]:
+    names = {f.name for f in table.factors}
+    found = [Violation("bounds", name, None, f"factor {name!r}: bounds are given but the table has no such factor")
+             for name in bounds if name != "*" and name not in names]
+    for factor in table.factors:
+        limits = bounds.get(factor.name, bounds.get("*"))
+        if limits is None:
+            continue
+        low, high = limits
+        labels = (_cell_names(factor) if isinstance(factor, InteractionFactor)
+                  else factor.labels())
+        values = factor.relativity.ravel()
+        for limit, beyond, word in ((low, lambda v, x: x - v, "below the minimum"),
+                                    (high, lambda v, x: v - x, "above the maximum")):
+            if limit is None:
+                continue
+            excess = beyond(values, float(limit))
+            for i in np.flatnonzero(excess > 0):
+                found.append(Violation("bounds", factor.name, labels[i],
+                                       f"factor {factor.name!r}, {labels[i]}: relativity {values[i]:.6g} is {word} "
+                                       f"{float(limit):.6g}", float(excess[i])))
+    return found
+
+
+def _cell_names(factor: InteractionFactor) -> list[str]:
+    a, b = factor.of
+    return [f"{a}={x}, {b}={y}" for x in cell_labels(factor.a_cells) for y in cell_labels(factor.b_cells)]

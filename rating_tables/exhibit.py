@@ -1,0 +1,154 @@
+"""The rating-table exhibit: an `.xlsx` workbook for reviewers (openpyxl, imported when called).
+
+Sheet "Summary": table id, effective date, exposure unit, base rate, loadings, rounding, target,
+provenance, cautions and the factor list. Then one sheet per factor: band or level, indicated
+relativity (when the table carries it), selected relativity, exposure and credibility; a two-way
+table as grids (rows: first factor's cells, columns: second factor's cells).
+"""
+from __future__ import annotations
+
+import json
+import math
+import os
+from typing import Any
+
+
+from rating_tables.table import (Bands, CategoricalFactor, Cells, Factor, InteractionFactor, NumericFactor,
+                                 RatingTable, edge_text)
+
+_FORBIDDEN = set('[]:*?/\\')
+
+
+def write_exhibit(table: RatingTable, path: str | os.PathLike) -> None:
+    """Write the exhibit workbook of `table` to `path` (.xlsx)."""
+    from openpyxl import Workbook
+    from openpyxl.styles import Font, PatternFill
+
+    style = _Style(Font(bold=True), PatternFill("solid", fgColor="DDE4EE"),
+                   "0." + "0" * table.rounding.relativity_decimals if table.rounding.relativity_decimals else "0")
+    book = Workbook()
+    summary = book.active
+    summary.title = "Summary"
+    _summary(summary, table, style)
+    used = {"summary"}
+    for factor in table.factors:
+        sheet = book.create_sheet(_sheet_name(factor.name, used))
+        if isinstance(factor, InteractionFactor):
+            _grids(sheet, factor, style)
+        else:
+            _main(sheet, factor, style)
+    book.save(os.fspath(path))
+
+
+class _Style:
+    def __init__(self, bold: Any, fill: Any, relativity_format: str) -> None:
+        self.bold, self.fill, self.relativity_format = bold, fill, relativity_format
+
+    def header(self, sheet: Any, row: int, values: list[Any]) -> None:
+        for col, value in enumerate(values, start=1):
+            cell = sheet.cell(row=row, column=col, value=value)
+            cell.font, cell.fill = self.bold, self.fill
+
+
+def _sheet_name(name: str, used: set[str]) -> str:
+    base = "".join("_" if ch in _FORBIDDEN else ch for ch in name)[:28].strip("'") or "factor"
+    candidate, n = base, 1
+    while candidate.lower() in used:
+        n += 1
+        candidate = f"{base}~{n}"
+    used.add(candidate.lower())
+    return candidate
+
+
+def _plain(value: Any) -> Any:
+    """A cell value: numbers and text as they are, other JSON values as compact JSON text."""
+    if isinstance(value, (str, int, float)) and not isinstance(value, bool):
+        return value
+    return json.dumps(value, ensure_ascii=False)
+
+
+def _summary(sheet: Any, table: RatingTable, style: _Style) -> None:
+    sections: list[tuple[str, list[tuple[str, Any]]]] = [
+        ("Rating table", [("Table id", table.table_id), ("Effective date", table.effective_date),
+                          ("Exposure unit", table.exposure_unit), ("Base rate", table.base_rate)]),
+        ("Loadings", [(k, getattr(table.loadings, k)) for k in table.loadings.__dataclass_fields__]),
+        ("Rounding", [(k, getattr(table.rounding, k)) for k in table.rounding.__dataclass_fields__]),
+        ("Target", list(table.target.items())),
+        ("Provenance", list(table.provenance.items())),
+        ("Cautions", [(str(i + 1), c) for i, c in enumerate(table.cautions)]),
+        ("Factors", [(f.name, _kind(f)) for f in table.factors]),
+    ]
+    row = 1
+    for title, items in sections:
+        style.header(sheet, row, [title, ""])
+        row += 1
+        for key, value in items:
+            sheet.cell(row=row, column=1, value=key)
+            sheet.cell(row=row, column=2, value=_plain(value))
+            row += 1
+        row += 1
+    sheet.column_dimensions["A"].width = 24
+    sheet.column_dimensions["B"].width = 100
+
+
+def _kind(factor: Factor) -> str:
+    if isinstance(factor, InteractionFactor):
+        return f"two-way table of {factor.of[0]} and {factor.of[1]}"
+    kind = "numeric" if isinstance(factor, NumericFactor) else "categorical"
+    return f"{kind}, monotone {factor.monotone}"
+
+
+def _number(x: float) -> float | str | None:
+    """A cell for a float: None when missing, text for infinite edges (Excel has no infinity)."""
+    if math.isnan(x):
+        return None
+    return float(x) if math.isfinite(x) else edge_text(x)
+
+
+def _main(sheet: Any, factor: NumericFactor | CategoricalFactor, style: _Style) -> None:
+    keys: list[list[Any]]
+    if isinstance(factor, NumericFactor):
+        head = ["Band", "Lower", "Upper"]
+        keys = [[label, _number(lo), _number(hi)]
+                for label, lo, hi in zip(factor.labels(), factor.lower, factor.upper)]
+    else:
+        head = ["Level"]
+        keys = [[level] for level in factor.levels]
+    columns = [("Indicated relativity", factor.indicated, style.relativity_format),
+               ("Selected relativity", factor.relativity, style.relativity_format),
+               ("Exposure", factor.exposure, "#,##0.00"), ("Credibility", factor.credibility, "0.00")]
+    columns = [c for c in columns if c[1] is not None]
+    style.header(sheet, 1, head + [c[0] for c in columns])
+    for i, key in enumerate(keys):
+        for j, value in enumerate(key, start=1):
+            sheet.cell(row=i + 2, column=j, value=value)
+        for j, (_, values, number_format) in enumerate(columns, start=len(key) + 1):
+            cell = sheet.cell(row=i + 2, column=j, value=_number(values[i]))
+            cell.number_format = number_format
+    for j in range(1, len(head) + len(columns) + 1):
+        sheet.column_dimensions[sheet.cell(row=1, column=j).column_letter].width = 20
+
+
+def _headings(cells: Cells) -> list[str]:
+    return cells.labels() if isinstance(cells, Bands) else list(cells)
+
+
+def _grids(sheet: Any, factor: InteractionFactor, style: _Style) -> None:
+    a, b = factor.of
+    rows, cols = _headings(factor.a_cells), _headings(factor.b_cells)
+    grids = [("Selected relativity", factor.relativity, style.relativity_format),
+             ("Indicated relativity", factor.indicated, style.relativity_format),
+             ("Exposure", factor.exposure, "#,##0.00"), ("Credibility", factor.credibility, "0.00")]
+    top = 1
+    for title, matrix, number_format in grids:
+        if matrix is None:
+            continue
+        style.header(sheet, top, [f"{title}: {a} (rows) by {b} (columns)"])
+        style.header(sheet, top + 1, [f"{a} \\ {b}", *cols])
+        for i, label in enumerate(rows):
+            sheet.cell(row=top + 2 + i, column=1, value=label).font = style.bold
+            for j in range(len(cols)):
+                cell = sheet.cell(row=top + 2 + i, column=2 + j, value=_number(matrix[i, j]))
+                cell.number_format = number_format
+        top += len(rows) + 3
+    sheet.column_dimensions["A"].width = 24

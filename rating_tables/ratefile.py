@@ -1,0 +1,189 @@
+"""Rating a book file in row batches so that memory stays flat: CSV or Parquet in and out.
+
+The input is a `.csv` or `.parquet` file or a folder of such parts (read in name order); the
+output format follows `out_path`'s extension. The rated file is the same, byte for byte, whatever
+`batch_rows` is: CSV columns are read as text and passed through unchanged; Parquet columns keep
+their types (dictionary-encoded columns are written decoded), and the output's Parquet row groups
+hold a fixed `row_group_rows` rows. A Parquet output carries the table's cautions as JSON under
+the schema metadata key `premiumlab.cautions`; for CSV the caller prints the returned cautions.
+"""
+from __future__ import annotations
+
+import json
+import os
+from pathlib import Path
+from typing import Iterator
+
+import pandas as pd
+import pyarrow as pa
+import pyarrow.csv as pa_csv
+import pyarrow.parquet as pq
+
+from rating_tables.errors import TableError
+from rating_tables.rate import added_columns, check_no_clash, rating_columns
+from rating_tables.table import RatingTable
+
+CAUTIONS_KEY = b"premiumlab.cautions"
+ROW_GROUP_ROWS = 262_144
+_KINDS = {".csv": "csv", ".parquet": "parquet"}
+
+
+def rate_file(table: RatingTable, in_path: str | os.PathLike, out_path: str | os.PathLike,
+              exposure_column: str | None = None, annual: bool = False, batch_rows: int = 500_000, *,
+              row_group_rows: int = ROW_GROUP_ROWS) -> tuple[str, ...]:
+    """Rate the book at `in_path` into `out_path` (columns as `rate` adds them); returns the cautions.
+
+    Errors name the input and the 0-based row counted over the whole book.
+    """
+    source_path, target = Path(in_path), Path(out_path)
+    for name, value in (("batch_rows", batch_rows), ("row_group_rows", row_group_rows)):
+        if isinstance(value, bool) or not isinstance(value, int) or value < 1:
+            raise TableError(f"{name}: must be a positive integer, got {value!r}", where=name)
+    out_kind = _kind(target, "output")
+    if target.exists() and os.path.realpath(target) == os.path.realpath(source_path):
+        raise TableError(f"{target}: the output would overwrite the input book", where=str(target))
+    try:
+        source = _Source(source_path, batch_rows)
+        needed = [f.name for f in table.main_factors]
+        if not annual and exposure_column is not None:
+            needed.append(exposure_column)
+        absent = [c for c in dict.fromkeys(needed) if c not in source.schema.names]
+        if absent:
+            raise TableError(f"the book has no column {absent[0]!r}", check="book", where=absent[0])
+        check_no_clash(source.schema.names, added_columns(table), "book")
+        schema = _output_schema(source.schema, table)
+        rows = 0
+        with (_ParquetSink(target, schema, row_group_rows) if out_kind == "parquet"
+              else _CsvSink(target, schema)) as sink:
+            for chunk in source.tables():
+                frame = chunk.select(list(dict.fromkeys(needed))).to_pandas()
+                added = rating_columns(table, frame, exposure_column, annual, row_offset=rows)
+                out = source.plain(chunk)
+                for name, values in added.items():
+                    out = out.append_column(name, pa.array(values, type=pa.float64()))
+                sink.write(out.replace_schema_metadata(schema.metadata))
+                rows += chunk.num_rows
+    except TableError as e:
+        raise e.prefixed(str(source_path)) from None
+    return table.cautions
+
+
+def _kind(path: Path, what: str) -> str:
+    kind = _KINDS.get(path.suffix.lower())
+    if kind is None:
+        raise TableError(f"{path}: the {what} must end in .csv or .parquet", where=str(path))
+    return kind
+
+
+def _output_schema(schema: pa.Schema, table: RatingTable) -> pa.Schema:
+    fields = [*schema, *(pa.field(name, pa.float64()) for name in added_columns(table))]
+    return pa.schema(fields, metadata={CAUTIONS_KEY: json.dumps(list(table.cautions)).encode("utf-8")})
+
+
+def _plain_type(field: pa.Field) -> pa.Field:
+    return field.with_type(field.type.value_type) if pa.types.is_dictionary(field.type) else field
+
+
+class _Source:
+    """The parts of a book and their common schema (dictionary columns decoded, no metadata)."""
+
+    def __init__(self, path: Path, batch_rows: int) -> None:
+        self.batch_rows = batch_rows
+        if path.is_dir():
+            parts = sorted(p for p in path.iterdir() if p.suffix.lower() in _KINDS and p.name[0] not in "._")
+            kinds = {_KINDS[p.suffix.lower()] for p in parts}
+            if len(kinds) != 1:
+                raise TableError(f"{path}: a book folder must hold .csv or .parquet parts, one kind only")
+            self.kind = kinds.pop()
+        elif path.exists():
+            parts, self.kind = [path], _kind(path, "book")
+        else:
+            raise TableError(f"{path}: the book does not exist")
+        self.parts = parts
+        schemas = [self._schema(p) for p in parts]
+        for part, schema in zip(parts, schemas):
+            if not schema.equals(schemas[0]):
+                raise TableError(f"{part}: its columns or types differ from {parts[0].name}'s", where=str(part))
+        self.schema = schemas[0]
+
+    def _schema(self, part: Path) -> pa.Schema:
+        try:
+            if self.kind == "csv":
+                names = pd.read_csv(part, nrows=0, dtype=str).columns
+                return pa.schema([pa.field(str(n), pa.string()) for n in names])
+            return pa.schema([_plain_type(f) for f in pq.read_schema(part)])
+        except (OSError, ValueError, pd.errors.ParserError) as e:
+            raise TableError(f"{part}: cannot be read: {e}", where=str(part)) from None
+
+    def tables(self) -> Iterator[pa.Table]:
+        """Batches of at most `batch_rows` rows, raw (dictionary columns as stored)."""
+        for part in self.parts:
+            try:
+                if self.kind == "csv":
+                    reader = pd.read_csv(part, dtype=str, keep_default_na=False, na_filter=False,
+                                         chunksize=self.batch_rows)
+                    for chunk in reader:
+                        yield pa.Table.from_pandas(chunk, schema=self.schema, preserve_index=False)
+                else:
+                    for batch in pq.ParquetFile(part).iter_batches(batch_size=self.batch_rows):
+                        yield pa.Table.from_batches([batch])
+            except (OSError, ValueError, pd.errors.ParserError) as e:
+                raise TableError(f"{part}: cannot be read: {e}", where=str(part)) from None
+
+    def plain(self, chunk: pa.Table) -> pa.Table:
+        """The batch with dictionary columns decoded and no schema metadata."""
+        columns = [col.cast(field.type) if not col.type.equals(field.type) else col
+                   for col, field in zip(chunk.columns, self.schema)]
+        return pa.Table.from_arrays(columns, schema=self.schema)
+
+
+class _ParquetSink:
+    """Writes row groups of exactly `row_group_rows` rows (the last may be shorter)."""
+
+    def __init__(self, path: Path, schema: pa.Schema, row_group_rows: int) -> None:
+        self.writer = pq.ParquetWriter(path, schema)
+        self.row_group_rows = row_group_rows
+        self.pending: list[pa.Table] = []
+        self.rows = 0
+
+    def write(self, table: pa.Table) -> None:
+        self.pending.append(table)
+        self.rows += table.num_rows
+        while self.rows >= self.row_group_rows:
+            self._flush(self.row_group_rows)
+
+    def _flush(self, n: int) -> None:
+        table = pa.concat_tables(self.pending)
+        self.writer.write_table(table.slice(0, n).combine_chunks(), row_group_size=n)
+        rest = table.slice(n)
+        self.pending = [rest] if rest.num_rows else []
+        self.rows -= n
+
+    def __enter__(self) -> _ParquetSink:
+        return self
+
+    def __exit__(self, kind: object, *_: object) -> None:
+        try:
+            if kind is None and self.rows:
+                self._flush(self.rows)
+        finally:
+            self.writer.close()
+
+
+class _CsvSink:
+    """Writes CSV with one header; every value's text depends only on the value."""
+
+    def __init__(self, path: Path, schema: pa.Schema) -> None:
+        self.writer = pa_csv.CSVWriter(path, schema)
+
+    def write(self, table: pa.Table) -> None:
+        try:
+            self.writer.write_table(table)
+        except pa.ArrowException as e:
+            raise TableError(f"cannot write the rated book as CSV: {e}") from None
+
+    def __enter__(self) -> _CsvSink:
+        return self
+
+    def __exit__(self, *_: object) -> None:
+        self.writer.close()
