@@ -95,7 +95,7 @@ def _exposure(book: pd.DataFrame, exposure_column: str | None, annual: bool, row
     bad = np.flatnonzero(~(np.isfinite(values) & (values >= 0)))
     if bad.size:
         where = book_row(row_offset + int(bad[0]))
-        raise TableError(f"{what}: value {values[bad[0]]!r} at {where} must be finite and >= 0", check="book",
+        raise TableError(f"{what}: value {float(values[bad[0]])!r} at {where} must be finite and >= 0", check="book",
                          where=where)
     return values
 
