@@ -234,9 +234,9 @@ def _checked_number(t: _Table, key: str, value: Any, low: float | None, high: fl
     return v
 
 
-def _increasing(t: _Table, key: str, values: tuple[float, ...]) -> None:
+def _increasing(t: _Table, key: str, values: tuple[float, ...], what: str = "values") -> None:
     if any(b <= a for a, b in zip(values, values[1:])):
-        raise t.error(key, f"must be strictly increasing, got {list(values)!r}")
+        raise t.error(key, f"must have strictly increasing {what}, got {[float(v) for v in values]!r}")
 
 
 # --------------------------------------------------------------------------------------------
@@ -528,7 +528,7 @@ def _knots(t: _Table, key: str) -> np.ndarray | None:
     if not ok:
         raise t.error(key, f"must be a list of [x, log-relativity] pairs of finite numbers, got {value!r}")
     knots = np.asarray(value, dtype=float)
-    _increasing(t, key + " x values", tuple(knots[:, 0]))
+    _increasing(t, key, tuple(knots[:, 0]), "x values")
     return knots
 
 
