@@ -207,7 +207,7 @@ def _level_codes(factors: pd.DataFrame, name: str, levels: list[str]) -> np.ndar
     if name not in factors.columns:
         raise InputError(f"factors: column '{name}' is missing")
     values = factors[name].astype("string")
-    codes = pd.Categorical(values, categories=levels).codes
+    codes = pd.Index(levels, dtype=object).get_indexer(values.to_numpy(dtype=object, na_value=None))
     unknown = np.flatnonzero(codes < 0)
     if unknown.size:
         raise InputError(
