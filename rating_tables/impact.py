@@ -146,7 +146,7 @@ def _premiums(values: np.ndarray, name: str, n: int) -> np.ndarray:
         raise TableError(f"{name}: expected {n} premiums (one per book row), got shape {arr.shape}", where=name)
     bad = np.flatnonzero(~(np.isfinite(arr) & (arr > 0)))
     if bad.size:
-        raise TableError(f"{name}: premium {arr[bad[0]]!r} at book row {int(bad[0])} (0-based) must be finite "
+        raise TableError(f"{name}: premium {float(arr[bad[0]])!r} at book row {int(bad[0])} (0-based) must be finite "
                          "and > 0", where=name)
     return arr
 
