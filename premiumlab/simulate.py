@@ -104,6 +104,7 @@ share of claim amounts from large losses.
 """
 from __future__ import annotations
 
+import difflib
 import math
 import tomllib
 from dataclasses import dataclass, field
@@ -171,13 +172,21 @@ class _Table:
         if key in self.data:
             return self.data[key]
         if default is _REQUIRED:
-            raise self.error(key, "is required")
+            near = difflib.get_close_matches(key, [k for k in self.data if k not in self.read], n=1)
+            raise self.error(key, "is required" + (f" (unknown key '{self.path(near[0])}' given)" if near else ""))
         return default
 
     def number(self, key: str, default: Any = _REQUIRED, *, low: float | None = None,
                high: float | None = None, low_open: bool = False, high_open: bool = False) -> float:
         value = self.raw(key, default)
-        return _checked_number(self, key, value, low, high, low_open, high_open)
+        if not _is_number(value) or not math.isfinite(value):
+            raise self.error(key, f"must be a finite number, got {value!r}")
+        v = float(value)
+        if low is not None and (v < low or (low_open and v == low)):
+            raise self.error(key, f"must be {'>' if low_open else '>='} {low:g}, got {value!r}")
+        if high is not None and (v > high or (high_open and v == high)):
+            raise self.error(key, f"must be {'<' if high_open else '<='} {high:g}, got {value!r}")
+        return v
 
     def integer(self, key: str, default: Any = _REQUIRED, *, low: int | None = None) -> int:
         value = self.raw(key, default)
@@ -187,10 +196,11 @@ class _Table:
             raise self.error(key, f"must be >= {low}, got {value!r}")
         return value
 
-    def string(self, key: str, default: Any = _REQUIRED, choices: tuple[str, ...] | None = None) -> str:
+    def string(self, key: str, default: Any = _REQUIRED, choices: tuple[str, ...] | None = None,
+               allow_empty: bool = False) -> str:
         value = self.raw(key, default)
-        if not isinstance(value, str) or not value:
-            raise self.error(key, f"must be a non-empty string, got {value!r}")
+        if not isinstance(value, str) or not (value or allow_empty):
+            raise self.error(key, f"must be a {'' if allow_empty else 'non-empty '}string, got {value!r}")
         if choices is not None and value not in choices:
             raise self.error(key, f"must be one of {', '.join(choices)}, got {value!r}")
         return value
@@ -220,18 +230,6 @@ class _Table:
         unread = [k for k in self.data if k not in self.read]
         if unread:
             raise InputError(f"{self.source}: unknown key '{self.path(unread[0])}'")
-
-
-def _checked_number(t: _Table, key: str, value: Any, low: float | None, high: float | None,
-                    low_open: bool, high_open: bool) -> float:
-    if not _is_number(value) or not math.isfinite(value):
-        raise t.error(key, f"must be a finite number, got {value!r}")
-    v = float(value)
-    if low is not None and (v < low or (low_open and v == low)):
-        raise t.error(key, f"must be {'>' if low_open else '>='} {low:g}, got {value!r}")
-    if high is not None and (v > high or (high_open and v == high)):
-        raise t.error(key, f"must be {'<' if high_open else '<='} {high:g}, got {value!r}")
-    return v
 
 
 def _increasing(t: _Table, key: str, values: tuple[float, ...], what: str = "values") -> None:
@@ -369,7 +367,6 @@ class Interaction:
 class Scenario:
     """A parsed scenario file (see the module docstring for every key)."""
 
-    source: str
     name: str
     description: str
     policies: int
@@ -410,15 +407,13 @@ def parse_scenario(doc: dict, source: str = "scenario") -> Scenario:
     top = _Table(doc, "", source)
     s = top.table("scenario")
     head = dict(
-        name=s.string("name"), description=s.raw("description", ""),
+        name=s.string("name"), description=s.string("description", "", allow_empty=True),
         policies=s.integer("policies", low=1), seed=s.integer("seed", low=0),
         periods=_periods(s), base_frequency=s.number("base_frequency", low=0, low_open=True),
         base_severity=s.number("base_severity", low=0, low_open=True),
         severity_shape=s.number("severity_shape", 1.5, low=0, low_open=True),
         new_business_share=s.number("new_business_share", 0.15, low=0, high=1),
         lapse_share=s.number("lapse_share", 0.10, low=0, high=1))
-    if not isinstance(head["description"], str):
-        raise s.error("description", f"must be a string, got {head['description']!r}")
     s.close()
 
     factors_table = top.table("factors")
@@ -436,7 +431,7 @@ def parse_scenario(doc: dict, source: str = "scenario") -> Scenario:
     tariff = top.table("current_tariff", None)
     loss_ratio, shrink = _parse_tariff(tariff, factors)
     scenario = Scenario(
-        source=source, **head, factors=tuple(factors),
+        **head, factors=tuple(factors),
         large_losses=None if large is None else _parse_large_losses(large),
         interaction=None if interaction is None else _parse_interaction(interaction, factors),
         expected_loss_ratio=loss_ratio, tariff_shrink=shrink)
@@ -469,9 +464,10 @@ def _parse_factor(t: _Table, name: str, earlier: list[Factor]) -> Factor:
         raise t.error("base", f"must be one of {', '.join(labels)}, got {base!r}")
     when: dict[str, Distribution] = {}
     when_table = t.table("when", None)
-    if (when_table is None) != (parent is None):
-        raise t.error("when" if parent is None else "depends_on",
-                      "and the [when.LABEL] tables go together: give both or neither")
+    if when_table is not None and parent is None:
+        raise t.error("when", "needs depends_on")
+    if when_table is None and parent is not None:
+        raise t.error("depends_on", f"needs at least one [{t.where}.when.LABEL] table")
     if when_table is not None:
         for label in when_table.keys():
             if label not in parent.labels:

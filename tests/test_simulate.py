@@ -41,6 +41,13 @@ def band_index(x: np.ndarray, edges: list[float]) -> np.ndarray:
     return (np.asarray(x, dtype=float)[:, None] >= np.asarray(edges, dtype=float)[None, :]).sum(axis=1)
 
 
+def label_column(book: pd.DataFrame, name: str, f: dict) -> pd.Series:
+    """The factor's level, or its band label for a numeric factor, on every row."""
+    if f["type"] == "categorical":
+        return book[name]
+    return pd.Series(np.asarray(labels_of(f["bands"]))[band_index(book[name], f["bands"])], index=book.index)
+
+
 def true_frequency(book: pd.DataFrame, doc: dict) -> np.ndarray:
     """Row frequency recomputed from the scenario text (main effects and the interaction)."""
     log_f = np.zeros(len(book))
@@ -218,8 +225,7 @@ def test_interaction_is_strong_enough_for_a_main_effects_glm_to_miss(motor) -> N
     doc = scenario_doc("motor")
     cols = []
     for name, f in doc["factors"].items():
-        key = book[name].astype(str) if f["type"] == "categorical" else pd.Series(band_index(book[name], f["bands"])).astype(str)
-        cols.append(pd.get_dummies(key, prefix=name, drop_first=True, dtype=float))
+        cols.append(pd.get_dummies(label_column(book, name, f), prefix=name, drop_first=True, dtype=float))
     X = sm.add_constant(pd.concat(cols, axis=1))
     with threadpool_limits(1):  # a small dense problem: more BLAS threads only contend
         fit = sm.GLM(book["claim_count"], X, family=sm.families.Poisson(),
@@ -375,8 +381,7 @@ def test_current_premium_follows_the_tariff_and_loss_ratio(motor) -> None:
     rel = np.ones(len(book))
     for name, spec in tariff["factors"].items():
         f = doc["factors"][name]
-        key = book[name] if f["type"] == "categorical" else pd.Series(labels_of(f["bands"]))[band_index(book[name], f["bands"])].reset_index(drop=True)
-        rel *= key.map(spec["relativities"]).to_numpy()
+        rel *= label_column(book, name, f).map(spec["relativities"]).to_numpy()
         assert spec["shrink"] == doc["current_tariff"]["shrink"][name]
     np.testing.assert_allclose(book["current_premium"], np.round(tariff["base_rate"] * rel * book["exposure"], 2),
                                rtol=0, atol=0.0051)
@@ -436,7 +441,7 @@ def test_promised_monotone_direction_holds_in_truth(name: str) -> None:
 def test_motor_is_the_demo_book_the_issue_asks_for() -> None:
     """Motor: 100,000 policies by default, about 8 factors, large losses a few % of claims, book
     frequency 0.08-0.12 claims per policy-year; main-effects scenario: no interaction, no large
-    losses, independent factors, and thousands of expected claims in every band and level."""
+    losses, independent factors."""
     motor = load_scenario(SCENARIOS / "motor.toml")
     assert motor.policies == 100_000 and 7 <= len(motor.factors) <= 9
     assert motor.interaction is not None and 0.01 <= motor.large_losses.probability <= 0.05
@@ -494,7 +499,7 @@ probabilities = [0.4, 0.6]
 
 @pytest.mark.parametrize("old,new,key", [
     ("base_severity = 1000.0", "base_severity = 1000.0\nseverity_shap = 2.0", "scenario.severity_shap"),
-    ("policies = 100", "polices = 100", "scenario.policies"),
+    ("policies = 100", "polices = 100", "scenario.polices"),
     ("seed = 1", "seed = 1\ncolour = 'red'", "scenario.colour"),
     ("bands = [25, 40]", "bands = [25, 40]\nbandz = [1]", "factors.age.bandz"),
     ("policies = 100", "policies = '100'", "scenario.policies"),
