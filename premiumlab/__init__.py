@@ -21,7 +21,11 @@ _PUBLIC = {
 
 def __getattr__(name: str):
     if name in _PUBLIC:
-        return getattr(import_module(_PUBLIC[name]), name)
+        value = getattr(import_module(_PUBLIC[name]), name)
+        # importing premiumlab.simulate sets the submodule as an attribute of the package;
+        # the function of the same name must win
+        globals()[name] = value
+        return value
     raise AttributeError(f"module 'premiumlab' has no attribute {name!r}")
 
 
