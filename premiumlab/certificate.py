@@ -60,6 +60,7 @@ class Certificate(TypedDict):
     leaf_pairs_checked: int
     violation_count: int
     max_violation: float
+    trees_with_violations: list[int]
     violations: list[Violation]   # the largest LISTED_VIOLATIONS, by amount
 
 
@@ -289,6 +290,7 @@ def certify(model_text: str, feature: str | int, direction: int) -> Certificate:
                        trees_splitting_on_feature=splitting, leaf_pairs_checked=pairs,
                        violation_count=len(violations),
                        max_violation=violations[0]["amount"] if violations else 0.0,
+                       trees_with_violations=sorted({v["tree"] for v in violations}),
                        violations=violations[:LISTED_VIOLATIONS])
 
 

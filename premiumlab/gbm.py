@@ -25,7 +25,7 @@ import math
 import sys
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 import lightgbm as lgb
@@ -40,6 +40,7 @@ from premiumlab.metrics import mean_deviance
 TARGETS = ("frequency", "severity", "pure_premium")
 OBJECTIVES = {"frequency": "poisson", "severity": "gamma", "pure_premium": "tweedie"}
 MONOTONE_METHODS = ("basic", "intermediate", "advanced")
+SIMPLER_METHOD = {"advanced": "intermediate", "intermediate": "basic"}
 GRID_KEYS = frozenset({"num_leaves", "min_data_in_leaf", "min_sum_hessian_in_leaf", "learning_rate",
                        "lambda_l2", "lambda_l1", "max_depth", "min_gain_to_split"})
 BALANCE_TOLERANCE = 0.01
@@ -151,6 +152,7 @@ class GbmModel:
     categories: dict[str, list[str]]
     monotone: dict[str, int] = field(default_factory=dict)
     training_rows: int = 0
+    constraint_notes: list[str] = field(default_factory=list)
 
     def encode(self, features: pd.DataFrame) -> np.ndarray:
         """Features -> the float64 matrix the booster reads (categoricals as fixed level codes)."""
@@ -181,7 +183,7 @@ class GbmModel:
             "balance": self.balance, "rebalanced": self.rebalanced,
             "rebalance_factor": self.rebalance_factor, "balance_note": _balance_note(self),
             "feature_names": self.feature_names, "categories": self.categories,
-            "monotone": self.monotone, "caution": DRAFT,
+            "monotone": self.monotone, "constraint_notes": self.constraint_notes, "caution": DRAFT,
         }
 
 
@@ -469,13 +471,42 @@ def fit_final(data: TrainingData, setting: dict, rounds: int, cv_table: list[dic
                     monotone=dict(data.monotone), training_rows=len(data.label))
 
 
-def fit_target(inputs: GbmInputs, target: str, options: GbmOptions = GbmOptions()) -> GbmModel:
-    """Tune by grouped K-fold CV, then refit the chosen setting on the whole training part."""
-    data = prepare_training(inputs, target, options)
+def _tuned_fit(data: TrainingData, options: GbmOptions) -> GbmModel:
     settings = _select_settings(options)
     table = cross_validate(data, settings, options)
     chosen = int(np.argmin([row["mean_deviance"] for row in table]))
     return fit_final(data, settings[chosen], table[chosen]["rounds"], table, chosen)
+
+
+def uncertified_factors(model: GbmModel) -> list[str]:
+    """The constrained factors whose monotonicity certificate finds a violating leaf pair."""
+    from premiumlab.certificate import certify
+
+    if "monotone_constraints" not in model.params:
+        return []
+    text = model.model_text()
+    return [name for name, direction in model.monotone.items()
+            if certify(text, name, direction)["violation_count"] > 0]
+
+
+def fit_target(inputs: GbmInputs, target: str, options: GbmOptions = GbmOptions()) -> GbmModel:
+    """Tune by grouped K-fold CV, then refit the chosen setting on the whole training part.
+
+    A constrained model is certified (premiumlab.certificate). If a promise is broken (LightGBM
+    4.7's advanced method does so when another feature has missing values), the whole tuning is
+    redone with the next simpler constraint method (advanced -> intermediate -> basic), and
+    `constraint_notes` says so.
+    """
+    model = _tuned_fit(prepare_training(inputs, target, options), options)
+    notes: list[str] = []
+    while (broken := uncertified_factors(model)) and options.monotone_method in SIMPLER_METHOD:
+        simpler = SIMPLER_METHOD[options.monotone_method]
+        notes.append(f"the {options.monotone_method} constraint method broke the promise on "
+                     f"{', '.join(broken)} (certificate); refitted with the {simpler} method")
+        options = replace(options, monotone_method=simpler)
+        model = _tuned_fit(prepare_training(inputs, target, options), options)
+    model.constraint_notes = notes
+    return model
 
 
 def load_model(text_path: str | Path, json_path: str | Path) -> GbmModel:
@@ -490,7 +521,8 @@ def load_model(text_path: str | Path, json_path: str | Path) -> GbmModel:
     if not isinstance(meta, dict) or meta.get("format") != JSON_FORMAT:
         raise InputError(f"{json_path}: not a {JSON_FORMAT} JSON file (key 'format')")
     required = ("target", "objective", "params", "cv", "best_rounds", "balance", "rebalanced",
-                "rebalance_factor", "feature_names", "categories", "monotone", "training_rows")
+                "rebalance_factor", "feature_names", "categories", "monotone", "training_rows",
+                "constraint_notes")
     absent = [key for key in required if key not in meta]
     if absent:
         raise InputError(f"{json_path}: missing key {absent[0]!r}")
@@ -504,4 +536,5 @@ def load_model(text_path: str | Path, json_path: str | Path) -> GbmModel:
                     cv_table=meta["cv"]["table"], chosen=meta["cv"]["chosen"], best_rounds=meta["best_rounds"],
                     balance=meta["balance"], rebalanced=meta["rebalanced"],
                     rebalance_factor=meta["rebalance_factor"], feature_names=meta["feature_names"],
-                    categories=meta["categories"], monotone=meta["monotone"], training_rows=meta["training_rows"])
+                    categories=meta["categories"], monotone=meta["monotone"], training_rows=meta["training_rows"],
+                    constraint_notes=meta["constraint_notes"])
