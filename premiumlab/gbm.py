@@ -160,7 +160,7 @@ class GbmModel:
 
     def predict_raw(self, features: pd.DataFrame) -> np.ndarray:
         """log(prediction): the booster's raw score plus log(rebalance_factor)."""
-        raw = self.booster.predict(self.encode(features), raw_score=True)
+        raw = self.booster.predict(self.encode(features), raw_score=True, num_threads=self.params["num_threads"])
         return raw + math.log(self.rebalance_factor)
 
     def predict(self, features: pd.DataFrame) -> np.ndarray:
