@@ -310,23 +310,26 @@ def _number_text(x: float) -> str:
     return "" if np.isnan(x) else repr(float(x))
 
 
+def _csv_field(text: str) -> str:
+    """A CSV field, quoted when it holds a comma, a quote or a line break (CR or LF)."""
+    return f'"{text.replace(chr(34), chr(34) * 2)}"' if any(c in text for c in ',"\r\n') else text
+
+
 def _factor_csv(factor: Factor) -> str:
-    buffer = io.StringIO()
-    writer = csv.writer(buffer, lineterminator="\n")
+    rows = _interaction_rows(factor) if isinstance(factor, InteractionFactor) else _main_rows(factor)
+    return "".join(",".join(_csv_field(field) for field in row) + "\n" for row in rows)
+
+
+def _main_rows(factor: NumericFactor | CategoricalFactor) -> list[list[str]]:
     optional = [c for c in OPTIONAL_COLUMNS if getattr(factor, c) is not None]
-    if isinstance(factor, InteractionFactor):
-        _interaction_rows(writer, factor, optional)
-        return buffer.getvalue()
     if isinstance(factor, NumericFactor):
-        writer.writerow(["lower", "upper", "relativity", "exposure", *optional])
+        header = ["lower", "upper", "relativity", "exposure", *optional]
         keys = [[repr(float(lo)), repr(float(hi))] for lo, hi in zip(factor.lower, factor.upper)]
     else:
-        writer.writerow(["level", "relativity", "exposure", *optional])
+        header = ["level", "relativity", "exposure", *optional]
         keys = [[level] for level in factor.levels]
     columns = [factor.relativity, factor.exposure, *(getattr(factor, c) for c in optional)]
-    for i, key in enumerate(keys):
-        writer.writerow([*key, *(_number_text(col[i]) for col in columns)])
-    return buffer.getvalue()
+    return [header] + [[*key, *(_number_text(col[i]) for col in columns)] for i, key in enumerate(keys)]
 
 
 def _side_header(side: str, cells: Bands | tuple[str, ...]) -> list[str]:
@@ -339,12 +342,13 @@ def _side_key(cells: Bands | tuple[str, ...], i: int) -> list[str]:
     return [cells[i]]
 
 
-def _interaction_rows(writer: Any, factor: InteractionFactor, optional: list[str]) -> None:
-    extra = (["exposure"] if factor.exposure is not None else []) + optional
+def _interaction_rows(factor: InteractionFactor) -> list[list[str]]:
+    extra = [c for c in ("exposure", *OPTIONAL_COLUMNS) if getattr(factor, c) is not None]
     a, b = factor.of
-    writer.writerow([*_side_header(a, factor.a_cells), *_side_header(b, factor.b_cells), "relativity", *extra])
+    rows = [[*_side_header(a, factor.a_cells), *_side_header(b, factor.b_cells), "relativity", *extra]]
     matrices = [factor.relativity, *(getattr(factor, c) for c in extra)]
     for i in range(len(factor.a_cells)):
         for j in range(len(factor.b_cells)):
-            writer.writerow([*_side_key(factor.a_cells, i), *_side_key(factor.b_cells, j),
-                             *(_number_text(m[i, j]) for m in matrices)])
+            rows.append([*_side_key(factor.a_cells, i), *_side_key(factor.b_cells, j),
+                         *(_number_text(m[i, j]) for m in matrices)])
+    return rows
