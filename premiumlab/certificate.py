@@ -57,7 +57,8 @@ class Certificate(TypedDict):
     monotone: bool
     trees_checked: int
     trees_splitting_on_feature: int
-    leaf_pairs_checked: int
+    leaf_pairs_checked: int        # pairs of leaves of one tree overlapping on every other feature and
+                                   # ordered on this one: the pairs whose values must be ordered
     violation_count: int
     max_violation: float
     trees_with_violations: list[int]

@@ -33,6 +33,7 @@ import numpy as np
 import pandas as pd
 
 from premiumlab.cautions import DRAFT
+from premiumlab.certificate import certify
 from premiumlab.errors import InputError
 from premiumlab.jsonio import read_json
 from premiumlab.metrics import mean_deviance
@@ -124,14 +125,14 @@ class TrainingData:
 
     @property
     def power(self) -> float:
-        """Tweedie variance power of the target's deviance (1 Poisson, 2 Gamma)."""
-        return {"poisson": 1.0, "gamma": 2.0}.get(self.base_params["objective"],
-                                                  self.base_params.get("tweedie_variance_power", 1.5))
+        """Tweedie variance power of the target's deviance (1 Poisson, 2 Gamma, p Tweedie)."""
+        objective = self.base_params["objective"]
+        return {"poisson": 1.0, "gamma": 2.0}.get(objective) or self.base_params["tweedie_variance_power"]
 
     def dataset(self) -> lgb.Dataset:
         return lgb.Dataset(self.matrix, label=self.label, weight=self.weight,
                            feature_name=self.feature_names, categorical_feature=self.categorical_indices,
-                           params=_dataset_params(self.base_params), free_raw_data=False)
+                           params=_dataset_params(self.base_params))
 
 
 @dataclass
@@ -150,8 +151,8 @@ class GbmModel:
     rebalance_factor: float
     feature_names: list[str]
     categories: dict[str, list[str]]
-    monotone: dict[str, int] = field(default_factory=dict)
-    training_rows: int = 0
+    monotone: dict[str, int]
+    training_rows: int
     constraint_notes: list[str] = field(default_factory=list)
 
     def encode(self, features: pd.DataFrame) -> np.ndarray:
@@ -276,7 +277,7 @@ def encode_features(features: pd.DataFrame, feature_names: list[str],
         column = features[name]
         if name in categories:
             matrix[:, j] = _category_codes(column, categories[name], name)
-        elif pd.api.types.is_numeric_dtype(column.dtype) and not isinstance(column.dtype, pd.CategoricalDtype):
+        elif pd.api.types.is_numeric_dtype(column.dtype):
             matrix[:, j] = column.to_numpy(dtype=np.float64, na_value=np.nan)
         else:
             raise InputError(f"features column {name!r}: must be numeric, got {column.dtype}")
@@ -480,8 +481,6 @@ def _tuned_fit(data: TrainingData, options: GbmOptions) -> GbmModel:
 
 def uncertified_factors(model: GbmModel) -> list[str]:
     """The constrained factors whose monotonicity certificate finds a violating leaf pair."""
-    from premiumlab.certificate import certify
-
     if "monotone_constraints" not in model.params:
         return []
     text = model.model_text()
