@@ -116,7 +116,7 @@ class TrainingData:
     groups: np.ndarray
     feature_names: list[str]
     categories: dict[str, list[str]]
-    monotone: dict[str, int]
+    monotone: dict[str, int]      # the promises this model is constrained to keep ({} if none)
     base_params: dict
 
     @property
@@ -151,7 +151,7 @@ class GbmModel:
     rebalance_factor: float
     feature_names: list[str]
     categories: dict[str, list[str]]
-    monotone: dict[str, int]
+    monotone: dict[str, int]      # factor -> direction the model is constrained to ({} if none)
     training_rows: int
     constraint_notes: list[str] = field(default_factory=list)
 
@@ -315,6 +315,12 @@ def _target_rows(inputs: GbmInputs, target: str, rows: int) -> tuple[np.ndarray,
     return mask, label, weight
 
 
+def _constrained(target: str, monotone: dict[str, int], options: GbmOptions) -> dict[str, int]:
+    """The promises the target's model is constrained to: all on frequency and pure premium, on
+    severity only with constrain_severity."""
+    return dict(monotone) if target != "severity" or options.constrain_severity else {}
+
+
 def _base_params(target: str, names: list[str], monotone: dict[str, int], options: GbmOptions) -> dict:
     """The fixed (non-searched) LightGBM parameters: objective, determinism, threads, constraints."""
     params = {
@@ -326,7 +332,7 @@ def _base_params(target: str, names: list[str], monotone: dict[str, int], option
     }
     if target == "pure_premium":
         params["tweedie_variance_power"] = float(options.tweedie_power)
-    if monotone and (target != "severity" or options.constrain_severity):
+    if monotone:
         params["monotone_constraints"] = [int(monotone.get(name, 0)) for name in names]
         params["monotone_constraints_method"] = options.monotone_method
     return params
@@ -351,10 +357,11 @@ def prepare_training(inputs: GbmInputs, target: str, options: GbmOptions) -> Tra
     if groups.shape != (rows,):
         raise InputError(f"groups: expected {rows} rows (as features), got shape {groups.shape}")
     mask, label, weight = _target_rows(inputs, target, rows)
+    monotone = _constrained(target, inputs.monotone, options)
     matrix = encode_features(inputs.features, names, categories)[mask]
     return TrainingData(target=target, matrix=matrix, label=label, weight=weight, groups=groups[mask],
-                        feature_names=names, categories=categories, monotone=dict(inputs.monotone),
-                        base_params=_base_params(target, names, inputs.monotone, options))
+                        feature_names=names, categories=categories, monotone=monotone,
+                        base_params=_base_params(target, names, monotone, options))
 
 
 # ---------------------------------------------------------------------------------------------
@@ -481,7 +488,7 @@ def _tuned_fit(data: TrainingData, options: GbmOptions) -> GbmModel:
 
 def uncertified_factors(model: GbmModel) -> list[str]:
     """The constrained factors whose monotonicity certificate finds a violating leaf pair."""
-    if "monotone_constraints" not in model.params:
+    if not model.monotone:
         return []
     text = model.model_text()
     return [name for name, direction in model.monotone.items()

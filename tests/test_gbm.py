@@ -164,7 +164,8 @@ def test_targets_rows_weights_and_constraints(book, models):
     assert models["frequency"].params["monotone_constraints"] == [0, 0, 0, 1]
     assert models["pure_premium"].params["monotone_constraints_method"] == "advanced"
     assert models["pure_premium"].params["tweedie_variance_power"] == 1.6
-    assert "monotone_constraints" not in models["severity"].params
+    assert "monotone_constraints" not in models["severity"].params and models["severity"].monotone == {}
+    assert models["frequency"].monotone == {"bonus_class": 1}
     constrained = prepare_training(inputs, "severity", GbmOptions(constrain_severity=True))
     assert constrained.base_params["monotone_constraints"] == [0, 0, 0, 1]
     assert {m.params["num_threads"] for m in models.values()} == {1}
