@@ -27,6 +27,7 @@ from premiumlab.glm_engines import (
     aggregate_cells,
     choose_columns,
     choose_engine,
+    column_major,
     fit_on_cells,
     fit_on_rows,
     row_statistics,
@@ -230,7 +231,9 @@ class _Problem:
 
 
 def _problem(label: str, inputs: GlmInputs, rows: np.ndarray, numerator: np.ndarray, weight: np.ndarray) -> _Problem:
-    design = _design(inputs).take(rows)
+    design = _design(inputs)
+    if not rows.all():
+        design = design.take(rows)
     cells = aggregate_cells(design, numerator[rows], weight[rows])
     for j, name in enumerate(design.factor_names):
         if not np.any(cells.design.codes[:, j] == design.base_codes[j]):
@@ -250,9 +253,7 @@ def _design(inputs: GlmInputs) -> OneHotDesign:
     names = tuple(str(name) for name in inputs.factors.columns)
     levels = tuple(tuple(inputs.factors[name].cat.categories) for name in names)
     base_codes = tuple(levels[j].index(inputs.base_levels[name]) for j, name in enumerate(names))
-    codes = np.column_stack(
-        [inputs.factors[name].cat.codes.to_numpy().astype(np.int32) for name in names]
-    ) if names else np.zeros((len(inputs.factors), 0), dtype=np.int32)
+    codes = column_major([inputs.factors[name].cat.codes.to_numpy() for name in names], len(inputs.factors))
     return OneHotDesign(names, levels, base_codes, codes)
 
 

@@ -8,15 +8,19 @@ the row statistics are computed in the form statsmodels reports for the row-leve
 """
 from __future__ import annotations
 
+import itertools
 import warnings
-from collections.abc import Iterator
+from collections.abc import Iterable, Iterator
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 import scipy.linalg
 import statsmodels.api as sm
+from threadpoolctl import threadpool_limits
 
 CHUNK_ROWS = 1_000_000
+GROUP_LEVELS = 256
 COEFFICIENT_TOLERANCE = 1e-10
 MAX_ITERATIONS = 100
 ALIAS_TOLERANCE = 1e-9
@@ -62,24 +66,42 @@ def tweedie_family(power: float) -> Family:
     return Family("tweedie", float(power))
 
 
+def _margin(counts: np.ndarray, keep: tuple[int, ...]) -> np.ndarray:
+    """Sum of a counts array over every axis but ``keep`` (kept axes in their order)."""
+    return counts.sum(axis=tuple(axis for axis in range(counts.ndim) if axis not in keep))
+
+
+def column_major(columns: list[np.ndarray], n_rows: int) -> np.ndarray:
+    """(n_rows, len(columns)) Fortran-ordered native-integer array from 1-D code columns."""
+    if not columns:
+        return np.zeros((n_rows, 0), dtype=np.intp)
+    return np.array(columns, dtype=np.intp).T
+
+
 @dataclass(frozen=True)
 class OneHotDesign:
     """Treatment-coded one-hot design of rows held sparsely as one level code per factor and row.
 
     The codes are the column indices of a CSR one-hot matrix. The full column space is
     ``Intercept`` then every level of every factor (base levels included, never estimated).
+    Passes over the rows work on groups of consecutive factors with at most GROUP_LEVELS level
+    combinations, each row's combination held as one code: X'v and X'WX then take one weighted
+    count per group (or pair of groups) instead of one per factor (or pair of factors).
     """
 
     factor_names: tuple[str, ...]
     levels: tuple[tuple[str, ...], ...]
     base_codes: tuple[int, ...]
-    codes: np.ndarray  # (n_rows, n_factors) int32
+    codes: np.ndarray  # (n_rows, n_factors) level codes
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "codes", np.asfortranarray(self.codes, dtype=np.intp))
 
     @property
     def n_rows(self) -> int:
         return int(self.codes.shape[0])
 
-    @property
+    @cached_property
     def offsets(self) -> np.ndarray:
         """Column of each factor's first level in the full space (the intercept is column 0)."""
         return 1 + np.cumsum([0] + [len(lv) for lv in self.levels])[:-1].astype(np.int64)
@@ -95,41 +117,95 @@ class OneHotDesign:
     def base_columns(self) -> np.ndarray:
         return self.offsets + np.asarray(self.base_codes, dtype=np.int64)
 
+    def columns_of(self, factor: int) -> np.ndarray:
+        """Full-space columns of a factor's levels."""
+        return self.offsets[factor] + np.arange(len(self.levels[factor]))
+
     def take(self, rows: np.ndarray) -> OneHotDesign:
         """The design restricted to ``rows`` (boolean mask or positions)."""
-        return OneHotDesign(self.factor_names, self.levels, self.base_codes, self.codes[rows])
+        return OneHotDesign(self.factor_names, self.levels, self.base_codes, column_major(
+            [column[rows] for column in self.codes.T], len(np.arange(self.n_rows)[rows])))
 
     def chunks(self, chunk_rows: int = CHUNK_ROWS) -> Iterator[slice]:
         for start in range(0, self.n_rows, chunk_rows):
             yield slice(start, min(start + chunk_rows, self.n_rows))
 
+    @cached_property
+    def groups(self) -> tuple[tuple[int, ...], ...]:
+        """Consecutive factors grouped while their level combinations number at most GROUP_LEVELS."""
+        groups: list[list[int]] = []
+        combinations = GROUP_LEVELS + 1
+        for j, lv in enumerate(self.levels):
+            if combinations * len(lv) <= GROUP_LEVELS:
+                groups[-1].append(j)
+                combinations *= len(lv)
+            else:
+                groups.append([j])
+                combinations = len(lv)
+        return tuple(tuple(group) for group in groups)
+
+    def group_shape(self, group: tuple[int, ...]) -> tuple[int, ...]:
+        return tuple(len(self.levels[j]) for j in group)
+
+    @cached_property
+    def group_codes(self) -> tuple[np.ndarray, ...]:
+        """Per group, each row's combination of levels as one code (row-major over the group's factors)."""
+        codes = []
+        for group in self.groups:
+            code = self.codes[:, group[0]].copy()
+            for j in group[1:]:
+                code = code * len(self.levels[j]) + self.codes[:, j]
+            codes.append(code)
+        return tuple(codes)
+
     def linear_predictor(self, beta_full: np.ndarray, rows: slice = slice(None)) -> np.ndarray:
         """x'beta for ``rows``; ``beta_full`` is indexed by full-space column."""
-        columns = self.codes[rows] + self.offsets[None, :]
-        return beta_full[0] + beta_full[columns].sum(axis=1)
+        eta = np.full(len(np.arange(self.n_rows)[rows]), beta_full[0])
+        for group, code in zip(self.groups, self.group_codes):
+            shape = self.group_shape(group)
+            table = np.zeros(shape)
+            for axis, j in enumerate(group):
+                table = table + beta_full[self.columns_of(j)].reshape([-1 if a == axis else 1 for a in range(len(shape))])
+            eta += table.ravel()[code[rows]]
+        return eta
 
     def transpose_times(self, values: np.ndarray) -> np.ndarray:
         """X'v in the full space."""
-        parts = [np.array([values.sum()])]
-        parts += [np.bincount(self.codes[:, j], values, minlength=len(lv)) for j, lv in enumerate(self.levels)]
-        return np.concatenate(parts)
+        result = np.zeros(self.n_full)
+        result[0] = values.sum()
+        for group, code in zip(self.groups, self.group_codes):
+            shape = self.group_shape(group)
+            counts = np.bincount(code, values, minlength=int(np.prod(shape))).reshape(shape)
+            for axis, j in enumerate(group):
+                result[self.columns_of(j)] = _margin(counts, (axis,))
+        return result
 
     def gram(self, weights: np.ndarray) -> np.ndarray:
-        """X'WX in the full space, assembled block by block from weighted counts of level pairs."""
+        """X'WX in the full space from weighted counts of level combinations within and across groups."""
         gram = np.zeros((self.n_full, self.n_full))
-        offsets, sizes = self.offsets, [len(lv) for lv in self.levels]
         totals = self.transpose_times(weights)
         gram[0, :] = totals
         gram[:, 0] = totals
         gram[np.arange(1, self.n_full), np.arange(1, self.n_full)] = totals[1:]
-        for a in range(len(sizes)):
-            block_a = slice(offsets[a], offsets[a] + sizes[a])
-            for b in range(a + 1, len(sizes)):
-                pair = self.codes[:, a].astype(np.int64) * sizes[b] + self.codes[:, b]
-                block = np.bincount(pair, weights, minlength=sizes[a] * sizes[b]).reshape(sizes[a], sizes[b])
-                block_b = slice(offsets[b], offsets[b] + sizes[b])
-                gram[block_a, block_b] = block
-                gram[block_b, block_a] = block.T
+
+        def fill(factors: tuple[int, ...], counts: np.ndarray, axis_pairs: Iterable[tuple[int, int]]) -> None:
+            for x_axis, y_axis in axis_pairs:
+                block = _margin(counts, (x_axis, y_axis))
+                rows, columns = self.columns_of(factors[x_axis]), self.columns_of(factors[y_axis])
+                gram[np.ix_(rows, columns)] = block
+                gram[np.ix_(columns, rows)] = block.T
+
+        for g, (group, code) in enumerate(zip(self.groups, self.group_codes)):
+            shape = self.group_shape(group)
+            size = int(np.prod(shape))
+            counts = np.bincount(code, weights, minlength=size).reshape(shape)
+            fill(group, counts, itertools.combinations(range(len(group)), 2))
+            for other, other_code in zip(self.groups[g + 1:], self.group_codes[g + 1:]):
+                other_shape = self.group_shape(other)
+                other_size = int(np.prod(other_shape))
+                counts = np.bincount(code * other_size + other_code, weights, minlength=size * other_size)
+                fill(group + other, counts.reshape(shape + other_shape),
+                     itertools.product(range(len(group)), range(len(group), len(group) + len(other))))
         return gram
 
     def dense(self, columns: np.ndarray) -> np.ndarray:
@@ -233,16 +309,19 @@ class EngineFit:
 def fit_on_cells(cells: Cells, kept: np.ndarray, family: Family) -> EngineFit:
     """statsmodels GLM on the cells: Poisson on summed counts with offset log(summed exposure); Gamma
     and Tweedie on summed numerator / summed weight with var_weights the summed weight. Exact: the
-    score and Fisher information of the rows depend only on these sums."""
+    score and Fisher information of the rows depend only on these sums.
+
+    BLAS runs on one thread here: the cell design is small, and two BLAS threads on a busy
+    two-core machine made these fits 5-10 times slower (benchmarks/glm_fit.py).
+    """
     exog = cells.design.dense(kept)
-    if family.name == "poisson":
-        model = sm.GLM(cells.numerator, exog, family=family.statsmodels(), offset=np.log(cells.weight))
-    else:
-        model = sm.GLM(
-            cells.numerator / cells.weight, exog, family=family.statsmodels(), var_weights=cells.weight
-        )
-    with warnings.catch_warnings():
+    with warnings.catch_warnings(), threadpool_limits(limits=1, user_api="blas"):
         warnings.simplefilter("ignore")
+        if family.name == "poisson":
+            model = sm.GLM(cells.numerator, exog, family=family.statsmodels(), offset=np.log(cells.weight))
+        else:
+            model = sm.GLM(cells.numerator / cells.weight, exog, family=family.statsmodels(),
+                           var_weights=cells.weight)
         fit = model.fit(tol=COEFFICIENT_TOLERANCE, tol_criterion="params", maxiter=MAX_ITERATIONS)
     return EngineFit(np.asarray(fit.params), np.asarray(fit.normalized_cov_params), bool(fit.converged),
                      int(fit.fit_history["iteration"]))
@@ -254,7 +333,8 @@ def fit_on_rows(
     """Fisher scoring (IRLS) on the sparse one-hot rows until every coefficient moves < 1e-10.
 
     Working weights w * mu**(2 - power), working response eta + (y - mu) / mu, start
-    mu = (y + mean y) / 2 as statsmodels; covariance from X'WX at the final estimate.
+    mu = (y + mean y) / 2 as statsmodels; covariance from X'WX of the last iteration, at
+    coefficients within 1e-10 of the estimate (as statsmodels does).
     """
     rate = numerator / weight
     mu = (rate + numerator.sum() / weight.sum()) / 2.0
@@ -264,9 +344,9 @@ def fit_on_rows(
     converged, iteration = False, 0
     for iteration in range(1, MAX_ITERATIONS + 1):
         working_weight = weight * mu ** (2.0 - family.power)
-        information = design.gram(working_weight)[np.ix_(kept, kept)]
+        information = scipy.linalg.cho_factor(design.gram(working_weight)[np.ix_(kept, kept)])
         score_side = design.transpose_times(working_weight * (eta + (rate - mu) / mu))[kept]
-        new_beta = scipy.linalg.cho_solve(scipy.linalg.cho_factor(information), score_side)
+        new_beta = scipy.linalg.cho_solve(information, score_side)
         step = np.max(np.abs(new_beta - beta))
         beta = new_beta
         beta_full[kept] = beta
@@ -275,8 +355,7 @@ def fit_on_rows(
         if step < COEFFICIENT_TOLERANCE:
             converged = True
             break
-    information = design.gram(weight * mu ** (2.0 - family.power))[np.ix_(kept, kept)]
-    unit_covariance = scipy.linalg.cho_solve(scipy.linalg.cho_factor(information), np.eye(len(kept)))
+    unit_covariance = scipy.linalg.cho_solve(information, np.eye(len(kept)))
     return EngineFit(beta, unit_covariance, converged, iteration)
 
 
