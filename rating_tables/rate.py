@@ -118,7 +118,8 @@ def relativities(table: RatingTable, book: pd.DataFrame, row_offset: int = 0) ->
         else:
             i, j = (_side_index(table, side, side_cells, cells, values)
                     for side, side_cells in zip(factor.of, (factor.a_cells, factor.b_cells)))
-            out[f"rel_{factor.name}"] = factor.relativity[i, j]
+            flat = i.astype(np.intp) * factor.relativity.shape[1] + j  # one flat take: 2-D fancy indexing is slower
+            out[f"rel_{factor.name}"] = factor.relativity.ravel()[flat]
     return out
 
 
@@ -185,7 +186,8 @@ def rate(table: RatingTable, book: pd.DataFrame, exposure_column: str | None = N
     every row is rated for one full term and the column is not needed.
     """
     check_no_clash(list(book.columns), added_columns(table), "book")
-    return book.assign(**rating_columns(table, book, exposure_column, annual))
+    added = pd.DataFrame(rating_columns(table, book, exposure_column, annual), index=book.index, copy=False)
+    return pd.concat([book, added], axis=1)
 
 
 def solve_base_rate(table: RatingTable, book: pd.DataFrame, exposure_column: str | None,

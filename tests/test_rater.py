@@ -5,6 +5,7 @@ written out below); batch rating is checked against one-piece rating byte for by
 """
 from __future__ import annotations
 
+import dataclasses
 import hashlib
 import json
 from pathlib import Path
@@ -87,6 +88,16 @@ def test_band_edges_are_lower_inclusive():
     book = pd.DataFrame({"age": [24.999, 25.0, 59.999, 60.0, -INF, INF], "region": "North", "bonus": "02",
                          "exposure": 1.0})
     assert rate(example_table(), book, "exposure")["rel_age"].tolist() == [1.5, 1.0, 1.0, 1.25, 1.5, 1.25]
+
+
+def test_many_bands_follow_the_same_rule():
+    """300 bands (edges 0, 1, ..., 298) take the binary-search path: 0 -> band 1, 0.5 -> band 1, 298 -> band 299."""
+    edges = np.arange(299.0)
+    wide = NumericFactor("age", "none", [-INF, *edges], [*edges, INF], np.linspace(0.5, 2.0, 300), np.ones(300))
+    table = dataclasses.replace(example_table(), factors=(wide,))
+    book = pd.DataFrame({"age": [-1.0, 0.0, 0.5, 1.0, 297.9, 298.0, 1e9]})
+    expected = wide.relativity[[0, 1, 1, 2, 298, 299, 299]]
+    np.testing.assert_array_equal(rate(table, book, annual=True)["rel_age"].to_numpy(), expected)
 
 
 def test_levels_are_compared_as_strings():
