@@ -215,3 +215,15 @@ def test_batch_errors_count_rows_over_the_whole_book(tmp_path):
     book.to_csv(tmp_path / "book.csv", index=False)
     with pytest.raises(TableError, match=r"book.csv: factor 'bonus': level '09' at book row 737 \(0-based\)"):
         rate_file(example_table(), tmp_path / "book.csv", tmp_path / "out.csv", "exposure", batch_rows=300)
+
+
+def test_rate_file_refuses_bad_paths_and_columns(tmp_path):
+    _big_book(10).to_csv(tmp_path / "book.csv", index=False)
+    with pytest.raises(TableError, match=r"out.txt: the output must end in .csv or .parquet"):
+        rate_file(example_table(), tmp_path / "book.csv", tmp_path / "out.txt", "exposure")
+    with pytest.raises(TableError, match=r"nothing.csv: the book does not exist"):
+        rate_file(example_table(), tmp_path / "nothing.csv", tmp_path / "out.csv", "exposure")
+    with pytest.raises(TableError, match=r"book.csv: the book has no column 'premium_exposure'"):
+        rate_file(example_table(), tmp_path / "book.csv", tmp_path / "out.csv", "premium_exposure")
+    with pytest.raises(TableError, match="would overwrite the input"):
+        rate_file(example_table(), tmp_path / "book.csv", tmp_path / "book.csv", "exposure")
