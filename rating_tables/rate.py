@@ -5,8 +5,8 @@ gross_premium = max(minimum_premium, (pure x (1 + lae_ratio) + fixed_expense x e
                                      / (1 - variable_expense - profit)), rounded half to even
                 to `premium_decimals`.
 Exposure is the book's earned exposure, or one full term (1.0) per row with `annual=True`.
-Numeric values go to the band [lower, upper) that holds them (np.searchsorted on the lower edges;
--inf and inf fall in the end bands); categorical values are compared as strings (pandas
+Numeric values go to the band [lower, upper) that holds them (`table.band_index`: the count of
+interior edges at or below the value; -inf and inf fall in the end bands); categorical values are compared as strings (pandas
 categoricals are mapped once per category, then taken by code). Errors name the 0-based book row.
 """
 from __future__ import annotations

@@ -483,7 +483,8 @@ class RatingTable:
         _text(self.exposure_unit, "exposure_unit")
         day = self.effective_date
         try:
-            day = day if isinstance(day, date) else date.fromisoformat(_text(day, "effective_date"))
+            day = (date(day.year, day.month, day.day) if isinstance(day, date)
+                   else date.fromisoformat(_text(day, "effective_date")))
         except ValueError:
             raise TableError(f"{TABLE_JSON}: key 'effective_date' {self.effective_date!r} is not an ISO date "
                              "(YYYY-MM-DD)", where="effective_date") from None
