@@ -38,7 +38,7 @@ import pandas as pd
 from premiumlab.errors import InputError
 
 ZERO_THRESHOLD = float(np.float32(1e-35))   # LightGBM's kZeroThreshold
-MISSING_NONE, MISSING_ZERO, MISSING_NAN = 0, 1, 2
+MISSING_ZERO, MISSING_NAN = 1, 2                # decision_type bits 2-3 (0: no missing handling)
 LISTED_VIOLATIONS = 50                       # violations listed in full; all are counted
 SWEEP_TOLERANCE = 1e-12
 
@@ -300,16 +300,18 @@ def certify(model_text: str, feature: str | int, direction: int) -> Certificate:
 
 
 def _default_grid(values: pd.Series, points: int = 50) -> np.ndarray:
+    """Distinct observed values at `points` evenly spaced quantiles."""
     finite = values.to_numpy(dtype=np.float64, na_value=np.nan)
     finite = finite[np.isfinite(finite)]
     if finite.size == 0:
         raise InputError(f"sweep: column {values.name!r} has no finite values to build a grid from")
-    return np.unique(np.quantile(finite, np.linspace(0.0, 1.0, points)))
+    return np.unique(np.quantile(finite, np.linspace(0.0, 1.0, points), method="inverted_cdf"))
 
 
-def sweep(model: RawScorer | Callable[[pd.DataFrame], np.ndarray], features_sample: pd.DataFrame, feature: str, direction: int,
-          grid: np.ndarray | None = None, policies: int = 1000, seed: int = 2026) -> SweepResult:
-    """Set `feature` to every grid value (ascending; default 50 quantiles of the sample) for up to
+def sweep(model: RawScorer | Callable[[pd.DataFrame], np.ndarray], features_sample: pd.DataFrame, feature: str,
+          direction: int, grid: np.ndarray | None = None, policies: int = 1000, seed: int = 2026) -> SweepResult:
+    """Set `feature` to every grid value (ascending; default: the observed values at 50 quantiles
+    of the sample) for up to
     `policies` seeded rows of `features_sample` and count grid steps where the raw score moves
     against `direction` by more than 1e-12 (one predict call on the stacked rows). `model` has a
     `predict_raw(features)` method (a `GbmModel`) or is itself such a function."""
