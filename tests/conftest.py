@@ -71,3 +71,29 @@ def run_cli(*args: str, cwd: Path | None = None, timeout: float = 600) -> subpro
     env = dict(os.environ, PYTHONHASHSEED="0")
     return subprocess.run([sys.executable, "-m", "premiumlab", *args], cwd=cwd, env=env,
                           capture_output=True, text=True, timeout=timeout)
+
+
+ROOT = Path(__file__).resolve().parents[1]
+DEMO_POLICIES = 20_000
+#: The test run of the motor scenario: fewer folds and settings than the defaults keep the suite fast.
+QUICK_GBM = "\n[gbm]\nfolds = 3\nmax_settings = 2\nmax_rounds = 600\n"
+
+
+@pytest.fixture(scope="session")
+def demo_run(tmp_path_factory) -> dict[str, Path]:
+    """Simulate a small motor book and run the pipeline once through the CLI; tests read the outputs."""
+    base = tmp_path_factory.mktemp("demo")
+    spec = base / "spec.toml"
+    spec.write_text((ROOT / "scenarios" / "motor_spec.toml").read_text() + QUICK_GBM)
+    book = base / "book.parquet"
+    steps = [
+        ("simulate", str(ROOT / "scenarios" / "motor.toml"), "--out", str(book),
+         "--policies", str(DEMO_POLICIES), "--seed", "11"),
+        ("fit", str(book), "--spec", str(spec), "--out", str(base / "run")),
+        ("compare", str(base / "run")),
+        ("report", str(base / "run")),
+    ]
+    for step in steps:
+        r = run_cli(*step)
+        assert r.returncode == 0, f"{step[0]} failed: {r.stderr[-3000:]}"
+    return {"base": base, "spec": spec, "book": book, "truth": base / "truth.json", "run": base / "run"}
