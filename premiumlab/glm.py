@@ -257,9 +257,12 @@ def _design(inputs: GlmInputs) -> OneHotDesign:
     return OneHotDesign(names, levels, base_codes, codes)
 
 
-def _engine_name(engine: str, problem: _Problem) -> str:
+def _check_engine(engine: str) -> None:
     if engine not in ENGINES:
         raise InputError(f"engine: expected one of {', '.join(ENGINES)}, got '{engine}'")
+
+
+def _engine_name(engine: str, problem: _Problem) -> str:
     if engine == "auto":
         return choose_engine(problem.design.n_rows, problem.cells.design.n_rows)
     return engine
@@ -332,6 +335,7 @@ def _require_amount(inputs: GlmInputs, model: str) -> np.ndarray:
 
 def fit_frequency(inputs: GlmInputs, engine: str = "auto") -> GlmResult:
     """Poisson GLM of claim counts, log link, offset log(exposure); relativities per claim frequency."""
+    _check_engine(engine)
     everything = np.ones(len(inputs.exposure), dtype=bool)
     problem = _problem("frequency", inputs, everything, inputs.claim_count, inputs.exposure)
     return _fit(problem, POISSON, _engine_name(engine, problem), inputs, [])
@@ -342,6 +346,7 @@ def fit_severity(inputs: GlmInputs, engine: str = "auto") -> GlmResult:
 
     Nil claims (count > 0, amount 0) are excluded and counted in the notes.
     """
+    _check_engine(engine)
     amount = _require_amount(inputs, "severity")
     with_claims = inputs.claim_count > 0
     rows = with_claims & (amount > 0)
@@ -359,6 +364,9 @@ def fit_pure_premium(inputs: GlmInputs, power: str | float = "auto", engine: str
     ``power="auto"``: profile likelihood over 1.1..1.9 on the rows with the true Tweedie density
     and the dispersion at its maximum likelihood for each power (see premiumlab.tweedie).
     """
+    _check_engine(engine)
+    if power != "auto":
+        power = _fixed_power(power)
     amount = _require_amount(inputs, "pure premium")
     everything = np.ones(len(inputs.exposure), dtype=bool)
     problem = _problem("pure premium", inputs, everything, amount, inputs.exposure)
@@ -373,7 +381,7 @@ def fit_pure_premium(inputs: GlmInputs, power: str | float = "auto", engine: str
         if chosen in (POWER_GRID[0], POWER_GRID[-1]):
             notes.append(f"power {chosen:g} is at the edge of the searched range; the likelihood may peak outside it")
     else:
-        chosen, profile, notes = _fixed_power(power), [], []
+        chosen, profile, notes = power, [], []
     result = _fit(problem, tweedie_family(chosen), engine, inputs, notes)
     result.power_profile = profile
     return result
