@@ -292,7 +292,11 @@ def choose_columns(design: OneHotDesign, row_count: np.ndarray) -> ColumnChoice:
 
 
 def choose_engine(n_rows: int, n_cells: int) -> str:
-    """``cells`` when the cells are few: at most max(CELLS_MIN_LIMIT, CELLS_SHARE_OF_ROWS * rows)."""
+    """``cells`` when the cells are few: at most max(CELLS_MIN_LIMIT, CELLS_SHARE_OF_ROWS * rows).
+
+    Timed on 1,000,000 Poisson rows (benchmarks/glm_fit.py, part c): cells engine 0.5 s against
+    rows engine 0.8 s at 0.1 % cells, equal (1.4 s) at 4.3 %, 14.6 s against 1.4 s at 20 %.
+    """
     return "cells" if n_cells <= max(CELLS_MIN_LIMIT, CELLS_SHARE_OF_ROWS * n_rows) else "rows"
 
 
