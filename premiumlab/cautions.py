@@ -2,9 +2,10 @@
 from __future__ import annotations
 
 from premiumlab.spec import Spec
+from rating_tables.table import DRAFT_CAUTION
 
-DRAFT = ("Draft for review by a qualified actuary: these figures must be filed and approved under local "
-         "rate regulation before any use in pricing.")
+#: The one draft caution, shared with the filed table format so that it is never stated twice.
+DRAFT = DRAFT_CAUTION
 PROHIBITED = ("Factors prohibited by local law must not be used in rating; the spec's [compliance] list "
               "is checked, but it is the user's duty to keep it complete for the jurisdiction.")
 AS_GIVEN = ("Claim amounts were taken as given: not developed to ultimate, not trended to the future "

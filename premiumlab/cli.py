@@ -105,6 +105,76 @@ def compare(run: Annotated[Path, typer.Argument(help="Run directory written by `
 
 @app.command()
 @handled
+def tabulate(run: Annotated[Path, typer.Argument(help="Run directory written by `fit`.")],
+             out: Annotated[Path, typer.Option("--out", help="Rating table folder to write.")],
+             model: Annotated[str, typer.Option(help="gbm (distil the boosted model) or glm (export the "
+                                                     "Tweedie GLM's relativities).")] = "gbm",
+             book: Annotated[Optional[Path], typer.Option(help="The run's book, if it has moved.")] = None,
+             force: Force = False) -> None:
+    """Distil a run's model into a banded multiplicative rating table, with its fidelity."""
+    from premiumlab.rating import fidelity_lines
+    from premiumlab.tabulate import tabulate as tabulate_run
+    summary = tabulate_run(run, out, model=model, force=force, book=book)
+    typer.echo("\n".join(fidelity_lines(summary)))
+    _echo_cautions(summary["cautions"])
+
+
+@app.command()
+@handled
+def audit(table: Annotated[Path, typer.Argument(help="Rating table folder.")],
+          spec: Annotated[Optional[Path], typer.Option("--spec", help="Spec whose promises to check.")] = None,
+          run: Annotated[Optional[Path], typer.Option("--run", help="Run whose boosted models to "
+                                                                     "re-certify.")] = None) -> None:
+    """Check promised directions, bands, relativities and base levels (exit 1 on any violation)."""
+    from premiumlab.rating import audit_table
+    found = audit_table(table, spec, run)
+    for line in found:
+        typer.echo(line)
+    typer.echo(f"audit: {len(found)} violation(s) in {table}")
+    if found:
+        raise typer.Exit(1)
+
+
+@app.command()
+@handled
+def rate(table: Annotated[Path, typer.Argument(help="Rating table folder.")],
+         book: Annotated[Path, typer.Argument(help="Book to rate (.csv, .parquet or a folder of parts).")],
+         out: Annotated[Path, typer.Option("--out", help="Priced file to write (.csv or .parquet).")],
+         exposure: Annotated[str, typer.Option(help="The book's exposure column.")] = "exposure",
+         annual: Annotated[bool, typer.Option("--annual", help="Price one full term per policy.")] = False,
+         force: Force = False) -> None:
+    """Rate policies with a table: pure and gross premium and the build-up columns."""
+    from premiumlab.rating import rate_book
+    cautions = rate_book(table, book, out, exposure, annual, force=force)
+    typer.echo(f"wrote {out}")
+    _echo_cautions(list(cautions))
+
+
+@app.command()
+@handled
+def impact(book: Annotated[Path, typer.Argument(help="Book of policies (no claim columns needed).")],
+           current: Annotated[str, typer.Option("--current", help="Current table folder, or column:NAME.")],
+           proposed: Annotated[Path, typer.Option("--proposed", help="Proposed table folder.")],
+           cap: Annotated[Optional[float], typer.Option(help="Cap each policy's change at +-CAP "
+                                                            "(0.15 = 15 %).")] = None,
+           exposure: Annotated[str, typer.Option(help="The book's exposure column.")] = "exposure",
+           annual: Annotated[bool, typer.Option("--annual", help="Compare one full term per policy.")] = False,
+           out: Annotated[Optional[Path], typer.Option("--out", help="Also write the summary as JSON.")] = None,
+           force: Force = False) -> None:
+    """Premium dislocation from the current to the proposed rates, optionally capped."""
+    from premiumlab.rating import dislocation, impact_lines
+    result = dislocation(current, str(proposed), book, exposure, annual, cap, (0.05, 0.10, 0.25))
+    if out is not None:
+        from premiumlab.jsonio import write_json
+        from premiumlab.outputs import atomic_files
+        with atomic_files([out], force=force) as tmp:
+            write_json(tmp / out.name, result)
+    typer.echo("\n".join(impact_lines(result)))
+    _echo_cautions(result["cautions"])
+
+
+@app.command()
+@handled
 def report(run: Annotated[Path, typer.Argument(help="Run directory written by `fit`.")]) -> None:
     """Write RUN/report.html: one file with the comparison, figures, GLM tables and cautions."""
     from premiumlab.report import write_report

@@ -1,0 +1,139 @@
+"""Command glue for the filed table: rate a book, measure dislocation, audit (with the certificate)."""
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from premiumlab.errors import InputError
+
+COLUMN_PREFIX = "column:"
+
+
+def read_frame(path: str | Path) -> pd.DataFrame:
+    """A whole book as a DataFrame (CSV values as strings, so "01" stays "01"), for `impact`."""
+    from premiumlab.data import iter_book, read_columns
+    columns = read_columns(path)
+    parts = [chunk for _, chunk in iter_book(path, columns)]
+    if not parts:
+        raise InputError(f"{path}: the book has no rows")
+    return pd.concat(parts, ignore_index=True)
+
+
+def rate_book(table_dir: str | Path, book: str | Path, out: str | Path, exposure: str | None,
+              annual: bool, force: bool = False) -> tuple[str, ...]:
+    """Rate `book` with the table into `out` (CSV or Parquet by extension), atomically."""
+    import rating_tables
+    from premiumlab.outputs import atomic_files
+    table = rating_tables.load(table_dir)
+    out = Path(out)
+    with atomic_files([out], force=force) as tmp:
+        return rating_tables.rate_file(table, book, tmp / out.name, exposure_column=None if annual else exposure,
+                                       annual=annual)
+
+
+def premiums_from(source: str, frame: pd.DataFrame, exposure: str | None, annual: bool) -> np.ndarray:
+    """Gross premiums per policy: from a table folder, or from a book column given as `column:NAME`."""
+    import rating_tables
+    if source.startswith(COLUMN_PREFIX):
+        name = source[len(COLUMN_PREFIX):]
+        if name not in frame.columns:
+            raise InputError(f"{source}: the book has no column '{name}'")
+        values = pd.to_numeric(frame[name], errors="coerce").to_numpy(float)
+        bad = np.flatnonzero(~(np.isfinite(values) & (values > 0)))
+        if bad.size:
+            raise InputError(f"column '{name}': {bad.size} rows with a missing or non-positive premium "
+                             f"(rows {', '.join(map(str, bad[:5]))})")
+        return values
+    table = rating_tables.load(source)
+    return rating_tables.rate(table, frame, None if annual else exposure, annual=annual)["gross_premium"].to_numpy()
+
+
+def dislocation(current: str, proposed: str, book: str | Path, exposure: str | None, annual: bool,
+                cap: float | None, thresholds: tuple[float, ...]) -> dict:
+    """Per-policy change from `current` to `proposed` premiums (tables or `column:NAME`)."""
+    import rating_tables
+    if proposed.startswith(COLUMN_PREFIX):
+        raise InputError(f"--proposed {proposed}: the proposed premium must come from a table folder")
+    frame = read_frame(book)
+    table = rating_tables.load(proposed)
+    result = rating_tables.impact(premiums_from(current, frame, exposure, annual),
+                                  premiums_from(proposed, frame, exposure, annual), frame,
+                                  [f.name for f in table.main_factors], thresholds=thresholds, cap=cap)
+    result["cautions"] = list(table.cautions)
+    return result
+
+
+def impact_lines(result: dict) -> list[str]:
+    """A compact text summary of a dislocation result."""
+    lines = [f"policies {result['policies']}: current total {result['total_current']:,.2f}, proposed "
+             f"{result['total_proposed']:,.2f}, overall change {result['overall_change']:+.2%}",
+             "change band          policies   share"]
+    for b in result["bands"]:
+        lines.append(f"  {b['band']:<18} {b['count']:>8}  {b['count_share']:>6.1%}")
+    for t in result["above_thresholds"]:
+        lines.append(f"increase above {t['threshold']:.0%}: {t['count']} policies ({t['count_share']:.1%})")
+    if result["largest_increases"]:
+        top = result["largest_increases"][0]
+        lines.append(f"largest increase: row {top['row']}, {top['current']:,.2f} -> {top['proposed']:,.2f} "
+                     f"({top['change']:+.1%})")
+    if result["capping"]:
+        c = result["capping"]
+        lines.append("capping: " + ", ".join(f"{k} {v:.6g}" if isinstance(v, float) else f"{k} {v}"
+                                             for k, v in c.items() if not isinstance(v, (list, dict))))
+    return lines
+
+
+def audit_table(table_dir: str | Path, spec_path: str | Path | None, run_dir: str | Path | None) -> list[str]:
+    """Every violation as one line: the table's own checks, the spec's promises, the run's certificate."""
+    import rating_tables
+    promises = None
+    if spec_path is not None:
+        from premiumlab.spec import load_spec
+        spec = load_spec(spec_path)
+        promises = {f.name: f.monotone for f in spec.factors if f.monotone != "none"}
+    found = [str(v) for v in rating_tables.audit_path(table_dir, promises=promises)]
+    if run_dir is not None:
+        found += certificate_violations(run_dir)
+    return found
+
+
+def certificate_violations(run_dir: str | Path) -> list[str]:
+    """Re-certify the run's constrained boosted models from their text files alone."""
+    from premiumlab.certificate import certify
+    from premiumlab.jsonio import read_json
+    models = Path(run_dir) / "models"
+    if not models.is_dir():
+        raise InputError(f"{run_dir}: not a run directory (no models/)")
+    out = []
+    for meta_path in sorted(models.glob("gbm_*.json")):
+        meta = read_json(meta_path)
+        text = (models / f"{meta_path.stem}.txt").read_text(encoding="utf-8")
+        for name, direction in meta.get("monotone", {}).items():
+            cert = certify(text, name, int(direction))
+            if cert["violation_count"]:
+                out.append(f"certificate: {meta_path.stem} breaks the {name} promise in "
+                           f"{cert['violation_count']} leaf pairs (largest reversal {cert['max_violation']:.6g})")
+    return out
+
+
+def fidelity_lines(summary: dict) -> list[str]:
+    """A compact text summary of `tabulate`: rate level, fidelity and retention."""
+    level, fid = summary["rate_level"], summary["fidelity"]
+    lines = [f"wrote {summary['table']}: base rate {level['base_rate']:.4f}, total pure premium "
+             f"{level['total_pure_premium']:,.2f} ({level['target']['basis']}), rounding off-balance "
+             f"{level['rounding_off_balance']:+.4%}"]
+    if "indicated_overall_change" in level:
+        lines.append(f"indicated overall change against the current premium: "
+                     f"{level['indicated_overall_change']:+.2%}")
+    lines.append(f"fidelity on the {fid['rows']} ({fid['policies']} rows, Tweedie power "
+                 f"{fid['tweedie_power']:.2f}):")
+    for name, s in fid["models"].items():
+        lines.append(f"  {name:<6} mean deviance {s['mean_deviance']:.6g}  Gini {s['gini']:.4f}")
+    r = fid["retention"]
+    if r.get("gini_table_over_gbm") is not None:
+        lines.append(f"  retention G_table/G_gbm = {r['gini_table_over_gbm']:.3f}")
+    if r.get("gbm_lift_over_glm_kept") is not None:
+        lines.append(f"  retention (G_table - G_glm)/(G_gbm - G_glm) = {r['gbm_lift_over_glm_kept']:.3f}")
+    return lines
