@@ -1,4 +1,10 @@
-"""`demo`: the whole job on the built-in motor scenario, into one folder."""
+"""`demo`: the whole job on the built-in motor scenario, into one folder.
+
+DIR/book.parquet and truth.json (simulated), spec.toml, run/ (models, comparison, figures,
+report.html), table/ (distilled from the boosted model, with its two-way table), glm_table/ (the
+GLM's relativities), priced.parquet (the book rated with table/), impact.json (dislocation from
+the GLM table to the distilled one).
+"""
 from __future__ import annotations
 
 from importlib import resources
@@ -17,20 +23,42 @@ def scenario_file(name: str) -> Path:
 
 def run_demo(out: str | Path, policies: int | None = None, force: bool = False,
              echo: Callable[[str], None] = print) -> Path:
-    """Simulate the motor book, then fit, and write everything under `out`."""
+    """Simulate the motor book, then fit, compare, tabulate, audit, rate and measure the impact."""
+    from premiumlab.comparison import compare, summary_lines
+    from premiumlab.jsonio import write_json
     from premiumlab.outputs import atomic_output
     from premiumlab.pipeline import fit
+    from premiumlab.rating import (audit_table, dislocation, fidelity_lines, impact_lines, rate_book)
+    from premiumlab.report import write_report
     from premiumlab.simulate import simulate
+    from premiumlab.tabulate import tabulate
 
     out = Path(out)
     check_target(out, force)
     with atomic_output(out, force=force) as tmp:
-        book = tmp / "book.parquet"
-        spec = scenario_file(f"{SCENARIO}_spec.toml")
-        simulate(scenario_file(f"{SCENARIO}.toml"), book, policies=policies)
-        echo(f"simulated {book.name}")
-        (tmp / "spec.toml").write_bytes(spec.read_bytes())
-        fit(book, tmp / "spec.toml", tmp / "run", progress=True)
-        echo("fitted run/")
+        book, spec = tmp / "book.parquet", tmp / "spec.toml"
+        spec.write_bytes(scenario_file(f"{SCENARIO}_spec.toml").read_bytes())
+        sim = simulate(scenario_file(f"{SCENARIO}.toml"), book, policies=policies)
+        echo(f"[1/7] simulated {sim['policies']} policies ({sim['rows']} rows) of an invented motor book")
+        run = fit(book, spec, tmp / "run", progress=True)
+        echo("[2/7] fitted GLM baselines and boosted models")
+        echo("\n".join(summary_lines(compare(run))))
+        echo("[3/7] compared on the holdout")
+        summary = tabulate(run, tmp / "table", model="gbm")
+        echo("\n".join(fidelity_lines(summary)))
+        tabulate(run, tmp / "glm_table", model="glm")
+        echo("[4/7] distilled the boosted model into table/ and exported the GLM as glm_table/")
+        found = audit_table(tmp / "table", spec, run)
+        echo("\n".join(found) if found else "[5/7] audit: no violations in table/")
+        rate_book(tmp / "table", book, tmp / "priced.parquet", "exposure", annual=False)
+        echo("[6/7] rated the book into priced.parquet")
+        result = dislocation(str(tmp / "glm_table"), str(tmp / "table"), book, "exposure", False, 0.15,
+                             (0.05, 0.10, 0.25))
+        write_json(tmp / "impact.json", result)
+        echo("\n".join(impact_lines(result)))
+        write_report(run)
+        echo("[7/7] impact of moving from the GLM table written to impact.json; report in run/report.html")
+        for c in summary["cautions"]:
+            echo(f"caution: {c}")
     echo(f"demo written to {out}")
     return out
