@@ -92,8 +92,16 @@ def demo_run(tmp_path_factory) -> dict[str, Path]:
         ("fit", str(book), "--spec", str(spec), "--out", str(base / "run")),
         ("compare", str(base / "run")),
         ("report", str(base / "run")),
+        ("tabulate", str(base / "run"), "--out", str(base / "table")),
+        ("tabulate", str(base / "run"), "--out", str(base / "glm_table"), "--model", "glm"),
+        ("audit", str(base / "table"), "--spec", str(spec), "--run", str(base / "run")),
+        ("rate", str(base / "table"), str(book), "--out", str(base / "priced.parquet")),
+        ("impact", str(book), "--current", str(base / "glm_table"), "--proposed", str(base / "table"),
+         "--cap", "0.15", "--out", str(base / "impact.json")),
     ]
     for step in steps:
         r = run_cli(*step)
         assert r.returncode == 0, f"{step[0]} failed: {r.stderr[-3000:]}"
-    return {"base": base, "spec": spec, "book": book, "truth": base / "truth.json", "run": base / "run"}
+    return {"base": base, "spec": spec, "book": book, "truth": base / "truth.json", "run": base / "run",
+            "table": base / "table", "glm_table": base / "glm_table", "priced": base / "priced.parquet",
+            "impact": base / "impact.json"}

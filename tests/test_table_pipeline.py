@@ -1,0 +1,75 @@
+"""The table steps of the pipeline on the session's small motor run: tabulate, audit, rate, impact."""
+from __future__ import annotations
+
+import json
+import shutil
+
+import numpy as np
+import pandas as pd
+import pytest
+
+import rating_tables
+from conftest import run_cli
+
+
+def test_table_has_the_spec_interaction_and_promise(demo_run):
+    table = rating_tables.load(demo_run["table"])
+    names = [f.name for f in table.factors]
+    assert "driver_age__vehicle_power" in names or any(
+        getattr(f, "of", None) == ("driver_age", "vehicle_power") for f in table.factors)
+    bonus = next(f for f in table.factors if f.name == "bonus_class")
+    assert bonus.monotone == "increasing"
+    assert any("rate regulation" in c for c in table.cautions)
+
+
+def test_rated_file_reproduces_the_table_total_and_keeps_inputs(demo_run):
+    priced = pd.read_parquet(demo_run["priced"])
+    book = pd.read_parquet(demo_run["book"])
+    for col in book.columns:
+        assert priced[col].equals(book[col])
+    table = rating_tables.load(demo_run["table"])
+    rel_cols = [c for c in priced.columns if c.startswith("rel_")]
+    assert len(rel_cols) == len(table.factors)
+    # pure premium = base rate x product of relativities x exposure (DESIGN 3.4), row by row
+    product = priced[rel_cols].prod(axis=1).to_numpy()
+    np.testing.assert_allclose(priced["pure_premium"], table.base_rate * product * priced["exposure"], rtol=1e-12)
+    # the base rate was solved so that the training total equals the experience target
+    fidelity = json.loads((demo_run["table"] / "fidelity.json").read_text())
+    preds = pd.read_parquet(demo_run["run"] / "predictions.parquet")
+    train = ~preds["holdout"].to_numpy()
+    assert priced["pure_premium"][train].sum() == pytest.approx(book["claim_amount"][train].sum(), rel=1e-9)
+    assert fidelity["rate_level"]["target"]["basis"] == "experience"
+
+
+def test_fidelity_reports_retention(demo_run):
+    fid = json.loads((demo_run["table"] / "fidelity.json").read_text())["fidelity"]
+    assert set(fid["models"]) == {"table", "gbm", "glm"}
+    r = fid["retention"]
+    g = {k: v["gini"] for k, v in fid["models"].items()}
+    assert r["gini_table_over_gbm"] == pytest.approx(g["table"] / g["gbm"], rel=1e-12)
+    assert r["gbm_lift_over_glm_kept"] == pytest.approx((g["table"] - g["glm"]) / (g["gbm"] - g["glm"]), rel=1e-12)
+
+
+def test_impact_summary_adds_up(demo_run):
+    result = json.loads(demo_run["impact"].read_text())
+    assert sum(b["count"] for b in result["bands"]) == result["policies"]
+    assert sum(b["count_share"] for b in result["bands"]) == pytest.approx(1.0, abs=1e-12)
+    cap = result["capping"]
+    assert cap["after_correction"]["total"] == pytest.approx(cap["total_proposed"], rel=1e-9)
+
+
+def test_audit_exits_1_and_names_an_injected_reversal(demo_run, tmp_path):
+    broken = tmp_path / "table"
+    shutil.copytree(demo_run["table"], broken)
+    path = broken / "factors" / "bonus_class.csv"
+    frame = pd.read_csv(path, dtype=str)
+    rel = frame["relativity"].astype(float)
+    frame.loc[frame.index[-1], "relativity"] = repr(float(rel.iloc[0]) * 0.5)
+    frame.to_csv(path, index=False)
+    r = run_cli("audit", str(broken), "--spec", str(demo_run["spec"]))
+    assert r.returncode == 1, r.stdout + r.stderr
+    lines = r.stdout.strip().splitlines()
+    assert any("bonus_class" in line and "by " in line for line in lines[:-1]), lines
+    assert not lines[-1].startswith("audit: 0 ")
+    clean = run_cli("audit", str(demo_run["table"]), "--spec", str(demo_run["spec"]))
+    assert clean.returncode == 0 and "audit: 0 violation(s)" in clean.stdout
