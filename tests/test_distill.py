@@ -223,3 +223,163 @@ def test_promise_is_checked_through_the_two_way_table() -> None:
                                                                                     edges=np.array([1.0]))}
     reversal = worst_reversal(bandings, fit, decimals=3)
     assert reversal.factor == "x" and reversal.amount == pytest.approx(np.log(1 / 0.96), abs=1e-12)
+
+
+# ---------------------------------------------------------------------------------------------
+# tabulate on the session's demo run (a 20,000-policy motor book with a two-way table)
+
+
+@pytest.fixture(scope="module")
+def gbm_table(demo_run, tmp_path_factory) -> dict:
+    from premiumlab.tabulate import tabulate
+    out = tmp_path_factory.mktemp("tabulate") / "table"
+    return {"summary": tabulate(demo_run["run"], out), "path": out}
+
+
+def _training_frame(demo_run) -> tuple:
+    from premiumlab.pipeline import open_run
+    from premiumlab.tabulate import rating_frame, reread_book
+    run = open_run(demo_run["run"])
+    book = reread_book(run)
+    rows = np.flatnonzero(~book.holdout)
+    return run, book, rows, rating_frame(book, run.spec, rows)
+
+
+def test_table_total_on_the_training_book_equals_the_experience(demo_run, gbm_table) -> None:
+    """Rated by the table alone (rating_tables.rate), the training rows' pure premium adds up to their
+    observed claim amounts (relative 1e-9); base bands and levels are exactly 1; the promised factor
+    (bonus_class, increasing) never decreases band to band, also through no two-way table."""
+    import rating_tables
+    table = rating_tables.load(gbm_table["path"])
+    run, book, rows, frame = _training_frame(demo_run)
+    rated = rating_tables.rate(table, frame, run.spec.columns.exposure)
+    assert rated["pure_premium"].sum() == pytest.approx(book.claim_amount[rows].sum(), rel=1e-9)
+    for factor in table.main_factors:
+        assert (factor.relativity == 1.0).any(), factor.name
+    bonus = table.factor("bonus_class")
+    assert np.all(np.diff(bonus.relativity) >= 0)
+    assert rating_tables.audit(table) == []
+    assert [f.name for f in table.interactions] == ["driver_age__vehicle_power"]
+
+
+def test_table_fidelity_equals_sklearn_tweedie_deviance(demo_run, gbm_table) -> None:
+    """The table's holdout mean deviance in fidelity.json equals scikit-learn's
+    `mean_tweedie_deviance` on the table's own holdout premiums (relative 1e-9, same power and weights);
+    the boosted model's equals it on predictions.parquet (1e-9)."""
+    import rating_tables
+    from sklearn.metrics import mean_tweedie_deviance
+
+    from premiumlab.pipeline import open_run
+    from premiumlab.tabulate import rating_frame, reread_book
+    fid = gbm_table["summary"]["fidelity"]
+    run = open_run(demo_run["run"])
+    book = reread_book(run)
+    held = np.flatnonzero(book.holdout)
+    table = rating_tables.load(gbm_table["path"])
+    frame = rating_frame(book, run.spec, held)
+    mu = rating_tables.rate(table, frame, run.spec.columns.exposure)["pure_premium"].to_numpy() / book.exposure[held]
+    y, w = book.claim_amount[held] / book.exposure[held], book.exposure[held]
+    power = fid["tweedie_power"]
+    assert fid["rows"] == "holdout" and fid["policies"] == held.size
+    assert fid["models"]["table"]["mean_deviance"] == pytest.approx(
+        mean_tweedie_deviance(y, mu, sample_weight=w, power=power), rel=1e-9)
+    gbm = run.predictions()["gbm_pure_premium"].to_numpy()[held]
+    assert fid["models"]["gbm"]["mean_deviance"] == pytest.approx(
+        mean_tweedie_deviance(y, gbm, sample_weight=w, power=power), rel=1e-9)
+    g = {k: v["gini"] for k, v in fid["models"].items()}
+    assert fid["retention"]["gini_table_over_gbm"] == pytest.approx(g["table"] / g["gbm"], rel=1e-12)
+    assert fid["retention"]["gbm_lift_over_glm_kept"] == pytest.approx(
+        (g["table"] - g["glm"]) / (g["gbm"] - g["glm"]), rel=1e-12)
+
+
+def test_rate_level_statements(gbm_table) -> None:
+    """Rounding off-balance = (unrounded-relativity base rate) / base rate - 1, since both solve the
+    same target (1e-12); it is below 0.5 % for 3 decimals; the indicated overall change is the gross
+    total over the current premium total minus 1 (1e-12); no minimum premium, so its off-balance is 0."""
+    level = gbm_table["summary"]["rate_level"]
+    assert level["rounding_off_balance"] == pytest.approx(
+        level["base_rate_unrounded_relativities"] / level["base_rate"] - 1, abs=1e-12)
+    assert abs(level["rounding_off_balance"]) < 0.005
+    assert level["indicated_overall_change"] == pytest.approx(
+        level["gross_premium_total"] / level["current_premium_total"] - 1, abs=1e-12)
+    assert level["minimum_premium_off_balance"] == 0.0
+
+
+def test_tabulate_is_deterministic_and_fast(demo_run, gbm_table, tmp_path) -> None:
+    """A second tabulate of the same run writes byte-identical table.json, factor CSVs and
+    fidelity.json; each took under 60 s on the 20,000-policy book."""
+    from premiumlab.tabulate import tabulate
+    again = tabulate(demo_run["run"], tmp_path / "again")
+    first = gbm_table["path"]
+    names = ["table.json", "fidelity.json"] + [f"factors/{p.name}" for p in (first / "factors").iterdir()]
+    for name in names:
+        assert (first / name).read_bytes() == (tmp_path / "again" / name).read_bytes(), name
+    assert gbm_table["summary"]["seconds"] < 60 and again["seconds"] < 60
+
+
+def test_glm_export_keeps_the_glm_relativities(demo_run, tmp_path) -> None:
+    """`model="glm"`: every factor's indicated relativity is the run's GLM relativity (1e-12) and the
+    selected one is it rounded to 3 decimals; the table's holdout Gini is within 0.005 of the GLM's."""
+    import json
+
+    import rating_tables
+    from premiumlab.tabulate import tabulate
+    summary = tabulate(demo_run["run"], tmp_path / "glm", model="glm")
+    table = rating_tables.load(tmp_path / "glm")
+    glm = json.loads((demo_run["run"] / "models" / "glm_pure_premium.json").read_text())["relativities"]
+    for factor in table.main_factors:
+        expected = np.array(list(glm[factor.name].values()))
+        np.testing.assert_allclose(factor.indicated, expected, rtol=1e-12)
+        np.testing.assert_array_equal(factor.relativity, np.round(expected, 3))
+    g = summary["fidelity"]["models"]
+    assert abs(g["table"]["gini"] - g["glm"]["gini"]) < 0.005
+    assert table.provenance["model"] == "glm_pure_premium" and table.interactions == ()
+
+
+def test_current_premium_target_follows_the_fundamental_insurance_equation(demo_run, tmp_path) -> None:
+    """Target = current premium x (1 + 5 %) with LAE 10 %, fixed expense 30 per exposure unit, variable
+    expense 20 % and profit 5 %. By the fundamental insurance equation (Werner and Modlin, Basic
+    Ratemaking: premium = (pure premium incl. LAE + fixed expense) / (1 - variable - profit); formula as
+    published, figures constructed for this test) the rated gross premium of the training rows adds up
+    to that target (relative 1e-6: gross is rounded to cents), and the permissible loss ratio is
+    pure target / premium target."""
+    import json
+    import shutil
+
+    import rating_tables
+    from premiumlab.tabulate import tabulate
+    run_copy = demo_run["base"] / "run_current_premium"
+    if not run_copy.exists():
+        shutil.copytree(demo_run["run"], run_copy)
+        manifest = json.loads((run_copy / "run.json").read_text())
+        manifest["spec"]["table"] = {**manifest["spec"].get("table", {}), "target": "current_premium",
+                                     "overall_change": 0.05}
+        manifest["spec"]["loadings"] = {"lae_ratio": 0.10, "fixed_expense": 30.0, "variable_expense": 0.20,
+                                        "profit": 0.05}
+        (run_copy / "run.json").write_text(json.dumps(manifest))
+    summary = tabulate(run_copy, tmp_path / "cp")
+    level = summary["rate_level"]
+    target = level["target"]
+    run, book, rows, frame = _training_frame(demo_run)
+    current = book.current_premium[rows].sum()
+    assert target["target_premium_total"] == pytest.approx(current * 1.05, rel=1e-12)
+    pure = (current * 1.05 * (1 - 0.20 - 0.05) - 30.0 * book.exposure[rows].sum()) / 1.10
+    assert target["total_pure_premium"] == pytest.approx(pure, rel=1e-12)
+    assert target["permissible_loss_ratio"] == pytest.approx(pure / (current * 1.05), rel=1e-12)
+    rated = rating_tables.rate(rating_tables.load(tmp_path / "cp"), frame, run.spec.columns.exposure)
+    assert rated["gross_premium"].sum() == pytest.approx(current * 1.05, rel=1e-6)
+    assert level["indicated_overall_change"] == pytest.approx(0.05, abs=1e-5)
+
+
+def test_a_changed_book_is_refused(demo_run, tmp_path) -> None:
+    """A book whose bytes differ from the run's (one exposure changed) is refused with an InputError
+    that names the file and sha256, and nothing is written at the target."""
+    from premiumlab.errors import InputError
+    from premiumlab.tabulate import tabulate
+    frame = pd.read_parquet(demo_run["book"])
+    frame.loc[0, "exposure"] = frame.loc[0, "exposure"] * 0.5
+    changed = tmp_path / "changed.parquet"
+    frame.to_parquet(changed, index=False)
+    with pytest.raises(InputError, match=r"changed\.parquet: sha256"):
+        tabulate(demo_run["run"], tmp_path / "t", book=changed)
+    assert not (tmp_path / "t").exists()
