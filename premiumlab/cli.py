@@ -175,6 +175,33 @@ def impact(book: Annotated[Path, typer.Argument(help="Book of policies (no claim
 
 @app.command()
 @handled
+def certify(model: Annotated[Path, typer.Argument(help="A LightGBM model in text format.")],
+            factor: Annotated[str, typer.Option("--factor", help="Feature name (or index) promised monotone.")],
+            direction: Annotated[str, typer.Option("--direction", help="increasing or decreasing.")]) -> None:
+    """Certify from the model file alone that the raw score is monotone in a factor (exit 1 if not)."""
+    from premiumlab.certificate import certify as certify_model
+    from premiumlab.errors import InputError
+    signs = {"increasing": 1, "decreasing": -1}
+    if direction not in signs:
+        raise InputError(f"--direction: '{direction}' must be increasing or decreasing")
+    try:
+        text = model.read_text(encoding="utf-8")
+    except (FileNotFoundError, IsADirectoryError, UnicodeDecodeError):
+        raise InputError(f"{model}: not a readable LightGBM text model") from None
+    cert = certify_model(text, int(factor) if factor.isdigit() else factor, signs[direction])
+    typer.echo(f"{model}: {cert['trees_checked']} trees checked, {cert['trees_splitting_on_feature']} split on "
+               f"{cert['feature']}, {cert['leaf_pairs_checked']} leaf pairs checked, "
+               f"{cert['violation_count']} violation(s)")
+    for v in cert["violations"]:
+        low, high = v["leaves"]
+        typer.echo(f"  tree {v['tree']}: leaf {low} (lower {cert['feature']}) has value {v['values'][0]:.6g}, "
+                   f"leaf {high} (higher) has {v['values'][1]:.6g}; reversal {v['amount']:.6g}")
+    if cert["violation_count"]:
+        raise typer.Exit(1)
+
+
+@app.command()
+@handled
 def report(run: Annotated[Path, typer.Argument(help="Run directory written by `fit`.")]) -> None:
     """Write RUN/report.html: one file with the comparison, figures, GLM tables and cautions."""
     from premiumlab.report import write_report
