@@ -16,6 +16,11 @@ _PUBLIC = {
     "load_book": "premiumlab.data",
     "profile": "premiumlab.data",
     "simulate": "premiumlab.simulate",
+    "validate_book": "premiumlab.validation",
+    "compare": "premiumlab.comparison",
+    "tabulate": "premiumlab.tabulate",
+    "write_report": "premiumlab.report",
+    "run_demo": "premiumlab.demo",
 }
 
 
