@@ -13,9 +13,15 @@ AS_GIVEN = ("Claim amounts were taken as given: not developed to ultimate, not t
 
 
 def cautions_for(spec: Spec) -> list[str]:
-    """The cautions for outputs made under `spec`.
-
-    Experience adjustments are not applied by this version (the spec refuses them), so the
-    amounts-as-given caution is always present.
-    """
-    return [DRAFT, PROHIBITED, AS_GIVEN]
+    """The cautions for outputs made under `spec`: the draft and compliance cautions, then either
+    the amounts-as-given caution (no [experience] adjustment set) or which adjustments were applied
+    and which were not (the figures used are in RUN/experience.json)."""
+    from premiumlab.experience import applied, not_applied
+    exp = spec.experience
+    if not exp.configured:
+        return [DRAFT, PROHIBITED, AS_GIVEN]
+    done = "; ".join(applied(exp))
+    missing = "; ".join(not_applied(exp)) or "none"
+    return [DRAFT, PROHIBITED,
+            f"Claim experience was adjusted before modelling: {done} (figures in experience.json). "
+            f"Not applied: {missing}."]

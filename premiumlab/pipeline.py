@@ -1,10 +1,18 @@
-"""`fit`: book + spec -> run directory (DESIGN 3.3): GLM baselines, boosted models, predictions."""
+"""`fit`: book + spec -> run directory (DESIGN 3.3): GLM baselines, boosted models, predictions.
+
+With [experience] adjustments set, one step between loading and modelling adjusts counts and amounts
+(premiumlab.experience) and writes what it used to RUN/experience.json; every model is fitted on the
+adjusted figures. predictions.parquet keeps `claim_count` and `claim_amount` as observed and adds
+`claim_count_adjusted` and `claim_amount_adjusted`, the figures the models were fitted to and that
+metrics.json compares with.
+"""
 from __future__ import annotations
 
 import os
 import platform
+import sys
 import time
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 import numpy as np
@@ -13,6 +21,7 @@ import pandas as pd
 from premiumlab.cautions import cautions_for
 from premiumlab.data import Book, Levels, categorise, factor_levels, load_book
 from premiumlab.errors import InputError
+from premiumlab.experience import latest_period_holdout, read_text_column
 from premiumlab.jsonio import read_json, write_json
 from premiumlab.outputs import atomic_output
 from premiumlab.spec import Spec, load_spec, parse_spec
@@ -37,11 +46,14 @@ class Run:
         return read_json(self.path / "models" / f"{name}.json")
 
     def load_book(self, path: str | Path | None = None) -> Book:
-        """The run's book (recorded relative to the run folder, or `path`), checked by its sha256."""
+        """The run's book (recorded relative to the run folder, or `path`), checked by its sha256,
+        with the run's split."""
         p = Path(path) if path is not None else self.path / self.manifest["book"]["path_from_run"]
         book = load_book(p, self.spec)
         if book.sha256 != self.manifest["book"]["sha256"]:
             raise InputError(f"{p}: this is not the book the run {self.path} was fitted on (sha256 differs)")
+        if self.spec.split.out_of_time:
+            book.holdout = latest_period_holdout(read_text_column(p, self.spec.columns.period))
         return book
 
 
@@ -66,13 +78,22 @@ def _versions() -> dict[str, str]:
             "scikit-learn": sklearn.__version__, "lightgbm": lightgbm.__version__}
 
 
-def glm_inputs(book: Book, cats: pd.DataFrame, levels: dict[str, Levels], rows: np.ndarray):
-    """GLM inputs on the selected rows."""
+def glm_inputs(book: Book, cats: pd.DataFrame, levels: dict[str, Levels], rows: np.ndarray,
+               count_multiplier: np.ndarray | None = None, control: list[str] = ()):
+    """GLM inputs on the selected rows.
+
+    `count_multiplier` m (adjusted counts are the book's integer counts x m) enters as exposure / m
+    with the amount / m: the frequency count / (exposure / m) and the severity (amount / m) / count
+    are then the adjusted ones (the Poisson weight of a row becomes exposure / m). For the pure
+    premium, pass no multiplier. `control` names factors in `cats` fitted but never tabled.
+    """
     from premiumlab.glm import GlmInputs
+    m = 1.0 if count_multiplier is None else count_multiplier[rows]
     return GlmInputs(factors=cats.loc[rows].reset_index(drop=True),
                      base_levels={k: v.base for k, v in levels.items()},
-                     exposure=book.exposure[rows], claim_count=book.claim_count[rows],
-                     claim_amount=None if book.claim_amount is None else book.claim_amount[rows])
+                     exposure=book.exposure[rows] / m, claim_count=book.claim_count[rows],
+                     claim_amount=None if book.claim_amount is None else book.claim_amount[rows] / m,
+                     control=list(control))
 
 
 def fit(book_path: str | Path, spec_path: str | Path, out: str | Path, models: str = "glm,gbm",
@@ -86,6 +107,12 @@ def fit(book_path: str | Path, spec_path: str | Path, out: str | Path, models: s
     timings: dict[str, float] = {}
     t0 = time.perf_counter()
     book = load_book(book_path, spec)
+    exp = spec.experience
+    periods = None
+    if exp.configured or exp.period_control or spec.split.out_of_time:
+        periods = read_text_column(book_path, spec.columns.period) if spec.columns.period else None
+    if spec.split.out_of_time:
+        book.holdout = latest_period_holdout(periods)
     timings["load_seconds"] = time.perf_counter() - t0
     train = ~book.holdout
     if train.sum() == 0:
@@ -93,17 +120,36 @@ def fit(book_path: str | Path, spec_path: str | Path, out: str | Path, models: s
     levels = factor_levels(book, spec, train)
     cats = categorise(book.frame, levels)
     has_amount = book.claim_amount is not None
+    observed = book
+    adjustment = None
+    if exp.configured:
+        t = time.perf_counter()
+        adjustment = adjust_book(book, spec, Path(spec_path).parent, periods, train)
+        book = adjusted_book(book, adjustment)
+        timings["experience_seconds"] = time.perf_counter() - t
+        if progress:
+            totals = adjustment.record["totals"]["training"]
+            print(f"experience: training amounts {totals['amount_observed']:,.0f} -> {totals['amount_adjusted']:,.0f}, "
+                  f"counts {totals['count_observed']:,.0f} -> {totals['count_adjusted']:,.1f}", file=sys.stderr)
+    control = None
+    if exp.period_control:
+        control = period_control(periods, book.exposure, train, spec.columns.period)
     with atomic_output(out, force=force) as tmp:
         (tmp / "models").mkdir()
         preds = pd.DataFrame({"row": np.arange(book.n_rows, dtype=np.int64), "holdout": book.holdout,
-                              "exposure": book.exposure, "claim_count": book.claim_count,
+                              "exposure": book.exposure, "claim_count": observed.claim_count,
                               "policy_group": pd.factorize(book.policy)[0].astype(np.int64)})
         if has_amount:
-            preds["claim_amount"] = book.claim_amount
+            preds["claim_amount"] = observed.claim_amount
+        if adjustment is not None:
+            preds["claim_count_adjusted"] = book.claim_count
+            if has_amount:
+                preds["claim_amount_adjusted"] = book.claim_amount
+            write_json(tmp / "experience.json", adjustment.record)
         glm_power = None
         if "glm" in kinds:
             t = time.perf_counter()
-            glm_power = _fit_glms(book, cats, levels, train, spec, tmp, preds, has_amount)
+            glm_power = _fit_glms(book, cats, levels, train, spec, tmp, preds, has_amount, adjustment, control)
             timings["glm_seconds"] = time.perf_counter() - t
         if "gbm" in kinds:
             from premiumlab.boosting import fit_gbms
@@ -113,7 +159,7 @@ def fit(book_path: str | Path, spec_path: str | Path, out: str | Path, models: s
         preds.to_parquet(tmp / "predictions.parquet", index=False)
         if book.holdout.any():
             from premiumlab.comparison import holdout_metrics
-            write_json(tmp / "metrics.json", holdout_metrics(preds, glm_power or 1.5))
+            write_json(tmp / "metrics.json", holdout_metrics(fitted_basis(preds), glm_power or 1.5))
         write_json(tmp / "levels.json", {k: {"labels": list(v.labels), "base": v.base,
                                              "edges": None if v.edges is None else list(v.edges)}
                                          for k, v in levels.items()})
@@ -127,26 +173,87 @@ def fit(book_path: str | Path, spec_path: str | Path, out: str | Path, models: s
             "warnings": [str(w) for w in book.warnings],
             "versions": _versions(), "timings": timings,
             "cautions": cautions_for(spec),
+            **({"experience": "experience.json"} if adjustment is not None else {}),
         })
     return out
 
 
+def adjust_book(book: Book, spec: Spec, spec_dir: Path, periods: np.ndarray | None, train: np.ndarray):
+    """The experience step: adjusted counts and amounts of every row (premiumlab.experience)."""
+    from premiumlab.experience import prepare
+    count = book.claim_count.astype(float)
+    return prepare(spec, spec_dir, periods, book.policy, count, book.claim_amount, train)
+
+
+def adjusted_book(book: Book, adjustment) -> Book:
+    """The book with its counts and amounts replaced by the adjusted ones (what every model sees)."""
+    amount = None if book.claim_amount is None else adjustment.amount
+    return replace(book, claim_count=adjustment.count, claim_amount=amount)
+
+
+def fitted_basis(preds: pd.DataFrame) -> pd.DataFrame:
+    """Predictions with the adjusted counts and amounts, when there are any, in the observed columns:
+    the figures the models were fitted to."""
+    swap = {f"{name}_adjusted": name for name in ("claim_count", "claim_amount") if f"{name}_adjusted" in preds}
+    return preds.drop(columns=list(swap.values())).rename(columns=swap) if swap else preds
+
+
+@dataclass(frozen=True)
+class PeriodControl:
+    """The period as a control factor: its name, level of every row, base and training exposure."""
+
+    name: str
+    values: pd.Categorical
+    base: str
+    exposure: np.ndarray
+
+
+def period_control(periods: np.ndarray, exposure: np.ndarray, train: np.ndarray, name: str) -> PeriodControl:
+    """The period column as a control factor, its base the period with the largest training exposure."""
+    from premiumlab.experience import period_order
+    order = period_order(periods[train].tolist())
+    values = pd.Categorical(periods, categories=order, ordered=True)
+    expo = np.bincount(values.codes[train], weights=exposure[train], minlength=len(order))
+    return PeriodControl(name, values, order[int(np.argmax(expo))], expo)
+
+
 def _fit_glms(book: Book, cats: pd.DataFrame, levels: dict[str, Levels], train: np.ndarray, spec: Spec,
-              tmp: Path, preds: pd.DataFrame, has_amount: bool) -> float | None:
+              tmp: Path, preds: pd.DataFrame, has_amount: bool, adjustment=None,
+              control: PeriodControl | None = None) -> float | None:
+    """Fit the three GLMs on the training rows; with a period control, predict every row at the
+    control's training-exposure-weighted mean relativity (the period is never tabled)."""
     from premiumlab.glm import fit_frequency, fit_pure_premium, fit_severity
-    inputs = glm_inputs(book, cats, levels, train)
+    names: list[str] = []
+    if control is not None:
+        cats = cats.assign(**{control.name: control.values})
+        levels = {**levels, control.name: Levels(control.name, tuple(control.values.categories), control.base)}
+        names = [control.name]
+    multiplier = None if adjustment is None else adjustment.count_multiplier
+    counts = book if adjustment is None else replace(book, claim_count=adjustment.count_base)
+    inputs = glm_inputs(counts, cats, levels, train, multiplier, names)
+    whole = glm_inputs(counts, cats, levels, train, None, names) if multiplier is not None else inputs
     engine = spec.glm.engine
     results = {"frequency": fit_frequency(inputs, engine=engine)}
     if has_amount:
         results["severity"] = fit_severity(inputs, engine=engine)
-        results["pure_premium"] = fit_pure_premium(inputs, power=spec.glm.tweedie_power, engine=engine)
+        results["pure_premium"] = fit_pure_premium(whole, power=spec.glm.tweedie_power, engine=engine)
     for target, res in results.items():
         write_json(tmp / "models" / f"glm_{target}.json", res.to_json_dict())
-        preds[f"glm_{target}"] = res.predict(cats)
+        preds[f"glm_{target}"] = res.predict(cats) if control is None else _at_mean_control(res, cats, control)
     if has_amount:
         preds["glm_freq_x_sev"] = preds["glm_frequency"] * preds["glm_severity"]
         return results["pure_premium"].power
     return None
+
+
+def _at_mean_control(res, cats: pd.DataFrame, control: PeriodControl) -> np.ndarray:
+    """Predictions with the control factor at its base, times the training-exposure-weighted mean of
+    its relativities."""
+    rel = res.relativities[control.name]
+    mean = sum(rel[level] * e for level, e in zip(control.values.categories, control.exposure)) / control.exposure.sum()
+    at_base = cats.assign(**{control.name: pd.Categorical(np.full(len(cats), control.base),
+                                                          categories=control.values.categories)})
+    return res.predict(at_base) * mean
 
 
 def open_run(path: str | Path) -> Run:

@@ -69,10 +69,15 @@ class Factor:
 
 @dataclass(frozen=True)
 class Split:
-    """Holdout split: a policy is held out when hash(seed, policy) < holdout."""
+    """Holdout split: a policy is held out when hash(seed, policy) < holdout.
+
+    `holdout = "latest_period"` in the spec holds out the rows of the latest period instead (an
+    out-of-time holdout): then `out_of_time` is true and the share `holdout` is 0.
+    """
 
     holdout: float = 0.2
     seed: int = 2026
+    out_of_time: bool = False
 
 
 @dataclass(frozen=True)
@@ -136,17 +141,42 @@ class Compliance:
 
 @dataclass(frozen=True)
 class Experience:
-    """Experience adjustments; absent means amounts are taken as given (ultimate, trended, uncapped)."""
+    """Experience adjustments made before modelling (premiumlab.experience); without any, amounts are
+    taken as given (ultimate, trended, uncapped).
+
+    large_loss_cap (none): cap per claim (with `claims_file`) or per row total (one policy in one
+    period), in the money of the future policy period; the excess is spread back as a flat load.
+    excess_load_history (none: measured on the training rows): the excess over capped losses from a
+    longer history, as a ratio (0.08 = 8 %).
+    claims_file (none): CSV or Parquet of single claims, relative to the spec file, with the book's
+    policy_id column (and period column, if named), the amount column `claims_amount_column`
+    (default: the book's claim_amount name) and the flag column `catastrophe_column` (optional,
+    true/false or 1/0): flagged claims leave the amounts and counts and come back as a flat load.
+    development ({}): age-to-ultimate factors by period, a table or a CSV (period,factor) relative
+    to the spec file; development_applies_to_counts (false): develop counts with the same factors.
+    trend ({}): annual `frequency` and `severity` rates, from each period's midpoint (a year label
+    "2024" -> its middle; others from `period_midpoints`) to `future_midpoint` (default: the
+    table's effective date plus half of `term_years`, 1.0).
+    period_control (false): fit the period as a control factor in the GLMs (never tabled).
+    """
 
     large_loss_cap: float | None = None
-    development: dict[str, float] = field(default_factory=dict)
+    excess_load_history: float | None = None
+    claims_file: str | None = None
+    claims_amount_column: str | None = None
+    catastrophe_column: str | None = None
+    development: dict[str, float] | str = field(default_factory=dict)
+    development_applies_to_counts: bool = False
     trend: dict[str, float] = field(default_factory=dict)
     future_midpoint: str | None = None
+    term_years: float = 1.0
+    period_midpoints: dict[str, str] = field(default_factory=dict)
+    period_control: bool = False
 
     @property
     def configured(self) -> bool:
-        """True when any adjustment is set."""
-        return bool(self.large_loss_cap or self.development or self.trend)
+        """True when any adjustment of amounts or counts is set."""
+        return bool(self.large_loss_cap or self.development or self.trend or self.catastrophe_column)
 
 
 @dataclass(frozen=True)
@@ -343,8 +373,10 @@ def _date(source: str, key: str, value: Any) -> str:
     return text
 
 
-def _rates_by_period(source: str, key: str, value: Any) -> dict[str, float]:
-    _expect(source, key, value, (dict,), "a table of period = factor")
+def _rates_by_period(source: str, key: str, value: Any) -> dict[str, float] | str:
+    if isinstance(value, str):
+        return value
+    _expect(source, key, value, (dict,), "a table of period = factor, or a CSV file name")
     return {str(k): _number(source, f"{key}.{k}", v, 0.0, low_open=True) for k, v in value.items()}
 
 
@@ -352,6 +384,59 @@ def _trend(source: str, key: str, value: Any) -> dict[str, float]:
     _expect(source, key, value, (dict,), "a table with frequency and/or severity")
     _check_keys(source, key + ".", value, {"frequency", "severity"})
     return {k: _number(source, f"{key}.{k}", v, -0.5, 1.0) for k, v in value.items()}
+
+
+def _dates_by_period(source: str, key: str, value: Any) -> dict[str, str]:
+    _expect(source, key, value, (dict,), "a table of period = date")
+    return {str(k): _date(source, f"{key}.{k}", v) for k, v in value.items()}
+
+
+def _holdout(source: str, key: str, value: Any) -> float | str:
+    if isinstance(value, str):
+        return _string(source, key, value, ("latest_period",))
+    return _number(source, key, value, 0.0, 1.0, high_open=True)
+
+
+def _parse_experience(s: str, doc: dict, columns: Columns) -> Experience:
+    def boolean(k: str, v: Any) -> bool:
+        return _expect(s, k, v, (bool,), "true or false")
+
+    e = _parse_simple(s, doc, "experience", Experience, {
+        "large_loss_cap": lambda k, v: _number(s, k, v, 0.0, low_open=True),
+        "excess_load_history": lambda k, v: _number(s, k, v, 0.0, 10.0),
+        "claims_file": lambda k, v: _string(s, k, v),
+        "claims_amount_column": lambda k, v: _string(s, k, v),
+        "catastrophe_column": lambda k, v: _string(s, k, v),
+        "development": lambda k, v: _rates_by_period(s, k, v),
+        "development_applies_to_counts": boolean,
+        "trend": lambda k, v: _trend(s, k, v),
+        "future_midpoint": lambda k, v: _date(s, k, v),
+        "term_years": lambda k, v: _number(s, k, v, 0.0, 10.0, low_open=True),
+        "period_midpoints": lambda k, v: _dates_by_period(s, k, v),
+        "period_control": boolean,
+    })
+    given = set(_section(s, doc, "experience"))
+    needs = [  # (key, what it needs, whether that is there)
+        ("large_loss_cap", "columns.claim_amount", columns.claim_amount is not None),
+        ("excess_load_history", "experience.large_loss_cap", e.large_loss_cap is not None),
+        ("claims_file", "columns.policy_id and columns.claim_amount",
+         columns.policy_id is not None and columns.claim_amount is not None),
+        ("claims_file", "experience.large_loss_cap or experience.catastrophe_column",
+         e.large_loss_cap is not None or e.catastrophe_column is not None),
+        ("claims_amount_column", "experience.claims_file", e.claims_file is not None),
+        ("catastrophe_column", "experience.claims_file", e.claims_file is not None),
+        ("development", "columns.period", columns.period is not None),
+        ("development_applies_to_counts", "experience.development", bool(e.development)),
+        ("trend", "columns.period", columns.period is not None),
+        ("future_midpoint", "experience.trend", bool(e.trend)),
+        ("term_years", "experience.trend", bool(e.trend)),
+        ("period_midpoints", "experience.trend", bool(e.trend)),
+        ("period_control", "columns.period", columns.period is not None),
+    ]
+    for key, what, there in needs:
+        if key in given and not there:
+            raise InputError(f"{_where(s, 'experience.' + key)} needs {what}")
+    return e
 
 
 def parse_spec(doc: dict, source: str = "spec") -> Spec:
@@ -381,9 +466,13 @@ def parse_spec(doc: dict, source: str = "spec") -> Spec:
                              f"in rating, so this spec is refused")
 
     split = _parse_simple(s, doc, "split", Split, {
-        "holdout": lambda k, v: _number(s, k, v, 0.0, 1.0, high_open=True),
+        "holdout": lambda k, v: _holdout(s, k, v),
         "seed": lambda k, v: _integer(s, k, v, 0),
     })
+    if split.holdout == "latest_period":
+        if columns.period is None:
+            raise InputError(f"{_where(s, 'split.holdout')} 'latest_period' needs columns.period")
+        split = Split(holdout=0.0, seed=split.seed, out_of_time=True)
     glm = _parse_simple(s, doc, "glm", GlmOptions, {
         "engine": lambda k, v: _string(s, k, v, ("auto", "cells", "rows")),
         "tweedie_power": lambda k, v: _power(s, k, v, ("auto",)),
@@ -430,22 +519,7 @@ def parse_spec(doc: dict, source: str = "spec") -> Spec:
     if loadings.variable_expense + loadings.profit >= 1.0:
         raise InputError(f"{_where(s, 'loadings')}: variable_expense + profit must be below 1, got "
                          f"{loadings.variable_expense + loadings.profit:g}")
-    experience = _parse_simple(s, doc, "experience", Experience, {
-        "large_loss_cap": lambda k, v: _number(s, k, v, 0.0, low_open=True),
-        "development": lambda k, v: _rates_by_period(s, k, v),
-        "trend": lambda k, v: _trend(s, k, v),
-        "future_midpoint": lambda k, v: _date(s, k, v),
-    })
-    if experience.large_loss_cap is not None and columns.claim_amount is None:
-        raise InputError(f"{_where(s, 'experience.large_loss_cap')} needs columns.claim_amount")
-    if (experience.development or experience.trend) and columns.period is None:
-        raise InputError(f"{_where(s, 'experience')}: development and trend need columns.period")
-    if experience.trend and experience.future_midpoint is None:
-        raise InputError(f"{_where(s, 'experience.future_midpoint')} is required with experience.trend")
-    if experience.configured:
-        raise InputError(f"{_where(s, 'experience')}: experience adjustments (development, trend, large-loss "
-                         f"cap) are not applied by this version; remove the section and prepare the amounts "
-                         f"beforehand, so that no output claims an adjustment it did not make")
+    experience = _parse_experience(s, doc, columns)
     return Spec(columns=columns, factors=factors, split=split, glm=glm, gbm=gbm, table=table,
                 loadings=loadings, compliance=compliance, experience=experience, source=s, raw=doc)
 
