@@ -202,6 +202,30 @@ def certify(model: Annotated[Path, typer.Argument(help="A LightGBM model in text
 
 @app.command()
 @handled
+def tails(book: Annotated[Path, typer.Argument(help="Book (.csv, .parquet or a folder of parts).")],
+          spec: Annotated[Path, typer.Option("--spec", help="Pricing spec TOML.")],
+          threshold: Annotated[Optional[float], typer.Option(help="Threshold U (money); default: the 90th "
+                                                                  "percentile of the losses.")] = None,
+          as_json: Annotated[bool, typer.Option("--json", help="Print the fit as JSON (threshold, exceedances, "
+                                                               "shape, scale, ...).")] = False,
+          figure: Annotated[Optional[Path], typer.Option("--figure", help="Also write the mean-excess and tail "
+                                                                          "figure (.png).")] = None,
+          force: Force = False) -> None:
+    """Large-loss threshold aid: mean excess by threshold and a generalised Pareto fit above U."""
+    from premiumlab.tails import tail_lines, threshold_aid
+    result = threshold_aid(book, spec, threshold, figure=figure, force=force)
+    if as_json:
+        import json
+
+        from premiumlab.jsonio import plain
+        typer.echo(json.dumps(plain({k: v for k, v in result.items() if k != "cautions"}), allow_nan=False))
+    else:
+        typer.echo("\n".join(tail_lines(result)))
+    _echo_cautions(result["cautions"])
+
+
+@app.command()
+@handled
 def report(run: Annotated[Path, typer.Argument(help="Run directory written by `fit`.")]) -> None:
     """Write RUN/report.html: one file with the comparison, figures, GLM tables and cautions."""
     from premiumlab.report import write_report

@@ -65,6 +65,13 @@ def future_midpoint(exp: Experience, effective_date: str) -> float:
     return year_fraction(dt.date.fromisoformat(effective_date)) + exp.term_years / 2.0
 
 
+def years_to_future(exp: Experience, labels: Sequence[str], future: float) -> np.ndarray:
+    """Years from each period's midpoint to the future midpoint (zeros without a trend)."""
+    if not exp.trend:
+        return np.zeros(len(labels))
+    return future - np.array([period_midpoint(p, exp.period_midpoints) for p in labels], dtype=float)
+
+
 def trend_factor(years: np.ndarray, rate: float) -> np.ndarray:
     """(1 + rate)^years: an annual rate compounded over `years` (negative years trend back)."""
     return np.power(1.0 + rate, np.asarray(years, dtype=float))
@@ -126,9 +133,7 @@ def adjust(exp: Experience, periods: np.ndarray, count: np.ndarray, amount: np.n
     """
     n = len(count)
     labels, code = np.unique(np.asarray(periods, dtype=object).astype(str), return_inverse=True)
-    years = np.zeros(len(labels))
-    if exp.trend:
-        years = future - np.array([period_midpoint(p, exp.period_midpoints) for p in labels])
+    years = years_to_future(exp, labels, future)
     sev_trend = trend_factor(years, exp.trend.get("severity", 0.0))
     freq_trend = trend_factor(years, exp.trend.get("frequency", 0.0))
     dev = np.ones(len(labels))
