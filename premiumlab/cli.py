@@ -188,7 +188,10 @@ def certify(model: Annotated[Path, typer.Argument(help="A LightGBM model in text
         text = model.read_text(encoding="utf-8")
     except (FileNotFoundError, IsADirectoryError, UnicodeDecodeError):
         raise InputError(f"{model}: not a readable LightGBM text model") from None
-    cert = certify_model(text, int(factor) if factor.isdigit() else factor, signs[direction])
+    try:
+        cert = certify_model(text, int(factor) if factor.isdigit() else factor, signs[direction])
+    except InputError as e:
+        raise InputError(f"{model}: {e}") from None
     typer.echo(f"{model}: {cert['trees_checked']} trees checked, {cert['trees_splitting_on_feature']} split on "
                f"{cert['feature']}, {cert['leaf_pairs_checked']} leaf pairs checked, "
                f"{cert['violation_count']} violation(s)")

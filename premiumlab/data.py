@@ -114,10 +114,11 @@ def iter_book(path: str | Path, columns: list[str], chunk_rows: int = CHUNK_ROWS
     offset = 0
     for part in _book_files(Path(path)):
         if part.suffix.lower() == ".csv":
-            reader = _read_csv(part, usecols=columns, chunksize=chunk_rows)
+            # every column is read: with `usecols` pandas drops the extra fields of a ragged row silently
+            reader = _read_csv(part, chunksize=chunk_rows)
             try:
                 for chunk in reader:
-                    yield offset, chunk.reset_index(drop=True)
+                    yield offset, chunk[columns].reset_index(drop=True)
                     offset += len(chunk)
             except UnicodeDecodeError as e:
                 raise InputError(f"{part}: not UTF-8 text (byte {e.start})") from None
