@@ -62,7 +62,7 @@ def simulate(scenario: Annotated[Path, typer.Argument(help="Scenario TOML file."
     """Write a synthetic book from an invented scenario, with truth.json beside it."""
     from premiumlab.outputs import atomic_files
     from premiumlab.simulate import simulate as simulate_book
-    with atomic_files([out, out.parent / "truth.json"], force=force) as tmp:
+    with atomic_files([out, out.parent / "truth.json"], force=force, inputs=(scenario,)) as tmp:
         summary = simulate_book(scenario, tmp / out.name, policies=policies, seed=seed)
     typer.echo(f"wrote {out} ({summary['rows']} rows, {summary['policies']} policies) and "
                f"{out.parent / 'truth.json'}")
@@ -167,7 +167,7 @@ def impact(book: Annotated[Path, typer.Argument(help="Book of policies (no claim
     if out is not None:
         from premiumlab.jsonio import write_json
         from premiumlab.outputs import atomic_files
-        with atomic_files([out], force=force) as tmp:
+        with atomic_files([out], force=force, inputs=(book, proposed, current)) as tmp:
             write_json(tmp / out.name, result)
     typer.echo("\n".join(impact_lines(result)))
     _echo_cautions(result["cautions"])

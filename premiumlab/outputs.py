@@ -2,7 +2,9 @@
 
 The temporary folder is `.NAME.tmp-PID` beside the target; folders of processes that no longer run
 are swept at the next start. With `force`, an existing target is first moved aside to
-`.NAME.old-PID` and removed only after the new output is in place.
+`.NAME.old-PID` and removed only after the new output is in place (a process stopped between the
+two moves leaves the old output aside: the sweep puts it back). A target that is or holds one of
+the command's inputs is refused, so that `--force` cannot destroy an input.
 """
 from __future__ import annotations
 
@@ -15,7 +17,7 @@ from pathlib import Path
 
 from premiumlab.errors import InputError
 
-_LEFTOVER = re.compile(r"^\.(?P<name>.+)\.(tmp|old)-(?P<pid>\d+)$")
+_LEFTOVER = re.compile(r"^\.(?P<name>.+)\.(?P<kind>tmp|old)-(?P<pid>\d+)$")
 
 
 def _alive(pid: int) -> bool:
@@ -29,7 +31,8 @@ def _alive(pid: int) -> bool:
 
 
 def sweep_leftovers(parent: Path) -> None:
-    """Remove temporary folders and files left by processes that are no longer running."""
+    """Remove temporary folders and files left by processes that are no longer running; put an old
+    output moved aside back in place when nothing took its place."""
     try:
         entries = list(parent.iterdir())
     except OSError:
@@ -37,31 +40,50 @@ def sweep_leftovers(parent: Path) -> None:
     for entry in entries:
         m = _LEFTOVER.match(entry.name)
         if m and int(m.group("pid")) != os.getpid() and not _alive(int(m.group("pid"))):
-            if entry.is_dir() and not entry.is_symlink():
+            original = parent / m.group("name")
+            if m.group("kind") == "old" and not (original.exists() or original.is_symlink()):
+                os.replace(entry, original)  # stopped between moving the old output aside and the new in
+            elif entry.is_dir() and not entry.is_symlink():
                 shutil.rmtree(entry, ignore_errors=True)
             else:
                 entry.unlink(missing_ok=True)
 
 
-def check_target(target: Path, force: bool) -> None:
-    """Refuse a target whose folder is missing or not a folder, or that exists without `force`."""
+def _holds(outer: Path, inner: Path) -> bool:
+    """True when `inner` is `outer` or lies inside it (symbolic links resolved)."""
+    return Path(os.path.realpath(inner)).is_relative_to(os.path.realpath(outer))
+
+
+def check_target(target: Path, force: bool, inputs: tuple[str | Path, ...] = ()) -> None:
+    """Refuse a target whose folder is missing or not a folder, that is or holds one of the command's
+    `inputs` (replacing it would destroy the input), or that exists without `force`."""
     parent = target.parent
     if not parent.exists():
         raise InputError(f"{target}: the folder {parent} does not exist")
     if not parent.is_dir():
         raise InputError(f"{target}: {parent} is not a folder")
+    for source in inputs:
+        if _holds(target, Path(source)):
+            raise InputError(f"{target}: is or holds the input {source}; write the output elsewhere")
     if (target.exists() or target.is_symlink()) and not force:
         raise InputError(f"{target}: already exists; use --force to replace it")
 
 
+def _name_the_target(error: BaseException, tmp: Path, target: Path) -> None:
+    """Let a one-line bad-input message about the hidden temporary path name the target instead."""
+    if isinstance(error, ValueError) and len(error.args) == 1 and isinstance(error.args[0], str):
+        error.args = (error.args[0].replace(str(tmp), str(target)),)
+
+
 @contextmanager
-def atomic_output(target: str | Path, force: bool = False, kind: str = "dir") -> Iterator[Path]:
+def atomic_output(target: str | Path, force: bool = False, kind: str = "dir",
+                  inputs: tuple[str | Path, ...] = ()) -> Iterator[Path]:
     """Yield a temporary path (a folder for kind="dir", a file path for kind="file") beside `target`.
 
     On success it is renamed to `target`; on any error it is removed and `target` is untouched.
     """
     target = Path(target)
-    check_target(target, force)
+    check_target(target, force, inputs)
     parent = target.parent
     sweep_leftovers(parent)
     tmp = parent / f".{target.name}.tmp-{os.getpid()}"
@@ -71,7 +93,8 @@ def atomic_output(target: str | Path, force: bool = False, kind: str = "dir") ->
         tmp.mkdir()
     try:
         yield tmp
-    except BaseException:
+    except BaseException as error:
+        _name_the_target(error, tmp, target)
         if tmp.is_dir():
             shutil.rmtree(tmp, ignore_errors=True)
         else:
@@ -81,18 +104,26 @@ def atomic_output(target: str | Path, force: bool = False, kind: str = "dir") ->
     if target.exists() or target.is_symlink():
         old = parent / f".{target.name}.old-{os.getpid()}"
         os.replace(target, old)
-    os.replace(tmp, target)
+    try:
+        os.replace(tmp, target)
+    except BaseException:
+        if old is not None:
+            os.replace(old, target)
+        raise
     if old is not None:
         shutil.rmtree(old) if old.is_dir() and not old.is_symlink() else old.unlink()
 
 
 @contextmanager
-def atomic_files(targets: list[Path], force: bool = False) -> Iterator[Path]:
+def atomic_files(targets: list[Path], force: bool = False,
+                 inputs: tuple[str | Path, ...] = ()) -> Iterator[Path]:
     """Yield a hidden temporary folder; the files written there under the targets' names are moved
     into place at the end (all targets share one folder). On any error nothing is moved."""
     parent = targets[0].parent
     for t in targets:
-        check_target(t, force)
+        check_target(t, force, inputs)
+        if t.is_dir() and not t.is_symlink():
+            raise InputError(f"{t}: is a folder; the output is a file")
     sweep_leftovers(parent)
     tmp = parent / f".{targets[0].name}.tmp-{os.getpid()}"
     shutil.rmtree(tmp, ignore_errors=True)
@@ -104,5 +135,9 @@ def atomic_files(targets: list[Path], force: bool = False) -> Iterator[Path]:
                 raise InputError(f"{t}: was not written")
         for t in targets:
             os.replace(tmp / t.name, t)
+    except BaseException as error:
+        for t in targets:
+            _name_the_target(error, tmp / t.name, t)
+        raise
     finally:
         shutil.rmtree(tmp, ignore_errors=True)

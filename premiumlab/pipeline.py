@@ -103,7 +103,7 @@ def fit(book_path: str | Path, spec_path: str | Path, out: str | Path, models: s
     spec = load_spec(spec_path)
     out = Path(out)
     from premiumlab.outputs import check_target
-    check_target(out, force)
+    check_target(out, force, inputs=(book_path, spec_path))
     timings: dict[str, float] = {}
     t0 = time.perf_counter()
     book = load_book(book_path, spec)

@@ -28,7 +28,7 @@ def rate_book(table_dir: str | Path, book: str | Path, out: str | Path, exposure
     from premiumlab.outputs import atomic_files
     table = rating_tables.load(table_dir)
     out = Path(out)
-    with atomic_files([out], force=force) as tmp:
+    with atomic_files([out], force=force, inputs=(book, table_dir)) as tmp:
         return rating_tables.rate_file(table, book, tmp / out.name, exposure_column=None if annual else exposure,
                                        annual=annual)
 

@@ -20,6 +20,9 @@ class TableError(ValueError):
         self.amount = amount
 
     def prefixed(self, prefix: str) -> TableError:
-        """The same error with `prefix: ` in front of the message (e.g. the table folder)."""
+        """The same error with `prefix: ` in front of the message (e.g. the table folder), unless the
+        message already starts with it."""
+        if str(self).startswith(f"{prefix}: "):
+            return self
         return TableError(f"{prefix}: {self}", check=self.check, factor=self.factor,
                           where=self.where, amount=self.amount)

@@ -21,7 +21,7 @@ import pandas as pd
 import pytest
 
 import rating_tables
-from conftest import SPEC_TEXT, run_cli, small_book
+from conftest import ROOT, SPEC_TEXT, run_cli, small_book
 from test_rater import example_book, example_table
 
 Prepare = Callable[[Path], None]
@@ -189,9 +189,21 @@ CASES: list[tuple[str, str, int, str, Prepare | None]] = [
      "the folder nofolder does not exist", None),
     ("rate-out-under-regular-file", "rate table policies.csv --out policies.csv/priced.csv", 2,
      "policies.csv is not a folder", None),
-    ("rate-out-is-the-input", "rate table policies.csv --out policies.csv", 2, "policies.csv: already exists", None),
+    ("rate-out-exists", "rate table policies.csv --out priced.csv", 2, "priced.csv: already exists; use --force",
+     lambda f: (f / "priced.csv").write_text("kept\n")),
     ("rate-out-wrong-extension", "rate table policies.csv --out priced.txt", 2, "priced.txt: the output must end in",
      None),
+    ("fit-force-onto-the-book", "fit book.csv --spec spec.toml --out book.csv --force --models glm", 2,
+     "book.csv: is or holds the input book.csv; write the output elsewhere", None),
+    ("fit-force-onto-a-folder-holding-the-book", "fit book.csv --spec spec.toml --out . --force --models glm", 2,
+     ".: is or holds the input book.csv", None),
+    ("rate-force-onto-the-input", "rate table policies.csv --out policies.csv --force", 2,
+     "policies.csv: is or holds the input policies.csv", None),
+    ("rate-force-onto-a-folder", "rate table policies.csv --out old.csv --force", 2,
+     "old.csv: is a folder; the output is a file", lambda f: (f / "old.csv").mkdir()),
+    ("simulate-out-wrong-extension", "simulate scenario.toml --out sim.txt --policies 50", 2,
+     "premiumlab: sim.txt: the book must end in .csv or .parquet",
+     lambda f: (f / "scenario.toml").write_bytes((ROOT / "scenarios" / "motor.toml").read_bytes())),
     ("simulate-out-under-regular-file", "simulate scenario.toml --out book.csv/sim.csv", 2, "book.csv is not a folder",
      lambda f: (f / "scenario.toml").write_text("")),
     # the rating table
@@ -217,6 +229,10 @@ CASES: list[tuple[str, str, int, str, Prepare | None]] = [
      policies(lambda d: d.drop(columns="bonus"))),
     ("rate-negative-exposure", RATE, 2, "exposure column 'exposure': value -1.0 at book row 2 (0-based)",
      policies(lambda d: d.assign(exposure=[1.0, 0.5, -1.0, 0.25, 0.1]))),
+    ("rate-empty-book", "rate table empty.csv --out priced.csv", 2, "premiumlab: empty.csv: cannot be read",
+     lambda f: (f / "empty.csv").write_bytes(b"")),
+    ("rate-truncated-parquet", "rate table book.parquet --out priced.csv", 2,
+     "premiumlab: book.parquet: cannot be read: Parquet magic bytes not found", make(_parquet, _truncate("book.parquet"))),
     ("rate-byte-order-mark-works", "rate table policies.csv --out priced.csv", 0, "wrote priced.csv",
      make(policies(lambda d: d[["age", "policy", "region", "bonus", "exposure"]]), raw("policies.csv", BOM.__add__))),
     # other commands
