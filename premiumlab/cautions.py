@@ -23,5 +23,5 @@ def cautions_for(spec: Spec) -> list[str]:
     done = "; ".join(applied(exp))
     missing = "; ".join(not_applied(exp)) or "none"
     return [DRAFT, PROHIBITED,
-            f"Claim experience was adjusted before modelling: {done} (figures in experience.json). "
+            f"Claim experience was adjusted before modelling: {done} (figures in the run's experience.json). "
             f"Not applied: {missing}."]

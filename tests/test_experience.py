@@ -18,7 +18,7 @@ import pytest
 import statsmodels.api as sm
 
 from premiumlab.errors import InputError
-from premiumlab.experience import (Claims, adjust, cap_losses, future_midpoint, latest_period_holdout, load_ratio,
+from premiumlab.experience import (adjust, cap_losses, future_midpoint, latest_period_holdout, load_ratio,
                                    period_midpoint, prepare, year_fraction)
 from premiumlab.pipeline import fit
 from premiumlab.spec import Experience, parse_spec
