@@ -482,6 +482,7 @@ class PooledRefit:
 
 
 def band_exposure(codes: np.ndarray, n_bands: int, exposure: np.ndarray) -> np.ndarray:
+    """Exposure of each band 0 .. n_bands-1 given the band code of every row."""
     return np.bincount(codes, weights=exposure, minlength=n_bands)
 
 
