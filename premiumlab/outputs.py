@@ -55,13 +55,15 @@ def _holds(outer: Path, inner: Path) -> bool:
 
 
 def check_target(target: Path, force: bool, inputs: tuple[str | Path, ...] = ()) -> None:
-    """Refuse a target whose folder is missing or not a folder, that is or holds one of the command's
-    `inputs` (replacing it would destroy the input), or that exists without `force`."""
+    """Sweep the leftovers beside the target, then refuse a target whose folder is missing or not a
+    folder, that is or holds one of the command's `inputs` (replacing it would destroy the input), or
+    that exists without `force`."""
     parent = target.parent
     if not parent.exists():
         raise InputError(f"{target}: the folder {parent} does not exist")
     if not parent.is_dir():
         raise InputError(f"{target}: {parent} is not a folder")
+    sweep_leftovers(parent)
     for source in inputs:
         if _holds(target, Path(source)):
             raise InputError(f"{target}: is or holds the input {source}; write the output elsewhere")
@@ -85,7 +87,6 @@ def atomic_output(target: str | Path, force: bool = False, kind: str = "dir",
     target = Path(target)
     check_target(target, force, inputs)
     parent = target.parent
-    sweep_leftovers(parent)
     tmp = parent / f".{target.name}.tmp-{os.getpid()}"
     if tmp.exists():
         shutil.rmtree(tmp) if tmp.is_dir() else tmp.unlink()
@@ -124,7 +125,6 @@ def atomic_files(targets: list[Path], force: bool = False,
         check_target(t, force, inputs)
         if t.is_dir() and not t.is_symlink():
             raise InputError(f"{t}: is a folder; the output is a file")
-    sweep_leftovers(parent)
     tmp = parent / f".{targets[0].name}.tmp-{os.getpid()}"
     shutil.rmtree(tmp, ignore_errors=True)
     tmp.mkdir()

@@ -1,0 +1,126 @@
+"""Atomic outputs (DESIGN 3.2): work happens in a hidden folder `.NAME.tmp-PID` beside the target and
+is renamed into place at the end; a killed command leaves nothing at the target and its leftover is
+swept at the next start; `--force` keeps the old output until the new one is in place.
+
+The kill test stops `fit` with SIGKILL (no handler can run) once the temporary folder holds a file,
+on a book large enough for the boosted models to take several seconds after the first GLM file.
+"""
+from __future__ import annotations
+
+import hashlib
+import os
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import pytest
+
+from conftest import SPEC_TEXT, run_cli, small_book
+from premiumlab.errors import InputError
+from premiumlab.outputs import atomic_files, atomic_output
+
+POLL_SECONDS = 0.02
+START_TIMEOUT = 120.0
+
+
+def _tree(folder: Path) -> dict[str, str]:
+    """sha256 of every file under `folder`, by relative path."""
+    return {str(p.relative_to(folder)): hashlib.sha256(p.read_bytes()).hexdigest()
+            for p in sorted(folder.rglob("*")) if p.is_file()}
+
+
+def _leftovers(parent: Path) -> list[str]:
+    return sorted(p.name for p in parent.iterdir() if p.name.startswith("."))
+
+
+def _fit_and_kill(base: Path, *extra: str) -> int:
+    """Start `fit` (GLM and GBM), wait until its temporary folder holds a file, SIGKILL it; its pid."""
+    proc = subprocess.Popen([sys.executable, "-m", "premiumlab", "fit", "book.csv", "--spec", "spec.toml",
+                             "--out", "run", *extra], cwd=base, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
+    tmp = base / f".run.tmp-{proc.pid}"
+    deadline = time.monotonic() + START_TIMEOUT
+    try:
+        while not (tmp.is_dir() and any(p.is_file() for p in tmp.rglob("*"))):
+            assert proc.poll() is None, f"fit ended before it could be killed: {proc.stderr.read()}"
+            assert time.monotonic() < deadline, "no file appeared in the temporary folder"
+            time.sleep(POLL_SECONDS)
+    finally:
+        os.kill(proc.pid, signal.SIGKILL)
+        proc.wait()
+        proc.stderr.close()
+    assert proc.returncode == -signal.SIGKILL
+    assert tmp.is_dir()  # the killed process left its temporary folder behind
+    return proc.pid
+
+
+@pytest.fixture(scope="module")
+def book_folder(tmp_path_factory) -> Path:
+    base = tmp_path_factory.mktemp("atomic")
+    (base / "spec.toml").write_text(SPEC_TEXT)
+    small_book(20_000).to_csv(base / "book.csv", index=False)
+    return base
+
+
+def test_a_killed_fit_leaves_nothing_and_the_next_run_sweeps_its_folder(book_folder):
+    base = book_folder
+    inputs = _tree(base)
+    pid = _fit_and_kill(base)
+    assert not (base / "run").exists()
+    assert _leftovers(base) == [f".run.tmp-{pid}"]
+    r = run_cli("fit", "book.csv", "--spec", "spec.toml", "--out", "run", "--models", "glm", cwd=base)
+    assert r.returncode == 0, r.stderr
+    assert (base / "run" / "run.json").is_file() and (base / "run" / "models" / "glm_frequency.json").is_file()
+    assert _leftovers(base) == []  # swept at the start
+    assert {k: v for k, v in _tree(base).items() if not k.startswith("run/")} == inputs
+
+
+def test_force_keeps_the_old_output_until_the_new_one_is_in_place(book_folder):
+    """A killed `fit --force` leaves the old run byte for byte; a stop between moving the old run aside
+    and moving the new one in is repaired at the next start (the old run is put back)."""
+    base = book_folder
+    if not (base / "run").exists():
+        assert run_cli("fit", "book.csv", "--spec", "spec.toml", "--out", "run", "--models", "glm",
+                       cwd=base).returncode == 0
+    old = _tree(base / "run")
+    pid = _fit_and_kill(base, "--force")
+    assert _tree(base / "run") == old
+    assert _leftovers(base) == [f".run.tmp-{pid}"]
+    # the window between the two renames, made by hand: the old run aside under a dead process's pid
+    os.rename(base / "run", base / f".run.old-{pid}")
+    r = run_cli("fit", "book.csv", "--spec", "spec.toml", "--out", "run", "--models", "glm", cwd=base)
+    assert r.returncode == 2 and "run: already exists; use --force" in r.stderr, r.stderr
+    assert _tree(base / "run") == old and _leftovers(base) == []
+
+
+def test_atomic_output_replaces_only_at_the_end(tmp_path):
+    """In process: with force the old folder stays until the block ends; an error keeps it; no leftovers."""
+    target = tmp_path / "out"
+    target.mkdir()
+    (target / "a.txt").write_text("old")
+    with pytest.raises(RuntimeError):
+        with atomic_output(target, force=True) as tmp:
+            (tmp / "a.txt").write_text("new")
+            assert (target / "a.txt").read_text() == "old"
+            raise RuntimeError("stop")
+    assert (target / "a.txt").read_text() == "old" and _leftovers(tmp_path) == []
+    with atomic_output(target, force=True) as tmp:
+        (tmp / "a.txt").write_text("new")
+        assert (target / "a.txt").read_text() == "old"
+    assert (target / "a.txt").read_text() == "new" and _leftovers(tmp_path) == []
+    with pytest.raises(InputError, match="out: already exists; use --force"):
+        with atomic_output(target):
+            pass
+
+
+def test_atomic_files_name_the_target_not_the_temporary_path(tmp_path):
+    target = tmp_path / "priced.csv"
+    with pytest.raises(InputError) as caught:
+        with atomic_files([target]) as tmp:
+            raise InputError(f"{tmp / 'priced.csv'}: cannot be written")
+    assert str(caught.value) == f"{target}: cannot be written"
+    assert not target.exists() and _leftovers(tmp_path) == []
+    with pytest.raises(InputError, match="is or holds the input"):
+        with atomic_files([tmp_path / "book.csv"], force=True, inputs=(tmp_path / "book.csv",)):
+            pass
