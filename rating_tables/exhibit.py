@@ -4,19 +4,26 @@ Sheet "Summary": table id, effective date, exposure unit, base rate, loadings, r
 provenance, cautions and the factor list. Then one sheet per factor: band or level, indicated
 relativity (when the table carries it), selected relativity, exposure and credibility; a two-way
 table as grids (rows: first factor's cells, columns: second factor's cells).
+
+The bytes depend only on the table: the workbook's created and modified properties are the table's
+effective date (midnight), and every zip member carries the zip format's first date, 1980-01-01.
 """
 from __future__ import annotations
 
+import io
 import json
 import math
 import os
+import zipfile
+from datetime import date, datetime, time
 from typing import Any
-
 
 from rating_tables.table import (Bands, CategoricalFactor, Cells, Factor, InteractionFactor, NumericFactor,
                                  RatingTable, edge_text)
 
 _FORBIDDEN = set('[]:*?/\\')
+_ZIP_DATE = (1980, 1, 1, 0, 0, 0)
+_CORE_PART = "docProps/core.xml"
 
 
 def write_exhibit(table: RatingTable, path: str | os.PathLike) -> None:
@@ -37,7 +44,28 @@ def write_exhibit(table: RatingTable, path: str | os.PathLike) -> None:
             _grids(sheet, factor, style)
         else:
             _main(sheet, factor, style)
-    book.save(os.fspath(path))
+    _save_fixed(book, datetime.combine(date.fromisoformat(table.effective_date), time()), path)
+
+
+def _save_fixed(book: Any, stamp: datetime, path: str | os.PathLike) -> None:
+    """Save `book` with `stamp` as created and modified time and fixed zip member dates.
+
+    openpyxl stamps `modified` with the clock while saving, so the document-properties part is
+    serialised again after the stamp is set back, the way openpyxl's own writer serialises it.
+    """
+    from openpyxl.xml.functions import tostring
+
+    book.properties.created = stamp
+    buffer = io.BytesIO()
+    book.save(buffer)
+    book.properties.modified = stamp
+    core = tostring(book.properties.to_tree())
+    with zipfile.ZipFile(buffer) as source, zipfile.ZipFile(os.fspath(path), "w", zipfile.ZIP_DEFLATED) as out:
+        for member in source.infolist():
+            fixed = zipfile.ZipInfo(member.filename, date_time=_ZIP_DATE)
+            fixed.external_attr = 0o600 << 16
+            out.writestr(fixed, core if member.filename == _CORE_PART else source.read(member),
+                         compress_type=zipfile.ZIP_DEFLATED)
 
 
 class _Style:
