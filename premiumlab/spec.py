@@ -392,8 +392,10 @@ def _dates_by_period(source: str, key: str, value: Any) -> dict[str, str]:
 
 
 def _holdout(source: str, key: str, value: Any) -> float | str:
+    if isinstance(value, str) and value != "latest_period":
+        raise InputError(f"{_where(source, key)} must be a number in [0, 1) or 'latest_period', got {value!r}")
     if isinstance(value, str):
-        return _string(source, key, value, ("latest_period",))
+        return value
     return _number(source, key, value, 0.0, 1.0, high_open=True)
 
 

@@ -46,7 +46,7 @@ def test_valid_spec_parses_with_documented_defaults(spec_file):
     ("[experience]\ncatastrophe_column = 'cat'", None, "experience.catastrophe_column' needs experience.claims_file"),
     ("[experience]\ntrend = { inflation = 0.02 }", None, "experience.trend.inflation' is unknown"),
     ("[experience]\ncap = 1000", None, "experience.cap' is unknown"),
-    ("", ("holdout = 0.2", "holdout = 'newest'"), "split.holdout' must be one of latest_period"),
+    ("", ("holdout = 0.2", "holdout = 'newest'"), "split.holdout' must be a number in [0, 1) or 'latest_period', got 'newest'"),
     ("", ('claim_count = "claim_count"', ''), "columns.claim_count' is required"),
     ("", ('period = "year"', 'period = "exposure"'), "already used"),
     ("[unknown_section]\na = 1", None, "'unknown_section' is unknown"),
