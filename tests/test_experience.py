@@ -269,14 +269,15 @@ def test_capping_a_heavy_tail_recovers_the_relativities_better(tmp_path):
     """Invented book (motor main effects + 2 % Pareto large claims, tail index 1.3, from 40,000).
     Capping at 50,000 with the excess load reproduces the training total exactly and gives a mean absolute
     log error of the Tweedie relativities below 0.6 times that of the uncapped amounts, on each of two seeds."""
-    import premiumlab
-    (tmp_path / "heavy.toml").write_text((ROOT / "scenarios" / "motor_main_effects.toml").read_text() + HEAVY_TAIL)
+    from premiumlab.simulate import generate, parse_scenario
+    scenario = parse_scenario(tomllib.loads((ROOT / "scenarios" / "motor_main_effects.toml").read_text() + HEAVY_TAIL))
     spec_text = (ROOT / "scenarios" / "motor_main_effects_spec.toml").read_text() + "\n[glm]\ntweedie_power = 1.6\n"
     (tmp_path / "plain.toml").write_text(spec_text)
     (tmp_path / "capped.toml").write_text(spec_text + "\n[experience]\nlarge_loss_cap = 50000.0\n")
     for seed in (5, 6):
-        premiumlab.simulate(tmp_path / "heavy.toml", tmp_path / "book.parquet", policies=40000, seed=seed)
-        truth = json.loads((tmp_path / "truth.json").read_text())
+        sim = generate(scenario, policies=40000, seed=seed)
+        sim.book.to_parquet(tmp_path / "book.parquet", index=False)
+        truth = sim.truth
         errors = {}
         for name in ("plain", "capped"):
             run = fit(tmp_path / "book.parquet", tmp_path / f"{name}.toml", tmp_path / f"{name}{seed}", models="glm")
