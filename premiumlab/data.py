@@ -194,12 +194,18 @@ def _to_number(values: pd.Series) -> tuple[np.ndarray, np.ndarray]:
 
 
 def _as_text(values: pd.Series) -> np.ndarray:
-    """Levels as strings ("01" stays "01"); missing values become ""."""
+    """Levels as strings ("01" stays "01", floats as %g); missing values become "".
+
+    The text is made once per distinct value and shared by its rows, so a factor with few levels
+    costs one pointer per row however long the book is.
+    """
+    codes, uniques = pd.factorize(values, use_na_sentinel=True)
     if pd.api.types.is_float_dtype(values):
-        text = values.map(lambda v: "" if pd.isna(v) else format(v, "g"))
+        labels = pd.Series([format(v, "g") for v in uniques], dtype=object)
     else:
-        text = values.astype("string").fillna("")
-    return text.str.strip().to_numpy(dtype=object)
+        labels = pd.Series(uniques).astype("string")
+    text = np.append(labels.str.strip().to_numpy(dtype=object), "")  # code -1 (missing) -> ""
+    return text[codes]
 
 
 @dataclass
@@ -282,6 +288,17 @@ def _check_factor(values: pd.Series, f: Factor, offset: int, out: _Collector) ->
 # --------------------------------------------------------------------------------------------
 # book-level checks
 
+def _sorted_codes(values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(sorted distinct values, position of each value among them), as np.unique(values,
+    return_inverse=True) gives, found by hashing instead of sorting a copy of the column."""
+    codes, uniques = pd.factorize(values, use_na_sentinel=False)
+    uniques = np.asarray(uniques)
+    order = np.argsort(uniques, kind="stable")
+    rank = np.empty_like(order)
+    rank[order] = np.arange(order.size)
+    return uniques[order], rank[codes]
+
+
 def _book_checks(t: _Typed, spec: Spec, out: _Collector) -> None:
     c = spec.columns
     n = len(t.exposure)
@@ -300,8 +317,7 @@ def _book_checks(t: _Typed, spec: Spec, out: _Collector) -> None:
     total = expo.sum()
     codes: dict[str, np.ndarray] = {}
     for f in spec.factors:
-        vals = t.factors[f.name]
-        uniq, inv = np.unique(vals.astype(str) if f.type == "categorical" else vals, return_inverse=True)
+        uniq, inv = _sorted_codes(t.factors[f.name])
         codes[f.name] = inv
         if len(uniq) == 1:
             out.note("error", f.name, f"factor '{f.name}' has one level only ({uniq[0]}); it cannot "
@@ -330,16 +346,24 @@ def _book_checks(t: _Typed, spec: Spec, out: _Collector) -> None:
 
 
 def _concat(parts: list[_Typed]) -> _Typed:
-    def cat(name: str):
-        vals = [getattr(p, name) for p in parts]
+    """One `_Typed` from the chunks' parts, column by column, releasing each part's column once it is
+    copied (so the book is held about once, not twice)."""
+    def cat(holders: list, name: str):
+        vals = [h[name] if isinstance(h, dict) else getattr(h, name) for h in holders]
+        for h in holders:
+            h.pop(name) if isinstance(h, dict) else setattr(h, name, None)
         return None if vals[0] is None else np.concatenate(vals)
-    factors = {k: np.concatenate([p.factors[k] for p in parts]) for k in parts[0].factors}
-    return _Typed(cat("exposure"), cat("count"), cat("amount"), cat("premium"), factors, cat("policy"),
-                  cat("period"))
+    factors = {k: cat([p.factors for p in parts], k) for k in list(parts[0].factors)}
+    return _Typed(*(cat(parts, name) for name in ("exposure", "count", "amount", "premium")), factors,
+                  cat(parts, "policy"), cat(parts, "period"))
 
 
-def scan_book(path: str | Path, spec: Spec) -> tuple[_Typed, list[Finding]]:
-    """Read the whole book chunk by chunk, typing it and collecting every finding."""
+def scan_book(path: str | Path, spec: Spec, keep_policy: bool = True) -> tuple[_Typed, list[Finding]]:
+    """Read the whole book chunk by chunk, typing it and collecting every finding.
+
+    With `keep_policy=False` the policy ids are checked chunk by chunk and then dropped, unless the
+    duplicate (policy, period) check needs them (a period column is named).
+    """
     p = Path(path)
     header = read_columns(p)
     needed = spec.columns.used() + spec.factor_names
@@ -351,7 +375,12 @@ def scan_book(path: str | Path, spec: Spec) -> tuple[_Typed, list[Finding]]:
         raise InputError(f"{p}: missing column{'s' if len(missing) > 1 else ''} "
                          f"{', '.join(repr(m) for m in missing)}{hint}")
     out = _Collector(str(p))
-    parts = [check_chunk(chunk, off, spec, out) for off, chunk in iter_book(p, needed)]
+    drop_policy = not keep_policy and spec.columns.period is None
+    parts = []
+    for off, chunk in iter_book(p, needed):
+        parts.append(check_chunk(chunk, off, spec, out))
+        if drop_policy:
+            parts[-1].policy = None
     if not parts:
         raise InputError(f"{p}: the book has no rows")
     typed = _concat(parts)
