@@ -127,7 +127,7 @@ def iter_book(path: str | Path, columns: list[str], chunk_rows: int = CHUNK_ROWS
         else:
             import pyarrow.parquet as pq
             try:
-                pf = pq.ParquetFile(part)
+                pf = pq.ParquetFile(part, pre_buffer=False)  # pre-buffering would keep every row group read
                 for batch in pf.iter_batches(batch_size=chunk_rows, columns=columns):
                     chunk = batch.to_pandas()
                     yield offset, chunk

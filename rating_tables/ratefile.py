@@ -125,7 +125,8 @@ class _Source:
                     for chunk in reader:
                         yield pa.Table.from_pandas(chunk, schema=self.schema, preserve_index=False)
                 else:
-                    for batch in pq.ParquetFile(part).iter_batches(batch_size=self.batch_rows):
+                    # without pre-buffering: with it the reader keeps what it read, growing with the book
+                    for batch in pq.ParquetFile(part, pre_buffer=False).iter_batches(batch_size=self.batch_rows):
                         yield pa.Table.from_batches([batch])
             except (OSError, ValueError, pd.errors.ParserError) as e:
                 raise TableError(f"{part}: cannot be read: {e}", where=str(part)) from None
