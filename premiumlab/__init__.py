@@ -2,6 +2,8 @@
 
 The public functions are imported lazily so that the command line starts fast:
 `premiumlab.fit`, `premiumlab.load_spec`, `premiumlab.load_book`, `premiumlab.simulate`, ...
+No public function shares its name with a submodule (importing a submodule sets it as an
+attribute of the package, which would shadow the function).
 """
 from __future__ import annotations
 
@@ -15,20 +17,19 @@ _PUBLIC = {
     "load_spec": "premiumlab.spec",
     "load_book": "premiumlab.data",
     "profile": "premiumlab.data",
-    "simulate": "premiumlab.simulate",
+    "simulate": "premiumlab.simulator",
     "validate_book": "premiumlab.validation",
     "compare": "premiumlab.comparison",
-    "tabulate": "premiumlab.tabulate",
+    "tabulate": "premiumlab.tabulation",
     "write_report": "premiumlab.report",
     "run_demo": "premiumlab.demo",
+    "threshold_aid": "premiumlab.tails",
 }
 
 
 def __getattr__(name: str):
     if name in _PUBLIC:
         value = getattr(import_module(_PUBLIC[name]), name)
-        # importing premiumlab.simulate sets the submodule as an attribute of the package;
-        # the function of the same name must win
         globals()[name] = value
         return value
     raise AttributeError(f"module 'premiumlab' has no attribute {name!r}")

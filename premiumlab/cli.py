@@ -61,7 +61,7 @@ def simulate(scenario: Annotated[Path, typer.Argument(help="Scenario TOML file."
              force: Force = False) -> None:
     """Write a synthetic book from an invented scenario, with truth.json beside it."""
     from premiumlab.outputs import atomic_files
-    from premiumlab.simulate import simulate as simulate_book
+    from premiumlab.simulator import simulate as simulate_book
     with atomic_files([out, out.parent / "truth.json"], force=force, inputs=(scenario,)) as tmp:
         summary = simulate_book(scenario, tmp / out.name, policies=policies, seed=seed)
     typer.echo(f"wrote {out} ({summary['rows']} rows, {summary['policies']} policies) and "
@@ -113,7 +113,7 @@ def tabulate(run: Annotated[Path, typer.Argument(help="Run directory written by 
              force: Force = False) -> None:
     """Distil a run's model into a banded multiplicative rating table, with its fidelity."""
     from premiumlab.rating import fidelity_lines
-    from premiumlab.tabulate import tabulate as tabulate_run
+    from premiumlab.tabulation import tabulate as tabulate_run
     summary = tabulate_run(run, out, model=model, force=force, book=book)
     typer.echo("\n".join(fidelity_lines(summary)))
     _echo_cautions(summary["cautions"])

@@ -30,8 +30,8 @@ def run_demo(out: str | Path, policies: int | None = None, force: bool = False,
     from premiumlab.pipeline import fit
     from premiumlab.rating import (audit_table, dislocation, fidelity_lines, impact_lines, rate_book)
     from premiumlab.report import write_report
-    from premiumlab.simulate import simulate
-    from premiumlab.tabulate import tabulate
+    from premiumlab.simulator import simulate
+    from premiumlab.tabulation import tabulate
 
     out = Path(out)
     check_target(out, force)

@@ -231,14 +231,14 @@ def test_promise_is_checked_through_the_two_way_table() -> None:
 
 @pytest.fixture(scope="module")
 def gbm_table(demo_run, tmp_path_factory) -> dict:
-    from premiumlab.tabulate import tabulate
+    from premiumlab.tabulation import tabulate
     out = tmp_path_factory.mktemp("tabulate") / "table"
     return {"summary": tabulate(demo_run["run"], out), "path": out}
 
 
 def _training_frame(demo_run) -> tuple:
     from premiumlab.pipeline import open_run
-    from premiumlab.tabulate import rating_frame, reread_book
+    from premiumlab.tabulation import rating_frame, reread_book
     run = open_run(demo_run["run"])
     book = reread_book(run)
     rows = np.flatnonzero(~book.holdout)
@@ -270,7 +270,7 @@ def test_table_fidelity_equals_sklearn_tweedie_deviance(demo_run, gbm_table) -> 
     from sklearn.metrics import mean_tweedie_deviance
 
     from premiumlab.pipeline import open_run
-    from premiumlab.tabulate import rating_frame, reread_book
+    from premiumlab.tabulation import rating_frame, reread_book
     fid = gbm_table["summary"]["fidelity"]
     run = open_run(demo_run["run"])
     book = reread_book(run)
@@ -292,23 +292,33 @@ def test_table_fidelity_equals_sklearn_tweedie_deviance(demo_run, gbm_table) -> 
         (g["table"] - g["glm"]) / (g["gbm"] - g["glm"]), rel=1e-12)
 
 
-def test_rate_level_statements(gbm_table) -> None:
+def test_rate_level_statements(demo_run, gbm_table) -> None:
     """Rounding off-balance = (unrounded-relativity base rate) / base rate - 1, since both solve the
     same target (1e-12); it is below 0.5 % for 3 decimals; the indicated overall change is the gross
-    total over the current premium total minus 1 (1e-12); no minimum premium, so its off-balance is 0."""
+    total over the current premium total minus 1 (1e-12); the minimum premium's off-balance is the
+    gross total with the minimum over the gross total without it, minus 1, recomputed here with the
+    loadings of the fundamental insurance equation (1e-9)."""
     level = gbm_table["summary"]["rate_level"]
     assert level["rounding_off_balance"] == pytest.approx(
         level["base_rate_unrounded_relativities"] / level["base_rate"] - 1, abs=1e-12)
     assert abs(level["rounding_off_balance"]) < 0.005
     assert level["indicated_overall_change"] == pytest.approx(
         level["gross_premium_total"] / level["current_premium_total"] - 1, abs=1e-12)
-    assert level["minimum_premium_off_balance"] == 0.0
+    import rating_tables
+    table = rating_tables.load(gbm_table["path"])
+    _, _, _, frame = _training_frame(demo_run)
+    rated = rating_tables.rate(table, frame, "exposure")
+    without = rating_tables.gross_premium(rated["pure_premium"].to_numpy(), frame["exposure"].to_numpy(float),
+                                          table.loadings, table.rounding.premium_decimals, apply_minimum=False)
+    expected = rated["gross_premium"].sum() / without.sum() - 1.0
+    assert level["minimum_premium_off_balance"] == pytest.approx(expected, abs=1e-9)
+    assert level["policies_at_minimum"] == int((without < table.loadings.minimum_premium).sum())
 
 
 def test_tabulate_is_deterministic_and_fast(demo_run, gbm_table, tmp_path) -> None:
     """A second tabulate of the same run writes byte-identical table.json, factor CSVs and
     fidelity.json; each took under 60 s on the 20,000-policy book."""
-    from premiumlab.tabulate import tabulate
+    from premiumlab.tabulation import tabulate
     again = tabulate(demo_run["run"], tmp_path / "again")
     first = gbm_table["path"]
     names = ["table.json", "fidelity.json"] + [f"factors/{p.name}" for p in (first / "factors").iterdir()]
@@ -323,7 +333,7 @@ def test_glm_export_keeps_the_glm_relativities(demo_run, tmp_path) -> None:
     import json
 
     import rating_tables
-    from premiumlab.tabulate import tabulate
+    from premiumlab.tabulation import tabulate
     summary = tabulate(demo_run["run"], tmp_path / "glm", model="glm")
     table = rating_tables.load(tmp_path / "glm")
     glm = json.loads((demo_run["run"] / "models" / "glm_pure_premium.json").read_text())["relativities"]
@@ -347,7 +357,7 @@ def test_current_premium_target_follows_the_fundamental_insurance_equation(demo_
     import shutil
 
     import rating_tables
-    from premiumlab.tabulate import tabulate
+    from premiumlab.tabulation import tabulate
     run_copy = demo_run["base"] / "run_current_premium"
     if not run_copy.exists():
         shutil.copytree(demo_run["run"], run_copy)
@@ -375,7 +385,7 @@ def test_a_changed_book_is_refused(demo_run, tmp_path) -> None:
     """A book whose bytes differ from the run's (one exposure changed) is refused with an InputError
     that names the file and sha256, and nothing is written at the target."""
     from premiumlab.errors import InputError
-    from premiumlab.tabulate import tabulate
+    from premiumlab.tabulation import tabulate
     frame = pd.read_parquet(demo_run["book"])
     frame.loc[0, "exposure"] = frame.loc[0, "exposure"] * 0.5
     changed = tmp_path / "changed.parquet"

@@ -1,4 +1,4 @@
-"""Tests of the scenario simulator (premiumlab.simulate) and of the shipped invented scenarios.
+"""Tests of the scenario simulator (premiumlab.simulator) and of the shipped invented scenarios.
 
 The data are invented: these are simulator-recovery tests. The reference points outside the
 project are the distributions of scipy.stats (Pareto and lognormal means, Kolmogorov-Smirnov and
@@ -20,7 +20,7 @@ import pytest
 import scipy.stats as st
 
 from premiumlab.errors import InputError
-from premiumlab.simulate import generate, load_scenario, simulate
+from premiumlab.simulator import generate, load_scenario, simulate
 
 SCENARIOS = Path(__file__).resolve().parent.parent / "scenarios"
 NAMES = ("motor", "household", "motor_main_effects")
@@ -296,7 +296,7 @@ def test_large_loss_mean_equals_scipy(kind: str, params: dict, reference) -> Non
     """The large-loss mean in truth.json equals scipy.stats' mean of the same distribution (1e-12)."""
     doc = tomllib.loads(LARGE_LOSS_SCENARIO)
     doc["large_losses"] = {"probability": 0.02, "distribution": kind, **params}
-    from premiumlab.simulate import parse_scenario
+    from premiumlab.simulator import parse_scenario
     truth = generate(parse_scenario(doc), policies=200).truth
     assert truth["large_losses"]["mean"] == pytest.approx(reference.mean(), rel=1e-12)
 
@@ -345,7 +345,7 @@ bands = [3]
 def test_numeric_distributions_match_scipy() -> None:
     """Each numeric distribution kind against scipy.stats: Kolmogorov-Smirnov p > 0.001 for
     uniform, normal, lognormal and histogram (rv_histogram), chi-square p > 0.001 for integers."""
-    from premiumlab.simulate import parse_scenario
+    from premiumlab.simulator import parse_scenario
     book = generate(parse_scenario(tomllib.loads(DISTRIBUTIONS_SCENARIO))).book
     assert len(book) == 4000
     for name, ref in (("u", st.uniform(2.0, 5.0)), ("z", st.norm(40.0, 12.0)),
@@ -393,7 +393,7 @@ def test_current_premium_follows_the_tariff_and_loss_ratio(motor) -> None:
 # --------------------------------------------------------------------------------------------
 # the shipped scenarios and their specs
 
-SPEC_KEYS = {"columns", "factors", "split", "table"}
+SPEC_KEYS = {"columns", "factors", "split", "table", "loadings"}
 SPEC_FACTOR_KEYS = {"type", "monotone", "bands", "levels", "base"}
 
 
