@@ -11,8 +11,29 @@ from pathlib import Path
 from typing import Annotated, Callable, Optional
 
 import typer
+from typer.core import TyperGroup
 
-app = typer.Typer(add_completion=False, no_args_is_help=True, pretty_exceptions_enable=False,
+
+class _OneLineUsage(TyperGroup):
+    """Usage errors (a missing or unknown option, a value of the wrong type, an unknown command) as
+    one line on stderr with exit code 2, like every other bad input; help is printed as before."""
+
+    def main(self, *args, **kwargs):
+        try:
+            code = super().main(*args, **{**kwargs, "standalone_mode": False})
+        except Exception as e:  # the command-line parser's errors carry exit_code and format_message
+            if not (hasattr(e, "exit_code") and hasattr(e, "format_message")):
+                raise
+            if type(e).__name__ != "NoArgsIsHelpError":  # that one has printed the help already
+                ctx = getattr(e, "ctx", None)
+                where = " ".join(ctx.command_path.split()[1:]) if ctx is not None else ""
+                typer.echo(f"premiumlab: {where + ': ' if where else ''}{' '.join(e.format_message().split())}",
+                           err=True)
+            sys.exit(e.exit_code)
+        sys.exit(code if isinstance(code, int) else 0)
+
+
+app = typer.Typer(cls=_OneLineUsage, add_completion=False, no_args_is_help=True, pretty_exceptions_enable=False,
                   help="premiumlab: GLM baselines, boosted trees and banded rating tables for insurance "
                        "pricing. Every output is a draft for a qualified actuary and must be filed and "
                        "approved under local rate regulation.")

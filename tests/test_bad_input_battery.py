@@ -235,6 +235,13 @@ CASES: list[tuple[str, str, int, str, Prepare | None]] = [
      "premiumlab: book.parquet: cannot be read: Parquet magic bytes not found", make(_parquet, _truncate("book.parquet"))),
     ("rate-byte-order-mark-works", "rate table policies.csv --out priced.csv", 0, "wrote priced.csv",
      make(policies(lambda d: d[["age", "policy", "region", "bonus", "exposure"]]), raw("policies.csv", BOM.__add__))),
+    # usage
+    ("usage-wrong-option-type", "simulate scenario.toml --out sim.csv --policies many", 2,
+     "premiumlab: simulate: Invalid value for '--policies'", None),
+    ("usage-missing-option", "fit book.csv --out run", 2, "premiumlab: fit: Missing option '--spec'.", None),
+    ("usage-unknown-option", "rate table policies.csv --out priced.csv --colour red", 2,
+     "premiumlab: rate: No such option: --colour", None),
+    ("usage-unknown-command", "frobnicate book.csv", 2, "premiumlab: No such command 'frobnicate'.", None),
     # other commands
     ("simulate-malformed-scenario", "simulate scenario.toml --out sim.csv", 2, "scenario.toml: not valid TOML",
      lambda f: (f / "scenario.toml").write_text("[portfolio\n")),
