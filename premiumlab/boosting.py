@@ -95,6 +95,9 @@ def rank_interactions(model, features: pd.DataFrame, train: np.ndarray, spec: Sp
     """Friedman's H for pairs of the top factors by gain, on a seeded sample of training policies."""
     from premiumlab.interactions import h_statistics, top_factors_by_gain
     top = top_factors_by_gain(model.booster, H_FACTORS)
+    if len(top) < 2:
+        return {"model": model.target, "sample": 0, "factors": top, "pairs": [],
+                "note": "the boosted model splits on fewer than two factors, so it has no interactions"}
     sample = features.loc[train].reset_index(drop=True)
     pairs = h_statistics(model.predict_raw, sample, top, seed=spec.split.seed, sample_size=H_SAMPLE)
     return {"model": model.target, "sample": min(H_SAMPLE, len(sample)), "factors": top, "pairs": pairs}

@@ -68,12 +68,12 @@ def compare(run_dir: str | Path, n_boot: int = N_BOOT) -> dict:
     from premiumlab import figures
     from premiumlab.metrics import (actual_vs_expected, deviance_difference, double_lift, gini_difference,
                                     lift_table, lorenz_curve)
-    from premiumlab.pipeline import open_run
+    from premiumlab.pipeline import fitted_basis, open_run
     run = open_run(run_dir)
-    if run.spec.split.holdout == 0:
+    preds = fitted_basis(run.predictions())
+    if not preds["holdout"].any():
         raise InputError(f"{run.path}: the run has no holdout (split.holdout = 0), so there is nothing to "
-                         f"compare on; refit with a holdout share above 0")
-    preds = run.predictions()
+                         f"compare on; refit with a holdout share above 0 or holdout = \"latest_period\"")
     if not any(c.startswith("gbm_") for c in preds) or not any(c.startswith("glm_") for c in preds):
         raise InputError(f"{run.path}: compare needs both GLM and GBM predictions; fit with --models glm,gbm")
     power = run.model_json("glm_pure_premium")["power"] if "glm_pure_premium" in preds else 1.5

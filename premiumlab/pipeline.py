@@ -50,8 +50,10 @@ class Run:
         with the run's split."""
         p = Path(path) if path is not None else self.path / self.manifest["book"]["path_from_run"]
         book = load_book(p, self.spec)
-        if book.sha256 != self.manifest["book"]["sha256"]:
-            raise InputError(f"{p}: this is not the book the run {self.path} was fitted on (sha256 differs)")
+        recorded = self.manifest["book"]["sha256"]
+        if book.sha256 != recorded:
+            raise InputError(f"{p}: sha256 {book.sha256} differs from the book the run was fitted on "
+                             f"({recorded}, {self.path / 'run.json'} key 'book.sha256')")
         if self.spec.split.out_of_time:
             book.holdout = latest_period_holdout(read_text_column(p, self.spec.columns.period))
         return book

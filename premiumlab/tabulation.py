@@ -23,6 +23,8 @@ predictions.parquet; retention G_table / G_GBM and (G_table - G_GLM) / (G_GBM - 
 """
 from __future__ import annotations
 
+from dataclasses import replace
+
 import time
 from pathlib import Path
 
@@ -30,7 +32,7 @@ import numpy as np
 import pandas as pd
 
 from premiumlab.cautions import cautions_for
-from premiumlab.data import Book, load_book
+from premiumlab.data import Book
 from premiumlab.distill import Banding, DistilOptions, FactorValues, band_exposure, distil, exposure_sample, \
     round_relativity
 from premiumlab.errors import InputError
@@ -51,12 +53,8 @@ CHECK_TOLERANCE = 1e-9
 
 def reread_book(run: Run, book: str | Path | None = None) -> Book:
     """The run's book (or `book`, e.g. after a move), refused unless its sha256 is the run's."""
-    recorded = run.manifest["book"]
-    path = Path(book) if book is not None else run.path / recorded["path_from_run"]
-    loaded = load_book(path, run.spec)
-    if loaded.sha256 != recorded["sha256"]:
-        raise InputError(f"{path}: sha256 {loaded.sha256} differs from the book the run was fitted on "
-                         f"({recorded['sha256']}, {run.path / 'run.json'} key 'book.sha256')")
+    loaded = run.load_book(book)
+    path = loaded.path
     if loaded.claim_amount is None:
         raise InputError(f"{path}: a pure-premium table needs claim amounts; the spec names no "
                          f"columns.claim_amount")
@@ -74,6 +72,14 @@ def checked_predictions(run: Run, book: Book, column: str) -> pd.DataFrame:
     if column not in preds.columns:
         raise InputError(f"{where}: no column '{column}'; fit the run with that model first")
     return preds
+
+
+def fitted_amounts(book: Book, preds: pd.DataFrame) -> Book:
+    """The book with the claim amounts the models were fitted to: after [experience] adjustments
+    (developed, trended, capped plus loads) when the run made them, else as observed."""
+    if "claim_amount_adjusted" not in preds.columns:
+        return book
+    return replace(book, claim_amount=preds["claim_amount_adjusted"].to_numpy(dtype=float))
 
 
 def level_indices(book: Book, run: Run, name: str) -> tuple[tuple[str, ...], np.ndarray]:
@@ -340,6 +346,7 @@ def tabulate(run_dir: str | Path, out: str | Path, model: str = "gbm", force: bo
     spec = run.spec
     loaded = reread_book(run, book)
     preds = checked_predictions(run, loaded, f"{model}_pure_premium")
+    loaded = fitted_amounts(loaded, preds)
     train = ~loaded.holdout
     rows = np.flatnonzero(train)
     if model == "gbm":
