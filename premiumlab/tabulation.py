@@ -195,10 +195,14 @@ def _row_cells(banding: Banding, book: Book, run: Run, rows: np.ndarray) -> np.n
 
 def table_factors(spec: Spec, bandings: dict[str, Banding], relativities: dict[str, np.ndarray],
                   two_way: dict[tuple[str, str], np.ndarray], bases: dict[str, int], cells: dict[str, np.ndarray],
-                  exposure: np.ndarray, decimals: int | None) -> tuple:
+                  exposure: np.ndarray, amount: np.ndarray, decimals: int | None) -> tuple:
     """Rating-table factors in spec order, then the two-way tables; relativities rounded to `decimals`
-    (None: unrounded), the unrounded refit kept as `indicated`, exposure of the training rows."""
+    (None: unrounded), the unrounded refit kept as `indicated`, exposure of the training rows, and the
+    Buhlmann-Straub credibility of each band's or level's own experience (amount per exposure) toward
+    its complement (neighbouring bands, or the overall level for categoricals) for the reviewer."""
     from rating_tables import Bands, CategoricalFactor, InteractionFactor, NumericFactor
+
+    from premiumlab.credibility import credibility_by_level
 
     def selected(values: np.ndarray) -> np.ndarray:
         return values if decimals is None else round_relativity(values, decimals)
@@ -209,8 +213,10 @@ def table_factors(spec: Spec, bandings: dict[str, Banding], relativities: dict[s
         if b.numeric:
             lower = np.concatenate([[-np.inf], b.edges])
             upper = np.concatenate([b.edges, [np.inf]])
+            z = credibility_by_level(amount, exposure, cells[f.name], b.n_bands, numeric=True)["credibility"]
             out.append(NumericFactor(f.name, f.monotone, lower, upper, selected(rel),
-                                     band_exposure(cells[f.name], b.n_bands, exposure), indicated=rel))
+                                     band_exposure(cells[f.name], b.n_bands, exposure), indicated=rel,
+                                     credibility=z.to_numpy()))
             sides[f.name] = (Bands(lower, upper), np.arange(b.n_bands))
             continue
         level_rel = rel[b.band_of_level]
@@ -219,8 +225,10 @@ def table_factors(spec: Spec, bandings: dict[str, Banding], relativities: dict[s
         if base is None:
             in_base = np.flatnonzero(b.band_of_level == bases[f.name])
             base = b.levels[in_base[np.argmax(level_exposure[in_base])]]
+        z = credibility_by_level(amount, exposure, cells[f.name], len(b.levels))["credibility"]
         out.append(CategoricalFactor(f.name, f.monotone, b.levels, selected(level_rel), level_exposure,
-                                     fallback=f.fallback, base=base, indicated=level_rel))
+                                     fallback=f.fallback, base=base, indicated=level_rel,
+                                     credibility=z.to_numpy()))
         sides[f.name] = (b.levels, b.band_of_level)
     for (a, b), matrix in two_way.items():
         (a_cells, a_band), (b_cells, b_band) = sides[a], sides[b]
@@ -355,8 +363,10 @@ def tabulate(run_dir: str | Path, out: str | Path, model: str = "gbm", force: bo
         bandings, rel, two_way, bases, notes = glm_bands(run, loaded)
     cells = {n: _row_cells(b, loaded, run, rows) for n, b in bandings.items()}
     exposure = loaded.exposure[rows]
-    unrounded = table_factors(spec, bandings, rel, two_way, bases, cells, exposure, None)
-    rounded = table_factors(spec, bandings, rel, two_way, bases, cells, exposure, spec.table.relativity_decimals)
+    amount = loaded.claim_amount[rows]
+    unrounded = table_factors(spec, bandings, rel, two_way, bases, cells, exposure, amount, None)
+    rounded = table_factors(spec, bandings, rel, two_way, bases, cells, exposure, amount,
+                            spec.table.relativity_decimals)
     target = pure_premium_target(spec, loaded, train)
     provenance = {"run": Path(run_dir).resolve().name, "model": f"{model}_pure_premium",
                   "book_sha256": loaded.sha256}

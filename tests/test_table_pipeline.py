@@ -73,3 +73,17 @@ def test_audit_exits_1_and_names_an_injected_reversal(demo_run, tmp_path):
     assert not lines[-1].startswith("audit: 0 ")
     clean = run_cli("audit", str(demo_run["table"]), "--spec", str(demo_run["spec"]))
     assert clean.returncode == 0 and "audit: 0 violation(s)" in clean.stdout
+
+
+def test_factor_files_carry_credibility_of_each_level(demo_run):
+    """Buhlmann-Straub credibility per band or level (see tests/test_credibility.py for the references):
+    within [0, 1] everywhere, and high for the strongly rated bonus classes of the motor book
+    (true pure-premium relativities 0.72 to 1.75, hundreds of claims per class)."""
+    for path in sorted((demo_run["table"] / "factors").glob("*.csv")):
+        frame = pd.read_csv(path)
+        if "__" in path.stem:
+            continue
+        z = frame["credibility"].to_numpy(float)
+        assert ((z >= 0) & (z <= 1)).all(), path.name
+    bonus = pd.read_csv(demo_run["table"] / "factors" / "bonus_class.csv")
+    assert bonus["credibility"].min() > 0.5, bonus
