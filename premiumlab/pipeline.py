@@ -23,7 +23,7 @@ from premiumlab.data import Book, Levels, categorise, factor_levels, load_book
 from premiumlab.errors import InputError
 from premiumlab.experience import latest_period_holdout, read_text_column
 from premiumlab.jsonio import read_json, write_json
-from premiumlab.outputs import atomic_output
+from premiumlab.outputs import atomic_output, check_target
 from premiumlab.spec import Spec, load_spec, parse_spec
 
 MODEL_KINDS = ("glm", "gbm")
@@ -104,7 +104,6 @@ def fit(book_path: str | Path, spec_path: str | Path, out: str | Path, models: s
     kinds = parse_models(models)
     spec = load_spec(spec_path)
     out = Path(out)
-    from premiumlab.outputs import check_target
     check_target(out, force, inputs=(book_path, spec_path))
     timings: dict[str, float] = {}
     t0 = time.perf_counter()
