@@ -349,7 +349,8 @@ def tabulate(run_dir: str | Path, out: str | Path, model: str = "gbm", force: bo
         raise InputError(f"--model: unknown model '{model}'; use gbm or glm")
     started = time.perf_counter()
     out = Path(out)
-    check_target(out, force)
+    inputs = (run_dir,) if book is None else (run_dir, book)
+    check_target(out, force, inputs=inputs)
     run = open_run(run_dir)
     spec = run.spec
     loaded = reread_book(run, book)
@@ -377,7 +378,7 @@ def tabulate(run_dir: str | Path, out: str | Path, model: str = "gbm", force: bo
                         "holdout" if loaded.holdout.any() else "training (the run has no holdout)")
     summary = {"format": "premiumlab.fidelity", "version": 1, "provenance": provenance, "fidelity": measured,
                "rate_level": level, "distillation": notes, "cautions": list(table.cautions)}
-    with atomic_output(out, force=force) as tmp:
+    with atomic_output(out, force=force, inputs=inputs) as tmp:
         save(table, tmp)
         write_json(tmp / "fidelity.json", summary)
         write_exhibit(table, tmp / "exhibit.xlsx")

@@ -154,7 +154,7 @@ def threshold_aid(book_path: str | Path, spec_path: str | Path, threshold: float
         target = Path(figure)
         if target.suffix.lower() != ".png":
             raise InputError(f"{target}: the figure must be a .png file")
-        with atomic_files([target], force=force) as tmp:
+        with atomic_files([target], force=force, inputs=(book_path, spec_path)) as tmp:
             plot_tail(losses, fit, tmp / target.name)
     notes = []
     if fit.shape >= 1.0:

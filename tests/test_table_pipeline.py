@@ -87,3 +87,12 @@ def test_factor_files_carry_credibility_of_each_level(demo_run):
         assert ((z >= 0) & (z <= 1)).all(), path.name
     bonus = pd.read_csv(demo_run["table"] / "factors" / "bonus_class.csv")
     assert bonus["credibility"].min() > 0.5, bonus
+
+
+def test_tabulate_refuses_to_replace_its_own_run(demo_run):
+    """--force must never let an output destroy an input: tabulate --out RUN --force exits 2."""
+    before = sorted(p.name for p in demo_run["run"].iterdir())
+    r = run_cli("tabulate", str(demo_run["run"]), "--out", str(demo_run["run"]), "--force")
+    assert r.returncode == 2 and "is or holds the input" in r.stderr
+    assert len(r.stderr.strip().splitlines()) == 1
+    assert sorted(p.name for p in demo_run["run"].iterdir()) == before
