@@ -105,7 +105,7 @@ def plot_double_lift(table: pd.DataFrame, path: str | Path, *, name_a: str, name
     ax.plot(table["bin"], table["a_index"], "s--", color=_colour(0), label=name_a)
     ax.plot(table["bin"], table["b_index"], "^--", color=_colour(1), label=name_b)
     ax.set_xticks(table["bin"])
-    ax.set_xlabel(f"bin of {name_a} / {name_b} (1 = {name_a} lowest relative to {name_b})")
+    ax.set_xlabel(f"bin of {name_a} / {name_b}\n(1 = {name_a} lowest relative to {name_b})")
     ax.set_ylabel("index to overall mean")
     ax.set_title(f"Double lift: {name_a} against {name_b}", fontsize=11)
     ax.legend(frameon=False, fontsize=8)
