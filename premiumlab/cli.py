@@ -180,11 +180,13 @@ def impact(book: Annotated[Path, typer.Argument(help="Book of policies (no claim
                                                             "(0.15 = 15 %).")] = None,
            exposure: Annotated[str, typer.Option(help="The book's exposure column.")] = "exposure",
            annual: Annotated[bool, typer.Option("--annual", help="Compare one full term per policy.")] = False,
+           thresholds: Annotated[str, typer.Option(help="Increases to count, comma separated "
+                                                        "(0.1 = 10 %).")] = "0.05,0.10,0.25",
            out: Annotated[Optional[Path], typer.Option("--out", help="Also write the summary as JSON.")] = None,
            force: Force = False) -> None:
     """Premium dislocation from the current to the proposed rates, optionally capped."""
-    from premiumlab.rating import dislocation, impact_lines
-    result = dislocation(current, str(proposed), book, exposure, annual, cap, (0.05, 0.10, 0.25))
+    from premiumlab.rating import dislocation, impact_lines, parse_thresholds
+    result = dislocation(current, str(proposed), book, exposure, annual, cap, parse_thresholds(thresholds))
     if out is not None:
         from premiumlab.jsonio import write_json
         from premiumlab.outputs import atomic_files

@@ -65,6 +65,17 @@ def dislocation(current: str, proposed: str, book: str | Path, exposure: str | N
     return result
 
 
+def parse_thresholds(text: str) -> tuple[float, ...]:
+    """'0.05,0.1' -> (0.05, 0.1): the increases whose shares `impact` reports."""
+    try:
+        values = tuple(float(t) for t in text.split(",") if t.strip())
+    except ValueError:
+        raise InputError(f"--thresholds: '{text}' must be numbers separated by commas, e.g. 0.05,0.10") from None
+    if not values or not all(np.isfinite(values)):
+        raise InputError(f"--thresholds: '{text}' must name at least one finite number")
+    return values
+
+
 def impact_lines(result: dict) -> list[str]:
     """A compact text summary of a dislocation result."""
     lines = [f"policies {result['policies']}: current total {result['total_current']:,.2f}, proposed "

@@ -96,3 +96,17 @@ def test_tabulate_refuses_to_replace_its_own_run(demo_run):
     assert r.returncode == 2 and "is or holds the input" in r.stderr
     assert len(r.stderr.strip().splitlines()) == 1
     assert sorted(p.name for p in demo_run["run"].iterdir()) == before
+
+
+def test_impact_thresholds_are_chosen_by_the_user(demo_run, tmp_path):
+    out = tmp_path / "impact.json"
+    r = run_cli("impact", str(demo_run["book"]), "--current", str(demo_run["glm_table"]), "--proposed",
+                str(demo_run["table"]), "--thresholds", "0.0,0.2,0.5", "--out", str(out))
+    assert r.returncode == 0, r.stderr
+    shares = json.loads(out.read_text())["above_thresholds"]
+    assert [s["threshold"] for s in shares] == [0.0, 0.2, 0.5]
+    counts = [s["count"] for s in shares]
+    assert counts[0] >= counts[1] >= counts[2]
+    bad = run_cli("impact", str(demo_run["book"]), "--current", str(demo_run["glm_table"]), "--proposed",
+                  str(demo_run["table"]), "--thresholds", "ten")
+    assert bad.returncode == 2 and "--thresholds" in bad.stderr
