@@ -28,19 +28,17 @@ def banded(values: np.ndarray, edges: np.ndarray | tuple[float, ...]) -> pd.Cate
 
 
 def quantile_edges(values: np.ndarray, weights: np.ndarray, n_bands: int) -> np.ndarray:
-    """Interior edges at the weighted quantiles k/n_bands (k = 1..n_bands-1) of `values`.
+    """Interior edges just above the weighted quantiles k/n_bands (k = 1..n_bands-1) of `values`.
 
-    An edge sits on an observed value, so each band holds roughly 1/n_bands of the weight; duplicate
-    edges (heavy ties) collapse, giving fewer bands. Edges are chosen above the minimum so that no band
-    is empty.
+    With u_1 < ... < u_m the distinct values and W_i the share of the weight on values <= u_i, the
+    k-th edge is u_(j+1) for the first j with W_j >= k/n_bands, so the bands below it hold at least
+    k/n_bands of the weight. Weights are summed per distinct value first, so rows or their distinct
+    values with summed weights give the same edges, whatever their order. Coinciding edges (heavy
+    ties) collapse, giving fewer bands; no band is empty.
     """
-    v = np.asarray(values, dtype=float)
-    w = np.asarray(weights, dtype=float)
-    order = np.argsort(v, kind="stable")
-    v, w = v[order], w[order]
+    uniq, inv = np.unique(np.asarray(values, dtype=float), return_inverse=True)
+    w = np.bincount(inv.ravel(), weights=np.asarray(weights, dtype=float), minlength=len(uniq))
     cum = np.cumsum(w) / w.sum()
-    targets = np.arange(1, n_bands) / n_bands
-    idx = np.searchsorted(cum, targets, side="left")
-    idx = np.clip(idx + 1, 0, len(v) - 1)
-    edges = np.unique(v[idx])
-    return edges[edges > v[0]]
+    idx = np.searchsorted(cum, np.arange(1, n_bands) / n_bands, side="left")
+    edges = np.unique(uniq[np.clip(idx + 1, 0, len(uniq) - 1)])
+    return edges[edges > uniq[0]]
