@@ -141,12 +141,6 @@ def iter_book(path: str | Path, columns: list[str], chunk_rows: int = CHUNK_ROWS
 # --------------------------------------------------------------------------------------------
 # row checks (pure: a chunk in, findings out)
 
-def _rows(mask: np.ndarray, offset: int) -> str:
-    idx = np.flatnonzero(mask)[:SHOW_ROWS] + offset
-    more = ", ..." if mask.sum() > SHOW_ROWS else ""
-    return ", ".join(str(i) for i in idx) + more
-
-
 class _Collector:
     """Collects findings per (level, column, check) across chunks: counts add, first rows kept."""
 
@@ -155,17 +149,15 @@ class _Collector:
         self.items: dict[tuple[str, str, str], list] = {}
 
     def add(self, level: str, column: str, check: str, mask: np.ndarray, offset: int) -> None:
-        n = int(mask.sum())
-        if n == 0:
+        self.add_rows(level, column, check, np.flatnonzero(mask) + offset)
+
+    def add_rows(self, level: str, column: str, check: str, rows: np.ndarray) -> None:
+        """Record the rows (0-based, ascending) that fail one check."""
+        if len(rows) == 0:
             return
-        key = (level, column, check)
-        if key not in self.items:
-            self.items[key] = [0, []]
-        entry = self.items[key]
-        entry[0] += n
-        if len(entry[1]) < SHOW_ROWS:
-            idx = (np.flatnonzero(mask)[: SHOW_ROWS - len(entry[1])] + offset).tolist()
-            entry[1].extend(idx)
+        entry = self.items.setdefault((level, column, check), [0, []])
+        entry[0] += len(rows)
+        entry[1].extend(rows[: SHOW_ROWS - len(entry[1])].tolist())
 
     def note(self, level: str, column: str, message: str) -> None:
         self.items[(level, column, message)] = [None, []]
@@ -286,7 +278,7 @@ def _check_factor(values: pd.Series, f: Factor, offset: int, out: _Collector) ->
 
 
 # --------------------------------------------------------------------------------------------
-# book-level checks
+# book-level checks, from per-chunk tallies (memory grows with the distinct levels, not the rows)
 
 def _sorted_codes(values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """(sorted distinct values, position of each value among them), as np.unique(values,
@@ -299,50 +291,148 @@ def _sorted_codes(values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return uniques[order], rank[codes]
 
 
-def _book_checks(t: _Typed, spec: Spec, out: _Collector) -> None:
+#: Columns of `LevelSums.sums`: rows, exposure, claim count and claim amount per distinct value.
+SUMS = ("rows", "exposure", "claims", "amount")
+
+
+@dataclass
+class LevelSums:
+    """Rows, exposure, claims and amount summed per distinct value of one factor (sorted values)."""
+
+    values: np.ndarray
+    sums: np.ndarray  # shape (len(values), len(SUMS))
+
+    def merged(self, values: np.ndarray, sums: np.ndarray) -> "LevelSums":
+        """These sums plus those of more distinct `values` (which may repeat ours)."""
+        uniq, inv = _sorted_codes(np.concatenate([self.values, values]))
+        both = np.concatenate([self.sums, sums])
+        return LevelSums(uniq, np.column_stack([np.bincount(inv, weights=both[:, j], minlength=len(uniq))
+                                                for j in range(both.shape[1])]))
+
+
+@dataclass
+class BookSummary:
+    """What the book-level checks and the profile need, summed chunk by chunk."""
+
+    totals: np.ndarray  # the SUMS over the whole book
+    has_amount: bool
+    levels: dict[str, LevelSums]
+
+    @property
+    def rows(self) -> int:
+        return int(self.totals[0])
+
+
+def _finite(x: np.ndarray | None, n: int) -> np.ndarray:
+    return np.zeros(n) if x is None else np.where(np.isfinite(x), x, 0.0)
+
+
+class _Tally:
+    """Accumulates, chunk by chunk: sums per distinct level, the distinct level pairs of every two
+    factors while they could still be identical up to relabelling, and 64-bit hashes of the
+    (policy, period) keys seen so far (8 bytes a row; repeats are confirmed exactly at the end)."""
+
+    def __init__(self, spec: Spec) -> None:
+        self.spec = spec
+        self.totals = np.zeros(len(SUMS))
+        self.has_amount = spec.columns.claim_amount is not None
+        self.levels: dict[str, LevelSums] = {
+            f.name: LevelSums(np.array([], dtype=float if f.type == "numeric" else object),
+                              np.zeros((0, len(SUMS)))) for f in spec.factors}
+        names = spec.factor_names
+        # distinct (a, b) level pairs; None once some level of one meets two levels of the other
+        self.pairs: dict[tuple[str, str], pd.DataFrame | None] = {
+            (a, b): pd.DataFrame({"a": [], "b": []}) for i, a in enumerate(names) for b in names[i + 1:]}
+        self.seen_keys: list[np.ndarray] = []
+        self.repeat_hashes: list[np.ndarray] = []
+
+    def add(self, t: _Typed, offset: int) -> None:
+        n = len(t.exposure)
+        expo = np.where(np.isfinite(t.exposure) & (t.exposure > 0), t.exposure, 0.0)
+        weights = np.column_stack([np.ones(n), expo, _finite(t.count, n), _finite(t.amount, n)])
+        self.totals += weights.sum(axis=0)
+        codes = {}
+        for name, values in t.factors.items():
+            uniq, inv = _sorted_codes(values)
+            codes[name] = (uniq, inv)
+            sums = np.column_stack([np.bincount(inv, weights=weights[:, j], minlength=len(uniq))
+                                    for j in range(len(SUMS))])
+            self.levels[name] = self.levels[name].merged(uniq, sums)
+        for (a, b), seen in self.pairs.items():
+            if seen is not None:
+                self.pairs[(a, b)] = _more_pairs(seen, *codes[a], *codes[b])
+        if t.policy is not None and t.period is not None:
+            self._add_keys(pd.util.hash_pandas_object(pd.DataFrame({"p": t.policy, "t": t.period}),
+                                                      index=False).to_numpy())
+
+    def _add_keys(self, keys: np.ndarray) -> None:
+        repeat = pd.Series(keys).duplicated(keep="first").to_numpy()
+        for seen in self.seen_keys:
+            pos = np.minimum(np.searchsorted(seen, keys), len(seen) - 1)
+            repeat = repeat | (seen[pos] == keys)
+        if repeat.any():
+            self.repeat_hashes.append(np.unique(keys[repeat]))
+        self.seen_keys.append(np.unique(keys))
+
+    def summary(self) -> BookSummary:
+        return BookSummary(self.totals, self.has_amount, self.levels)
+
+
+def _more_pairs(seen: pd.DataFrame, ua: np.ndarray, ka: np.ndarray, ub: np.ndarray, kb: np.ndarray
+                ) -> pd.DataFrame | None:
+    """The distinct (a, b) pairs so far with one chunk's added, or None when they stop being one to one."""
+    pairs = np.unique(ka.astype(np.int64) * len(ub) + kb)
+    chunk = pd.DataFrame({"a": ua[pairs // len(ub)], "b": ub[pairs % len(ub)]})
+    both = pd.concat([seen, chunk], ignore_index=True).drop_duplicates(ignore_index=True)
+    if both["a"].nunique() < len(both) or both["b"].nunique() < len(both):
+        return None
+    return both
+
+
+def _repeated_keys(path: Path, spec: Spec, candidates: np.ndarray) -> np.ndarray:
+    """Rows repeating an earlier (policy, period) pair, confirmed on the text of the rows whose
+    key hash is among `candidates` (a second read of the two columns; hashes can collide)."""
     c = spec.columns
-    n = len(t.exposure)
-    if n == 0:
-        out.note("error", "", "the book has no rows")
-        return
-    if np.nansum(t.count) == 0:
+    rows, policy, period = [], [], []
+    for off, chunk in iter_book(path, [c.policy_id, c.period]):
+        p, t = _as_text(chunk[c.policy_id]), _as_text(chunk[c.period])
+        keys = pd.util.hash_pandas_object(pd.DataFrame({"p": p, "t": t}), index=False).to_numpy()
+        hit = np.flatnonzero(np.isin(keys, candidates))
+        rows.append(hit + off)
+        policy.append(p[hit])
+        period.append(t[hit])
+    frame = pd.DataFrame({"p": np.concatenate(policy), "t": np.concatenate(period)})
+    return np.concatenate(rows)[frame.duplicated(keep="first").to_numpy()]
+
+
+def _book_checks(tally: _Tally, path: Path, out: _Collector) -> None:
+    spec, c = tally.spec, tally.spec.columns
+    if tally.totals[2] == 0:
         out.note("error", c.claim_count, f"the book has no claims (column '{c.claim_count}' sums to 0)")
-    if t.policy is not None and t.period is not None:
-        keys = pd.DataFrame({"p": t.policy, "t": t.period})
-        dup = keys.duplicated(keep="first").to_numpy()
-        out.add("error", c.policy_id, f"repeating an earlier ('{c.policy_id}', '{c.period}') pair", dup, 0)
-    elif t.policy is not None and c.period is None:
-        pass  # a policy may repeat (one row per policy and period) when no period column is named
-    expo = np.where(np.isfinite(t.exposure) & (t.exposure > 0), t.exposure, 0.0)
-    total = expo.sum()
-    codes: dict[str, np.ndarray] = {}
+    if tally.repeat_hashes:
+        rows = _repeated_keys(path, spec, np.concatenate(tally.repeat_hashes))
+        out.add_rows("error", c.policy_id, f"repeating an earlier ('{c.policy_id}', '{c.period}') pair", rows)
     for f in spec.factors:
-        uniq, inv = _sorted_codes(t.factors[f.name])
-        codes[f.name] = inv
-        if len(uniq) == 1:
-            out.note("error", f.name, f"factor '{f.name}' has one level only ({uniq[0]}); it cannot "
+        lv = tally.levels[f.name]
+        k = len(lv.values)
+        if k == 1:
+            out.note("error", f.name, f"factor '{f.name}' has one level only ({lv.values[0]}); it cannot "
                                       f"be rated")
         if f.type == "categorical":
-            if len(uniq) > MANY_LEVELS:
-                out.note("warning", f.name, f"factor '{f.name}' has {len(uniq)} levels (more than "
+            if k > MANY_LEVELS:
+                out.note("warning", f.name, f"factor '{f.name}' has {k} levels (more than "
                                             f"{MANY_LEVELS}); consider grouping")
+            total = lv.sums[:, 1].sum()
             if total > 0:
-                share = np.bincount(inv, weights=expo, minlength=len(uniq)) / total
-                thin = [str(u) for u, s in zip(uniq, share) if s < THIN_LEVEL_SHARE]
+                share = lv.sums[:, 1] / total
+                thin = [str(u) for u, s in zip(lv.values, share) if s < THIN_LEVEL_SHARE]
                 if thin:
                     out.note("warning", f.name, f"factor '{f.name}': {len(thin)} thin level(s) under "
                                                 f"{THIN_LEVEL_SHARE:.1%} of exposure: {', '.join(thin[:8])}")
-    names = [f.name for f in spec.factors]
-    for i, a in enumerate(names):
-        for b in names[i + 1:]:
-            ka, kb = codes[a], codes[b]
-            na, nb = ka.max() + 1, kb.max() + 1
-            if na != nb or na < 2:
-                continue
-            pairs = np.unique(ka.astype(np.int64) * nb + kb).size
-            if pairs == na:
-                out.note("error", b, f"factors '{a}' and '{b}' are identical up to relabelling; "
-                                     f"keep one of them")
+    for (a, b), pairs in tally.pairs.items():
+        na, nb = len(tally.levels[a].values), len(tally.levels[b].values)
+        if pairs is not None and na == nb >= 2:
+            out.note("error", b, f"factors '{a}' and '{b}' are identical up to relabelling; keep one of them")
 
 
 def _concat(parts: list[_Typed]) -> _Typed:
@@ -358,11 +448,13 @@ def _concat(parts: list[_Typed]) -> _Typed:
                   cat(parts, "policy"), cat(parts, "period"))
 
 
-def scan_book(path: str | Path, spec: Spec, keep_policy: bool = True) -> tuple[_Typed, list[Finding]]:
+def scan_book(path: str | Path, spec: Spec, keep_rows: bool = True, chunk_rows: int = CHUNK_ROWS
+              ) -> tuple[_Typed | None, BookSummary, list[Finding]]:
     """Read the whole book chunk by chunk, typing it and collecting every finding.
 
-    With `keep_policy=False` the policy ids are checked chunk by chunk and then dropped, unless the
-    duplicate (policy, period) check needs them (a period column is named).
+    Returns (the typed book, or None with `keep_rows=False`; the summed summary; the findings).
+    Without the rows, memory stays about one chunk plus the distinct levels and 8 bytes a row for
+    the (policy, period) keys when a period column is named.
     """
     p = Path(path)
     header = read_columns(p)
@@ -375,17 +467,17 @@ def scan_book(path: str | Path, spec: Spec, keep_policy: bool = True) -> tuple[_
         raise InputError(f"{p}: missing column{'s' if len(missing) > 1 else ''} "
                          f"{', '.join(repr(m) for m in missing)}{hint}")
     out = _Collector(str(p))
-    drop_policy = not keep_policy and spec.columns.period is None
+    tally = _Tally(spec)
     parts = []
-    for off, chunk in iter_book(p, needed):
-        parts.append(check_chunk(chunk, off, spec, out))
-        if drop_policy:
-            parts[-1].policy = None
-    if not parts:
+    for off, chunk in iter_book(p, needed, chunk_rows):
+        typed = check_chunk(chunk, off, spec, out)
+        tally.add(typed, off)
+        if keep_rows:
+            parts.append(typed)
+    if tally.totals[0] == 0:
         raise InputError(f"{p}: the book has no rows")
-    typed = _concat(parts)
-    _book_checks(typed, spec, out)
-    return typed, out.findings()
+    _book_checks(tally, p, out)
+    return (_concat(parts) if keep_rows else None), tally.summary(), out.findings()
 
 
 # --------------------------------------------------------------------------------------------
@@ -407,7 +499,7 @@ def holdout_flags(policy: np.ndarray, seed: int, holdout: float) -> np.ndarray:
 
 def load_book(path: str | Path, spec: Spec) -> Book:
     """Read, check and type a book; the first error stops with `InputError` (exit 2)."""
-    typed, findings = scan_book(path, spec)
+    typed, _, findings = scan_book(path, spec)
     errors = [f for f in findings if f.level == "error"]
     if errors:
         raise InputError(errors[0].message)
@@ -433,33 +525,35 @@ class Levels:
     edges: tuple[float, ...] | None = None
 
 
-def factor_levels(book: Book, spec: Spec, train: np.ndarray) -> dict[str, Levels]:
-    """Bands and level orders per factor, fixed on the training rows.
+def cut_levels(f: Factor, values: np.ndarray, exposure: np.ndarray, source: str) -> Levels:
+    """Bands or level order of factor `f` from its `values` and their `exposure` (rows, or distinct
+    values with summed exposure).
 
     Numeric: the spec's edges, else exposure-quantile edges (`n_bands`). Categorical: the spec's
     `levels` order, else levels sorted as strings. Base: the spec's `base`, else the largest exposure.
     """
-    out = {}
-    for f in spec.factors:
-        values = book.frame[f.name].to_numpy()
-        if f.type == "numeric":
-            edges = np.asarray(f.bands) if f.bands is not None else quantile_edges(
-                values[train], book.exposure[train], f.n_bands)
-            cat = banded(values, edges)
-            labels = tuple(cat.categories)
-            codes = cat.codes
-            edges_t = tuple(float(e) for e in edges)
-        else:
-            labels = f.levels if f.levels is not None else tuple(sorted(set(values)))
-            codes = pd.Categorical(values, categories=labels).codes
-            edges_t = None
-        expo = np.bincount(codes[train], weights=book.exposure[train], minlength=len(labels))
-        base = f.base if f.base is not None else labels[int(np.argmax(expo))]
-        if f.base is not None and f.base not in labels:
-            raise InputError(f"{spec.source}: key 'factors.{f.name}.base': '{f.base}' is not one of its "
-                             f"levels or bands ({', '.join(labels[:10])})")
-        out[f.name] = Levels(f.name, labels, base, edges_t)
-    return out
+    if f.type == "numeric":
+        edges = np.asarray(f.bands) if f.bands is not None else quantile_edges(values, exposure, f.n_bands)
+        cat = banded(values, edges)
+        labels = tuple(cat.categories)
+        codes = cat.codes
+        edges_t = tuple(float(e) for e in edges)
+    else:
+        labels = f.levels if f.levels is not None else tuple(sorted(set(values)))
+        codes = pd.Categorical(values, categories=labels).codes
+        edges_t = None
+    expo = np.bincount(codes, weights=exposure, minlength=len(labels))
+    base = f.base if f.base is not None else labels[int(np.argmax(expo))]
+    if f.base is not None and f.base not in labels:
+        raise InputError(f"{source}: key 'factors.{f.name}.base': '{f.base}' is not one of its "
+                         f"levels or bands ({', '.join(labels[:10])})")
+    return Levels(f.name, labels, base, edges_t)
+
+
+def factor_levels(book: Book, spec: Spec, train: np.ndarray) -> dict[str, Levels]:
+    """Bands and level orders per factor (`cut_levels`), fixed on the training rows."""
+    return {f.name: cut_levels(f, book.frame[f.name].to_numpy()[train], book.exposure[train], spec.source)
+            for f in spec.factors}
 
 
 def categorise(book_frame: pd.DataFrame, levels: dict[str, Levels]) -> pd.DataFrame:
@@ -474,20 +568,32 @@ def categorise(book_frame: pd.DataFrame, levels: dict[str, Levels]) -> pd.DataFr
     return pd.DataFrame(cols)
 
 
-def profile(book: Book, spec: Spec) -> dict[str, pd.DataFrame]:
-    """Exposure, claims, frequency, severity and loss cost per level or band, and overall."""
-    levels = factor_levels(book, spec, np.ones(book.n_rows, dtype=bool))
-    cats = categorise(book.frame, levels)
-    amount = book.claim_amount if book.claim_amount is not None else np.full(book.n_rows, np.nan)
-    base = pd.DataFrame({"exposure": book.exposure, "claims": book.claim_count, "amount": amount})
-    out = {}
-    for name in ["(overall)"] + list(levels):
-        key = np.zeros(book.n_rows, dtype=int) if name == "(overall)" else cats[name]
-        g = base.groupby(key, observed=False).sum(min_count=1)
-        if name == "(overall)":
-            g.index = ["all"]
-        g["frequency"] = g["claims"] / g["exposure"]
-        g["severity"] = g["amount"] / g["claims"]
-        g["loss_cost"] = g["amount"] / g["exposure"]
-        out[name] = g
+def profile(summary: BookSummary, spec: Spec) -> dict[str, pd.DataFrame]:
+    """Exposure, claims, amount, frequency (claims/exposure), severity (amount/claims) and loss cost
+    (amount/exposure) per level or band, and overall; bands and levels cut as `cut_levels` does on
+    the whole book (exposure-quantile edges from the exposure summed per distinct value)."""
+    out = {"(overall)": _profile_table(summary.totals[None, :], pd.Index(["all"]), summary.has_amount)}
+    for f in spec.factors:
+        lv = summary.levels[f.name]
+        cut = cut_levels(f, lv.values, lv.sums[:, 1], spec.source)
+        if cut.edges is not None:
+            codes = banded(lv.values, cut.edges).codes
+        else:
+            codes = pd.Categorical(lv.values, categories=list(cut.labels)).codes
+        sums = np.column_stack([np.bincount(codes, weights=lv.sums[:, j], minlength=len(cut.labels))
+                                for j in range(len(SUMS))])
+        index = pd.CategoricalIndex(cut.labels, categories=cut.labels, ordered=True, name=f.name)
+        out[f.name] = _profile_table(sums, index, summary.has_amount)
     return out
+
+
+def _profile_table(sums: np.ndarray, index: pd.Index, has_amount: bool) -> pd.DataFrame:
+    """One profile table from summed (rows, exposure, claims, amount); groups with no rows are NaN."""
+    empty = sums[:, 0] == 0
+    g = pd.DataFrame({"exposure": np.where(empty, np.nan, sums[:, 1]),
+                      "claims": np.where(empty, np.nan, sums[:, 2]),
+                      "amount": np.where(empty | (not has_amount), np.nan, sums[:, 3])}, index=index)
+    g["frequency"] = g["claims"] / g["exposure"]
+    g["severity"] = g["amount"] / g["claims"]
+    g["loss_cost"] = g["amount"] / g["exposure"]
+    return g

@@ -4,10 +4,9 @@ from __future__ import annotations
 from dataclasses import dataclass
 from pathlib import Path
 
-import numpy as np
 import pandas as pd
 
-from premiumlab.data import Book, Finding, profile, read_columns, scan_book
+from premiumlab.data import Finding, profile, read_columns, scan_book
 from premiumlab.spec import Spec, load_spec
 
 
@@ -44,15 +43,6 @@ def validate_book(book_path: str | Path, spec_path: str | Path) -> ValidationRep
     if missing:
         findings = [Finding("error", c, f"{book_path}: missing column '{c}'") for c in missing]
         return ValidationReport(str(book_path), 0, findings, None)
-    typed, findings = scan_book(book_path, spec, keep_policy=False)
-    rows = len(typed.exposure)
-    if any(f.level == "error" for f in findings):
-        return ValidationReport(str(book_path), rows, findings, None)
-    # the profile uses neither policy ids nor the split: row numbers and no holdout stand in for them;
-    # levels stay object arrays (a str column would make new Python strings at every to_numpy())
-    frame = pd.DataFrame({f.name: pd.Series(typed.factors[f.name], dtype=object if f.type == "categorical"
-                                            else float, copy=False) for f in spec.factors})
-    book = Book(str(book_path), frame,
-                typed.exposure, typed.count, typed.amount, typed.premium, np.arange(rows),
-                np.zeros(rows, dtype=bool), sha256="")
-    return ValidationReport(str(book_path), rows, findings, profile(book, spec))
+    _, summary, findings = scan_book(book_path, spec, keep_rows=False)
+    usable = not any(f.level == "error" for f in findings)
+    return ValidationReport(str(book_path), summary.rows, findings, profile(summary, spec) if usable else None)

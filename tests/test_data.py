@@ -5,7 +5,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from premiumlab.data import holdout_flags, iter_book, load_book, scan_book
+from premiumlab.bands import quantile_edges
+from premiumlab.data import _repeated_keys, holdout_flags, iter_book, load_book, profile, scan_book
 from premiumlab.errors import InputError
 from premiumlab.spec import load_spec
 
@@ -17,7 +18,7 @@ def findings_for(tmp_path, spec_file, edit) -> list[str]:
     df = edit(df) if edit else df
     p = tmp_path / "b.csv"
     df.to_csv(p, index=False)
-    _, findings = scan_book(p, load_spec(spec_file))
+    _, _, findings = scan_book(p, load_spec(spec_file))
     return [str(f) for f in findings]
 
 
@@ -29,7 +30,7 @@ def _set(col, rows, value):
     return edit
 
 
-@pytest.mark.parametrize("edit, fragment", [
+EDITS = [
     (_set("exposure", [3, 9], -1.0), "column 'exposure': 2 rows with exposure <= 0 (rows 3, 9)"),
     (_set("exposure", [4], 0.0), "1 row with exposure <= 0 (rows 4)"),
     (_set("exposure", [5], ""), "with a missing exposure (rows 5)"),
@@ -48,7 +49,10 @@ def _set(col, rows, value):
     (lambda df: df.assign(region=df["bonus"].map({"01": "x", "02": "y", "03": "z"})),
      "factors 'region' and 'bonus' are identical up to relabelling"),
     (lambda df: pd.concat([df, df.iloc[[0]]], ignore_index=True), "repeating an earlier ('policy_id', 'year') pair (rows 400)"),
-])
+]
+
+
+@pytest.mark.parametrize("edit, fragment", EDITS)
 def test_each_check_names_column_count_and_rows(tmp_path, spec_file, edit, fragment):
     found = findings_for(tmp_path, spec_file, edit)
     assert any(fragment in f for f in found), found
@@ -122,3 +126,65 @@ def test_csv_chunks_and_parquet_agree(tmp_path, spec_file):
     assert a.frame.astype(str).equals(b.frame.astype(str))
     offsets = [off for off, _ in iter_book(csv, ["exposure"], chunk_rows=300)]
     assert offsets == [0, 300, 600, 900]
+
+
+def _scan(tmp_path, spec_file, df, chunk_rows):
+    p = tmp_path / "b.csv"
+    df.to_csv(p, index=False)
+    spec = load_spec(spec_file)
+    _, summary, findings = scan_book(p, spec, keep_rows=False, chunk_rows=chunk_rows)
+    return summary, [str(f) for f in findings], spec
+
+
+@pytest.mark.parametrize("edit", [e for e, _ in EDITS] + [
+    lambda df: pd.concat([df, df.iloc[[3, 150, 3]]], ignore_index=True)])
+def test_findings_do_not_depend_on_the_chunk_size(tmp_path, spec_file, edit):
+    """The book-level checks are summed chunk by chunk: chunks of 7 rows and one chunk agree."""
+    df = edit(small_book())
+    _, one, _ = _scan(tmp_path, spec_file, df, 10_000)
+    _, many, _ = _scan(tmp_path, spec_file, df, 7)
+    assert many == one
+
+
+def test_repeats_are_found_across_chunks_and_confirmed_on_the_text(tmp_path, spec_file):
+    df = pd.concat([small_book(), small_book().iloc[[3, 150, 3]]], ignore_index=True)
+    _, found, spec = _scan(tmp_path, spec_file, df, 7)
+    assert any("3 rows repeating an earlier ('policy_id', 'year') pair (rows 400, 401, 402)" in f for f in found)
+    # a key hash that collides with no repeated text is not reported: rows 5 and 9 differ
+    keys = pd.util.hash_pandas_object(df[["policy_id", "year"]].astype(str), index=False).to_numpy()
+    p = tmp_path / "b.csv"
+    assert _repeated_keys(p, spec, keys[[5, 9]]).size == 0
+    assert _repeated_keys(p, spec, keys[[3, 150]]).tolist() == [400, 401, 402]
+
+
+def test_profile_equals_a_pandas_groupby_of_the_whole_book(tmp_path, spec_file):
+    """Reference: pandas groupby over the rows, bands cut with pandas.cut (lower edge inclusive)."""
+    df = small_book(3000, seed=11)
+    summary, found, spec = _scan(tmp_path, spec_file, df, 333)
+    assert not [f for f in found if f.startswith("error")]
+    prof = profile(summary, spec)
+    bands = pd.cut(df["age"], [-np.inf, 25, 40, 60, np.inf], right=False)
+    for name, key in (("age", bands), ("region", df["region"]), ("bonus", df["bonus"])):
+        ref = df.groupby(key, observed=False)[["exposure", "claim_count", "claim_amount"]].sum()
+        np.testing.assert_allclose(prof[name][["exposure", "claims", "amount"]].to_numpy(), ref.to_numpy(),
+                                   rtol=1e-12)
+    overall = prof["(overall)"].iloc[0]
+    assert overall["frequency"] == pytest.approx(df["claim_count"].sum() / df["exposure"].sum(), rel=1e-12)
+    assert overall["severity"] == pytest.approx(df["claim_amount"].sum() / df["claim_count"].sum(), rel=1e-12)
+
+
+def test_quantile_edges_sit_just_above_numpy_weighted_quantiles():
+    """Reference: numpy.quantile(..., weights=, method="inverted_cdf") gives the smallest value whose
+    cumulative weight share reaches q; each edge is the next distinct value above it."""
+    rng = np.random.default_rng(5)
+    values = rng.integers(17, 95, 20_000).astype(float)
+    weights = rng.uniform(0.1, 1.0, values.size)
+    edges = quantile_edges(values, weights, 8)
+    uniq = np.unique(values)
+    q = np.quantile(values, np.arange(1, 8) / 8, weights=weights, method="inverted_cdf")
+    expected = np.unique(uniq[np.searchsorted(uniq, q, side="right")])
+    np.testing.assert_array_equal(edges, expected)
+    perm = rng.permutation(values.size)
+    np.testing.assert_array_equal(quantile_edges(values[perm], weights[perm], 8), edges)
+    summed = pd.Series(weights).groupby(values).sum()
+    np.testing.assert_array_equal(quantile_edges(summed.index.to_numpy(), summed.to_numpy(), 8), edges)
