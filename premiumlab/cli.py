@@ -6,6 +6,7 @@ Exit codes: 0 done; 1 a check found violations (`validate`, `audit`); 2 bad inpu
 from __future__ import annotations
 
 import functools
+import os
 import sys
 from pathlib import Path
 from typing import Annotated, Callable, Optional
@@ -52,7 +53,13 @@ def handled(fn: Callable) -> Callable:
     def wrapper(*args, **kwargs):
         from premiumlab.errors import CheckFailed, InputError
         try:
-            return fn(*args, **kwargs)
+            result = fn(*args, **kwargs)
+            sys.stdout.flush()  # a reader that has gone away (`| head`) is met here, not at exit
+            return result
+        except BrokenPipeError:
+            # the reader of stdout stopped early: say nothing more and exit as a tool ended by SIGPIPE
+            os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+            raise typer.Exit(128 + 13)
         except InputError as e:
             _fail(str(e))
         except CheckFailed as e:
