@@ -2,6 +2,9 @@
 from __future__ import annotations
 
 import hashlib
+import os
+import subprocess
+import sys
 
 import pytest
 
@@ -73,3 +76,15 @@ def test_help_on_every_command():
     for cmd in ("simulate", "validate", "fit", "demo"):
         r = run_cli(cmd, "--help")
         assert r.returncode == 0 and "Usage" in r.stdout
+
+
+def test_a_reader_that_stops_early_ends_the_command_quietly(book_file, spec_file):
+    """`premiumlab validate ... | head -1`: the shell convention for a writer ended by SIGPIPE is exit
+    128 + 13 = 141 with nothing on stderr (the reader here closes the pipe before reading anything)."""
+    proc = subprocess.Popen([sys.executable, "-m", "premiumlab", "validate", str(book_file), "--spec",
+                             str(spec_file)], stdout=subprocess.PIPE, stderr=subprocess.PIPE,
+                            env=dict(os.environ, PYTHONHASHSEED="0"))
+    proc.stdout.close()
+    err = proc.stderr.read().decode()
+    assert proc.wait(timeout=120) == 141, err
+    assert err == ""
