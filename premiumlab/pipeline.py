@@ -60,11 +60,14 @@ class Run:
 
 
 def parse_models(text: str) -> list[str]:
-    """'glm,gbm' -> ['glm', 'gbm'], refusing unknown names."""
+    """'glm,gbm' -> ['glm', 'gbm'], refusing unknown or repeated names."""
     names = [t.strip() for t in text.split(",") if t.strip()]
     bad = [n for n in names if n not in MODEL_KINDS]
     if bad or not names:
         raise InputError(f"--models: unknown model kind {', '.join(bad) or '(none)'}; use glm, gbm or glm,gbm")
+    twice = sorted({n for n in names if names.count(n) > 1})
+    if twice:
+        raise InputError(f"--models: model kind {', '.join(twice)} named more than once; use glm, gbm or glm,gbm")
     return names
 
 

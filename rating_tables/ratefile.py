@@ -33,7 +33,8 @@ def rate_file(table: RatingTable, in_path: str | os.PathLike, out_path: str | os
               row_group_rows: int = ROW_GROUP_ROWS) -> tuple[str, ...]:
     """Rate the book at `in_path` into `out_path` (columns as `rate` adds them); returns the cautions.
 
-    Errors name the input and the 0-based row counted over the whole book.
+    Errors name the input and the 0-based row counted over the whole book; a failed call removes
+    what it had written of the output. A book with no rows is refused.
     """
     source_path, target = Path(in_path), Path(out_path)
     for name, value in (("batch_rows", batch_rows), ("row_group_rows", row_group_rows)):
@@ -63,7 +64,10 @@ def rate_file(table: RatingTable, in_path: str | os.PathLike, out_path: str | os
                     out = out.append_column(name, pa.array(values, type=pa.float64()))
                 sink.write(out.replace_schema_metadata(schema.metadata))
                 rows += chunk.num_rows
+        if rows == 0:
+            raise TableError("the book has no rows", check="book")
     except TableError as e:
+        target.unlink(missing_ok=True)  # a failed call leaves no partly written output
         raise e.prefixed(str(source_path)) from None
     return table.cautions
 

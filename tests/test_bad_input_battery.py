@@ -231,6 +231,8 @@ CASES: list[tuple[str, str, int, str, Prepare | None]] = [
      policies(lambda d: d.assign(exposure=[1.0, 0.5, -1.0, 0.25, 0.1]))),
     ("rate-empty-book", "rate table empty.csv --out priced.csv", 2, "premiumlab: empty.csv: cannot be read",
      lambda f: (f / "empty.csv").write_bytes(b"")),
+    ("rate-header-only-book", "rate table policies.csv --out priced.csv", 2,
+     "premiumlab: policies.csv: the book has no rows", raw("policies.csv", lambda b: b.split(b"\n")[0] + b"\n")),
     ("rate-truncated-parquet", "rate table book.parquet --out priced.csv", 2,
      "premiumlab: book.parquet: cannot be read: Parquet magic bytes not found", make(_parquet, _truncate("book.parquet"))),
     ("rate-byte-order-mark-works", "rate table policies.csv --out priced.csv", 0, "wrote priced.csv",
@@ -241,6 +243,8 @@ CASES: list[tuple[str, str, int, str, Prepare | None]] = [
     ("usage-missing-option", "fit book.csv --out run", 2, "premiumlab: fit: Missing option '--spec'.", None),
     ("usage-unknown-option", "rate table policies.csv --out priced.csv --colour red", 2,
      "premiumlab: rate: No such option: --colour", None),
+    ("usage-model-kind-twice", "fit book.csv --spec spec.toml --out run --models glm,glm", 2,
+     "premiumlab: --models: model kind glm named more than once", None),
     ("usage-unknown-command", "frobnicate book.csv", 2, "premiumlab: No such command 'frobnicate'.", None),
     # other commands
     ("simulate-malformed-scenario", "simulate scenario.toml --out sim.csv", 2, "scenario.toml: not valid TOML",
