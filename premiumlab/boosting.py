@@ -6,6 +6,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from premiumlab.cluster import IN_PROCESS, TaskRunner
 from premiumlab.data import Book
 from premiumlab.jsonio import write_json
 from premiumlab.spec import Spec
@@ -45,9 +46,10 @@ def gbm_options(spec: Spec, glm_power: float | None):
 
 
 def fit_gbms(book: Book, spec: Spec, train: np.ndarray, glm_power: float | None, run_dir: Path,
-             preds: pd.DataFrame, progress: bool = False) -> None:
-    """Fit frequency, severity and pure-premium models on the training rows; write models, the
-    monotonicity certificate and the interaction ranking; add predictions for every row."""
+             preds: pd.DataFrame, runner: TaskRunner = IN_PROCESS) -> None:
+    """Fit frequency, severity and pure-premium models on the training rows (the search's fits on
+    `runner`); write models, the monotonicity certificate and the interaction ranking; add
+    predictions for every row."""
     from premiumlab.gbm import GbmInputs, fit_target
     features = gbm_features(book.frame, spec)
     monotone = {f.name: f.direction for f in spec.factors if f.direction != 0}
@@ -60,7 +62,7 @@ def fit_gbms(book: Book, spec: Spec, train: np.ndarray, glm_power: float | None,
     targets = ["frequency"] + (["severity", "pure_premium"] if book.claim_amount is not None else [])
     models = {}
     for target in targets:
-        model = fit_target(inputs, target, options)
+        model = fit_target(inputs, target, options, runner)
         (run_dir / "models" / f"gbm_{target}.txt").write_text(model.model_text(), encoding="utf-8")
         write_json(run_dir / "models" / f"gbm_{target}.json", model.to_json_dict())
         preds[f"gbm_{target}"] = model.predict(features)

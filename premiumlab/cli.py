@@ -40,6 +40,9 @@ app = typer.Typer(cls=_OneLineUsage, add_completion=False, no_args_is_help=True,
                        "approved under local rate regulation.")
 
 Force = Annotated[bool, typer.Option("--force", help="Replace an existing output.")]
+Cluster = Annotated[Optional[str], typer.Option(
+    "--cluster", help="Run the boosted-model search on Dask: local:N (N worker processes here) or a "
+                      "scheduler address such as tcp://host:8786. Needs the dask extra.")]
 
 
 def _fail(message: str, code: int = 2) -> None:
@@ -114,10 +117,10 @@ def fit(book: Annotated[Path, typer.Argument(help="Book (.csv, .parquet or a fol
         spec: Annotated[Path, typer.Option("--spec", help="Pricing spec TOML.")],
         out: Annotated[Path, typer.Option("--out", help="Run directory to write.")],
         models: Annotated[str, typer.Option(help="Model kinds, comma separated: glm, gbm.")] = "glm,gbm",
-        force: Force = False) -> None:
+        cluster: Cluster = None, force: Force = False) -> None:
     """Fit GLM baselines and boosted models on the training part; write the run directory."""
     from premiumlab.pipeline import fit as fit_run
-    run = fit_run(book, spec, out, models=models, force=force, progress=sys.stderr.isatty())
+    run = fit_run(book, spec, out, models=models, force=force, progress=sys.stderr.isatty(), cluster=cluster)
     typer.echo(f"wrote {run}")
 
 
@@ -269,10 +272,10 @@ def report(run: Annotated[Path, typer.Argument(help="Run directory written by `f
 @handled
 def demo(out: Annotated[Path, typer.Option("--out", help="Folder for the demo outputs.")] = Path("demo-output"),
          policies: Annotated[Optional[int], typer.Option(help="Policies in the demo book.")] = None,
-         force: Force = False) -> None:
+         cluster: Cluster = None, force: Force = False) -> None:
     """Run the whole job on the built-in motor scenario."""
     from premiumlab.demo import run_demo
-    run_demo(out, policies=policies, force=force, echo=typer.echo)
+    run_demo(out, policies=policies, force=force, echo=typer.echo, cluster=cluster)
 
 
 def main() -> None:  # pragma: no cover - console entry point

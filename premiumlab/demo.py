@@ -12,6 +12,7 @@ from importlib import resources
 from pathlib import Path
 from typing import Callable
 
+from premiumlab.cluster import parse_cluster
 from premiumlab.outputs import check_target
 
 SCENARIO = "motor"
@@ -32,7 +33,7 @@ def scenario_file(name: str) -> Path:
 
 
 def run_demo(out: str | Path, policies: int | None = None, force: bool = False,
-             echo: Callable[[str], None] = print) -> Path:
+             echo: Callable[[str], None] = print, cluster: str | None = None) -> Path:
     """Simulate the motor book, then fit, compare, tabulate, audit, rate and measure the impact."""
     from premiumlab.comparison import compare, summary_lines
     from premiumlab.jsonio import write_json
@@ -45,13 +46,15 @@ def run_demo(out: str | Path, policies: int | None = None, force: bool = False,
 
     out = Path(out)
     check_target(out, force)
+    if cluster is not None:
+        parse_cluster(cluster)
     with atomic_output(out, force=force) as tmp:
         book, spec = tmp / "book.parquet", tmp / "spec.toml"
         spec.write_text(scenario_file(f"{SCENARIO}_spec.toml").read_text(encoding="utf-8") + DEMO_SEARCH,
                         encoding="utf-8")
         sim = simulate(scenario_file(f"{SCENARIO}.toml"), book, policies=policies)
         echo(f"[1/7] simulated {sim['policies']} policies ({sim['rows']} rows) of an invented motor book")
-        run = fit(book, spec, tmp / "run", progress=True)
+        run = fit(book, spec, tmp / "run", progress=True, cluster=cluster)
         echo("[2/7] fitted GLM baselines and boosted models")
         echo("\n".join(summary_lines(compare(run))))
         echo("[3/7] compared on the holdout")

@@ -34,6 +34,7 @@ import pandas as pd
 
 from premiumlab.cautions import DRAFT
 from premiumlab.certificate import certify
+from premiumlab.cluster import IN_PROCESS, TaskRunner
 from premiumlab.errors import InputError
 from premiumlab.jsonio import read_json
 from premiumlab.metrics import mean_deviance
@@ -418,28 +419,47 @@ def _fold_fit(full: lgb.Dataset, data: TrainingData, setting: dict, train_rows: 
     return float(booster.best_score["fold"]["deviance"]), int(booster.best_iteration or options.max_rounds)
 
 
-def cross_validate(data: TrainingData, settings: list[dict], options: GbmOptions) -> list[dict]:
+#: The last training data seen by `_fold_task` in this process, with its constructed Dataset and folds.
+_CONSTRUCTED: list = []
+
+
+def _constructed(data: TrainingData, options: GbmOptions) -> tuple[lgb.Dataset, np.ndarray]:
+    """The Dataset binned on all of `data` and each row's fold, built once per process and data."""
+    if not _CONSTRUCTED or _CONSTRUCTED[0] is not data:
+        _CONSTRUCTED[:] = [data, data.dataset().construct(), fold_of_group(data.groups, options.folds, options.seed)]
+    return _CONSTRUCTED[1], _CONSTRUCTED[2]
+
+
+def _fold_task(job: tuple[TrainingData, GbmOptions], task: tuple[dict, int]) -> tuple[float, int]:
+    """One task of the search, run here or on a Dask worker: setting `task[0]` on fold `task[1]`."""
+    data, options = job
+    setting, k = task
+    full, fold = _constructed(data, options)
+    return _fold_fit(full, data, setting, np.flatnonzero(fold != k), np.flatnonzero(fold == k), options)
+
+
+def cross_validate(data: TrainingData, settings: list[dict], options: GbmOptions,
+                   runner: TaskRunner = IN_PROCESS) -> list[dict]:
     """One CV row per setting: fold deviances at each fold's best round, their mean and sample
-    standard deviation, the folds' best rounds and their rounded mean (`rounds`)."""
+    standard deviation, the folds' best rounds and their rounded mean (`rounds`). The settings x
+    folds fits are independent tasks for `runner` (premiumlab.cluster)."""
     fold = fold_of_group(data.groups, options.folds, options.seed)
     empty = [k for k in range(options.folds) if not (fold == k).any()]
     if empty:
         raise InputError(f"gbm folds: fold {empty[0]} of {options.folds} holds no {data.target} rows; "
                          "use fewer folds")
-    full = data.dataset().construct()
-    splits = [(np.flatnonzero(fold != k), np.flatnonzero(fold == k)) for k in range(options.folds)]
+    tasks = [(setting, k) for setting in settings for k in range(options.folds)]
+    with _progress(f"cross-validating the {data.target} model", len(tasks)) as advance:
+        results = runner.map(_fold_task, (data, options), tasks, advance)
+    _CONSTRUCTED.clear()
     table = []
-    with _progress(f"cross-validating the {data.target} model", len(settings) * options.folds) as advance:
-        for setting in settings:
-            results = []
-            for train_rows, valid_rows in splits:
-                results.append(_fold_fit(full, data, setting, train_rows, valid_rows, options))
-                advance()
-            deviances, rounds = [r[0] for r in results], [r[1] for r in results]
-            table.append({"setting": setting, "mean_deviance": float(np.mean(deviances)),
-                          "sd_deviance": float(np.std(deviances, ddof=1)),
-                          "rounds": max(1, int(round(float(np.mean(rounds))))),
-                          "fold_deviances": deviances, "fold_rounds": rounds})
+    for i, setting in enumerate(settings):
+        mine = results[i * options.folds:(i + 1) * options.folds]
+        deviances, rounds = [r[0] for r in mine], [r[1] for r in mine]
+        table.append({"setting": setting, "mean_deviance": float(np.mean(deviances)),
+                      "sd_deviance": float(np.std(deviances, ddof=1)),
+                      "rounds": max(1, int(round(float(np.mean(rounds))))),
+                      "fold_deviances": deviances, "fold_rounds": rounds})
     return table
 
 
@@ -479,9 +499,9 @@ def fit_final(data: TrainingData, setting: dict, rounds: int, cv_table: list[dic
                     monotone=dict(data.monotone), training_rows=len(data.label))
 
 
-def _tuned_fit(data: TrainingData, options: GbmOptions) -> GbmModel:
+def _tuned_fit(data: TrainingData, options: GbmOptions, runner: TaskRunner) -> GbmModel:
     settings = _select_settings(options)
-    table = cross_validate(data, settings, options)
+    table = cross_validate(data, settings, options, runner)
     chosen = int(np.argmin([row["mean_deviance"] for row in table]))
     return fit_final(data, settings[chosen], table[chosen]["rounds"], table, chosen)
 
@@ -495,22 +515,24 @@ def uncertified_factors(model: GbmModel) -> list[str]:
             if certify(text, name, direction)["violation_count"] > 0]
 
 
-def fit_target(inputs: GbmInputs, target: str, options: GbmOptions = GbmOptions()) -> GbmModel:
-    """Tune by grouped K-fold CV, then refit the chosen setting on the whole training part.
+def fit_target(inputs: GbmInputs, target: str, options: GbmOptions = GbmOptions(),
+               runner: TaskRunner = IN_PROCESS) -> GbmModel:
+    """Tune by grouped K-fold CV (the fits run on `runner`), then refit the chosen setting on the
+    whole training part here.
 
     A constrained model is certified (premiumlab.certificate). If a promise is broken (LightGBM
     4.7's advanced method does so when another feature has missing values), the whole tuning is
     redone with the next simpler constraint method (advanced -> intermediate -> basic), and
     `constraint_notes` says so.
     """
-    model = _tuned_fit(prepare_training(inputs, target, options), options)
+    model = _tuned_fit(prepare_training(inputs, target, options), options, runner)
     notes: list[str] = []
     while (broken := uncertified_factors(model)) and options.monotone_method in SIMPLER_METHOD:
         simpler = SIMPLER_METHOD[options.monotone_method]
         notes.append(f"the {options.monotone_method} constraint method broke the promise on "
                      f"{', '.join(broken)} (certificate); refitted with the {simpler} method")
         options = replace(options, monotone_method=simpler)
-        model = _tuned_fit(prepare_training(inputs, target, options), options)
+        model = _tuned_fit(prepare_training(inputs, target, options), options, runner)
     model.constraint_notes = notes
     return model
 

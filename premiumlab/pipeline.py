@@ -19,6 +19,7 @@ import numpy as np
 import pandas as pd
 
 from premiumlab.cautions import cautions_for
+from premiumlab.cluster import TaskRunner, parse_cluster, tasks_on
 from premiumlab.data import Book, Levels, categorise, factor_levels, load_book
 from premiumlab.errors import InputError
 from premiumlab.experience import latest_period_holdout, read_text_column
@@ -102,12 +103,24 @@ def glm_inputs(book: Book, cats: pd.DataFrame, levels: dict[str, Levels], rows: 
 
 
 def fit(book_path: str | Path, spec_path: str | Path, out: str | Path, models: str = "glm,gbm",
-        force: bool = False, progress: bool = False) -> Path:
-    """Fit the requested models on the training part of the book and write the run directory."""
+        force: bool = False, progress: bool = False, cluster: str | None = None) -> Path:
+    """Fit the requested models on the training part of the book and write the run directory.
+
+    `cluster`: where the boosted-model search runs (premiumlab.cluster: None for this process,
+    local:N or a Dask scheduler address)."""
     kinds = parse_models(models)
+    if cluster is not None:
+        parse_cluster(cluster)
     spec = load_spec(spec_path)
     out = Path(out)
     check_target(out, force, inputs=(book_path, spec_path))
+    with tasks_on(cluster if "gbm" in kinds else None) as runner:  # reached before any work is done
+        return _fit_run(book_path, spec_path, spec, out, kinds, force, progress, runner)
+
+
+def _fit_run(book_path: str | Path, spec_path: str | Path, spec: Spec, out: Path, kinds: list[str], force: bool,
+             progress: bool, runner: TaskRunner) -> Path:
+    """`fit` once its inputs are checked and the boosted-model search's `runner` is ready."""
     timings: dict[str, float] = {}
     t0 = time.perf_counter()
     book = load_book(book_path, spec)
@@ -158,7 +171,7 @@ def fit(book_path: str | Path, spec_path: str | Path, out: str | Path, models: s
         if "gbm" in kinds:
             from premiumlab.boosting import fit_gbms
             t = time.perf_counter()
-            fit_gbms(book, spec, train, glm_power, tmp, preds, progress=progress)
+            fit_gbms(book, spec, train, glm_power, tmp, preds, runner)
             timings["gbm_seconds"] = time.perf_counter() - t
         preds.to_parquet(tmp / "predictions.parquet", index=False)
         if book.holdout.any():
@@ -174,6 +187,7 @@ def fit(book_path: str | Path, spec_path: str | Path, out: str | Path, models: s
                      "sha256": book.sha256},
             "rows": {"total": book.n_rows, "train": int(train.sum()), "holdout": int(book.holdout.sum())},
             "seed": spec.split.seed, "threads": spec.gbm.threads, "models": kinds,
+            **({"gbm_search_ran_on": runner.description} if "gbm" in kinds else {}),
             "warnings": [str(w) for w in book.warnings],
             "versions": _versions(), "timings": timings,
             "cautions": cautions_for(spec),

@@ -245,6 +245,8 @@ CASES: list[tuple[str, str, int, str, Prepare | None]] = [
      "premiumlab: rate: No such option: --colour", None),
     ("usage-model-kind-twice", "fit book.csv --spec spec.toml --out run --models glm,glm", 2,
      "premiumlab: --models: model kind glm named more than once", None),
+    ("usage-bad-cluster-address", "fit book.csv --spec spec.toml --out run --cluster myhost:8786", 2,
+     "premiumlab: --cluster: 'myhost:8786': give local:N", None),
     ("usage-unknown-command", "frobnicate book.csv", 2, "premiumlab: No such command 'frobnicate'.", None),
     # other commands
     ("simulate-malformed-scenario", "simulate scenario.toml --out sim.csv", 2, "scenario.toml: not valid TOML",

@@ -1,0 +1,75 @@
+"""The boosted-model search on a Dask cluster gives the same models as in one process.
+
+Reference: LightGBM's own guarantee that `deterministic=True` with the same data, parameters and
+`num_threads` gives the same model; the search's tasks carry all three, so the model text, the CV
+table and the predictions must be identical wherever the tasks run. The cluster is a Dask
+LocalCluster of two worker processes (the `distributed` package); the book is invented.
+"""
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pytest
+
+from premiumlab.cluster import IN_PROCESS, parse_cluster, tasks_on
+from premiumlab.errors import InputError
+from premiumlab.gbm import fit_target
+
+from conftest import SPEC_TEXT, run_cli, small_book
+from test_gbm import OPTIONS, invented_book
+
+
+
+def test_a_local_dask_cluster_gives_the_same_models_as_one_process():
+    features, inputs = invented_book(2000, seed=11)
+    here = {t: fit_target(inputs, t, OPTIONS) for t in ("frequency", "pure_premium")}
+    with tasks_on("local:2") as runner:
+        assert runner.description == "a local Dask cluster of 2 worker processes"
+        there = {t: fit_target(inputs, t, OPTIONS, runner) for t in ("frequency", "pure_premium")}
+    for target in here:
+        assert there[target].model_text() == here[target].model_text()
+        assert json.dumps(there[target].cv_table) == json.dumps(here[target].cv_table)
+        np.testing.assert_array_equal(there[target].predict(features), here[target].predict(features))
+    assert len(here["frequency"].cv_table) == 2 and len(here["frequency"].cv_table[0]["fold_deviances"]) == 3
+
+
+def test_fit_on_a_cluster_writes_the_same_model_files(tmp_path):
+    """Through the command line: `fit --cluster local:2` and `fit` give byte-identical model files."""
+    spec = tmp_path / "spec.toml"
+    spec.write_text(SPEC_TEXT + "\n[gbm]\nthreads = 1\nfolds = 3\nmax_settings = 2\nmax_rounds = 200\n")
+    small_book(3000, seed=5).to_csv(tmp_path / "book.csv", index=False)
+    for name, extra in (("here", ()), ("there", ("--cluster", "local:2"))):
+        r = run_cli("fit", str(tmp_path / "book.csv"), "--spec", str(spec), "--out", str(tmp_path / name),
+                    "--models", "gbm", *extra)
+        assert r.returncode == 0, r.stderr
+    for target in ("frequency", "severity", "pure_premium"):
+        name = f"models/gbm_{target}.txt"
+        assert (tmp_path / "there" / name).read_bytes() == (tmp_path / "here" / name).read_bytes()
+    run = json.loads((tmp_path / "there" / "run.json").read_text())
+    assert run["gbm_search_ran_on"] == "a local Dask cluster of 2 worker processes"
+    assert json.loads((tmp_path / "here" / "run.json").read_text())["gbm_search_ran_on"] == "this process"
+
+
+@pytest.mark.parametrize("address, fragment", [
+    ("local:0", "give local:N with N >= 1"),
+    ("local:two", "give local:N with N >= 1"),
+    ("myhost:8786", "give local:N (N worker processes on this machine) or a Dask scheduler address"),
+])
+def test_bad_cluster_addresses_are_refused(address, fragment):
+    with pytest.raises(InputError, match=fragment.replace("(", r"\(").replace(")", r"\)")):
+        parse_cluster(address)
+
+
+def test_an_unreachable_scheduler_is_one_clear_error(tmp_path, monkeypatch):
+    import premiumlab.cluster as cluster
+    monkeypatch.setattr(cluster, "CONNECT_TIMEOUT", 2)
+    with pytest.raises(InputError, match="cannot reach the Dask scheduler at tcp://127.0.0.1:9"):
+        with tasks_on("tcp://127.0.0.1:9"):
+            pass
+
+
+def test_in_process_runs_tasks_in_order():
+    seen = []
+    assert IN_PROCESS.map(lambda shared, item: shared + item, 10, [1, 2, 3], lambda: seen.append(1)) == [11, 12, 13]
+    assert len(seen) == 3
