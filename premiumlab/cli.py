@@ -193,15 +193,13 @@ def impact(book: Annotated[Path, typer.Argument(help="Book of policies (no claim
            thresholds: Annotated[str, typer.Option(help="Increases to count, comma separated "
                                                         "(0.1 = 10 %).")] = "0.05,0.10,0.25",
            out: Annotated[Optional[Path], typer.Option("--out", help="Also write the summary as JSON.")] = None,
+           figure: Annotated[Optional[Path], typer.Option("--figure", help="Also write the dislocation "
+                                                                           "figure (.png).")] = None,
            force: Force = False) -> None:
     """Premium dislocation from the current to the proposed rates, optionally capped."""
-    from premiumlab.rating import dislocation, impact_lines, parse_thresholds
+    from premiumlab.rating import dislocation, impact_lines, parse_thresholds, write_impact
     result = dislocation(current, str(proposed), book, exposure, annual, cap, parse_thresholds(thresholds))
-    if out is not None:
-        from premiumlab.jsonio import write_json
-        from premiumlab.outputs import atomic_files
-        with atomic_files([out], force=force, inputs=(book, proposed, current)) as tmp:
-            write_json(tmp / out.name, result)
+    write_impact(result, out, figure, force, inputs=(book, proposed, current))
     typer.echo("\n".join(impact_lines(result)))
     _echo_cautions(result["cautions"])
 

@@ -3,8 +3,8 @@
 DIR/book.parquet and truth.json (simulated), spec.toml (the scenario's spec with a lighter
 boosted-model search), run/ (models, comparison, figures,
 report.html), table/ (distilled from the boosted model, with its two-way table), glm_table/ (the
-GLM's relativities), priced.parquet (the book rated with table/), impact.json (dislocation from
-the GLM table to the distilled one).
+GLM's relativities), priced.parquet (the book rated with table/), impact.json and impact.png (dislocation
+from the GLM table to the distilled one).
 """
 from __future__ import annotations
 
@@ -36,6 +36,7 @@ def run_demo(out: str | Path, policies: int | None = None, force: bool = False,
              echo: Callable[[str], None] = print, cluster: str | None = None) -> Path:
     """Simulate the motor book, then fit, compare, tabulate, audit, rate and measure the impact."""
     from premiumlab.comparison import compare, summary_lines
+    from premiumlab.figures import plot_impact
     from premiumlab.jsonio import write_json
     from premiumlab.outputs import atomic_output
     from premiumlab.pipeline import fit
@@ -69,9 +70,11 @@ def run_demo(out: str | Path, policies: int | None = None, force: bool = False,
         result = dislocation(str(tmp / "glm_table"), str(tmp / "table"), book, "exposure", False, 0.15,
                              (0.05, 0.10, 0.25))
         write_json(tmp / "impact.json", result)
+        plot_impact(result, tmp / "impact.png")
         echo("\n".join(impact_lines(result)))
         write_report(run)
-        echo("[7/7] impact of moving from the GLM table written to impact.json; report in run/report.html")
+        echo("[7/7] impact of moving from the GLM table written to impact.json and impact.png; report in "
+             "run/report.html")
         for c in summary["cautions"]:
             echo(f"caution: {c}")
     echo(f"demo written to {out}")

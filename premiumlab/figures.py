@@ -1,8 +1,8 @@
-"""Comparison figures as PNG files: lift, double lift, ordered Lorenz curves, actual-versus-expected
-by factor level and the cross-validation curve.
+"""Figures as PNG files: lift, double lift, ordered Lorenz curves, actual-versus-expected by factor
+level, the cross-validation curve, and the dislocation of a rate change.
 
 Each function takes tables already computed by `premiumlab.metrics` (or the CV table of the boosted
-model) and an output path, draws with matplotlib's Agg canvas (imported lazily, no pyplot and so no
+model, or an impact result) and an output path, draws with matplotlib's Agg canvas (imported lazily, no pyplot and so no
 global state) and returns the path. Every figure carries the review caution as a footer.
 """
 from __future__ import annotations
@@ -207,4 +207,47 @@ def plot_cv_curve(
     ax.set_title("Cross-validation: deviance against complexity", fontsize=11)
     ax.legend(frameon=False, fontsize=8)
     _plain(ax)
+    return _save(fig, path)
+
+
+def plot_impact(result: Mapping[str, object], path: str | Path, *, factor: str | None = None) -> Path:
+    """Left: share of policies and of current premium in each change band; right: the
+    premium-weighted mean change (sum proposed / sum current - 1) by level of `factor`, by default
+    the factor whose levels' changes spread widest (`result` from `rating_tables.impact`)."""
+    bands = pd.DataFrame(result["bands"])
+    _require_columns(bands, ["band", "count_share", "premium_share"], "impact bands")
+    by_factor = {name: pd.DataFrame(levels) for name, levels in result["by_factor"].items() if levels}
+    if factor is None and by_factor:
+        factor = max(by_factor, key=lambda name: np.ptp(by_factor[name]["change"].to_numpy()))
+    if factor is not None and factor not in by_factor:
+        raise InputError(f"plot_impact: factor '{factor}' is not in the impact result")
+    fig = _new_figure(width=11.0 if factor else 6.5, height=4.8)
+    axes = fig.subplots(1, 2 if factor else 1, squeeze=False)[0]
+    positions = np.arange(len(bands))
+    ax = axes[0]
+    ax.bar(positions - 0.2, bands["count_share"], width=0.4, color=_colour(0), label="policies")
+    ax.bar(positions + 0.2, bands["premium_share"], width=0.4, color=_BAR_COLOUR, label="current premium")
+    ax.set_xticks(positions)
+    ax.set_xticklabels(bands["band"], rotation=40, ha="right", fontsize=8)
+    ax.set_xlabel("change of premium, proposed / current - 1")
+    ax.set_ylabel("share")
+    ax.set_title(f"Dislocation: {result['policies']:,} policies, overall {result['overall_change']:+.2%}",
+                 fontsize=11)
+    ax.legend(frameon=False, fontsize=8)
+    _plain(ax)
+    if factor:
+        levels = by_factor[factor]
+        ax = axes[1]
+        spots = np.arange(len(levels))
+        ax.axhline(0.0, color="#999999", linewidth=0.8)
+        ax.bar(spots, levels["change"], width=0.7,
+               color=[_colour(1) if c > 0 else _colour(0) for c in levels["change"]])
+        ax.set_xticks(spots)
+        long_labels = len(levels) > 8 or max(len(str(v)) for v in levels["level"]) > 6
+        ax.set_xticklabels([str(v) for v in levels["level"]], rotation=45 if long_labels else 0,
+                           ha="right" if long_labels else "center", fontsize=8)
+        ax.set_xlabel(factor)
+        ax.set_ylabel("premium-weighted mean change")
+        ax.set_title(f"Mean change by {factor}", fontsize=11)
+        _plain(ax)
     return _save(fig, path)

@@ -58,11 +58,53 @@ def dislocation(current: str, proposed: str, book: str | Path, exposure: str | N
         raise InputError(f"--proposed {proposed}: the proposed premium must come from a table folder")
     frame = read_frame(book)
     table = rating_tables.load(proposed)
+    tables = [table] + ([] if current.startswith(COLUMN_PREFIX) else [rating_tables.load(current)])
+    groups = impact_groups(frame, tables)
     result = rating_tables.impact(premiums_from(current, frame, exposure, annual),
-                                  premiums_from(proposed, frame, exposure, annual), frame,
-                                  [f.name for f in table.main_factors], thresholds=thresholds, cap=cap)
+                                  premiums_from(proposed, frame, exposure, annual), groups,
+                                  list(groups.columns), thresholds=thresholds, cap=cap)
     result["cautions"] = list(table.cautions)
     return result
+
+
+def impact_groups(frame: pd.DataFrame, tables: list) -> pd.DataFrame:
+    """The factor columns the impact is broken down by: every main factor of the tables (the
+    proposed first, so a factor the proposed table drops is still shown), a numeric factor cut into
+    the bands of the first table that has it, a categorical factor as it is."""
+    from rating_tables.table import NumericFactor, band_index
+    columns = {}
+    for table in tables:
+        for f in table.main_factors:
+            if f.name in columns:
+                continue
+            if isinstance(f, NumericFactor):
+                values = pd.to_numeric(frame[f.name], errors="coerce").to_numpy(float)
+                columns[f.name] = pd.Categorical.from_codes(band_index(f.lower, values), categories=f.labels(),
+                                                            ordered=True)
+            else:
+                columns[f.name] = frame[f.name].to_numpy()
+    return pd.DataFrame(columns)
+
+
+def write_impact(result: dict, out: Path | None, figure: Path | None, force: bool,
+                 inputs: tuple[str | Path, ...]) -> None:
+    """Write the impact summary as JSON to `out` and its figure (`figures.plot_impact`) to `figure`,
+    both or neither."""
+    from premiumlab.figures import plot_impact
+    from premiumlab.jsonio import write_json
+    from premiumlab.outputs import atomic_files
+    targets = [t for t in (out, figure) if t is not None]
+    if not targets:
+        return
+    if figure is not None and figure.suffix.lower() != ".png":
+        raise InputError(f"{figure}: the figure must be a .png file")
+    if out is not None and figure is not None and out.name == figure.name:
+        raise InputError(f"{figure}: give the figure and the JSON summary different names")
+    with atomic_files(targets, force=force, inputs=inputs) as tmp:
+        if out is not None:
+            write_json(tmp / out.name, result)
+        if figure is not None:
+            plot_impact(result, tmp / figure.name)
 
 
 def parse_thresholds(text: str) -> tuple[float, ...]:

@@ -1,13 +1,17 @@
 """Premium dislocation on a hand-checked book, and the capping correction at its fixed point."""
 from __future__ import annotations
 
+import dataclasses
 import json
 
 import numpy as np
 import pandas as pd
 import pytest
 
+import rating_tables
+from conftest import run_cli
 from rating_tables import TableError, cap_premiums, impact
+from test_rater import example_book, example_table
 
 CURRENT = np.array([100.0, 100.0, 100.0, 200.0, 50.0, 100.0, 100.0])
 PROPOSED = np.array([130.0, 95.0, 104.0, 150.0, 80.0, 105.0, 88.0])
@@ -97,3 +101,39 @@ def test_unreachable_correction_and_bad_input():
         impact(CURRENT[:3], PROPOSED, BOOK, [])
     with pytest.raises(TableError, match="the book has no column 'zone'"):
         impact(CURRENT, PROPOSED, BOOK, ["zone"])
+
+
+def test_the_impact_command_breaks_numeric_factors_down_by_band_and_draws_the_figure(tmp_path):
+    """Through the command line on the hand-made table of tests/test_rater.py and a current table
+    that drops `bonus` (so the proposed one adds it) and moves every age band's relativity: the age
+    breakdown is by the proposed table's bands, `bonus` appears as a proposed factor, each premium
+    sum equals the sum of that band's rated premiums, and --figure writes a PNG."""
+    proposed = example_table()
+    age, region, _, cross = proposed.factors
+    current = dataclasses.replace(proposed, factors=(dataclasses.replace(age, relativity=[1.2, 1.0, 1.5]),
+                                                     region, cross))
+    rating_tables.save(proposed, tmp_path / "proposed")
+    rating_tables.save(current, tmp_path / "current")
+    book = pd.concat([example_book()] * 3, ignore_index=True).assign(age=[22, 45, 70, 27, 35, 18, 24, 25, 59, 60,
+                                                                        61, 90, 33, 44, 55])
+    book.to_csv(tmp_path / "book.csv", index=False)
+    r = run_cli("impact", str(tmp_path / "book.csv"), "--current", str(tmp_path / "current"), "--proposed",
+                str(tmp_path / "proposed"), "--out", str(tmp_path / "impact.json"), "--figure",
+                str(tmp_path / "impact.png"))
+    assert r.returncode == 0, r.stderr
+    out = json.loads((tmp_path / "impact.json").read_text())
+    assert list(out["by_factor"]) == ["age", "region", "bonus"]
+    assert [level["level"] for level in out["by_factor"]["age"]] == ["[-inf, 25)", "[25, 60)", "[60, inf)"]
+    priced_now = rating_tables.rate(current, book, "exposure")["gross_premium"].to_numpy()
+    priced_new = rating_tables.rate(proposed, book, "exposure")["gross_premium"].to_numpy()
+    band = np.searchsorted([25, 60], book["age"].to_numpy(), side="right")
+    for i, level in enumerate(out["by_factor"]["age"]):
+        assert level["count"] == int((band == i).sum())
+        assert level["current_premium"] == pytest.approx(priced_now[band == i].sum(), rel=1e-12)
+        assert level["proposed_premium"] == pytest.approx(priced_new[band == i].sum(), rel=1e-12)
+    png = (tmp_path / "impact.png").read_bytes()
+    assert png[:8] == b"\x89PNG\r\n\x1a\n" and len(png) > 20_000
+    r = run_cli("impact", str(tmp_path / "book.csv"), "--current", str(tmp_path / "current"), "--proposed",
+                str(tmp_path / "proposed"), "--figure", str(tmp_path / "impact.jpg"))
+    assert r.returncode == 2 and "impact.jpg: the figure must be a .png file" in r.stderr
+    assert not (tmp_path / "impact.jpg").exists()
