@@ -1,0 +1,27 @@
+"""The README's demo command, end to end on a small invented book (4,000 policies of the motor scenario)."""
+from __future__ import annotations
+
+import json
+
+from conftest import run_cli
+
+OUTPUTS = ("book.parquet", "truth.json", "spec.toml", "run/run.json", "run/report.html", "run/comparison.json",
+           "table/table.json", "glm_table/table.json", "priced.parquet", "impact.json", "impact.png")
+
+
+def test_demo_writes_every_output_with_its_cautions(tmp_path):
+    out = tmp_path / "demo-output"
+    r = run_cli("demo", "--out", str(out), "--policies", "4000")
+    assert r.returncode == 0, r.stderr[-3000:]
+    for name in OUTPUTS:
+        assert (out / name).is_file(), name
+    assert [line[:5] for line in r.stdout.splitlines() if line.startswith("[")] == [
+        f"[{i}/7]" for i in range(1, 8)]
+    assert "caution: Draft for review by a qualified actuary" in r.stdout
+    assert "folds = 3\nmax_settings = 4" in (out / "spec.toml").read_text()
+    run = json.loads((out / "run" / "run.json").read_text())
+    assert run["rows"]["total"] > 4000 and run["gbm_search_ran_on"] == "this process"
+    assert (out / "impact.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    assert json.loads((out / "impact.json").read_text())["policies"] == run["rows"]["total"]
+    again = run_cli("demo", "--out", str(out), "--policies", "4000")
+    assert again.returncode == 2 and "already exists; use --force" in again.stderr
