@@ -3,8 +3,9 @@
 The temporary folder is `.NAME.tmp-PID` beside the target; folders of processes that no longer run
 are swept at the next start. With `force`, an existing target is first moved aside to
 `.NAME.old-PID` and removed only after the new output is in place (a process stopped between the
-two moves leaves the old output aside: the sweep puts it back). A target that is or holds one of
-the command's inputs is refused, so that `--force` cannot destroy an input.
+two moves leaves the old output aside: the sweep puts it back). Without `force`, a target that
+another process created while the command ran is not replaced either. A target that is or holds
+one of the command's inputs is refused, so that `--force` cannot destroy an input.
 """
 from __future__ import annotations
 
@@ -77,6 +78,11 @@ def _name_the_target(error: BaseException, tmp: Path, target: Path) -> None:
         error.args = (error.args[0].replace(str(tmp), str(target)),)
 
 
+def _appeared(target: Path) -> InputError:
+    return InputError(f"{target}: was created by another process while this command ran; nothing was "
+                      "replaced (use --force to replace it)")
+
+
 @contextmanager
 def atomic_output(target: str | Path, force: bool = False, kind: str = "dir",
                   inputs: tuple[str | Path, ...] = ()) -> Iterator[Path]:
@@ -101,6 +107,9 @@ def atomic_output(target: str | Path, force: bool = False, kind: str = "dir",
         else:
             tmp.unlink(missing_ok=True)
         raise
+    if not force and (target.exists() or target.is_symlink()):
+        shutil.rmtree(tmp, ignore_errors=True) if tmp.is_dir() else tmp.unlink(missing_ok=True)
+        raise _appeared(target)
     old = None
     if target.exists() or target.is_symlink():
         old = parent / f".{target.name}.old-{os.getpid()}"
@@ -133,6 +142,8 @@ def atomic_files(targets: list[Path], force: bool = False,
         for t in targets:
             if not (tmp / t.name).exists():
                 raise InputError(f"{t}: was not written")
+            if not force and (t.exists() or t.is_symlink()):
+                raise _appeared(t)
         for t in targets:
             os.replace(tmp / t.name, t)
     except BaseException as error:

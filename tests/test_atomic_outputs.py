@@ -124,3 +124,24 @@ def test_atomic_files_name_the_target_not_the_temporary_path(tmp_path):
     with pytest.raises(InputError, match="is or holds the input"):
         with atomic_files([tmp_path / "book.csv"], force=True, inputs=(tmp_path / "book.csv",)):
             pass
+
+
+def test_an_output_another_process_created_meanwhile_is_not_replaced_without_force(tmp_path):
+    """Two commands writing the same target at once: the later one to finish leaves the earlier
+    one's output in place (without --force), removes its own temporary output and says so."""
+    target = tmp_path / "run"
+    with pytest.raises(InputError, match="run: was created by another process while this command ran"):
+        with atomic_output(target) as tmp:
+            (tmp / "mine.txt").write_text("later")
+            target.mkdir()
+            (target / "theirs.txt").write_text("earlier")
+    assert sorted(p.name for p in target.iterdir()) == ["theirs.txt"] and _leftovers(tmp_path) == []
+    priced = tmp_path / "priced.csv"
+    with pytest.raises(InputError, match="priced.csv: was created by another process"):
+        with atomic_files([priced]) as tmp:
+            (tmp / "priced.csv").write_text("later")
+            priced.write_text("earlier")
+    assert priced.read_text() == "earlier" and _leftovers(tmp_path) == []
+    with atomic_output(target, force=True) as tmp:  # with force the later one replaces it, as asked
+        (tmp / "mine.txt").write_text("later")
+    assert sorted(p.name for p in target.iterdir()) == ["mine.txt"]
