@@ -13,7 +13,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from premiumlab.bands import banded, quantile_edges
+from premiumlab.bands import assign_bands, banded, quantile_edges
 from premiumlab.errors import InputError
 from premiumlab.spec import Factor, Spec
 
@@ -305,9 +305,13 @@ class LevelSums:
     def merged(self, values: np.ndarray, sums: np.ndarray) -> "LevelSums":
         """These sums plus those of more distinct `values` (which may repeat ours)."""
         uniq, inv = _sorted_codes(np.concatenate([self.values, values]))
-        both = np.concatenate([self.sums, sums])
-        return LevelSums(uniq, np.column_stack([np.bincount(inv, weights=both[:, j], minlength=len(uniq))
-                                                for j in range(both.shape[1])]))
+        return LevelSums(uniq, _sums_by(inv, np.concatenate([self.sums, sums]), len(uniq)))
+
+
+def _sums_by(codes: np.ndarray, weights: np.ndarray, k: int) -> np.ndarray:
+    """Column sums of `weights` (rows x columns) per code 0..k-1: shape (k, columns)."""
+    return np.column_stack([np.bincount(codes, weights=weights[:, j], minlength=k)
+                            for j in range(weights.shape[1])])
 
 
 @dataclass
@@ -328,17 +332,21 @@ def _finite(x: np.ndarray | None, n: int) -> np.ndarray:
 
 
 class _Tally:
-    """Accumulates, chunk by chunk: sums per distinct level, the distinct level pairs of every two
-    factors while they could still be identical up to relabelling, and 64-bit hashes of the
-    (policy, period) keys seen so far (8 bytes a row; repeats are confirmed exactly at the end)."""
+    """Accumulates, chunk by chunk: sums per distinct level (per band for a numeric factor with
+    `bands`, each band keyed by its lower edge, -inf for the first), the smallest and largest value
+    of each numeric factor, the distinct level pairs of every two factors while they could still be
+    identical up to relabelling, and 64-bit hashes of the (policy, period) keys seen so far (8 bytes
+    a row; repeats are confirmed exactly at the end). What grows with the book: the key hashes, and
+    the distinct values (40 bytes each) of a numeric factor without `bands`, kept for its exposure
+    quantiles."""
 
     def __init__(self, spec: Spec) -> None:
         self.spec = spec
         self.totals = np.zeros(len(SUMS))
         self.has_amount = spec.columns.claim_amount is not None
-        self.levels: dict[str, LevelSums] = {
-            f.name: LevelSums(np.array([], dtype=float if f.type == "numeric" else object),
-                              np.zeros((0, len(SUMS)))) for f in spec.factors}
+        self.levels: dict[str, LevelSums] = {f.name: _no_sums(f) for f in spec.factors}
+        self.spread: dict[str, tuple[float, float]] = {f.name: (np.inf, -np.inf) for f in spec.factors
+                                                       if f.type == "numeric"}
         names = spec.factor_names
         # distinct (a, b) level pairs; None once some level of one meets two levels of the other
         self.pairs: dict[tuple[str, str], pd.DataFrame | None] = {
@@ -352,12 +360,18 @@ class _Tally:
         weights = np.column_stack([np.ones(n), expo, _finite(t.count, n), _finite(t.amount, n)])
         self.totals += weights.sum(axis=0)
         codes = {}
-        for name, values in t.factors.items():
-            uniq, inv = _sorted_codes(values)
-            codes[name] = (uniq, inv)
-            sums = np.column_stack([np.bincount(inv, weights=weights[:, j], minlength=len(uniq))
-                                    for j in range(len(SUMS))])
-            self.levels[name] = self.levels[name].merged(uniq, sums)
+        for f in self.spec.factors:
+            values = t.factors[f.name]
+            uniq, inv = codes[f.name] = _sorted_codes(values)
+            if f.type == "numeric" and f.bands is not None:
+                self.levels[f.name].sums += _sums_by(assign_bands(values, f.bands), weights, len(f.bands) + 1)
+            else:
+                self.levels[f.name] = self.levels[f.name].merged(uniq, _sums_by(inv, weights, len(uniq)))
+            if f.type == "numeric":
+                finite = uniq[np.isfinite(uniq)]
+                if finite.size:
+                    low, high = self.spread[f.name]
+                    self.spread[f.name] = (min(low, float(finite[0])), max(high, float(finite[-1])))
         for (a, b), seen in self.pairs.items():
             if seen is not None:
                 self.pairs[(a, b)] = _more_pairs(seen, *codes[a], *codes[b])
@@ -376,6 +390,14 @@ class _Tally:
 
     def summary(self) -> BookSummary:
         return BookSummary(self.totals, self.has_amount, self.levels)
+
+
+def _no_sums(f: Factor) -> LevelSums:
+    """Empty sums for factor `f`: no values, or one zero row per band for a numeric factor with `bands`."""
+    if f.type == "numeric" and f.bands is not None:
+        return LevelSums(np.concatenate([[-np.inf], np.asarray(f.bands, dtype=float)]),
+                         np.zeros((len(f.bands) + 1, len(SUMS))))
+    return LevelSums(np.array([], dtype=float if f.type == "numeric" else object), np.zeros((0, len(SUMS))))
 
 
 def _more_pairs(seen: pd.DataFrame, ua: np.ndarray, ka: np.ndarray, ub: np.ndarray, kb: np.ndarray
@@ -415,9 +437,13 @@ def _book_checks(tally: _Tally, path: Path, out: _Collector) -> None:
     for f in spec.factors:
         lv = tally.levels[f.name]
         k = len(lv.values)
-        if k == 1:
-            out.note("error", f.name, f"factor '{f.name}' has one level only ({lv.values[0]}); it cannot "
-                                      f"be rated")
+        if f.type == "numeric":
+            low, high = tally.spread[f.name]
+            single = format(low, "g") if low == high else None
+        else:
+            single = str(lv.values[0]) if k == 1 else None
+        if single is not None:
+            out.note("error", f.name, f"factor '{f.name}' has one level only ({single}); it cannot be rated")
         if f.type == "categorical":
             if k > MANY_LEVELS:
                 out.note("warning", f.name, f"factor '{f.name}' has {k} levels (more than "
@@ -429,9 +455,8 @@ def _book_checks(tally: _Tally, path: Path, out: _Collector) -> None:
                 if thin:
                     out.note("warning", f.name, f"factor '{f.name}': {len(thin)} thin level(s) under "
                                                 f"{THIN_LEVEL_SHARE:.1%} of exposure: {', '.join(thin[:8])}")
-    for (a, b), pairs in tally.pairs.items():
-        na, nb = len(tally.levels[a].values), len(tally.levels[b].values)
-        if pairs is not None and na == nb >= 2:
+    for (a, b), pairs in tally.pairs.items():  # still one to one: as many levels of a as of b as pairs
+        if pairs is not None and len(pairs) >= 2:
             out.note("error", b, f"factors '{a}' and '{b}' are identical up to relabelling; keep one of them")
 
 
@@ -580,8 +605,7 @@ def profile(summary: BookSummary, spec: Spec) -> dict[str, pd.DataFrame]:
             codes = banded(lv.values, cut.edges).codes
         else:
             codes = pd.Categorical(lv.values, categories=list(cut.labels)).codes
-        sums = np.column_stack([np.bincount(codes, weights=lv.sums[:, j], minlength=len(cut.labels))
-                                for j in range(len(SUMS))])
+        sums = _sums_by(codes, lv.sums, len(cut.labels))
         index = pd.CategoricalIndex(cut.labels, categories=cut.labels, ordered=True, name=f.name)
         out[f.name] = _profile_table(sums, index, summary.has_amount)
     return out

@@ -5,7 +5,8 @@ the file rated in one piece (one batch holding every row, run through `rating_ta
 its peak resident memory must stay at most 1.5 GB and at most 1.2 times its peak on the first
 1,000,000 rows; `premiumlab validate` must pass the book within the same two bounds. Every command
 runs in its own child process and its peak is that child's ru_maxrss, read with os.wait4 (Linux
-reports KiB).
+reports KiB). The book holds a continuous factor (`sum_insured`, about one distinct value a row)
+banded by the spec, so validate's sums per band must not grow with its distinct values.
 The rated premiums are checked against the in-memory rater on a slice of rows (relative error
 <= 1e-12 on the pure premium, equal gross premium). The book is invented (seeded generator).
 
@@ -52,6 +53,10 @@ type = "categorical"
 [factors.bonus]
 type = "categorical"
 levels = ["01", "02", "03"]
+
+[factors.sum_insured]
+type = "numeric"
+bands = [100000, 250000, 500000]
 """
 
 
@@ -60,7 +65,7 @@ def write_book(path: Path, rows: int, seed: int = 2027) -> None:
     rng = np.random.default_rng(seed)
     with pq.ParquetWriter(path, pa.schema([("policy", pa.string()), ("age", pa.float64()),
                                            ("region", pa.string()), ("bonus", pa.string()),
-                                           ("exposure", pa.float64()), ("claim_count", pa.int64()),
+                                           ("sum_insured", pa.float64()), ("exposure", pa.float64()), ("claim_count", pa.int64()),
                                            ("claim_amount", pa.float64())])) as writer:
         for start in range(0, rows, WRITE_ROWS):
             n = min(WRITE_ROWS, rows - start)
@@ -70,6 +75,7 @@ def write_book(path: Path, rows: int, seed: int = 2027) -> None:
                 "age": rng.integers(17, 95, n).astype(float),
                 "region": rng.choice(np.array(["North", "South", "Coast", "Islands", "Atlantis"]), n),
                 "bonus": rng.choice(np.array(["01", "02", "03"]), n),
+                "sum_insured": rng.lognormal(12.3, 0.6, n),  # continuous: about one distinct value a row
                 "exposure": np.round(rng.uniform(0.05, 1.0, n), 4),
                 "claim_count": count,
                 "claim_amount": np.where(count > 0, np.round(rng.gamma(2.0, 500.0, n) * count, 2), 0.0),
