@@ -26,6 +26,7 @@ import sys
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from dataclasses import dataclass, field, replace
+from functools import cached_property
 from pathlib import Path
 
 import lightgbm as lgb
@@ -419,23 +420,25 @@ def _fold_fit(full: lgb.Dataset, data: TrainingData, setting: dict, train_rows: 
     return float(booster.best_score["fold"]["deviance"]), int(booster.best_iteration or options.max_rounds)
 
 
-#: The last training data seen by `_fold_task` in this process, with its constructed Dataset and folds.
-_CONSTRUCTED: list = []
+@dataclass
+class _SearchJob:
+    """What every task of one search shares. The Dataset binned on all rows and each row's fold are
+    built on first use, once in each process that runs tasks (after Dask has sent the job there)."""
+
+    data: TrainingData
+    options: GbmOptions
+
+    @cached_property
+    def binned(self) -> tuple[lgb.Dataset, np.ndarray]:
+        return (self.data.dataset().construct(),
+                fold_of_group(self.data.groups, self.options.folds, self.options.seed))
 
 
-def _constructed(data: TrainingData, options: GbmOptions) -> tuple[lgb.Dataset, np.ndarray]:
-    """The Dataset binned on all of `data` and each row's fold, built once per process and data."""
-    if not _CONSTRUCTED or _CONSTRUCTED[0] is not data:
-        _CONSTRUCTED[:] = [data, data.dataset().construct(), fold_of_group(data.groups, options.folds, options.seed)]
-    return _CONSTRUCTED[1], _CONSTRUCTED[2]
-
-
-def _fold_task(job: tuple[TrainingData, GbmOptions], task: tuple[dict, int]) -> tuple[float, int]:
+def _fold_task(job: _SearchJob, task: tuple[dict, int]) -> tuple[float, int]:
     """One task of the search, run here or on a Dask worker: setting `task[0]` on fold `task[1]`."""
-    data, options = job
     setting, k = task
-    full, fold = _constructed(data, options)
-    return _fold_fit(full, data, setting, np.flatnonzero(fold != k), np.flatnonzero(fold == k), options)
+    full, fold = job.binned
+    return _fold_fit(full, job.data, setting, np.flatnonzero(fold != k), np.flatnonzero(fold == k), job.options)
 
 
 def cross_validate(data: TrainingData, settings: list[dict], options: GbmOptions,
@@ -450,8 +453,7 @@ def cross_validate(data: TrainingData, settings: list[dict], options: GbmOptions
                          "use fewer folds")
     tasks = [(setting, k) for setting in settings for k in range(options.folds)]
     with _progress(f"cross-validating the {data.target} model", len(tasks)) as advance:
-        results = runner.map(_fold_task, (data, options), tasks, advance)
-    _CONSTRUCTED.clear()
+        results = runner.map(_fold_task, _SearchJob(data, options), tasks, advance)
     table = []
     for i, setting in enumerate(settings):
         mine = results[i * options.folds:(i + 1) * options.folds]
