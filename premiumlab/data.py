@@ -354,39 +354,58 @@ class _Tally:
         self.seen_keys: list[np.ndarray] = []
         self.repeat_hashes: list[np.ndarray] = []
 
-    def add(self, t: _Typed, offset: int) -> None:
+    @classmethod
+    def of_chunk(cls, spec: Spec, t: _Typed) -> "_Tally":
+        """The tally of one typed chunk."""
+        tally = cls(spec)
         n = len(t.exposure)
         expo = np.where(np.isfinite(t.exposure) & (t.exposure > 0), t.exposure, 0.0)
         weights = np.column_stack([np.ones(n), expo, _finite(t.count, n), _finite(t.amount, n)])
-        self.totals += weights.sum(axis=0)
+        tally.totals = weights.sum(axis=0)
         codes = {}
-        for f in self.spec.factors:
+        for f in spec.factors:
             values = t.factors[f.name]
             uniq, inv = codes[f.name] = _sorted_codes(values)
             if f.type == "numeric" and f.bands is not None:
-                self.levels[f.name].sums += _sums_by(assign_bands(values, f.bands), weights, len(f.bands) + 1)
+                tally.levels[f.name].sums = _sums_by(assign_bands(values, f.bands), weights, len(f.bands) + 1)
             else:
-                self.levels[f.name] = self.levels[f.name].merged(uniq, _sums_by(inv, weights, len(uniq)))
+                tally.levels[f.name] = LevelSums(uniq, _sums_by(inv, weights, len(uniq)))
             if f.type == "numeric":
                 finite = uniq[np.isfinite(uniq)]
                 if finite.size:
-                    low, high = self.spread[f.name]
-                    self.spread[f.name] = (min(low, float(finite[0])), max(high, float(finite[-1])))
-        for (a, b), seen in self.pairs.items():
-            if seen is not None:
-                self.pairs[(a, b)] = _more_pairs(seen, *codes[a], *codes[b])
+                    tally.spread[f.name] = (float(finite[0]), float(finite[-1]))
+        for a, b in tally.pairs:
+            tally.pairs[(a, b)] = _one_to_one(_distinct_pairs(*codes[a], *codes[b]))
         if t.policy is not None and t.period is not None:
-            self._add_keys(pd.util.hash_pandas_object(pd.DataFrame({"p": t.policy, "t": t.period}),
-                                                      index=False).to_numpy())
+            keys = pd.util.hash_pandas_object(pd.DataFrame({"p": t.policy, "t": t.period}), index=False).to_numpy()
+            repeat = pd.Series(keys).duplicated(keep="first").to_numpy()
+            tally.seen_keys = [np.unique(keys)]
+            tally.repeat_hashes = [np.unique(keys[repeat])] if repeat.any() else []
+        return tally
 
-    def _add_keys(self, keys: np.ndarray) -> None:
-        repeat = pd.Series(keys).duplicated(keep="first").to_numpy()
-        for seen in self.seen_keys:
-            pos = np.minimum(np.searchsorted(seen, keys), len(seen) - 1)
-            repeat = repeat | (seen[pos] == keys)
-        if repeat.any():
-            self.repeat_hashes.append(np.unique(keys[repeat]))
-        self.seen_keys.append(np.unique(keys))
+    def merge(self, later: "_Tally") -> None:
+        """Add the tally of the rows that follow these in the book."""
+        self.totals += later.totals
+        for f in self.spec.factors:
+            mine, theirs = self.levels[f.name], later.levels[f.name]
+            if f.type == "numeric" and f.bands is not None:
+                mine.sums += theirs.sums
+            else:
+                self.levels[f.name] = mine.merged(theirs.values, theirs.sums)
+            if f.type == "numeric":
+                (low, high), (their_low, their_high) = self.spread[f.name], later.spread[f.name]
+                self.spread[f.name] = (min(low, their_low), max(high, their_high))
+        for key, pairs in self.pairs.items():
+            theirs = later.pairs[key]
+            self.pairs[key] = None if pairs is None or theirs is None else _one_to_one(
+                pd.concat([pairs, theirs], ignore_index=True).drop_duplicates(ignore_index=True))
+        for keys in later.seen_keys:
+            for seen in self.seen_keys:
+                hit = seen[np.minimum(np.searchsorted(seen, keys), len(seen) - 1)] == keys
+                if hit.any():
+                    self.repeat_hashes.append(keys[hit])
+        self.seen_keys += later.seen_keys
+        self.repeat_hashes += later.repeat_hashes
 
     def summary(self) -> BookSummary:
         return BookSummary(self.totals, self.has_amount, self.levels)
@@ -400,15 +419,17 @@ def _no_sums(f: Factor) -> LevelSums:
     return LevelSums(np.array([], dtype=float if f.type == "numeric" else object), np.zeros((0, len(SUMS))))
 
 
-def _more_pairs(seen: pd.DataFrame, ua: np.ndarray, ka: np.ndarray, ub: np.ndarray, kb: np.ndarray
-                ) -> pd.DataFrame | None:
-    """The distinct (a, b) pairs so far with one chunk's added, or None when they stop being one to one."""
+def _distinct_pairs(ua: np.ndarray, ka: np.ndarray, ub: np.ndarray, kb: np.ndarray) -> pd.DataFrame:
+    """The distinct (a, b) value pairs of one chunk, from each factor's sorted values and codes."""
     pairs = np.unique(ka.astype(np.int64) * len(ub) + kb)
-    chunk = pd.DataFrame({"a": ua[pairs // len(ub)], "b": ub[pairs % len(ub)]})
-    both = pd.concat([seen, chunk], ignore_index=True).drop_duplicates(ignore_index=True)
-    if both["a"].nunique() < len(both) or both["b"].nunique() < len(both):
+    return pd.DataFrame({"a": ua[pairs // len(ub)], "b": ub[pairs % len(ub)]})
+
+
+def _one_to_one(pairs: pd.DataFrame) -> pd.DataFrame | None:
+    """The distinct pairs while each a meets one b and each b one a, else None (never identical)."""
+    if pairs["a"].nunique() < len(pairs) or pairs["b"].nunique() < len(pairs):
         return None
-    return both
+    return pairs
 
 
 def _repeated_keys(path: Path, spec: Spec, candidates: np.ndarray) -> np.ndarray:
@@ -496,7 +517,7 @@ def scan_book(path: str | Path, spec: Spec, keep_rows: bool = True, chunk_rows: 
     parts = []
     for off, chunk in iter_book(p, needed, chunk_rows):
         typed = check_chunk(chunk, off, spec, out)
-        tally.add(typed, off)
+        tally.merge(_Tally.of_chunk(spec, typed))
         if keep_rows:
             parts.append(typed)
     if tally.totals[0] == 0:
