@@ -22,9 +22,7 @@ Models are LightGBM text plus JSON; nothing is pickled.
 from __future__ import annotations
 
 import math
-import sys
-from collections.abc import Callable, Iterator
-from contextlib import contextmanager
+from collections.abc import Callable
 from dataclasses import dataclass, field, replace
 from functools import cached_property
 from pathlib import Path
@@ -39,6 +37,7 @@ from premiumlab.cluster import IN_PROCESS, TaskRunner
 from premiumlab.errors import InputError
 from premiumlab.jsonio import read_json
 from premiumlab.metrics import mean_deviance
+from premiumlab.progress import progress_bar
 
 TARGETS = ("frequency", "severity", "pure_premium")
 OBJECTIVES = {"frequency": "poisson", "severity": "gamma", "pure_premium": "tweedie"}
@@ -396,19 +395,6 @@ def _deviance_eval(label: np.ndarray, weight: np.ndarray,
     return evaluate
 
 
-@contextmanager
-def _progress(description: str, total: int) -> Iterator[Callable[[], None]]:
-    """A rich progress bar on stderr (shown only on a terminal); yields the advance callback."""
-    from rich.console import Console
-    from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
-
-    console = Console(stderr=True)
-    with Progress(TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(), TimeElapsedColumn(),
-                  console=console, transient=True, disable=not sys.stderr.isatty()) as bar:
-        task = bar.add_task(description, total=total)
-        yield lambda: bar.advance(task)
-
-
 def _fold_fit(full: lgb.Dataset, data: TrainingData, setting: dict, train_rows: np.ndarray,
               valid_rows: np.ndarray, options: GbmOptions) -> tuple[float, int]:
     """(held-out deviance at the best round, best round count) of one setting on one fold."""
@@ -452,7 +438,7 @@ def cross_validate(data: TrainingData, settings: list[dict], options: GbmOptions
         raise InputError(f"gbm folds: fold {empty[0]} of {options.folds} holds no {data.target} rows; "
                          "use fewer folds")
     tasks = [(setting, k) for setting in settings for k in range(options.folds)]
-    with _progress(f"cross-validating the {data.target} model", len(tasks)) as advance:
+    with progress_bar(f"cross-validating the {data.target} model", len(tasks)) as advance:
         results = runner.map(_fold_task, _SearchJob(data, options), tasks, advance)
     table = []
     for i, setting in enumerate(settings):
