@@ -41,8 +41,9 @@ app = typer.Typer(cls=_OneLineUsage, add_completion=False, no_args_is_help=True,
 
 Force = Annotated[bool, typer.Option("--force", help="Replace an existing output.")]
 Cluster = Annotated[Optional[str], typer.Option(
-    "--cluster", help="Run the boosted-model search on Dask: local:N (N worker processes here) or a "
-                      "scheduler address such as tcp://host:8786. Needs the dask extra.")]
+    "--cluster", help="Run the heavy part on Dask (fit: the boosted-model search; validate: the "
+                      "Parquet slices): local:N (N worker processes here) or a scheduler address such "
+                      "as tcp://host:8786. Needs the dask extra.")]
 
 
 def _fail(message: str, code: int = 2) -> None:
@@ -102,10 +103,11 @@ def simulate(scenario: Annotated[Path, typer.Argument(help="Scenario TOML file."
 @app.command()
 @handled
 def validate(book: Annotated[Path, typer.Argument(help="Book (.csv, .parquet or a folder of parts).")],
-             spec: Annotated[Path, typer.Option("--spec", help="Pricing spec TOML.")]) -> None:
+             spec: Annotated[Path, typer.Option("--spec", help="Pricing spec TOML.")],
+             cluster: Cluster = None) -> None:
     """Check a book against a spec, list every finding and print a profile (exit 1 on errors)."""
     from premiumlab.validation import validate_book
-    report = validate_book(book, spec)
+    report = validate_book(book, spec, cluster=cluster)
     typer.echo(report.text())
     if report.errors:
         raise typer.Exit(1)

@@ -14,7 +14,9 @@ import numpy as np
 import pandas as pd
 
 from premiumlab.bands import assign_bands, banded, quantile_edges
+from premiumlab.cluster import TaskRunner
 from premiumlab.errors import InputError
+from premiumlab.progress import progress_bar
 from premiumlab.spec import Factor, Spec
 
 CHUNK_ROWS = 500_000
@@ -161,6 +163,14 @@ class _Collector:
 
     def note(self, level: str, column: str, message: str) -> None:
         self.items[(level, column, message)] = [None, []]
+
+    def merge(self, later: "_Collector") -> None:
+        """Add the findings of the rows that follow these in the book."""
+        for key, (count, rows) in later.items.items():
+            entry = self.items.setdefault(key, [0 if count is not None else None, []])
+            if count is not None:
+                entry[0] += count
+                entry[1].extend(rows[: SHOW_ROWS - len(entry[1])])
 
     def findings(self) -> list[Finding]:
         out = []
@@ -375,7 +385,7 @@ class _Tally:
                 if finite.size:
                     tally.spread[f.name] = (float(finite[0]), float(finite[-1]))
         for a, b in tally.pairs:
-            tally.pairs[(a, b)] = _one_to_one(_distinct_pairs(*codes[a], *codes[b]))
+            tally.pairs[(a, b)] = _chunk_pairs(*codes[a], *codes[b])
         if t.policy is not None and t.period is not None:
             keys = pd.util.hash_pandas_object(pd.DataFrame({"p": t.policy, "t": t.period}), index=False).to_numpy()
             repeat = pd.Series(keys).duplicated(keep="first").to_numpy()
@@ -419,10 +429,16 @@ def _no_sums(f: Factor) -> LevelSums:
     return LevelSums(np.array([], dtype=float if f.type == "numeric" else object), np.zeros((0, len(SUMS))))
 
 
-def _distinct_pairs(ua: np.ndarray, ka: np.ndarray, ub: np.ndarray, kb: np.ndarray) -> pd.DataFrame:
-    """The distinct (a, b) value pairs of one chunk, from each factor's sorted values and codes."""
-    pairs = np.unique(ka.astype(np.int64) * len(ub) + kb)
-    return pd.DataFrame({"a": ua[pairs // len(ub)], "b": ub[pairs % len(ub)]})
+def _chunk_pairs(ua: np.ndarray, ka: np.ndarray, ub: np.ndarray, kb: np.ndarray) -> pd.DataFrame | None:
+    """The distinct (a, b) value pairs of one chunk (from each factor's sorted values and codes) if
+    they are one to one, else None. Factors with different numbers of values in a chunk cannot be
+    one to one there, nor therefore in the book."""
+    if len(ua) != len(ub):
+        return None
+    joint = ka.astype(np.int64) * len(ub) + kb
+    cells = len(ua) * len(ub)
+    pairs = np.flatnonzero(np.bincount(joint, minlength=cells)) if cells <= 4 * len(joint) else np.unique(joint)
+    return _one_to_one(pd.DataFrame({"a": ua[pairs // len(ub)], "b": ub[pairs % len(ub)]}))
 
 
 def _one_to_one(pairs: pd.DataFrame) -> pd.DataFrame | None:
@@ -494,13 +510,50 @@ def _concat(parts: list[_Typed]) -> _Typed:
                   cat(parts, "policy"), cat(parts, "period"))
 
 
-def scan_book(path: str | Path, spec: Spec, keep_rows: bool = True, chunk_rows: int = CHUNK_ROWS
-              ) -> tuple[_Typed | None, BookSummary, list[Finding]]:
+def parquet_slices(path: str | Path, chunk_rows: int = CHUNK_ROWS) -> list[tuple[str, list[int], int]]:
+    """(file, row groups, first row) of each slice of about `chunk_rows` rows of a Parquet book (a
+    file or a folder of parts), in book order; a slice never splits a row group."""
+    import pyarrow.parquet as pq
+    slices, offset = [], 0
+    for part in _book_files(Path(path)):
+        if part.suffix.lower() == ".csv":
+            raise InputError(f"{part}: a CSV book is read in one process; convert it to Parquet to "
+                             "validate it on a cluster")
+        try:
+            meta = pq.ParquetFile(part).metadata
+        except Exception as e:  # pyarrow raises several types for damaged files
+            raise InputError(f"{part}: not a readable Parquet file ({type(e).__name__}: {e})") from None
+        groups, rows = [], 0
+        for g in range(meta.num_row_groups):
+            groups.append(g)
+            rows += meta.row_group(g).num_rows
+            if rows >= chunk_rows or g == meta.num_row_groups - 1:
+                slices.append((str(part), groups, offset))
+                offset, groups, rows = offset + rows, [], 0
+    return slices
+
+
+def _scan_slice(job: tuple[Spec, list[str]], piece: tuple[str, list[int], int]) -> tuple[_Collector, _Tally]:
+    """Check one slice of a Parquet book (run here or on a Dask worker): its findings and tally."""
+    import pyarrow.parquet as pq
+    spec, needed = job
+    file, groups, offset = piece
+    try:
+        chunk = pq.ParquetFile(file, pre_buffer=False).read_row_groups(groups, columns=needed).to_pandas()
+    except Exception as e:
+        raise InputError(f"{file}: not a readable Parquet file ({type(e).__name__}: {e})") from None
+    out = _Collector(file)
+    return out, _Tally.of_chunk(spec, check_chunk(chunk, offset, spec, out))
+
+
+def scan_book(path: str | Path, spec: Spec, keep_rows: bool = True, chunk_rows: int = CHUNK_ROWS,
+              runner: TaskRunner | None = None) -> tuple[_Typed | None, BookSummary, list[Finding]]:
     """Read the whole book chunk by chunk, typing it and collecting every finding.
 
     Returns (the typed book, or None with `keep_rows=False`; the summed summary; the findings).
     Without the rows, memory stays about one chunk plus the distinct levels and 8 bytes a row for
-    the (policy, period) keys when a period column is named.
+    the (policy, period) keys when a period column is named. With a `runner` (and no rows kept),
+    the slices of a Parquet book are checked as its tasks and their tallies merged in book order.
     """
     p = Path(path)
     header = read_columns(p)
@@ -515,11 +568,18 @@ def scan_book(path: str | Path, spec: Spec, keep_rows: bool = True, chunk_rows: 
     out = _Collector(str(p))
     tally = _Tally(spec)
     parts = []
-    for off, chunk in iter_book(p, needed, chunk_rows):
-        typed = check_chunk(chunk, off, spec, out)
-        tally.merge(_Tally.of_chunk(spec, typed))
-        if keep_rows:
-            parts.append(typed)
+    if runner is not None and not keep_rows:
+        slices = parquet_slices(p, chunk_rows)
+        with progress_bar(f"checking {len(slices)} slices of the book", len(slices)) as advance:
+            for found, part_tally in runner.map(_scan_slice, (spec, needed), slices, advance):
+                out.merge(found)
+                tally.merge(part_tally)
+    else:
+        for off, chunk in iter_book(p, needed, chunk_rows):
+            typed = check_chunk(chunk, off, spec, out)
+            tally.merge(_Tally.of_chunk(spec, typed))
+            if keep_rows:
+                parts.append(typed)
     if tally.totals[0] == 0:
         raise InputError(f"{p}: the book has no rows")
     _book_checks(tally, p, out)

@@ -6,7 +6,8 @@ from pathlib import Path
 
 import pandas as pd
 
-from premiumlab.data import Finding, profile, read_columns, scan_book
+from premiumlab.cluster import parse_cluster, tasks_on
+from premiumlab.data import Finding, parquet_slices, profile, read_columns, scan_book
 from premiumlab.spec import Spec, load_spec
 
 
@@ -35,14 +36,24 @@ class ValidationReport:
         return "\n".join(lines)
 
 
-def validate_book(book_path: str | Path, spec_path: str | Path) -> ValidationReport:
-    """Scan the whole book and report every finding; profile it when it has no errors."""
+def validate_book(book_path: str | Path, spec_path: str | Path, cluster: str | None = None) -> ValidationReport:
+    """Scan the whole book and report every finding; profile it when it has no errors.
+
+    `cluster` (premiumlab.cluster: local:N or a Dask scheduler address): check the slices of a
+    Parquet book on Dask workers, which must see the book at the same path."""
+    if cluster is not None:
+        parse_cluster(cluster)
     spec: Spec = load_spec(spec_path)
     header = read_columns(book_path)
     missing = [c for c in spec.columns.used() + spec.factor_names if c not in header]
     if missing:
         findings = [Finding("error", c, f"{book_path}: missing column '{c}'") for c in missing]
         return ValidationReport(str(book_path), 0, findings, None)
-    _, summary, findings = scan_book(book_path, spec, keep_rows=False)
+    if cluster is None:
+        _, summary, findings = scan_book(book_path, spec, keep_rows=False)
+    else:
+        parquet_slices(book_path)  # a CSV book is refused before a cluster is started
+        with tasks_on(cluster) as runner:
+            _, summary, findings = scan_book(book_path, spec, keep_rows=False, runner=runner)
     usable = not any(f.level == "error" for f in findings)
     return ValidationReport(str(book_path), summary.rows, findings, profile(summary, spec) if usable else None)

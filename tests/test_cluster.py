@@ -1,20 +1,25 @@
-"""The boosted-model search on a Dask cluster gives the same models as in one process.
+"""Work on a Dask cluster gives what it gives in one process: the boosted-model search, validation.
 
 Reference: LightGBM's own guarantee that `deterministic=True` with the same data, parameters and
 `num_threads` gives the same model; the search's tasks carry all three, so the model text, the CV
 table and the predictions must be identical wherever the tasks run. The cluster is a Dask
-LocalCluster of two worker processes (the `distributed` package); the book is invented.
+LocalCluster of two worker processes (the `distributed` package); the book is invented. For
+`validate`, the reference is the one-pass scan of the same book: the slices' findings and sums,
+merged in book order, must equal it exactly.
 """
 from __future__ import annotations
 
 import json
 
 import numpy as np
+import pandas as pd
 import pytest
 
 from premiumlab.cluster import IN_PROCESS, parse_cluster, tasks_on
+from premiumlab.data import parquet_slices, scan_book
 from premiumlab.errors import InputError
 from premiumlab.gbm import fit_target
+from premiumlab.spec import load_spec
 
 from conftest import SPEC_TEXT, run_cli, small_book
 from test_gbm import OPTIONS, invented_book
@@ -73,3 +78,44 @@ def test_in_process_runs_tasks_in_order():
     seen = []
     assert IN_PROCESS.map(lambda shared, item: shared + item, 10, [1, 2, 3], lambda: seen.append(1)) == [11, 12, 13]
     assert len(seen) == 3
+
+
+def _findings_and_sums(result):
+    _, summary, findings = result
+    return [str(f) for f in findings], {name: (lv.values.tolist(), lv.sums.tolist())
+                                        for name, lv in summary.levels.items()}, summary.totals.tolist()
+
+
+def test_validate_on_a_cluster_merges_the_slices_to_the_same_findings_and_sums(tmp_path, spec_file):
+    """A Parquet book in row groups of 25 rows, checked in slices of two row groups: in one pass here
+    (batches of 50 rows, the same boundaries, so the sums add in the same order), as slices here,
+    and as slices on a two-worker LocalCluster. Errors sit in several slices and a (policy, period)
+    pair repeats across slices; every finding, row number and sum must agree exactly."""
+    df = pd.concat([small_book(), small_book().iloc[[3, 150, 3]]], ignore_index=True)
+    df["exposure"] = df["exposure"].mask(df.index.isin([10, 60, 390]), -1.0)
+    df["region"] = df["region"].mask(df.index == 200, "")
+    path = tmp_path / "book.parquet"
+    df.to_parquet(path, index=False, row_group_size=25)
+    spec = load_spec(spec_file)
+    assert [len(groups) for _, groups, _ in parquet_slices(path, 50)] == [2] * 8 + [1]  # 403 rows
+    one_pass = _findings_and_sums(scan_book(path, spec, keep_rows=False, chunk_rows=50))
+    here = _findings_and_sums(scan_book(path, spec, keep_rows=False, chunk_rows=50, runner=IN_PROCESS))
+    with tasks_on("local:2") as runner:
+        there = _findings_and_sums(scan_book(path, spec, keep_rows=False, chunk_rows=50, runner=runner))
+    assert here == one_pass and there == one_pass
+    found = one_pass[0]
+    assert any("3 rows with exposure <= 0 (rows 10, 60, 390)" in f for f in found), found
+    assert any("3 rows repeating an earlier ('policy_id', 'year') pair (rows 400, 401, 402)" in f for f in found)
+
+
+def test_validate_cli_on_a_cluster_prints_what_it_prints_here(tmp_path, spec_file):
+    path = tmp_path / "book.parquet"
+    small_book(3000, seed=2).to_parquet(path, index=False, row_group_size=500)
+    here = run_cli("validate", str(path), "--spec", str(spec_file))
+    there = run_cli("validate", str(path), "--spec", str(spec_file), "--cluster", "local:2")
+    assert here.returncode == 0 and there.returncode == 0, there.stderr
+    assert there.stdout == here.stdout and "profile: age" in here.stdout
+    csv = tmp_path / "book.csv"
+    small_book().to_csv(csv, index=False)
+    r = run_cli("validate", str(csv), "--spec", str(spec_file), "--cluster", "local:2")
+    assert r.returncode == 2 and "a CSV book is read in one process; convert it to Parquet" in r.stderr
