@@ -7,13 +7,15 @@ from __future__ import annotations
 
 import hashlib
 from collections.abc import Iterator
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
+from functools import partial
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
 from premiumlab.bands import assign_bands, banded, quantile_edges
+from premiumlab.book_quantiles import book_quantile_edges
 from premiumlab.cluster import TaskRunner
 from premiumlab.errors import InputError
 from premiumlab.progress import progress_bar
@@ -341,14 +343,24 @@ def _finite(x: np.ndarray | None, n: int) -> np.ndarray:
     return np.zeros(n) if x is None else np.where(np.isfinite(x), x, 0.0)
 
 
+def _usable_exposure(exposure: np.ndarray) -> np.ndarray:
+    """Exposure where it is finite and > 0, else 0 (such rows are errors; sums stay finite)."""
+    return np.where(np.isfinite(exposure) & (exposure > 0), exposure, 0.0)
+
+
+def _row_weights(exposure: np.ndarray, count: np.ndarray | None, amount: np.ndarray | None) -> np.ndarray:
+    """The SUMS of each row (rows x 4): 1, usable exposure, claims and amount (0 where missing)."""
+    n = len(exposure)
+    return np.column_stack([np.ones(n), _usable_exposure(exposure), _finite(count, n), _finite(amount, n)])
+
+
 class _Tally:
-    """Accumulates, chunk by chunk: sums per distinct level (per band for a numeric factor with
-    `bands`, each band keyed by its lower edge, -inf for the first), the smallest and largest value
-    of each numeric factor, the distinct level pairs of every two factors while they could still be
+    """Accumulates, chunk by chunk: sums per level of a categorical factor and per band of a numeric
+    factor with `bands` (each band keyed by its lower edge, -inf for the first; a numeric factor
+    without bands gets its band sums from `with_quantile_bands`), the smallest and largest value of
+    each numeric factor, the distinct level pairs of every two factors while they could still be
     identical up to relabelling, and 64-bit hashes of the (policy, period) keys seen so far (8 bytes
-    a row; repeats are confirmed exactly at the end). What grows with the book: the key hashes, and
-    the distinct values (40 bytes each) of a numeric factor without `bands`, kept for its exposure
-    quantiles."""
+    a row, the one part that grows with the book; repeats are confirmed exactly at the end)."""
 
     def __init__(self, spec: Spec) -> None:
         self.spec = spec
@@ -368,18 +380,16 @@ class _Tally:
     def of_chunk(cls, spec: Spec, t: _Typed) -> "_Tally":
         """The tally of one typed chunk."""
         tally = cls(spec)
-        n = len(t.exposure)
-        expo = np.where(np.isfinite(t.exposure) & (t.exposure > 0), t.exposure, 0.0)
-        weights = np.column_stack([np.ones(n), expo, _finite(t.count, n), _finite(t.amount, n)])
+        weights = _row_weights(t.exposure, t.count, t.amount)
         tally.totals = weights.sum(axis=0)
         codes = {}
         for f in spec.factors:
             values = t.factors[f.name]
             uniq, inv = codes[f.name] = _sorted_codes(values)
-            if f.type == "numeric" and f.bands is not None:
-                tally.levels[f.name].sums = _sums_by(assign_bands(values, f.bands), weights, len(f.bands) + 1)
-            else:
+            if f.type == "categorical":
                 tally.levels[f.name] = LevelSums(uniq, _sums_by(inv, weights, len(uniq)))
+            elif f.bands is not None:
+                tally.levels[f.name].sums = _sums_by(assign_bands(values, f.bands), weights, len(f.bands) + 1)
             if f.type == "numeric":
                 finite = uniq[np.isfinite(uniq)]
                 if finite.size:
@@ -398,10 +408,10 @@ class _Tally:
         self.totals += later.totals
         for f in self.spec.factors:
             mine, theirs = self.levels[f.name], later.levels[f.name]
-            if f.type == "numeric" and f.bands is not None:
-                mine.sums += theirs.sums
-            else:
+            if f.type == "categorical":
                 self.levels[f.name] = mine.merged(theirs.values, theirs.sums)
+            elif f.bands is not None:
+                mine.sums += theirs.sums
             if f.type == "numeric":
                 (low, high), (their_low, their_high) = self.spread[f.name], later.spread[f.name]
                 self.spread[f.name] = (min(low, their_low), max(high, their_high))
@@ -674,10 +684,42 @@ def categorise(book_frame: pd.DataFrame, levels: dict[str, Levels]) -> pd.DataFr
     return pd.DataFrame(cols)
 
 
+def with_quantile_bands(path: str | Path, spec: Spec, summary: BookSummary, chunk_rows: int = CHUNK_ROWS
+                        ) -> tuple[Spec, BookSummary]:
+    """Band the numeric factors that have no `bands`: their exposure-quantile edges over the whole
+    book (`book_quantiles`: five reads of the factor and the exposure, memory independent of the
+    distinct values), then their sums per band in one more read. Returns the spec with those
+    edges as the factors' bands, and the summary with their sums."""
+    unbanded = [f for f in spec.factors if f.type == "numeric" and f.bands is None]
+    if not unbanded:
+        return spec, summary
+    c = spec.columns
+
+    def values_and_exposure(name: str) -> Iterator[tuple[np.ndarray, np.ndarray]]:
+        for _, chunk in iter_book(path, [name, c.exposure], chunk_rows):
+            yield _to_number(chunk[name])[0], _usable_exposure(_to_number(chunk[c.exposure])[0])
+    banded_factors = {}
+    for f in unbanded:
+        edges = book_quantile_edges(partial(values_and_exposure, f.name), f.n_bands)
+        banded_factors[f.name] = replace(f, bands=tuple(float(e) for e in edges))
+    banded = replace(spec, factors=tuple(banded_factors.get(f.name, f) for f in spec.factors))
+    levels = dict(summary.levels)
+    sums = {name: _no_sums(f) for name, f in banded_factors.items()}
+    columns = [c.exposure, c.claim_count] + ([c.claim_amount] if c.claim_amount else []) + list(banded_factors)
+    for _, chunk in iter_book(path, columns, chunk_rows):
+        amount = _to_number(chunk[c.claim_amount])[0] if c.claim_amount else None
+        weights = _row_weights(_to_number(chunk[c.exposure])[0], _to_number(chunk[c.claim_count])[0], amount)
+        for name, f in banded_factors.items():
+            sums[name].sums += _sums_by(assign_bands(_to_number(chunk[name])[0], f.bands), weights,
+                                        len(f.bands) + 1)
+    levels.update(sums)
+    return banded, replace(summary, levels=levels)
+
+
 def profile(summary: BookSummary, spec: Spec) -> dict[str, pd.DataFrame]:
     """Exposure, claims, amount, frequency (claims/exposure), severity (amount/claims) and loss cost
     (amount/exposure) per level or band, and overall; bands and levels cut as `cut_levels` does on
-    the whole book (exposure-quantile edges from the exposure summed per distinct value)."""
+    the whole book (every numeric factor banded: give the spec `with_quantile_bands` returns)."""
     out = {"(overall)": _profile_table(summary.totals[None, :], pd.Index(["all"]), summary.has_amount)}
     for f in spec.factors:
         lv = summary.levels[f.name]

@@ -7,7 +7,7 @@ from pathlib import Path
 import pandas as pd
 
 from premiumlab.cluster import parse_cluster, tasks_on
-from premiumlab.data import Finding, parquet_slices, profile, read_columns, scan_book
+from premiumlab.data import Finding, parquet_slices, profile, read_columns, scan_book, with_quantile_bands
 from premiumlab.spec import Spec, load_spec
 
 
@@ -55,5 +55,7 @@ def validate_book(book_path: str | Path, spec_path: str | Path, cluster: str | N
         parquet_slices(book_path)  # a CSV book is refused before a cluster is started
         with tasks_on(cluster) as runner:
             _, summary, findings = scan_book(book_path, spec, keep_rows=False, runner=runner)
-    usable = not any(f.level == "error" for f in findings)
-    return ValidationReport(str(book_path), summary.rows, findings, profile(summary, spec) if usable else None)
+    if any(f.level == "error" for f in findings):
+        return ValidationReport(str(book_path), summary.rows, findings, None)
+    banded, summary = with_quantile_bands(book_path, spec, summary)
+    return ValidationReport(str(book_path), summary.rows, findings, profile(summary, banded))

@@ -5,8 +5,9 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from premiumlab.bands import quantile_edges
-from premiumlab.data import _repeated_keys, holdout_flags, iter_book, load_book, profile, scan_book
+from premiumlab.bands import band_labels, quantile_edges
+from premiumlab.data import (_repeated_keys, holdout_flags, iter_book, load_book, profile, scan_book,
+                             with_quantile_bands)
 from premiumlab.errors import InputError
 from premiumlab.spec import load_spec
 
@@ -188,3 +189,23 @@ def test_quantile_edges_sit_just_above_numpy_weighted_quantiles():
     np.testing.assert_array_equal(quantile_edges(values[perm], weights[perm], 8), edges)
     summed = pd.Series(weights).groupby(values).sum()
     np.testing.assert_array_equal(quantile_edges(summed.index.to_numpy(), summed.to_numpy(), 8), edges)
+
+
+def test_an_unbanded_numeric_factor_is_profiled_on_the_whole_books_exposure_quantiles(tmp_path, spec_file):
+    """`age` without bands (n_bands = 4), read in chunks of 333 rows: its profile bands are
+    `quantile_edges` of the whole column (reference: numpy's weighted inverted-CDF quantile, see
+    the test above) and each band's sums equal a pandas groupby of the rows."""
+    spec_path = tmp_path / "unbanded.toml"
+    spec_path.write_text(spec_file.read_text().replace("bands = [25, 40, 60]", "n_bands = 4"))
+    df = small_book(3000, seed=11).assign(age=lambda d: d["age"] + np.round(np.random.default_rng(2).uniform(
+        0, 1, len(d)), 3))  # about one distinct value a row
+    summary, found, spec = _scan(tmp_path, spec_path, df, 333)
+    assert summary.levels["age"].values.size == 0  # no distinct values kept while scanning
+    banded, summary = with_quantile_bands(tmp_path / "b.csv", spec, summary, chunk_rows=333)
+    edges = quantile_edges(df["age"].to_numpy(), df["exposure"].to_numpy(), 4)
+    assert banded.factor("age").bands == tuple(edges)
+    prof = profile(summary, banded)["age"]
+    assert list(prof.index) == band_labels(edges)
+    ref = df.groupby(pd.cut(df["age"], [-np.inf, *edges, np.inf], right=False), observed=False)[
+        ["exposure", "claim_count", "claim_amount"]].sum()
+    np.testing.assert_allclose(prof[["exposure", "claims", "amount"]].to_numpy(), ref.to_numpy(), rtol=1e-12)

@@ -100,6 +100,7 @@ def books(tmp_path_factory) -> Path:
     (base / "spec.toml").write_text(SPEC)
     period_spec = SPEC.replace('policy_id = "policy"', 'policy_id = "policy"\nperiod = "region"')
     (base / "spec_period.toml").write_text(period_spec.replace('[factors.region]\ntype = "categorical"\n', ""))
+    (base / "spec_unbanded.toml").write_text(SPEC.replace("bands = [100000, 250000, 500000]\n", ""))
     rating_tables.save(example_table(), base / "table")
     return base
 
@@ -112,10 +113,11 @@ def _digest(path: Path) -> str:
     return h.hexdigest()
 
 
-@pytest.mark.parametrize("spec", ["spec.toml", "spec_period.toml"])
+@pytest.mark.parametrize("spec", ["spec.toml", "spec_period.toml", "spec_unbanded.toml"])
 def test_validate_passes_the_big_book_in_bounded_memory(books, spec):
     """Without a period column policy ids are dropped chunk by chunk; with one, 8 bytes a row of key
-    hashes are kept for the repeat check (`spec_period.toml`: region is the period)."""
+    hashes are kept for the repeat check (`spec_period.toml`: region is the period); without bands
+    the continuous factor is cut at exposure quantiles found in passes (`spec_unbanded.toml`)."""
     peaks = {}
     for name in ("small", "big"):
         code, err, peaks[name] = peak_run("-m", "premiumlab", "validate", str(books / f"{name}.parquet"),
