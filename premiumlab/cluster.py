@@ -58,9 +58,15 @@ class DaskTasks:
         from distributed import as_completed
         on_workers = self.client.scatter(shared, broadcast=True, hash=False)
         futures = [self.client.submit(fn, on_workers, item, pure=False) for item in items]
-        for _ in as_completed(futures):
-            advance()
-        return self.client.gather(futures)
+        try:
+            for _ in as_completed(futures):
+                advance()
+            return self.client.gather(futures)
+        except InputError:
+            raise
+        except Exception as e:  # what a worker raised, e.g. a library it lacks
+            raise InputError(f"--cluster: a task failed on {self.description} ({type(e).__name__}: {e}); "
+                             "the workers need the same premiumlab and libraries as this machine") from None
 
 
 IN_PROCESS = InProcess()
@@ -93,7 +99,7 @@ def tasks_on(address: str | None) -> Iterator[TaskRunner]:
     if kind == "local":
         with LocalCluster(n_workers=where, threads_per_worker=1, processes=True, dashboard_address=None,
                           silence_logs=logging.ERROR) as cluster, Client(cluster) as client:
-            yield DaskTasks(client, f"a local Dask cluster of {where} worker processes")
+            yield DaskTasks(client, f"a local Dask cluster of {where} worker process{'es' if where != 1 else ''}")
         return
     try:
         client = Client(where, timeout=CONNECT_TIMEOUT)
@@ -103,4 +109,20 @@ def tasks_on(address: str | None) -> Iterator[TaskRunner]:
         workers = len(client.scheduler_info().get("workers", {}))
         if workers == 0:
             raise InputError(f"--cluster: the Dask scheduler at {where} has no workers")
+        _check_worker_versions(client, where)
         yield DaskTasks(client, f"the Dask scheduler at {where} ({workers} workers)")
+
+
+def _check_worker_versions(client: Any, where: str) -> None:
+    """Refuse workers that lack premiumlab or run another version of it than this process."""
+    from importlib.metadata import version
+    here = version("premiumlab")
+    try:
+        theirs = client.run(version, "premiumlab")
+    except Exception as e:
+        raise InputError(f"--cluster: a worker of the Dask scheduler at {where} cannot load premiumlab "
+                         f"({type(e).__name__}: {e}); install premiumlab {here} on every worker") from None
+    other = sorted({v for v in theirs.values() if v != here})
+    if other:
+        raise InputError(f"--cluster: workers of the Dask scheduler at {where} run premiumlab "
+                         f"{', '.join(other)}, this machine {here}; install the same version everywhere")

@@ -119,3 +119,33 @@ def test_validate_cli_on_a_cluster_prints_what_it_prints_here(tmp_path, spec_fil
     small_book().to_csv(csv, index=False)
     r = run_cli("validate", str(csv), "--spec", str(spec_file), "--cluster", "local:2")
     assert r.returncode == 2 and "a CSV book is read in one process; convert it to Parquet" in r.stderr
+
+
+def test_fit_on_a_running_scheduler_gives_the_same_model_files(tmp_path):
+    """`--cluster tcp://...`: a Dask LocalCluster started here stands in for a remote scheduler; the
+    command connects to it, checks that its workers run this premiumlab, and writes the same model
+    files as a one-process fit."""
+    from distributed import LocalCluster
+    spec = tmp_path / "spec.toml"
+    spec.write_text(SPEC_TEXT + "\n[gbm]\nthreads = 1\nfolds = 3\nmax_settings = 2\nmax_rounds = 100\n")
+    small_book(1500, seed=8).to_csv(tmp_path / "book.csv", index=False)
+    with LocalCluster(n_workers=2, threads_per_worker=1, dashboard_address=None) as cluster:
+        r = run_cli("fit", str(tmp_path / "book.csv"), "--spec", str(spec), "--out", str(tmp_path / "there"),
+                    "--models", "gbm", "--cluster", cluster.scheduler_address)
+        assert r.returncode == 0, r.stderr
+    r = run_cli("fit", str(tmp_path / "book.csv"), "--spec", str(spec), "--out", str(tmp_path / "here"),
+                "--models", "gbm")
+    assert r.returncode == 0, r.stderr
+    name = "models/gbm_pure_premium.txt"
+    assert (tmp_path / "there" / name).read_bytes() == (tmp_path / "here" / name).read_bytes()
+    ran_on = json.loads((tmp_path / "there" / "run.json").read_text())["gbm_search_ran_on"]
+    assert ran_on.startswith("the Dask scheduler at tcp://127.0.0.1:") and ran_on.endswith("(2 workers)")
+
+
+def test_a_task_that_fails_on_a_worker_is_one_clear_error():
+    import operator
+    with tasks_on("local:1") as runner:
+        assert runner.map(operator.truediv, 6.0, [2.0, 3.0], lambda: None) == [3.0, 2.0]
+        with pytest.raises(InputError, match=r"--cluster: a task failed on a local Dask cluster of 1 worker "
+                                             r"process \(ZeroDivisionError: float division by zero\)"):
+            runner.map(operator.truediv, 6.0, [2.0, 0.0], lambda: None)
