@@ -14,6 +14,15 @@ from typing import Annotated, Callable, Optional
 import typer
 from typer.core import TyperGroup
 
+# Arrow's jemalloc pool hands freed chunks back to the system promptly, so the peak of a chunked pass
+# stays near one chunk whatever the book's length (5,000,000 rows against 1,000,000: validate 1.05x,
+# rate 1.12x, steady from run to run; with the default pool the peaks moved by up to 100 MB between
+# runs and validate reached 1.15x). Read when pyarrow first loads, which the
+# commands do lazily, after this line; a pool chosen in the environment is kept. Arrow's Windows
+# builds have no jemalloc.
+if sys.platform != "win32":
+    os.environ.setdefault("ARROW_DEFAULT_MEMORY_POOL", "jemalloc")
+
 
 class _OneLineUsage(TyperGroup):
     """Usage errors (a missing or unknown option, a value of the wrong type, an unknown command) as
