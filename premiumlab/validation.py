@@ -6,6 +6,7 @@ from pathlib import Path
 
 import pandas as pd
 
+from premiumlab.cautions import VALIDATION
 from premiumlab.cluster import parse_cluster, tasks_on
 from premiumlab.data import Finding, parquet_slices, profile, read_columns, scan_book, with_quantile_bands
 from premiumlab.spec import Spec, load_spec
@@ -33,6 +34,7 @@ class ValidationReport:
                                    "display.float_format", "{:,.4g}".format):
                 for name, table in self.profile.items():
                     lines += ["", f"profile: {name}", table.to_string()]
+        lines += [""] + [f"caution: {c}" for c in VALIDATION]
         return "\n".join(lines)
 
 

@@ -61,6 +61,9 @@ def test_validate_prints_a_profile_on_a_clean_book(book_file, spec_file):
     assert "0 error(s)" in r.stdout
     for part in ("profile: (overall)", "profile: age", "[25, 40)", "frequency", "severity", "loss_cost"):
         assert part in r.stdout
+    cautions = [line for line in r.stdout.splitlines() if line.startswith("caution: ")]
+    assert cautions[0].startswith("caution: Draft for review by a qualified actuary") and len(cautions) == 3
+    assert "as recorded: no development, trend or large-loss cap" in cautions[2]
 
 
 def test_output_under_missing_folder_or_regular_file(tmp_path, book_file, spec_file):
