@@ -170,9 +170,11 @@ def audit(table: Annotated[Path, typer.Argument(help="Rating table folder.")],
     """Check promised directions, bands, relativities and base levels (exit 1 on any violation)."""
     from premiumlab.rating import audit_table
     found = audit_table(table, spec, run)
+    from premiumlab.cautions import DRAFT
     for line in found:
         typer.echo(line)
     typer.echo(f"audit: {len(found)} violation(s) in {table}")
+    _echo_cautions([DRAFT])  # a clean audit is not an approval
     if found:
         raise typer.Exit(1)
 
@@ -241,6 +243,8 @@ def certify(model: Annotated[Path, typer.Argument(help="A LightGBM model in text
         low, high = v["leaves"]
         typer.echo(f"  tree {v['tree']}: leaf {low} (lower {cert['feature']}) has value {v['values'][0]:.6g}, "
                    f"leaf {high} (higher) has {v['values'][1]:.6g}; reversal {v['amount']:.6g}")
+    from premiumlab.cautions import DRAFT
+    _echo_cautions([DRAFT])  # a certificate is not an approval
     if cert["violation_count"]:
         raise typer.Exit(1)
 

@@ -73,6 +73,7 @@ def test_audit_exits_1_and_names_an_injected_reversal(demo_run, tmp_path):
     assert not lines[-1].startswith("audit: 0 ")
     clean = run_cli("audit", str(demo_run["table"]), "--spec", str(demo_run["spec"]))
     assert clean.returncode == 0 and "audit: 0 violation(s)" in clean.stdout
+    assert clean.stderr.startswith("caution: Draft for review by a qualified actuary")
 
 
 def test_factor_files_carry_credibility_of_each_level(demo_run):
@@ -110,3 +111,15 @@ def test_impact_thresholds_are_chosen_by_the_user(demo_run, tmp_path):
     bad = run_cli("impact", str(demo_run["book"]), "--current", str(demo_run["glm_table"]), "--proposed",
                   str(demo_run["table"]), "--thresholds", "ten")
     assert bad.returncode == 2 and "--thresholds" in bad.stderr
+
+
+def test_certify_command_on_the_runs_constrained_model(demo_run):
+    """The promised bonus_class (increasing) on the demo run's pure-premium model: the certificate
+    finds no violating leaf pair and, like every output, carries the draft caution."""
+    model = demo_run["run"] / "models" / "gbm_pure_premium.txt"
+    r = run_cli("certify", str(model), "--factor", "bonus_class", "--direction", "increasing")
+    assert r.returncode == 0, r.stdout + r.stderr
+    assert r.stdout.strip().endswith("leaf pairs checked, 0 violation(s)") and " split on bonus_class" in r.stdout
+    assert r.stderr.startswith("caution: Draft for review by a qualified actuary")
+    reversed_promise = run_cli("certify", str(model), "--factor", "bonus_class", "--direction", "decreasing")
+    assert reversed_promise.returncode == 1 and "reversal" in reversed_promise.stdout
