@@ -277,8 +277,8 @@ def latest_period_holdout(periods: np.ndarray) -> np.ndarray:
 
 def read_text_column(path: str | Path, column: str) -> np.ndarray:
     """One column of a book as strings typed the way the book's levels are ("01" stays "01")."""
-    from premiumlab.data import _as_text, iter_book
-    return np.concatenate([_as_text(chunk[column]) for _, chunk in iter_book(path, [column])])
+    from premiumlab.data import as_text, iter_book
+    return np.concatenate([as_text(chunk[column]) for _, chunk in iter_book(path, [column])])
 
 
 def read_development(path: Path) -> dict[str, float]:
@@ -320,7 +320,7 @@ def read_claims(path: Path, spec: Spec, policy: np.ndarray, period: np.ndarray |
                 amount: np.ndarray) -> Claims:
     """Read the claims file, match each claim to its book row by policy (and period) and check that
     the claims of every row add up to the row's amount."""
-    from premiumlab.data import _as_text, iter_book, read_columns
+    from premiumlab.data import as_text, iter_book, read_columns
     c, exp = spec.columns, spec.experience
     if not path.exists():
         raise InputError(f"{path}: claims file not found (experience.claims_file)")
@@ -333,14 +333,14 @@ def read_claims(path: Path, spec: Spec, policy: np.ndarray, period: np.ndarray |
         raise InputError(f"{path}: missing column '{missing[0]}' in the claims file")
     chunks = [chunk for _, chunk in iter_book(path, wanted)]
     frame = pd.concat(chunks, ignore_index=True) if chunks else pd.DataFrame(columns=wanted)
-    text = {k: _as_text(frame[k]) for k in keys}
+    text = {k: as_text(frame[k]) for k in keys}
     values = pd.to_numeric(frame[amount_col].astype("string").str.strip(), errors="coerce").to_numpy(
         dtype=float, na_value=np.nan)
     bad = np.flatnonzero(~(np.isfinite(values) & (values >= 0)))
     if bad.size:
         raise InputError(f"{path}: column '{amount_col}', row {bad[0]}: {frame[amount_col].iloc[bad[0]]!r} is not "
                          f"an amount >= 0")
-    cat = (_flags(_as_text(frame[exp.catastrophe_column]), path, exp.catastrophe_column) if exp.catastrophe_column
+    cat = (_flags(as_text(frame[exp.catastrophe_column]), path, exp.catastrophe_column) if exp.catastrophe_column
            else np.zeros(len(frame), dtype=bool))
     book_keys = [policy] + ([period] if c.period else [])
     index = pd.MultiIndex.from_arrays([np.asarray(k, dtype=object) for k in book_keys])

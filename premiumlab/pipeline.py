@@ -20,7 +20,8 @@ import pandas as pd
 
 from premiumlab.cautions import cautions_for
 from premiumlab.cluster import TaskRunner, parse_cluster, tasks_on
-from premiumlab.data import Book, Levels, categorise, factor_levels, load_book
+from premiumlab.book_scan import load_book
+from premiumlab.data import Book, Levels, categorise, factor_levels
 from premiumlab.errors import InputError
 from premiumlab.experience import latest_period_holdout, read_text_column
 from premiumlab.jsonio import read_json, write_json

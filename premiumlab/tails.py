@@ -109,7 +109,7 @@ def plot_tail(losses: np.ndarray, fit: TailFit, path: str | Path) -> Path:
 
 def tail_losses(book_path: str | Path, spec_path: str | Path) -> tuple[np.ndarray, str]:
     """The losses of the module docstring and a phrase saying what they are."""
-    from premiumlab.data import load_book
+    from premiumlab.book_scan import load_book
     from premiumlab.experience import (future_midpoint, read_claims, read_text_column, trend_factor,
                                        years_to_future)
     from premiumlab.spec import load_spec

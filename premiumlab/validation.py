@@ -8,7 +8,8 @@ import pandas as pd
 
 from premiumlab.cautions import VALIDATION
 from premiumlab.cluster import parse_cluster, tasks_on
-from premiumlab.data import Finding, parquet_slices, profile, read_columns, scan_book, with_quantile_bands
+from premiumlab.book_scan import parquet_slices, profile, scan_book, with_quantile_bands
+from premiumlab.data import Finding, read_columns
 from premiumlab.spec import Spec, load_spec
 
 

@@ -16,7 +16,7 @@ import pandas as pd
 import pytest
 
 from premiumlab.cluster import IN_PROCESS, parse_cluster, tasks_on
-from premiumlab.data import parquet_slices, scan_book
+from premiumlab.book_scan import parquet_slices, scan_book
 from premiumlab.errors import InputError
 from premiumlab.gbm import fit_target
 from premiumlab.spec import load_spec

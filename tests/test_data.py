@@ -6,8 +6,8 @@ import pandas as pd
 import pytest
 
 from premiumlab.bands import band_labels, quantile_edges
-from premiumlab.data import (_repeated_keys, holdout_flags, iter_book, load_book, profile, scan_book,
-                             with_quantile_bands)
+from premiumlab.book_scan import _repeated_keys, load_book, profile, scan_book, with_quantile_bands
+from premiumlab.data import holdout_flags, iter_book
 from premiumlab.errors import InputError
 from premiumlab.spec import load_spec
 
