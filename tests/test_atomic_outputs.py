@@ -3,7 +3,8 @@ is renamed into place at the end; a killed command leaves nothing at the target 
 swept at the next start; `--force` keeps the old output until the new one is in place.
 
 The kill test stops `fit` with SIGKILL (no handler can run) once the temporary folder holds a file,
-on a book large enough for the boosted models to take several seconds after the first GLM file.
+on a book large enough for the boosted models to take several seconds after the first GLM file;
+the interrupt test sends SIGINT (Ctrl-C) at the same moment, which the command's handlers see.
 """
 from __future__ import annotations
 
@@ -35,24 +36,32 @@ def _leftovers(parent: Path) -> list[str]:
     return sorted(p.name for p in parent.iterdir() if p.name.startswith("."))
 
 
-def _fit_and_kill(base: Path, *extra: str) -> int:
-    """Start `fit` (GLM and GBM), wait until its temporary folder holds a file, SIGKILL it; its pid."""
+def _fit_and_stop(base: Path, *extra: str, sig: signal.Signals = signal.SIGKILL) -> tuple[int, int, str]:
+    """Start `fit` (GLM and GBM), wait until its temporary folder holds a file, send it `sig`;
+    (pid, exit code, stderr)."""
     proc = subprocess.Popen([sys.executable, "-m", "premiumlab", "fit", "book.csv", "--spec", "spec.toml",
                              "--out", "run", *extra], cwd=base, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
     tmp = base / f".run.tmp-{proc.pid}"
     deadline = time.monotonic() + START_TIMEOUT
     try:
         while not (tmp.is_dir() and any(p.is_file() for p in tmp.rglob("*"))):
-            assert proc.poll() is None, f"fit ended before it could be killed: {proc.stderr.read()}"
+            assert proc.poll() is None, f"fit ended before it could be stopped: {proc.stderr.read()}"
             assert time.monotonic() < deadline, "no file appeared in the temporary folder"
             time.sleep(POLL_SECONDS)
     finally:
-        os.kill(proc.pid, signal.SIGKILL)
+        os.kill(proc.pid, sig)
+        err = proc.stderr.read().decode()
         proc.wait()
         proc.stderr.close()
-    assert proc.returncode == -signal.SIGKILL
-    assert tmp.is_dir()  # the killed process left its temporary folder behind
-    return proc.pid
+    return proc.pid, proc.returncode, err
+
+
+def _fit_and_kill(base: Path, *extra: str) -> int:
+    """`_fit_and_stop` with SIGKILL (no handler can run): the temporary folder stays behind; the pid."""
+    pid, code, _ = _fit_and_stop(base, *extra)
+    assert code == -signal.SIGKILL
+    assert (base / f".run.tmp-{pid}").is_dir()
+    return pid
 
 
 @pytest.fixture(scope="module")
@@ -145,3 +154,16 @@ def test_an_output_another_process_created_meanwhile_is_not_replaced_without_for
     with atomic_output(target, force=True) as tmp:  # with force the later one replaces it, as asked
         (tmp / "mine.txt").write_text("later")
     assert sorted(p.name for p in target.iterdir()) == ["mine.txt"]
+
+
+def test_an_interrupted_fit_cleans_up_and_exits_130(book_folder):
+    """Ctrl-C (SIGINT) while `fit` writes: its handler removes the temporary folder, nothing reaches
+    the target, no traceback, and the exit code is 128 + 2 as for any interrupted tool."""
+    base = book_folder
+    inputs = {k: v for k, v in _tree(base).items() if not k.startswith("run/")}
+    old = _tree(base / "run") if (base / "run").exists() else None
+    _, code, err = _fit_and_stop(base, "--force", sig=signal.SIGINT)
+    assert code == 130 and "Traceback" not in err, err
+    assert _leftovers(base) == []
+    assert (_tree(base / "run") if (base / "run").exists() else None) == old
+    assert {k: v for k, v in _tree(base).items() if not k.startswith("run/")} == inputs
