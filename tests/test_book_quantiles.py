@@ -9,6 +9,8 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from premiumlab.bands import quantile_edges
 from premiumlab.book_quantiles import book_quantile_edges, sortable_keys
@@ -56,3 +58,17 @@ def test_a_single_value_and_zero_weights():
     assert book_quantile_edges(_chunked(values, np.ones(100), 30), 4).size == 0
     with pytest.raises(ValueError, match="weights sum to zero"):
         book_quantile_edges(_chunked(values, np.zeros(100), 30), 4)
+
+
+@settings(max_examples=300, deadline=None)
+@given(data=st.data(), n_bands=st.integers(2, 12), size=st.integers(1, 40))
+def test_random_columns_give_the_same_edges_in_passes(data, n_bands, size):
+    """Property (hypothesis): any finite values (few distinct ones, so ties are common) and positive
+    weights, read in chunks of any size, give `quantile_edges`' edges."""
+    n = data.draw(st.integers(1, 200))
+    pool = data.draw(st.lists(st.floats(-1e12, 1e12, allow_nan=False), min_size=1, max_size=30))
+    values = np.array(data.draw(st.lists(st.sampled_from(pool), min_size=n, max_size=n)))
+    weights = np.array(data.draw(st.lists(st.one_of(st.integers(1, 5).map(float), st.floats(1e-3, 1e3)),
+                                          min_size=n, max_size=n)))
+    np.testing.assert_array_equal(book_quantile_edges(_chunked(values, weights, size), n_bands),
+                                  quantile_edges(values, weights, n_bands))
