@@ -205,15 +205,19 @@ def _json_float(value: float | None) -> float | None:
 
 
 def _level_codes(factors: pd.DataFrame, name: str, levels: list[str]) -> np.ndarray:
+    """Position of each row's value (as text) among `levels`; matched once per distinct value."""
     if name not in factors.columns:
         raise InputError(f"factors: column '{name}' is missing")
-    values = factors[name].astype("string")
-    codes = pd.Index(levels, dtype=object).get_indexer(values.to_numpy(dtype=object, na_value=None))
+    column = factors[name]
+    row_codes, uniques = pd.factorize(column, use_na_sentinel=True)
+    text = pd.Series(np.asarray(uniques, dtype=object), dtype=object).astype("string")
+    level_of = pd.Index(levels, dtype=object).get_indexer(text.to_numpy(dtype=object, na_value=None))
+    codes = np.append(level_of, -1)[row_codes]  # a missing value (code -1) matches no level
     unknown = np.flatnonzero(codes < 0)
     if unknown.size:
+        value = column.iloc[[unknown[0]]].astype("string").iloc[0]
         raise InputError(
-            f"factor '{name}': level '{values.iloc[unknown[0]]}' at row position {unknown[0]} "
-            "is missing or not a fitted level"
+            f"factor '{name}': level '{value}' at row position {unknown[0]} is missing or not a fitted level"
         )
     return codes.astype(np.int64)
 

@@ -179,3 +179,6 @@ def test_bad_calls_are_refused_by_name(book):
     frame.loc[5, "cover"] = "c7"
     with pytest.raises(InputError, match="factor 'cover': level 'c7' at row position 5"):
         fit_frequency(inputs).predict(frame)
+    frame.loc[5, "cover"], frame.loc[3, "area"] = frame.loc[4, "cover"], None
+    with pytest.raises(InputError, match="factor 'area': level '<NA>' at row position 3 is missing"):
+        fit_frequency(inputs).predict(frame)
