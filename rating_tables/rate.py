@@ -159,9 +159,15 @@ def rating_columns(table: RatingTable, book: pd.DataFrame, exposure_column: str 
     """
     exposure = _exposure(book, exposure_column, annual, row_offset)
     out = relativities(table, book, row_offset)
-    out["pure_premium"] = pure_premium(table.base_rate, out, exposure)
-    out["gross_premium"] = gross_premium(out["pure_premium"], exposure, table.loadings,
-                                         table.rounding.premium_decimals)
+    with np.errstate(over="ignore", invalid="ignore"):  # checked below, row by row
+        out["pure_premium"] = pure_premium(table.base_rate, out, exposure)
+        out["gross_premium"] = gross_premium(out["pure_premium"], exposure, table.loadings,
+                                             table.rounding.premium_decimals)
+    bad = np.flatnonzero(~np.isfinite(out["gross_premium"]))
+    if bad.size:
+        where = book_row(row_offset + int(bad[0]))
+        raise TableError(f"premium at {where} is too large to represent (exposure {float(exposure[bad[0]])!r}); "
+                         "check the exposure", check="book", where=where)
     return out
 
 

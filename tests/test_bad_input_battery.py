@@ -229,6 +229,8 @@ CASES: list[tuple[str, str, int, str, Prepare | None]] = [
      policies(lambda d: d.drop(columns="bonus"))),
     ("rate-negative-exposure", RATE, 2, "exposure column 'exposure': value -1.0 at book row 2 (0-based)",
      policies(lambda d: d.assign(exposure=[1.0, 0.5, -1.0, 0.25, 0.1]))),
+    ("rate-premium-overflow", RATE, 2, "premium at book row 1 (0-based) is too large to represent (exposure 1e+308)",
+     policies(lambda d: d.assign(exposure=[1.0, 1e308, 1.0, 0.25, 0.1]))),
     ("rate-empty-book", "rate table empty.csv --out priced.csv", 2, "premiumlab: empty.csv: cannot be read",
      lambda f: (f / "empty.csv").write_bytes(b"")),
     ("rate-header-only-book", "rate table policies.csv --out priced.csv", 2,
