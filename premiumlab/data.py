@@ -22,6 +22,9 @@ CHUNK_ROWS = 500_000
 #: Rows whose exposure exceeds this many terms are reported (exposure is usually at most one term).
 TERM = 1.0
 SHOW_ROWS = 5
+#: Money amounts must stay below this: float64 holds 15 to 16 significant digits, so from 1e15 on a
+#: sum of amounts can no longer carry cents (and squares in the deviances overflow long before 1e308).
+MONEY_LIMIT = 1e15
 
 
 @dataclass(frozen=True)
@@ -242,6 +245,8 @@ def check_chunk(chunk: pd.DataFrame, offset: int, spec: Spec, out: FindingCollec
         out.add("error", c.claim_amount, "with a missing or non-finite claim amount",
                 ~np.isfinite(amount) & ~bad, offset)
         out.add("error", c.claim_amount, "with a negative claim amount", amount < 0, offset)
+        out.add("error", c.claim_amount, f"with a claim amount of {MONEY_LIMIT:g} or more (check the units)",
+                np.isfinite(amount) & (amount >= MONEY_LIMIT), offset)
         out.add("error", c.claim_amount, f"with a positive amount but zero claims in '{c.claim_count}'",
                 (amount > 0) & (count == 0), offset)
         out.add("warning", c.claim_amount, "with nil claims (claims but amount 0; excluded from severity)",
@@ -253,6 +258,8 @@ def check_chunk(chunk: pd.DataFrame, offset: int, spec: Spec, out: FindingCollec
         out.add("error", c.current_premium, "with a non-numeric current premium", bad, offset)
         out.add("error", c.current_premium, "with a missing, non-finite or non-positive current premium",
                 ~(np.isfinite(premium) & (premium > 0)) & ~bad, offset)
+        out.add("error", c.current_premium, f"with a current premium of {MONEY_LIMIT:g} or more (check the units)",
+                np.isfinite(premium) & (premium >= MONEY_LIMIT), offset)
 
     factors: dict[str, np.ndarray] = {}
     for f in spec.factors:

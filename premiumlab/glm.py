@@ -273,9 +273,17 @@ def _engine_name(engine: str, problem: _Problem) -> str:
 
 
 def _estimate(problem: _Problem, family: Family, engine: str) -> EngineFit:
-    if engine == "cells":
-        return fit_on_cells(problem.cells, problem.columns.kept, family)
-    return fit_on_rows(problem.design, problem.numerator, problem.weight, problem.columns.kept, family)
+    """The engine's fit; a numerical failure inside it (statsmodels or the linear algebra) becomes an
+    InputError naming the model, since it comes from the data."""
+    try:
+        if engine == "cells":
+            return fit_on_cells(problem.cells, problem.columns.kept, family)
+        return fit_on_rows(problem.design, problem.numerator, problem.weight, problem.columns.kept, family)
+    except InputError:
+        raise
+    except (ValueError, FloatingPointError, np.linalg.LinAlgError) as e:
+        raise InputError(f"the {problem.label} GLM could not be fitted ({' '.join(str(e).split())}); "
+                         "check the book for extreme or degenerate values") from None
 
 
 def _full_beta(problem: _Problem, fit: EngineFit) -> np.ndarray:

@@ -166,6 +166,8 @@ CASES: list[tuple[str, str, int, str, Prepare | None]] = [
      book(lambda d: d.assign(claim_count=d["claim_count"].mask(d.index == 8, -1)))),
     ("book-amount-without-claims", FIT, 2, "positive amount but zero claims in 'claim_count'",
      book(lambda d: d.assign(claim_amount=d["claim_amount"].mask(d["claim_count"] == 0, 100.0)))),
+    ("book-absurd-amount", FIT, 2, "column 'claim_amount': 1 row with a claim amount of 1e+15 or more (check the units)",
+     book(lambda d: d.assign(claim_amount=d["claim_amount"].mask(d.index == d.index[d["claim_count"] > 0][0], 1e308)))),
     ("book-no-claims", FIT, 2, "the book has no claims (column 'claim_count' sums to 0)",
      book(lambda d: d.assign(claim_count=0, claim_amount=0.0))),
     ("book-one-level-factor", FIT, 2, "factor 'region' has one level only (Eastvale)",

@@ -12,6 +12,7 @@ import pandas as pd
 import pytest
 import statsmodels.api as sm
 
+import premiumlab.glm as glm
 from premiumlab.errors import InputError
 from premiumlab.glm import GlmInputs, GlmResult, fit_frequency, fit_pure_premium, fit_severity
 from premiumlab.glm_engines import POISSON, OneHotDesign, choose_engine, row_statistics
@@ -182,3 +183,14 @@ def test_bad_calls_are_refused_by_name(book):
     frame.loc[5, "cover"], frame.loc[3, "area"] = frame.loc[4, "cover"], None
     with pytest.raises(InputError, match="factor 'area': level '<NA>' at row position 3 is missing"):
         fit_frequency(inputs).predict(frame)
+
+
+def test_a_numerical_failure_inside_an_engine_names_the_model(book, monkeypatch):
+    """statsmodels raises ValueError when its first deviance is NaN; that reaches the user as one
+    input error naming the model (the engine is replaced by one that fails the same way)."""
+    def failing(*_args, **_kwargs):
+        raise ValueError("The first guess on the deviance function returned a nan.")
+    monkeypatch.setattr(glm, "fit_on_cells", failing)
+    inputs = inputs_of(book, {"area": labelled(book["area"], "a"), "cover": labelled(book["cover"], "c")})
+    with pytest.raises(InputError, match=r"the frequency GLM could not be fitted \(The first guess on the deviance"):
+        fit_frequency(inputs, engine="cells")
