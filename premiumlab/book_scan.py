@@ -20,7 +20,8 @@ from premiumlab.bands import assign_bands, banded
 from premiumlab.book_quantiles import book_quantile_edges
 from premiumlab.cluster import TaskRunner
 from premiumlab.data import (CHUNK_ROWS, Book, Finding, FindingCollector, TypedChunk, as_text, book_files,
-                             book_sha256, check_chunk, cut_levels, holdout_flags, iter_book, read_columns, to_number)
+                             book_sha256, check_chunk, cut_levels, holdout_flags, iter_book, read_columns, to_number,
+                             unreadable_parquet)
 from premiumlab.errors import InputError
 from premiumlab.progress import progress_bar
 from premiumlab.spec import Factor, Spec
@@ -136,7 +137,7 @@ class _Tally:
         for a, b in tally.pairs:
             tally.pairs[(a, b)] = _chunk_pairs(*codes[a], *codes[b])
         if t.policy is not None and t.period is not None:
-            keys = pd.util.hash_pandas_object(pd.DataFrame({"p": t.policy, "t": t.period}), index=False).to_numpy()
+            keys = _key_hashes(t.policy, t.period)
             repeat = pd.Series(keys).duplicated(keep="first").to_numpy()
             tally.seen_keys = [np.unique(keys)]
             tally.repeat_hashes = [np.unique(keys[repeat])] if repeat.any() else []
@@ -168,6 +169,11 @@ class _Tally:
 
     def summary(self) -> BookSummary:
         return BookSummary(self.totals, self.has_amount, self.levels)
+
+
+def _key_hashes(policy: np.ndarray, period: np.ndarray) -> np.ndarray:
+    """A 64-bit hash of each row's (policy, period) text pair (uint64)."""
+    return pd.util.hash_pandas_object(pd.DataFrame({"p": policy, "t": period}), index=False).to_numpy()
 
 
 def _no_sums(f: Factor) -> LevelSums:
@@ -204,7 +210,7 @@ def _repeated_keys(path: Path, spec: Spec, candidates: np.ndarray) -> np.ndarray
     rows, policy, period = [], [], []
     for off, chunk in iter_book(path, [c.policy_id, c.period]):
         p, t = as_text(chunk[c.policy_id]), as_text(chunk[c.period])
-        keys = pd.util.hash_pandas_object(pd.DataFrame({"p": p, "t": t}), index=False).to_numpy()
+        keys = _key_hashes(p, t)
         hit = np.flatnonzero(np.isin(keys, candidates))
         rows.append(hit + off)
         policy.append(p[hit])
@@ -271,7 +277,7 @@ def parquet_slices(path: str | Path, chunk_rows: int = CHUNK_ROWS) -> list[tuple
         try:
             meta = pq.ParquetFile(part).metadata
         except Exception as e:  # pyarrow raises several types for damaged files
-            raise InputError(f"{part}: not a readable Parquet file ({type(e).__name__}: {e})") from None
+            raise unreadable_parquet(part, e) from None
         groups, rows = [], 0
         for g in range(meta.num_row_groups):
             groups.append(g)
@@ -290,7 +296,7 @@ def _scan_slice(job: tuple[Spec, list[str]], piece: tuple[str, list[int], int]) 
     try:
         chunk = pq.ParquetFile(file, pre_buffer=False).read_row_groups(groups, columns=needed).to_pandas()
     except Exception as e:
-        raise InputError(f"{file}: not a readable Parquet file ({type(e).__name__}: {e})") from None
+        raise unreadable_parquet(file, e) from None
     out = FindingCollector(file)
     return out, _Tally.of_chunk(spec, check_chunk(chunk, offset, spec, out))
 

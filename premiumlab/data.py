@@ -85,6 +85,11 @@ def book_sha256(path: str | Path) -> str:
     return h.hexdigest()
 
 
+def unreadable_parquet(path: str | Path, error: Exception) -> InputError:
+    """The error for a Parquet file pyarrow cannot read (it raises several types for damaged files)."""
+    return InputError(f"{path}: not a readable Parquet file ({type(error).__name__}: {error})")
+
+
 def read_columns(path: str | Path) -> list[str]:
     """The column names of a book, read from its header or Parquet schema."""
     files = book_files(Path(path))
@@ -94,7 +99,7 @@ def read_columns(path: str | Path) -> list[str]:
     try:
         return list(pq.read_schema(files[0]).names)
     except Exception as e:  # pyarrow raises several types for damaged files
-        raise InputError(f"{files[0]}: not a readable Parquet file ({type(e).__name__}: {e})") from None
+        raise unreadable_parquet(files[0], e) from None
 
 
 def _read_csv(path: Path, **kwargs) -> pd.DataFrame | Iterator[pd.DataFrame]:
@@ -135,7 +140,7 @@ def iter_book(path: str | Path, columns: list[str], chunk_rows: int = CHUNK_ROWS
             except InputError:
                 raise
             except Exception as e:
-                raise InputError(f"{part}: not a readable Parquet file ({type(e).__name__}: {e})") from None
+                raise unreadable_parquet(part, e) from None
 
 
 # --------------------------------------------------------------------------------------------
