@@ -78,6 +78,14 @@ def _name_the_target(error: BaseException, tmp: Path, target: Path) -> None:
         error.args = (error.args[0].replace(str(tmp), str(target)),)
 
 
+def _discard(tmp: Path) -> None:
+    """Remove a temporary output (a folder or a file), if it is there."""
+    if tmp.is_dir():
+        shutil.rmtree(tmp, ignore_errors=True)
+    else:
+        tmp.unlink(missing_ok=True)
+
+
 def _appeared(target: Path) -> InputError:
     return InputError(f"{target}: was created by another process while this command ran; nothing was "
                       "replaced (use --force to replace it)")
@@ -102,13 +110,10 @@ def atomic_output(target: str | Path, force: bool = False, kind: str = "dir",
         yield tmp
     except BaseException as error:
         _name_the_target(error, tmp, target)
-        if tmp.is_dir():
-            shutil.rmtree(tmp, ignore_errors=True)
-        else:
-            tmp.unlink(missing_ok=True)
+        _discard(tmp)
         raise
     if not force and (target.exists() or target.is_symlink()):
-        shutil.rmtree(tmp, ignore_errors=True) if tmp.is_dir() else tmp.unlink(missing_ok=True)
+        _discard(tmp)
         raise _appeared(target)
     old = None
     if target.exists() or target.is_symlink():
