@@ -57,6 +57,13 @@ def _plain(ax: Axes) -> None:
     ax.spines["right"].set_visible(False)
 
 
+def _level_ticks(ax: Axes, positions: np.ndarray, labels: list[str], **text: object) -> None:
+    """One tick per level; slanted when there are many levels or long labels."""
+    ax.set_xticks(positions)
+    slanted = len(labels) > 8 or max(len(label) for label in labels) > 6
+    ax.set_xticklabels(labels, rotation=45 if slanted else 0, ha="right" if slanted else "center", **text)
+
+
 def _save(fig: Figure, path: str | Path) -> Path:
     """Add the caution footer, lay out and write the PNG (without a software stamp)."""
     from matplotlib.backends.backend_agg import FigureCanvasAgg
@@ -163,9 +170,7 @@ def plot_actual_vs_expected(
     ax.axhline(1.0, color="#999999", linewidth=0.8)
     for position, (name, table) in enumerate(tables.items()):
         ax.plot(positions, table["actual_to_expected"], "o-", color=_colour(position), label=name)
-    ax.set_xticks(positions)
-    long_labels = len(labels) > 8 or max(len(label) for label in labels) > 6
-    ax.set_xticklabels(labels, rotation=45 if long_labels else 0, ha="right" if long_labels else "center")
+    _level_ticks(ax, positions, labels)
     ax.set_xlabel(factor)
     ax.set_ylabel("actual / expected")
     ax.set_title(f"Actual against expected by {factor}", fontsize=11, pad=22)
@@ -242,10 +247,7 @@ def plot_impact(result: Mapping[str, object], path: str | Path, *, factor: str |
         ax.axhline(0.0, color="#999999", linewidth=0.8)
         ax.bar(spots, levels["change"], width=0.7,
                color=[_colour(1) if c > 0 else _colour(0) for c in levels["change"]])
-        ax.set_xticks(spots)
-        long_labels = len(levels) > 8 or max(len(str(v)) for v in levels["level"]) > 6
-        ax.set_xticklabels([str(v) for v in levels["level"]], rotation=45 if long_labels else 0,
-                           ha="right" if long_labels else "center", fontsize=8)
+        _level_ticks(ax, spots, [str(v) for v in levels["level"]], fontsize=8)
         ax.set_xlabel(factor)
         ax.set_ylabel("premium-weighted mean change")
         ax.set_title(f"Mean change by {factor}", fontsize=11)
