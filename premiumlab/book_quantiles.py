@@ -41,11 +41,12 @@ def _histograms(chunks: Chunks, prefixes: set[int], level: int) -> dict[int, np.
     out = {p: np.zeros(BINS) for p in prefixes}
     for values, weights in chunks():
         keys = sortable_keys(values)
+        weights = np.asarray(weights, dtype=float)
         digit = ((keys >> shift) & np.uint64(BINS - 1)).astype(np.intp)
         high = keys >> np.uint64(64 - BITS * level) if level else None
         for p in prefixes:
             rows = slice(None) if high is None else high == np.uint64(p)
-            out[p] += np.bincount(digit[rows], weights=np.asarray(weights, dtype=float)[rows], minlength=BINS)
+            out[p] += np.bincount(digit[rows], weights=weights[rows], minlength=BINS)
     return out
 
 
