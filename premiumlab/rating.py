@@ -33,35 +33,41 @@ def rate_book(table_dir: str | Path, book: str | Path, out: str | Path, exposure
                                        annual=annual)
 
 
-def premiums_from(source: str, frame: pd.DataFrame, exposure: str | None, annual: bool) -> np.ndarray:
-    """Gross premiums per policy: from a table folder, or from a book column given as `column:NAME`."""
+def column_premiums(source: str, frame: pd.DataFrame) -> np.ndarray:
+    """Premiums per policy from the book column named by `source` (`column:NAME`), all > 0."""
+    name = source[len(COLUMN_PREFIX):]
+    if name not in frame.columns:
+        raise InputError(f"{source}: the book has no column '{name}'")
+    values = pd.to_numeric(frame[name], errors="coerce").to_numpy(float)
+    bad = np.flatnonzero(~(np.isfinite(values) & (values > 0)))
+    if bad.size:
+        raise InputError(f"column '{name}': {bad.size} rows with a missing or non-positive premium "
+                         f"(rows {', '.join(map(str, bad[:5]))})")
+    return values
+
+
+def gross_premiums(table, frame: pd.DataFrame, exposure: str | None, annual: bool) -> np.ndarray:
+    """Gross premiums per policy rated with a loaded table."""
     import rating_tables
-    if source.startswith(COLUMN_PREFIX):
-        name = source[len(COLUMN_PREFIX):]
-        if name not in frame.columns:
-            raise InputError(f"{source}: the book has no column '{name}'")
-        values = pd.to_numeric(frame[name], errors="coerce").to_numpy(float)
-        bad = np.flatnonzero(~(np.isfinite(values) & (values > 0)))
-        if bad.size:
-            raise InputError(f"column '{name}': {bad.size} rows with a missing or non-positive premium "
-                             f"(rows {', '.join(map(str, bad[:5]))})")
-        return values
-    table = rating_tables.load(source)
     return rating_tables.rate(table, frame, None if annual else exposure, annual=annual)["gross_premium"].to_numpy()
 
 
 def dislocation(current: str, proposed: str, book: str | Path, exposure: str | None, annual: bool,
                 cap: float | None, thresholds: tuple[float, ...]) -> dict:
-    """Per-policy change from `current` to `proposed` premiums (tables or `column:NAME`)."""
+    """Per-policy change from `current` to `proposed` premiums (tables or `column:NAME`); each
+    table is loaded once."""
     import rating_tables
     if proposed.startswith(COLUMN_PREFIX):
         raise InputError(f"--proposed {proposed}: the proposed premium must come from a table folder")
     frame = read_frame(book)
     table = rating_tables.load(proposed)
-    tables = [table] + ([] if current.startswith(COLUMN_PREFIX) else [rating_tables.load(current)])
+    if current.startswith(COLUMN_PREFIX):
+        tables, now = [table], column_premiums(current, frame)
+    else:
+        current_table = rating_tables.load(current)
+        tables, now = [table, current_table], gross_premiums(current_table, frame, exposure, annual)
     groups = impact_groups(frame, tables)
-    result = rating_tables.impact(premiums_from(current, frame, exposure, annual),
-                                  premiums_from(proposed, frame, exposure, annual), groups,
+    result = rating_tables.impact(now, gross_premiums(table, frame, exposure, annual), groups,
                                   list(groups.columns), thresholds=thresholds, cap=cap)
     result["cautions"] = list(table.cautions)
     return result
