@@ -71,7 +71,6 @@ class BookSummary:
     """What the book-level checks and the profile need, summed chunk by chunk."""
 
     totals: np.ndarray  # the SUMS over the whole book
-    has_amount: bool
     levels: dict[str, LevelSums]
 
     @property
@@ -105,7 +104,6 @@ class _Tally:
     def __init__(self, spec: Spec) -> None:
         self.spec = spec
         self.totals = np.zeros(len(SUMS))
-        self.has_amount = spec.columns.claim_amount is not None
         self.levels: dict[str, LevelSums] = {f.name: _no_sums(f) for f in spec.factors}
         self.spread: dict[str, tuple[float, float]] = {f.name: (np.inf, -np.inf) for f in spec.factors
                                                        if f.type == "numeric"}
@@ -168,7 +166,7 @@ class _Tally:
         self.repeat_hashes += later.repeat_hashes
 
     def summary(self) -> BookSummary:
-        return BookSummary(self.totals, self.has_amount, self.levels)
+        return BookSummary(self.totals, self.levels)
 
 
 def _key_hashes(policy: np.ndarray, period: np.ndarray) -> np.ndarray:
@@ -394,7 +392,8 @@ def profile(summary: BookSummary, spec: Spec) -> dict[str, pd.DataFrame]:
     """Exposure, claims, amount, frequency (claims/exposure), severity (amount/claims) and loss cost
     (amount/exposure) per level or band, and overall; bands and levels cut as `cut_levels` does on
     the whole book (every numeric factor banded: give the spec `with_quantile_bands` returns)."""
-    out = {"(overall)": _profile_table(summary.totals[None, :], pd.Index(["all"]), summary.has_amount)}
+    has_amount = spec.columns.claim_amount is not None
+    out = {"(overall)": _profile_table(summary.totals[None, :], pd.Index(["all"]), has_amount)}
     for f in spec.factors:
         lv = summary.levels[f.name]
         cut = cut_levels(f, lv.values, lv.sums[:, 1], spec.source)
@@ -404,7 +403,7 @@ def profile(summary: BookSummary, spec: Spec) -> dict[str, pd.DataFrame]:
             codes = pd.Categorical(lv.values, categories=list(cut.labels)).codes
         sums = _sums_by(codes, lv.sums, len(cut.labels))
         index = pd.CategoricalIndex(cut.labels, categories=cut.labels, ordered=True, name=f.name)
-        out[f.name] = _profile_table(sums, index, summary.has_amount)
+        out[f.name] = _profile_table(sums, index, has_amount)
     return out
 
 
