@@ -19,7 +19,7 @@ import lightgbm as lgb
 import numpy as np
 import pandas as pd
 
-from premiumlab.gbm import GbmInputs, GbmOptions, fit_final, prepare_training
+from premiumlab.models.gbm.fit import GbmInputs, GbmOptions, fit_final, prepare_training
 
 SETTING = {"num_leaves": 31, "min_data_in_leaf": 200, "learning_rate": 0.05, "lambda_l2": 1.0}
 

@@ -22,8 +22,8 @@ import lightgbm as lgb
 import numpy as np
 
 from gbm_overhead import invented_book
-from premiumlab.cluster import tasks_on
-from premiumlab.gbm import GbmOptions, _deviance_eval, _select_settings, cross_validate, fold_of_group, prepare_training
+from premiumlab._core.cluster import tasks_on
+from premiumlab.models.gbm.fit import GbmOptions, _deviance_eval, _select_settings, cross_validate, fold_of_group, prepare_training
 
 
 def bare_search(data, settings: list[dict], options: GbmOptions) -> list[float]:

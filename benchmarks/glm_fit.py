@@ -22,7 +22,7 @@ import numpy as np
 import pandas as pd
 import statsmodels.api as sm
 
-from premiumlab.glm import GlmInputs, GlmResult, fit_frequency, fit_pure_premium, fit_severity
+from premiumlab.models.glm.fit import GlmInputs, GlmResult, fit_frequency, fit_pure_premium, fit_severity
 
 TWEEDIE_POWER = 1.5
 BANDED_SIZES = (8, 6, 5, 5, 4, 3)

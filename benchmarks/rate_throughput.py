@@ -131,9 +131,9 @@ def write_big_book(path: Path, rng: np.random.Generator) -> None:
 def demo_ratio(demo: Path) -> float:
     """Rater speed on the demo's table over LightGBM predict with the demo's tuned model."""
     import rating_tables
-    from premiumlab.boosting import gbm_features
-    from premiumlab.gbm import load_model
-    from premiumlab.spec import load_spec
+    from premiumlab.runs.gbm_step import gbm_features
+    from premiumlab.models.gbm.fit import load_model
+    from premiumlab.book.spec import load_spec
 
     spec = load_spec(demo / "spec.toml")
     book = pd.read_parquet(demo / "book.parquet")

@@ -53,7 +53,7 @@ def main() -> None:
         for name, extra in (("validate here", ()), (f"validate --cluster local:{args.workers}",
                                                     ("--cluster", f"local:{args.workers}"))):
             out = Path(folder) / f"{len(outputs)}.txt"
-            runs[name] = timed("-c", "import sys; from premiumlab.cli import app; sys.argv[0] = 'premiumlab'; "
+            runs[name] = timed("-c", "import sys; from premiumlab.cli.app import app; sys.argv[0] = 'premiumlab'; "
                                      f"sys.stdout = open({str(out)!r}, 'w'); app()",
                                "validate", str(book), "--spec", str(spec), *extra)
             outputs[name] = out.read_text()

@@ -12,17 +12,17 @@ from importlib import import_module
 __version__ = "0.1.0"
 
 _PUBLIC = {
-    "fit": "premiumlab.pipeline",
-    "open_run": "premiumlab.pipeline",
-    "load_spec": "premiumlab.spec",
-    "load_book": "premiumlab.book_scan",
-    "simulate": "premiumlab.simulator",
-    "validate_book": "premiumlab.validation",
-    "compare": "premiumlab.comparison",
-    "tabulate": "premiumlab.tabulation",
-    "write_report": "premiumlab.report",
-    "run_demo": "premiumlab.demo",
-    "threshold_aid": "premiumlab.tails",
+    "fit": "premiumlab.runs.fit",
+    "open_run": "premiumlab.runs.fit",
+    "load_spec": "premiumlab.book.spec",
+    "load_book": "premiumlab.book.scan",
+    "simulate": "premiumlab.simulation.simulator",
+    "validate_book": "premiumlab.book.validate",
+    "compare": "premiumlab.review.comparison",
+    "tabulate": "premiumlab.tabulation.from_run",
+    "write_report": "premiumlab.review.report",
+    "run_demo": "premiumlab.demo_job",
+    "threshold_aid": "premiumlab.experience.tails",
 }
 
 

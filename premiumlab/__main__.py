@@ -1,4 +1,4 @@
 """`python -m premiumlab` runs the command line."""
-from premiumlab.cli import app
+from premiumlab.cli.app import app
 
 app(prog_name="premiumlab")

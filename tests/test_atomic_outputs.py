@@ -19,8 +19,8 @@ from pathlib import Path
 import pytest
 
 from conftest import SPEC_TEXT, run_cli, small_book
-from premiumlab.errors import InputError
-from premiumlab.outputs import atomic_files, atomic_output
+from premiumlab._core.errors import InputError
+from premiumlab._core.outputs import atomic_files, atomic_output
 
 POLL_SECONDS = 0.02
 START_TIMEOUT = 120.0

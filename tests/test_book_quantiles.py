@@ -12,8 +12,8 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from premiumlab.bands import quantile_edges
-from premiumlab.book_quantiles import book_quantile_edges, sortable_keys
+from premiumlab.book.bands import quantile_edges
+from premiumlab.book.quantiles import book_quantile_edges, sortable_keys
 
 
 def _chunked(values: np.ndarray, weights: np.ndarray, size: int):

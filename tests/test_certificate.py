@@ -7,9 +7,9 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from premiumlab.certificate import certify, parse_model, sweep
-from premiumlab.errors import InputError
-from premiumlab.gbm import GbmInputs, GbmOptions, fit_target
+from premiumlab.models.trees.certificate import certify, parse_model, sweep
+from premiumlab._core.errors import InputError
+from premiumlab.models.gbm.fit import GbmInputs, GbmOptions, fit_target
 
 GRID = ({"num_leaves": 15, "min_data_in_leaf": 20, "learning_rate": 0.1, "lambda_l2": 1.0},
         {"num_leaves": 7, "min_data_in_leaf": 40, "learning_rate": 0.1, "lambda_l2": 0.0})

@@ -15,11 +15,11 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from premiumlab.cluster import IN_PROCESS, parse_cluster, tasks_on
-from premiumlab.book_scan import parquet_slices, scan_book
-from premiumlab.errors import InputError
-from premiumlab.gbm import fit_target
-from premiumlab.spec import load_spec
+from premiumlab._core.cluster import IN_PROCESS, parse_cluster, tasks_on
+from premiumlab.book.scan import parquet_slices, scan_book
+from premiumlab._core.errors import InputError
+from premiumlab.models.gbm.fit import fit_target
+from premiumlab.book.spec import load_spec
 
 from conftest import SPEC_TEXT, run_cli, small_book
 from test_gbm import OPTIONS, invented_book
@@ -67,7 +67,7 @@ def test_bad_cluster_addresses_are_refused(address, fragment):
 
 
 def test_an_unreachable_scheduler_is_one_clear_error(tmp_path, monkeypatch):
-    import premiumlab.cluster as cluster
+    import premiumlab._core.cluster as cluster
     monkeypatch.setattr(cluster, "CONNECT_TIMEOUT", 2)
     with pytest.raises(InputError, match="cannot reach the Dask scheduler at tcp://127.0.0.1:9"):
         with tasks_on("tcp://127.0.0.1:9"):

@@ -5,11 +5,11 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from premiumlab.bands import band_labels, quantile_edges
-from premiumlab.book_scan import _repeated_keys, load_book, profile, scan_book, with_quantile_bands
-from premiumlab.data import holdout_flags, iter_book
-from premiumlab.errors import InputError
-from premiumlab.spec import load_spec
+from premiumlab.book.bands import band_labels, quantile_edges
+from premiumlab.book.scan import _repeated_keys, load_book, profile, scan_book, with_quantile_bands
+from premiumlab.book.data import holdout_flags, iter_book
+from premiumlab._core.errors import InputError
+from premiumlab.book.spec import load_spec
 
 from conftest import small_book
 

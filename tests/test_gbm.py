@@ -10,8 +10,8 @@ import pandas as pd
 import pytest
 from sklearn.metrics import mean_gamma_deviance, mean_poisson_deviance, mean_tweedie_deviance
 
-from premiumlab.errors import InputError
-from premiumlab.gbm import (
+from premiumlab._core.errors import InputError
+from premiumlab.models.gbm.fit import (
     GbmInputs, GbmOptions, _deviance_eval, fit_target, fold_of_group, load_model, prepare_training,
 )
 

@@ -12,10 +12,10 @@ import pandas as pd
 import pytest
 import statsmodels.api as sm
 
-import premiumlab.glm as glm
-from premiumlab.errors import InputError
-from premiumlab.glm import GlmInputs, GlmResult, fit_frequency, fit_pure_premium, fit_severity
-from premiumlab.glm_engines import POISSON, OneHotDesign, choose_engine, row_statistics
+import premiumlab.models.glm.fit as glm
+from premiumlab._core.errors import InputError
+from premiumlab.models.glm.fit import GlmInputs, GlmResult, fit_frequency, fit_pure_premium, fit_severity
+from premiumlab.models.glm.engines import POISSON, OneHotDesign, choose_engine, row_statistics
 
 ENGINES = ("cells", "rows")
 

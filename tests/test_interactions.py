@@ -6,9 +6,9 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from premiumlab.errors import InputError
-from premiumlab.gbm import GbmInputs, GbmOptions, fit_target
-from premiumlab.interactions import h_statistics, top_factors_by_gain
+from premiumlab._core.errors import InputError
+from premiumlab.models.gbm.fit import GbmInputs, GbmOptions, fit_target
+from premiumlab.models.trees.interactions import h_statistics, top_factors_by_gain
 
 
 def test_h_matches_closed_form_for_a_product_plus_additive_terms():

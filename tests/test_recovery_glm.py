@@ -13,7 +13,7 @@ import numpy as np
 import pytest
 
 import premiumlab
-from premiumlab.jsonio import read_json
+from premiumlab._core.jsonio import read_json
 
 ROOT = Path(__file__).resolve().parents[1]
 

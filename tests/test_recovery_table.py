@@ -18,7 +18,7 @@ import pytest
 
 import premiumlab
 import rating_tables
-from premiumlab.bands import assign_bands
+from premiumlab.book.bands import assign_bands
 
 from conftest import QUICK_GBM
 

@@ -10,8 +10,8 @@ import itertools
 import numpy as np
 import pytest
 
-from premiumlab.errors import InputError
-from premiumlab.segment import optimal_segmentation
+from premiumlab._core.errors import InputError
+from premiumlab.tabulation.segment import optimal_segmentation
 
 
 def _direct_cost(y: np.ndarray, w: np.ndarray, starts: list[int]) -> float:

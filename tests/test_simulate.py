@@ -19,8 +19,8 @@ import pandas as pd
 import pytest
 import scipy.stats as st
 
-from premiumlab.errors import InputError
-from premiumlab.simulator import generate, load_scenario, simulate
+from premiumlab._core.errors import InputError
+from premiumlab.simulation.simulator import generate, load_scenario, simulate
 
 SCENARIOS = Path(__file__).resolve().parent.parent / "scenarios"
 NAMES = ("motor", "household", "motor_main_effects")
@@ -296,7 +296,7 @@ def test_large_loss_mean_equals_scipy(kind: str, params: dict, reference) -> Non
     """The large-loss mean in truth.json equals scipy.stats' mean of the same distribution (1e-12)."""
     doc = tomllib.loads(LARGE_LOSS_SCENARIO)
     doc["large_losses"] = {"probability": 0.02, "distribution": kind, **params}
-    from premiumlab.simulator import parse_scenario
+    from premiumlab.simulation.simulator import parse_scenario
     truth = generate(parse_scenario(doc), policies=200).truth
     assert truth["large_losses"]["mean"] == pytest.approx(reference.mean(), rel=1e-12)
 
@@ -345,7 +345,7 @@ bands = [3]
 def test_numeric_distributions_match_scipy() -> None:
     """Each numeric distribution kind against scipy.stats: Kolmogorov-Smirnov p > 0.001 for
     uniform, normal, lognormal and histogram (rv_histogram), chi-square p > 0.001 for integers."""
-    from premiumlab.simulator import parse_scenario
+    from premiumlab.simulation.simulator import parse_scenario
     book = generate(parse_scenario(tomllib.loads(DISTRIBUTIONS_SCENARIO))).book
     assert len(book) == 4000
     for name, ref in (("u", st.uniform(2.0, 5.0)), ("z", st.norm(40.0, 12.0)),
@@ -402,7 +402,7 @@ def test_scenario_and_its_spec_agree(name: str) -> None:
     """The spec uses only the agreed keys, parses with premiumlab.spec, and names the scenario's
     factors in order with the same types, band edges, levels (when listed) and base levels, the
     simulator's columns, and the scenario's interaction."""
-    from premiumlab.spec import load_spec
+    from premiumlab.book.spec import load_spec
     path = SCENARIOS / f"{name}_spec.toml"
     raw = tomllib.loads(path.read_text(encoding="utf-8"))
     assert set(raw) <= SPEC_KEYS
@@ -428,7 +428,7 @@ def test_scenario_and_its_spec_agree(name: str) -> None:
 @pytest.mark.parametrize("name", NAMES)
 def test_promised_monotone_direction_holds_in_truth(name: str) -> None:
     """Every monotone promise in the spec is kept by the true pure-premium relativities (small book)."""
-    from premiumlab.spec import load_spec
+    from premiumlab.book.spec import load_spec
     spec = load_spec(SCENARIOS / f"{name}_spec.toml")
     truth = generate(load_scenario(SCENARIOS / f"{name}.toml"), policies=5000).truth
     promised = [f for f in spec.factors if f.monotone != "none"]

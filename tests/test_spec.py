@@ -5,8 +5,8 @@ import tomllib
 
 import pytest
 
-from premiumlab.errors import InputError
-from premiumlab.spec import DEFAULT_PROHIBITED, load_spec, parse_spec
+from premiumlab._core.errors import InputError
+from premiumlab.book.spec import DEFAULT_PROHIBITED, load_spec, parse_spec
 
 from conftest import SPEC_TEXT
 

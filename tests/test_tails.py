@@ -14,8 +14,8 @@ import pandas as pd
 import pytest
 from scipy.stats import genpareto
 
-from premiumlab.errors import InputError
-from premiumlab.tails import MIN_EXCEEDANCES, fit_tail, mean_excess, threshold_aid, threshold_grid
+from premiumlab._core.errors import InputError
+from premiumlab.experience.tails import MIN_EXCEEDANCES, fit_tail, mean_excess, threshold_aid, threshold_grid
 
 from conftest import SPEC_TEXT, run_cli, small_book
 

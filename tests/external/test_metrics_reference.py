@@ -20,7 +20,7 @@ from sklearn.metrics import (
     roc_auc_score,
 )
 
-from premiumlab import metrics
+from premiumlab.evaluation import metrics
 
 
 @pytest.fixture(scope="module")

@@ -1,0 +1,159 @@
+"""Atomic outputs: work in a hidden temporary folder beside the target, rename into place at the end.
+
+The temporary folder is `.NAME.tmp-PID` beside the target; folders of processes that no longer run
+are swept at the next start. With `force`, an existing target is first moved aside to
+`.NAME.old-PID` and removed only after the new output is in place (a process stopped between the
+two moves leaves the old output aside: the sweep puts it back). Without `force`, a target that
+another process created while the command ran is not replaced either. A target that is or holds
+one of the command's inputs is refused, so that `--force` cannot destroy an input.
+"""
+from __future__ import annotations
+
+import os
+import re
+import shutil
+from collections.abc import Iterator
+from contextlib import contextmanager
+from pathlib import Path
+
+from premiumlab._core.errors import InputError
+
+_LEFTOVER = re.compile(r"^\.(?P<name>.+)\.(?P<kind>tmp|old)-(?P<pid>\d+)$")
+
+
+def _alive(pid: int) -> bool:
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        return True
+    return True
+
+
+def sweep_leftovers(parent: Path) -> None:
+    """Remove temporary folders and files left by processes that are no longer running; put an old
+    output moved aside back in place when nothing took its place."""
+    try:
+        entries = list(parent.iterdir())
+    except OSError:
+        return
+    for entry in entries:
+        m = _LEFTOVER.match(entry.name)
+        if m and int(m.group("pid")) != os.getpid() and not _alive(int(m.group("pid"))):
+            original = parent / m.group("name")
+            if m.group("kind") == "old" and not (original.exists() or original.is_symlink()):
+                os.replace(entry, original)  # stopped between moving the old output aside and the new in
+            elif entry.is_dir() and not entry.is_symlink():
+                shutil.rmtree(entry, ignore_errors=True)
+            else:
+                entry.unlink(missing_ok=True)
+
+
+def _holds(outer: Path, inner: Path) -> bool:
+    """True when `inner` is `outer` or lies inside it (symbolic links resolved)."""
+    return Path(os.path.realpath(inner)).is_relative_to(os.path.realpath(outer))
+
+
+def check_target(target: Path, force: bool, inputs: tuple[str | Path, ...] = ()) -> None:
+    """Sweep the leftovers beside the target, then refuse a target whose folder is missing or not a
+    folder, that is or holds one of the command's `inputs` (replacing it would destroy the input), or
+    that exists without `force`."""
+    parent = target.parent
+    if not parent.exists():
+        raise InputError(f"{target}: the folder {parent} does not exist")
+    if not parent.is_dir():
+        raise InputError(f"{target}: {parent} is not a folder")
+    sweep_leftovers(parent)
+    for source in inputs:
+        if _holds(target, Path(source)):
+            raise InputError(f"{target}: is or holds the input {source}; write the output elsewhere")
+    if (target.exists() or target.is_symlink()) and not force:
+        raise InputError(f"{target}: already exists; use --force to replace it")
+
+
+def _name_the_target(error: BaseException, tmp: Path, target: Path) -> None:
+    """Let a one-line bad-input message about the hidden temporary path name the target instead."""
+    if isinstance(error, ValueError) and len(error.args) == 1 and isinstance(error.args[0], str):
+        error.args = (error.args[0].replace(str(tmp), str(target)),)
+
+
+def _discard(tmp: Path) -> None:
+    """Remove a temporary output (a folder or a file), if it is there."""
+    if tmp.is_dir():
+        shutil.rmtree(tmp, ignore_errors=True)
+    else:
+        tmp.unlink(missing_ok=True)
+
+
+def _appeared(target: Path) -> InputError:
+    return InputError(f"{target}: was created by another process while this command ran; nothing was "
+                      "replaced (use --force to replace it)")
+
+
+@contextmanager
+def atomic_output(target: str | Path, force: bool = False, kind: str = "dir",
+                  inputs: tuple[str | Path, ...] = ()) -> Iterator[Path]:
+    """Yield a temporary path (a folder for kind="dir", a file path for kind="file") beside `target`.
+
+    On success it is renamed to `target`; on any error it is removed and `target` is untouched.
+    """
+    target = Path(target)
+    check_target(target, force, inputs)
+    parent = target.parent
+    tmp = parent / f".{target.name}.tmp-{os.getpid()}"
+    if tmp.exists():
+        shutil.rmtree(tmp) if tmp.is_dir() else tmp.unlink()
+    if kind == "dir":
+        tmp.mkdir()
+    try:
+        yield tmp
+    except BaseException as error:
+        _name_the_target(error, tmp, target)
+        _discard(tmp)
+        raise
+    if not force and (target.exists() or target.is_symlink()):
+        _discard(tmp)
+        raise _appeared(target)
+    old = None
+    if target.exists() or target.is_symlink():
+        old = parent / f".{target.name}.old-{os.getpid()}"
+        os.replace(target, old)
+    try:
+        os.replace(tmp, target)
+    except BaseException:
+        if old is not None:
+            os.replace(old, target)
+        raise
+    if old is not None:
+        shutil.rmtree(old) if old.is_dir() and not old.is_symlink() else old.unlink()
+
+
+@contextmanager
+def atomic_files(targets: list[Path], force: bool = False,
+                 inputs: tuple[str | Path, ...] = ()) -> Iterator[Path]:
+    """Yield a hidden temporary folder; the files written there under the targets' names are moved
+    into place at the end (all targets share one folder). On any error nothing is moved."""
+    parent = targets[0].parent
+    for t in targets:
+        check_target(t, force, inputs)
+        if t.is_dir() and not t.is_symlink():
+            raise InputError(f"{t}: is a folder; the output is a file")
+    tmp = parent / f".{targets[0].name}.tmp-{os.getpid()}"
+    shutil.rmtree(tmp, ignore_errors=True)
+    tmp.mkdir()
+    try:
+        yield tmp
+        for t in targets:
+            if not (tmp / t.name).exists():
+                raise InputError(f"{t}: was not written")
+            if not force and (t.exists() or t.is_symlink()):
+                raise _appeared(t)
+        for t in targets:
+            os.replace(tmp / t.name, t)
+    except BaseException as error:
+        for t in targets:
+            _name_the_target(error, tmp / t.name, t)
+        raise
+    finally:
+        shutil.rmtree(tmp, ignore_errors=True)

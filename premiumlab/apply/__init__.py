@@ -1,0 +1,1 @@
+"""Applying a rating table: `rate`, `impact` and `audit`, glue over `rating_tables`."""

@@ -1,0 +1,1 @@
+"""The book and its spec: reading CSV/Parquet, row checks, the whole-book scan, bands, split, `validate`."""

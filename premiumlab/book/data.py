@@ -1,0 +1,367 @@
+"""Books of policies: reading CSV/Parquet in chunks, the row checks of a chunk, the seeded split,
+banding (the whole-book pass and its book-level checks are in `book_scan`).
+
+Row numbers in messages are 0-based data rows (the header is not counted), the same index that
+`predictions.parquet` calls `row`.
+"""
+from __future__ import annotations
+
+import hashlib
+from collections.abc import Iterator
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from premiumlab.book.bands import banded, quantile_edges
+from premiumlab._core.errors import InputError
+from premiumlab.book.spec import Factor, Spec
+
+CHUNK_ROWS = 500_000
+#: Rows whose exposure exceeds this many terms are reported (exposure is usually at most one term).
+TERM = 1.0
+SHOW_ROWS = 5
+#: Money amounts must stay below this: float64 holds 15 to 16 significant digits, so from 1e15 on a
+#: sum of amounts can no longer carry cents (and squares in the deviances overflow long before 1e308).
+MONEY_LIMIT = 1e15
+
+
+@dataclass(frozen=True)
+class Finding:
+    """One data finding: `error` stops every command but `validate`; `warning` is reported only."""
+
+    level: str
+    column: str
+    message: str
+
+    def __str__(self) -> str:
+        return f"{self.level}: {self.message}"
+
+
+@dataclass
+class Book:
+    """A validated book, typed: numeric factors float64, categorical factors as strings."""
+
+    path: str
+    frame: pd.DataFrame
+    exposure: np.ndarray
+    claim_count: np.ndarray
+    claim_amount: np.ndarray | None
+    current_premium: np.ndarray | None
+    policy: np.ndarray
+    holdout: np.ndarray
+    sha256: str
+    warnings: list[Finding] = field(default_factory=list)
+
+    @property
+    def n_rows(self) -> int:
+        return len(self.exposure)
+
+
+# --------------------------------------------------------------------------------------------
+# reading
+
+def book_files(path: Path) -> list[Path]:
+    if not path.exists():
+        raise InputError(f"{path}: book not found")
+    if path.is_dir():
+        parts = sorted(p for p in path.iterdir() if p.suffix.lower() in (".parquet", ".pq"))
+        if not parts:
+            raise InputError(f"{path}: is a directory with no .parquet parts; expected a CSV or Parquet book")
+        return parts
+    if path.suffix.lower() not in (".csv", ".parquet", ".pq"):
+        raise InputError(f"{path}: unsupported book format '{path.suffix}'; use .csv or .parquet")
+    return [path]
+
+
+def book_sha256(path: str | Path) -> str:
+    """sha256 over the bytes of the book file (or its Parquet parts in name order)."""
+    h = hashlib.sha256()
+    for part in book_files(Path(path)):
+        with open(part, "rb") as fh:
+            for block in iter(lambda: fh.read(1 << 20), b""):
+                h.update(block)
+    return h.hexdigest()
+
+
+def unreadable_parquet(path: str | Path, error: Exception) -> InputError:
+    """The error for a Parquet file pyarrow cannot read (it raises several types for damaged files)."""
+    return InputError(f"{path}: not a readable Parquet file ({type(error).__name__}: {error})")
+
+
+def read_columns(path: str | Path) -> list[str]:
+    """The column names of a book, read from its header or Parquet schema."""
+    files = book_files(Path(path))
+    if files[0].suffix.lower() == ".csv":
+        return list(_read_csv(files[0], nrows=0).columns)
+    import pyarrow.parquet as pq
+    try:
+        return list(pq.read_schema(files[0]).names)
+    except Exception as e:  # pyarrow raises several types for damaged files
+        raise unreadable_parquet(files[0], e) from None
+
+
+def _read_csv(path: Path, **kwargs) -> pd.DataFrame | Iterator[pd.DataFrame]:
+    try:
+        return pd.read_csv(path, dtype=str, keep_default_na=False, encoding="utf-8-sig", **kwargs)
+    except UnicodeDecodeError as e:
+        raise InputError(f"{path}: not UTF-8 text (byte {e.start})") from None
+    except pd.errors.EmptyDataError:
+        raise InputError(f"{path}: empty file, no header row") from None
+    except pd.errors.ParserError as e:
+        raise InputError(f"{path}: malformed CSV ({str(e).strip().splitlines()[-1]})") from None
+
+
+def iter_book(path: str | Path, columns: list[str], chunk_rows: int = CHUNK_ROWS
+              ) -> Iterator[tuple[int, pd.DataFrame]]:
+    """Yield (first row index, chunk) over the book; CSV values come as strings."""
+    offset = 0
+    for part in book_files(Path(path)):
+        if part.suffix.lower() == ".csv":
+            # every column is read: with `usecols` pandas drops the extra fields of a ragged row silently
+            reader = _read_csv(part, chunksize=chunk_rows)
+            try:
+                for chunk in reader:
+                    yield offset, chunk[columns].reset_index(drop=True)
+                    offset += len(chunk)
+            except UnicodeDecodeError as e:
+                raise InputError(f"{part}: not UTF-8 text (byte {e.start})") from None
+            except pd.errors.ParserError as e:
+                raise InputError(f"{part}: malformed CSV ({str(e).strip().splitlines()[-1]})") from None
+        else:
+            import pyarrow.parquet as pq
+            try:
+                pf = pq.ParquetFile(part, pre_buffer=False)  # pre-buffering would keep every row group read
+                for batch in pf.iter_batches(batch_size=chunk_rows, columns=columns):
+                    chunk = batch.to_pandas()
+                    yield offset, chunk
+                    offset += len(chunk)
+            except InputError:
+                raise
+            except Exception as e:
+                raise unreadable_parquet(part, e) from None
+
+
+# --------------------------------------------------------------------------------------------
+# row checks (pure: a chunk in, findings out)
+
+class FindingCollector:
+    """Collects findings per (level, column, check) across chunks: counts add, first rows kept."""
+
+    def __init__(self, source: str) -> None:
+        self.source = source
+        self.items: dict[tuple[str, str, str], list] = {}
+
+    def add(self, level: str, column: str, check: str, mask: np.ndarray, offset: int) -> None:
+        self.add_rows(level, column, check, np.flatnonzero(mask) + offset)
+
+    def add_rows(self, level: str, column: str, check: str, rows: np.ndarray) -> None:
+        """Record the rows (0-based, ascending) that fail one check."""
+        if len(rows) == 0:
+            return
+        entry = self.items.setdefault((level, column, check), [0, []])
+        entry[0] += len(rows)
+        entry[1].extend(rows[: SHOW_ROWS - len(entry[1])].tolist())
+
+    def note(self, level: str, column: str, message: str) -> None:
+        self.items[(level, column, message)] = [None, []]
+
+    def merge(self, later: "FindingCollector") -> None:
+        """Add the findings of the rows that follow these in the book."""
+        for key, (count, rows) in later.items.items():
+            entry = self.items.setdefault(key, [0 if count is not None else None, []])
+            if count is not None:
+                entry[0] += count
+                entry[1].extend(rows[: SHOW_ROWS - len(entry[1])])
+
+    def findings(self) -> list[Finding]:
+        out = []
+        for (level, column, check), (count, rows) in self.items.items():
+            if count is None:
+                out.append(Finding(level, column, f"{self.source}: {check}"))
+                continue
+            shown = ", ".join(map(str, rows)) + (", ..." if count > len(rows) else "")
+            out.append(Finding(level, column, f"{self.source}: column '{column}': {count} "
+                                              f"row{'s' if count != 1 else ''} {check} (rows {shown})"))
+        return out
+
+
+def to_number(values: pd.Series) -> tuple[np.ndarray, np.ndarray]:
+    """(float values, mask of present-but-not-numeric entries); blanks become NaN, unmasked."""
+    if pd.api.types.is_numeric_dtype(values) and not pd.api.types.is_bool_dtype(values):
+        return values.to_numpy(dtype=float, na_value=np.nan), np.zeros(len(values), dtype=bool)
+    text = values.astype("string").str.strip()
+    num = pd.to_numeric(text, errors="coerce").to_numpy(dtype=float, na_value=np.nan)
+    blank = (text.isna() | (text == "")).to_numpy(dtype=bool)
+    bad = np.isnan(num) & ~blank & ~text.str.lower().isin(["nan"]).to_numpy(dtype=bool)
+    return num, bad
+
+
+def as_text(values: pd.Series) -> np.ndarray:
+    """Levels as strings ("01" stays "01", floats as %g); missing values become "".
+
+    The text is made once per distinct value and shared by its rows, so a factor with few levels
+    costs one pointer per row however long the book is.
+    """
+    codes, uniques = pd.factorize(values, use_na_sentinel=True)
+    if pd.api.types.is_float_dtype(values):
+        labels = pd.Series([format(v, "g") for v in uniques], dtype=object)
+    else:
+        labels = pd.Series(uniques).astype("string")
+    text = np.append(labels.str.strip().to_numpy(dtype=object), "")  # code -1 (missing) -> ""
+    return text[codes]
+
+
+@dataclass
+class TypedChunk:
+    exposure: np.ndarray
+    count: np.ndarray
+    amount: np.ndarray | None
+    premium: np.ndarray | None
+    factors: dict[str, np.ndarray]
+    policy: np.ndarray | None
+    period: np.ndarray | None
+
+
+def check_chunk(chunk: pd.DataFrame, offset: int, spec: Spec, out: FindingCollector) -> TypedChunk:
+    """Type one chunk and record its row-level findings."""
+    c = spec.columns
+    expo, bad = to_number(chunk[c.exposure])
+    out.add("error", c.exposure, "with a non-numeric exposure", bad, offset)
+    out.add("error", c.exposure, "with a missing exposure", np.isnan(expo) & ~bad, offset)
+    out.add("error", c.exposure, "with a non-finite exposure", np.isinf(expo), offset)
+    out.add("error", c.exposure, "with exposure <= 0", np.isfinite(expo) & (expo <= 0), offset)
+    out.add("warning", c.exposure, f"with exposure above {TERM:g} term", np.isfinite(expo) & (expo > TERM),
+            offset)
+
+    count, bad = to_number(chunk[c.claim_count])
+    out.add("error", c.claim_count, "with a non-numeric claim count", bad, offset)
+    out.add("error", c.claim_count, "with a missing or non-finite claim count", ~np.isfinite(count) & ~bad,
+            offset)
+    out.add("error", c.claim_count, "with a negative claim count", count < 0, offset)
+    out.add("error", c.claim_count, "with a fractional claim count",
+            np.isfinite(count) & (count != np.round(count)), offset)
+
+    amount = None
+    if c.claim_amount is not None:
+        amount, bad = to_number(chunk[c.claim_amount])
+        out.add("error", c.claim_amount, "with a non-numeric claim amount", bad, offset)
+        out.add("error", c.claim_amount, "with a missing or non-finite claim amount",
+                ~np.isfinite(amount) & ~bad, offset)
+        out.add("error", c.claim_amount, "with a negative claim amount", amount < 0, offset)
+        out.add("error", c.claim_amount, f"with a claim amount of {MONEY_LIMIT:g} or more (check the units)",
+                np.isfinite(amount) & (amount >= MONEY_LIMIT), offset)
+        out.add("error", c.claim_amount, f"with a positive amount but zero claims in '{c.claim_count}'",
+                (amount > 0) & (count == 0), offset)
+        out.add("warning", c.claim_amount, "with nil claims (claims but amount 0; excluded from severity)",
+                (amount == 0) & (count > 0), offset)
+
+    premium = None
+    if c.current_premium is not None:
+        premium, bad = to_number(chunk[c.current_premium])
+        out.add("error", c.current_premium, "with a non-numeric current premium", bad, offset)
+        out.add("error", c.current_premium, "with a missing, non-finite or non-positive current premium",
+                ~(np.isfinite(premium) & (premium > 0)) & ~bad, offset)
+        out.add("error", c.current_premium, f"with a current premium of {MONEY_LIMIT:g} or more (check the units)",
+                np.isfinite(premium) & (premium >= MONEY_LIMIT), offset)
+
+    factors: dict[str, np.ndarray] = {}
+    for f in spec.factors:
+        factors[f.name] = _check_factor(chunk[f.name], f, offset, out)
+    policy = as_text(chunk[c.policy_id]) if c.policy_id else None
+    if policy is not None:
+        out.add("error", c.policy_id, "with a missing policy id", policy == "", offset)
+    period = as_text(chunk[c.period]) if c.period else None
+    if period is not None:
+        out.add("error", c.period, "with a missing period", period == "", offset)
+    return TypedChunk(expo, count, amount, premium, factors, policy, period)
+
+
+def _check_factor(values: pd.Series, f: Factor, offset: int, out: FindingCollector) -> np.ndarray:
+    if f.type == "numeric":
+        num, bad = to_number(values)
+        out.add("error", f.name, "with a non-numeric value in a numeric factor", bad, offset)
+        out.add("error", f.name, "with a missing value", np.isnan(num) & ~bad, offset)
+        out.add("error", f.name, "with an infinite value", np.isinf(num), offset)
+        return num
+    text = as_text(values)
+    out.add("error", f.name, "with a missing value", text == "", offset)
+    if f.levels is not None:
+        unknown = ~pd.Series(text).isin(f.levels).to_numpy() & (text != "")
+        out.add("error", f.name, f"with a level not in the spec's levels ({', '.join(f.levels)})", unknown,
+                offset)
+    return text
+
+
+# --------------------------------------------------------------------------------------------
+# the split
+
+def holdout_flags(policy: np.ndarray, seed: int, holdout: float) -> np.ndarray:
+    """True for held-out rows: u(seed, policy) < holdout, with u = SipHash-2-4(policy; key from seed)/2^64.
+
+    The hash depends only on the policy id and the seed, so a policy's rows stay together and the split
+    does not change with chunking or row order.
+    """
+    if holdout <= 0:
+        return np.zeros(len(policy), dtype=bool)
+    key = f"{seed:016d}"[-16:]
+    h = pd.util.hash_array(np.asarray(policy, dtype=object), hash_key=key, categorize=True)
+    u = h.astype(np.float64) / 2.0**64
+    return u < holdout
+
+
+# --------------------------------------------------------------------------------------------
+# banding and levels
+
+@dataclass(frozen=True)
+class Levels:
+    """How one factor is cut for tables and GLMs: band edges (numeric) or the level order."""
+
+    name: str
+    labels: tuple[str, ...]
+    base: str
+    edges: tuple[float, ...] | None = None
+
+
+def cut_levels(f: Factor, values: np.ndarray, exposure: np.ndarray, source: str) -> Levels:
+    """Bands or level order of factor `f` from its `values` and their `exposure` (rows, or distinct
+    values with summed exposure).
+
+    Numeric: the spec's edges, else exposure-quantile edges (`n_bands`). Categorical: the spec's
+    `levels` order, else levels sorted as strings. Base: the spec's `base`, else the largest exposure.
+    """
+    if f.type == "numeric":
+        edges = np.asarray(f.bands) if f.bands is not None else quantile_edges(values, exposure, f.n_bands)
+        cat = banded(values, edges)
+        labels = tuple(cat.categories)
+        codes = cat.codes
+        edges_t = tuple(float(e) for e in edges)
+    else:
+        labels = f.levels if f.levels is not None else tuple(sorted(set(values)))
+        codes = pd.Categorical(values, categories=labels).codes
+        edges_t = None
+    expo = np.bincount(codes, weights=exposure, minlength=len(labels))
+    base = f.base if f.base is not None else labels[int(np.argmax(expo))]
+    if f.base is not None and f.base not in labels:
+        raise InputError(f"{source}: key 'factors.{f.name}.base': '{f.base}' is not one of its "
+                         f"levels or bands ({', '.join(labels[:10])})")
+    return Levels(f.name, labels, base, edges_t)
+
+
+def factor_levels(book: Book, spec: Spec, train: np.ndarray) -> dict[str, Levels]:
+    """Bands and level orders per factor (`cut_levels`), fixed on the training rows."""
+    return {f.name: cut_levels(f, book.frame[f.name].to_numpy()[train], book.exposure[train], spec.source)
+            for f in spec.factors}
+
+
+def categorise(book_frame: pd.DataFrame, levels: dict[str, Levels]) -> pd.DataFrame:
+    """Factor columns as ordered Categoricals of band or level labels."""
+    cols = {}
+    for name, lv in levels.items():
+        values = book_frame[name].to_numpy()
+        if lv.edges is not None:
+            cols[name] = banded(values, lv.edges)
+        else:
+            cols[name] = pd.Categorical(values, categories=list(lv.labels), ordered=True)
+    return pd.DataFrame(cols)

@@ -1,0 +1,64 @@
+"""`validate`: every finding in a book, and its profile per level or band."""
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+
+import pandas as pd
+
+from premiumlab._core.cautions import VALIDATION
+from premiumlab._core.cluster import parse_cluster, tasks_on
+from premiumlab.book.scan import parquet_slices, profile, scan_book, with_quantile_bands
+from premiumlab.book.data import Finding, read_columns
+from premiumlab.book.spec import Spec, load_spec
+
+
+@dataclass
+class ValidationReport:
+    """Findings (errors and warnings) and, when the book is usable, its profile."""
+
+    path: str
+    rows: int
+    findings: list[Finding]
+    profile: dict[str, pd.DataFrame] | None
+
+    @property
+    def errors(self) -> list[Finding]:
+        return [f for f in self.findings if f.level == "error"]
+
+    def text(self) -> str:
+        lines = [f"{self.path}: {self.rows} rows, {len(self.errors)} error(s), "
+                 f"{len(self.findings) - len(self.errors)} warning(s)"]
+        lines += [f"  {f}" for f in self.findings]
+        if self.profile is not None:
+            with pd.option_context("display.width", 120, "display.max_columns", 10,
+                                   "display.float_format", "{:,.4g}".format):
+                for name, table in self.profile.items():
+                    lines += ["", f"profile: {name}", table.to_string()]
+        lines += [""] + [f"caution: {c}" for c in VALIDATION]
+        return "\n".join(lines)
+
+
+def validate_book(book_path: str | Path, spec_path: str | Path, cluster: str | None = None) -> ValidationReport:
+    """Scan the whole book and report every finding; profile it when it has no errors.
+
+    `cluster` (premiumlab.cluster: local:N or a Dask scheduler address): check the slices of a
+    Parquet book on Dask workers, which must see the book at the same path."""
+    if cluster is not None:
+        parse_cluster(cluster)
+    spec: Spec = load_spec(spec_path)
+    header = read_columns(book_path)
+    missing = [c for c in spec.columns.used() + spec.factor_names if c not in header]
+    if missing:
+        findings = [Finding("error", c, f"{book_path}: missing column '{c}'") for c in missing]
+        return ValidationReport(str(book_path), 0, findings, None)
+    if cluster is None:
+        _, summary, findings = scan_book(book_path, spec, keep_rows=False)
+    else:
+        parquet_slices(book_path)  # a CSV book is refused before a cluster is started
+        with tasks_on(cluster) as runner:
+            _, summary, findings = scan_book(book_path, spec, keep_rows=False, runner=runner)
+    if any(f.level == "error" for f in findings):
+        return ValidationReport(str(book_path), summary.rows, findings, None)
+    banded, summary = with_quantile_bands(book_path, spec, summary)
+    return ValidationReport(str(book_path), summary.rows, findings, profile(summary, banded))

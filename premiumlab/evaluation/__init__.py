@@ -1,0 +1,1 @@
+"""Measuring models: deviance, Gini, lift, double lift, A/E, bootstrap intervals, and their figures."""

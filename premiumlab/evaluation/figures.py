@@ -1,0 +1,255 @@
+"""Figures as PNG files: lift, double lift, ordered Lorenz curves, actual-versus-expected by factor
+level, the cross-validation curve, and the dislocation of a rate change.
+
+Each function takes tables already computed by `premiumlab.metrics` (or the CV table of the boosted
+model, or an impact result) and an output path, draws with matplotlib's Agg canvas (imported lazily, no pyplot and so no
+global state) and returns the path. Every figure carries the review caution as a footer.
+"""
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from pathlib import Path
+from typing import TYPE_CHECKING
+
+import numpy as np
+import pandas as pd
+
+from premiumlab._core.errors import InputError
+
+if TYPE_CHECKING:
+    from matplotlib.axes import Axes
+    from matplotlib.figure import Figure
+
+CAPTION = (
+    "Draft for review by a qualified actuary; rates must be filed and approved under local rate regulation."
+)
+_ACTUAL_COLOUR = "#202020"
+_MODEL_COLOURS = ["#2b6a99", "#c2582b", "#4d8c3a", "#7a5a9e", "#a08a2a", "#3a8f8f"]
+_BAR_COLOUR = "#d9d9d9"
+
+
+def _colour(position: int) -> str:
+    return _MODEL_COLOURS[position % len(_MODEL_COLOURS)]
+
+
+def _require_columns(table: pd.DataFrame, columns: Sequence[str], what: str) -> None:
+    missing = [c for c in columns if c not in table.columns]
+    if missing:
+        raise InputError(f"{what}: missing column(s) {', '.join(missing)}")
+
+
+def _require_models(tables: Mapping[str, object], what: str) -> None:
+    if not tables:
+        raise InputError(f"{what}: no models given")
+
+
+def _new_figure(width: float = 7.5, height: float = 4.8) -> Figure:
+    from matplotlib.figure import Figure
+
+    return Figure(figsize=(width, height), dpi=110)
+
+
+def _plain(ax: Axes) -> None:
+    """Our plain look: light horizontal grid, no top or right frame."""
+    ax.grid(axis="y", color="#e6e6e6", linewidth=0.8)
+    ax.set_axisbelow(True)
+    ax.spines["top"].set_visible(False)
+    ax.spines["right"].set_visible(False)
+
+
+def _level_ticks(ax: Axes, positions: np.ndarray, labels: list[str], **text: object) -> None:
+    """One tick per level; slanted when there are many levels or long labels."""
+    ax.set_xticks(positions)
+    slanted = len(labels) > 8 or max(len(label) for label in labels) > 6
+    ax.set_xticklabels(labels, rotation=45 if slanted else 0, ha="right" if slanted else "center", **text)
+
+
+def _save(fig: Figure, path: str | Path) -> Path:
+    """Add the caution footer, lay out and write the PNG (without a software stamp)."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    target = Path(path)
+    if not target.parent.is_dir():
+        raise InputError(f"{target}: the folder {target.parent} does not exist")
+    fig.text(0.5, 0.012, CAPTION, ha="center", va="bottom", fontsize=7, color="#555555")
+    fig.tight_layout(rect=(0, 0.045, 1, 1))
+    FigureCanvasAgg(fig)  # attaches itself as fig.canvas
+    fig.savefig(target, format="png", metadata={"Software": None})
+    return target
+
+
+def plot_lift(
+    tables: Mapping[str, pd.DataFrame], path: str | Path, *, title: str = "Lift by equal-exposure bins"
+) -> Path:
+    """One panel per model: mean actual and mean predicted per exposure unit against the bin of
+    that model's prediction (tables from `metrics.lift_table`)."""
+    _require_models(tables, "plot_lift")
+    for name, table in tables.items():
+        _require_columns(table, ["bin", "mean_actual", "mean_predicted"], f"lift table of {name}")
+    fig = _new_figure(width=max(5.0, 3.6 * len(tables)), height=4.6)
+    axes = fig.subplots(1, len(tables), sharey=True, squeeze=False)[0]
+    for position, (ax, (name, table)) in enumerate(zip(axes, tables.items())):
+        ax.plot(table["bin"], table["mean_actual"], "o-", color=_ACTUAL_COLOUR, label="actual")
+        ax.plot(table["bin"], table["mean_predicted"], "s--", color=_colour(position), label="predicted")
+        ax.set_title(name, fontsize=10)
+        ax.set_xlabel("bin of predicted (1 = lowest)")
+        ax.set_xticks(table["bin"])
+        _plain(ax)
+    axes[0].set_ylabel("loss per exposure unit")
+    axes[0].legend(frameon=False, fontsize=8)
+    fig.suptitle(title, fontsize=11)
+    return _save(fig, path)
+
+
+def plot_double_lift(table: pd.DataFrame, path: str | Path, *, name_a: str, name_b: str) -> Path:
+    """Actual, model a and model b as indices to their own overall means against the bin of
+    pred_a / pred_b (table from `metrics.double_lift`); the flatter mismatch ranks better."""
+    _require_columns(table, ["bin", "actual_index", "a_index", "b_index"], "double lift table")
+    fig = _new_figure()
+    ax = fig.subplots()
+    ax.axhline(1.0, color="#999999", linewidth=0.8)
+    ax.plot(table["bin"], table["actual_index"], "o-", color=_ACTUAL_COLOUR, label="actual")
+    ax.plot(table["bin"], table["a_index"], "s--", color=_colour(0), label=name_a)
+    ax.plot(table["bin"], table["b_index"], "^--", color=_colour(1), label=name_b)
+    ax.set_xticks(table["bin"])
+    ax.set_xlabel(f"bin of {name_a} / {name_b}\n(1 = {name_a} lowest relative to {name_b})")
+    ax.set_ylabel("index to overall mean")
+    ax.set_title(f"Double lift: {name_a} against {name_b}", fontsize=11)
+    ax.legend(frameon=False, fontsize=8)
+    _plain(ax)
+    return _save(fig, path)
+
+
+def plot_lorenz(
+    curves: Mapping[str, pd.DataFrame], path: str | Path, *, ginis: Mapping[str, float] | None = None
+) -> Path:
+    """Ordered Lorenz curves of several models on one chart with the line of equality (curves from
+    `metrics.lorenz_curve`; `ginis` adds each model's Gini to its label)."""
+    _require_models(curves, "plot_lorenz")
+    for name, curve in curves.items():
+        _require_columns(curve, ["exposure_share", "loss_share"], f"Lorenz curve of {name}")
+    fig = _new_figure(width=5.8, height=5.8)
+    ax = fig.subplots()
+    ax.plot([0, 1], [0, 1], color="#999999", linewidth=0.8, linestyle=":", label="no ranking")
+    for position, (name, curve) in enumerate(curves.items()):
+        label = name if ginis is None or name not in ginis else f"{name} (Gini {ginis[name]:.3f})"
+        ax.plot(curve["exposure_share"], curve["loss_share"], color=_colour(position), label=label)
+    ax.set_xlim(0, 1)
+    ax.set_ylim(0, 1)
+    ax.set_aspect("equal")
+    ax.set_xlabel("share of exposure, lowest predicted first")
+    ax.set_ylabel("share of actual loss")
+    ax.set_title("Ordered Lorenz curves", fontsize=11)
+    ax.legend(frameon=False, fontsize=8, loc="upper left")
+    _plain(ax)
+    return _save(fig, path)
+
+
+def plot_actual_vs_expected(
+    tables: Mapping[str, pd.DataFrame], path: str | Path, *, factor: str
+) -> Path:
+    """Actual / expected per level of one factor, a line per model, over bars of exposure on a
+    second axis (tables from `metrics.actual_vs_expected`, same levels in the same order)."""
+    _require_models(tables, "plot_actual_vs_expected")
+    for name, table in tables.items():
+        _require_columns(table, ["level", "exposure", "actual_to_expected"], f"A/E table of {name}")
+    first_name, first = next(iter(tables.items()))
+    labels = [str(level) for level in first["level"]]
+    for name, table in tables.items():
+        if [str(level) for level in table["level"]] != labels:
+            raise InputError(f"A/E table of {name}: levels of {factor} differ from those of {first_name}")
+    positions = np.arange(len(labels))
+    fig = _new_figure(width=max(6.5, 0.55 * len(labels) + 3), height=4.8)
+    ax = fig.subplots()
+    bars = ax.twinx()
+    bars.bar(positions, first["exposure"], color=_BAR_COLOUR, width=0.7)
+    bars.set_ylabel("exposure")
+    bars.spines["top"].set_visible(False)
+    ax.set_zorder(bars.get_zorder() + 1)
+    ax.patch.set_visible(False)
+    ax.axhline(1.0, color="#999999", linewidth=0.8)
+    for position, (name, table) in enumerate(tables.items()):
+        ax.plot(positions, table["actual_to_expected"], "o-", color=_colour(position), label=name)
+    _level_ticks(ax, positions, labels)
+    ax.set_xlabel(factor)
+    ax.set_ylabel("actual / expected")
+    ax.set_title(f"Actual against expected by {factor}", fontsize=11, pad=22)
+    ax.legend(frameon=False, fontsize=8, loc="lower left", bbox_to_anchor=(0, 1), ncol=len(tables))
+    _plain(ax)
+    return _save(fig, path)
+
+
+def plot_cv_curve(
+    cv_table: pd.DataFrame | Sequence[Mapping[str, object]],
+    path: str | Path,
+    *,
+    complexity: str,
+    chosen: int,
+    mean: str = "mean_deviance",
+    sd: str = "sd_deviance",
+) -> Path:
+    """Mean cross-validated deviance with +-1 sd bars against a complexity measure, one point per
+    setting; the setting at row position `chosen` is marked."""
+    table = pd.DataFrame(cv_table)
+    _require_columns(table, [complexity, mean, sd], "CV table")
+    if table.empty:
+        raise InputError("CV table: no settings")
+    if not 0 <= chosen < len(table):
+        raise InputError(f"chosen: row {chosen} is outside the CV table's {len(table)} settings")
+    fig = _new_figure()
+    ax = fig.subplots()
+    ax.errorbar(
+        table[complexity], table[mean], yerr=table[sd], fmt="o", color=_colour(0),
+        ecolor="#8aa9c4", capsize=3, label="setting (mean +- 1 sd over folds)",
+    )
+    best = table.iloc[chosen]
+    ax.plot(
+        [best[complexity]], [best[mean]], "o", markersize=13, markerfacecolor="none",
+        markeredgecolor=_colour(1), markeredgewidth=1.8, label="chosen",
+    )
+    ax.set_xlabel(complexity)
+    ax.set_ylabel("cross-validated mean deviance")
+    ax.set_title("Cross-validation: deviance against complexity", fontsize=11)
+    ax.legend(frameon=False, fontsize=8)
+    _plain(ax)
+    return _save(fig, path)
+
+
+def plot_impact(result: Mapping[str, object], path: str | Path, *, factor: str | None = None) -> Path:
+    """Left: share of policies and of current premium in each change band; right: the
+    premium-weighted mean change (sum proposed / sum current - 1) by level of `factor`, by default
+    the factor whose levels' changes spread widest (`result` from `rating_tables.impact`)."""
+    bands = pd.DataFrame(result["bands"])
+    _require_columns(bands, ["band", "count_share", "premium_share"], "impact bands")
+    by_factor = {name: pd.DataFrame(levels) for name, levels in result["by_factor"].items() if levels}
+    if factor is None and by_factor:
+        factor = max(by_factor, key=lambda name: np.ptp(by_factor[name]["change"].to_numpy()))
+    if factor is not None and factor not in by_factor:
+        raise InputError(f"plot_impact: factor '{factor}' is not in the impact result")
+    fig = _new_figure(width=11.0 if factor else 6.5, height=4.8)
+    axes = fig.subplots(1, 2 if factor else 1, squeeze=False)[0]
+    positions = np.arange(len(bands))
+    ax = axes[0]
+    ax.bar(positions - 0.2, bands["count_share"], width=0.4, color=_colour(0), label="policies")
+    ax.bar(positions + 0.2, bands["premium_share"], width=0.4, color=_BAR_COLOUR, label="current premium")
+    ax.set_xticks(positions)
+    ax.set_xticklabels(bands["band"], rotation=40, ha="right", fontsize=8)
+    ax.set_xlabel("change of premium, proposed / current - 1")
+    ax.set_ylabel("share")
+    ax.set_title(f"Dislocation: {result['policies']:,} policies, overall {result['overall_change']:+.2%}",
+                 fontsize=11)
+    ax.legend(frameon=False, fontsize=8)
+    _plain(ax)
+    if factor:
+        levels = by_factor[factor]
+        ax = axes[1]
+        spots = np.arange(len(levels))
+        ax.axhline(0.0, color="#999999", linewidth=0.8)
+        ax.bar(spots, levels["change"], width=0.7,
+               color=[_colour(1) if c > 0 else _colour(0) for c in levels["change"]])
+        _level_ticks(ax, spots, [str(v) for v in levels["level"]], fontsize=8)
+        ax.set_xlabel(factor)
+        ax.set_ylabel("premium-weighted mean change")
+        ax.set_title(f"Mean change by {factor}", fontsize=11)
+        _plain(ax)
+    return _save(fig, path)

@@ -1,0 +1,1 @@
+"""Claim experience before modelling: development, trend, large-loss cap, catastrophe load; `tails`."""

@@ -1,0 +1,1 @@
+"""LightGBM boosted models: features, policy-grouped cross-validation, final fits, model files."""

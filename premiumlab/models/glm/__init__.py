@@ -1,0 +1,1 @@
+"""GLM baselines: the fits, the cells and rows engines, and the Tweedie power profile."""

@@ -1,0 +1,1 @@
+"""LightGBM text models read as trees: the monotonicity certificate and the interaction statistic."""

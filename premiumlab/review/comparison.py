@@ -1,0 +1,127 @@
+"""Holdout comparison of a run's models (DESIGN 4): deviance, D^2, Gini, lift, double lift, A/E.
+
+Targets on the holdout, each with its actual, prediction, weight and deviance power:
+frequency (claims per exposure; weight exposure; Poisson, power 1), severity (amount per claim on
+rows with claims and a positive amount; weight claims; Gamma, power 2) and pure premium (amount per
+exposure; weight exposure; Tweedie at the GLM's power). Pure premium is also compared as frequency x
+severity against the direct Tweedie model.
+"""
+from __future__ import annotations
+
+from pathlib import Path
+
+import pandas as pd
+
+from premiumlab._core.errors import InputError
+from premiumlab._core.jsonio import write_json
+from premiumlab.evaluation.holdout import (
+    holdout_metrics,
+    model_columns,
+    power_of,
+    target_view,
+)
+
+N_BOOT = 200
+
+
+def compare(run_dir: str | Path, n_boot: int = N_BOOT) -> dict:
+    """Write RUN/comparison.json and RUN/figures/*.png; return the comparison."""
+    from premiumlab.evaluation import figures
+    from premiumlab.evaluation.metrics import (
+        actual_vs_expected,
+        deviance_difference,
+        double_lift,
+        gini_difference,
+        lift_table,
+        lorenz_curve,
+    )
+    from premiumlab.runs.fit import fitted_basis, open_run
+    run = open_run(run_dir)
+    preds = fitted_basis(run.predictions())
+    if not preds["holdout"].any():
+        raise InputError(f"{run.path}: the run has no holdout (split.holdout = 0), so there is nothing to "
+                         f"compare on; refit with a holdout share above 0 or holdout = \"latest_period\"")
+    if not any(c.startswith("gbm_") for c in preds) or not any(c.startswith("glm_") for c in preds):
+        raise InputError(f"{run.path}: compare needs both GLM and GBM predictions; fit with --models glm,gbm")
+    power = run.model_json("glm_pure_premium")["power"] if "glm_pure_premium" in preds else 1.5
+    seed = run.spec.split.seed
+    result = {"holdout_rows": int(preds["holdout"].sum()), "tweedie_power": power,
+              "metrics": holdout_metrics(preds, power), "differences": {}, "lift": {}, "double_lift": {},
+              "actual_vs_expected": {}, "cautions": run.manifest["cautions"]}
+    hold = preds[preds["holdout"]].reset_index(drop=True)
+    groups = hold["policy_group"].to_numpy() if "policy_group" in hold else None
+    fig_dir = run.path / "figures"
+    fig_dir.mkdir(exist_ok=True)
+    for target in result["metrics"]:
+        mask, actual, weight, y = target_view(hold, target)
+        pw = power_of(target, power)
+        g = None if groups is None else groups[mask.to_numpy()]
+        col = {c: hold.loc[mask, c].to_numpy(float) for c in model_columns(hold, target)}
+        pairs = [(f"glm_{target}", f"gbm_{target}")]
+        if target == "pure_premium":
+            pairs += [("glm_freq_x_sev", "glm_pure_premium"), ("gbm_freq_x_sev", "gbm_pure_premium")]
+        for a, b in pairs:
+            if a not in col or b not in col:
+                continue
+            dev = deviance_difference(y, col[a], col[b], weight, pw, n_boot=n_boot, seed=seed, groups=g)
+            gin = gini_difference(actual, col[b], col[a], weight, n_boot=n_boot, seed=seed, groups=g)
+            result["differences"][f"{b} vs {a}"] = {
+                "deviance_reduction": dev.to_dict(), "gini_gain": gin.to_dict()}
+        lifts = {c: lift_table(actual, v, weight) for c, v in col.items()}
+        result["lift"][target] = {c: t.to_dict(orient="list") for c, t in lifts.items()}
+        figures.plot_lift(lifts, fig_dir / f"lift_{target}.png", title=f"Lift, {target.replace('_', ' ')}")
+        figures.plot_lorenz({c: lorenz_curve(actual, v, weight) for c, v in col.items()},
+                            fig_dir / f"lorenz_{target}.png",
+                            ginis={c: m["gini"] for c, m in result["metrics"][target]["models"].items()})
+        a, b = f"gbm_{target}", f"glm_{target}"
+        dl = double_lift(actual, col[a], col[b], weight)
+        result["double_lift"][target] = dl.to_dict(orient="list")
+        figures.plot_double_lift(dl, fig_dir / f"double_lift_{target}.png", name_a=a, name_b=b)
+    _actual_vs_expected(run, hold, result, fig_dir, actual_vs_expected, figures)
+    _cv_figures(run, fig_dir, figures)
+    write_json(run.path / "comparison.json", result)
+    return result
+
+
+def _actual_vs_expected(run, hold: pd.DataFrame, result: dict, fig_dir: Path, ave, figures) -> None:
+    from premiumlab.book.data import categorise
+    if "pure_premium" not in result["metrics"]:
+        return
+    book = run.load_book()
+    cats = categorise(book.frame, run.levels).iloc[hold["row"].to_numpy()].reset_index(drop=True)
+    mask, actual, weight, _ = target_view(hold, "pure_premium")
+    cols = [c for c in ("glm_pure_premium", "gbm_pure_premium") if c in hold]
+    for factor in run.levels:
+        tables = {c: ave(actual, hold[c].to_numpy(float), weight, cats[factor]) for c in cols}
+        result["actual_vs_expected"][factor] = {c: t.astype({"level": str}).to_dict(orient="list")
+                                                for c, t in tables.items()}
+        figures.plot_actual_vs_expected(tables, fig_dir / f"ave_{factor}.png", factor=factor)
+
+
+def _cv_figures(run, fig_dir: Path, figures) -> None:
+    for path in sorted((run.path / "models").glob("gbm_*.json")):
+        meta = run.model_json(path.stem)
+        table = pd.DataFrame(meta["cv"]["table"])
+        if table.empty:
+            continue
+        leaves = table["setting"].map(lambda s: s.get("num_leaves", 31))
+        table["leaves_x_rounds"] = leaves * table["rounds"]
+        figures.plot_cv_curve(table, fig_dir / f"cv_{meta['target']}.png", complexity="leaves_x_rounds",
+                              chosen=meta["cv"]["chosen"])
+
+
+def summary_lines(result: dict) -> list[str]:
+    """A compact text table of the holdout metrics and the differences with their intervals."""
+    lines = [f"holdout rows: {result['holdout_rows']}   Tweedie power: {result['tweedie_power']:.2f}",
+             f"{'target':<13} {'model':<18} {'mean dev':>11} {'D^2':>8} {'Gini':>8} {'balance':>8}"]
+    for target, block in result["metrics"].items():
+        for name, m in block["models"].items():
+            lines.append(f"{target:<13} {name:<18} {m['mean_deviance']:>11.5g} {m['d2']:>8.4f} "
+                         f"{m['gini']:>8.4f} {m['balance']:>8.4f}")
+    lines.append("differences (paired bootstrap 95 % interval):")
+    for name, d in result["differences"].items():
+        dev, gin = d["deviance_reduction"], d["gini_gain"]
+        lines.append(f"  {name}: deviance reduction {dev['estimate']:.5g} [{dev['lower']:.5g}, "
+                     f"{dev['upper']:.5g}]; Gini gain {gin['estimate']:.4f} [{gin['lower']:.4f}, "
+                     f"{gin['upper']:.4f}]")
+    return lines

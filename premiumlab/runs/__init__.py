@@ -1,0 +1,1 @@
+"""The run directory and the steps of `fit` that write it."""

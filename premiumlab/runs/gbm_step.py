@@ -1,0 +1,105 @@
+"""Boosted models inside a run: features from the spec, the three targets, certificate and H statistic."""
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from premiumlab._core.cluster import IN_PROCESS, TaskRunner
+from premiumlab.book.data import Book
+from premiumlab._core.jsonio import write_json
+from premiumlab.book.spec import Spec
+
+#: Held-out policies swept per promised factor by the empirical monotonicity check.
+SWEEP_POLICIES = 1000
+#: Policies in the sample for Friedman's H statistic, and factors (top by gain) it pairs.
+H_SAMPLE = 300
+H_FACTORS = 6
+
+
+def gbm_features(frame: pd.DataFrame, spec: Spec) -> pd.DataFrame:
+    """Model features: numeric as float; an ordered categorical with a promise as float codes in its
+    level order; other categoricals as pandas Categoricals (levels sorted as strings)."""
+    cols = {}
+    for f in spec.factors:
+        values = frame[f.name]
+        if f.type == "numeric":
+            cols[f.name] = values.to_numpy(dtype=float)
+        elif f.direction != 0:
+            cols[f.name] = pd.Categorical(values, categories=list(f.levels)).codes.astype(float)
+        else:
+            levels = list(f.levels) if f.levels is not None else sorted(set(values))
+            cols[f.name] = pd.Categorical(values, categories=levels)
+    return pd.DataFrame(cols)
+
+
+def gbm_options(spec: Spec, glm_power: float | None):
+    """Map the spec's [gbm] section onto `GbmOptions`; the Tweedie power comes from the GLM unless fixed."""
+    from premiumlab.models.gbm.fit import GbmOptions
+    g = spec.gbm
+    power = g.tweedie_power if isinstance(g.tweedie_power, float) else (glm_power or 1.5)
+    return GbmOptions(folds=g.folds, max_settings=g.max_settings, num_threads=g.threads, seed=spec.split.seed,
+                      max_rounds=g.max_rounds, early_stopping_rounds=g.early_stopping_rounds,
+                      monotone_method=g.monotone_method, constrain_severity=g.constrain_severity,
+                      tweedie_power=float(power))
+
+
+def fit_gbms(book: Book, spec: Spec, train: np.ndarray, glm_power: float | None, run_dir: Path,
+             preds: pd.DataFrame, runner: TaskRunner = IN_PROCESS) -> None:
+    """Fit frequency, severity and pure-premium models on the training rows (the search's fits on
+    `runner`); write models, the monotonicity certificate and the interaction ranking; add
+    predictions for every row."""
+    from premiumlab.models.gbm.fit import GbmInputs, fit_target
+    features = gbm_features(book.frame, spec)
+    monotone = {f.name: f.direction for f in spec.factors if f.direction != 0}
+    groups = pd.factorize(book.policy[train])[0]
+    inputs = GbmInputs(features=features.loc[train].reset_index(drop=True), monotone=monotone,
+                       exposure=book.exposure[train], claim_count=book.claim_count[train],
+                       claim_amount=None if book.claim_amount is None else book.claim_amount[train],
+                       groups=groups)
+    options = gbm_options(spec, glm_power)
+    targets = ["frequency"] + (["severity", "pure_premium"] if book.claim_amount is not None else [])
+    models = {}
+    for target in targets:
+        model = fit_target(inputs, target, options, runner)
+        (run_dir / "models" / f"gbm_{target}.txt").write_text(model.model_text(), encoding="utf-8")
+        write_json(run_dir / "models" / f"gbm_{target}.json", model.to_json_dict())
+        preds[f"gbm_{target}"] = model.predict(features)
+        models[target] = model
+    if "severity" in models:
+        preds["gbm_freq_x_sev"] = preds["gbm_frequency"] * preds["gbm_severity"]
+    main = models.get("pure_premium", models["frequency"])
+    write_json(run_dir / "certificate.json", certify_run(models, features, book.holdout, spec))
+    write_json(run_dir / "interactions.json", rank_interactions(main, features, train, spec))
+
+
+def certify_run(models: dict, features: pd.DataFrame, holdout: np.ndarray, spec: Spec) -> dict:
+    """Structural certificate and empirical sweep for every promised factor of each constrained model."""
+    from premiumlab.models.trees.certificate import certify, sweep
+    rng = np.random.default_rng(spec.split.seed)
+    pool = np.flatnonzero(holdout) if holdout.any() else np.arange(len(features))
+    take = rng.choice(pool, size=min(SWEEP_POLICIES, len(pool)), replace=False)
+    sample = features.iloc[np.sort(take)].reset_index(drop=True)
+    out = {}
+    for target, model in models.items():
+        if not model.monotone:
+            continue
+        text = model.model_text()
+        out[target] = {name: {"certificate": certify(text, name, d),
+                              "sweep": sweep(model, sample, name, d)}
+                       for name, d in model.monotone.items()}
+    return {"models": out, "sweep_policies": len(sample),
+            "sweep_rows": "held-out policies" if holdout.any() else "training policies (no holdout)"}
+
+
+def rank_interactions(model, features: pd.DataFrame, train: np.ndarray, spec: Spec) -> dict:
+    """Friedman's H for pairs of the top factors by gain, on a seeded sample of training policies."""
+    from premiumlab.models.trees.interactions import h_statistics, top_factors_by_gain
+    top = top_factors_by_gain(model.booster, H_FACTORS)
+    if len(top) < 2:
+        return {"model": model.target, "sample": 0, "factors": top, "pairs": [],
+                "note": "the boosted model splits on fewer than two factors, so it has no interactions"}
+    sample = features.loc[train].reset_index(drop=True)
+    pairs = h_statistics(model.predict_raw, sample, top, seed=spec.split.seed, sample_size=H_SAMPLE)
+    return {"model": model.target, "sample": min(H_SAMPLE, len(sample)), "factors": top, "pairs": pairs}

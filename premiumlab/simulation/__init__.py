@@ -1,0 +1,1 @@
+"""Invented books with known truth, from scenario TOML files (`simulate`)."""

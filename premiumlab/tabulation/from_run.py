@@ -1,0 +1,385 @@
+"""`tabulate`: a run directory -> a banded multiplicative rating table (DESIGN 3.4 and 4).
+
+`model="gbm"` distils the boosted pure-premium model (`premiumlab.distill`); `model="glm"` exports
+the Tweedie GLM's own relativities on the run's bands. Either way:
+
+Rate level. Relativities are rounded half to even to `relativity_decimals` (base bands stay at
+exactly 1); the base rate is then solved so that the table's total pure premium on the training
+rows equals the target:
+- `experience` (default): the observed claim amounts of the training rows;
+- `current_premium`: P = sum(current premium) x (1 + overall_change) on the training rows, turned
+  into a pure-premium target with the loadings, since gross = (pure (1 + lae) + fixed x exposure) /
+  (1 - variable - profit) gives sum(pure) = (P (1 - variable - profit) - fixed x sum(exposure)) /
+  (1 + lae); the permissible loss ratio sum(pure) / P is stated.
+Stated off-balances: of rounding, total pure premium with rounded relativities at the base rate
+solved for the unrounded ones over the target, minus 1; of the minimum premium, gross total with
+the minimum over gross total without it, minus 1. With a current premium the indicated overall change
+(table gross total / current total - 1, training rows) is reported.
+
+Fidelity on the holdout rows (the training rows when the run has no holdout): mean Tweedie deviance
+with the GLM's power (the boosted model's when there is no GLM) and the Gini of the table's pure
+premium per exposure unit, beside the boosted model's and the GLM's predictions from
+predictions.parquet; retention G_table / G_GBM and (G_table - G_GLM) / (G_GBM - G_GLM).
+"""
+from __future__ import annotations
+
+from dataclasses import replace
+
+import time
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from premiumlab._core.cautions import cautions_for
+from premiumlab.book.data import Book
+from premiumlab.tabulation.distill import Banding, DistilOptions, FactorValues, band_exposure, distil, exposure_sample, \
+    round_relativity
+from premiumlab._core.errors import InputError
+from premiumlab._core.jsonio import write_json
+from premiumlab._core.outputs import atomic_output, check_target
+from premiumlab.runs.fit import Run, open_run
+from premiumlab.book.spec import Spec
+
+MODELS = ("gbm", "glm")
+#: Training rows on which the rebuilt features must reproduce the run's boosted predictions.
+CHECK_ROWS = 2000
+CHECK_TOLERANCE = 1e-9
+
+
+# ---------------------------------------------------------------------------------------------
+# the run's inputs, re-read and checked
+
+
+def reread_book(run: Run, book: str | Path | None = None) -> Book:
+    """The run's book (or `book`, e.g. after a move), refused unless its sha256 is the run's."""
+    loaded = run.load_book(book)
+    path = loaded.path
+    if loaded.claim_amount is None:
+        raise InputError(f"{path}: a pure-premium table needs claim amounts; the spec names no "
+                         f"columns.claim_amount")
+    return loaded
+
+
+def checked_predictions(run: Run, book: Book, column: str) -> pd.DataFrame:
+    """predictions.parquet, checked row by row against the book and for the column needed."""
+    preds = run.predictions()
+    where = run.path / "predictions.parquet"
+    if len(preds) != book.n_rows or not np.array_equal(preds["row"].to_numpy(), np.arange(book.n_rows)):
+        raise InputError(f"{where}: its rows do not match the book's {book.n_rows} rows (column 'row')")
+    if not np.array_equal(preds["holdout"].to_numpy(dtype=bool), book.holdout):
+        raise InputError(f"{where}: column 'holdout' differs from the book's split")
+    if column not in preds.columns:
+        raise InputError(f"{where}: no column '{column}'; fit the run with that model first")
+    return preds
+
+
+def fitted_amounts(book: Book, preds: pd.DataFrame) -> Book:
+    """The book with the claim amounts the models were fitted to: after [experience] adjustments
+    (developed, trended, capped plus loads) when the run made them, else as observed."""
+    if "claim_amount_adjusted" not in preds.columns:
+        return book
+    return replace(book, claim_amount=preds["claim_amount_adjusted"].to_numpy(dtype=float))
+
+
+def level_indices(book: Book, run: Run, name: str) -> tuple[tuple[str, ...], np.ndarray]:
+    """(levels of a categorical factor as the run fixed them, index of each book row's level)."""
+    levels = tuple(run.levels[name].labels)
+    codes = pd.Categorical(book.frame[name], categories=list(levels)).codes.astype(np.int64)
+    if (codes < 0).any():
+        row = int(np.flatnonzero(codes < 0)[0])
+        raise InputError(f"{book.path}: column '{name}', row {row}: level {book.frame[name].iloc[row]!r} is not "
+                         f"one of the run's levels ({run.path / 'levels.json'})")
+    return levels, codes
+
+
+# ---------------------------------------------------------------------------------------------
+# bands and relativities from either model
+
+
+def gbm_bands(run: Run, book: Book, preds: pd.DataFrame, train: np.ndarray) -> tuple[dict, dict, dict, dict, dict]:
+    """Distil the boosted pure-premium model: (bandings, relativities, two-way tables, base bands, notes)."""
+    from premiumlab.runs.gbm_step import gbm_features
+    from premiumlab.models.gbm.fit import load_model
+
+    spec, opts = run.spec, run.spec.table
+    model = load_model(run.path / "models" / "gbm_pure_premium.txt", run.path / "models" / "gbm_pure_premium.json")
+    features = gbm_features(book.frame, spec)
+    rows = np.flatnonzero(train)
+    check = rows[:CHECK_ROWS]
+    stored = preds["gbm_pure_premium"].to_numpy()
+    if not np.allclose(model.predict(features.iloc[check]), stored[check], rtol=CHECK_TOLERANCE, atol=0):
+        raise InputError(f"{run.path / 'models' / 'gbm_pure_premium.txt'}: the model does not reproduce "
+                         f"column 'gbm_pure_premium' of predictions.parquet on the book")
+    factors = []
+    for f in spec.factors:
+        if f.type == "numeric":
+            factors.append(FactorValues(f.name, f.monotone, book.frame[f.name].to_numpy(dtype=float)[rows]))
+            continue
+        levels, codes = level_indices(book, run, f.name)
+        factors.append(FactorValues(f.name, f.monotone, codes[rows], levels=levels,
+                                    model_codes=_model_codes(model, f.name, levels), ordered=f.levels is not None,
+                                    base_level=f.base))
+    options = DistilOptions(max_bands=opts.max_bands, min_share=opts.min_band_exposure, sample=opts.sample,
+                            grid_points=opts.grid_points, seed=spec.split.seed, decimals=opts.relativity_decimals,
+                            pairs=tuple(opts.interactions))
+    sample = model.encode(features.iloc[rows[exposure_sample(book.exposure[rows], opts.sample, spec.split.seed)]])
+    result = distil(model.model_text(), sample, factors, book.exposure[rows], stored[rows], options)
+    fit = result.pooled.fit
+    notes = {
+        "method": "partial dependence on the raw score, isotonic where promised, optimal segmentation, "
+                  "Poisson quasi-likelihood refit on the boosted predictions with monotone pooling",
+        "sample_policies": int(opts.sample), "seed": spec.split.seed,
+        "grid_points": {n: int(c.points.size) for n, c in result.curves.items()},
+        "bands_before_pooling": {n: b.n_bands for n, b in result.initial.items()},
+        "bands": {n: b.n_bands for n, b in result.pooled.bandings.items()},
+        "merges": result.pooled.merges, "aliased_terms": fit.aliased, "refit_iterations": fit.iterations,
+    }
+    return result.pooled.bandings, fit.relativities, fit.two_way, fit.bases, notes
+
+
+def _model_codes(model, name: str, levels: tuple[str, ...]) -> np.ndarray:
+    """The boosted model's code of each level: its stored category position, or the level's position
+    for an ordered factor passed as codes."""
+    if name not in model.categories:
+        return np.arange(len(levels), dtype=float)
+    position = {level: i for i, level in enumerate(model.categories[name])}
+    absent = [level for level in levels if level not in position]
+    if absent:
+        raise InputError(f"boosted model: factor '{name}' has no category '{absent[0]}'")
+    return np.array([position[level] for level in levels], dtype=float)
+
+
+def glm_bands(run: Run, book: Book) -> tuple[dict, dict, dict, dict, dict]:
+    """The Tweedie GLM's relativities on the run's bands: (bandings, relativities, {}, base bands, notes)."""
+    from premiumlab.book.bands import band_labels
+
+    glm = run.model_json("glm_pure_premium")
+    where = run.path / "models" / "glm_pure_premium.json"
+    bandings, relativities, bases, defaulted = {}, {}, {}, []
+    for f in run.spec.factors:
+        levels = run.levels[f.name]
+        fitted = glm.get("relativities", {}).get(f.name)
+        if fitted is None:
+            raise InputError(f"{where}: key 'relativities.{f.name}' is missing")
+        if levels.edges is not None:
+            banding = Banding(f.name, f.monotone, edges=np.array(levels.edges, dtype=float))
+            labels = band_labels(levels.edges)
+        else:
+            labels = list(levels.labels)
+            banding = Banding(f.name, f.monotone, levels=tuple(labels), band_of_level=np.arange(len(labels)),
+                              ordered=f.levels is not None, base_level=levels.base)
+        values = []
+        for label in labels:
+            value = fitted.get(label)
+            if value is None:
+                defaulted.append(f"{f.name}[{label}]")
+            values.append(1.0 if value is None else float(value))
+        bandings[f.name], relativities[f.name] = banding, np.array(values)
+        bases[f.name] = labels.index(levels.base)
+    notes = {"method": "relativities of the run's Tweedie GLM (models/glm_pure_premium.json) on its bands",
+             "power": glm.get("power"), "levels_without_estimate_set_to_1": defaulted}
+    return bandings, relativities, {}, bases, notes
+
+
+# ---------------------------------------------------------------------------------------------
+# the table
+
+
+def _row_cells(banding: Banding, book: Book, run: Run, rows: np.ndarray) -> np.ndarray:
+    """Per training row: its band (numeric) or its level index (categorical)."""
+    if banding.numeric:
+        return banding.codes(book.frame[banding.name].to_numpy(dtype=float)[rows])
+    return level_indices(book, run, banding.name)[1][rows]
+
+
+def table_factors(spec: Spec, bandings: dict[str, Banding], relativities: dict[str, np.ndarray],
+                  two_way: dict[tuple[str, str], np.ndarray], bases: dict[str, int], cells: dict[str, np.ndarray],
+                  exposure: np.ndarray, amount: np.ndarray, decimals: int | None) -> tuple:
+    """Rating-table factors in spec order, then the two-way tables; relativities rounded to `decimals`
+    (None: unrounded), the unrounded refit kept as `indicated`, exposure of the training rows, and the
+    Buhlmann-Straub credibility of each band's or level's own experience (amount per exposure) toward
+    its complement (neighbouring bands, or the overall level for categoricals) for the reviewer."""
+    from rating_tables import Bands, CategoricalFactor, InteractionFactor, NumericFactor
+
+    from premiumlab.tabulation.credibility import credibility_by_level
+
+    def selected(values: np.ndarray) -> np.ndarray:
+        return values if decimals is None else round_relativity(values, decimals)
+
+    out, sides = [], {}
+    for f in spec.factors:
+        b, rel = bandings[f.name], relativities[f.name]
+        if b.numeric:
+            lower = np.concatenate([[-np.inf], b.edges])
+            upper = np.concatenate([b.edges, [np.inf]])
+            z = credibility_by_level(amount, exposure, cells[f.name], b.n_bands, numeric=True)["credibility"]
+            out.append(NumericFactor(f.name, f.monotone, lower, upper, selected(rel),
+                                     band_exposure(cells[f.name], b.n_bands, exposure), indicated=rel,
+                                     credibility=z.to_numpy()))
+            sides[f.name] = (Bands(lower, upper), np.arange(b.n_bands))
+            continue
+        level_rel = rel[b.band_of_level]
+        level_exposure = np.bincount(cells[f.name], weights=exposure, minlength=len(b.levels))
+        base = f.base
+        if base is None:
+            in_base = np.flatnonzero(b.band_of_level == bases[f.name])
+            base = b.levels[in_base[np.argmax(level_exposure[in_base])]]
+        z = credibility_by_level(amount, exposure, cells[f.name], len(b.levels))["credibility"]
+        out.append(CategoricalFactor(f.name, f.monotone, b.levels, selected(level_rel), level_exposure,
+                                     fallback=f.fallback, base=base, indicated=level_rel,
+                                     credibility=z.to_numpy()))
+        sides[f.name] = (b.levels, b.band_of_level)
+    for (a, b), matrix in two_way.items():
+        (a_cells, a_band), (b_cells, b_band) = sides[a], sides[b]
+        expanded = matrix[np.ix_(a_band, b_band)]
+        cell_exposure = np.zeros(expanded.shape)
+        np.add.at(cell_exposure, (cells[a], cells[b]), exposure)
+        out.append(InteractionFactor(f"{a}__{b}", (a, b), a_cells, b_cells, selected(expanded),
+                                     exposure=cell_exposure, indicated=expanded))
+    return tuple(out)
+
+
+def rating_frame(book: Book, spec: Spec, rows: np.ndarray) -> pd.DataFrame:
+    """The factor columns and the exposure column of the chosen rows, as the rater reads them."""
+    frame = book.frame.iloc[rows].reset_index(drop=True).copy()
+    frame[spec.columns.exposure] = book.exposure[rows]
+    return frame
+
+
+def pure_premium_target(spec: Spec, book: Book, train: np.ndarray) -> dict:
+    """The target of the rate level (see the module docstring), as stored in table.json."""
+    opts, load = spec.table, spec.loadings
+    if opts.target == "experience":
+        return {"basis": "experience", "total_pure_premium": float(book.claim_amount[train].sum())}
+    current = float(book.current_premium[train].sum())
+    premium = current * (1.0 + opts.overall_change)
+    pure = (premium * (1.0 - load.variable_expense - load.profit)
+            - load.fixed_expense * float(book.exposure[train].sum())) / (1.0 + load.lae_ratio)
+    if not pure > 0:
+        raise InputError(f"{spec.source}: key 'table.overall_change': the target premium {premium:.2f} leaves no "
+                         f"pure premium after fixed expenses and loadings")
+    return {"basis": "current_premium", "current_premium_total": current, "overall_change": opts.overall_change,
+            "target_premium_total": premium, "permissible_loss_ratio": pure / premium, "total_pure_premium": pure}
+
+
+def make_table(spec: Spec, factors: tuple, base_rate: float, target: dict, provenance: dict):
+    from rating_tables import Loadings, RatingTable, Rounding
+
+    opts, load = spec.table, spec.loadings
+    return RatingTable(table_id=opts.table_id, effective_date=opts.effective_date, base_rate=base_rate,
+                       exposure_unit=opts.exposure_unit, factors=factors,
+                       loadings=Loadings(load.lae_ratio, load.fixed_expense, load.variable_expense, load.profit,
+                                         load.minimum_premium),
+                       rounding=Rounding(opts.relativity_decimals, opts.premium_decimals),
+                       target=target, provenance=provenance, cautions=tuple(cautions_for(spec)))
+
+
+def rate_level(spec: Spec, unrounded: tuple, rounded: tuple, frame: pd.DataFrame, target: dict,
+               provenance: dict, current_total: float | None):
+    """Solve the base rate of the rounded table; state the off-balances (module docstring)."""
+    from rating_tables import rate, solve_base_rate
+
+    total = target["total_pure_premium"]
+    expo = spec.columns.exposure
+    _, exact = solve_base_rate(make_table(spec, unrounded, 1.0, target, provenance), frame, expo, total)
+    table, report = solve_base_rate(make_table(spec, rounded, 1.0, target, provenance), frame, expo, total)
+    rounded_at_exact = exact["base_rate"] * report["total_pure_premium_before"]
+    gross = float(rate(table, frame, expo)["gross_premium"].sum())
+    out = {"target": target, "base_rate": table.base_rate, "base_rate_unrounded_relativities": exact["base_rate"],
+           "total_pure_premium": report["total_pure_premium"],
+           "rounding_off_balance": rounded_at_exact / total - 1.0,
+           "minimum_premium_off_balance": report.get("minimum_premium", {}).get("effect", 0.0),
+           "policies_at_minimum": report.get("minimum_premium", {}).get("policies_at_minimum", 0),
+           "gross_premium_total": gross}
+    if current_total is not None:
+        out["current_premium_total"] = current_total
+        out["indicated_overall_change"] = gross / current_total - 1.0
+    return table, out
+
+
+def fidelity(table, frame: pd.DataFrame, spec: Spec, book: Book, preds: pd.DataFrame, rows: np.ndarray,
+             power: float, rows_name: str) -> dict:
+    """Deviance and Gini of the table, the boosted model and the GLM on `rows`, and the retention."""
+    from rating_tables import rate
+
+    from premiumlab.evaluation.metrics import gini, mean_deviance
+
+    exposure, amount = book.exposure[rows], book.claim_amount[rows]
+    predictions = {"table": rate(table, frame, spec.columns.exposure)["pure_premium"].to_numpy() / exposure}
+    for name in ("gbm", "glm"):
+        if f"{name}_pure_premium" in preds.columns:
+            predictions[name] = preds[f"{name}_pure_premium"].to_numpy()[rows]
+    scores = {name: {"mean_deviance": mean_deviance(amount / exposure, mu, exposure, power),
+                     "gini": gini(amount, mu, exposure)} for name, mu in predictions.items()}
+    g = {name: s["gini"] for name, s in scores.items()}
+    retention = {}
+    if "gbm" in g:
+        retention["gini_table_over_gbm"] = g["table"] / g["gbm"] if g["gbm"] else None
+        if "glm" in g:
+            gap = g["gbm"] - g["glm"]
+            retention["gbm_lift_over_glm_kept"] = (g["table"] - g["glm"]) / gap if gap else None
+            retention["gini_gbm_minus_glm"] = gap
+    return {"rows": rows_name, "policies": int(rows.size), "tweedie_power": power, "models": scores,
+            "retention": retention}
+
+
+def _power(run: Run, model: str) -> float:
+    """The Tweedie power of the comparison: the GLM's, else the boosted model's."""
+    if (run.path / "models" / "glm_pure_premium.json").is_file():
+        power = run.model_json("glm_pure_premium").get("power")
+        if power is not None:
+            return float(power)
+    if (run.path / "models" / "gbm_pure_premium.json").is_file():
+        return float(run.model_json("gbm_pure_premium")["params"]["tweedie_variance_power"])
+    raise InputError(f"{run.path / 'models'}: no pure-premium model to take the Tweedie power from ({model})")
+
+
+# ---------------------------------------------------------------------------------------------
+# the command
+
+
+def tabulate(run_dir: str | Path, out: str | Path, model: str = "gbm", force: bool = False,
+             book: str | Path | None = None) -> dict:
+    """Write the rating table TABLE/ (table.json, factors/*.csv), TABLE/fidelity.json and
+    TABLE/exhibit.xlsx from a run; returns the summary written to fidelity.json."""
+    from rating_tables import save, write_exhibit
+
+    if model not in MODELS:
+        raise InputError(f"--model: unknown model '{model}'; use gbm or glm")
+    started = time.perf_counter()
+    out = Path(out)
+    inputs = (run_dir,) if book is None else (run_dir, book)
+    check_target(out, force, inputs=inputs)
+    run = open_run(run_dir)
+    spec = run.spec
+    loaded = reread_book(run, book)
+    preds = checked_predictions(run, loaded, f"{model}_pure_premium")
+    loaded = fitted_amounts(loaded, preds)
+    train = ~loaded.holdout
+    rows = np.flatnonzero(train)
+    if model == "gbm":
+        bandings, rel, two_way, bases, notes = gbm_bands(run, loaded, preds, train)
+    else:
+        bandings, rel, two_way, bases, notes = glm_bands(run, loaded)
+    cells = {n: _row_cells(b, loaded, run, rows) for n, b in bandings.items()}
+    exposure = loaded.exposure[rows]
+    amount = loaded.claim_amount[rows]
+    unrounded = table_factors(spec, bandings, rel, two_way, bases, cells, exposure, amount, None)
+    rounded = table_factors(spec, bandings, rel, two_way, bases, cells, exposure, amount,
+                            spec.table.relativity_decimals)
+    target = pure_premium_target(spec, loaded, train)
+    provenance = {"run": Path(run_dir).resolve().name, "model": f"{model}_pure_premium",
+                  "book_sha256": loaded.sha256}
+    current = None if loaded.current_premium is None else float(loaded.current_premium[train].sum())
+    table, level = rate_level(spec, unrounded, rounded, rating_frame(loaded, spec, rows), target, provenance, current)
+    held = np.flatnonzero(loaded.holdout) if loaded.holdout.any() else rows
+    measured = fidelity(table, rating_frame(loaded, spec, held), spec, loaded, preds, held, _power(run, model),
+                        "holdout" if loaded.holdout.any() else "training (the run has no holdout)")
+    summary = {"format": "premiumlab.fidelity", "version": 1, "provenance": provenance, "fidelity": measured,
+               "rate_level": level, "distillation": notes, "cautions": list(table.cautions)}
+    with atomic_output(out, force=force, inputs=inputs) as tmp:
+        save(table, tmp)
+        write_json(tmp / "fidelity.json", summary)
+        write_exhibit(table, tmp / "exhibit.xlsx")
+    return {**summary, "table": str(out), "seconds": time.perf_counter() - started}
