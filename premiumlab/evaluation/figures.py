@@ -15,22 +15,18 @@ import numpy as np
 import pandas as pd
 
 from premiumlab._core.errors import InputError
+from premiumlab._core.plotting import (
+    ACTUAL_COLOUR,
+    BAR_COLOUR,
+    level_ticks,
+    model_colour,
+    new_figure,
+    plain_axes,
+    save_figure,
+)
 
 if TYPE_CHECKING:
-    from matplotlib.axes import Axes
-    from matplotlib.figure import Figure
-
-CAPTION = (
-    "Draft for review by a qualified actuary; rates must be filed and approved under local rate regulation."
-)
-_ACTUAL_COLOUR = "#202020"
-_MODEL_COLOURS = ["#2b6a99", "#c2582b", "#4d8c3a", "#7a5a9e", "#a08a2a", "#3a8f8f"]
-_BAR_COLOUR = "#d9d9d9"
-
-
-def _colour(position: int) -> str:
-    return _MODEL_COLOURS[position % len(_MODEL_COLOURS)]
-
+    pass
 
 def _require_columns(table: pd.DataFrame, columns: Sequence[str], what: str) -> None:
     missing = [c for c in columns if c not in table.columns]
@@ -43,41 +39,6 @@ def _require_models(tables: Mapping[str, object], what: str) -> None:
         raise InputError(f"{what}: no models given")
 
 
-def _new_figure(width: float = 7.5, height: float = 4.8) -> Figure:
-    from matplotlib.figure import Figure
-
-    return Figure(figsize=(width, height), dpi=110)
-
-
-def _plain(ax: Axes) -> None:
-    """Our plain look: light horizontal grid, no top or right frame."""
-    ax.grid(axis="y", color="#e6e6e6", linewidth=0.8)
-    ax.set_axisbelow(True)
-    ax.spines["top"].set_visible(False)
-    ax.spines["right"].set_visible(False)
-
-
-def _level_ticks(ax: Axes, positions: np.ndarray, labels: list[str], **text: object) -> None:
-    """One tick per level; slanted when there are many levels or long labels."""
-    ax.set_xticks(positions)
-    slanted = len(labels) > 8 or max(len(label) for label in labels) > 6
-    ax.set_xticklabels(labels, rotation=45 if slanted else 0, ha="right" if slanted else "center", **text)
-
-
-def _save(fig: Figure, path: str | Path) -> Path:
-    """Add the caution footer, lay out and write the PNG (without a software stamp)."""
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
-
-    target = Path(path)
-    if not target.parent.is_dir():
-        raise InputError(f"{target}: the folder {target.parent} does not exist")
-    fig.text(0.5, 0.012, CAPTION, ha="center", va="bottom", fontsize=7, color="#555555")
-    fig.tight_layout(rect=(0, 0.045, 1, 1))
-    FigureCanvasAgg(fig)  # attaches itself as fig.canvas
-    fig.savefig(target, format="png", metadata={"Software": None})
-    return target
-
-
 def plot_lift(
     tables: Mapping[str, pd.DataFrame], path: str | Path, *, title: str = "Lift by equal-exposure bins"
 ) -> Path:
@@ -86,38 +47,38 @@ def plot_lift(
     _require_models(tables, "plot_lift")
     for name, table in tables.items():
         _require_columns(table, ["bin", "mean_actual", "mean_predicted"], f"lift table of {name}")
-    fig = _new_figure(width=max(5.0, 3.6 * len(tables)), height=4.6)
+    fig = new_figure(width=max(5.0, 3.6 * len(tables)), height=4.6)
     axes = fig.subplots(1, len(tables), sharey=True, squeeze=False)[0]
     for position, (ax, (name, table)) in enumerate(zip(axes, tables.items())):
-        ax.plot(table["bin"], table["mean_actual"], "o-", color=_ACTUAL_COLOUR, label="actual")
-        ax.plot(table["bin"], table["mean_predicted"], "s--", color=_colour(position), label="predicted")
+        ax.plot(table["bin"], table["mean_actual"], "o-", color=ACTUAL_COLOUR, label="actual")
+        ax.plot(table["bin"], table["mean_predicted"], "s--", color=model_colour(position), label="predicted")
         ax.set_title(name, fontsize=10)
         ax.set_xlabel("bin of predicted (1 = lowest)")
         ax.set_xticks(table["bin"])
-        _plain(ax)
+        plain_axes(ax)
     axes[0].set_ylabel("loss per exposure unit")
     axes[0].legend(frameon=False, fontsize=8)
     fig.suptitle(title, fontsize=11)
-    return _save(fig, path)
+    return save_figure(fig, path)
 
 
 def plot_double_lift(table: pd.DataFrame, path: str | Path, *, name_a: str, name_b: str) -> Path:
     """Actual, model a and model b as indices to their own overall means against the bin of
     pred_a / pred_b (table from `metrics.double_lift`); the flatter mismatch ranks better."""
     _require_columns(table, ["bin", "actual_index", "a_index", "b_index"], "double lift table")
-    fig = _new_figure()
+    fig = new_figure()
     ax = fig.subplots()
     ax.axhline(1.0, color="#999999", linewidth=0.8)
-    ax.plot(table["bin"], table["actual_index"], "o-", color=_ACTUAL_COLOUR, label="actual")
-    ax.plot(table["bin"], table["a_index"], "s--", color=_colour(0), label=name_a)
-    ax.plot(table["bin"], table["b_index"], "^--", color=_colour(1), label=name_b)
+    ax.plot(table["bin"], table["actual_index"], "o-", color=ACTUAL_COLOUR, label="actual")
+    ax.plot(table["bin"], table["a_index"], "s--", color=model_colour(0), label=name_a)
+    ax.plot(table["bin"], table["b_index"], "^--", color=model_colour(1), label=name_b)
     ax.set_xticks(table["bin"])
     ax.set_xlabel(f"bin of {name_a} / {name_b}\n(1 = {name_a} lowest relative to {name_b})")
     ax.set_ylabel("index to overall mean")
     ax.set_title(f"Double lift: {name_a} against {name_b}", fontsize=11)
     ax.legend(frameon=False, fontsize=8)
-    _plain(ax)
-    return _save(fig, path)
+    plain_axes(ax)
+    return save_figure(fig, path)
 
 
 def plot_lorenz(
@@ -128,12 +89,12 @@ def plot_lorenz(
     _require_models(curves, "plot_lorenz")
     for name, curve in curves.items():
         _require_columns(curve, ["exposure_share", "loss_share"], f"Lorenz curve of {name}")
-    fig = _new_figure(width=5.8, height=5.8)
+    fig = new_figure(width=5.8, height=5.8)
     ax = fig.subplots()
     ax.plot([0, 1], [0, 1], color="#999999", linewidth=0.8, linestyle=":", label="no ranking")
     for position, (name, curve) in enumerate(curves.items()):
         label = name if ginis is None or name not in ginis else f"{name} (Gini {ginis[name]:.3f})"
-        ax.plot(curve["exposure_share"], curve["loss_share"], color=_colour(position), label=label)
+        ax.plot(curve["exposure_share"], curve["loss_share"], color=model_colour(position), label=label)
     ax.set_xlim(0, 1)
     ax.set_ylim(0, 1)
     ax.set_aspect("equal")
@@ -141,8 +102,8 @@ def plot_lorenz(
     ax.set_ylabel("share of actual loss")
     ax.set_title("Ordered Lorenz curves", fontsize=11)
     ax.legend(frameon=False, fontsize=8, loc="upper left")
-    _plain(ax)
-    return _save(fig, path)
+    plain_axes(ax)
+    return save_figure(fig, path)
 
 
 def plot_actual_vs_expected(
@@ -159,24 +120,24 @@ def plot_actual_vs_expected(
         if [str(level) for level in table["level"]] != labels:
             raise InputError(f"A/E table of {name}: levels of {factor} differ from those of {first_name}")
     positions = np.arange(len(labels))
-    fig = _new_figure(width=max(6.5, 0.55 * len(labels) + 3), height=4.8)
+    fig = new_figure(width=max(6.5, 0.55 * len(labels) + 3), height=4.8)
     ax = fig.subplots()
     bars = ax.twinx()
-    bars.bar(positions, first["exposure"], color=_BAR_COLOUR, width=0.7)
+    bars.bar(positions, first["exposure"], color=BAR_COLOUR, width=0.7)
     bars.set_ylabel("exposure")
     bars.spines["top"].set_visible(False)
     ax.set_zorder(bars.get_zorder() + 1)
     ax.patch.set_visible(False)
     ax.axhline(1.0, color="#999999", linewidth=0.8)
     for position, (name, table) in enumerate(tables.items()):
-        ax.plot(positions, table["actual_to_expected"], "o-", color=_colour(position), label=name)
-    _level_ticks(ax, positions, labels)
+        ax.plot(positions, table["actual_to_expected"], "o-", color=model_colour(position), label=name)
+    level_ticks(ax, positions, labels)
     ax.set_xlabel(factor)
     ax.set_ylabel("actual / expected")
     ax.set_title(f"Actual against expected by {factor}", fontsize=11, pad=22)
     ax.legend(frameon=False, fontsize=8, loc="lower left", bbox_to_anchor=(0, 1), ncol=len(tables))
-    _plain(ax)
-    return _save(fig, path)
+    plain_axes(ax)
+    return save_figure(fig, path)
 
 
 def plot_cv_curve(
@@ -196,23 +157,23 @@ def plot_cv_curve(
         raise InputError("CV table: no settings")
     if not 0 <= chosen < len(table):
         raise InputError(f"chosen: row {chosen} is outside the CV table's {len(table)} settings")
-    fig = _new_figure()
+    fig = new_figure()
     ax = fig.subplots()
     ax.errorbar(
-        table[complexity], table[mean], yerr=table[sd], fmt="o", color=_colour(0),
+        table[complexity], table[mean], yerr=table[sd], fmt="o", color=model_colour(0),
         ecolor="#8aa9c4", capsize=3, label="setting (mean +- 1 sd over folds)",
     )
     best = table.iloc[chosen]
     ax.plot(
         [best[complexity]], [best[mean]], "o", markersize=13, markerfacecolor="none",
-        markeredgecolor=_colour(1), markeredgewidth=1.8, label="chosen",
+        markeredgecolor=model_colour(1), markeredgewidth=1.8, label="chosen",
     )
     ax.set_xlabel(complexity)
     ax.set_ylabel("cross-validated mean deviance")
     ax.set_title("Cross-validation: deviance against complexity", fontsize=11)
     ax.legend(frameon=False, fontsize=8)
-    _plain(ax)
-    return _save(fig, path)
+    plain_axes(ax)
+    return save_figure(fig, path)
 
 
 def plot_impact(result: Mapping[str, object], path: str | Path, *, factor: str | None = None) -> Path:
@@ -226,12 +187,12 @@ def plot_impact(result: Mapping[str, object], path: str | Path, *, factor: str |
         factor = max(by_factor, key=lambda name: np.ptp(by_factor[name]["change"].to_numpy()))
     if factor is not None and factor not in by_factor:
         raise InputError(f"plot_impact: factor '{factor}' is not in the impact result")
-    fig = _new_figure(width=11.0 if factor else 6.5, height=4.8)
+    fig = new_figure(width=11.0 if factor else 6.5, height=4.8)
     axes = fig.subplots(1, 2 if factor else 1, squeeze=False)[0]
     positions = np.arange(len(bands))
     ax = axes[0]
-    ax.bar(positions - 0.2, bands["count_share"], width=0.4, color=_colour(0), label="policies")
-    ax.bar(positions + 0.2, bands["premium_share"], width=0.4, color=_BAR_COLOUR, label="current premium")
+    ax.bar(positions - 0.2, bands["count_share"], width=0.4, color=model_colour(0), label="policies")
+    ax.bar(positions + 0.2, bands["premium_share"], width=0.4, color=BAR_COLOUR, label="current premium")
     ax.set_xticks(positions)
     ax.set_xticklabels(bands["band"], rotation=40, ha="right", fontsize=8)
     ax.set_xlabel("change of premium, proposed / current - 1")
@@ -239,17 +200,17 @@ def plot_impact(result: Mapping[str, object], path: str | Path, *, factor: str |
     ax.set_title(f"Dislocation: {result['policies']:,} policies, overall {result['overall_change']:+.2%}",
                  fontsize=11)
     ax.legend(frameon=False, fontsize=8)
-    _plain(ax)
+    plain_axes(ax)
     if factor:
         levels = by_factor[factor]
         ax = axes[1]
         spots = np.arange(len(levels))
         ax.axhline(0.0, color="#999999", linewidth=0.8)
         ax.bar(spots, levels["change"], width=0.7,
-               color=[_colour(1) if c > 0 else _colour(0) for c in levels["change"]])
-        _level_ticks(ax, spots, [str(v) for v in levels["level"]], fontsize=8)
+               color=[model_colour(1) if c > 0 else model_colour(0) for c in levels["change"]])
+        level_ticks(ax, spots, [str(v) for v in levels["level"]], fontsize=8)
         ax.set_xlabel(factor)
         ax.set_ylabel("premium-weighted mean change")
         ax.set_title(f"Mean change by {factor}", fontsize=11)
-        _plain(ax)
-    return _save(fig, path)
+        plain_axes(ax)
+    return save_figure(fig, path)

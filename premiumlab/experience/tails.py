@@ -82,9 +82,9 @@ def plot_tail(losses: np.ndarray, fit: TailFit, path: str | Path) -> Path:
     generalised Pareto survival (log scales)."""
     from scipy.stats import genpareto
 
-    from premiumlab.evaluation.figures import _new_figure, _plain, _save
+    from premiumlab._core.plotting import new_figure, plain_axes, save_figure
     table = mean_excess(losses, threshold_grid(losses, min(len(losses), PLOT_POINTS)))
-    fig = _new_figure(width=10.0, height=4.4)
+    fig = new_figure(width=10.0, height=4.4)
     left, right = fig.subplots(1, 2)
     left.plot(table["threshold"], table["mean_excess"], marker=".", color="#2b6a99", linewidth=1)
     left.axvline(fit.threshold, color="#c2582b", linestyle="--", linewidth=1, label=f"threshold {fit.threshold:,.4g}")
@@ -103,16 +103,21 @@ def plot_tail(losses: np.ndarray, fit: TailFit, path: str | Path) -> Path:
     right.set_title(f"Tail above the threshold ({fit.exceedances} losses)")
     right.legend(frameon=False)
     for ax in (left, right):
-        _plain(ax)
-    return _save(fig, path)
+        plain_axes(ax)
+    return save_figure(fig, path)
 
 
 def tail_losses(book_path: str | Path, spec_path: str | Path) -> tuple[np.ndarray, str]:
     """The losses of the module docstring and a phrase saying what they are."""
     from premiumlab.book.scan import load_book
-    from premiumlab.experience.adjustments import (future_midpoint, read_claims, read_text_column, trend_factor,
-                                       years_to_future)
     from premiumlab.book.spec import load_spec
+    from premiumlab.experience.adjustments import (
+        future_midpoint,
+        read_claims,
+        read_text_column,
+        trend_factor,
+        years_to_future,
+    )
     spec = load_spec(spec_path)
     if spec.columns.claim_amount is None:
         raise InputError(f"{spec.source}: key 'columns.claim_amount' is not set; the threshold aid needs amounts")

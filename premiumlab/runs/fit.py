@@ -18,7 +18,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from premiumlab._core.cautions import cautions_for
+from premiumlab.experience.cautions import cautions_for
 from premiumlab._core.cluster import TaskRunner, parse_cluster, tasks_on
 from premiumlab.book.scan import load_book
 from premiumlab.book.data import Book, Levels, categorise, factor_levels

@@ -31,7 +31,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from premiumlab._core.cautions import cautions_for
+from premiumlab.experience.cautions import cautions_for
 from premiumlab.book.data import Book
 from premiumlab.tabulation.distill import Banding, DistilOptions, FactorValues, band_exposure, distil, exposure_sample, \
     round_relativity
