@@ -1,4 +1,4 @@
-"""The cautions every output carries (DESIGN section 6)."""
+"""The cautions every output carries (docs/commands.md, Cautions)."""
 from __future__ import annotations
 
 from premiumlab.book.spec import Spec
