@@ -1,4 +1,4 @@
-"""Reading and writing the rating-table folder of DESIGN 3.4 (`table.json` + `factors/NAME.csv`).
+"""Reading and writing the rating-table folder of docs/rating-table.md (`table.json` + `factors/NAME.csv`).
 
 Numbers are written as Python's shortest exact repr (`-inf`/`inf` for open band ends), so that
 save then load gives an equal table; output bytes depend only on the table (no timestamps).
@@ -37,7 +37,7 @@ _MISSING = object()
 # ----------------------------------------------------------------------------------------- reading
 
 def load(path: str | os.PathLike) -> RatingTable:
-    """Read the rating table in folder `path` (DESIGN 3.4); TableError on any problem."""
+    """Read the rating table in folder `path` (docs/rating-table.md); TableError on any problem."""
     root = Path(path)
     try:
         return _load(root)

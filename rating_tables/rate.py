@@ -1,4 +1,4 @@
-"""The rater: relativities, pure and gross premium for every row of a book, vectorised (DESIGN 3.4).
+"""The rater (docs/rating-table.md, Rating algorithm): pure and gross premium of every book row, vectorised.
 
 pure_premium  = ((base_rate x rel_1) x rel_2 ... x rel_k) x exposure   (factors in table order)
 gross_premium = max(minimum_premium, (pure x (1 + lae_ratio) + fixed_expense x exposure)

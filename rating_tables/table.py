@@ -1,7 +1,7 @@
 """The rating-table model: factors, loadings, rounding and the table, validated when built.
 
 Pure premium = base_rate x product of factor relativities (in table order) x exposure; the gross
-premium adds LAE, expenses and profit (DESIGN 3.4). Every object here is immutable and its arrays
+premium adds LAE, expenses and profit (docs/rating-table.md). Every object here is immutable and its arrays
 are read-only float64 copies. A table that exists is well-formed: numeric bands cover
 (-inf, inf) without gap or overlap, relativities are finite and > 0, categorical levels are
 unique non-empty strings, fallback and base levels exist, a two-way table refers to main factors
@@ -403,7 +403,7 @@ def _number(value: Any, key: str) -> float:
 
 @dataclass(frozen=True)
 class Loadings:
-    """Loadings of DESIGN 3.4, all >= 0: lae_ratio (share of pure premium), fixed_expense (money per
+    """Loadings of docs/rating-table.md, all >= 0: lae_ratio (share of pure premium), fixed_expense (money per
     exposure unit), variable_expense and profit (shares of gross premium, sum < 1), minimum_premium
     (money per policy)."""
 
@@ -460,7 +460,7 @@ def _text(value: Any, key: str) -> str:
 
 @dataclass(frozen=True)
 class RatingTable:
-    """A filed rating table (DESIGN 3.4).
+    """A filed rating table (docs/rating-table.md).
 
     `base_rate` is money per exposure unit; `factors` are multiplied in this order; `target`
     and `provenance` are plain JSON objects; `cautions` always include DRAFT_CAUTION (added first

@@ -1,4 +1,4 @@
-"""Atomic outputs (DESIGN 3.2): work happens in a hidden folder `.NAME.tmp-PID` beside the target and
+"""Atomic outputs (docs/commands.md): work happens in a hidden folder `.NAME.tmp-PID` beside the target and
 is renamed into place at the end; a killed command leaves nothing at the target and its leftover is
 swept at the next start; `--force` keeps the old output until the new one is in place.
 

@@ -1,6 +1,6 @@
 """The bad-input battery: every bad spec, book, table or output path gets one clear answer.
 
-Source of the expectations: the command-line contract of DESIGN 3.2 (exit 2 for bad input or usage
+Source of the expectations: the command-line contract of docs/commands.md (exit 2 for bad input or usage
 with one line on stderr naming the file, column, row or key and no traceback; exit 1 when `audit`
 or `validate` finds violations, listed on stdout; a failed command leaves nothing at the target
 path and never modifies its inputs). Each case runs `premiumlab` as a subprocess, as a user would,

@@ -3,8 +3,8 @@ inside their folder.
 
 The first part reads the syntax tree of every module of premiumlab/ and rating_tables/ (Python's `ast`
 module, so a word in a comment or a string cannot hide or fake a finding). The second part runs the
-refusals of DESIGN 3.4 ("`file` entries are relative paths inside TABLE; anything that leaves it is
-refused") through the command line, with a real file waiting outside the table so that the refusal
+refusals of docs/rating-table.md, Validation rules (a factor's `file` must stay inside the table
+folder) through the command line, with a real file waiting outside the table so that the refusal
 cannot be mistaken for a missing file.
 """
 from __future__ import annotations
@@ -126,7 +126,7 @@ ESCAPES = [("dotdot", "file '../bonus.csv' uses '..' and would leave the table f
 
 @pytest.mark.parametrize("how, message", ESCAPES, ids=[e[0] for e in ESCAPES])
 def test_rate_and_audit_refuse_a_factor_file_outside_the_table(tmp_path, how, message):
-    """DESIGN 3.4: `rate` exits 2 with one line naming the file; `audit` reports it as a violation (exit 1)."""
+    """docs/commands.md: `rate` exits 2 with one line naming the file; `audit` reports a violation (exit 1)."""
     folder = _escape_table(tmp_path, how)
     example_book().to_csv(tmp_path / "policies.csv", index=False)
     before = _digest_tree(tmp_path)

@@ -1,6 +1,6 @@
 """The rater against a hand calculation, its refusals, the base-rate solver and batch rating of files.
 
-The hand calculation applies the premium formula of DESIGN 3.4 to an invented table (figures
+The hand calculation applies the premium formula of docs/rating-table.md to an invented table (figures
 written out below); batch rating is checked against one-piece rating byte for byte.
 """
 from __future__ import annotations

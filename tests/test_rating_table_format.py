@@ -1,4 +1,4 @@
-"""The rating-table folder of DESIGN 3.4: exact round trip, the files as specified, refusals, exhibit."""
+"""The rating-table folder of docs/rating-table.md: exact round trip, the files as specified, refusals, exhibit."""
 from __future__ import annotations
 
 import dataclasses

@@ -1,4 +1,4 @@
-"""Reproducibility (DESIGN 3.3): the same book, spec, seed and thread count give byte-identical model
+"""Reproducibility (docs/run-directory.md): the same book, spec, seed and thread count give byte-identical model
 and table files, run twice through the command line in two separate folders; `run.json` records
 what is needed to reproduce (spec, the book's sha256, seed, thread count, versions) and nothing that
 changes from run to run except its timings.

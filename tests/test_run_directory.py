@@ -1,4 +1,4 @@
-"""The run directory contract (DESIGN 3.3) on the session's small motor run."""
+"""The run directory contract (docs/run-directory.md) on the session's small motor run."""
 from __future__ import annotations
 
 import json

@@ -30,7 +30,7 @@ def test_rated_file_reproduces_the_table_total_and_keeps_inputs(demo_run):
     table = rating_tables.load(demo_run["table"])
     rel_cols = [c for c in priced.columns if c.startswith("rel_")]
     assert len(rel_cols) == len(table.factors)
-    # pure premium = base rate x product of relativities x exposure (DESIGN 3.4), row by row
+    # pure premium = base rate x product of relativities x exposure (docs/rating-table.md), row by row
     product = priced[rel_cols].prod(axis=1).to_numpy()
     np.testing.assert_allclose(priced["pure_premium"], table.base_rate * product * priced["exposure"], rtol=1e-12)
     # the base rate was solved so that the training total equals the experience target

@@ -1,4 +1,4 @@
-"""The cautions every output carries, word for word (the spec-dependent list is experience.cautions_for)."""
+"""The cautions every output carries, word for word (docs/commands.md, Cautions); the spec-dependent list is experience.cautions_for."""
 from __future__ import annotations
 
 from rating_tables.table import DRAFT_CAUTION

@@ -1,5 +1,5 @@
 """Experience adjustments before modelling: trend, large-loss capping with an excess load,
-catastrophe losses spread back as a load, and development to ultimate (DESIGN 6).
+catastrophe losses spread back as a load, and development to ultimate (docs/spec.md, [experience]).
 
 The order, per claim (with a claims file) or per row total (one policy in one period):
 1. severity trend: x' = x (1 + s)^t, with t the years from the period's midpoint to the future

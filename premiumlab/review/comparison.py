@@ -1,4 +1,4 @@
-"""Holdout comparison of a run's models (DESIGN 4): deviance, D^2, Gini, lift, double lift, A/E.
+"""`compare` (docs/run-directory.md, comparison.json): deviance, D^2, Gini, lift, double lift and A/E on the holdout.
 
 Targets on the holdout, each with its actual, prediction, weight and deviance power:
 frequency (claims per exposure; weight exposure; Poisson, power 1), severity (amount per claim on

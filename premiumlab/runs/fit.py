@@ -1,4 +1,4 @@
-"""`fit`: book + spec -> run directory (DESIGN 3.3): GLM baselines, boosted models, predictions.
+"""`fit`: book + spec -> run directory (docs/run-directory.md): GLM baselines, boosted models, predictions.
 
 With [experience] adjustments set, one step between loading and modelling adjusts counts and amounts
 (premiumlab.experience) and writes what it used to RUN/experience.json; every model is fitted on the

@@ -1,4 +1,4 @@
-"""`tabulate`: a run directory -> a banded multiplicative rating table (DESIGN 3.4 and 4).
+"""`tabulate`: a run directory -> a banded multiplicative rating table (docs/rating-table.md, docs/commands.md).
 
 `model="gbm"` distils the boosted pure-premium model (`premiumlab.distill`); `model="glm"` exports
 the Tweedie GLM's own relativities on the run's bands. Either way:

@@ -1,6 +1,6 @@
 """Boosted trees (LightGBM) for frequency, severity and pure premium, tuned by grouped K-fold CV.
 
-Targets (DESIGN 4), all with a log link, so the raw score is log(prediction):
+Targets (docs/run-directory.md, models/gbm_*), all with a log link, so the raw score is log(prediction):
 - frequency: Poisson, label claim_count / exposure (claims per exposure unit), weight exposure;
 - severity: Gamma, label claim_amount / claim_count (money per claim), weight claim_count, on the
   rows with claim_count > 0 and claim_amount > 0;
@@ -297,7 +297,7 @@ def _check_monotone(monotone: dict[str, int], names: list[str], categories: dict
 
 
 def _target_rows(inputs: GbmInputs, target: str, rows: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """(row mask, label, weight) of the target, DESIGN 4."""
+    """(row mask, label, weight) of the target (docs/run-directory.md, models/gbm_*)."""
     exposure = _check_vector("exposure", inputs.exposure, rows, lambda a: a > 0, "> 0")
     count = _check_vector("claim_count", inputs.claim_count, rows, lambda a: a >= 0, ">= 0")
     if target == "frequency":

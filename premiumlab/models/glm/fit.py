@@ -122,7 +122,7 @@ def _refuse_rows(name: str, bad: np.ndarray, what: str) -> None:
 
 @dataclass
 class GlmResult:
-    """A fitted GLM baseline with row-level statistics (see DESIGN 3.3 for the JSON keys)."""
+    """A fitted GLM baseline with row-level statistics (JSON keys: docs/run-directory.md, models/glm_*.json)."""
 
     family: str
     power: float | None
