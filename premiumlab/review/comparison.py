@@ -17,9 +17,9 @@ from premiumlab._core.jsonio import write_json
 from premiumlab.evaluation.holdout import (
     holdout_metrics,
     model_columns,
-    power_of,
     target_view,
 )
+from premiumlab.models.targets import TARGETS
 
 N_BOOT = 200
 
@@ -54,7 +54,7 @@ def compare(run_dir: str | Path, n_boot: int = N_BOOT) -> dict:
     fig_dir.mkdir(exist_ok=True)
     for target in result["metrics"]:
         mask, actual, weight, y = target_view(hold, target)
-        pw = power_of(target, power)
+        pw = TARGETS[target].deviance_power(power)
         g = None if groups is None else groups[mask.to_numpy()]
         col = {c: hold.loc[mask, c].to_numpy(float) for c in model_columns(hold, target)}
         pairs = [(f"glm_{target}", f"gbm_{target}")]
