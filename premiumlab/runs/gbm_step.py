@@ -1,4 +1,4 @@
-"""Boosted models inside a run: features from the spec, the three targets, certificate and H statistic."""
+"""Boosted models inside a run: options from the spec, the three targets, certificate and H statistic."""
 from __future__ import annotations
 
 from pathlib import Path
@@ -10,28 +10,13 @@ from premiumlab._core.cluster import IN_PROCESS, TaskRunner
 from premiumlab.book.data import Book
 from premiumlab._core.jsonio import write_json
 from premiumlab.book.spec import Spec
+from premiumlab.models.gbm.features import features_from_spec
 
 #: Held-out policies swept per promised factor by the empirical monotonicity check.
 SWEEP_POLICIES = 1000
 #: Policies in the sample for Friedman's H statistic, and factors (top by gain) it pairs.
 H_SAMPLE = 300
 H_FACTORS = 6
-
-
-def gbm_features(frame: pd.DataFrame, spec: Spec) -> pd.DataFrame:
-    """Model features: numeric as float; an ordered categorical with a promise as float codes in its
-    level order; other categoricals as pandas Categoricals (levels sorted as strings)."""
-    cols = {}
-    for f in spec.factors:
-        values = frame[f.name]
-        if f.type == "numeric":
-            cols[f.name] = values.to_numpy(dtype=float)
-        elif f.direction != 0:
-            cols[f.name] = pd.Categorical(values, categories=list(f.levels)).codes.astype(float)
-        else:
-            levels = list(f.levels) if f.levels is not None else sorted(set(values))
-            cols[f.name] = pd.Categorical(values, categories=levels)
-    return pd.DataFrame(cols)
 
 
 def gbm_options(spec: Spec, glm_power: float | None):
@@ -51,7 +36,7 @@ def fit_gbms(book: Book, spec: Spec, train: np.ndarray, glm_power: float | None,
     `runner`); write models, the monotonicity certificate and the interaction ranking; add
     predictions for every row."""
     from premiumlab.models.gbm.fit import GbmInputs, fit_target
-    features = gbm_features(book.frame, spec)
+    features = features_from_spec(book.frame, spec)
     monotone = {f.name: f.direction for f in spec.factors if f.direction != 0}
     groups = pd.factorize(book.policy[train])[0]
     inputs = GbmInputs(features=features.loc[train].reset_index(drop=True), monotone=monotone,

@@ -99,12 +99,12 @@ def level_indices(book: Book, run: Run, name: str) -> tuple[tuple[str, ...], np.
 
 def gbm_bands(run: Run, book: Book, preds: pd.DataFrame, train: np.ndarray) -> tuple[dict, dict, dict, dict, dict]:
     """Distil the boosted pure-premium model: (bandings, relativities, two-way tables, base bands, notes)."""
-    from premiumlab.runs.gbm_step import gbm_features
+    from premiumlab.models.gbm.features import features_from_spec
     from premiumlab.models.gbm.fit import load_model
 
     spec, opts = run.spec, run.spec.table
     model = load_model(run.path / "models" / "gbm_pure_premium.txt", run.path / "models" / "gbm_pure_premium.json")
-    features = gbm_features(book.frame, spec)
+    features = features_from_spec(book.frame, spec)
     rows = np.flatnonzero(train)
     check = rows[:CHECK_ROWS]
     stored = preds["gbm_pure_premium"].to_numpy()
