@@ -134,6 +134,7 @@ def demo_ratio(demo: Path) -> float:
     from premiumlab.models.gbm.features import features_from_spec
     from premiumlab.models.gbm.fit import load_model
     from premiumlab.book.spec import load_spec
+    from premiumlab.runs.rundir import RunDir
 
     spec = load_spec(demo / "spec.toml")
     book = pd.read_parquet(demo / "book.parquet")
@@ -142,7 +143,8 @@ def demo_ratio(demo: Path) -> float:
         if f.type == "categorical":
             book[f.name] = book[f.name].astype("category")
     table = rating_tables.load(demo / "table")
-    model = load_model(demo / "run/models/gbm_pure_premium.txt", demo / "run/models/gbm_pure_premium.json")
+    run = RunDir(demo / "run")
+    model = load_model(run.model_text("gbm", "pure_premium"), run.model_json("gbm", "pure_premium"))
     features = features_from_spec(book, spec)
     rate_seconds = median_seconds(lambda: rate(table, book, "exposure"))
     gbm_seconds = median_seconds(lambda: model.predict(features))
