@@ -32,7 +32,7 @@ def holdout_metrics(preds: pd.DataFrame, tweedie_power: float) -> dict:
     """Mean deviance, D^2, Gini and balance of every model column on the holdout rows."""
     from premiumlab.evaluation.metrics import balance, d2, gini, mean_deviance
     hold = preds[preds["holdout"]].reset_index(drop=True)
-    out = {}
+    out: dict[str, dict] = {}
     for target in TARGETS.values():
         if target.needs_amount and CLAIM_AMOUNT not in hold:
             continue

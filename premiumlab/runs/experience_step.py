@@ -4,6 +4,7 @@ predictions.parquet keeps `claim_count` and `claim_amount` as observed; with [ex
 adjustments it adds `claim_count_adjusted` and `claim_amount_adjusted`, the figures every model is
 fitted to and metrics.json compares with.
 """
+
 from __future__ import annotations
 
 from dataclasses import replace

@@ -15,7 +15,6 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from premiumlab.experience.cautions import cautions_for
 from premiumlab._core.cluster import TaskRunner, parse_cluster, tasks_on
 from premiumlab._core.errors import InputError
 from premiumlab._core.jsonio import write_json
@@ -24,6 +23,7 @@ from premiumlab.book.data import categorise, factor_levels
 from premiumlab.book.scan import load_book
 from premiumlab.book.spec import Spec, load_spec
 from premiumlab.experience.adjustments import latest_period_holdout, read_text_column
+from premiumlab.experience.cautions import cautions_for
 from premiumlab.runs.experience_step import add_adjusted_columns, adjust_book, adjusted_book, fitted_basis
 from premiumlab.runs.glm_step import fit_glms, period_control
 from premiumlab.runs.rundir import RunDir

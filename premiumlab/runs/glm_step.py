@@ -3,8 +3,10 @@
 With a period control, the period is fitted as a factor of every GLM but never tabled: every row is
 predicted at the control's training-exposure-weighted mean relativity.
 """
+
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass, replace
 
 import numpy as np
@@ -36,8 +38,14 @@ def period_control(periods: np.ndarray, exposure: np.ndarray, train: np.ndarray,
     return PeriodControl(name, values, order[int(np.argmax(expo))], expo)
 
 
-def glm_inputs(book: Book, cats: pd.DataFrame, levels: dict[str, Levels], rows: np.ndarray,
-               count_multiplier: np.ndarray | None = None, control: list[str] = ()) -> GlmInputs:
+def glm_inputs(
+    book: Book,
+    cats: pd.DataFrame,
+    levels: dict[str, Levels],
+    rows: np.ndarray,
+    count_multiplier: np.ndarray | None = None,
+    control: Sequence[str] = (),
+) -> GlmInputs:
     """GLM inputs on the selected rows.
 
     `count_multiplier` m (adjusted counts are the book's integer counts x m) enters as exposure / m
@@ -46,16 +54,28 @@ def glm_inputs(book: Book, cats: pd.DataFrame, levels: dict[str, Levels], rows: 
     premium, pass no multiplier. `control` names factors in `cats` fitted but never tabled.
     """
     m = 1.0 if count_multiplier is None else count_multiplier[rows]
-    return GlmInputs(factors=cats.loc[rows].reset_index(drop=True),
-                     base_levels={k: v.base for k, v in levels.items()},
-                     exposure=book.exposure[rows] / m, claim_count=book.claim_count[rows],
-                     claim_amount=None if book.claim_amount is None else book.claim_amount[rows] / m,
-                     control=list(control))
+    return GlmInputs(
+        factors=cats.loc[rows].reset_index(drop=True),
+        base_levels={k: v.base for k, v in levels.items()},
+        exposure=book.exposure[rows] / m,
+        claim_count=book.claim_count[rows],
+        claim_amount=None if book.claim_amount is None else book.claim_amount[rows] / m,
+        control=list(control),
+    )
 
 
-def fit_glms(book: Book, cats: pd.DataFrame, levels: dict[str, Levels], train: np.ndarray, spec: Spec,
-             run: RunDir, preds: pd.DataFrame, has_amount: bool, adjustment: Adjustment | None = None,
-             control: PeriodControl | None = None) -> float | None:
+def fit_glms(
+    book: Book,
+    cats: pd.DataFrame,
+    levels: dict[str, Levels],
+    train: np.ndarray,
+    spec: Spec,
+    run: RunDir,
+    preds: pd.DataFrame,
+    has_amount: bool,
+    adjustment: Adjustment | None = None,
+    control: PeriodControl | None = None,
+) -> float | None:
     """Fit the three GLMs on the training rows, write them to the run's models/ and add their
     predictions of every row to `preds`; with a period control, predict at the control's
     training-exposure-weighted mean relativity (the period is never tabled). Returns the pure-premium
@@ -76,7 +96,9 @@ def fit_glms(book: Book, cats: pd.DataFrame, levels: dict[str, Levels], train: n
         results["pure_premium"] = fit_pure_premium(whole, power=spec.glm.tweedie_power, engine=engine)
     for target, res in results.items():
         write_json(run.model_json("glm", target), res.to_json_dict())
-        preds[model_name("glm", target)] = res.predict(cats) if control is None else _at_mean_control(res, cats, control)
+        preds[model_name("glm", target)] = (
+            res.predict(cats) if control is None else _at_mean_control(res, cats, control)
+        )
     if has_amount:
         preds["glm_freq_x_sev"] = preds["glm_frequency"] * preds["glm_severity"]
         return results["pure_premium"].power
@@ -88,6 +110,7 @@ def _at_mean_control(res: GlmResult, cats: pd.DataFrame, control: PeriodControl)
     its relativities."""
     rel = res.relativities[control.name]
     mean = sum(rel[level] * e for level, e in zip(control.values.categories, control.exposure)) / control.exposure.sum()
-    at_base = cats.assign(**{control.name: pd.Categorical(np.full(len(cats), control.base),
-                                                          categories=control.values.categories)})
+    at_base = cats.assign(
+        **{control.name: pd.Categorical(np.full(len(cats), control.base), categories=control.values.categories)}
+    )
     return res.predict(at_base) * mean

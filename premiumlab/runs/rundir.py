@@ -1,4 +1,4 @@
-"""The run directory (DESIGN 3.3): every path in it, its manifest and factor levels, and reading a run back.
+"""The run directory (docs/run-directory.md): every path in it, its manifest and factor levels, and reading a run back.
 
 RUN/
     run.json              manifest: spec, book (path from the run and sha256), rows, seed, versions, ...
@@ -12,6 +12,7 @@ RUN/
     comparison.json, figures/*.png   written by `compare`
     report.html           written by `report`
 """
+
 from __future__ import annotations
 
 from dataclasses import dataclass
@@ -97,7 +98,7 @@ class RunDir:
     def model_targets(self, kind: str) -> list[str]:
         """The targets that have a model of this kind in models/ (a KIND_TARGET.json file), sorted."""
         prefix = model_name(kind, "")
-        return sorted(path.stem[len(prefix):] for path in self.models.glob(f"{prefix}*.json"))
+        return sorted(path.stem[len(prefix) :] for path in self.models.glob(f"{prefix}*.json"))
 
     def read_manifest(self) -> dict:
         """run.json, refused with a one-line error when the folder is not a run directory."""
@@ -111,14 +112,20 @@ class RunDir:
 
     def read_levels(self) -> dict[str, Levels]:
         """levels.json as Levels per factor."""
-        return {name: Levels(name, tuple(v["labels"]), v["base"], None if v["edges"] is None else tuple(v["edges"]))
-                for name, v in read_json(self.levels).items()}
+        return {
+            name: Levels(name, tuple(v["labels"]), v["base"], None if v["edges"] is None else tuple(v["edges"]))
+            for name, v in read_json(self.levels).items()
+        }
 
     def write_levels(self, levels: dict[str, Levels]) -> None:
         """levels.json: labels, base and numeric band edges (null for a categorical) per factor."""
-        write_json(self.levels, {name: {"labels": list(v.labels), "base": v.base,
-                                        "edges": None if v.edges is None else list(v.edges)}
-                                 for name, v in levels.items()})
+        write_json(
+            self.levels,
+            {
+                name: {"labels": list(v.labels), "base": v.base, "edges": None if v.edges is None else list(v.edges)}
+                for name, v in levels.items()
+            },
+        )
 
 
 @dataclass
@@ -147,8 +154,10 @@ class Run:
         book = load_book(p, self.spec)
         recorded = self.manifest["book"]["sha256"]
         if book.sha256 != recorded:
-            raise InputError(f"{p}: sha256 {book.sha256} differs from the book the run was fitted on "
-                             f"({recorded}, {self.files.manifest} key 'book.sha256')")
+            raise InputError(
+                f"{p}: sha256 {book.sha256} differs from the book the run was fitted on "
+                f"({recorded}, {self.files.manifest} key 'book.sha256')"
+            )
         if self.spec.split.out_of_time:
             book.holdout = latest_period_holdout(read_text_column(p, self.spec.columns.period))
         return book

@@ -1,4 +1,5 @@
 """The boosted models' features: the spec's factors of a book frame as LightGBM reads them."""
+
 from __future__ import annotations
 
 import pandas as pd
