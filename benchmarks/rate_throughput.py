@@ -131,9 +131,10 @@ def write_big_book(path: Path, rng: np.random.Generator) -> None:
 def demo_ratio(demo: Path) -> float:
     """Rater speed on the demo's table over LightGBM predict with the demo's tuned model."""
     import rating_tables
-    from premiumlab.runs.gbm_step import gbm_features
+    from premiumlab.models.gbm.features import features_from_spec
     from premiumlab.models.gbm.fit import load_model
     from premiumlab.book.spec import load_spec
+    from premiumlab.runs.rundir import RunDir
 
     spec = load_spec(demo / "spec.toml")
     book = pd.read_parquet(demo / "book.parquet")
@@ -142,8 +143,9 @@ def demo_ratio(demo: Path) -> float:
         if f.type == "categorical":
             book[f.name] = book[f.name].astype("category")
     table = rating_tables.load(demo / "table")
-    model = load_model(demo / "run/models/gbm_pure_premium.txt", demo / "run/models/gbm_pure_premium.json")
-    features = gbm_features(book, spec)
+    run = RunDir(demo / "run")
+    model = load_model(run.model_text("gbm", "pure_premium"), run.model_json("gbm", "pure_premium"))
+    features = features_from_spec(book, spec)
     rate_seconds = median_seconds(lambda: rate(table, book, "exposure"))
     gbm_seconds = median_seconds(lambda: model.predict(features))
     trees = model.booster.num_trees()

@@ -13,7 +13,7 @@ __version__ = "0.1.0"
 
 _PUBLIC = {
     "fit": "premiumlab.runs.fit",
-    "open_run": "premiumlab.runs.fit",
+    "open_run": "premiumlab.runs.rundir",
     "load_spec": "premiumlab.book.spec",
     "load_book": "premiumlab.book.scan",
     "simulate": "premiumlab.simulation.simulator",

@@ -237,7 +237,7 @@ def gbm_table(demo_run, tmp_path_factory) -> dict:
 
 
 def _training_frame(demo_run) -> tuple:
-    from premiumlab.runs.fit import open_run
+    from premiumlab.runs.rundir import open_run
     from premiumlab.tabulation.from_run import rating_frame, reread_book
     run = open_run(demo_run["run"])
     book = reread_book(run)
@@ -269,7 +269,7 @@ def test_table_fidelity_equals_sklearn_tweedie_deviance(demo_run, gbm_table) -> 
     import rating_tables
     from sklearn.metrics import mean_tweedie_deviance
 
-    from premiumlab.runs.fit import open_run
+    from premiumlab.runs.rundir import open_run
     from premiumlab.tabulation.from_run import rating_frame, reread_book
     fid = gbm_table["summary"]["fidelity"]
     run = open_run(demo_run["run"])

@@ -162,17 +162,18 @@ def certificate_violations(run_dir: str | Path) -> list[str]:
     """Re-certify the run's constrained boosted models from their text files alone."""
     from premiumlab.models.trees.certificate import certify
     from premiumlab._core.jsonio import read_json
-    models = Path(run_dir) / "models"
-    if not models.is_dir():
+    from premiumlab.runs.rundir import RunDir, model_name
+    run = RunDir(Path(run_dir))
+    if not run.models.is_dir():
         raise InputError(f"{run_dir}: not a run directory (no models/)")
     out = []
-    for meta_path in sorted(models.glob("gbm_*.json")):
-        meta = read_json(meta_path)
-        text = (models / f"{meta_path.stem}.txt").read_text(encoding="utf-8")
+    for target in run.model_targets("gbm"):
+        meta = read_json(run.model_json("gbm", target))
+        text = run.model_text("gbm", target).read_text(encoding="utf-8")
         for name, direction in meta.get("monotone", {}).items():
             cert = certify(text, name, int(direction))
             if cert["violation_count"]:
-                out.append(f"certificate: {meta_path.stem} breaks the {name} promise in "
+                out.append(f"certificate: {model_name('gbm', target)} breaks the {name} promise in "
                            f"{cert['violation_count']} leaf pairs (largest reversal {cert['max_violation']:.6g})")
     return out
 

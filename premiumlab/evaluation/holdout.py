@@ -1,28 +1,23 @@
 """Holdout metrics of a run's prediction columns, per target.
 
-Targets on the holdout, each with its actual, prediction, weight and deviance power:
-frequency (claims per exposure; weight exposure; Poisson, power 1), severity (amount per claim on
-rows with claims and a positive amount; weight claims; Gamma, power 2) and pure premium (amount per
-exposure; weight exposure; Tweedie at the GLM's power). Pure premium is also compared as frequency x
-severity against the direct Tweedie model.
+Targets on the holdout (`premiumlab.models.targets`), each with its actual (the numerator),
+prediction, weight and deviance power: frequency (Poisson, power 1), severity (Gamma, power 2) and
+pure premium (Tweedie at the GLM's power). Pure premium is also compared as frequency x severity
+against the direct Tweedie model.
 """
 from __future__ import annotations
 
 import numpy as np
 import pandas as pd
 
+from premiumlab.models.targets import CLAIM_AMOUNT, CLAIM_COUNT, EXPOSURE, TARGETS
+
 
 def target_view(preds: pd.DataFrame, target: str) -> tuple[pd.Series, np.ndarray, np.ndarray, np.ndarray]:
     """(row mask, actual total, weight, actual per weight unit) of one target on the given rows."""
-    count = preds["claim_count"].to_numpy(float)
-    expo = preds["exposure"].to_numpy(float)
-    if target == "frequency":
-        return pd.Series(True, index=preds.index), count, expo, count / expo
-    amount = preds["claim_amount"].to_numpy(float)
-    if target == "severity":
-        mask = (count > 0) & (amount > 0)
-        return pd.Series(mask, index=preds.index), amount[mask], count[mask], amount[mask] / count[mask]
-    return pd.Series(True, index=preds.index), amount, expo, amount / expo
+    amount = preds[CLAIM_AMOUNT].to_numpy(float) if TARGETS[target].needs_amount else None
+    view = TARGETS[target].view(preds[EXPOSURE].to_numpy(float), preds[CLAIM_COUNT].to_numpy(float), amount)
+    return pd.Series(view.rows, index=preds.index), view.numerator, view.weight, view.label
 
 
 def model_columns(preds: pd.DataFrame, target: str) -> list[str]:
@@ -33,24 +28,20 @@ def model_columns(preds: pd.DataFrame, target: str) -> list[str]:
     return [n for n in names if n in preds.columns]
 
 
-def power_of(target: str, tweedie_power: float) -> float:
-    return {"frequency": 1.0, "severity": 2.0}.get(target, tweedie_power)
-
-
 def holdout_metrics(preds: pd.DataFrame, tweedie_power: float) -> dict:
     """Mean deviance, D^2, Gini and balance of every model column on the holdout rows."""
     from premiumlab.evaluation.metrics import balance, d2, gini, mean_deviance
     hold = preds[preds["holdout"]].reset_index(drop=True)
-    out = {}
-    for target in ("frequency", "severity", "pure_premium"):
-        if target != "frequency" and "claim_amount" not in hold:
+    out: dict[str, dict] = {}
+    for target in TARGETS.values():
+        if target.needs_amount and CLAIM_AMOUNT not in hold:
             continue
-        mask, actual, weight, y = target_view(hold, target)
-        power = power_of(target, tweedie_power)
-        out[target] = {"power": power, "rows": int(mask.sum()), "models": {}}
-        for col in model_columns(hold, target):
+        mask, actual, weight, y = target_view(hold, target.name)
+        power = target.deviance_power(tweedie_power)
+        out[target.name] = {"power": power, "rows": int(mask.sum()), "models": {}}
+        for col in model_columns(hold, target.name):
             mu = hold.loc[mask, col].to_numpy(float)
-            out[target]["models"][col] = {
+            out[target.name]["models"][col] = {
                 "mean_deviance": mean_deviance(y, mu, weight, power), "d2": d2(y, mu, weight, power),
                 "gini": gini(actual, mu, weight), "balance": balance(actual, mu, weight)}
     return out

@@ -30,8 +30,6 @@ import pandas as pd
 from premiumlab._core.errors import InputError
 from premiumlab.book.spec import Experience, Spec
 
-#: Days of a year, for the years between two dates.
-DAYS_PER_YEAR = 365.25
 _TRUE = ("1", "true", "yes", "y", "t")
 _FALSE = ("0", "false", "no", "n", "f", "")
 

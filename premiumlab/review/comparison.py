@@ -17,9 +17,9 @@ from premiumlab._core.jsonio import write_json
 from premiumlab.evaluation.holdout import (
     holdout_metrics,
     model_columns,
-    power_of,
     target_view,
 )
+from premiumlab.models.targets import TARGETS
 
 N_BOOT = 200
 
@@ -35,7 +35,8 @@ def compare(run_dir: str | Path, n_boot: int = N_BOOT) -> dict:
         lift_table,
         lorenz_curve,
     )
-    from premiumlab.runs.fit import fitted_basis, open_run
+    from premiumlab.runs.experience_step import fitted_basis
+    from premiumlab.runs.rundir import open_run
     run = open_run(run_dir)
     preds = fitted_basis(run.predictions())
     if not preds["holdout"].any():
@@ -43,18 +44,18 @@ def compare(run_dir: str | Path, n_boot: int = N_BOOT) -> dict:
                          f"compare on; refit with a holdout share above 0 or holdout = \"latest_period\"")
     if not any(c.startswith("gbm_") for c in preds) or not any(c.startswith("glm_") for c in preds):
         raise InputError(f"{run.path}: compare needs both GLM and GBM predictions; fit with --models glm,gbm")
-    power = run.model_json("glm_pure_premium")["power"] if "glm_pure_premium" in preds else 1.5
+    power = run.model_json("glm", "pure_premium")["power"] if "glm_pure_premium" in preds else 1.5
     seed = run.spec.split.seed
     result = {"holdout_rows": int(preds["holdout"].sum()), "tweedie_power": power,
               "metrics": holdout_metrics(preds, power), "differences": {}, "lift": {}, "double_lift": {},
               "actual_vs_expected": {}, "cautions": run.manifest["cautions"]}
     hold = preds[preds["holdout"]].reset_index(drop=True)
     groups = hold["policy_group"].to_numpy() if "policy_group" in hold else None
-    fig_dir = run.path / "figures"
+    fig_dir = run.files.figures
     fig_dir.mkdir(exist_ok=True)
     for target in result["metrics"]:
         mask, actual, weight, y = target_view(hold, target)
-        pw = power_of(target, power)
+        pw = TARGETS[target].deviance_power(power)
         g = None if groups is None else groups[mask.to_numpy()]
         col = {c: hold.loc[mask, c].to_numpy(float) for c in model_columns(hold, target)}
         pairs = [(f"glm_{target}", f"gbm_{target}")]
@@ -79,7 +80,7 @@ def compare(run_dir: str | Path, n_boot: int = N_BOOT) -> dict:
         figures.plot_double_lift(dl, fig_dir / f"double_lift_{target}.png", name_a=a, name_b=b)
     _actual_vs_expected(run, hold, result, fig_dir, actual_vs_expected, figures)
     _cv_figures(run, fig_dir, figures)
-    write_json(run.path / "comparison.json", result)
+    write_json(run.files.comparison, result)
     return result
 
 
@@ -99,8 +100,8 @@ def _actual_vs_expected(run, hold: pd.DataFrame, result: dict, fig_dir: Path, av
 
 
 def _cv_figures(run, fig_dir: Path, figures) -> None:
-    for path in sorted((run.path / "models").glob("gbm_*.json")):
-        meta = run.model_json(path.stem)
+    for target in run.files.model_targets("gbm"):
+        meta = run.model_json("gbm", target)
         table = pd.DataFrame(meta["cv"]["table"])
         if table.empty:
             continue

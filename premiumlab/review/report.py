@@ -6,6 +6,7 @@ import html
 from pathlib import Path
 
 from premiumlab._core.jsonio import read_json
+from premiumlab.runs.rundir import RunDir, model_name, open_run
 
 
 def _table(header: list[str], rows: list[list[str]]) -> str:
@@ -20,14 +21,15 @@ def _figure(path: Path) -> str:
             f"<figcaption>{html.escape(path.stem.replace('_', ' '))}</figcaption></figure>")
 
 
-def _glm_section(run_dir: Path) -> str:
+def _glm_section(files: RunDir) -> str:
     parts = []
-    for path in sorted((run_dir / "models").glob("glm_*.json")):
-        m = read_json(path)
+    for target in files.model_targets("glm"):
+        name = model_name("glm", target)
+        m = read_json(files.model_json("glm", target))
         rows = [[c["term"], f"{c['estimate']:.4f}", f"{c['std_error']:.4f}", f"{c['p_value']:.3g}"]
                 for c in m["coefficients"]]
         power = "" if m.get("power") is None else f", power {m['power']:.2f}"
-        parts.append(f"<h3>{html.escape(path.stem)} ({html.escape(m['family'])}{power})</h3>"
+        parts.append(f"<h3>{html.escape(name)} ({html.escape(m['family'])}{power})</h3>"
                      f"<p>deviance {m['deviance']:.6g} on {m['df_resid']} df; null deviance "
                      f"{m['null_deviance']:.6g}; AIC {m['aic']:.6g}</p>"
                      + _table(["term", "estimate", "std. error", "p-value"], rows))
@@ -37,11 +39,9 @@ def _glm_section(run_dir: Path) -> str:
 def write_report(run_dir: str | Path) -> Path:
     """Write RUN/report.html from run.json, metrics and comparison.json (run `compare` first for
     figures and intervals); returns the path."""
-    from premiumlab.runs.fit import open_run
     run = open_run(run_dir)
     manifest = run.manifest
-    comparison_path = run.path / "comparison.json"
-    comparison = read_json(comparison_path) if comparison_path.exists() else None
+    comparison = read_json(run.files.comparison) if run.files.comparison.exists() else None
     cautions = "".join(f"<li>{html.escape(c)}</li>" for c in manifest["cautions"])
     sections = [f"<h1>premiumlab run: {html.escape(run.path.name)}</h1>",
                 f'<div class="caution"><strong>Cautions</strong><ul>{cautions}</ul></div>',
@@ -63,12 +63,12 @@ def write_report(run_dir: str | Path) -> Path:
                      for name, d in comparison["differences"].items()]
         sections.append("<h3>Differences, paired bootstrap 95 % intervals</h3>" + _table(
             ["comparison", "deviance reduction", "interval", "Gini gain", "interval"], diff_rows))
-        figs = sorted((run.path / "figures").glob("*.png"))
+        figs = sorted(run.files.figures.glob("*.png"))
         sections.append("<h2>Figures</h2>" + "".join(_figure(f) for f in figs))
     else:
         sections.append("<p>Run <code>premiumlab compare</code> on this run for the holdout comparison "
                         "and its figures.</p>")
-    sections.append("<h2>GLM baselines</h2>" + _glm_section(run.path))
+    sections.append("<h2>GLM baselines</h2>" + _glm_section(run.files))
     style = ("body{font-family:Georgia,serif;max-width:1000px;margin:2em auto;color:#222}"
              "table{border-collapse:collapse;margin:0.5em 0 1.5em}td,th{border-bottom:1px solid #ccc;"
              "padding:3px 10px;text-align:right}th{background:#f1efe8}.caution{border:2px solid #a33;"
@@ -77,6 +77,6 @@ def write_report(run_dir: str | Path) -> Path:
     page = (f"<!DOCTYPE html><html lang=\"en\"><head><meta charset=\"utf-8\"><title>premiumlab run "
             f"{html.escape(run.path.name)}</title><style>{style}</style></head><body>"
             + "".join(sections) + "</body></html>\n")
-    out = run.path / "report.html"
+    out = run.files.report
     out.write_text(page, encoding="utf-8")
     return out

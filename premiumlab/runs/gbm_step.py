@@ -1,37 +1,22 @@
-"""Boosted models inside a run: features from the spec, the three targets, certificate and H statistic."""
+"""Boosted models inside a run: options from the spec, the three targets, certificate and H statistic."""
 from __future__ import annotations
-
-from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
 from premiumlab._core.cluster import IN_PROCESS, TaskRunner
-from premiumlab.book.data import Book
 from premiumlab._core.jsonio import write_json
+from premiumlab.book.data import Book
 from premiumlab.book.spec import Spec
+from premiumlab.models.gbm.features import features_from_spec
+from premiumlab.models.targets import TARGETS
+from premiumlab.runs.rundir import RunDir, model_name
 
 #: Held-out policies swept per promised factor by the empirical monotonicity check.
 SWEEP_POLICIES = 1000
 #: Policies in the sample for Friedman's H statistic, and factors (top by gain) it pairs.
 H_SAMPLE = 300
 H_FACTORS = 6
-
-
-def gbm_features(frame: pd.DataFrame, spec: Spec) -> pd.DataFrame:
-    """Model features: numeric as float; an ordered categorical with a promise as float codes in its
-    level order; other categoricals as pandas Categoricals (levels sorted as strings)."""
-    cols = {}
-    for f in spec.factors:
-        values = frame[f.name]
-        if f.type == "numeric":
-            cols[f.name] = values.to_numpy(dtype=float)
-        elif f.direction != 0:
-            cols[f.name] = pd.Categorical(values, categories=list(f.levels)).codes.astype(float)
-        else:
-            levels = list(f.levels) if f.levels is not None else sorted(set(values))
-            cols[f.name] = pd.Categorical(values, categories=levels)
-    return pd.DataFrame(cols)
 
 
 def gbm_options(spec: Spec, glm_power: float | None):
@@ -45,13 +30,13 @@ def gbm_options(spec: Spec, glm_power: float | None):
                       tweedie_power=float(power))
 
 
-def fit_gbms(book: Book, spec: Spec, train: np.ndarray, glm_power: float | None, run_dir: Path,
+def fit_gbms(book: Book, spec: Spec, train: np.ndarray, glm_power: float | None, run: RunDir,
              preds: pd.DataFrame, runner: TaskRunner = IN_PROCESS) -> None:
     """Fit frequency, severity and pure-premium models on the training rows (the search's fits on
     `runner`); write models, the monotonicity certificate and the interaction ranking; add
     predictions for every row."""
     from premiumlab.models.gbm.fit import GbmInputs, fit_target
-    features = gbm_features(book.frame, spec)
+    features = features_from_spec(book.frame, spec)
     monotone = {f.name: f.direction for f in spec.factors if f.direction != 0}
     groups = pd.factorize(book.policy[train])[0]
     inputs = GbmInputs(features=features.loc[train].reset_index(drop=True), monotone=monotone,
@@ -59,19 +44,19 @@ def fit_gbms(book: Book, spec: Spec, train: np.ndarray, glm_power: float | None,
                        claim_amount=None if book.claim_amount is None else book.claim_amount[train],
                        groups=groups)
     options = gbm_options(spec, glm_power)
-    targets = ["frequency"] + (["severity", "pure_premium"] if book.claim_amount is not None else [])
+    targets = [name for name, t in TARGETS.items() if book.claim_amount is not None or not t.needs_amount]
     models = {}
     for target in targets:
         model = fit_target(inputs, target, options, runner)
-        (run_dir / "models" / f"gbm_{target}.txt").write_text(model.model_text(), encoding="utf-8")
-        write_json(run_dir / "models" / f"gbm_{target}.json", model.to_json_dict())
-        preds[f"gbm_{target}"] = model.predict(features)
+        run.model_text("gbm", target).write_text(model.model_text(), encoding="utf-8")
+        write_json(run.model_json("gbm", target), model.to_json_dict())
+        preds[model_name("gbm", target)] = model.predict(features)
         models[target] = model
     if "severity" in models:
         preds["gbm_freq_x_sev"] = preds["gbm_frequency"] * preds["gbm_severity"]
     main = models.get("pure_premium", models["frequency"])
-    write_json(run_dir / "certificate.json", certify_run(models, features, book.holdout, spec))
-    write_json(run_dir / "interactions.json", rank_interactions(main, features, train, spec))
+    write_json(run.certificate, certify_run(models, features, book.holdout, spec))
+    write_json(run.interactions, rank_interactions(main, features, train, spec))
 
 
 def certify_run(models: dict, features: pd.DataFrame, holdout: np.ndarray, spec: Spec) -> dict:

@@ -38,7 +38,7 @@ from premiumlab.tabulation.distill import Banding, DistilOptions, FactorValues, 
 from premiumlab._core.errors import InputError
 from premiumlab._core.jsonio import write_json
 from premiumlab._core.outputs import atomic_output, check_target
-from premiumlab.runs.fit import Run, open_run
+from premiumlab.runs.rundir import Run, open_run
 from premiumlab.book.spec import Spec
 
 MODELS = ("gbm", "glm")
@@ -64,7 +64,7 @@ def reread_book(run: Run, book: str | Path | None = None) -> Book:
 def checked_predictions(run: Run, book: Book, column: str) -> pd.DataFrame:
     """predictions.parquet, checked row by row against the book and for the column needed."""
     preds = run.predictions()
-    where = run.path / "predictions.parquet"
+    where = run.files.predictions
     if len(preds) != book.n_rows or not np.array_equal(preds["row"].to_numpy(), np.arange(book.n_rows)):
         raise InputError(f"{where}: its rows do not match the book's {book.n_rows} rows (column 'row')")
     if not np.array_equal(preds["holdout"].to_numpy(dtype=bool), book.holdout):
@@ -89,7 +89,7 @@ def level_indices(book: Book, run: Run, name: str) -> tuple[tuple[str, ...], np.
     if (codes < 0).any():
         row = int(np.flatnonzero(codes < 0)[0])
         raise InputError(f"{book.path}: column '{name}', row {row}: level {book.frame[name].iloc[row]!r} is not "
-                         f"one of the run's levels ({run.path / 'levels.json'})")
+                         f"one of the run's levels ({run.files.levels})")
     return levels, codes
 
 
@@ -99,17 +99,18 @@ def level_indices(book: Book, run: Run, name: str) -> tuple[tuple[str, ...], np.
 
 def gbm_bands(run: Run, book: Book, preds: pd.DataFrame, train: np.ndarray) -> tuple[dict, dict, dict, dict, dict]:
     """Distil the boosted pure-premium model: (bandings, relativities, two-way tables, base bands, notes)."""
-    from premiumlab.runs.gbm_step import gbm_features
+    from premiumlab.models.gbm.features import features_from_spec
     from premiumlab.models.gbm.fit import load_model
 
     spec, opts = run.spec, run.spec.table
-    model = load_model(run.path / "models" / "gbm_pure_premium.txt", run.path / "models" / "gbm_pure_premium.json")
-    features = gbm_features(book.frame, spec)
+    model_text = run.files.model_text("gbm", "pure_premium")
+    model = load_model(model_text, run.files.model_json("gbm", "pure_premium"))
+    features = features_from_spec(book.frame, spec)
     rows = np.flatnonzero(train)
     check = rows[:CHECK_ROWS]
     stored = preds["gbm_pure_premium"].to_numpy()
     if not np.allclose(model.predict(features.iloc[check]), stored[check], rtol=CHECK_TOLERANCE, atol=0):
-        raise InputError(f"{run.path / 'models' / 'gbm_pure_premium.txt'}: the model does not reproduce "
+        raise InputError(f"{model_text}: the model does not reproduce "
                          f"column 'gbm_pure_premium' of predictions.parquet on the book")
     factors = []
     for f in spec.factors:
@@ -154,8 +155,8 @@ def glm_bands(run: Run, book: Book) -> tuple[dict, dict, dict, dict, dict]:
     """The Tweedie GLM's relativities on the run's bands: (bandings, relativities, {}, base bands, notes)."""
     from premiumlab.book.bands import band_labels
 
-    glm = run.model_json("glm_pure_premium")
-    where = run.path / "models" / "glm_pure_premium.json"
+    glm = run.model_json("glm", "pure_premium")
+    where = run.files.model_json("glm", "pure_premium")
     bandings, relativities, bases, defaulted = {}, {}, {}, []
     for f in run.spec.factors:
         levels = run.levels[f.name]
@@ -326,13 +327,13 @@ def fidelity(table, frame: pd.DataFrame, spec: Spec, book: Book, preds: pd.DataF
 
 def _power(run: Run, model: str) -> float:
     """The Tweedie power of the comparison: the GLM's, else the boosted model's."""
-    if (run.path / "models" / "glm_pure_premium.json").is_file():
-        power = run.model_json("glm_pure_premium").get("power")
+    if run.files.model_json("glm", "pure_premium").is_file():
+        power = run.model_json("glm", "pure_premium").get("power")
         if power is not None:
             return float(power)
-    if (run.path / "models" / "gbm_pure_premium.json").is_file():
-        return float(run.model_json("gbm_pure_premium")["params"]["tweedie_variance_power"])
-    raise InputError(f"{run.path / 'models'}: no pure-premium model to take the Tweedie power from ({model})")
+    if run.files.model_json("gbm", "pure_premium").is_file():
+        return float(run.model_json("gbm", "pure_premium")["params"]["tweedie_variance_power"])
+    raise InputError(f"{run.files.models}: no pure-premium model to take the Tweedie power from ({model})")
 
 
 # ---------------------------------------------------------------------------------------------

@@ -1,11 +1,8 @@
 """Boosted trees (LightGBM) for frequency, severity and pure premium, tuned by grouped K-fold CV.
 
-Targets (docs/run-directory.md, models/gbm_*), all with a log link, so the raw score is log(prediction):
-- frequency: Poisson, label claim_count / exposure (claims per exposure unit), weight exposure;
-- severity: Gamma, label claim_amount / claim_count (money per claim), weight claim_count, on the
-  rows with claim_count > 0 and claim_amount > 0;
-- pure premium: Tweedie with variance power p, label claim_amount / exposure (money per exposure
-  unit), weight exposure.
+Targets (`premiumlab.models.targets`; their files: docs/run-directory.md, models/gbm_*): frequency
+(Poisson), severity (Gamma) and pure premium (Tweedie with variance power p), each with its label,
+weight and rows, all with a log link, so the raw score is log(prediction).
 
 Tuning: every setting of a small grid is trained on K-1 folds (folds grouped by policy, so the rows
 of a policy stay together) with early stopping on the weighted mean deviance of the held-out fold
@@ -38,9 +35,8 @@ from premiumlab._core.errors import InputError
 from premiumlab._core.jsonio import read_json
 from premiumlab.evaluation.metrics import mean_deviance
 from premiumlab._core.progress import progress_bar
+from premiumlab.models.targets import TARGETS
 
-TARGETS = ("frequency", "severity", "pure_premium")
-OBJECTIVES = {"frequency": "poisson", "severity": "gamma", "pure_premium": "tweedie"}
 MONOTONE_METHODS = ("basic", "intermediate", "advanced")
 SIMPLER_METHOD = {"advanced": "intermediate", "intermediate": "basic"}
 GRID_KEYS = frozenset({"num_leaves", "min_data_in_leaf", "min_sum_hessian_in_leaf", "learning_rate",
@@ -127,8 +123,7 @@ class TrainingData:
     @property
     def power(self) -> float:
         """Tweedie variance power of the target's deviance (1 Poisson, 2 Gamma, p Tweedie)."""
-        objective = self.base_params["objective"]
-        return {"poisson": 1.0, "gamma": 2.0}.get(objective) or self.base_params["tweedie_variance_power"]
+        return TARGETS[self.target].deviance_power(self.base_params.get("tweedie_variance_power"))
 
     def dataset(self) -> lgb.Dataset:
         return lgb.Dataset(self.matrix, label=self.label, weight=self.weight,
@@ -297,23 +292,18 @@ def _check_monotone(monotone: dict[str, int], names: list[str], categories: dict
 
 
 def _target_rows(inputs: GbmInputs, target: str, rows: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """(row mask, label, weight) of the target (docs/run-directory.md, models/gbm_*)."""
+    """(row mask, label, weight) of the target (`premiumlab.models.targets`), the inputs checked."""
     exposure = _check_vector("exposure", inputs.exposure, rows, lambda a: a > 0, "> 0")
     count = _check_vector("claim_count", inputs.claim_count, rows, lambda a: a >= 0, ">= 0")
-    if target == "frequency":
-        mask, label, weight = np.ones(rows, dtype=bool), count / exposure, exposure
-    else:
+    amount = None
+    if TARGETS[target].needs_amount:
         if inputs.claim_amount is None:
             raise InputError(f"claim_amount: required for the {target} model")
         amount = _check_vector("claim_amount", inputs.claim_amount, rows, lambda a: a >= 0, ">= 0")
-        if target == "severity":
-            mask = (count > 0) & (amount > 0)
-            label, weight = amount[mask] / count[mask], count[mask]
-        else:
-            mask, label, weight = np.ones(rows, dtype=bool), amount / exposure, exposure
-    if not (weight * label).sum() > 0:
+    view = TARGETS[target].view(exposure, count, amount)
+    if not (view.weight * view.label).sum() > 0:
         raise InputError(f"{target}: the training rows hold no claims to model")
-    return mask, label, weight
+    return view.rows, view.label, view.weight
 
 
 def _constrained(target: str, monotone: dict[str, int], options: GbmOptions) -> dict[str, int]:
@@ -325,13 +315,13 @@ def _constrained(target: str, monotone: dict[str, int], options: GbmOptions) -> 
 def _base_params(target: str, names: list[str], monotone: dict[str, int], options: GbmOptions) -> dict:
     """The fixed (non-searched) LightGBM parameters: objective, determinism, threads, constraints."""
     params = {
-        "objective": OBJECTIVES[target], "metric": "None", "verbosity": -1,
+        "objective": TARGETS[target].objective, "metric": "None", "verbosity": -1,
         "seed": options.seed, "num_threads": options.num_threads,
         "deterministic": True, "force_row_wise": True,
         "bagging_fraction": 1.0, "bagging_freq": 0, "feature_fraction": 1.0,
         "max_bin": 255, "feature_pre_filter": False, "zero_as_missing": False,
     }
-    if target == "pure_premium":
+    if TARGETS[target].power is None:
         params["tweedie_variance_power"] = float(options.tweedie_power)
     if monotone:
         params["monotone_constraints"] = [int(monotone.get(name, 0)) for name in names]

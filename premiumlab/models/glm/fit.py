@@ -17,8 +17,6 @@ import scipy.stats
 from premiumlab._core.cautions import DRAFT
 from premiumlab._core.errors import InputError
 from premiumlab.models.glm.engines import (
-    GAMMA,
-    POISSON,
     Cells,
     ColumnChoice,
     EngineFit,
@@ -31,9 +29,9 @@ from premiumlab.models.glm.engines import (
     fit_on_cells,
     fit_on_rows,
     row_statistics,
-    tweedie_family,
 )
 from premiumlab.models.glm.tweedie import POWER_GRID, profile_power
+from premiumlab.models.targets import FREQUENCY, PURE_PREMIUM, SEVERITY, Target
 
 ENGINES = ("auto", "cells", "rows")
 
@@ -339,18 +337,28 @@ def _fit(problem: _Problem, family: Family, engine: str, inputs: GlmInputs, note
     )
 
 
-def _require_amount(inputs: GlmInputs, model: str) -> np.ndarray:
-    if inputs.claim_amount is None:
-        raise InputError(f"claim_amount: required for the {model} model but not given")
-    return inputs.claim_amount
+def _require_amount(inputs: GlmInputs, target: Target) -> None:
+    if target.needs_amount and inputs.claim_amount is None:
+        raise InputError(f"claim_amount: required for the {target.title} model but not given")
+
+
+def _target_problem(target: Target, inputs: GlmInputs) -> _Problem:
+    """The target's rows, response (its numerator) and var_weights (its weight), `premiumlab.models.targets`."""
+    rows = target.rows(inputs.claim_count, inputs.claim_amount)
+    numerator, weight = target.columns(inputs.exposure, inputs.claim_count, inputs.claim_amount)
+    return _problem(target.title, inputs, rows, numerator, weight)
+
+
+def _family(target: Target, tweedie_power: float | None = None) -> Family:
+    """The engines' family of a target: its GLM family at its deviance power."""
+    return Family(target.family, float(target.deviance_power(tweedie_power)))
 
 
 def fit_frequency(inputs: GlmInputs, engine: str = "auto") -> GlmResult:
     """Poisson GLM of claim counts, log link, offset log(exposure); relativities per claim frequency."""
     _check_engine(engine)
-    everything = np.ones(len(inputs.exposure), dtype=bool)
-    problem = _problem("frequency", inputs, everything, inputs.claim_count, inputs.exposure)
-    return _fit(problem, POISSON, _engine_name(engine, problem), inputs, [])
+    problem = _target_problem(FREQUENCY, inputs)
+    return _fit(problem, _family(FREQUENCY), _engine_name(engine, problem), inputs, [])
 
 
 def fit_severity(inputs: GlmInputs, engine: str = "auto") -> GlmResult:
@@ -359,15 +367,13 @@ def fit_severity(inputs: GlmInputs, engine: str = "auto") -> GlmResult:
     Nil claims (count > 0, amount 0) are excluded and counted in the notes.
     """
     _check_engine(engine)
-    amount = _require_amount(inputs, "severity")
-    with_claims = inputs.claim_count > 0
-    rows = with_claims & (amount > 0)
-    if not rows.any():
+    _require_amount(inputs, SEVERITY)
+    if not SEVERITY.rows(inputs.claim_count, inputs.claim_amount).any():
         raise InputError("claim_amount: no row has claim_count > 0 and claim_amount > 0; severity cannot be fitted")
-    nil_claims = int(np.count_nonzero(with_claims & (amount == 0)))
+    nil_claims = int(np.count_nonzero((inputs.claim_count > 0) & (inputs.claim_amount == 0)))
     notes = [f"{nil_claims} nil-claim rows (claim_count > 0, claim_amount 0) excluded from severity"]
-    problem = _problem("severity", inputs, rows, amount, inputs.claim_count)
-    return _fit(problem, GAMMA, _engine_name(engine, problem), inputs, notes)
+    problem = _target_problem(SEVERITY, inputs)
+    return _fit(problem, _family(SEVERITY), _engine_name(engine, problem), inputs, notes)
 
 
 def fit_pure_premium(inputs: GlmInputs, power: str | float = "auto", engine: str = "auto") -> GlmResult:
@@ -379,13 +385,12 @@ def fit_pure_premium(inputs: GlmInputs, power: str | float = "auto", engine: str
     _check_engine(engine)
     if power != "auto":
         power = _fixed_power(power)
-    amount = _require_amount(inputs, "pure premium")
-    everything = np.ones(len(inputs.exposure), dtype=bool)
-    problem = _problem("pure premium", inputs, everything, amount, inputs.exposure)
+    _require_amount(inputs, PURE_PREMIUM)
+    problem = _target_problem(PURE_PREMIUM, inputs)
     engine = _engine_name(engine, problem)
     if power == "auto":
         def row_means(candidate: float) -> np.ndarray:
-            fit = _estimate(problem, tweedie_family(candidate), engine)
+            fit = _estimate(problem, _family(PURE_PREMIUM, candidate), engine)
             return np.exp(problem.design.linear_predictor(_full_beta(problem, fit)))
 
         chosen, profile = profile_power(row_means, problem.numerator / problem.weight, problem.weight)
@@ -394,7 +399,7 @@ def fit_pure_premium(inputs: GlmInputs, power: str | float = "auto", engine: str
             notes.append(f"power {chosen:g} is at the edge of the searched range; the likelihood may peak outside it")
     else:
         chosen, profile, notes = power, [], []
-    result = _fit(problem, tweedie_family(chosen), engine, inputs, notes)
+    result = _fit(problem, _family(PURE_PREMIUM, chosen), engine, inputs, notes)
     result.power_profile = profile
     return result
 

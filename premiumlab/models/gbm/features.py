@@ -1,0 +1,24 @@
+"""The boosted models' features: the spec's factors of a book frame as LightGBM reads them."""
+
+from __future__ import annotations
+
+import pandas as pd
+
+from premiumlab.book.spec import Spec
+
+
+def features_from_spec(frame: pd.DataFrame, spec: Spec) -> pd.DataFrame:
+    """Model features, one column per spec factor: numeric as float; an ordered categorical with a
+    promise as float codes in its level order; other categoricals as pandas Categoricals (levels
+    sorted as strings)."""
+    cols = {}
+    for f in spec.factors:
+        values = frame[f.name]
+        if f.type == "numeric":
+            cols[f.name] = values.to_numpy(dtype=float)
+        elif f.direction != 0:
+            cols[f.name] = pd.Categorical(values, categories=list(f.levels)).codes.astype(float)
+        else:
+            levels = list(f.levels) if f.levels is not None else sorted(set(values))
+            cols[f.name] = pd.Categorical(values, categories=levels)
+    return pd.DataFrame(cols)

@@ -1,0 +1,116 @@
+"""GLM baselines inside a run: inputs from the book, the period as a control factor, the three fits.
+
+With a period control, the period is fitted as a factor of every GLM but never tabled: every row is
+predicted at the control's training-exposure-weighted mean relativity.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass, replace
+
+import numpy as np
+import pandas as pd
+
+from premiumlab._core.jsonio import write_json
+from premiumlab.book.data import Book, Levels
+from premiumlab.book.spec import Spec
+from premiumlab.experience.adjustments import Adjustment, period_order
+from premiumlab.models.glm.fit import GlmInputs, GlmResult, fit_frequency, fit_pure_premium, fit_severity
+from premiumlab.runs.rundir import RunDir, model_name
+
+
+@dataclass(frozen=True)
+class PeriodControl:
+    """The period as a control factor: its name, level of every row, base and training exposure."""
+
+    name: str
+    values: pd.Categorical
+    base: str
+    exposure: np.ndarray
+
+
+def period_control(periods: np.ndarray, exposure: np.ndarray, train: np.ndarray, name: str) -> PeriodControl:
+    """The period column as a control factor, its base the period with the largest training exposure."""
+    order = period_order(periods[train].tolist())
+    values = pd.Categorical(periods, categories=order, ordered=True)
+    expo = np.bincount(values.codes[train], weights=exposure[train], minlength=len(order))
+    return PeriodControl(name, values, order[int(np.argmax(expo))], expo)
+
+
+def glm_inputs(
+    book: Book,
+    cats: pd.DataFrame,
+    levels: dict[str, Levels],
+    rows: np.ndarray,
+    count_multiplier: np.ndarray | None = None,
+    control: Sequence[str] = (),
+) -> GlmInputs:
+    """GLM inputs on the selected rows.
+
+    `count_multiplier` m (adjusted counts are the book's integer counts x m) enters as exposure / m
+    with the amount / m: the frequency count / (exposure / m) and the severity (amount / m) / count
+    are then the adjusted ones (the Poisson weight of a row becomes exposure / m). For the pure
+    premium, pass no multiplier. `control` names factors in `cats` fitted but never tabled.
+    """
+    m = 1.0 if count_multiplier is None else count_multiplier[rows]
+    return GlmInputs(
+        factors=cats.loc[rows].reset_index(drop=True),
+        base_levels={k: v.base for k, v in levels.items()},
+        exposure=book.exposure[rows] / m,
+        claim_count=book.claim_count[rows],
+        claim_amount=None if book.claim_amount is None else book.claim_amount[rows] / m,
+        control=list(control),
+    )
+
+
+def fit_glms(
+    book: Book,
+    cats: pd.DataFrame,
+    levels: dict[str, Levels],
+    train: np.ndarray,
+    spec: Spec,
+    run: RunDir,
+    preds: pd.DataFrame,
+    has_amount: bool,
+    adjustment: Adjustment | None = None,
+    control: PeriodControl | None = None,
+) -> float | None:
+    """Fit the three GLMs on the training rows, write them to the run's models/ and add their
+    predictions of every row to `preds`; with a period control, predict at the control's
+    training-exposure-weighted mean relativity (the period is never tabled). Returns the pure-premium
+    model's Tweedie power (None without claim amounts)."""
+    names: list[str] = []
+    if control is not None:
+        cats = cats.assign(**{control.name: control.values})
+        levels = {**levels, control.name: Levels(control.name, tuple(control.values.categories), control.base)}
+        names = [control.name]
+    multiplier = None if adjustment is None else adjustment.count_multiplier
+    counts = book if adjustment is None else replace(book, claim_count=adjustment.count_base)
+    inputs = glm_inputs(counts, cats, levels, train, multiplier, names)
+    whole = glm_inputs(counts, cats, levels, train, None, names) if multiplier is not None else inputs
+    engine = spec.glm.engine
+    results = {"frequency": fit_frequency(inputs, engine=engine)}
+    if has_amount:
+        results["severity"] = fit_severity(inputs, engine=engine)
+        results["pure_premium"] = fit_pure_premium(whole, power=spec.glm.tweedie_power, engine=engine)
+    for target, res in results.items():
+        write_json(run.model_json("glm", target), res.to_json_dict())
+        preds[model_name("glm", target)] = (
+            res.predict(cats) if control is None else _at_mean_control(res, cats, control)
+        )
+    if has_amount:
+        preds["glm_freq_x_sev"] = preds["glm_frequency"] * preds["glm_severity"]
+        return results["pure_premium"].power
+    return None
+
+
+def _at_mean_control(res: GlmResult, cats: pd.DataFrame, control: PeriodControl) -> np.ndarray:
+    """Predictions with the control factor at its base, times the training-exposure-weighted mean of
+    its relativities."""
+    rel = res.relativities[control.name]
+    mean = sum(rel[level] * e for level, e in zip(control.values.categories, control.exposure)) / control.exposure.sum()
+    at_base = cats.assign(
+        **{control.name: pd.Categorical(np.full(len(cats), control.base), categories=control.values.categories)}
+    )
+    return res.predict(at_base) * mean

@@ -1,0 +1,171 @@
+"""The run directory (docs/run-directory.md): every path in it, its manifest and factor levels, and reading a run back.
+
+RUN/
+    run.json              manifest: spec, book (path from the run and sha256), rows, seed, versions, ...
+    levels.json           factor levels, bases and numeric band edges fixed on the training rows
+    predictions.parquet   one row per book row: split, observed (and adjusted) figures, model predictions
+    metrics.json          holdout metrics (when the run has a holdout)
+    experience.json       what the experience step used (with [experience] adjustments)
+    certificate.json      monotonicity certificate of the boosted models
+    interactions.json     Friedman's H of the boosted pure-premium model
+    models/KIND_TARGET.json (and .txt, the LightGBM text of a boosted model)
+    comparison.json, figures/*.png   written by `compare`
+    report.html           written by `report`
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+
+import pandas as pd
+
+from premiumlab._core.errors import InputError
+from premiumlab._core.jsonio import read_json, write_json
+from premiumlab.book.data import Book, Levels
+from premiumlab.book.scan import load_book
+from premiumlab.book.spec import Spec, parse_spec
+from premiumlab.experience.adjustments import latest_period_holdout, read_text_column
+
+MANIFEST_FORMAT = "premiumlab.run"
+MANIFEST_VERSION = 1
+
+
+def model_name(kind: str, target: str) -> str:
+    """A fitted model's name, e.g. "gbm_pure_premium": its file stem in models/ and its column in
+    predictions.parquet."""
+    return f"{kind}_{target}"
+
+
+@dataclass(frozen=True)
+class RunDir:
+    """The paths of one run directory (module docstring); nothing is read or checked on construction."""
+
+    path: Path
+
+    @property
+    def manifest(self) -> Path:
+        return self.path / "run.json"
+
+    @property
+    def levels(self) -> Path:
+        return self.path / "levels.json"
+
+    @property
+    def predictions(self) -> Path:
+        return self.path / "predictions.parquet"
+
+    @property
+    def metrics(self) -> Path:
+        return self.path / "metrics.json"
+
+    @property
+    def experience(self) -> Path:
+        return self.path / "experience.json"
+
+    @property
+    def certificate(self) -> Path:
+        return self.path / "certificate.json"
+
+    @property
+    def interactions(self) -> Path:
+        return self.path / "interactions.json"
+
+    @property
+    def comparison(self) -> Path:
+        return self.path / "comparison.json"
+
+    @property
+    def report(self) -> Path:
+        return self.path / "report.html"
+
+    @property
+    def models(self) -> Path:
+        return self.path / "models"
+
+    @property
+    def figures(self) -> Path:
+        return self.path / "figures"
+
+    def model_json(self, kind: str, target: str) -> Path:
+        """models/KIND_TARGET.json: a fitted model's parameters (GLM) or metadata (boosted)."""
+        return self.models / f"{model_name(kind, target)}.json"
+
+    def model_text(self, kind: str, target: str) -> Path:
+        """models/KIND_TARGET.txt: a boosted model in LightGBM's text format."""
+        return self.models / f"{model_name(kind, target)}.txt"
+
+    def model_targets(self, kind: str) -> list[str]:
+        """The targets that have a model of this kind in models/ (a KIND_TARGET.json file), sorted."""
+        prefix = model_name(kind, "")
+        return sorted(path.stem[len(prefix) :] for path in self.models.glob(f"{prefix}*.json"))
+
+    def read_manifest(self) -> dict:
+        """run.json, refused with a one-line error when the folder is not a run directory."""
+        if not self.manifest.is_file():
+            raise InputError(f"{self.path}: not a run directory (no run.json); make one with `premiumlab fit`")
+        return read_json(self.manifest)
+
+    def write_manifest(self, contents: dict) -> None:
+        """run.json: the format and version, then `contents`."""
+        write_json(self.manifest, {"format": MANIFEST_FORMAT, "version": MANIFEST_VERSION, **contents})
+
+    def read_levels(self) -> dict[str, Levels]:
+        """levels.json as Levels per factor."""
+        return {
+            name: Levels(name, tuple(v["labels"]), v["base"], None if v["edges"] is None else tuple(v["edges"]))
+            for name, v in read_json(self.levels).items()
+        }
+
+    def write_levels(self, levels: dict[str, Levels]) -> None:
+        """levels.json: labels, base and numeric band edges (null for a categorical) per factor."""
+        write_json(
+            self.levels,
+            {
+                name: {"labels": list(v.labels), "base": v.base, "edges": None if v.edges is None else list(v.edges)}
+                for name, v in levels.items()
+            },
+        )
+
+
+@dataclass
+class Run:
+    """A run directory read back: its paths, manifest, spec and factor levels."""
+
+    files: RunDir
+    manifest: dict
+    spec: Spec
+    levels: dict[str, Levels]
+
+    @property
+    def path(self) -> Path:
+        return self.files.path
+
+    def predictions(self) -> pd.DataFrame:
+        return pd.read_parquet(self.files.predictions)
+
+    def model_json(self, kind: str, target: str) -> dict:
+        return read_json(self.files.model_json(kind, target))
+
+    def load_book(self, path: str | Path | None = None) -> Book:
+        """The run's book (recorded relative to the run folder, or `path`), checked by its sha256,
+        with the run's split."""
+        p = Path(path) if path is not None else self.path / self.manifest["book"]["path_from_run"]
+        book = load_book(p, self.spec)
+        recorded = self.manifest["book"]["sha256"]
+        if book.sha256 != recorded:
+            raise InputError(
+                f"{p}: sha256 {book.sha256} differs from the book the run was fitted on "
+                f"({recorded}, {self.files.manifest} key 'book.sha256')"
+            )
+        if self.spec.split.out_of_time:
+            book.holdout = latest_period_holdout(read_text_column(p, self.spec.columns.period))
+        return book
+
+
+def open_run(path: str | Path) -> Run:
+    """Read a run directory written by `fit`."""
+    files = RunDir(Path(path))
+    manifest = files.read_manifest()
+    spec = parse_spec(manifest["spec"], source=str(files.manifest))
+    return Run(files, manifest, spec, files.read_levels())
