@@ -12,9 +12,11 @@ import pandas as pd
 import pytest
 import statsmodels.api as sm
 
-from premiumlab.tabulation.distill import (Banding, Curve, Trees, categorical_banding, cell_exposure, effect_grid,
-                                exposure_sample, merge_thin_levels, numeric_banding, partial_dependence,
-                                pooled_refit, quantile_grid, refit, worst_reversal)
+from premiumlab.models.trees.parser import Trees
+from premiumlab.models.trees.partial_dependence import partial_dependence
+from premiumlab.tabulation.distill import (Banding, Curve, categorical_banding, cell_exposure, effect_grid,
+                                exposure_sample, merge_thin_levels, numeric_banding, pooled_refit,
+                                quantile_grid, refit, worst_reversal)
 from premiumlab.models.gbm.fit import encode_features
 
 

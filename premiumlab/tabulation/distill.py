@@ -2,11 +2,9 @@
 
 1. Effect curves (`effect_curve`): partial dependence of the boosted model's raw (log) score on one
    factor, averaged over a sample of policies drawn with probability proportional to exposure, so a
-   plain mean is an exposure-weighted mean. It is computed exactly from the trees: a policy walks
-   each tree that splits on the factor, taking both branches at those splits, so every leaf it can
-   reach adds leaf value / sample size to the grid points that the splits on the factor send there.
-   Trees that never split on the factor add the same amount at every grid point and are skipped, so
-   curves are known up to an additive constant (all later steps are shift-invariant).
+   plain mean is an exposure-weighted mean, computed exactly from the trees
+   (`premiumlab.models.trees.partial_dependence`); curves are known up to an additive constant (all
+   later steps are shift-invariant).
 2. Grid (`quantile_grid`, `cell_exposure`): at most `points` exposure-weighted quantiles of the
    training values, q_k = the smallest value whose cumulative exposure share exceeds k / points,
    k = 0 .. points-1. Grid point g_i stands for the cell [g_i, g_{i+1}) (the first from -inf, the
@@ -32,84 +30,13 @@ import numpy as np
 import scipy.linalg
 import scipy.sparse as sp
 
-from premiumlab.models.trees.certificate import MISSING_NAN, MISSING_ZERO, ZERO_THRESHOLD, Tree, parse_model
 from premiumlab._core.errors import InputError
+from premiumlab.models.trees.parser import Trees
+from premiumlab.models.trees.partial_dependence import partial_dependence
 from premiumlab.tabulation.segment import isotonic, optimal_segmentation
 
 # ---------------------------------------------------------------------------------------------
-# trees and partial dependence
-
-def _goes_left(tree: Tree, node: int, x: np.ndarray) -> np.ndarray:
-    """LightGBM's routing at one internal node for values `x` (as `premiumlab.certificate` documents
-    it): numeric x <= threshold, with NaN or zero sent the default way under missing type NaN or Zero
-    (NaN read as 0 under missing type None); categorical: the integer code's bit is set in the
-    node's category words (negative, NaN and unlisted codes go right)."""
-    decision = int(tree.decision_type[node])
-    if decision & 1:
-        slot = int(tree.threshold[node])
-        words = tree.cat_threshold[tree.cat_boundaries[slot]:tree.cat_boundaries[slot + 1]]
-        listed = ((words[:, None] >> np.arange(32)[None, :]) & 1).ravel().astype(bool)
-        ok = np.isfinite(x) & (x >= 0) & (x < listed.size)
-        return ok & listed[np.where(ok, x, 0).astype(np.int64)]
-    missing_type = (decision >> 2) & 3
-    default_left = bool(decision & 2)
-    threshold = float(tree.threshold[node])
-    if missing_type == MISSING_NAN:
-        return np.where(np.isnan(x), default_left, x <= threshold)
-    values = np.nan_to_num(x, nan=0.0)
-    if missing_type == MISSING_ZERO:
-        return np.where(np.abs(values) <= ZERO_THRESHOLD, default_left, values <= threshold)
-    return values <= threshold
-
-
-def _walk(tree: Tree, node: int, rows: np.ndarray, on_grid: np.ndarray, columns: list[np.ndarray],
-          feature: int, grid: np.ndarray, out: np.ndarray) -> None:
-    """Send `rows` of the sample down from `node` (child < 0 is leaf ~child); at splits on `feature`
-    they go both ways, each way narrowing `on_grid` to the grid points the split sends there."""
-    if node < 0:
-        out[on_grid] += tree.leaf_value[~node] * rows.size
-        return
-    split = int(tree.split_feature[node])
-    left_child, right_child = int(tree.left_child[node]), int(tree.right_child[node])
-    if split == feature:
-        left = _goes_left(tree, node, grid)
-        for child, mask in ((left_child, on_grid & left), (right_child, on_grid & ~left)):
-            if mask.any():
-                _walk(tree, child, rows, mask, columns, feature, grid, out)
-        return
-    left = _goes_left(tree, node, columns[split][rows])
-    for child, part in ((left_child, rows[left]), (right_child, rows[~left])):
-        if part.size:
-            _walk(tree, child, part, on_grid, columns, feature, grid, out)
-
-
-@dataclass(frozen=True)
-class Trees:
-    """The trees of a LightGBM text model with the features each one splits on."""
-
-    trees: tuple[Tree, ...]
-    feature_names: tuple[str, ...]
-
-    @classmethod
-    def from_text(cls, model_text: str) -> "Trees":
-        names, trees = parse_model(model_text)
-        return cls(tuple(trees), tuple(names))
-
-    def splitting_on(self, feature: int) -> list[Tree]:
-        return [t for t in self.trees if t.split_feature.size and (t.split_feature == feature).any()]
-
-
-def partial_dependence(trees: Trees, sample: np.ndarray, feature: int, grid: np.ndarray) -> np.ndarray:
-    """Mean raw score over the sample rows (encoded matrix, rows x features) with `feature` set to each
-    grid value, up to an additive constant (trees without a split on `feature` are left out)."""
-    grid = np.asarray(grid, dtype=float)
-    columns = [np.ascontiguousarray(sample[:, j]) for j in range(sample.shape[1])]
-    rows = np.arange(sample.shape[0])
-    everywhere = np.ones(grid.size, dtype=bool)
-    out = np.zeros(grid.size)
-    for tree in trees.splitting_on(feature):
-        _walk(tree, 0, rows, everywhere, columns, feature, grid, out)
-    return out / sample.shape[0]
+# sample
 
 
 def exposure_sample(exposure: np.ndarray, size: int, seed: int) -> np.ndarray:
