@@ -1,6 +1,6 @@
 """`tabulate`: a run directory -> a banded multiplicative rating table (DESIGN 3.4 and 4).
 
-`model="gbm"` distils the boosted pure-premium model (`premiumlab.distill`); `model="glm"` exports
+`model="gbm"` distils the boosted pure-premium model (`premiumlab.tabulation.distill`); `model="glm"` exports
 the Tweedie GLM's own relativities on the run's bands. Either way:
 
 Rate level. Relativities are rounded half to even to `relativity_decimals` (base bands stay at
@@ -33,8 +33,10 @@ import pandas as pd
 
 from premiumlab._core.cautions import cautions_for
 from premiumlab.book.data import Book
-from premiumlab.tabulation.distill import Banding, DistilOptions, FactorValues, band_exposure, distil, exposure_sample, \
-    round_relativity
+from premiumlab.tabulation.banding import Banding
+from premiumlab.tabulation.distill import DistilOptions, distil
+from premiumlab.tabulation.effects import FactorValues, exposure_sample
+from premiumlab.tabulation.refit import band_exposure, round_relativity
 from premiumlab._core.errors import InputError
 from premiumlab._core.jsonio import write_json
 from premiumlab._core.outputs import atomic_output, check_target
