@@ -3,7 +3,10 @@
 Refit (`refit`): Poisson quasi-likelihood GLM, log link, on the training rows aggregated to cells
 (exact: the score equations depend on per-cell sums): response = boosted pure premium per exposure
 unit, weight = exposure; treatment coding against each factor's base band, plus one term per
-non-base pair of bands for each two-way table, so that table's base row and column are 1. 
+non-base pair of bands for each two-way table, so that table's base row and column are 1. The
+design, cells, aliasing and Newton iterations are the GLM engines' (`premiumlab.models.glm.engines`):
+a two-way table (a, b) is one more one-hot factor "a:b" whose levels are the non-base pairs of
+bands, every pair with a base band sharing its base level.
 
 Pooling (`pooled_refit`): merges the adjacent bands of a promised factor with the worst reversal
 and refits, until main effect x every two-way table is monotone, before and after rounding.
@@ -14,10 +17,9 @@ import itertools
 from dataclasses import dataclass, field
 
 import numpy as np
-import scipy.linalg
-import scipy.sparse as sp
 
 from premiumlab._core.errors import InputError
+from premiumlab.models.glm.engines import OneHotDesign, aggregate_cells, choose_columns, column_major, poisson_irls
 from premiumlab.tabulation.banding import Banding, base_band
 
 # ---------------------------------------------------------------------------------------------
@@ -29,8 +31,8 @@ class Refit:
     """A multiplicative fit: relativity per band (base band exactly 1) and, per two-way table (a, b),
     a matrix of relativities with base row and base column exactly 1.
 
-    aliased: terms dropped as exactly collinear with earlier ones (relativity 1), as
-    "factor[band]" or "a:b[band_a, band_b]"; iterations: Newton steps taken.
+    aliased: terms dropped as exactly collinear with earlier ones or without exposure (relativity 1),
+    as "factor[band]" or "a:b[band_a, band_b]"; iterations: Newton steps taken.
     """
 
     relativities: dict[str, np.ndarray]
@@ -41,127 +43,83 @@ class Refit:
     intercept: float
 
 
-def _cells(codes: dict[str, np.ndarray], sizes: dict[str, int], exposure: np.ndarray, response: np.ndarray
-           ) -> tuple[dict[str, np.ndarray], np.ndarray, np.ndarray]:
-    """Distinct band combinations: their band codes, summed exposure and exposure-weighted mean response."""
-    names = list(codes)
-    if np.prod([float(sizes[n]) for n in names]) < 2.0**62:
-        key = np.ravel_multi_index([codes[n] for n in names], [sizes[n] for n in names])
-        uniq, inverse = np.unique(key, return_inverse=True)
-        cell_codes = dict(zip(names, np.unravel_index(uniq, [sizes[n] for n in names])))
-    else:
-        uniq, inverse = np.unique(np.column_stack([codes[n] for n in names]), axis=0, return_inverse=True)
-        cell_codes = {n: uniq[:, j] for j, n in enumerate(names)}
-    inverse = inverse.ravel()
-    weight = np.bincount(inverse, weights=exposure)
-    mean = np.bincount(inverse, weights=exposure * response) / weight
-    return cell_codes, weight, mean
+def _pair_cells(sizes: dict[str, int], bases: dict[str, int], a: str, b: str) -> list[tuple[int, int]]:
+    """The non-base pairs of bands of a two-way table (a, b), in row-major order."""
+    return list(itertools.product([i for i in range(sizes[a]) if i != bases[a]],
+                                  [j for j in range(sizes[b]) if j != bases[b]]))
 
 
-def _design(cell_codes: dict[str, np.ndarray], sizes: dict[str, int], bases: dict[str, int],
-            pairs: list[tuple[str, str]]) -> tuple[sp.csc_matrix, list[tuple]]:
-    """Sparse treatment-coded design on the cells and the term of each column."""
-    n = next(iter(cell_codes.values())).size
-    terms: list[tuple] = [("Intercept",)]
-    blocks = [np.zeros(n, dtype=np.int64)]
-    offset = 1
-    for name, code in cell_codes.items():
-        level = np.arange(sizes[name])
-        keep = level[level != bases[name]]
-        column = np.full(sizes[name], -1, dtype=np.int64)
-        column[keep] = offset + np.arange(keep.size)
-        blocks.append(column[code])
-        terms += [(name, int(k)) for k in keep]
-        offset += keep.size
+def banded_design(codes: dict[str, np.ndarray], sizes: dict[str, int], bases: dict[str, int],
+                  pairs: list[tuple[str, str]]) -> OneHotDesign:
+    """The one-hot design of the rows: one factor per banded factor (levels "0", "1", ..., base the
+    base band), then one per two-way table (a, b) named "a:b" with level 0 for every pair of bands
+    that includes a base band and one level "i, j" per non-base pair (i, j)."""
+    names, levels, base_codes, columns = [], [], [], []
+    for name, code in codes.items():
+        names.append(name)
+        levels.append(tuple(str(k) for k in range(sizes[name])))
+        base_codes.append(bases[name])
+        columns.append(code)
     for a, b in pairs:
-        ka = [k for k in range(sizes[a]) if k != bases[a]]
-        kb = [k for k in range(sizes[b]) if k != bases[b]]
-        column = np.full((sizes[a], sizes[b]), -1, dtype=np.int64)
-        for i, j in itertools.product(ka, kb):
-            column[i, j] = offset
-            terms.append((a, b, i, j))
-            offset += 1
-        blocks.append(column[cell_codes[a], cell_codes[b]])
-    cols = np.concatenate(blocks)
-    rows = np.tile(np.arange(n), len(blocks))
-    keep = cols >= 0
-    x = sp.csc_matrix((np.ones(keep.sum()), (rows[keep], cols[keep])), shape=(n, offset))
-    return x, terms
-
-
-def _independent_columns(gram: np.ndarray, tolerance: float = 1e-9) -> np.ndarray:
-    """Columns kept in order, each dropped when it is (numerically) a combination of those kept before:
-    residual variance after projection below `tolerance` x its own."""
-    kept: list[int] = []
-    for j in range(gram.shape[0]):
-        if gram[j, j] <= 0:
-            continue
-        trial = kept + [j]
-        sub = gram[np.ix_(trial, trial)]
-        try:
-            chol = np.linalg.cholesky(sub)
-        except np.linalg.LinAlgError:
-            continue
-        if chol[-1, -1] ** 2 > tolerance * gram[j, j]:
-            kept.append(j)
-    return np.array(kept, dtype=np.int64)
-
-
-def _poisson_deviance(y: np.ndarray, mu: np.ndarray, w: np.ndarray) -> float:
-    with np.errstate(divide="ignore", invalid="ignore"):
-        term = np.where(y > 0, y * np.log(y / mu), 0.0)
-    return float(2.0 * np.sum(w * (term - (y - mu))))
-
-
-def poisson_fit(x: sp.spmatrix, y: np.ndarray, w: np.ndarray, max_iterations: int = 100,
-                tolerance: float = 1e-10) -> tuple[np.ndarray, int]:
-    """Poisson quasi-likelihood, log link: Newton's method on sum w (y eta - exp(eta)), step-halving
-    on the deviance; stops when every coefficient step is below `tolerance`."""
-    beta = np.zeros(x.shape[1])
-    beta[0] = np.log(np.sum(w * y) / np.sum(w))
-    mu = np.exp(x @ beta)
-    deviance = _poisson_deviance(y, mu, w)
-    for iteration in range(1, max_iterations + 1):
-        hessian = (x.T @ sp.diags(w * mu) @ x).toarray()
-        step = scipy.linalg.cho_solve(scipy.linalg.cho_factor(hessian), x.T @ (w * (y - mu)))
-        for _ in range(30):
-            trial = beta + step
-            mu_trial = np.exp(x @ trial)
-            dev_trial = _poisson_deviance(y, mu_trial, w)
-            if dev_trial <= deviance * (1 + 1e-12) + 1e-300:
-                break
-            step = step / 2
-        beta, mu, deviance = trial, mu_trial, dev_trial
-        if np.max(np.abs(step)) < tolerance:
-            return beta, iteration
-    raise InputError(f"refit: Newton's method did not converge in {max_iterations} iterations")
+        cells = _pair_cells(sizes, bases, a, b)
+        level_of_pair = np.zeros((sizes[a], sizes[b]), dtype=np.int64)
+        for level, (i, j) in enumerate(cells, start=1):
+            level_of_pair[i, j] = level
+        names.append(f"{a}:{b}")
+        levels.append(("base",) + tuple(f"{i}, {j}" for i, j in cells))
+        base_codes.append(0)
+        columns.append(level_of_pair[codes[a], codes[b]])
+    n_rows = next(iter(codes.values())).size
+    return OneHotDesign(tuple(names), tuple(levels), tuple(base_codes), column_major(columns, n_rows))
 
 
 def refit(codes: dict[str, np.ndarray], sizes: dict[str, int], bases: dict[str, int],
           pairs: list[tuple[str, str]], exposure: np.ndarray, response: np.ndarray) -> Refit:
-    """Fit the banded multiplicative model to `response` (per exposure unit) with weights `exposure`."""
-    cell_codes, weight, mean = _cells(codes, sizes, exposure, response)
-    x, terms = _design(cell_codes, sizes, bases, pairs)
-    gram = (x.T @ sp.diags(weight) @ x).toarray()
-    kept = _independent_columns(gram)
-    beta_kept, iterations = poisson_fit(x[:, kept], mean, weight)
-    beta = np.zeros(len(terms))
-    beta[kept] = beta_kept
-    rel = {n: np.ones(sizes[n]) for n in codes}
-    two = {(a, b): np.ones((sizes[a], sizes[b])) for a, b in pairs}
-    aliased = []
-    dropped = np.ones(len(terms), dtype=bool)
-    dropped[kept] = False
-    for term, value, gone in zip(terms, beta, dropped):
-        if len(term) == 2:
-            rel[term[0]][term[1]] = np.exp(value)
-            if gone:
-                aliased.append(f"{term[0]}[{term[1]}]")
-        elif len(term) == 4:
-            two[(term[0], term[1])][term[2], term[3]] = np.exp(value)
-            if gone:
-                aliased.append(f"{term[0]}:{term[1]}[{term[2]}, {term[3]}]")
-    return Refit(rel, two, dict(bases), aliased, iterations, float(beta[0]))
+    """Fit the banded multiplicative model to `response` (per exposure unit) with weights `exposure`.
+
+    Parameters
+    ----------
+    codes : dict[str, np.ndarray]
+        Band of every training row, per factor.
+    sizes, bases : dict[str, int]
+        Number of bands and base band, per factor.
+    pairs : list[tuple[str, str]]
+        The two-way tables.
+    exposure, response : np.ndarray
+        Exposure and boosted pure premium per exposure unit of every training row.
+
+    Returns
+    -------
+    Refit
+        exp(coefficient) of each band and non-base pair of bands (1 for base and dropped terms).
+
+    Raises
+    ------
+    InputError
+        When Newton's method does not converge.
+    """
+    cells = aggregate_cells(banded_design(codes, sizes, bases, pairs), exposure * response, exposure)
+    design = cells.design
+    kept = choose_columns(design, cells.weight).kept
+    fit = poisson_irls(design.sparse(kept), cells.numerator / cells.weight, cells.weight)
+    if not fit.converged:
+        raise InputError(f"refit: Newton's method did not converge in {fit.iterations} iterations")
+    beta = np.zeros(design.n_full)
+    beta[kept] = fit.beta
+    estimated = np.zeros(design.n_full, dtype=bool)
+    estimated[kept] = True
+    estimated[design.base_columns()] = True
+    terms = design.full_terms()
+    aliased = [terms[column] for column in np.flatnonzero(~estimated)]
+    relativity = {name: np.exp(beta[design.columns_of(j)]) for j, name in enumerate(design.factor_names)}
+    rel = {name: relativity[name] for name in codes}
+    two = {}
+    for a, b in pairs:
+        matrix = np.ones((sizes[a], sizes[b]))
+        for (i, j), value in zip(_pair_cells(sizes, bases, a, b), relativity[f"{a}:{b}"][1:]):
+            matrix[i, j] = value
+        two[(a, b)] = matrix
+    return Refit(rel, two, dict(bases), aliased, fit.iterations, float(beta[0]))
 
 
 # ---------------------------------------------------------------------------------------------
