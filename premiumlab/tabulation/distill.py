@@ -15,24 +15,11 @@ from dataclasses import dataclass
 import numpy as np
 
 from premiumlab._core.errors import InputError
+from premiumlab.book.spec import TableOptions
 from premiumlab.models.trees.parser import Trees
 from premiumlab.tabulation.banding import Banding, categorical_banding, numeric_banding
 from premiumlab.tabulation.effects import Curve, FactorValues, effect_curve
 from premiumlab.tabulation.refit import PooledRefit, pooled_refit
-
-
-@dataclass(frozen=True)
-class DistilOptions:
-    """max_bands, min_share (of training exposure per band), sample (policies), grid_points, seed,
-    decimals (relativity rounding, for the monotone check after rounding), pairs (two-way tables)."""
-
-    max_bands: int = 8
-    min_share: float = 0.02
-    sample: int = 20000
-    grid_points: int = 100
-    seed: int = 2026
-    decimals: int = 3
-    pairs: tuple[tuple[str, str], ...] = ()
 
 
 @dataclass
@@ -45,7 +32,7 @@ class Distillation:
 
 
 def distil(model_text: str, sample: np.ndarray, factors: list[FactorValues], exposure: np.ndarray,
-           response: np.ndarray, options: DistilOptions) -> Distillation:
+           response: np.ndarray, options: TableOptions) -> Distillation:
     """Curves -> bands -> pooled refit.
 
     Parameters
@@ -58,8 +45,10 @@ def distil(model_text: str, sample: np.ndarray, factors: list[FactorValues], exp
         The spec's factors on the training rows.
     exposure, response : np.ndarray
         Exposure and boosted pure premium per exposure unit of the training rows.
-    options : DistilOptions
-        grid_points, max_bands, min_share, pairs and decimals are used.
+    options : TableOptions
+        The spec's [table] section: grid_points, max_bands, min_band_exposure (share of training
+        exposure per band), interactions (two-way tables) and relativity_decimals (for the
+        monotone check after rounding).
 
     Returns
     -------
@@ -76,10 +65,12 @@ def distil(model_text: str, sample: np.ndarray, factors: list[FactorValues], exp
                              options.grid_points)
         curves[factor.name] = curve
         if factor.levels is None:
-            bandings[factor.name] = numeric_banding(curve, factor.monotone, options.max_bands, options.min_share)
+            bandings[factor.name] = numeric_banding(curve, factor.monotone, options.max_bands,
+                                                    options.min_band_exposure)
         else:
             bandings[factor.name] = categorical_banding(curve, factor.levels, factor.monotone, factor.ordered,
-                                                        options.max_bands, options.min_share, factor.base_level)
-    pooled = pooled_refit(bandings, {f.name: f.values for f in factors}, list(options.pairs), exposure,
-                          response, options.decimals)
+                                                        options.max_bands, options.min_band_exposure,
+                                                        factor.base_level)
+    pooled = pooled_refit(bandings, {f.name: f.values for f in factors}, list(options.interactions), exposure,
+                          response, options.relativity_decimals)
     return Distillation(curves, bandings, pooled)

@@ -34,7 +34,7 @@ import pandas as pd
 from premiumlab._core.cautions import cautions_for
 from premiumlab.book.data import Book
 from premiumlab.tabulation.banding import Banding
-from premiumlab.tabulation.distill import DistilOptions, distil
+from premiumlab.tabulation.distill import distil
 from premiumlab.tabulation.effects import FactorValues, exposure_sample
 from premiumlab.tabulation.refit import band_exposure, round_relativity
 from premiumlab._core.errors import InputError
@@ -122,11 +122,8 @@ def gbm_bands(run: Run, book: Book, preds: pd.DataFrame, train: np.ndarray) -> t
         factors.append(FactorValues(f.name, f.monotone, codes[rows], levels=levels,
                                     model_codes=_model_codes(model, f.name, levels), ordered=f.levels is not None,
                                     base_level=f.base))
-    options = DistilOptions(max_bands=opts.max_bands, min_share=opts.min_band_exposure, sample=opts.sample,
-                            grid_points=opts.grid_points, seed=spec.split.seed, decimals=opts.relativity_decimals,
-                            pairs=tuple(opts.interactions))
     sample = model.encode(features.iloc[rows[exposure_sample(book.exposure[rows], opts.sample, spec.split.seed)]])
-    result = distil(model.model_text(), sample, factors, book.exposure[rows], stored[rows], options)
+    result = distil(model.model_text(), sample, factors, book.exposure[rows], stored[rows], opts)
     fit = result.pooled.fit
     notes = {
         "method": "partial dependence on the raw score, isotonic where promised, optimal segmentation, "
