@@ -15,6 +15,7 @@ import numpy as np
 
 from premiumlab.tabulation.effects import Curve
 from premiumlab.tabulation.segment import isotonic, optimal_segmentation
+from rating_tables.monotone import Monotone
 
 
 @dataclass(frozen=True)
@@ -46,7 +47,7 @@ class Banding:
     @property
     def direction(self) -> int:
         """The promise's sign: +1 increasing, -1 decreasing, 0 none."""
-        return {"increasing": 1, "decreasing": -1, "none": 0}[self.monotone]
+        return Monotone(self.monotone).sign
 
     def codes(self, values: np.ndarray) -> np.ndarray:
         """Band of each value: numeric values, or level indices into `levels`."""
@@ -79,7 +80,7 @@ def ordered_bands(curve: Curve, direction: int, max_bands: int, min_share: float
 
 def numeric_banding(curve: Curve, monotone: str, max_bands: int, min_share: float) -> Banding:
     """Bands of a numeric factor from its curve; edges at the first grid value of each band."""
-    band = ordered_bands(curve, {"increasing": 1, "decreasing": -1, "none": 0}[monotone], max_bands, min_share)
+    band = ordered_bands(curve, Monotone(monotone).sign, max_bands, min_share)
     starts = np.flatnonzero(np.diff(band)) + 1
     return Banding(curve.factor, monotone, edges=np.asarray(curve.points, dtype=float)[starts])
 
@@ -117,8 +118,7 @@ def categorical_banding(curve: Curve, levels: tuple[str, ...], monotone: str, or
     no level precedes), else the band holding the most exposure."""
     points = np.asarray(curve.points, dtype=np.int64)
     if ordered:
-        present = ordered_bands(curve, {"increasing": 1, "decreasing": -1, "none": 0}[monotone],
-                                max_bands, min_share)
+        present = ordered_bands(curve, Monotone(monotone).sign, max_bands, min_share)
     else:
         present = merge_thin_levels(curve.effect, curve.weight, min_share * curve.weight.sum())
     band = np.full(len(levels), -1, dtype=np.int64)

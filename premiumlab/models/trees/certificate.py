@@ -28,6 +28,7 @@ from typing import Protocol, TypedDict
 import numpy as np
 import pandas as pd
 
+from premiumlab._core.defaults import SEED
 from premiumlab._core.errors import InputError
 from premiumlab.models.trees.parser import (MISSING_ZERO, ZERO_THRESHOLD, Tree, is_categorical, missing_type,
                                            parse_model)
@@ -208,7 +209,7 @@ def _default_grid(values: pd.Series, points: int = 50) -> np.ndarray:
 
 
 def sweep(model: RawScorer | Callable[[pd.DataFrame], np.ndarray], features_sample: pd.DataFrame, feature: str,
-          direction: int, grid: np.ndarray | None = None, policies: int = 1000, seed: int = 2026) -> SweepResult:
+          direction: int, grid: np.ndarray | None = None, policies: int = 1000, seed: int = SEED) -> SweepResult:
     """Set `feature` to every grid value (ascending; default: the observed values at 50 quantiles
     of the sample) for up to
     `policies` seeded rows of `features_sample` and count grid steps where the raw score moves
