@@ -111,12 +111,12 @@ def refit(codes: dict[str, np.ndarray], sizes: dict[str, int], bases: dict[str, 
     estimated[design.base_columns()] = True
     terms = design.full_terms()
     aliased = [terms[column] for column in np.flatnonzero(~estimated)]
-    relativity = {name: np.exp(beta[design.columns_of(j)]) for j, name in enumerate(design.factor_names)}
-    rel = {name: relativity[name] for name in codes}
+    relativity = [np.exp(beta[design.columns_of(j)]) for j in range(len(design.factor_names))]
+    rel = dict(zip(codes, relativity))
     two = {}
-    for a, b in pairs:
+    for (a, b), pair_relativity in zip(pairs, relativity[len(codes):]):
         matrix = np.ones((sizes[a], sizes[b]))
-        for (i, j), value in zip(_pair_cells(sizes, bases, a, b), relativity[f"{a}:{b}"][1:]):
+        for (i, j), value in zip(_pair_cells(sizes, bases, a, b), pair_relativity[1:]):
             matrix[i, j] = value
         two[(a, b)] = matrix
     return Refit(rel, two, dict(bases), aliased, fit.iterations, float(beta[0]))
