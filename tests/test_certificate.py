@@ -7,7 +7,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from premiumlab.models.trees.certificate import certify, parse_model, sweep
+from premiumlab.models.trees.certificate import certify, sweep
+from premiumlab.models.trees.parser import parse_model
 from premiumlab._core.errors import InputError
 from premiumlab.models.gbm.fit import GbmInputs, GbmOptions, fit_target
 

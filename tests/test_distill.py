@@ -1,4 +1,4 @@
-"""Distillation numerics (premiumlab.distill) against outside references.
+"""Distillation numerics (premiumlab.tabulation) against outside references.
 
 References: LightGBM's own `Booster.predict` (brute-force partial dependence on stacked copies of
 the sample), statsmodels' GLM (Poisson family, log link, `var_weights`) for the banded refit, and
@@ -12,9 +12,11 @@ import pandas as pd
 import pytest
 import statsmodels.api as sm
 
-from premiumlab.tabulation.distill import (Banding, Curve, Trees, categorical_banding, cell_exposure, effect_grid,
-                                exposure_sample, merge_thin_levels, numeric_banding, partial_dependence,
-                                pooled_refit, quantile_grid, refit, worst_reversal)
+from premiumlab.models.trees.parser import Trees
+from premiumlab.models.trees.partial_dependence import partial_dependence
+from premiumlab.tabulation.banding import Banding, categorical_banding, merge_thin_levels, numeric_banding
+from premiumlab.tabulation.effects import Curve, cell_exposure, exposure_sample, quantile_grid
+from premiumlab.tabulation.refit import effect_grid, pooled_refit, refit, worst_reversal
 from premiumlab.models.gbm.fit import encode_features
 
 
@@ -215,7 +217,7 @@ def test_pooled_refit_is_monotone_on_a_case_built_to_reverse() -> None:
 def test_promise_is_checked_through_the_two_way_table() -> None:
     """A promised factor whose main effect rises (1, 1.2) but whose two-way table with z at z's second
     band is 0.8 in x's second band: main x two-way = 0.96 < 1 there, a reversal of log(1/0.96)."""
-    from premiumlab.tabulation.distill import Refit
+    from premiumlab.tabulation.refit import Refit
     fit = Refit({"x": np.array([1.0, 1.2]), "z": np.array([1.0, 1.1])},
                 {("x", "z"): np.array([[1.0, 1.0], [1.0, 0.8]])}, {"x": 0, "z": 0}, [], 1, 0.0)
     np.testing.assert_allclose(effect_grid("x", fit.relativities, fit.two_way), [[1.0, 1.0], [1.2, 0.96]])

@@ -1,6 +1,6 @@
 """`tabulate`: a run directory -> a banded multiplicative rating table (docs/rating-table.md, docs/commands.md).
 
-`model="gbm"` distils the boosted pure-premium model (`premiumlab.distill`); `model="glm"` exports
+`model="gbm"` distils the boosted pure-premium model (`premiumlab.tabulation.distill`); `model="glm"` exports
 the Tweedie GLM's own relativities on the run's bands. Either way:
 
 Rate level. Relativities are rounded half to even to `relativity_decimals` (base bands stay at
@@ -33,8 +33,10 @@ import pandas as pd
 
 from premiumlab.experience.cautions import cautions_for
 from premiumlab.book.data import Book
-from premiumlab.tabulation.distill import Banding, DistilOptions, FactorValues, band_exposure, distil, exposure_sample, \
-    round_relativity
+from premiumlab.tabulation.banding import Banding
+from premiumlab.tabulation.distill import distil
+from premiumlab.tabulation.effects import FactorValues, exposure_sample
+from premiumlab.tabulation.refit import band_exposure, round_relativity
 from premiumlab._core.errors import InputError
 from premiumlab._core.jsonio import write_json
 from premiumlab._core.outputs import atomic_output, check_target
@@ -121,11 +123,8 @@ def gbm_bands(run: Run, book: Book, preds: pd.DataFrame, train: np.ndarray) -> t
         factors.append(FactorValues(f.name, f.monotone, codes[rows], levels=levels,
                                     model_codes=_model_codes(model, f.name, levels), ordered=f.levels is not None,
                                     base_level=f.base))
-    options = DistilOptions(max_bands=opts.max_bands, min_share=opts.min_band_exposure, sample=opts.sample,
-                            grid_points=opts.grid_points, seed=spec.split.seed, decimals=opts.relativity_decimals,
-                            pairs=tuple(opts.interactions))
     sample = model.encode(features.iloc[rows[exposure_sample(book.exposure[rows], opts.sample, spec.split.seed)]])
-    result = distil(model.model_text(), sample, factors, book.exposure[rows], stored[rows], options)
+    result = distil(model.model_text(), sample, factors, book.exposure[rows], stored[rows], opts)
     fit = result.pooled.fit
     notes = {
         "method": "partial dependence on the raw score, isotonic where promised, optimal segmentation, "

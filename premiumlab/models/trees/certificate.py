@@ -10,15 +10,9 @@ LightGBM constraint method built the trees.
 
 Sets of values are represented exactly: in each tree the thresholds on a feature cut the real line
 into cells (-inf, t1], (t1, t2], ..., (tk, inf), and each node sends a whole cell one way; NaN is
-its own cell. What is assumed of LightGBM's routing (its `NumericalDecision`):
-- decision_type bit 0: categorical split; bit 1: missing values go left; bits 2-3: missing type
-  0 None, 1 Zero, 2 NaN;
-- a numeric value goes left when value <= threshold, with these exceptions: with missing type NaN
-  a NaN goes the default way; with missing type None a NaN is read as 0; with missing type Zero a
-  NaN and any |value| <= 1e-35 (float32) go the default way, so +-1e-35 are added as cell edges;
-- a categorical split sends to the left the integer codes whose bit is set in its `cat_threshold`
-  words, and everything else (other codes, negative values, NaN) to the right; code cells are the
-  codes named in the tree plus one cell for all the rest.
+its own cell. Routing is LightGBM's, as `premiumlab.models.trees.parser` states it; with missing
+type Zero, +-1e-35 are added as cell edges. Codes of a categorical split form one cell each (the
+codes named in the tree) plus one cell for all the rest.
 The promised feature must be numeric (an ordered factor passed as integer codes); a categorical
 split on it is refused. NaN of the promised feature is not ordered and takes no part in the check.
 Linear trees and multi-output models are refused.
@@ -29,16 +23,16 @@ count steps where the raw score moves against the promise by more than 1e-12.
 from __future__ import annotations
 
 from collections.abc import Callable
-from dataclasses import dataclass
 from typing import Protocol, TypedDict
 
 import numpy as np
 import pandas as pd
 
+from premiumlab._core.defaults import SEED
 from premiumlab._core.errors import InputError
+from premiumlab.models.trees.parser import (MISSING_ZERO, ZERO_THRESHOLD, Tree, is_categorical, missing_type,
+                                           parse_model)
 
-ZERO_THRESHOLD = float(np.float32(1e-35))   # LightGBM's kZeroThreshold
-MISSING_ZERO, MISSING_NAN = 1, 2                # decision_type bits 2-3 (0: no missing handling)
 LISTED_VIOLATIONS = 50                       # violations listed in full; all are counted
 SWEEP_TOLERANCE = 1e-12
 
@@ -77,79 +71,8 @@ class SweepResult(TypedDict):
     tolerance: float
 
 
-@dataclass(frozen=True)
-class Tree:
-    """One tree section of the LightGBM text format (internal nodes 0..n-2; child < 0 is leaf ~child)."""
-
-    index: int
-    split_feature: np.ndarray
-    threshold: np.ndarray
-    decision_type: np.ndarray
-    left_child: np.ndarray
-    right_child: np.ndarray
-    leaf_value: np.ndarray
-    cat_boundaries: np.ndarray
-    cat_threshold: np.ndarray
-
-
 class RawScorer(Protocol):
     def predict_raw(self, features: pd.DataFrame) -> np.ndarray: ...
-
-
-# ---------------------------------------------------------------------------------------------
-# parsing
-
-
-def _key_values(section: str) -> dict[str, str]:
-    pairs = {}
-    for line in section.splitlines():
-        key, sep, value = line.partition("=")
-        if sep:
-            pairs[key.strip()] = value.strip()
-    return pairs
-
-
-def _numbers(fields: dict[str, str], key: str, tree: int, dtype: type, required: bool = True) -> np.ndarray:
-    if key not in fields:
-        if required:
-            raise InputError(f"model text: tree {tree} lacks {key!r}")
-        return np.empty(0, dtype=dtype)
-    try:
-        return np.array(fields[key].split(), dtype=float).astype(dtype)
-    except ValueError:
-        raise InputError(f"model text: tree {tree} has a non-numeric {key!r}") from None
-
-
-def parse_model(model_text: str) -> tuple[list[str], list[Tree]]:
-    """(feature names, trees) from LightGBM's text model format."""
-    body = model_text.split("\nend of trees", 1)[0]
-    sections = body.split("\nTree=")
-    header = _key_values(sections[0])
-    if "feature_names" not in header:
-        raise InputError("model text: no 'feature_names' line; is this a LightGBM text model?")
-    if header.get("num_tree_per_iteration", "1") != "1":
-        raise InputError("model text: several trees per iteration (multi-output); one output is needed")
-    names = header["feature_names"].split()
-    trees = []
-    for section in sections[1:]:
-        index = int(section.split("\n", 1)[0])
-        fields = _key_values(section)
-        if fields.get("is_linear", "0") != "0":
-            raise InputError(f"model text: tree {index} is a linear tree; only constant leaves are supported")
-        leaves = int(fields.get("num_leaves", "0"))
-        internal = leaves - 1
-        arrays = {key: _numbers(fields, key, index, dtype, required=internal > 0)
-                  for key, dtype in (("split_feature", np.int64), ("threshold", np.float64),
-                                     ("decision_type", np.int64), ("left_child", np.int64),
-                                     ("right_child", np.int64))}
-        tree = Tree(index=index, leaf_value=_numbers(fields, "leaf_value", index, np.float64),
-                    cat_boundaries=_numbers(fields, "cat_boundaries", index, np.int64, required=False),
-                    cat_threshold=_numbers(fields, "cat_threshold", index, np.int64, required=False),
-                    **arrays)
-        if tree.leaf_value.size != leaves or any(a.size != internal for a in arrays.values()):
-            raise InputError(f"model text: tree {index} has arrays that disagree with num_leaves={leaves}")
-        trees.append(tree)
-    return names, trees
 
 
 # ---------------------------------------------------------------------------------------------
@@ -164,42 +87,19 @@ def _numeric_cells(thresholds: np.ndarray, zero_type: bool) -> np.ndarray:
     return np.concatenate([np.unique(np.concatenate(edges)), [np.inf, np.nan]])
 
 
-def _goes_left_numeric(values: np.ndarray, threshold: float, decision: int) -> np.ndarray:
-    missing_type = (decision >> 2) & 3
-    default_left = bool(decision & 2)
-    v = np.where(np.isnan(values) & (missing_type != MISSING_NAN), 0.0, values)
-    missing = ((missing_type == MISSING_ZERO) & (np.abs(v) <= ZERO_THRESHOLD)) | (
-        (missing_type == MISSING_NAN) & np.isnan(v))
-    return np.where(missing, default_left, v <= threshold)
-
-
-def _category_bits(tree: Tree, node: int) -> np.ndarray:
-    """Codes sent left by a categorical node."""
-    slot = int(tree.threshold[node])
-    words = tree.cat_threshold[tree.cat_boundaries[slot]:tree.cat_boundaries[slot + 1]]
-    bits = (words[:, None] >> np.arange(32)[None, :]) & 1
-    return np.flatnonzero(bits.ravel())
-
-
 def _cells_and_routes(tree: Tree) -> tuple[dict[int, np.ndarray], dict[int, np.ndarray]]:
     """Per split feature: cell representatives; per internal node: which cells of its feature go left."""
-    categorical = (tree.decision_type & 1).astype(bool)
+    categorical = is_categorical(tree.decision_type)
     cells: dict[int, np.ndarray] = {}
     for feature in np.unique(tree.split_feature):
         on_feature = tree.split_feature == feature
         if categorical[on_feature].any():
-            codes = np.unique(np.concatenate([_category_bits(tree, n) for n in np.flatnonzero(on_feature)]))
+            codes = np.unique(np.concatenate([tree.left_codes(n) for n in np.flatnonzero(on_feature)]))
             cells[int(feature)] = np.concatenate([codes, [-1]]).astype(np.float64)   # -1: every other value
         else:
-            zero_type = bool((((tree.decision_type[on_feature] >> 2) & 3) == MISSING_ZERO).any())
+            zero_type = bool((missing_type(tree.decision_type[on_feature]) == MISSING_ZERO).any())
             cells[int(feature)] = _numeric_cells(tree.threshold[on_feature], zero_type)
-    routes = {}
-    for node, feature in enumerate(tree.split_feature):
-        values = cells[int(feature)]
-        if categorical[node]:
-            routes[node] = np.isin(values, _category_bits(tree, node))
-        else:
-            routes[node] = _goes_left_numeric(values, tree.threshold[node], int(tree.decision_type[node]))
+    routes = {node: tree.goes_left(node, cells[int(feature)]) for node, feature in enumerate(tree.split_feature)}
     return cells, routes
 
 
@@ -249,7 +149,7 @@ def _tree_pairs(tree: Tree, feature: int, direction: int) -> tuple[int, list[Vio
     cells, regions = leaf_regions(tree)
     if feature not in regions:
         return 0, []
-    if (tree.decision_type[tree.split_feature == feature] & 1).any():
+    if is_categorical(tree.decision_type[tree.split_feature == feature]).any():
         raise InputError(f"model text: tree {tree.index} splits the promised feature as a categorical; "
                          "a promise needs a numeric (integer-coded) feature")
     leaves = tree.leaf_value.size
@@ -309,7 +209,7 @@ def _default_grid(values: pd.Series, points: int = 50) -> np.ndarray:
 
 
 def sweep(model: RawScorer | Callable[[pd.DataFrame], np.ndarray], features_sample: pd.DataFrame, feature: str,
-          direction: int, grid: np.ndarray | None = None, policies: int = 1000, seed: int = 2026) -> SweepResult:
+          direction: int, grid: np.ndarray | None = None, policies: int = 1000, seed: int = SEED) -> SweepResult:
     """Set `feature` to every grid value (ascending; default: the observed values at 50 quantiles
     of the sample) for up to
     `policies` seeded rows of `features_sample` and count grid steps where the raw score moves

@@ -1,0 +1,139 @@
+"""Bands of a factor from its effect curve, and the base band whose relativity is 1.
+
+Ordered factors (numeric, or categorical with a level order): isotonic curve where a direction is
+promised, then the optimal segmentation into at most `max_bands` bands of at least `min_share`
+exposure each (`premiumlab.tabulation.segment`). A numeric band starts at its first grid value, so
+band edges are the upper grid values of the cells they follow. Unordered categoricals: levels
+ordered by effect, then thin levels merged into their nearest neighbour in that order
+(`merge_thin_levels`).
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, replace
+
+import numpy as np
+
+from premiumlab.tabulation.effects import Curve
+from premiumlab.tabulation.segment import isotonic, optimal_segmentation
+from rating_tables.monotone import Monotone
+
+
+@dataclass(frozen=True)
+class Banding:
+    """How a factor's values map to table bands.
+
+    Numeric: band 0 is (-inf, edges[0]), band k is [edges[k-1], edges[k]), the last runs to inf.
+    Categorical: `band_of_level[i]` is the band of `levels[i]`; `ordered` bands follow the level
+    order (a promise refers to it), unordered bands are numbered in effect order.
+    `base_level` is the spec's base level (categorical), whose band gets relativity 1.
+    """
+
+    name: str
+    monotone: str
+    edges: np.ndarray | None = None
+    levels: tuple[str, ...] | None = None
+    band_of_level: np.ndarray | None = None
+    ordered: bool = True
+    base_level: str | None = None
+
+    @property
+    def numeric(self) -> bool:
+        return self.edges is not None
+
+    @property
+    def n_bands(self) -> int:
+        return self.edges.size + 1 if self.numeric else int(self.band_of_level.max()) + 1
+
+    @property
+    def direction(self) -> int:
+        """The promise's sign: +1 increasing, -1 decreasing, 0 none."""
+        return Monotone(self.monotone).sign
+
+    def codes(self, values: np.ndarray) -> np.ndarray:
+        """Band of each value: numeric values, or level indices into `levels`."""
+        if self.numeric:
+            return np.searchsorted(self.edges, np.asarray(values, dtype=float), side="right")
+        return self.band_of_level[values]
+
+    def merged(self, k: int) -> Banding:
+        """The banding with bands k and k+1 pooled into one."""
+        if self.numeric:
+            return replace(self, edges=np.delete(self.edges, k))
+        return replace(self, band_of_level=np.where(self.band_of_level > k, self.band_of_level - 1,
+                                                    self.band_of_level))
+
+    def labels(self) -> list[str]:
+        """Band labels: `[lower, upper)` or the levels of the band joined by `+`."""
+        if self.numeric:
+            full = np.concatenate([[-np.inf], self.edges, [np.inf]])
+            return [f"[{full[k]:g}, {full[k + 1]:g})" for k in range(self.n_bands)]
+        return ["+".join(lv for lv, b in zip(self.levels, self.band_of_level) if b == k)
+                for k in range(self.n_bands)]
+
+
+def ordered_bands(curve: Curve, direction: int, max_bands: int, min_share: float) -> np.ndarray:
+    """Band index of each curve point: isotonic curve when a direction is promised, then the optimal
+    segmentation (at most `max_bands` bands, each holding at least `min_share` of the weight)."""
+    effect = curve.effect if direction == 0 else isotonic(curve.effect, curve.weight, increasing=direction > 0)
+    return optimal_segmentation(effect, curve.weight, max_bands, min_share).labels(effect.size)
+
+
+def numeric_banding(curve: Curve, monotone: str, max_bands: int, min_share: float) -> Banding:
+    """Bands of a numeric factor from its curve; edges at the first grid value of each band."""
+    band = ordered_bands(curve, Monotone(monotone).sign, max_bands, min_share)
+    starts = np.flatnonzero(np.diff(band)) + 1
+    return Banding(curve.factor, monotone, edges=np.asarray(curve.points, dtype=float)[starts])
+
+
+def merge_thin_levels(effect: np.ndarray, weight: np.ndarray, min_weight: float) -> np.ndarray:
+    """Group of each level: levels sorted by effect, then the thinnest group under `min_weight` joins
+    the adjacent group (in effect order) whose exposure-weighted mean effect is nearest (the lower one
+    on a tie), until no group is thin or one group is left. Groups are numbered in effect order."""
+    order = np.argsort(effect, kind="stable")
+    groups = [[int(i)] for i in order]
+    total = [float(weight[i]) for i in order]
+    mean = [float(effect[i]) for i in order]
+    while len(groups) > 1:
+        thin = [g for g in range(len(groups)) if total[g] < min_weight]
+        if not thin:
+            break
+        g = min(thin, key=lambda k: (total[k], k))
+        near = [k for k in (g - 1, g + 1) if 0 <= k < len(groups)]
+        h = min(near, key=lambda k: (abs(mean[k] - mean[g]), k))
+        a, b = min(g, h), max(g, h)
+        mean[a] = (mean[a] * total[a] + mean[b] * total[b]) / (total[a] + total[b])
+        total[a] += total[b]
+        groups[a] += groups[b]
+        del groups[b], total[b], mean[b]
+    out = np.empty(len(effect), dtype=np.int64)
+    for k, members in enumerate(groups):
+        out[members] = k
+    return out
+
+
+def categorical_banding(curve: Curve, levels: tuple[str, ...], monotone: str, ordered: bool, max_bands: int,
+                        min_share: float, base_level: str | None = None) -> Banding:
+    """Bands of a categorical factor. `curve.points` index `levels` (levels without training exposure
+    are absent from the curve): they join the previous level's band when ordered (the first band when
+    no level precedes), else the band holding the most exposure."""
+    points = np.asarray(curve.points, dtype=np.int64)
+    if ordered:
+        present = ordered_bands(curve, Monotone(monotone).sign, max_bands, min_share)
+    else:
+        present = merge_thin_levels(curve.effect, curve.weight, min_share * curve.weight.sum())
+    band = np.full(len(levels), -1, dtype=np.int64)
+    band[points] = present
+    if ordered:
+        band = np.maximum.accumulate(band)
+        band[band < 0] = 0
+    else:
+        band[band < 0] = np.argmax(np.bincount(present, weights=curve.weight))
+    return Banding(curve.factor, monotone, levels=tuple(levels), band_of_level=band, ordered=ordered,
+                   base_level=base_level)
+
+
+def base_band(banding: Banding, band_exposure: np.ndarray) -> int:
+    """The band whose relativity is 1: the spec's base level's band, else the most exposed band."""
+    if banding.base_level is not None and not banding.numeric:
+        return int(banding.band_of_level[banding.levels.index(banding.base_level)])
+    return int(np.argmax(band_exposure))

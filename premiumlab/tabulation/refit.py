@@ -1,0 +1,208 @@
+"""The banded refit of a boosted model, and the pooling of bands until every promise holds.
+
+Refit (`refit`): Poisson quasi-likelihood GLM, log link, on the training rows aggregated to cells
+(exact: the score equations depend on per-cell sums): response = boosted pure premium per exposure
+unit, weight = exposure; treatment coding against each factor's base band, plus one term per
+non-base pair of bands for each two-way table, so that table's base row and column are 1. The
+design, cells, aliasing and Newton iterations are the GLM engines' (`premiumlab.models.glm.engines`):
+a two-way table (a, b) is one more one-hot factor "a:b" whose levels are the non-base pairs of
+bands, every pair with a base band sharing its base level.
+
+Pooling (`pooled_refit`): merges the adjacent bands of a promised factor with the worst reversal
+and refits, until main effect x every two-way table is monotone, before and after rounding.
+"""
+from __future__ import annotations
+
+import itertools
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from premiumlab._core.errors import InputError
+from premiumlab.models.glm.engines import OneHotDesign, aggregate_cells, choose_columns, column_major, poisson_irls
+from premiumlab.tabulation.banding import Banding, base_band
+
+# ---------------------------------------------------------------------------------------------
+# the refit
+
+
+@dataclass(frozen=True)
+class Refit:
+    """A multiplicative fit: relativity per band (base band exactly 1) and, per two-way table (a, b),
+    a matrix of relativities with base row and base column exactly 1.
+
+    aliased: terms dropped as exactly collinear with earlier ones or without exposure (relativity 1),
+    as "factor[band]" or "a:b[band_a, band_b]"; iterations: Newton steps taken.
+    """
+
+    relativities: dict[str, np.ndarray]
+    two_way: dict[tuple[str, str], np.ndarray]
+    bases: dict[str, int]
+    aliased: list[str]
+    iterations: int
+    intercept: float
+
+
+def _pair_cells(sizes: dict[str, int], bases: dict[str, int], a: str, b: str) -> list[tuple[int, int]]:
+    """The non-base pairs of bands of a two-way table (a, b), in row-major order."""
+    return list(itertools.product([i for i in range(sizes[a]) if i != bases[a]],
+                                  [j for j in range(sizes[b]) if j != bases[b]]))
+
+
+def banded_design(codes: dict[str, np.ndarray], sizes: dict[str, int], bases: dict[str, int],
+                  pairs: list[tuple[str, str]]) -> OneHotDesign:
+    """The one-hot design of the rows: one factor per banded factor (levels "0", "1", ..., base the
+    base band), then one per two-way table (a, b) named "a:b" with level 0 for every pair of bands
+    that includes a base band and one level "i, j" per non-base pair (i, j)."""
+    names, levels, base_codes, columns = [], [], [], []
+    for name, code in codes.items():
+        names.append(name)
+        levels.append(tuple(str(k) for k in range(sizes[name])))
+        base_codes.append(bases[name])
+        columns.append(code)
+    for a, b in pairs:
+        cells = _pair_cells(sizes, bases, a, b)
+        level_of_pair = np.zeros((sizes[a], sizes[b]), dtype=np.int64)
+        for level, (i, j) in enumerate(cells, start=1):
+            level_of_pair[i, j] = level
+        names.append(f"{a}:{b}")
+        levels.append(("base",) + tuple(f"{i}, {j}" for i, j in cells))
+        base_codes.append(0)
+        columns.append(level_of_pair[codes[a], codes[b]])
+    n_rows = next(iter(codes.values())).size
+    return OneHotDesign(tuple(names), tuple(levels), tuple(base_codes), column_major(columns, n_rows))
+
+
+def refit(codes: dict[str, np.ndarray], sizes: dict[str, int], bases: dict[str, int],
+          pairs: list[tuple[str, str]], exposure: np.ndarray, response: np.ndarray) -> Refit:
+    """Fit the banded multiplicative model to `response` (per exposure unit) with weights `exposure`.
+
+    Parameters
+    ----------
+    codes : dict[str, np.ndarray]
+        Band of every training row, per factor.
+    sizes, bases : dict[str, int]
+        Number of bands and base band, per factor.
+    pairs : list[tuple[str, str]]
+        The two-way tables.
+    exposure, response : np.ndarray
+        Exposure and boosted pure premium per exposure unit of every training row.
+
+    Returns
+    -------
+    Refit
+        exp(coefficient) of each band and non-base pair of bands (1 for base and dropped terms).
+
+    Raises
+    ------
+    InputError
+        When Newton's method does not converge.
+    """
+    cells = aggregate_cells(banded_design(codes, sizes, bases, pairs), exposure * response, exposure)
+    design = cells.design
+    kept = choose_columns(design, cells.weight).kept
+    fit = poisson_irls(design.sparse(kept), cells.numerator / cells.weight, cells.weight)
+    if not fit.converged:
+        raise InputError(f"refit: Newton's method did not converge in {fit.iterations} iterations")
+    beta = np.zeros(design.n_full)
+    beta[kept] = fit.beta
+    estimated = np.zeros(design.n_full, dtype=bool)
+    estimated[kept] = True
+    estimated[design.base_columns()] = True
+    terms = design.full_terms()
+    aliased = [terms[column] for column in np.flatnonzero(~estimated)]
+    relativity = [np.exp(beta[design.columns_of(j)]) for j in range(len(design.factor_names))]
+    rel = dict(zip(codes, relativity))
+    two = {}
+    for (a, b), pair_relativity in zip(pairs, relativity[len(codes):]):
+        matrix = np.ones((sizes[a], sizes[b]))
+        for (i, j), value in zip(_pair_cells(sizes, bases, a, b), pair_relativity[1:]):
+            matrix[i, j] = value
+        two[(a, b)] = matrix
+    return Refit(rel, two, dict(bases), aliased, fit.iterations, float(beta[0]))
+
+
+# ---------------------------------------------------------------------------------------------
+# monotone pooling
+
+
+def round_relativity(values: np.ndarray, decimals: int) -> np.ndarray:
+    """Relativities rounded half to even to `decimals`, never below 10^-decimals (a table needs > 0)."""
+    return np.maximum(np.round(values, decimals), 10.0 ** -decimals)
+
+
+def effect_grid(name: str, relativities: dict[str, np.ndarray], two_way: dict[tuple[str, str], np.ndarray]
+                ) -> np.ndarray:
+    """Relativity of factor `name` by band (rows) for every combination of the bands of the factors it
+    shares a two-way table with (columns): main effect x each of its two-way tables."""
+    out = relativities[name][:, None]
+    for (a, b), matrix in two_way.items():
+        if name in (a, b):
+            side = matrix if name == a else matrix.T
+            out = (out[:, :, None] * side[:, None, :]).reshape(out.shape[0], -1)
+    return out
+
+
+@dataclass(frozen=True)
+class Reversal:
+    """The largest breach of a promise: factor, bands k and k+1, and its size in log relativity."""
+
+    factor: str
+    band: int
+    amount: float
+    rounded: bool
+
+
+def worst_reversal(bandings: dict[str, Banding], fit: Refit, decimals: int) -> Reversal | None:
+    """The largest log-scale breach of a promised direction between adjacent bands, over every band of
+    the partner factors, in the refit's relativities or in their rounded values (ties are allowed)."""
+    rounded_rel = {n: round_relativity(v, decimals) for n, v in fit.relativities.items()}
+    rounded_two = {k: round_relativity(v, decimals) for k, v in fit.two_way.items()}
+    worst: Reversal | None = None
+    for name, banding in bandings.items():
+        if banding.direction == 0 or banding.n_bands < 2:
+            continue
+        for rel, two, is_rounded in ((fit.relativities, fit.two_way, False), (rounded_rel, rounded_two, True)):
+            steps = -banding.direction * np.diff(np.log(effect_grid(name, rel, two)), axis=0)
+            k, _ = np.unravel_index(np.argmax(steps), steps.shape)
+            amount = float(steps.max())
+            if amount > (1e-12 if not is_rounded else 0.0) and (worst is None or amount > worst.amount):
+                worst = Reversal(name, int(k), amount, is_rounded)
+    return worst
+
+
+@dataclass
+class PooledRefit:
+    """The final bandings and refit, with the merges that made the refit monotone."""
+
+    bandings: dict[str, Banding]
+    fit: Refit
+    codes: dict[str, np.ndarray]
+    merges: list[dict] = field(default_factory=list)
+
+
+def band_exposure(codes: np.ndarray, n_bands: int, exposure: np.ndarray) -> np.ndarray:
+    """Exposure of each band 0 .. n_bands-1 given the band code of every row."""
+    return np.bincount(codes, weights=exposure, minlength=n_bands)
+
+
+def pooled_refit(bandings: dict[str, Banding], values: dict[str, np.ndarray], pairs: list[tuple[str, str]],
+                 exposure: np.ndarray, response: np.ndarray, decimals: int) -> PooledRefit:
+    """Refit, find the worst adjacent reversal of a promised factor, pool those two bands, refit, until
+    no promise is breached (`values`: numeric values or level indices of the training rows)."""
+    bandings = dict(bandings)
+    codes = {n: b.codes(values[n]) for n, b in bandings.items()}
+    merges: list[dict] = []
+    while True:
+        sizes = {n: b.n_bands for n, b in bandings.items()}
+        bases = {n: base_band(b, band_exposure(codes[n], sizes[n], exposure)) for n, b in bandings.items()}
+        fit = refit(codes, sizes, bases, pairs, exposure, response)
+        reversal = worst_reversal(bandings, fit, decimals)
+        if reversal is None:
+            return PooledRefit(bandings, fit, codes, merges)
+        name, k = reversal.factor, reversal.band
+        labels = bandings[name].labels()
+        merges.append({"factor": name, "bands": [labels[k], labels[k + 1]],
+                       "reversal_log": reversal.amount, "after_rounding": reversal.rounded})
+        bandings[name] = bandings[name].merged(k)
+        codes[name] = np.where(codes[name] > k, codes[name] - 1, codes[name])
