@@ -187,7 +187,7 @@ def _fit_run(book_path: str | Path, spec_path: str | Path, spec: Spec, out: Path
             "book": {"path_from_run": os.path.relpath(Path(book_path).resolve(), out.resolve()),
                      "sha256": book.sha256},
             "rows": {"total": book.n_rows, "train": int(train.sum()), "holdout": int(book.holdout.sum())},
-            "seed": spec.split.seed, "threads": spec.gbm.threads, "models": kinds,
+            "seed": spec.split.seed, "threads": spec.gbm.num_threads, "models": kinds,
             **({"gbm_search_ran_on": runner.description} if "gbm" in kinds else {}),
             "warnings": [str(w) for w in book.warnings],
             "versions": _versions(), "timings": timings,
