@@ -20,6 +20,7 @@ import pandas as pd
 
 from premiumlab.experience.cautions import cautions_for
 from premiumlab._core.cluster import TaskRunner, parse_cluster, tasks_on
+from premiumlab._core.defaults import FALLBACK_TWEEDIE_POWER
 from premiumlab.book.scan import load_book
 from premiumlab.book.data import Book, Levels, categorise, factor_levels
 from premiumlab._core.errors import InputError
@@ -177,7 +178,7 @@ def _fit_run(book_path: str | Path, spec_path: str | Path, spec: Spec, out: Path
         preds.to_parquet(tmp / "predictions.parquet", index=False)
         if book.holdout.any():
             from premiumlab.evaluation.holdout import holdout_metrics
-            write_json(tmp / "metrics.json", holdout_metrics(fitted_basis(preds), glm_power or 1.5))
+            write_json(tmp / "metrics.json", holdout_metrics(fitted_basis(preds), glm_power or FALLBACK_TWEEDIE_POWER))
         write_json(tmp / "levels.json", {k: {"labels": list(v.labels), "base": v.base,
                                              "edges": None if v.edges is None else list(v.edges)}
                                          for k, v in levels.items()})
