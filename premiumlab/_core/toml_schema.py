@@ -58,7 +58,8 @@ def read_toml(path: str | Path, kind: str) -> dict:
         raise InputError(f"{p}: malformed TOML: {e}") from None
 
 
-def _is_number(value: Any) -> bool:
+def is_number(value: Any) -> bool:
+    """True for a TOML integer or float (not a boolean)."""
     return isinstance(value, (int, float)) and not isinstance(value, bool)
 
 
@@ -93,7 +94,7 @@ class TomlTable:
         return f"{self.path}.{key}" if self.path else key
 
     def where(self, key: str) -> str:
-        """"FILE: key 'DOTTED.KEY'", the start of every message about `key`."""
+        """The start of every message about `key`: FILE: key 'DOTTED.KEY'."""
         return f"{self.source}: key '{self.key_path(key)}'"
 
     def error(self, key: str, message: str) -> InputError:
@@ -103,7 +104,8 @@ class TomlTable:
     # ---- keys
 
     def has(self, key: str) -> bool:
-        """True when the table gives `key`."""
+        """True when the table gives `key` (which becomes known)."""
+        self.known.add(key)
         return key in self.data
 
     def keys(self) -> list[str]:
@@ -191,7 +193,7 @@ class TomlTable:
         items = self.array(key, default, what=what)
         out = []
         for i, item in enumerate(items):
-            if not _is_number(item):
+            if not is_number(item):
                 raise self.error(f"{key}[{i}]", f"must be a number, got {item!r}")
             if math.isnan(item) or (math.isinf(item) and not allow_inf):
                 raise self.error(f"{key}[{i}]", f"must be finite, got {item!r}")
@@ -216,7 +218,7 @@ class TomlTable:
 
 def _number(t: TomlTable, key: str, value: Any, low: float | None, high: float | None,
             low_open: bool, high_open: bool) -> float:
-    if not _is_number(value):
+    if not is_number(value):
         raise t.error(key, f"must be a number, got {value!r}")
     v = float(value)
     if not math.isfinite(v):
