@@ -5,6 +5,7 @@ an `InputError` of one line naming the file and the dotted key, e.g.
 ``spec.toml: key 'split.seed' must be an integer, got 'seven'``; an unknown key names the nearest
 known key (`difflib`) and every key allowed where it stands.
 """
+
 from __future__ import annotations
 
 import datetime as dt
@@ -108,7 +109,7 @@ class TomlTable:
         self.known.add(key)
         return key in self.data
 
-    def keys(self) -> list[str]:
+    def all_keys(self) -> list[str]:
         """Every key of the table, in file order; all become known."""
         self.known.update(self.data)
         return list(self.data)
@@ -137,14 +138,21 @@ class TomlTable:
             return self.data[key]
         if default is REQUIRED:
             near = difflib.get_close_matches(key, [k for k in self.data if k not in self.known], n=1)
-            raise self.error(key, "is required" + (f" (unknown key '{self.key_path(near[0])}' given)"
-                                                   if near else ""))
+            raise self.error(key, "is required" + (f" (unknown key '{self.key_path(near[0])}' given)" if near else ""))
         return default
 
     # ---- typed reads
 
-    def number(self, key: str, default: Any = REQUIRED, *, low: float | None = None,
-               high: float | None = None, low_open: bool = False, high_open: bool = False) -> float:
+    def number(
+        self,
+        key: str,
+        default: Any = REQUIRED,
+        *,
+        low: float | None = None,
+        high: float | None = None,
+        low_open: bool = False,
+        high_open: bool = False,
+    ) -> float:
         """A finite number within [low, high] (`low_open`/`high_open` exclude the bound), as float."""
         return _number(self, key, self.value(key, default), low, high, low_open, high_open)
 
@@ -164,8 +172,9 @@ class TomlTable:
             raise self.error(key, f"must be true or false, got {value!r}")
         return value
 
-    def string(self, key: str, default: Any = REQUIRED, *, choices: tuple[str, ...] | None = None,
-               nonempty: bool = False) -> str:
+    def string(
+        self, key: str, default: Any = REQUIRED, *, choices: tuple[str, ...] | None = None, nonempty: bool = False
+    ) -> str:
         """A string, one of `choices` when given; `nonempty` refuses ""."""
         return _string(self, key, self.value(key, default), choices, nonempty)
 
@@ -186,8 +195,9 @@ class TomlTable:
             raise self.error(key, f"must be {what}, got {value!r}")
         return list(value)
 
-    def numbers(self, key: str, default: Any = REQUIRED, *, what: str = "a list of numbers",
-                allow_inf: bool = False) -> tuple[float, ...]:
+    def numbers(
+        self, key: str, default: Any = REQUIRED, *, what: str = "a list of numbers", allow_inf: bool = False
+    ) -> tuple[float, ...]:
         """A list of finite numbers (`allow_inf`: +-inf too), as floats; a bad item is named by its
         index, "bands[1]"."""
         items = self.array(key, default, what=what)
@@ -200,24 +210,37 @@ class TomlTable:
             out.append(float(item))
         return tuple(out)
 
-    def strings(self, key: str, default: Any = REQUIRED, *, what: str = "a list of strings",
-                nonempty: bool = False, distinct: str | None = None) -> tuple[str, ...]:
+    def strings(
+        self,
+        key: str,
+        default: Any = REQUIRED,
+        *,
+        what: str = "a list of strings",
+        nonempty: bool = False,
+        distinct: str | None = None,
+    ) -> tuple[str, ...]:
         """A list of strings (`nonempty`: no ""); with `distinct` (a noun, "level") no string twice."""
-        items = tuple(_string(self, f"{key}[{i}]", item, None, nonempty)
-                      for i, item in enumerate(self.array(key, default, what=what)))
+        items = tuple(
+            _string(self, f"{key}[{i}]", item, None, nonempty)
+            for i, item in enumerate(self.array(key, default, what=what))
+        )
         if distinct is not None and len(set(items)) != len(items):
             twice = next(v for v in items if items.count(v) > 1)
             raise self.error(key, f"lists {distinct} '{twice}' twice")
         return items
 
-    def table(self, key: str, default: Any = REQUIRED, *, what: str = "a table") -> TomlTable | None:
-        """The sub-table at `key` (None when absent and the default is None)."""
-        value = self.value(key, default)
-        return None if value is None else TomlTable(value, self.source, self.key_path(key), what)
+    def table(self, key: str, default: Any = REQUIRED, *, what: str = "a table") -> TomlTable:
+        """The sub-table at `key` (from `default`, e.g. {}, when absent)."""
+        return TomlTable(self.value(key, default), self.source, self.key_path(key), what)
+
+    def optional_table(self, key: str, *, what: str = "a table") -> TomlTable | None:
+        """The sub-table at `key`, or None when the key is absent."""
+        return self.table(key, what=what) if self.has(key) else None
 
 
-def _number(t: TomlTable, key: str, value: Any, low: float | None, high: float | None,
-            low_open: bool, high_open: bool) -> float:
+def _number(
+    t: TomlTable, key: str, value: Any, low: float | None, high: float | None, low_open: bool, high_open: bool
+) -> float:
     if not is_number(value):
         raise t.error(key, f"must be a number, got {value!r}")
     v = float(value)

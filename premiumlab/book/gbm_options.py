@@ -3,6 +3,7 @@
 They live here, below both the spec and the models, so that the spec holds them without importing
 the models (which may import the spec, never the reverse).
 """
+
 from __future__ import annotations
 
 from dataclasses import dataclass
@@ -18,8 +19,14 @@ MONOTONE_METHODS = ("basic", "intermediate", "advanced")
 DEFAULT_GRID: tuple[dict, ...] = tuple(
     {"num_leaves": leaves, "min_data_in_leaf": min_data, "learning_rate": rate, "lambda_l2": l2}
     for leaves, min_data, rate, l2 in (
-        (7, 100, 0.03, 10.0), (7, 100, 0.1, 0.0), (7, 400, 0.03, 0.0), (7, 400, 0.1, 10.0),
-        (31, 100, 0.03, 0.0), (31, 100, 0.1, 10.0), (31, 400, 0.03, 10.0), (31, 400, 0.1, 0.0),
+        (7, 100, 0.03, 10.0),
+        (7, 100, 0.1, 0.0),
+        (7, 400, 0.03, 0.0),
+        (7, 400, 0.1, 10.0),
+        (31, 100, 0.03, 0.0),
+        (31, 100, 0.1, 10.0),
+        (31, 400, 0.03, 10.0),
+        (31, 400, 0.1, 0.0),
     )
 )
 

@@ -16,8 +16,8 @@ from typing import Any
 from premiumlab._core.defaults import SEED
 from premiumlab._core.toml_schema import TomlTable, read_toml
 from premiumlab.book.gbm_options import MONOTONE_METHODS, GbmOptions
-from rating_tables.monotone import Monotone
 from rating_tables import Loadings
+from rating_tables.monotone import Monotone
 
 MONOTONE = tuple(m.value for m in Monotone)
 FACTOR_TYPES = ("numeric", "categorical")
@@ -168,9 +168,9 @@ class Spec:
     factors: tuple[Factor, ...]
     split: Split = Split()
     glm: GlmOptions = GlmOptions()
-    gbm: GbmOptions = GbmOptions()
+    gbm: GbmOptions = field(default_factory=GbmOptions)
     table: TableOptions = TableOptions()
-    loadings: Loadings = Loadings()
+    loadings: Loadings = field(default_factory=Loadings)
     compliance: Compliance = Compliance()
     experience: Experience = Experience()
     source: str = "spec"
@@ -205,7 +205,7 @@ def _section(doc: TomlTable, name: str, reads: dict[str, Read]) -> dict[str, Any
     t = doc.table(name, {})
     t.given(reads)
     t.refuse_unknown()
-    return {k: reads[k](t, k) for k in t.keys()}
+    return {k: reads[k](t, k) for k in t.all_keys()}
 
 
 def _parse_columns(doc: TomlTable) -> Columns:
@@ -216,7 +216,7 @@ def _parse_columns(doc: TomlTable) -> Columns:
     t.refuse_unknown()
     for required in ("exposure", "claim_count"):
         t.value(required)
-    values = {k: t.string(k) for k in t.keys()}
+    values = {k: t.string(k) for k in t.all_keys()}
     seen: dict[str, str] = {}
     for k, v in values.items():
         if v in seen:
@@ -291,19 +291,19 @@ def _rates_by_period(t: TomlTable, key: str) -> dict[str, float] | str:
     if isinstance(t.value(key), str):
         return t.string(key)
     rates = t.table(key, what="a table of period = factor, or a CSV file name")
-    return {period: rates.number(period, low=0.0, low_open=True) for period in rates.keys()}
+    return {period: rates.number(period, low=0.0, low_open=True) for period in rates.all_keys()}
 
 
 def _trend(t: TomlTable, key: str) -> dict[str, float]:
     rates = t.table(key, what="a table with frequency and/or severity")
     rates.given(("frequency", "severity"))
     rates.refuse_unknown()
-    return {k: rates.number(k, low=-0.5, high=1.0) for k in rates.keys()}
+    return {k: rates.number(k, low=-0.5, high=1.0) for k in rates.all_keys()}
 
 
 def _dates_by_period(t: TomlTable, key: str) -> dict[str, str]:
     dates = t.table(key, what="a table of period = date")
-    return {period: dates.date(period) for period in dates.keys()}
+    return {period: dates.date(period) for period in dates.all_keys()}
 
 
 def _holdout(t: TomlTable, key: str) -> float | str:
@@ -415,9 +415,9 @@ def parse_spec(doc: dict, source: str = "spec") -> Spec:
     top.refuse_unknown()
     columns = _parse_columns(top)
     factors_table = top.table("factors", {})
-    if not factors_table.keys():
+    if not factors_table.all_keys():
         raise top.error("factors", "is missing: the spec needs at least one rating factor")
-    factors = tuple(_parse_factor(factors_table, name) for name in factors_table.keys())
+    factors = tuple(_parse_factor(factors_table, name) for name in factors_table.all_keys())
     for f in factors:
         if f.name in columns.used():
             raise factors_table.error(f.name, f": '{f.name}' is also a column of [columns]")

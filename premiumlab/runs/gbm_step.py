@@ -8,8 +8,8 @@ import numpy as np
 import pandas as pd
 
 from premiumlab._core.cluster import IN_PROCESS, TaskRunner
-from premiumlab.book.data import Book
 from premiumlab._core.jsonio import write_json
+from premiumlab.book.data import Book
 from premiumlab.book.gbm_options import GbmOptions
 from premiumlab.book.spec import Spec
 
@@ -28,7 +28,7 @@ def gbm_features(frame: pd.DataFrame, spec: Spec) -> pd.DataFrame:
         values = frame[f.name]
         if f.type == "numeric":
             cols[f.name] = values.to_numpy(dtype=float)
-        elif f.direction != 0:
+        elif f.direction != 0 and f.levels is not None:
             cols[f.name] = pd.Categorical(values, categories=list(f.levels)).codes.astype(float)
         else:
             levels = list(f.levels) if f.levels is not None else sorted(set(values))

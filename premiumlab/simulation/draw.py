@@ -19,6 +19,7 @@ relativities (numeric: exp of a piecewise-linear log-relativity curve; categoric
 level) and `I` the interaction multiplier (1 outside its region). `claim_amount` is the row's sum of
 claims rounded to cents (at least 0.01 when it has claims).
 """
+
 from __future__ import annotations
 
 from dataclasses import dataclass
@@ -53,8 +54,9 @@ class Effects:
     severity_relativity: np.ndarray
 
 
-def exposure_rows(rng: np.random.Generator, n: int, periods: int, new_business: float,
-                  lapse: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def exposure_rows(
+    rng: np.random.Generator, n: int, periods: int, new_business: float, lapse: float
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Every row of the book: a policy is in force on days [start, end) of the window of
     `periods` x 365 days and gives one row per period it touches.
 
@@ -82,8 +84,9 @@ def exposure_rows(rng: np.random.Generator, n: int, periods: int, new_business: 
     early_end = start + 1 + np.floor(rng.random(n) * (days - start)).astype(np.int64)
     end = np.where(ends_early, early_end, days)
     period_start = DAYS_PER_PERIOD * np.arange(periods)
-    in_force = (np.minimum(end[:, None], period_start + DAYS_PER_PERIOD)
-                - np.maximum(start[:, None], period_start)).clip(0, DAYS_PER_PERIOD)
+    in_force = (
+        np.minimum(end[:, None], period_start + DAYS_PER_PERIOD) - np.maximum(start[:, None], period_start)
+    ).clip(0, DAYS_PER_PERIOD)
     policy, period = np.nonzero(in_force)
     return policy, period, in_force[policy, period] / DAYS_PER_PERIOD
 
@@ -109,7 +112,7 @@ def draw_factors(rng: np.random.Generator, factors: tuple[Factor, ...], n: int) 
     raw: dict[str, np.ndarray] = {}
     by_name = {f.name: f for f in factors}
     for f in factors:
-        if not f.when:
+        if not f.when or f.depends_on is None:
             raw[f.name] = f.distribution.draw(rng, n)
             continue
         parent = by_name[f.depends_on]
@@ -147,15 +150,17 @@ def true_effects(scenario: Scenario, values: dict[str, np.ndarray]) -> Effects:
     inter_f, inter_s = np.ones(n), np.ones(n)
     ia = scenario.interaction
     if ia is not None:
-        inside = np.logical_and.reduce([scenario.factor(name).in_region(values[name], ia.region[name])
-                                        for name in ia.factors])
+        inside = np.logical_and.reduce(
+            [scenario.factor(name).in_region(values[name], ia.region[name]) for name in ia.factors]
+        )
         inter_f[inside], inter_s[inside] = ia.frequency, ia.severity
     frequency = scenario.base_frequency * np.exp(sum(log_f.values())) * inter_f
     return Effects(log_f, log_s, inter_f, inter_s, frequency, np.exp(sum(log_s.values())) * inter_s)
 
 
-def claim_amounts(rng: np.random.Generator, scenario: Scenario, counts: np.ndarray,
-                  severity_relativity: np.ndarray) -> tuple[np.ndarray, int]:
+def claim_amounts(
+    rng: np.random.Generator, scenario: Scenario, counts: np.ndarray, severity_relativity: np.ndarray
+) -> tuple[np.ndarray, int]:
     """The claims of every row, all drawn at once and summed per row.
 
     Parameters
@@ -186,4 +191,3 @@ def claim_amounts(rng: np.random.Generator, scenario: Scenario, counts: np.ndarr
         amount[is_large] = scenario.large_losses.draw(rng, large_claims) * relativity[is_large]
     total = np.bincount(row, weights=amount, minlength=len(counts))
     return np.where(counts > 0, np.maximum(np.round(total, 2), 0.01), 0.0), large_claims
-

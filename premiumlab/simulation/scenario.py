@@ -1,6 +1,7 @@
 """The scenario as typed objects: factors with their distributions and true effects, large losses,
 the interaction and the current tariff (read from a file by `premiumlab.simulation.scenario_file`).
 """
+
 from __future__ import annotations
 
 import math

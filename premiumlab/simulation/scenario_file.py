@@ -68,6 +68,7 @@ Scenario keys (every key; anything else is refused with an `InputError` naming t
                      not rated. Premium = base rate x product x exposure, rounded to cents, where
                      the base rate gives the expected loss ratio.
 """
+
 from __future__ import annotations
 
 import math
@@ -78,11 +79,21 @@ import numpy as np
 
 from premiumlab._core.toml_schema import REQUIRED, TomlTable, is_number, read_toml
 from premiumlab.book.bands import band_labels
-from premiumlab.simulation.scenario import (DISTRIBUTION_PARAMETERS, LEAD_COLUMNS, PREMIUM_COLUMN, Distribution,
-                                            Factor, Interaction, LargeLosses, Scenario)
+from premiumlab.simulation.scenario import (
+    DISTRIBUTION_PARAMETERS,
+    LEAD_COLUMNS,
+    PREMIUM_COLUMN,
+    Distribution,
+    Factor,
+    Interaction,
+    LargeLosses,
+    Scenario,
+)
 
-#: How a list of names (levels, factors) is read.
-_NAME_LIST = dict(what="a list of non-empty strings", nonempty=True)
+
+def _names(t: TomlTable, key: str, noun: str) -> tuple[str, ...]:
+    """A list of distinct non-empty names (levels, factors); `noun` names one in messages."""
+    return t.strings(key, what="a list of non-empty strings", nonempty=True, distinct=noun)
 
 
 def _increasing(t: TomlTable, key: str, values: tuple[float, ...], what: str = "values") -> None:
@@ -124,19 +135,23 @@ def parse_scenario(doc: dict, source: str = "scenario") -> Scenario:
     """
     top = TomlTable(doc, source)
     s = top.table("scenario")
-    head = dict(
-        name=s.string("name", nonempty=True), description=s.string("description", ""),
-        policies=s.integer("policies", low=1), seed=s.integer("seed", low=0),
-        periods=_periods(s), base_frequency=s.number("base_frequency", low=0, low_open=True),
+    head: dict[str, Any] = dict(
+        name=s.string("name", nonempty=True),
+        description=s.string("description", ""),
+        policies=s.integer("policies", low=1),
+        seed=s.integer("seed", low=0),
+        periods=_periods(s),
+        base_frequency=s.number("base_frequency", low=0, low_open=True),
         base_severity=s.number("base_severity", low=0, low_open=True),
         severity_shape=s.number("severity_shape", 1.5, low=0, low_open=True),
         new_business_share=s.number("new_business_share", 0.15, low=0, high=1),
-        lapse_share=s.number("lapse_share", 0.10, low=0, high=1))
+        lapse_share=s.number("lapse_share", 0.10, low=0, high=1),
+    )
     s.refuse_unknown()
 
     factors_table = top.table("factors")
     factors: list[Factor] = []
-    for name in factors_table.keys():
+    for name in factors_table.all_keys():
         if name in LEAD_COLUMNS or name == PREMIUM_COLUMN:
             raise factors_table.error(name, "clashes with a column the simulator writes")
         factors.append(_parse_factor(factors_table.table(name), name, factors))
@@ -144,23 +159,29 @@ def parse_scenario(doc: dict, source: str = "scenario") -> Scenario:
         raise top.error("factors", "must define at least one factor")
     factors_table.refuse_unknown()
 
-    large = top.table("large_losses", None)
-    interaction = top.table("interaction", None)
-    tariff = top.table("current_tariff", None)
+    large = top.optional_table("large_losses")
+    interaction = top.optional_table("interaction")
+    tariff = top.optional_table("current_tariff")
     loss_ratio, shrink = _parse_tariff(tariff, factors)
     scenario = Scenario(
-        **head, factors=tuple(factors),
+        **head,
+        factors=tuple(factors),
         large_losses=None if large is None else _parse_large_losses(large),
         interaction=None if interaction is None else _parse_interaction(interaction, factors),
-        expected_loss_ratio=loss_ratio, tariff_shrink=shrink)
+        expected_loss_ratio=loss_ratio,
+        tariff_shrink=shrink,
+    )
     top.refuse_unknown()
     return scenario
 
 
 def _periods(s: TomlTable) -> tuple[int, ...]:
     value = s.value("periods")
-    if (not isinstance(value, list) or not value
-            or not all(isinstance(v, int) and not isinstance(v, bool) for v in value)):
+    if (
+        not isinstance(value, list)
+        or not value
+        or not all(isinstance(v, int) and not isinstance(v, bool) for v in value)
+    ):
         raise s.error("periods", f"must be a non-empty list of integers, got {value!r}")
     if any(b != a + 1 for a, b in zip(value, value[1:])):
         raise s.error("periods", f"must be consecutive integers, got {value!r}")
@@ -181,16 +202,17 @@ def _parse_factor(t: TomlTable, name: str, earlier: list[Factor]) -> Factor:
     if base is not None and base not in labels:
         raise t.error("base", f"must be one of {', '.join(labels)}, got {base!r}")
     when: dict[str, Distribution] = {}
-    when_table = t.table("when", None)
-    if when_table is not None and parent is None:
-        raise t.error("when", "needs depends_on")
+    when_table = t.optional_table("when")
     if when_table is None and parent is not None:
         raise t.error("depends_on", f"needs at least one [{t.path}.when.LABEL] table")
     if when_table is not None:
-        for label in when_table.keys():
+        if parent is None:
+            raise t.error("when", "needs depends_on")
+        for label in when_table.all_keys():
             if label not in parent.labels:
-                raise when_table.error(label, f"is not a level or band of {parent.name}: "
-                                              f"use one of {', '.join(parent.labels)}")
+                raise when_table.error(
+                    label, f"is not a level or band of {parent.name}: use one of {', '.join(parent.labels)}"
+                )
             override = when_table.table(label)
             when[label] = _parse_distribution(override, parsed["distribution"], labels)
             override.refuse_unknown()
@@ -236,9 +258,13 @@ def _knots(t: TomlTable, key: str) -> np.ndarray | None:
     value = t.value(key, None)
     if value is None:
         return None
-    ok = (isinstance(value, list) and value
-          and all(isinstance(k, list) and len(k) == 2 and all(is_number(v) and math.isfinite(v) for v in k)
-                  for k in value))
+    ok = (
+        isinstance(value, list)
+        and value
+        and all(
+            isinstance(k, list) and len(k) == 2 and all(is_number(v) and math.isfinite(v) for v in k) for k in value
+        )
+    )
     if not ok:
         raise t.error(key, f"must be a list of [x, log-relativity] pairs of finite numbers, got {value!r}")
     knots = np.asarray(value, dtype=float)
@@ -258,17 +284,23 @@ def _parse_numeric(t: TomlTable) -> dict[str, Any]:
         clip = t.numbers("clip")
         if len(clip) != 2 or clip[1] <= clip[0]:
             raise t.error("clip", f"must be [low, high] with low < high, got {list(clip)!r}")
-    round_to = (t.number("round_to", low=0, low_open=True) if t.has("round_to")
-                else 1.0 if kind == "integers" else None)
+    round_to = t.number("round_to", low=0, low_open=True) if t.has("round_to") else 1.0 if kind == "integers" else None
     if round_to is not None and clip is not None and not all((c / round_to).is_integer() for c in clip):
         raise t.error("clip", f"bounds must be multiples of round_to ({round_to:g}), got {list(clip)!r}")
-    return dict(distribution=distribution, labels=tuple(band_labels(bands)), bands=bands, clip=clip,
-                round_to=round_to, step_per_period=t.number("step_per_period", 0.0),
-                frequency_knots=_knots(t, "frequency_curve"), severity_knots=_knots(t, "severity_curve"))
+    return dict(
+        distribution=distribution,
+        labels=tuple(band_labels(bands)),
+        bands=bands,
+        clip=clip,
+        round_to=round_to,
+        step_per_period=t.number("step_per_period", 0.0),
+        frequency_knots=_knots(t, "frequency_curve"),
+        severity_knots=_knots(t, "severity_curve"),
+    )
 
 
 def _relativities(t: TomlTable, key: str, levels: tuple[str, ...]) -> np.ndarray | None:
-    table = t.table(key, None)
+    table = t.optional_table(key)
     if table is None:
         return None
     values = np.array([table.number(level, low=0, low_open=True) for level in levels])
@@ -277,30 +309,34 @@ def _relativities(t: TomlTable, key: str, levels: tuple[str, ...]) -> np.ndarray
 
 
 def _parse_categorical(t: TomlTable) -> dict[str, Any]:
-    levels = t.strings("levels", **_NAME_LIST, distinct="level")
+    levels = _names(t, "levels", "level")
     if len(levels) < 2:
         raise t.error("levels", f"must list at least two levels, got {list(levels)!r}")
     distribution = _parse_distribution(t, "levels", levels)
-    return dict(distribution=distribution, labels=levels,
-                frequency_relativity=_relativities(t, "frequency_relativity", levels),
-                severity_relativity=_relativities(t, "severity_relativity", levels))
+    return dict(
+        distribution=distribution,
+        labels=levels,
+        frequency_relativity=_relativities(t, "frequency_relativity", levels),
+        severity_relativity=_relativities(t, "severity_relativity", levels),
+    )
 
 
 def _parse_large_losses(t: TomlTable) -> LargeLosses:
     probability = t.number("probability", low=0, high=1, high_open=True)
     kind = t.string("distribution", choices=("pareto", "lognormal"))
     if kind == "pareto":
-        params = {"threshold": t.number("threshold", low=0, low_open=True),
-                  "shape": t.number("shape", low=1, low_open=True)}
+        params = {
+            "threshold": t.number("threshold", low=0, low_open=True),
+            "shape": t.number("shape", low=1, low_open=True),
+        }
     else:
-        params = {"median": t.number("median", low=0, low_open=True),
-                  "sigma": t.number("sigma", low=0, low_open=True)}
+        params = {"median": t.number("median", low=0, low_open=True), "sigma": t.number("sigma", low=0, low_open=True)}
     t.refuse_unknown()
     return LargeLosses(probability, kind, params)
 
 
 def _parse_interaction(t: TomlTable, factors: list[Factor]) -> Interaction:
-    names = t.strings("factors", **_NAME_LIST, distinct="factor")
+    names = _names(t, "factors", "factor")
     known = {f.name: f for f in factors}
     if len(names) != 2 or any(n not in known for n in names):
         raise t.error("factors", f"must name two different factors of the scenario, got {list(names)!r}")
@@ -314,14 +350,15 @@ def _parse_interaction(t: TomlTable, factors: list[Factor]) -> Interaction:
                 raise region_table.error(name, f"must be [low, high] with low < high, got {list(bounds)!r}")
             region[name] = bounds
         else:
-            levels = region_table.strings(name, **_NAME_LIST, distinct="level")
+            levels = _names(region_table, name, "level")
             unknown = [v for v in levels if v not in f.labels]
             if not levels or unknown:
                 raise region_table.error(name, f"must list levels of {name}, got {list(levels)!r}")
             region[name] = tuple(f.labels.index(v) for v in levels)
     region_table.refuse_unknown()
-    interaction = Interaction(names, region, t.number("frequency", 1.0, low=0, low_open=True),
-                              t.number("severity", 1.0, low=0, low_open=True))
+    interaction = Interaction(
+        names, region, t.number("frequency", 1.0, low=0, low_open=True), t.number("severity", 1.0, low=0, low_open=True)
+    )
     t.refuse_unknown()
     return interaction
 
@@ -330,11 +367,11 @@ def _parse_tariff(t: TomlTable | None, factors: list[Factor]) -> tuple[float, di
     if t is None:
         return 0.7, {}
     loss_ratio = t.number("expected_loss_ratio", 0.7, low=0, low_open=True)
-    shrink_table = t.table("shrink", None)
+    shrink_table = t.optional_table("shrink")
     shrink: dict[str, float] = {}
     if shrink_table is not None:
         names = {f.name for f in factors}
-        for name in shrink_table.keys():
+        for name in shrink_table.all_keys():
             if name not in names:
                 raise shrink_table.error(name, "is not a factor of the scenario")
             shrink[name] = shrink_table.number(name, low=0, high=1)

@@ -8,6 +8,7 @@ The scenario file and its keys: `scenario_file`; the typed scenario: `scenario`;
 drawn: `draw`; what truth.json holds: `truth`. This module draws the book in order, prices it with
 the current tariff and writes the files.
 """
+
 from __future__ import annotations
 
 from dataclasses import dataclass
@@ -34,8 +35,9 @@ class SimulatedBook:
     large_claims: int
 
 
-def _current_premium(scenario: Scenario, rows: Rows, factors: dict[str, dict],
-                     expected_amount: float) -> tuple[np.ndarray, dict]:
+def _current_premium(
+    scenario: Scenario, rows: Rows, factors: dict[str, dict], expected_amount: float
+) -> tuple[np.ndarray, dict]:
     """Current premium per row (cents, at least 0.01) and the tariff's description for truth.json."""
     relativity = np.ones(len(rows.exposure))
     described: dict[str, Any] = {}
@@ -47,8 +49,7 @@ def _current_premium(scenario: Scenario, rows: Rows, factors: dict[str, dict],
         described[name] = {"shrink": k, "relativities": dict(zip(f.labels, table))}
     base_rate = expected_amount / (scenario.expected_loss_ratio * float(np.sum(rows.exposure * relativity)))
     premium = np.maximum(np.round(base_rate * relativity * rows.exposure, 2), 0.01)
-    return premium, {"expected_loss_ratio": scenario.expected_loss_ratio, "base_rate": base_rate,
-                     "factors": described}
+    return premium, {"expected_loss_ratio": scenario.expected_loss_ratio, "base_rate": base_rate, "factors": described}
 
 
 def _policy_ids(n: int) -> np.ndarray:
@@ -85,11 +86,11 @@ def generate(scenario: Scenario, policies: int | None = None, seed: int | None =
     n = scenario.policies if policies is None else _checked_override(policies, "policies", 1)
     s = scenario.seed if seed is None else _checked_override(seed, "seed", 0)
     rng = np.random.default_rng(s)
-    policy, period, exposure = exposure_rows(rng, n, len(scenario.periods), scenario.new_business_share,
-                                             scenario.lapse_share)
+    policy, period, exposure = exposure_rows(
+        rng, n, len(scenario.periods), scenario.new_business_share, scenario.lapse_share
+    )
     raw = draw_factors(rng, scenario.factors, n)
-    rows = Rows(policy, period, exposure,
-                {f.name: f.value(raw[f.name][policy], period) for f in scenario.factors})
+    rows = Rows(policy, period, exposure, {f.name: f.value(raw[f.name][policy], period) for f in scenario.factors})
     effects = true_effects(scenario, rows.values)
     counts = rng.poisson(exposure * effects.frequency)
     amounts, large_claims = claim_amounts(rng, scenario, counts, effects.severity_relativity)
@@ -98,16 +99,22 @@ def generate(scenario: Scenario, policies: int | None = None, seed: int | None =
     expected_claims, expected_amount = expected_totals(scenario, rows, effects)
     premium, tariff = _current_premium(scenario, rows, factors, expected_amount)
 
-    book = pd.DataFrame({"policy_id": _policy_ids(n)[policy],
-                         "year": np.asarray(scenario.periods, dtype=np.int64)[period],
-                         "exposure": exposure, "claim_count": counts.astype(np.int64), "claim_amount": amounts})
+    book = pd.DataFrame(
+        {
+            "policy_id": _policy_ids(n)[policy],
+            "year": np.asarray(scenario.periods, dtype=np.int64)[period],
+            "exposure": exposure,
+            "claim_count": counts.astype(np.int64),
+            "claim_amount": amounts,
+        }
+    )
     for f in scenario.factors:
         v = rows.values[f.name]
-        book[f.name] = (v.astype(np.int64) if f.writes_integers else v) if f.numeric \
-            else np.asarray(f.labels, dtype=object)[v]
+        book[f.name] = (
+            (v.astype(np.int64) if f.writes_integers else v) if f.numeric else np.asarray(f.labels, dtype=object)[v]
+        )
     book[PREMIUM_COLUMN] = premium
-    truth = truth_document(scenario, n, s, rows, effects, factors, at_base, expected_claims, expected_amount,
-                           tariff)
+    truth = truth_document(scenario, n, s, rows, effects, factors, at_base, expected_claims, expected_amount, tariff)
     return SimulatedBook(book, truth, large_claims)
 
 
@@ -121,8 +128,9 @@ def _book_format(path: Path) -> str:
     raise InputError(f"{path}: the book must end in .csv or .parquet")
 
 
-def simulate(scenario_path: str | Path, out_path: str | Path, policies: int | None = None,
-             seed: int | None = None) -> dict:
+def simulate(
+    scenario_path: str | Path, out_path: str | Path, policies: int | None = None, seed: int | None = None
+) -> dict:
     """Simulate the scenario's book into a file and write `truth.json` beside it (both replaced if
     present).
 
@@ -156,6 +164,13 @@ def simulate(scenario_path: str | Path, out_path: str | Path, policies: int | No
         result.book.to_parquet(out, index=False)
     write_json(truth_path, result.truth)
     book = result.book
-    return {"book": str(out), "truth": str(truth_path), "policies": result.truth["policies"],
-            "rows": len(book), "claims": int(book["claim_count"].sum()), "large_claims": result.large_claims,
-            "exposure": float(book["exposure"].sum()), "claim_amount": float(book["claim_amount"].sum())}
+    return {
+        "book": str(out),
+        "truth": str(truth_path),
+        "policies": result.truth["policies"],
+        "rows": len(book),
+        "claims": int(book["claim_count"].sum()),
+        "large_claims": result.large_claims,
+        "exposure": float(book["exposure"].sum()),
+        "claim_amount": float(book["claim_amount"].sum()),
+    }

@@ -12,6 +12,7 @@ no interaction). `base` gives frequency, severity and pure premium at the base o
 (outside the interaction), `scenario_base` where every effect is 1, `large_losses` the expected
 share of claim amounts from large losses.
 """
+
 from __future__ import annotations
 
 import math
@@ -24,9 +25,11 @@ from premiumlab.simulation.scenario import Factor, Scenario
 
 GRID_POINTS = 101
 TRUTH_FILE = "truth.json"
-CAUTION = ("Invented data from a fictional scenario, for demonstration and testing only. Any rating "
-           "table built from it is a draft for review by a qualified actuary and, for real use, must "
-           "be filed and approved under local rate regulation.")
+CAUTION = (
+    "Invented data from a fictional scenario, for demonstration and testing only. Any rating "
+    "table built from it is a draft for review by a qualified actuary and, for real use, must "
+    "be filed and approved under local rate regulation."
+)
 
 
 def _weighted_means(codes: np.ndarray, k: int, weights: np.ndarray, values: np.ndarray) -> np.ndarray:
@@ -36,21 +39,25 @@ def _weighted_means(codes: np.ndarray, k: int, weights: np.ndarray, values: np.n
         return np.bincount(codes, weights=weights * values, minlength=k) / w
 
 
-def _factor_truth(f: Factor, values: np.ndarray, exposure: np.ndarray,
-                  effects: Effects) -> tuple[dict, dict[str, float]]:
+def _factor_truth(
+    f: Factor, values: np.ndarray, exposure: np.ndarray, effects: Effects
+) -> tuple[dict, dict[str, float]]:
     """The factor's entry of truth.json, and its unnormalised band/level averages at its base."""
     codes = f.label_codes(values)
     k = len(f.labels)
     fr, sr = np.exp(effects.log_frequency[f.name]), np.exp(effects.log_severity[f.name])
     expected_claims = exposure * effects.frequency
-    raw = {"frequency": _weighted_means(codes, k, exposure, fr),
-           "severity": _weighted_means(codes, k, expected_claims, sr),
-           "pure_premium": _weighted_means(codes, k, exposure, fr * sr)}
+    raw = {
+        "frequency": _weighted_means(codes, k, exposure, fr),
+        "severity": _weighted_means(codes, k, expected_claims, sr),
+        "pure_premium": _weighted_means(codes, k, exposure, fr * sr),
+    }
     label_exposure = np.bincount(codes, weights=exposure, minlength=k)
     base = f.base if f.base is not None else f.labels[int(np.argmax(label_exposure))]
     b = f.labels.index(base)
     out: dict[str, Any] = {
-        "type": f.type, "base": base,
+        "type": f.type,
+        "base": base,
         "base_rule": "scenario" if f.base is not None else "largest exposure",
         "relativities": {t: dict(zip(f.labels, v / v[b])) for t, v in raw.items()},
         "exposure": dict(zip(f.labels, label_exposure)),
@@ -59,8 +66,12 @@ def _factor_truth(f: Factor, values: np.ndarray, exposure: np.ndarray,
         out["bands"] = list(f.bands)
         grid = np.linspace(values.min(), values.max(), GRID_POINTS)
         gf, gs = np.exp(f.log_effect(grid, "frequency")), np.exp(f.log_effect(grid, "severity"))
-        out["curve"] = {"x": grid, "frequency": gf / raw["frequency"][b],
-                        "severity": gs / raw["severity"][b], "pure_premium": gf * gs / raw["pure_premium"][b]}
+        out["curve"] = {
+            "x": grid,
+            "frequency": gf / raw["frequency"][b],
+            "severity": gs / raw["severity"][b],
+            "pure_premium": gf * gs / raw["pure_premium"][b],
+        }
     else:
         out["levels"] = list(f.labels)
     return out, {t: float(v[b]) for t, v in raw.items()}
@@ -79,13 +90,28 @@ def _interaction_truth(scenario: Scenario, rows: Rows, effects: Effects) -> dict
     freq = _weighted_means(cell, ka * kb, e, effects.interaction_frequency)
     sev = _weighted_means(cell, ka * kb, e * effects.frequency, effects.interaction_severity)
     pp = _weighted_means(cell, ka * kb, e, effects.interaction_frequency * effects.interaction_severity)
-    cells = [{a.name: a.labels[c // kb], b.name: b.labels[c % kb], "exposure": exposure[c],
-              "frequency": freq[c], "severity": sev[c], "pure_premium": pp[c]}
-             for c in np.flatnonzero(exposure > 0)]
-    region = {name: list(bounds) if scenario.factor(name).numeric
-              else [scenario.factor(name).labels[i] for i in bounds] for name, bounds in ia.region.items()}
-    return {"factors": list(ia.factors), "region": region, "frequency": ia.frequency,
-            "severity": ia.severity, "cells": cells}
+    cells = [
+        {
+            a.name: a.labels[c // kb],
+            b.name: b.labels[c % kb],
+            "exposure": exposure[c],
+            "frequency": freq[c],
+            "severity": sev[c],
+            "pure_premium": pp[c],
+        }
+        for c in np.flatnonzero(exposure > 0)
+    ]
+    region = {
+        name: list(bounds) if scenario.factor(name).numeric else [scenario.factor(name).labels[i] for i in bounds]
+        for name, bounds in ia.region.items()
+    }
+    return {
+        "factors": list(ia.factors),
+        "region": region,
+        "frequency": ia.frequency,
+        "severity": ia.severity,
+        "cells": cells,
+    }
 
 
 def factor_truths(scenario: Scenario, rows: Rows, effects: Effects) -> tuple[dict[str, dict], dict[str, float]]:
@@ -131,13 +157,24 @@ def expected_totals(scenario: Scenario, rows: Rows, effects: Effects) -> tuple[f
         sum(exposure x frequency x severity relativity) x mean severity (currency).
     """
     expected_claims = float(np.sum(rows.exposure * effects.frequency))
-    expected_amount = (float(np.sum(rows.exposure * effects.frequency * effects.severity_relativity))
-                       * scenario.mean_severity)
+    expected_amount = (
+        float(np.sum(rows.exposure * effects.frequency * effects.severity_relativity)) * scenario.mean_severity
+    )
     return expected_claims, expected_amount
 
 
-def truth_document(scenario: Scenario, n: int, seed: int, rows: Rows, effects: Effects, factors: dict[str, dict],
-                   at_base: dict[str, float], expected_claims: float, expected_amount: float, tariff: dict) -> dict:
+def truth_document(
+    scenario: Scenario,
+    n: int,
+    seed: int,
+    rows: Rows,
+    effects: Effects,
+    factors: dict[str, dict],
+    at_base: dict[str, float],
+    expected_claims: float,
+    expected_amount: float,
+    tariff: dict,
+) -> dict:
     """The content of truth.json (see the module docstring).
 
     Parameters
@@ -164,28 +201,54 @@ def truth_document(scenario: Scenario, n: int, seed: int, rows: Rows, effects: E
     """
     mean_severity = scenario.mean_severity
     ll = scenario.large_losses
-    large = {"probability": 0.0, "share_of_amounts": 0.0} if ll is None else {
-        "probability": ll.probability, "distribution": ll.distribution, **ll.parameters, "mean": ll.mean,
-        "share_of_amounts": ll.probability * ll.mean / mean_severity}
+    large = (
+        {"probability": 0.0, "share_of_amounts": 0.0}
+        if ll is None
+        else {
+            "probability": ll.probability,
+            "distribution": ll.distribution,
+            **ll.parameters,
+            "mean": ll.mean,
+            "share_of_amounts": ll.probability * ll.mean / mean_severity,
+        }
+    )
     exposure = float(rows.exposure.sum())
     return {
-        "format": "premiumlab.simulation-truth", "version": 1,
-        "scenario": scenario.name, "description": scenario.description, "caution": CAUTION,
-        "seed": seed, "policies": n, "rows": len(rows.exposure), "periods": list(scenario.periods),
-        "units": {"frequency": "claims per policy-year", "severity": "currency per claim",
-                  "pure_premium": "currency per policy-year"},
-        "scenario_base": {"frequency": scenario.base_frequency, "attritional_severity": scenario.base_severity,
-                          "severity": mean_severity, "pure_premium": scenario.base_frequency * mean_severity},
-        "base": {"frequency": scenario.base_frequency * at_base["frequency"],
-                 "attritional_severity": scenario.base_severity * at_base["severity"],
-                 "severity": mean_severity * at_base["severity"],
-                 "pure_premium": scenario.base_frequency * mean_severity * at_base["pure_premium"]},
-        "book": {"exposure": exposure, "expected_claims": expected_claims,
-                 "expected_frequency": expected_claims / exposure, "expected_amount": expected_amount,
-                 "expected_pure_premium": expected_amount / exposure},
+        "format": "premiumlab.simulation-truth",
+        "version": 1,
+        "scenario": scenario.name,
+        "description": scenario.description,
+        "caution": CAUTION,
+        "seed": seed,
+        "policies": n,
+        "rows": len(rows.exposure),
+        "periods": list(scenario.periods),
+        "units": {
+            "frequency": "claims per policy-year",
+            "severity": "currency per claim",
+            "pure_premium": "currency per policy-year",
+        },
+        "scenario_base": {
+            "frequency": scenario.base_frequency,
+            "attritional_severity": scenario.base_severity,
+            "severity": mean_severity,
+            "pure_premium": scenario.base_frequency * mean_severity,
+        },
+        "base": {
+            "frequency": scenario.base_frequency * at_base["frequency"],
+            "attritional_severity": scenario.base_severity * at_base["severity"],
+            "severity": mean_severity * at_base["severity"],
+            "pure_premium": scenario.base_frequency * mean_severity * at_base["pure_premium"],
+        },
+        "book": {
+            "exposure": exposure,
+            "expected_claims": expected_claims,
+            "expected_frequency": expected_claims / exposure,
+            "expected_amount": expected_amount,
+            "expected_pure_premium": expected_amount / exposure,
+        },
         "large_losses": large,
         "factors": factors,
         "interaction": _interaction_truth(scenario, rows, effects),
         "current_tariff": tariff,
     }
-

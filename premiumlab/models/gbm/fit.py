@@ -32,13 +32,13 @@ import numpy as np
 import pandas as pd
 
 from premiumlab._core.cautions import DRAFT
-from premiumlab.models.trees.certificate import certify
 from premiumlab._core.cluster import IN_PROCESS, TaskRunner
 from premiumlab._core.errors import InputError
 from premiumlab._core.jsonio import read_json
-from premiumlab.evaluation.metrics import mean_deviance
 from premiumlab._core.progress import progress_bar
 from premiumlab.book.gbm_options import MONOTONE_METHODS, GbmOptions
+from premiumlab.evaluation.metrics import mean_deviance
+from premiumlab.models.trees.certificate import certify
 
 TARGETS = ("frequency", "severity", "pure_premium")
 OBJECTIVES = {"frequency": "poisson", "severity": "gamma", "pure_premium": "tweedie"}
@@ -47,6 +47,7 @@ GRID_KEYS = frozenset({"num_leaves", "min_data_in_leaf", "min_sum_hessian_in_lea
                        "lambda_l2", "lambda_l1", "max_depth", "min_gain_to_split"})
 BALANCE_TOLERANCE = 0.01
 JSON_FORMAT = "premiumlab.gbm"
+_DEFAULT_OPTIONS = GbmOptions()
 
 _FORBIDDEN_NAME_CHARACTERS = set('[]{}":,') | {" ", "\t", "\n"}
 
@@ -468,7 +469,7 @@ def uncertified_factors(model: GbmModel) -> list[str]:
             if certify(text, name, direction)["violation_count"] > 0]
 
 
-def fit_target(inputs: GbmInputs, target: str, options: GbmOptions = GbmOptions(),
+def fit_target(inputs: GbmInputs, target: str, options: GbmOptions = _DEFAULT_OPTIONS,
                runner: TaskRunner = IN_PROCESS) -> GbmModel:
     """Tune by grouped K-fold CV (the fits run on `runner`), then refit the chosen setting on the
     whole training part here.
