@@ -67,7 +67,7 @@ def is_number(value: Any) -> bool:
 class TomlTable:
     """One table of a TOML document, read key by key.
 
-    Every key asked for (read, or named in `given`) becomes known here; `refuse_unknown` then
+    Every key asked for (read, tested with `has`, or named in `allow`) becomes known here; `refuse_unknown` then
     refuses any other key of the table. A read with no default requires the key.
 
     Parameters
@@ -94,13 +94,10 @@ class TomlTable:
         """The dotted key of `key` in the document (`key` may carry an index, "bands[1]")."""
         return f"{self.path}.{key}" if self.path else key
 
-    def where(self, key: str) -> str:
-        """The start of every message about `key`: FILE: key 'DOTTED.KEY'."""
-        return f"{self.source}: key '{self.key_path(key)}'"
-
     def error(self, key: str, message: str) -> InputError:
         """The refusal of `key`: "FILE: key 'DOTTED.KEY' MESSAGE" (no space before a leading ':')."""
-        return InputError(f"{self.where(key)}{'' if message.startswith(':') else ' '}{message}")
+        separator = "" if message.startswith(":") else " "
+        return InputError(f"{self.source}: key '{self.key_path(key)}'{separator}{message}")
 
     # ---- keys
 
@@ -114,11 +111,9 @@ class TomlTable:
         self.known.update(self.data)
         return list(self.data)
 
-    def given(self, keys: Iterable[str]) -> list[str]:
-        """The keys of `keys` that the table gives, in the order of `keys`; all of `keys` become known."""
-        keys = list(keys)
+    def allow(self, keys: Iterable[str]) -> None:
+        """Make `keys` known: the keys this table may hold besides those read."""
         self.known.update(keys)
-        return [k for k in keys if k in self.data]
 
     def refuse_unknown(self) -> None:
         """Refuse the first key of the table that is not known, naming its nearest known key."""

@@ -203,7 +203,7 @@ def _section(doc: TomlTable, name: str, reads: dict[str, Read]) -> dict[str, Any
     """The keys of section `name` that the spec gives (file order), each read by its function; a key
     not in `reads` is refused first. Absent keys take the defaults of the section's dataclass."""
     t = doc.table(name, {})
-    t.given(reads)
+    t.allow(reads)
     t.refuse_unknown()
     return {k: reads[k](t, k) for k in t.all_keys()}
 
@@ -212,7 +212,7 @@ def _parse_columns(doc: TomlTable) -> Columns:
     if not doc.has("columns"):
         raise doc.error("columns", "is missing: the spec must name the exposure and claim_count columns")
     t = doc.table("columns")
-    t.given(("exposure", "claim_count", "claim_amount", "policy_id", "period", "current_premium"))
+    t.allow(("exposure", "claim_count", "claim_amount", "policy_id", "period", "current_premium"))
     t.refuse_unknown()
     for required in ("exposure", "claim_count"):
         t.value(required)
@@ -227,7 +227,7 @@ def _parse_columns(doc: TomlTable) -> Columns:
 
 def _parse_factor(factors: TomlTable, name: str) -> Factor:
     t = factors.table(name)
-    t.given(FACTOR_KEYS)
+    t.allow(FACTOR_KEYS)
     t.refuse_unknown()
     if not t.has("type"):
         raise t.error("type", "is required (numeric or categorical)")
@@ -296,7 +296,7 @@ def _rates_by_period(t: TomlTable, key: str) -> dict[str, float] | str:
 
 def _trend(t: TomlTable, key: str) -> dict[str, float]:
     rates = t.table(key, what="a table with frequency and/or severity")
-    rates.given(("frequency", "severity"))
+    rates.allow(("frequency", "severity"))
     rates.refuse_unknown()
     return {k: rates.number(k, low=-0.5, high=1.0) for k in rates.all_keys()}
 
@@ -411,7 +411,7 @@ def parse_spec(doc: dict, source: str = "spec") -> Spec:
         The validated spec; bad input raises `InputError` naming the file and the dotted key.
     """
     top = TomlTable(doc, source)
-    top.given(SECTIONS)
+    top.allow(SECTIONS)
     top.refuse_unknown()
     columns = _parse_columns(top)
     factors_table = top.table("factors", {})
