@@ -253,7 +253,7 @@ CASES: list[tuple[str, str, int, str, Prepare | None]] = [
      "premiumlab: --cluster: 'myhost:8786': give local:N", None),
     ("usage-unknown-command", "frobnicate book.csv", 2, "premiumlab: No such command 'frobnicate'.", None),
     # other commands
-    ("simulate-malformed-scenario", "simulate scenario.toml --out sim.csv", 2, "scenario.toml: not valid TOML",
+    ("simulate-malformed-scenario", "simulate scenario.toml --out sim.csv", 2, "scenario.toml: malformed TOML",
      lambda f: (f / "scenario.toml").write_text("[portfolio\n")),
     ("compare-not-a-run", "compare table", 2, "table: not a run directory (no run.json)", None),
     ("tabulate-unknown-model", "tabulate table --out out --model tree", 2, "--model: unknown model 'tree'", None),

@@ -269,7 +269,8 @@ def test_capping_a_heavy_tail_recovers_the_relativities_better(tmp_path):
     """Invented book (motor main effects + 2 % Pareto large claims, tail index 1.3, from 40,000).
     Capping at 50,000 with the excess load reproduces the training total exactly and gives a mean absolute
     log error of the Tweedie relativities below 0.6 times that of the uncapped amounts, on each of two seeds."""
-    from premiumlab.simulation.simulator import generate, parse_scenario
+    from premiumlab.simulation.scenario_file import parse_scenario
+    from premiumlab.simulation.simulator import generate
     scenario = parse_scenario(tomllib.loads((ROOT / "scenarios" / "motor_main_effects.toml").read_text() + HEAVY_TAIL))
     spec_text = (ROOT / "scenarios" / "motor_main_effects_spec.toml").read_text() + "\n[glm]\ntweedie_power = 1.6\n"
     (tmp_path / "plain.toml").write_text(spec_text)

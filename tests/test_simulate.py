@@ -20,7 +20,8 @@ import pytest
 import scipy.stats as st
 
 from premiumlab._core.errors import InputError
-from premiumlab.simulation.simulator import generate, load_scenario, simulate
+from premiumlab.simulation.scenario_file import load_scenario
+from premiumlab.simulation.simulator import generate, simulate
 
 SCENARIOS = Path(__file__).resolve().parent.parent / "scenarios"
 NAMES = ("motor", "household", "motor_main_effects")
@@ -296,7 +297,7 @@ def test_large_loss_mean_equals_scipy(kind: str, params: dict, reference) -> Non
     """The large-loss mean in truth.json equals scipy.stats' mean of the same distribution (1e-12)."""
     doc = tomllib.loads(LARGE_LOSS_SCENARIO)
     doc["large_losses"] = {"probability": 0.02, "distribution": kind, **params}
-    from premiumlab.simulation.simulator import parse_scenario
+    from premiumlab.simulation.scenario_file import parse_scenario
     truth = generate(parse_scenario(doc), policies=200).truth
     assert truth["large_losses"]["mean"] == pytest.approx(reference.mean(), rel=1e-12)
 
@@ -345,7 +346,7 @@ bands = [3]
 def test_numeric_distributions_match_scipy() -> None:
     """Each numeric distribution kind against scipy.stats: Kolmogorov-Smirnov p > 0.001 for
     uniform, normal, lognormal and histogram (rv_histogram), chi-square p > 0.001 for integers."""
-    from premiumlab.simulation.simulator import parse_scenario
+    from premiumlab.simulation.scenario_file import parse_scenario
     book = generate(parse_scenario(tomllib.loads(DISTRIBUTIONS_SCENARIO))).book
     assert len(book) == 4000
     for name, ref in (("u", st.uniform(2.0, 5.0)), ("z", st.norm(40.0, 12.0)),
@@ -543,7 +544,7 @@ def test_minimal_scenario_is_valid_and_file_errors_are_named(tmp_path: Path) -> 
     assert [f.name for f in load_scenario(good).factors] == ["age", "zone"]
     bad = tmp_path / "bad.toml"
     bad.write_text("[scenario\n")
-    for path, words in ((tmp_path / "missing.toml", "not found"), (bad, "not valid TOML")):
+    for path, words in ((tmp_path / "missing.toml", "not found"), (bad, "malformed TOML")):
         with pytest.raises(InputError, match=words):
             load_scenario(path)
     out = tmp_path / "out"

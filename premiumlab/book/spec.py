@@ -1,19 +1,25 @@
 """The pricing spec: a TOML file read into validated, typed objects.
 
-Every key has a documented default (see `DEFAULTS` below and DEVELOPERS.md); unknown keys, wrong
-types and impossible options are refused with an `InputError` naming the file and the key.
+Every key has a documented default (the dataclasses below, DEVELOPERS.md); unknown keys, wrong
+types and impossible options are refused with an `InputError` naming the file and the dotted key
+(read through `premiumlab._core.toml_schema`). The [gbm] section is read into
+`premiumlab.book.gbm_options.GbmOptions`, the [loadings] section into the table format's
+`rating_tables.Loadings`.
 """
 from __future__ import annotations
 
-import math
-import tomllib
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from premiumlab._core.errors import InputError
+from premiumlab._core.defaults import SEED
+from premiumlab._core.toml_schema import TomlTable, read_toml
+from premiumlab.book.gbm_options import MONOTONE_METHODS, GbmOptions
+from rating_tables import Loadings
+from rating_tables.monotone import Monotone
 
-MONOTONE = ("increasing", "decreasing", "none")
+MONOTONE = tuple(m.value for m in Monotone)
 FACTOR_TYPES = ("numeric", "categorical")
 
 #: Factor names refused by default: characteristics that rating law in many places forbids.
@@ -59,7 +65,7 @@ class Factor:
     @property
     def direction(self) -> int:
         """+1 for an increasing promise, -1 for decreasing, 0 for none."""
-        return {"increasing": 1, "decreasing": -1, "none": 0}[self.monotone]
+        return Monotone(self.monotone).sign
 
     @property
     def ordered(self) -> bool:
@@ -76,7 +82,7 @@ class Split:
     """
 
     holdout: float = 0.2
-    seed: int = 2026
+    seed: int = SEED
     out_of_time: bool = False
 
 
@@ -86,20 +92,6 @@ class GlmOptions:
 
     engine: str = "auto"
     tweedie_power: float | str = "auto"
-
-
-@dataclass(frozen=True)
-class GbmOptionsSpec:
-    """Boosted-tree options as written in the spec; mapped onto `premiumlab.gbm.GbmOptions`."""
-
-    folds: int = 5
-    max_settings: int = 8
-    threads: int = 2
-    max_rounds: int = 2000
-    early_stopping_rounds: int = 50
-    monotone_method: str = "advanced"
-    constrain_severity: bool = False
-    tweedie_power: float | str = "glm"
 
 
 @dataclass(frozen=True)
@@ -118,17 +110,6 @@ class TableOptions:
     premium_decimals: int = 2
     target: str = "experience"
     overall_change: float = 0.0
-
-
-@dataclass(frozen=True)
-class Loadings:
-    """Expense and profit loadings applied to the pure premium (ratios of premium, money per exposure)."""
-
-    lae_ratio: float = 0.0
-    fixed_expense: float = 0.0
-    variable_expense: float = 0.0
-    profit: float = 0.0
-    minimum_premium: float = 0.0
 
 
 @dataclass(frozen=True)
@@ -187,9 +168,9 @@ class Spec:
     factors: tuple[Factor, ...]
     split: Split = Split()
     glm: GlmOptions = GlmOptions()
-    gbm: GbmOptionsSpec = GbmOptionsSpec()
+    gbm: GbmOptions = field(default_factory=GbmOptions)
     table: TableOptions = TableOptions()
-    loadings: Loadings = Loadings()
+    loadings: Loadings = field(default_factory=Loadings)
     compliance: Compliance = Compliance()
     experience: Experience = Experience()
     source: str = "spec"
@@ -211,213 +192,153 @@ class Spec:
 # --------------------------------------------------------------------------------------------
 # parsing
 
-def _where(source: str, key: str) -> str:
-    return f"{source}: key '{key}'"
+SECTIONS = ("columns", "factors", "split", "glm", "gbm", "table", "loadings", "compliance", "experience")
+FACTOR_KEYS = ("type", "monotone", "bands", "n_bands", "levels", "base", "fallback")
+
+#: How one key of a section is read: (its table, the key) -> the value.
+Read = Callable[[TomlTable, str], Any]
 
 
-def _check_keys(source: str, prefix: str, table: dict, allowed: set[str]) -> None:
-    for key in table:
-        if key not in allowed:
-            raise InputError(f"{_where(source, prefix + key)} is unknown; allowed here: "
-                             f"{', '.join(sorted(allowed))}")
+def _section(doc: TomlTable, name: str, reads: dict[str, Read]) -> dict[str, Any]:
+    """The keys of section `name` that the spec gives (file order), each read by its function; a key
+    not in `reads` is refused first. Absent keys take the defaults of the section's dataclass."""
+    t = doc.table(name, {})
+    t.allow(reads)
+    t.refuse_unknown()
+    return {k: reads[k](t, k) for k in t.all_keys()}
 
 
-def _expect(source: str, key: str, value: Any, kinds: tuple[type, ...], what: str) -> Any:
-    ok = isinstance(value, kinds) and not (isinstance(value, bool) and bool not in kinds)
-    if not ok:
-        raise InputError(f"{_where(source, key)} must be {what}, got {value!r}")
-    return value
-
-
-def _number(source: str, key: str, value: Any, low: float | None = None, high: float | None = None,
-            low_open: bool = False, high_open: bool = False) -> float:
-    _expect(source, key, value, (int, float), "a number")
-    v = float(value)
-    if not math.isfinite(v):
-        raise InputError(f"{_where(source, key)} must be finite, got {value!r}")
-    if low is not None and (v < low or (low_open and v == low)):
-        raise InputError(f"{_where(source, key)} must be {'>' if low_open else '>='} {low:g}, got {value!r}")
-    if high is not None and (v > high or (high_open and v == high)):
-        raise InputError(f"{_where(source, key)} must be {'<' if high_open else '<='} {high:g}, got {value!r}")
-    return v
-
-
-def _integer(source: str, key: str, value: Any, low: int) -> int:
-    _expect(source, key, value, (int,), "an integer")
-    if value < low:
-        raise InputError(f"{_where(source, key)} must be >= {low}, got {value!r}")
-    return int(value)
-
-
-def _string(source: str, key: str, value: Any, choices: tuple[str, ...] | None = None) -> str:
-    _expect(source, key, value, (str,), "a string")
-    if choices is not None and value not in choices:
-        raise InputError(f"{_where(source, key)} must be one of {', '.join(choices)}, got {value!r}")
-    return value
-
-
-def _section(source: str, doc: dict, name: str) -> dict:
-    value = doc.get(name, {})
-    return _expect(source, name, value, (dict,), "a table")
-
-
-def _parse_columns(source: str, doc: dict) -> Columns:
-    if "columns" not in doc:
-        raise InputError(f"{_where(source, 'columns')} is missing: the spec must name the exposure and "
-                         f"claim_count columns")
-    sec = _section(source, doc, "columns")
-    allowed = {"exposure", "claim_count", "claim_amount", "policy_id", "period", "current_premium"}
-    _check_keys(source, "columns.", sec, allowed)
-    for req in ("exposure", "claim_count"):
-        if req not in sec:
-            raise InputError(f"{_where(source, 'columns.' + req)} is required")
-    values = {k: _string(source, f"columns.{k}", v) for k, v in sec.items()}
+def _parse_columns(doc: TomlTable) -> Columns:
+    if not doc.has("columns"):
+        raise doc.error("columns", "is missing: the spec must name the exposure and claim_count columns")
+    t = doc.table("columns")
+    t.allow(("exposure", "claim_count", "claim_amount", "policy_id", "period", "current_premium"))
+    t.refuse_unknown()
+    for required in ("exposure", "claim_count"):
+        t.value(required)
+    values = {k: t.string(k) for k in t.all_keys()}
     seen: dict[str, str] = {}
     for k, v in values.items():
         if v in seen:
-            raise InputError(f"{_where(source, 'columns.' + k)} names column '{v}', already used by "
-                             f"columns.{seen[v]}")
+            raise t.error(k, f"names column '{v}', already used by columns.{seen[v]}")
         seen[v] = k
     return Columns(**values)
 
 
-def _parse_factor(source: str, name: str, sec: Any) -> Factor:
-    prefix = f"factors.{name}."
-    _expect(source, f"factors.{name}", sec, (dict,), "a table")
-    _check_keys(source, prefix, sec, {"type", "monotone", "bands", "n_bands", "levels", "base",
-                                      "fallback"})
-    if "type" not in sec:
-        raise InputError(f"{_where(source, prefix + 'type')} is required (numeric or categorical)")
-    ftype = _string(source, prefix + "type", sec["type"], FACTOR_TYPES)
-    monotone = _string(source, prefix + "monotone", sec.get("monotone", "none"), MONOTONE)
+def _parse_factor(factors: TomlTable, name: str) -> Factor:
+    t = factors.table(name)
+    t.allow(FACTOR_KEYS)
+    t.refuse_unknown()
+    if not t.has("type"):
+        raise t.error("type", "is required (numeric or categorical)")
+    ftype = t.string("type", choices=FACTOR_TYPES)
+    monotone = t.string("monotone", Monotone.NONE.value, choices=MONOTONE)
     bands = levels = None
     n_bands = 8
     if ftype == "numeric":
         for bad in ("levels", "fallback"):
-            if bad in sec:
-                raise InputError(f"{_where(source, prefix + bad)} applies only to categorical factors")
-        if "bands" in sec:
-            raw = _expect(source, prefix + "bands", sec["bands"], (list,), "a list of band edges")
-            if not raw:
-                raise InputError(f"{_where(source, prefix + 'bands')} must not be empty")
-            bands = tuple(_number(source, f"{prefix}bands[{i}]", v) for i, v in enumerate(raw))
+            if t.has(bad):
+                raise t.error(bad, "applies only to categorical factors")
+        if t.has("bands"):
+            bands = t.numbers("bands", what="a list of band edges")
+            if not bands:
+                raise t.error("bands", "must not be empty")
             for i in range(1, len(bands)):
                 if bands[i] <= bands[i - 1]:
-                    raise InputError(f"{_where(source, prefix + 'bands')} must be strictly increasing: "
-                                     f"{bands[i - 1]:g} then {bands[i]:g}")
-        if "n_bands" in sec:
+                    raise t.error("bands", f"must be strictly increasing: {bands[i - 1]:g} then {bands[i]:g}")
+        if t.has("n_bands"):
             if bands is not None:
-                raise InputError(f"{_where(source, prefix + 'n_bands')} conflicts with bands: give one")
-            n_bands = _integer(source, prefix + "n_bands", sec["n_bands"], 2)
+                raise t.error("n_bands", "conflicts with bands: give one")
+            n_bands = t.integer("n_bands", low=2)
     else:
-        if "bands" in sec or "n_bands" in sec:
-            raise InputError(f"{_where(source, prefix + 'bands')} applies only to numeric factors")
-        if "levels" in sec:
-            raw = _expect(source, prefix + "levels", sec["levels"], (list,), "a list of level names")
-            levels = tuple(_string(source, f"{prefix}levels[{i}]", v) for i, v in enumerate(raw))
-            if len(set(levels)) != len(levels):
-                dup = next(v for v in levels if levels.count(v) > 1)
-                raise InputError(f"{_where(source, prefix + 'levels')} lists level '{dup}' twice")
+        if t.has("bands") or t.has("n_bands"):
+            raise t.error("bands", "applies only to numeric factors")
+        if t.has("levels"):
+            levels = t.strings("levels", what="a list of level names", distinct="level")
             if len(levels) < 2:
-                raise InputError(f"{_where(source, prefix + 'levels')} needs at least two levels")
-        if monotone != "none" and levels is None:
-            raise InputError(f"{_where(source, prefix + 'monotone')}: a monotone promise needs an order, "
-                             f"but '{name}' is an unordered categorical; give its `levels` in order")
-    base = sec.get("base")
-    if base is not None:
-        base = _string(source, prefix + "base", base)
-        if levels is not None and base not in levels:
-            raise InputError(f"{_where(source, prefix + 'base')} '{base}' is not one of its levels")
-    fallback = sec.get("fallback")
-    if fallback is not None:
-        fallback = _string(source, prefix + "fallback", fallback)
-        if levels is not None and fallback not in levels:
-            raise InputError(f"{_where(source, prefix + 'fallback')} '{fallback}' is not one of its levels")
+                raise t.error("levels", "needs at least two levels")
+        if monotone != Monotone.NONE and levels is None:
+            raise t.error("monotone", f": a monotone promise needs an order, but '{name}' is an unordered "
+                                      f"categorical; give its `levels` in order")
+    named = {}
+    for key in ("base", "fallback"):
+        named[key] = None if t.value(key, None) is None else t.string(key)
+        if named[key] is not None and levels is not None and named[key] not in levels:
+            raise t.error(key, f"'{named[key]}' is not one of its levels")
     return Factor(name=name, type=ftype, monotone=monotone, bands=bands, n_bands=n_bands, levels=levels,
-                  base=base, fallback=fallback)
+                  **named)
 
 
-def _parse_simple(source: str, doc: dict, name: str, cls: type, checks: dict[str, Any]) -> Any:
-    """Parse a flat section whose keys map onto `cls` fields; `checks[key](key_path, value)`."""
-    sec = _section(source, doc, name)
-    _check_keys(source, name + ".", sec, set(checks))
-    values = {k: checks[k](f"{name}.{k}", v) for k, v in sec.items()}
-    return cls(**values)
+def _power(t: TomlTable, key: str, word: str) -> float | str:
+    """A Tweedie power in (1, 2), or the word `word`."""
+    if isinstance(t.value(key), str):
+        return t.string(key, choices=(word,))
+    return t.number(key, low=1.0, high=2.0, low_open=True, high_open=True)
 
 
-def _power(source: str, key: str, value: Any, words: tuple[str, ...]) -> float | str:
-    if isinstance(value, str):
-        return _string(source, key, value, words)
-    return _number(source, key, value, 1.0, 2.0, low_open=True, high_open=True)
-
-
-def _interactions(source: str, key: str, value: Any) -> tuple[tuple[str, str], ...]:
-    _expect(source, key, value, (list,), "a list of factor pairs")
+def _interactions(t: TomlTable, key: str) -> tuple[tuple[str, str], ...]:
     pairs = []
-    for i, pair in enumerate(value):
+    for i, pair in enumerate(t.array(key, what="a list of factor pairs")):
         if not (isinstance(pair, list) and len(pair) == 2 and all(isinstance(p, str) for p in pair)):
-            raise InputError(f"{_where(source, f'{key}[{i}]')} must be a pair of factor names, got {pair!r}")
+            raise t.error(f"{key}[{i}]", f"must be a pair of factor names, got {pair!r}")
         if pair[0] == pair[1]:
-            raise InputError(f"{_where(source, f'{key}[{i}]')} pairs factor '{pair[0]}' with itself")
+            raise t.error(f"{key}[{i}]", f"pairs factor '{pair[0]}' with itself")
         pairs.append((pair[0], pair[1]))
     return tuple(pairs)
 
 
-def _date(source: str, key: str, value: Any) -> str:
-    import datetime as dt
-    text = value.isoformat() if isinstance(value, dt.date) else _string(source, key, value)
-    try:
-        dt.date.fromisoformat(text)
-    except ValueError:
-        raise InputError(f"{_where(source, key)} must be a date YYYY-MM-DD, got {value!r}") from None
-    return text
+def _rates_by_period(t: TomlTable, key: str) -> dict[str, float] | str:
+    if isinstance(t.value(key), str):
+        return t.string(key)
+    rates = t.table(key, what="a table of period = factor, or a CSV file name")
+    return {period: rates.number(period, low=0.0, low_open=True) for period in rates.all_keys()}
 
 
-def _rates_by_period(source: str, key: str, value: Any) -> dict[str, float] | str:
-    if isinstance(value, str):
-        return value
-    _expect(source, key, value, (dict,), "a table of period = factor, or a CSV file name")
-    return {str(k): _number(source, f"{key}.{k}", v, 0.0, low_open=True) for k, v in value.items()}
+def _trend(t: TomlTable, key: str) -> dict[str, float]:
+    rates = t.table(key, what="a table with frequency and/or severity")
+    rates.allow(("frequency", "severity"))
+    rates.refuse_unknown()
+    return {k: rates.number(k, low=-0.5, high=1.0) for k in rates.all_keys()}
 
 
-def _trend(source: str, key: str, value: Any) -> dict[str, float]:
-    _expect(source, key, value, (dict,), "a table with frequency and/or severity")
-    _check_keys(source, key + ".", value, {"frequency", "severity"})
-    return {k: _number(source, f"{key}.{k}", v, -0.5, 1.0) for k, v in value.items()}
+def _dates_by_period(t: TomlTable, key: str) -> dict[str, str]:
+    dates = t.table(key, what="a table of period = date")
+    return {period: dates.date(period) for period in dates.all_keys()}
 
 
-def _dates_by_period(source: str, key: str, value: Any) -> dict[str, str]:
-    _expect(source, key, value, (dict,), "a table of period = date")
-    return {str(k): _date(source, f"{key}.{k}", v) for k, v in value.items()}
-
-
-def _holdout(source: str, key: str, value: Any) -> float | str:
+def _holdout(t: TomlTable, key: str) -> float | str:
+    value = t.value(key)
     if isinstance(value, str) and value != "latest_period":
-        raise InputError(f"{_where(source, key)} must be a number in [0, 1) or 'latest_period', got {value!r}")
+        raise t.error(key, f"must be a number in [0, 1) or 'latest_period', got {value!r}")
     if isinstance(value, str):
         return value
-    return _number(source, key, value, 0.0, 1.0, high_open=True)
+    return t.number(key, low=0.0, high=1.0, high_open=True)
 
 
-def _parse_experience(s: str, doc: dict, columns: Columns) -> Experience:
-    def boolean(k: str, v: Any) -> bool:
-        return _expect(s, k, v, (bool,), "true or false")
+def _boolean(t: TomlTable, key: str) -> bool:
+    return t.boolean(key)
 
-    e = _parse_simple(s, doc, "experience", Experience, {
-        "large_loss_cap": lambda k, v: _number(s, k, v, 0.0, low_open=True),
-        "excess_load_history": lambda k, v: _number(s, k, v, 0.0, 10.0),
-        "claims_file": lambda k, v: _string(s, k, v),
-        "claims_amount_column": lambda k, v: _string(s, k, v),
-        "catastrophe_column": lambda k, v: _string(s, k, v),
-        "development": lambda k, v: _rates_by_period(s, k, v),
-        "development_applies_to_counts": boolean,
-        "trend": lambda k, v: _trend(s, k, v),
-        "future_midpoint": lambda k, v: _date(s, k, v),
-        "term_years": lambda k, v: _number(s, k, v, 0.0, 10.0, low_open=True),
-        "period_midpoints": lambda k, v: _dates_by_period(s, k, v),
-        "period_control": boolean,
+
+def _text(t: TomlTable, key: str) -> str:
+    return t.string(key)
+
+
+def _parse_experience(doc: TomlTable, columns: Columns) -> Experience:
+    given = _section(doc, "experience", {
+        "large_loss_cap": lambda t, k: t.number(k, low=0.0, low_open=True),
+        "excess_load_history": lambda t, k: t.number(k, low=0.0, high=10.0),
+        "claims_file": _text,
+        "claims_amount_column": _text,
+        "catastrophe_column": _text,
+        "development": _rates_by_period,
+        "development_applies_to_counts": _boolean,
+        "trend": _trend,
+        "future_midpoint": lambda t, k: t.date(k),
+        "term_years": lambda t, k: t.number(k, low=0.0, high=10.0, low_open=True),
+        "period_midpoints": _dates_by_period,
+        "period_control": _boolean,
     })
-    given = set(_section(s, doc, "experience"))
+    e = Experience(**given)
     needs = [  # (key, what it needs, whether that is there)
         ("large_loss_cap", "columns.claim_amount", columns.claim_amount is not None),
         ("excess_load_history", "experience.large_loss_cap", e.large_loss_cap is not None),
@@ -437,110 +358,132 @@ def _parse_experience(s: str, doc: dict, columns: Columns) -> Experience:
     ]
     for key, what, there in needs:
         if key in given and not there:
-            raise InputError(f"{_where(s, 'experience.' + key)} needs {what}")
+            raise doc.error(f"experience.{key}", f"needs {what}")
     return e
 
 
+def _parse_gbm(doc: TomlTable, seed: int) -> GbmOptions:
+    """The [gbm] section; the seed is the split's, the word "glm" for tweedie_power is None."""
+    given = _section(doc, "gbm", {
+        "folds": lambda t, k: t.integer(k, low=2),
+        "max_settings": lambda t, k: t.integer(k, low=1),
+        "threads": lambda t, k: t.integer(k, low=1),
+        "max_rounds": lambda t, k: t.integer(k, low=1),
+        "early_stopping_rounds": lambda t, k: t.integer(k, low=1),
+        "monotone_method": lambda t, k: t.string(k, choices=MONOTONE_METHODS),
+        "constrain_severity": _boolean,
+        "tweedie_power": lambda t, k: _power(t, k, "glm"),
+    })
+    if "threads" in given:
+        given["num_threads"] = given.pop("threads")
+    if given.get("tweedie_power") == "glm":
+        given["tweedie_power"] = None
+    return GbmOptions(seed=seed, **given)
+
+
+def _parse_loadings(doc: TomlTable) -> Loadings:
+    given = _section(doc, "loadings", {
+        "lae_ratio": lambda t, k: t.number(k, low=0.0, high=5.0),
+        "fixed_expense": lambda t, k: t.number(k, low=0.0),
+        "variable_expense": lambda t, k: t.number(k, low=0.0, high=1.0, high_open=True),
+        "profit": lambda t, k: t.number(k, low=0.0, high=1.0, high_open=True),
+        "minimum_premium": lambda t, k: t.number(k, low=0.0),
+    })
+    variable_and_profit = sum(given.get(k, getattr(Loadings, k)) for k in ("variable_expense", "profit"))
+    if variable_and_profit >= 1.0:
+        raise doc.error("loadings", f": variable_expense + profit must be below 1, got {variable_and_profit:g}")
+    return Loadings(**given)
+
+
 def parse_spec(doc: dict, source: str = "spec") -> Spec:
-    """Validate a parsed TOML document and build the `Spec`."""
-    s = source
-    _check_keys(s, "", doc, {"columns", "factors", "split", "glm", "gbm", "table", "loadings",
-                             "compliance", "experience"})
-    columns = _parse_columns(s, doc)
-    fsec = _section(s, doc, "factors")
-    if not fsec:
-        raise InputError(f"{_where(s, 'factors')} is missing: the spec needs at least one rating factor")
-    factors = tuple(_parse_factor(s, name, sec) for name, sec in fsec.items())
+    """Validate a parsed TOML document and build the `Spec`.
+
+    Parameters
+    ----------
+    doc : dict
+        The TOML document.
+    source : str
+        The file it came from, for messages.
+
+    Returns
+    -------
+    Spec
+        The validated spec; bad input raises `InputError` naming the file and the dotted key.
+    """
+    top = TomlTable(doc, source)
+    top.allow(SECTIONS)
+    top.refuse_unknown()
+    columns = _parse_columns(top)
+    factors_table = top.table("factors", {})
+    if not factors_table.all_keys():
+        raise top.error("factors", "is missing: the spec needs at least one rating factor")
+    factors = tuple(_parse_factor(factors_table, name) for name in factors_table.all_keys())
     for f in factors:
         if f.name in columns.used():
-            raise InputError(f"{_where(s, 'factors.' + f.name)}: '{f.name}' is also a column of [columns]")
+            raise factors_table.error(f.name, f": '{f.name}' is also a column of [columns]")
 
-    compliance = _parse_simple(s, doc, "compliance", Compliance, {
-        "prohibited": lambda k, v: tuple(_string(s, f"{k}[{i}]", x) for i, x in
-                                         enumerate(_expect(s, k, v, (list,), "a list of factor names"))),
-        "jurisdiction": lambda k, v: _string(s, k, v),
-    })
+    compliance = Compliance(**_section(top, "compliance", {
+        "prohibited": lambda t, k: t.strings(k, what="a list of factor names"),
+        "jurisdiction": _text,
+    }))
     banned = {p.lower() for p in compliance.prohibited}
     for f in factors:
         if f.name.lower() in banned:
-            raise InputError(f"{_where(s, 'factors.' + f.name)}: factor '{f.name}' is prohibited "
-                             f"([compliance] prohibited); factors prohibited by local law must not be used "
-                             f"in rating, so this spec is refused")
+            raise factors_table.error(f.name, f": factor '{f.name}' is prohibited ([compliance] prohibited); "
+                                              f"factors prohibited by local law must not be used in rating, "
+                                              f"so this spec is refused")
 
-    split = _parse_simple(s, doc, "split", Split, {
-        "holdout": lambda k, v: _holdout(s, k, v),
-        "seed": lambda k, v: _integer(s, k, v, 0),
-    })
+    split = Split(**_section(top, "split", {
+        "holdout": _holdout,
+        "seed": lambda t, k: t.integer(k, low=0),
+    }))
     if split.holdout == "latest_period":
         if columns.period is None:
-            raise InputError(f"{_where(s, 'split.holdout')} 'latest_period' needs columns.period")
+            raise top.error("split.holdout", "'latest_period' needs columns.period")
         split = Split(holdout=0.0, seed=split.seed, out_of_time=True)
-    glm = _parse_simple(s, doc, "glm", GlmOptions, {
-        "engine": lambda k, v: _string(s, k, v, ("auto", "cells", "rows")),
-        "tweedie_power": lambda k, v: _power(s, k, v, ("auto",)),
-    })
-    gbm = _parse_simple(s, doc, "gbm", GbmOptionsSpec, {
-        "folds": lambda k, v: _integer(s, k, v, 2),
-        "max_settings": lambda k, v: _integer(s, k, v, 1),
-        "threads": lambda k, v: _integer(s, k, v, 1),
-        "max_rounds": lambda k, v: _integer(s, k, v, 1),
-        "early_stopping_rounds": lambda k, v: _integer(s, k, v, 1),
-        "monotone_method": lambda k, v: _string(s, k, v, ("basic", "intermediate", "advanced")),
-        "constrain_severity": lambda k, v: _expect(s, k, v, (bool,), "true or false"),
-        "tweedie_power": lambda k, v: _power(s, k, v, ("glm",)),
-    })
-    table = _parse_simple(s, doc, "table", TableOptions, {
-        "table_id": lambda k, v: _string(s, k, v),
-        "effective_date": lambda k, v: _date(s, k, v),
-        "exposure_unit": lambda k, v: _string(s, k, v),
-        "max_bands": lambda k, v: _integer(s, k, v, 1),
-        "min_band_exposure": lambda k, v: _number(s, k, v, 0.0, 0.5),
-        "interactions": lambda k, v: _interactions(s, k, v),
-        "sample": lambda k, v: _integer(s, k, v, 100),
-        "grid_points": lambda k, v: _integer(s, k, v, 2),
-        "relativity_decimals": lambda k, v: _integer(s, k, v, 0),
-        "premium_decimals": lambda k, v: _integer(s, k, v, 0),
-        "target": lambda k, v: _string(s, k, v, ("experience", "current_premium")),
-        "overall_change": lambda k, v: _number(s, k, v, -0.9, 10.0),
-    })
+    glm = GlmOptions(**_section(top, "glm", {
+        "engine": lambda t, k: t.string(k, choices=("auto", "cells", "rows")),
+        "tweedie_power": lambda t, k: _power(t, k, "auto"),
+    }))
+    gbm = _parse_gbm(top, split.seed)
+    table = TableOptions(**_section(top, "table", {
+        "table_id": _text,
+        "effective_date": lambda t, k: t.date(k),
+        "exposure_unit": _text,
+        "max_bands": lambda t, k: t.integer(k, low=1),
+        "min_band_exposure": lambda t, k: t.number(k, low=0.0, high=0.5),
+        "interactions": _interactions,
+        "sample": lambda t, k: t.integer(k, low=100),
+        "grid_points": lambda t, k: t.integer(k, low=2),
+        "relativity_decimals": lambda t, k: t.integer(k, low=0),
+        "premium_decimals": lambda t, k: t.integer(k, low=0),
+        "target": lambda t, k: t.string(k, choices=("experience", "current_premium")),
+        "overall_change": lambda t, k: t.number(k, low=-0.9, high=10.0),
+    }))
     names = {f.name for f in factors}
     for i, (a, b) in enumerate(table.interactions):
         for n in (a, b):
             if n not in names:
-                raise InputError(f"{_where(s, f'table.interactions[{i}]')} names '{n}', which is not a factor")
+                raise top.error(f"table.interactions[{i}]", f"names '{n}', which is not a factor")
     if table.target == "current_premium" and columns.current_premium is None:
-        raise InputError(f"{_where(s, 'table.target')} is current_premium but columns.current_premium "
-                         f"is not set")
-    loadings = _parse_simple(s, doc, "loadings", Loadings, {
-        "lae_ratio": lambda k, v: _number(s, k, v, 0.0, 5.0),
-        "fixed_expense": lambda k, v: _number(s, k, v, 0.0),
-        "variable_expense": lambda k, v: _number(s, k, v, 0.0, 1.0, high_open=True),
-        "profit": lambda k, v: _number(s, k, v, -0.5, 1.0, high_open=True),
-        "minimum_premium": lambda k, v: _number(s, k, v, 0.0),
-    })
-    if loadings.variable_expense + loadings.profit >= 1.0:
-        raise InputError(f"{_where(s, 'loadings')}: variable_expense + profit must be below 1, got "
-                         f"{loadings.variable_expense + loadings.profit:g}")
-    experience = _parse_experience(s, doc, columns)
+        raise top.error("table.target", "is current_premium but columns.current_premium is not set")
+    loadings = _parse_loadings(top)
+    experience = _parse_experience(top, columns)
     return Spec(columns=columns, factors=factors, split=split, glm=glm, gbm=gbm, table=table,
-                loadings=loadings, compliance=compliance, experience=experience, source=s, raw=doc)
+                loadings=loadings, compliance=compliance, experience=experience, source=source, raw=doc)
 
 
 def load_spec(path: str | Path) -> Spec:
-    """Read and validate a pricing spec TOML file."""
-    p = Path(path)
-    if p.is_dir():
-        raise InputError(f"{p}: is a directory, expected a spec TOML file")
-    try:
-        text = p.read_bytes().decode("utf-8-sig")
-    except FileNotFoundError:
-        raise InputError(f"{p}: spec file not found") from None
-    except UnicodeDecodeError as e:
-        raise InputError(f"{p}: not UTF-8 text (byte {e.start})") from None
-    except OSError as e:
-        raise InputError(f"{p}: cannot read spec ({e.strerror})") from None
-    try:
-        doc = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as e:
-        raise InputError(f"{p}: malformed TOML: {e}") from None
-    return parse_spec(doc, source=str(p))
+    """Read and validate a pricing spec TOML file (UTF-8, a byte-order mark allowed).
+
+    Parameters
+    ----------
+    path : str or Path
+        The spec file.
+
+    Returns
+    -------
+    Spec
+        The validated spec; a missing, unreadable or malformed file or bad content raises `InputError`.
+    """
+    return parse_spec(read_toml(path, "spec"), source=str(Path(path)))

@@ -225,7 +225,8 @@ def certify(model: Annotated[Path, typer.Argument(help="A LightGBM model in text
     """Certify from the model file alone that the raw score is monotone in a factor (exit 1 if not)."""
     from premiumlab.models.trees.certificate import certify as certify_model
     from premiumlab._core.errors import InputError
-    signs = {"increasing": 1, "decreasing": -1}
+    from rating_tables.monotone import Monotone
+    signs = {m.value: m.sign for m in Monotone if m.sign}
     if direction not in signs:
         raise InputError(f"--direction: '{direction}' must be increasing or decreasing")
     try:

@@ -12,6 +12,7 @@ from pathlib import Path
 
 import pandas as pd
 
+from premiumlab._core.defaults import FALLBACK_TWEEDIE_POWER
 from premiumlab._core.errors import InputError
 from premiumlab._core.jsonio import write_json
 from premiumlab.evaluation.holdout import (
@@ -44,7 +45,7 @@ def compare(run_dir: str | Path, n_boot: int = N_BOOT) -> dict:
                          f"compare on; refit with a holdout share above 0 or holdout = \"latest_period\"")
     if not any(c.startswith("gbm_") for c in preds) or not any(c.startswith("glm_") for c in preds):
         raise InputError(f"{run.path}: compare needs both GLM and GBM predictions; fit with --models glm,gbm")
-    power = run.model_json("glm", "pure_premium")["power"] if "glm_pure_premium" in preds else 1.5
+    power = run.model_json("glm", "pure_premium")["power"] if "glm_pure_premium" in preds else FALLBACK_TWEEDIE_POWER
     seed = run.spec.split.seed
     result = {"holdout_rows": int(preds["holdout"].sum()), "tweedie_power": power,
               "metrics": holdout_metrics(preds, power), "differences": {}, "lift": {}, "double_lift": {},

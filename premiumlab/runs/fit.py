@@ -16,6 +16,7 @@ import numpy as np
 import pandas as pd
 
 from premiumlab._core.cluster import TaskRunner, parse_cluster, tasks_on
+from premiumlab._core.defaults import FALLBACK_TWEEDIE_POWER
 from premiumlab._core.errors import InputError
 from premiumlab._core.jsonio import write_json
 from premiumlab._core.outputs import atomic_output, check_target
@@ -128,14 +129,14 @@ def _fit_run(book_path: str | Path, spec_path: str | Path, spec: Spec, out: Path
         preds.to_parquet(run.predictions, index=False)
         if book.holdout.any():
             from premiumlab.evaluation.holdout import holdout_metrics
-            write_json(run.metrics, holdout_metrics(fitted_basis(preds), glm_power or 1.5))
+            write_json(run.metrics, holdout_metrics(fitted_basis(preds), glm_power or FALLBACK_TWEEDIE_POWER))
         run.write_levels(levels)
         run.write_manifest({
             "spec": spec.raw,
             "book": {"path_from_run": os.path.relpath(Path(book_path).resolve(), out.resolve()),
                      "sha256": book.sha256},
             "rows": {"total": book.n_rows, "train": int(train.sum()), "holdout": int(book.holdout.sum())},
-            "seed": spec.split.seed, "threads": spec.gbm.threads, "models": kinds,
+            "seed": spec.split.seed, "threads": spec.gbm.num_threads, "models": kinds,
             **({"gbm_search_ran_on": runner.description} if "gbm" in kinds else {}),
             "warnings": [str(w) for w in book.warnings],
             "versions": _versions(), "timings": timings,

@@ -1,12 +1,15 @@
 """Boosted models inside a run: options from the spec, the three targets, certificate and H statistic."""
 from __future__ import annotations
 
+from dataclasses import replace
+
 import numpy as np
 import pandas as pd
 
 from premiumlab._core.cluster import IN_PROCESS, TaskRunner
 from premiumlab._core.jsonio import write_json
 from premiumlab.book.data import Book
+from premiumlab.book.gbm_options import GbmOptions
 from premiumlab.book.spec import Spec
 from premiumlab.models.gbm.features import features_from_spec
 from premiumlab.models.targets import TARGETS
@@ -19,15 +22,9 @@ H_SAMPLE = 300
 H_FACTORS = 6
 
 
-def gbm_options(spec: Spec, glm_power: float | None):
-    """Map the spec's [gbm] section onto `GbmOptions`; the Tweedie power comes from the GLM unless fixed."""
-    from premiumlab.models.gbm.fit import GbmOptions
-    g = spec.gbm
-    power = g.tweedie_power if isinstance(g.tweedie_power, float) else (glm_power or 1.5)
-    return GbmOptions(folds=g.folds, max_settings=g.max_settings, num_threads=g.threads, seed=spec.split.seed,
-                      max_rounds=g.max_rounds, early_stopping_rounds=g.early_stopping_rounds,
-                      monotone_method=g.monotone_method, constrain_severity=g.constrain_severity,
-                      tweedie_power=float(power))
+def gbm_options(spec: Spec, glm_power: float | None) -> GbmOptions:
+    """The spec's [gbm] options; a Tweedie power not fixed there is the GLM's (`glm_power`, if fitted)."""
+    return spec.gbm if spec.gbm.tweedie_power is not None else replace(spec.gbm, tweedie_power=glm_power)
 
 
 def fit_gbms(book: Book, spec: Spec, train: np.ndarray, glm_power: float | None, run: RunDir,

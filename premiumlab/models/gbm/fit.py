@@ -29,31 +29,22 @@ import numpy as np
 import pandas as pd
 
 from premiumlab._core.cautions import DRAFT
-from premiumlab.models.trees.certificate import certify
 from premiumlab._core.cluster import IN_PROCESS, TaskRunner
 from premiumlab._core.errors import InputError
 from premiumlab._core.jsonio import read_json
-from premiumlab.evaluation.metrics import mean_deviance
 from premiumlab._core.progress import progress_bar
+from premiumlab.book.gbm_options import MONOTONE_METHODS, GbmOptions
+from premiumlab.evaluation.metrics import mean_deviance
 from premiumlab.models.targets import TARGETS
+from premiumlab.models.trees.certificate import certify
 
-MONOTONE_METHODS = ("basic", "intermediate", "advanced")
 SIMPLER_METHOD = {"advanced": "intermediate", "intermediate": "basic"}
 GRID_KEYS = frozenset({"num_leaves", "min_data_in_leaf", "min_sum_hessian_in_leaf", "learning_rate",
                        "lambda_l2", "lambda_l1", "max_depth", "min_gain_to_split"})
 BALANCE_TOLERANCE = 0.01
 JSON_FORMAT = "premiumlab.gbm"
+_DEFAULT_OPTIONS = GbmOptions()
 
-# Half of the 2^4 factorial in leaves, minimum policies per leaf, learning rate and L2 penalty
-# (the fourth factor aliased with the three-way interaction): every level of every factor appears
-# four times, every pair of levels of two factors twice.
-DEFAULT_GRID: tuple[dict, ...] = tuple(
-    {"num_leaves": leaves, "min_data_in_leaf": min_data, "learning_rate": rate, "lambda_l2": l2}
-    for leaves, min_data, rate, l2 in (
-        (7, 100, 0.03, 10.0), (7, 100, 0.1, 0.0), (7, 400, 0.03, 0.0), (7, 400, 0.1, 10.0),
-        (31, 100, 0.03, 0.0), (31, 100, 0.1, 10.0), (31, 400, 0.03, 10.0), (31, 400, 0.1, 0.0),
-    )
-)
 _FORBIDDEN_NAME_CHARACTERS = set('[]{}":,') | {" ", "\t", "\n"}
 
 
@@ -75,31 +66,6 @@ class GbmInputs:
     claim_count: np.ndarray
     claim_amount: np.ndarray | None
     groups: np.ndarray
-
-
-@dataclass(frozen=True)
-class GbmOptions:
-    """How the boosted models are tuned; the spec's [gbm] section maps onto these.
-
-    folds (5): policy-grouped CV folds; max_settings (8): grid settings tried, a seeded subset of
-    `grid` when it is longer; num_threads (2): LightGBM threads, fixed so results reproduce;
-    seed (2026): LightGBM's seed and the fold hash; max_rounds (2000) and early_stopping_rounds
-    (50): boosting rounds per fold; grid: LightGBM parameters per setting (default `DEFAULT_GRID`);
-    monotone_method ("advanced"): LightGBM monotone_constraints_method; constrain_severity (False):
-    also constrain the severity model; tweedie_power (1.5): variance power of the pure-premium model
-    (the pipeline passes the GLM's estimate).
-    """
-
-    folds: int = 5
-    max_settings: int = 8
-    num_threads: int = 2
-    seed: int = 2026
-    max_rounds: int = 2000
-    early_stopping_rounds: int = 50
-    grid: tuple[dict, ...] = DEFAULT_GRID
-    monotone_method: str = "advanced"
-    constrain_severity: bool = False
-    tweedie_power: float = 1.5
 
 
 @dataclass(frozen=True)
@@ -197,7 +163,7 @@ def _check_options(options: GbmOptions) -> None:
     if options.monotone_method not in MONOTONE_METHODS:
         raise InputError(f"gbm option monotone_method: {options.monotone_method!r} is not one of "
                          f"{', '.join(MONOTONE_METHODS)}")
-    if not 1.0 <= options.tweedie_power < 2.0:
+    if options.tweedie_power is not None and not 1.0 <= options.tweedie_power < 2.0:
         raise InputError(f"gbm option tweedie_power: {options.tweedie_power!r} must be in [1, 2)")
     if not options.grid:
         raise InputError("gbm option grid: no settings")
@@ -322,7 +288,7 @@ def _base_params(target: str, names: list[str], monotone: dict[str, int], option
         "max_bin": 255, "feature_pre_filter": False, "zero_as_missing": False,
     }
     if TARGETS[target].power is None:
-        params["tweedie_variance_power"] = float(options.tweedie_power)
+        params["tweedie_variance_power"] = options.variance_power
     if monotone:
         params["monotone_constraints"] = [int(monotone.get(name, 0)) for name in names]
         params["monotone_constraints_method"] = options.monotone_method
@@ -493,7 +459,7 @@ def uncertified_factors(model: GbmModel) -> list[str]:
             if certify(text, name, direction)["violation_count"] > 0]
 
 
-def fit_target(inputs: GbmInputs, target: str, options: GbmOptions = GbmOptions(),
+def fit_target(inputs: GbmInputs, target: str, options: GbmOptions = _DEFAULT_OPTIONS,
                runner: TaskRunner = IN_PROCESS) -> GbmModel:
     """Tune by grouped K-fold CV (the fits run on `runner`), then refit the chosen setting on the
     whole training part here.
