@@ -10,7 +10,6 @@ from __future__ import annotations
 
 import os
 import platform
-import sys
 import time
 from dataclasses import dataclass, replace
 from pathlib import Path
@@ -24,15 +23,16 @@ from premiumlab.book.scan import load_book
 from premiumlab.book.data import Book, Levels, categorise, factor_levels
 from premiumlab._core.errors import InputError
 from premiumlab.experience.adjustments import latest_period_holdout, read_text_column
-from premiumlab._core.jsonio import read_json, write_json
+from premiumlab._core.jsonio import plain, read_json, write_json
 from premiumlab._core.outputs import atomic_output, check_target
+from premiumlab._core.progress import Progress
 from premiumlab.book.spec import Spec, load_spec, parse_spec
 
 MODEL_KINDS = ("glm", "gbm")
 TARGETS = ("frequency", "severity", "pure_premium")
 
 
-@dataclass
+@dataclass(frozen=True)
 class Run:
     """A run directory read back: its manifest, factor levels and predictions."""
 
@@ -40,6 +40,10 @@ class Run:
     manifest: dict
     spec: Spec
     levels: dict[str, Levels]
+
+    def to_dict(self) -> dict:
+        """The run as JSON-able data: its folder, run.json (the spec included) and levels."""
+        return plain({"path": self.path, "manifest": self.manifest, "levels": self.levels})
 
     def predictions(self) -> pd.DataFrame:
         return pd.read_parquet(self.path / "predictions.parquet")
@@ -104,11 +108,12 @@ def glm_inputs(book: Book, cats: pd.DataFrame, levels: dict[str, Levels], rows: 
 
 
 def fit(book_path: str | Path, spec_path: str | Path, out: str | Path, models: str = "glm,gbm",
-        force: bool = False, progress: bool = False, cluster: str | None = None) -> Path:
+        force: bool = False, progress: Progress | None = None, cluster: str | None = None) -> Path:
     """Fit the requested models on the training part of the book and write the run directory.
 
-    `cluster`: where the boosted-model search runs (premiumlab.cluster: None for this process,
-    local:N or a Dask scheduler address)."""
+    `progress`: told the experience step's totals (None: nothing is said). `cluster`: where the
+    boosted-model search runs (premiumlab.cluster: None for this process, local:N or a Dask
+    scheduler address)."""
     kinds = parse_models(models)
     if cluster is not None:
         parse_cluster(cluster)
@@ -120,7 +125,7 @@ def fit(book_path: str | Path, spec_path: str | Path, out: str | Path, models: s
 
 
 def _fit_run(book_path: str | Path, spec_path: str | Path, spec: Spec, out: Path, kinds: list[str], force: bool,
-             progress: bool, runner: TaskRunner) -> Path:
+             progress: Progress | None, runner: TaskRunner) -> Path:
     """`fit` once its inputs are checked and the boosted-model search's `runner` is ready."""
     timings: dict[str, float] = {}
     t0 = time.perf_counter()
@@ -145,10 +150,11 @@ def _fit_run(book_path: str | Path, spec_path: str | Path, spec: Spec, out: Path
         adjustment = adjust_book(book, spec, Path(spec_path).parent, periods, train)
         book = adjusted_book(book, adjustment)
         timings["experience_seconds"] = time.perf_counter() - t
-        if progress:
+        if progress is not None:
             totals = adjustment.record["totals"]["training"]
-            print(f"experience: training amounts {totals['amount_observed']:,.0f} -> {totals['amount_adjusted']:,.0f}, "
-                  f"counts {totals['count_observed']:,.0f} -> {totals['count_adjusted']:,.1f}", file=sys.stderr)
+            progress.step(f"experience: training amounts {totals['amount_observed']:,.0f} -> "
+                          f"{totals['amount_adjusted']:,.0f}, counts {totals['count_observed']:,.0f} -> "
+                          f"{totals['count_adjusted']:,.1f}")
     control = None
     if exp.period_control:
         control = period_control(periods, book.exposure, train, spec.columns.period)
