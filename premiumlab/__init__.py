@@ -9,14 +9,37 @@ Everything is imported lazily so that the command line starts fast. No public na
 name of a submodule (importing a submodule sets it as an attribute of the package, which would
 shadow the function).
 """
+
 from importlib import import_module as _import_module
 
 __version__ = "0.1.0"
 
-_COMMANDS = ("simulate", "validate", "fit", "compare", "tabulate", "audit", "rate", "impact", "certify", "tails",
-             "report", "demo")
-_RESULTS = ("SimulationResult", "Comparison", "TableResult", "AuditResult", "RateResult", "ImpactResult",
-            "Certificate", "TailFit", "ReportResult", "DemoResult")
+_COMMANDS = (
+    "simulate",
+    "validate",
+    "fit",
+    "compare",
+    "tabulate",
+    "audit",
+    "rate",
+    "impact",
+    "certify",
+    "tails",
+    "report",
+    "demo",
+)
+_RESULTS = (
+    "SimulationResult",
+    "Comparison",
+    "TableResult",
+    "AuditResult",
+    "RateResult",
+    "ImpactResult",
+    "Certificate",
+    "TailFit",
+    "ReportResult",
+    "DemoResult",
+)
 _PUBLIC = {
     **{name: "premiumlab.api" for name in _COMMANDS},
     **{name: "premiumlab.results" for name in _RESULTS},

@@ -7,26 +7,50 @@ with ``to_dict()`` (`premiumlab.results`, `ValidationReport`, `Run`); none print
 `premiumlab._core.errors.InputError` (or `rating_tables.TableError`) with one line naming the file,
 column, row or key.
 """
+
 from __future__ import annotations
 
 from collections.abc import Sequence
 from pathlib import Path
 from typing import TYPE_CHECKING
 
-from premiumlab.results import (AuditResult, Certificate, Comparison, DemoResult, ImpactResult, RateResult,
-                                ReportResult, SimulationResult, TableResult, TailFit)
+from premiumlab.results import (
+    AuditResult,
+    Certificate,
+    Comparison,
+    DemoResult,
+    ImpactResult,
+    RateResult,
+    ReportResult,
+    SimulationResult,
+    TableResult,
+    TailFit,
+)
 
 if TYPE_CHECKING:
     from premiumlab._core.progress import Progress
     from premiumlab.book.validate import ValidationReport
     from premiumlab.runs.fit import Run
 
-__all__ = ["simulate", "validate", "fit", "compare", "tabulate", "audit", "rate", "impact", "certify", "tails",
-           "report", "demo"]
+__all__ = [
+    "audit",
+    "certify",
+    "compare",
+    "demo",
+    "fit",
+    "impact",
+    "rate",
+    "report",
+    "simulate",
+    "tabulate",
+    "tails",
+    "validate",
+]
 
 
-def simulate(scenario: str | Path, *, out: str | Path, policies: int | None = None, seed: int | None = None,
-             force: bool = False) -> SimulationResult:
+def simulate(
+    scenario: str | Path, *, out: str | Path, policies: int | None = None, seed: int | None = None, force: bool = False
+) -> SimulationResult:
     """Write a synthetic book from an invented scenario, with truth.json beside it.
 
     Parameters
@@ -50,13 +74,21 @@ def simulate(scenario: str | Path, *, out: str | Path, policies: int | None = No
     from premiumlab._core.outputs import atomic_files
     from premiumlab.simulation.simulator import TRUTH_FILE
     from premiumlab.simulation.simulator import simulate as simulate_book
+
     out = Path(out)
     truth = out.parent / TRUTH_FILE
     with atomic_files([out, truth], force=force, inputs=(scenario,)) as tmp:
         summary = simulate_book(scenario, tmp / out.name, policies=policies, seed=seed)
-    return SimulationResult(book=out, truth=truth, policies=summary["policies"], rows=summary["rows"],
-                            claims=summary["claims"], large_claims=summary["large_claims"],
-                            exposure=summary["exposure"], claim_amount=summary["claim_amount"])
+    return SimulationResult(
+        book=out,
+        truth=truth,
+        policies=summary["policies"],
+        rows=summary["rows"],
+        claims=summary["claims"],
+        large_claims=summary["large_claims"],
+        exposure=summary["exposure"],
+        claim_amount=summary["claim_amount"],
+    )
 
 
 def validate(book: str | Path, *, spec: str | Path, cluster: str | None = None) -> ValidationReport:
@@ -79,11 +111,20 @@ def validate(book: str | Path, *, spec: str | Path, cluster: str | None = None) 
         amount / exposure), None when the book has errors.
     """
     from premiumlab.book.validate import validate_book
+
     return validate_book(book, spec, cluster=cluster)
 
 
-def fit(book: str | Path, *, spec: str | Path, out: str | Path, models: str = "glm,gbm",
-        cluster: str | None = None, force: bool = False, progress: Progress | None = None) -> Run:
+def fit(
+    book: str | Path,
+    *,
+    spec: str | Path,
+    out: str | Path,
+    models: str = "glm,gbm",
+    cluster: str | None = None,
+    force: bool = False,
+    progress: Progress | None = None,
+) -> Run:
     """Fit GLM baselines and boosted models on the training part; write the run directory.
 
     Parameters
@@ -110,6 +151,7 @@ def fit(book: str | Path, *, spec: str | Path, out: str | Path, models: str = "g
     """
     from premiumlab.runs.fit import fit as fit_run
     from premiumlab.runs.fit import open_run
+
     return open_run(fit_run(book, spec, out, models=models, force=force, progress=progress, cluster=cluster))
 
 
@@ -127,11 +169,13 @@ def compare(run: str | Path) -> Comparison:
         Holdout metrics, paired bootstrap differences, lift, double lift and actual vs expected.
     """
     from premiumlab.review.comparison import compare as compare_run
+
     return Comparison.from_summary(compare_run(run))
 
 
-def tabulate(run: str | Path, *, out: str | Path, model: str = "gbm", book: str | Path | None = None,
-             force: bool = False) -> TableResult:
+def tabulate(
+    run: str | Path, *, out: str | Path, model: str = "gbm", book: str | Path | None = None, force: bool = False
+) -> TableResult:
     """Distil a run's model into a banded multiplicative rating table, with its fidelity.
 
     Parameters
@@ -153,6 +197,7 @@ def tabulate(run: str | Path, *, out: str | Path, model: str = "gbm", book: str 
         The folder, the rate level, the fidelity (deviance, Gini, retention) and the cautions.
     """
     from premiumlab.tabulation.from_run import tabulate as tabulate_run
+
     return TableResult.from_summary(tabulate_run(run, out, model=model, force=force, book=book))
 
 
@@ -174,11 +219,19 @@ def audit(table: str | Path, *, spec: str | Path | None = None, run: str | Path 
         Every violation as one line (none: the checks passed, which is not an approval).
     """
     from premiumlab.apply.audit import audit_table
+
     return audit_table(table, spec, run)
 
 
-def rate(table: str | Path, book: str | Path, *, out: str | Path, exposure: str = "exposure",
-         annual: bool = False, force: bool = False) -> RateResult:
+def rate(
+    table: str | Path,
+    book: str | Path,
+    *,
+    out: str | Path,
+    exposure: str = "exposure",
+    annual: bool = False,
+    force: bool = False,
+) -> RateResult:
     """Rate policies with a table: pure and gross premium and the build-up columns.
 
     Parameters
@@ -202,12 +255,23 @@ def rate(table: str | Path, book: str | Path, *, out: str | Path, exposure: str 
         The priced file and the table's cautions.
     """
     from premiumlab.apply.rate import rate_book
+
     return rate_book(table, book, out, exposure, annual, force=force)
 
 
-def impact(book: str | Path, *, current: str | Path, proposed: str | Path, cap: float | None = None,
-           exposure: str = "exposure", annual: bool = False, thresholds: str | Sequence[float] = "0.05,0.10,0.25",
-           out: str | Path | None = None, figure: str | Path | None = None, force: bool = False) -> ImpactResult:
+def impact(
+    book: str | Path,
+    *,
+    current: str | Path,
+    proposed: str | Path,
+    cap: float | None = None,
+    exposure: str = "exposure",
+    annual: bool = False,
+    thresholds: str | Sequence[float] = "0.05,0.10,0.25",
+    out: str | Path | None = None,
+    figure: str | Path | None = None,
+    force: bool = False,
+) -> ImpactResult:
     """Premium dislocation from the current to the proposed rates, optionally capped.
 
     Parameters
@@ -240,9 +304,15 @@ def impact(book: str | Path, *, current: str | Path, proposed: str | Path, cap: 
         the thresholds, change by factor level, the largest increases and the capping figures.
     """
     from premiumlab.apply.impact import dislocation, parse_thresholds, write_impact
+
     result = dislocation(str(current), str(proposed), book, exposure, annual, cap, parse_thresholds(thresholds))
-    write_impact(result, None if out is None else Path(out), None if figure is None else Path(figure), force,
-                 inputs=(book, proposed, current))
+    write_impact(
+        result,
+        None if out is None else Path(out),
+        None if figure is None else Path(figure),
+        force,
+        inputs=(book, proposed, current),
+    )
     return result
 
 
@@ -265,11 +335,18 @@ def certify(model: str | Path, *, factor: str | int, direction: str) -> Certific
         possible input).
     """
     from premiumlab.apply.audit import certify_model_file
+
     return certify_model_file(model, factor, direction)
 
 
-def tails(book: str | Path, *, spec: str | Path, threshold: float | None = None, figure: str | Path | None = None,
-          force: bool = False) -> TailFit:
+def tails(
+    book: str | Path,
+    *,
+    spec: str | Path,
+    threshold: float | None = None,
+    figure: str | Path | None = None,
+    force: bool = False,
+) -> TailFit:
     """Large-loss threshold aid: mean excess by threshold and a generalised Pareto fit above U.
 
     Parameters
@@ -292,6 +369,7 @@ def tails(book: str | Path, *, spec: str | Path, threshold: float | None = None,
         e(u) = mean of (x - u) over the losses x > u.
     """
     from premiumlab.experience.tails import threshold_aid
+
     return threshold_aid(book, spec, threshold, figure=figure, force=force)
 
 
@@ -309,11 +387,18 @@ def report(run: str | Path) -> ReportResult:
         The report's path.
     """
     from premiumlab.review.report import write_report
+
     return ReportResult(report=write_report(run))
 
 
-def demo(*, out: str | Path = "demo-output", policies: int | None = None, cluster: str | None = None,
-         force: bool = False, progress: Progress | None = None) -> DemoResult:
+def demo(
+    *,
+    out: str | Path = "demo-output",
+    policies: int | None = None,
+    cluster: str | None = None,
+    force: bool = False,
+    progress: Progress | None = None,
+) -> DemoResult:
     """Run the whole job on the built-in motor scenario.
 
     Parameters
@@ -335,4 +420,5 @@ def demo(*, out: str | Path = "demo-output", policies: int | None = None, cluste
         The folder, the files written in it and the table's cautions.
     """
     from premiumlab.demo_job import run_demo
+
     return run_demo(out, policies=policies, force=force, progress=progress, cluster=cluster)

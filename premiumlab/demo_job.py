@@ -6,6 +6,7 @@ report.html), table/ (distilled from the boosted model, with its two-way table),
 GLM's relativities), priced.parquet (the book rated with table/), impact.json and impact.png (dislocation
 from the GLM table to the distilled one).
 """
+
 from __future__ import annotations
 
 from importlib import resources
@@ -33,8 +34,13 @@ def scenario_file(name: str) -> Path:
     return Path(str(resources.files("premiumlab.scenarios").joinpath(name)))
 
 
-def run_demo(out: str | Path, policies: int | None = None, force: bool = False,
-             progress: Progress | None = None, cluster: str | None = None) -> DemoResult:
+def run_demo(
+    out: str | Path,
+    policies: int | None = None,
+    force: bool = False,
+    progress: Progress | None = None,
+    cluster: str | None = None,
+) -> DemoResult:
     """Simulate the motor book, then fit, compare, tabulate, audit, rate and measure the impact.
 
     Parameters
@@ -74,8 +80,9 @@ def run_demo(out: str | Path, policies: int | None = None, force: bool = False,
     report = progress if progress is not None else Silent()
     with atomic_output(out, force=force) as tmp:
         book, spec = tmp / "book.parquet", tmp / "spec.toml"
-        spec.write_text(scenario_file(f"{SCENARIO}_spec.toml").read_text(encoding="utf-8") + DEMO_SEARCH,
-                        encoding="utf-8")
+        spec.write_text(
+            scenario_file(f"{SCENARIO}_spec.toml").read_text(encoding="utf-8") + DEMO_SEARCH, encoding="utf-8"
+        )
         sim = simulate(scenario_file(f"{SCENARIO}.toml"), book, policies=policies)
         report.step(f"[1/7] simulated {sim['policies']} policies ({sim['rows']} rows) of an invented motor book")
         run = fit(book, spec, tmp / "run", progress=progress, cluster=cluster)
@@ -90,13 +97,15 @@ def run_demo(out: str | Path, policies: int | None = None, force: bool = False,
         report.step("\n".join(audit.violations) if audit.violations else "[5/7] audit: no violations in table/")
         rate_book(tmp / "table", book, tmp / "priced.parquet", "exposure", annual=False)
         report.step("[6/7] rated the book into priced.parquet")
-        impact = dislocation(str(tmp / "glm_table"), str(tmp / "table"), book, "exposure", False, 0.15,
-                             (0.05, 0.10, 0.25))
+        impact = dislocation(
+            str(tmp / "glm_table"), str(tmp / "table"), book, "exposure", False, 0.15, (0.05, 0.10, 0.25)
+        )
         write_json(tmp / "impact.json", impact.to_dict())
         plot_impact(impact.to_dict(), tmp / "impact.png")
         report.result(impact)
         write_report(run)
-        report.step("[7/7] impact of moving from the GLM table written to impact.json and impact.png; report in "
-                    "run/report.html")
+        report.step(
+            "[7/7] impact of moving from the GLM table written to impact.json and impact.png; report in run/report.html"
+        )
         files = tuple(sorted(p.relative_to(tmp).as_posix() for p in tmp.rglob("*") if p.is_file()))
     return DemoResult(out=out, files=files, cautions=table.cautions)

@@ -4,8 +4,10 @@
 (`premiumlab.runs.fit.Run`, as `open_run` gives it); the other commands' results are here. Nested
 figures (metrics, bands, relativities) are the plain dicts and lists the commands also write to JSON.
 """
+
 from __future__ import annotations
 
+from collections.abc import Mapping
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -68,10 +70,16 @@ class Comparison(Result):
     @classmethod
     def from_summary(cls, summary: dict) -> Comparison:
         """The result of `premiumlab.review.comparison.compare`'s summary dict."""
-        return cls(holdout_rows=summary["holdout_rows"], tweedie_power=summary["tweedie_power"],
-                   metrics=summary["metrics"], differences=summary["differences"], lift=summary["lift"],
-                   double_lift=summary["double_lift"], actual_vs_expected=summary["actual_vs_expected"],
-                   cautions=tuple(summary["cautions"]))
+        return cls(
+            holdout_rows=summary["holdout_rows"],
+            tweedie_power=summary["tweedie_power"],
+            metrics=summary["metrics"],
+            differences=summary["differences"],
+            lift=summary["lift"],
+            double_lift=summary["double_lift"],
+            actual_vs_expected=summary["actual_vs_expected"],
+            cautions=tuple(summary["cautions"]),
+        )
 
 
 @dataclass(frozen=True)
@@ -95,9 +103,15 @@ class TableResult(Result):
     @classmethod
     def from_summary(cls, summary: dict) -> TableResult:
         """The result of `premiumlab.tabulation.from_run.tabulate`'s summary dict."""
-        return cls(table=Path(summary["table"]), provenance=summary["provenance"], fidelity=summary["fidelity"],
-                   rate_level=summary["rate_level"], distillation=summary["distillation"],
-                   cautions=tuple(summary["cautions"]), seconds=summary["seconds"])
+        return cls(
+            table=Path(summary["table"]),
+            provenance=summary["provenance"],
+            fidelity=summary["fidelity"],
+            rate_level=summary["rate_level"],
+            distillation=summary["distillation"],
+            cautions=tuple(summary["cautions"]),
+            seconds=summary["seconds"],
+        )
 
 
 @dataclass(frozen=True)
@@ -161,7 +175,7 @@ class Certificate(Result):
     violation_count: int
     max_violation: float
     trees_with_violations: tuple[int, ...]
-    violations: tuple[dict, ...]
+    violations: tuple[Mapping[str, Any], ...]
     cautions: tuple[str, ...]
 
 

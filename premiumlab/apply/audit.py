@@ -1,5 +1,6 @@
 """`audit` and `certify`: a table's checks and promises, and the boosted models' certificates
 re-checked from their text files alone."""
+
 from __future__ import annotations
 
 from pathlib import Path
@@ -27,11 +28,12 @@ def audit_table(table_dir: str | Path, spec_path: str | Path | None, run_dir: st
         The violations, in the order found, and the draft caution (a clean audit is not an approval).
     """
     import rating_tables
-
     from premiumlab._core.cautions import DRAFT
+
     promises = None
     if spec_path is not None:
         from premiumlab.book.spec import load_spec
+
         spec = load_spec(spec_path)
         promises = {f.name: f.monotone for f in spec.factors if f.monotone != "none"}
     found = [str(v) for v in rating_tables.audit_path(table_dir, promises=promises)]
@@ -44,6 +46,7 @@ def certificate_violations(run_dir: str | Path) -> list[str]:
     """Re-certify the run's constrained boosted models from their text files alone."""
     from premiumlab._core.jsonio import read_json
     from premiumlab.models.trees.certificate import certify
+
     models = Path(run_dir) / "models"
     if not models.is_dir():
         raise InputError(f"{run_dir}: not a run directory (no models/)")
@@ -54,8 +57,10 @@ def certificate_violations(run_dir: str | Path) -> list[str]:
         for name, direction in meta.get("monotone", {}).items():
             cert = certify(text, name, int(direction))
             if cert["violation_count"]:
-                out.append(f"certificate: {meta_path.stem} breaks the {name} promise in "
-                           f"{cert['violation_count']} leaf pairs (largest reversal {cert['max_violation']:.6g})")
+                out.append(
+                    f"certificate: {meta_path.stem} breaks the {name} promise in "
+                    f"{cert['violation_count']} leaf pairs (largest reversal {cert['max_violation']:.6g})"
+                )
     return out
 
 
@@ -78,6 +83,7 @@ def certify_model_file(model: str | Path, factor: str | int, direction: str) -> 
     """
     from premiumlab._core.cautions import DRAFT
     from premiumlab.models.trees.certificate import certify
+
     if direction not in (Monotone.INCREASING, Monotone.DECREASING):
         raise InputError(f"--direction: '{direction}' must be increasing or decreasing")
     model = Path(model)
@@ -90,10 +96,18 @@ def certify_model_file(model: str | Path, factor: str | int, direction: str) -> 
         cert = certify(text, feature, Monotone(direction).sign)
     except InputError as e:
         raise InputError(f"{model}: {e}") from None
-    return Certificate(model=model, feature=cert["feature"], feature_index=cert["feature_index"],
-                       direction=cert["direction"], monotone=cert["monotone"], trees_checked=cert["trees_checked"],
-                       trees_splitting_on_feature=cert["trees_splitting_on_feature"],
-                       leaf_pairs_checked=cert["leaf_pairs_checked"], violation_count=cert["violation_count"],
-                       max_violation=cert["max_violation"],
-                       trees_with_violations=tuple(cert["trees_with_violations"]),
-                       violations=tuple(cert["violations"]), cautions=(DRAFT,))
+    return Certificate(
+        model=model,
+        feature=cert["feature"],
+        feature_index=cert["feature_index"],
+        direction=cert["direction"],
+        monotone=cert["monotone"],
+        trees_checked=cert["trees_checked"],
+        trees_splitting_on_feature=cert["trees_splitting_on_feature"],
+        leaf_pairs_checked=cert["leaf_pairs_checked"],
+        violation_count=cert["violation_count"],
+        max_violation=cert["max_violation"],
+        trees_with_violations=tuple(cert["trees_with_violations"]),
+        violations=tuple(cert["violations"]),
+        cautions=(DRAFT,),
+    )

@@ -1,4 +1,5 @@
 """`impact`: the premium dislocation from the current to the proposed rates, and its outputs."""
+
 from __future__ import annotations
 
 from collections.abc import Sequence
@@ -16,6 +17,7 @@ COLUMN_PREFIX = "column:"
 def read_frame(path: str | Path) -> pd.DataFrame:
     """A whole book as a DataFrame (CSV values as strings, so "01" stays "01"), for `impact`."""
     from premiumlab.book.data import iter_book, read_columns
+
     columns = read_columns(path)
     parts = [chunk for _, chunk in iter_book(path, columns)]
     if not parts:
@@ -25,25 +27,35 @@ def read_frame(path: str | Path) -> pd.DataFrame:
 
 def column_premiums(source: str, frame: pd.DataFrame) -> np.ndarray:
     """Premiums per policy from the book column named by `source` (`column:NAME`), all > 0."""
-    name = source[len(COLUMN_PREFIX):]
+    name = source[len(COLUMN_PREFIX) :]
     if name not in frame.columns:
         raise InputError(f"{source}: the book has no column '{name}'")
     values = pd.to_numeric(frame[name], errors="coerce").to_numpy(float)
     bad = np.flatnonzero(~(np.isfinite(values) & (values > 0)))
     if bad.size:
-        raise InputError(f"column '{name}': {bad.size} rows with a missing or non-positive premium "
-                         f"(rows {', '.join(map(str, bad[:5]))})")
+        raise InputError(
+            f"column '{name}': {bad.size} rows with a missing or non-positive premium "
+            f"(rows {', '.join(map(str, bad[:5]))})"
+        )
     return values
 
 
 def gross_premiums(table, frame: pd.DataFrame, exposure: str | None, annual: bool) -> np.ndarray:
     """Gross premiums per policy rated with a loaded table."""
     import rating_tables
+
     return rating_tables.rate(table, frame, None if annual else exposure, annual=annual)["gross_premium"].to_numpy()
 
 
-def dislocation(current: str, proposed: str, book: str | Path, exposure: str | None, annual: bool,
-                cap: float | None, thresholds: tuple[float, ...]) -> ImpactResult:
+def dislocation(
+    current: str,
+    proposed: str,
+    book: str | Path,
+    exposure: str | None,
+    annual: bool,
+    cap: float | None,
+    thresholds: tuple[float, ...],
+) -> ImpactResult:
     """Per-policy change from `current` to `proposed` premiums (tables or `column:NAME`); each
     table is loaded once.
 
@@ -70,6 +82,7 @@ def dislocation(current: str, proposed: str, book: str | Path, exposure: str | N
         `rating_tables.impact`'s summary with the proposed table's cautions.
     """
     import rating_tables
+
     if proposed.startswith(COLUMN_PREFIX):
         raise InputError(f"--proposed {proposed}: the proposed premium must come from a table folder")
     frame = read_frame(book)
@@ -80,13 +93,26 @@ def dislocation(current: str, proposed: str, book: str | Path, exposure: str | N
         current_table = rating_tables.load(current)
         tables, now = [table, current_table], gross_premiums(current_table, frame, exposure, annual)
     groups = impact_groups(frame, tables)
-    result = rating_tables.impact(now, gross_premiums(table, frame, exposure, annual), groups,
-                                  list(groups.columns), thresholds=thresholds, cap=cap)
-    return ImpactResult(policies=result["policies"], total_current=result["total_current"],
-                        total_proposed=result["total_proposed"], overall_change=result["overall_change"],
-                        bands=tuple(result["bands"]), above_thresholds=tuple(result["above_thresholds"]),
-                        by_factor=result["by_factor"], largest_increases=tuple(result["largest_increases"]),
-                        capping=result["capping"], cautions=tuple(table.cautions))
+    result = rating_tables.impact(
+        now,
+        gross_premiums(table, frame, exposure, annual),
+        groups,
+        list(groups.columns),
+        thresholds=thresholds,
+        cap=cap,
+    )
+    return ImpactResult(
+        policies=result["policies"],
+        total_current=result["total_current"],
+        total_proposed=result["total_proposed"],
+        overall_change=result["overall_change"],
+        bands=tuple(result["bands"]),
+        above_thresholds=tuple(result["above_thresholds"]),
+        by_factor=result["by_factor"],
+        largest_increases=tuple(result["largest_increases"]),
+        capping=result["capping"],
+        cautions=tuple(table.cautions),
+    )
 
 
 def impact_groups(frame: pd.DataFrame, tables: list) -> pd.DataFrame:
@@ -94,6 +120,7 @@ def impact_groups(frame: pd.DataFrame, tables: list) -> pd.DataFrame:
     proposed first, so a factor the proposed table drops is still shown), a numeric factor cut into
     the bands of the first table that has it, a categorical factor as it is."""
     from rating_tables.table import NumericFactor, band_index
+
     columns = {}
     for table in tables:
         for f in table.main_factors:
@@ -101,20 +128,23 @@ def impact_groups(frame: pd.DataFrame, tables: list) -> pd.DataFrame:
                 continue
             if isinstance(f, NumericFactor):
                 values = pd.to_numeric(frame[f.name], errors="coerce").to_numpy(float)
-                columns[f.name] = pd.Categorical.from_codes(band_index(f.lower, values), categories=f.labels(),
-                                                            ordered=True)
+                columns[f.name] = pd.Categorical.from_codes(
+                    band_index(f.lower, values), categories=f.labels(), ordered=True
+                )
             else:
                 columns[f.name] = frame[f.name].to_numpy()
     return pd.DataFrame(columns)
 
 
-def write_impact(result: ImpactResult, out: Path | None, figure: Path | None, force: bool,
-                 inputs: tuple[str | Path, ...]) -> None:
+def write_impact(
+    result: ImpactResult, out: Path | None, figure: Path | None, force: bool, inputs: tuple[str | Path, ...]
+) -> None:
     """Write the impact summary as JSON to `out` and its figure (`figures.plot_impact`) to `figure`,
     both or neither."""
-    from premiumlab.evaluation.figures import plot_impact
     from premiumlab._core.jsonio import write_json
     from premiumlab._core.outputs import atomic_files
+    from premiumlab.evaluation.figures import plot_impact
+
     targets = [t for t in (out, figure) if t is not None]
     if not targets:
         return
@@ -133,8 +163,11 @@ def parse_thresholds(thresholds: str | Sequence[float]) -> tuple[float, ...]:
     """'0.05,0.1' or (0.05, 0.1) -> (0.05, 0.1): the increases whose shares `impact` reports; at
     least one, every one finite."""
     try:
-        values = tuple(float(t) for t in (thresholds.split(",") if isinstance(thresholds, str) else thresholds)
-                       if not isinstance(t, str) or t.strip())
+        values = tuple(
+            float(t)
+            for t in (thresholds.split(",") if isinstance(thresholds, str) else thresholds)
+            if not isinstance(t, str) or t.strip()
+        )
     except (TypeError, ValueError):
         raise InputError(f"--thresholds: '{thresholds}' must be numbers separated by commas, e.g. 0.05,0.10") from None
     if not values or not all(np.isfinite(values)):

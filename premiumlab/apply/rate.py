@@ -1,4 +1,5 @@
 """`rate`: price a book with a filed table into a CSV or Parquet file."""
+
 from __future__ import annotations
 
 from pathlib import Path
@@ -6,8 +7,9 @@ from pathlib import Path
 from premiumlab.results import RateResult
 
 
-def rate_book(table_dir: str | Path, book: str | Path, out: str | Path, exposure: str | None,
-              annual: bool, force: bool = False) -> RateResult:
+def rate_book(
+    table_dir: str | Path, book: str | Path, out: str | Path, exposure: str | None, annual: bool, force: bool = False
+) -> RateResult:
     """Rate `book` with the table into `out` (CSV or Parquet by extension), atomically.
 
     Parameters
@@ -32,9 +34,11 @@ def rate_book(table_dir: str | Path, book: str | Path, out: str | Path, exposure
     """
     import rating_tables
     from premiumlab._core.outputs import atomic_files
+
     table = rating_tables.load(table_dir)
     out = Path(out)
     with atomic_files([out], force=force, inputs=(book, table_dir)) as tmp:
-        cautions = rating_tables.rate_file(table, book, tmp / out.name, exposure_column=None if annual else exposure,
-                                           annual=annual)
+        cautions = rating_tables.rate_file(
+            table, book, tmp / out.name, exposure_column=None if annual else exposure, annual=annual
+        )
     return RateResult(priced=out, cautions=tuple(cautions))
