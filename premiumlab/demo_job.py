@@ -6,14 +6,16 @@ report.html), table/ (distilled from the boosted model, with its two-way table),
 GLM's relativities), priced.parquet (the book rated with table/), impact.json and impact.png (dislocation
 from the GLM table to the distilled one).
 """
+
 from __future__ import annotations
 
 from importlib import resources
 from pathlib import Path
-from typing import Callable
 
 from premiumlab._core.cluster import parse_cluster
 from premiumlab._core.outputs import check_target
+from premiumlab._core.progress import Progress, Silent
+from premiumlab.results import Comparison, DemoResult, TableResult
 
 SCENARIO = "motor"
 #: The demo's boosted-model search: 3 folds x 4 settings instead of the default 5 x 8, which takes
@@ -32,16 +34,42 @@ def scenario_file(name: str) -> Path:
     return Path(str(resources.files("premiumlab.scenarios").joinpath(name)))
 
 
-def run_demo(out: str | Path, policies: int | None = None, force: bool = False,
-             echo: Callable[[str], None] = print, cluster: str | None = None) -> Path:
-    """Simulate the motor book, then fit, compare, tabulate, audit, rate and measure the impact."""
-    from premiumlab.review.comparison import compare, summary_lines
-    from premiumlab.evaluation.figures import plot_impact
+def run_demo(
+    out: str | Path,
+    policies: int | None = None,
+    force: bool = False,
+    progress: Progress | None = None,
+    cluster: str | None = None,
+) -> DemoResult:
+    """Simulate the motor book, then fit, compare, tabulate, audit, rate and measure the impact.
+
+    Parameters
+    ----------
+    out : str or Path
+        Folder for the demo outputs (see the module docstring); written atomically.
+    policies : int or None
+        Policies in the demo book (None: the scenario's number).
+    force : bool
+        Replace an existing `out`.
+    progress : Progress or None
+        Told each step as it is done and the comparison, table and impact results (None: silent).
+    cluster : str or None
+        Where the boosted-model search runs (premiumlab._core.cluster: local:N or a scheduler address).
+
+    Returns
+    -------
+    DemoResult
+        The folder, the files written in it and the distilled table's cautions.
+    """
     from premiumlab._core.jsonio import write_json
     from premiumlab._core.outputs import atomic_output
-    from premiumlab.runs.fit import fit
-    from premiumlab.apply.glue import (audit_table, dislocation, fidelity_lines, impact_lines, rate_book)
+    from premiumlab.apply.audit import audit_table
+    from premiumlab.apply.impact import dislocation
+    from premiumlab.apply.rate import rate_book
+    from premiumlab.evaluation.figures import plot_impact
+    from premiumlab.review.comparison import compare
     from premiumlab.review.report import write_report
+    from premiumlab.runs.fit import fit
     from premiumlab.simulation.simulator import simulate
     from premiumlab.tabulation.from_run import tabulate
 
@@ -49,33 +77,35 @@ def run_demo(out: str | Path, policies: int | None = None, force: bool = False,
     check_target(out, force)
     if cluster is not None:
         parse_cluster(cluster)
+    report = progress if progress is not None else Silent()
     with atomic_output(out, force=force) as tmp:
         book, spec = tmp / "book.parquet", tmp / "spec.toml"
-        spec.write_text(scenario_file(f"{SCENARIO}_spec.toml").read_text(encoding="utf-8") + DEMO_SEARCH,
-                        encoding="utf-8")
+        spec.write_text(
+            scenario_file(f"{SCENARIO}_spec.toml").read_text(encoding="utf-8") + DEMO_SEARCH, encoding="utf-8"
+        )
         sim = simulate(scenario_file(f"{SCENARIO}.toml"), book, policies=policies)
-        echo(f"[1/7] simulated {sim['policies']} policies ({sim['rows']} rows) of an invented motor book")
-        run = fit(book, spec, tmp / "run", progress=True, cluster=cluster)
-        echo("[2/7] fitted GLM baselines and boosted models")
-        echo("\n".join(summary_lines(compare(run))))
-        echo("[3/7] compared on the holdout")
-        summary = tabulate(run, tmp / "table", model="gbm")
-        echo("\n".join(fidelity_lines(summary)))
+        report.step(f"[1/7] simulated {sim['policies']} policies ({sim['rows']} rows) of an invented motor book")
+        run = fit(book, spec, tmp / "run", progress=progress, cluster=cluster)
+        report.step("[2/7] fitted GLM baselines and boosted models")
+        report.result(Comparison.from_summary(compare(run)))
+        report.step("[3/7] compared on the holdout")
+        table = TableResult.from_summary(tabulate(run, tmp / "table", model="gbm"))
+        report.result(table)
         tabulate(run, tmp / "glm_table", model="glm")
-        echo("[4/7] distilled the boosted model into table/ and exported the GLM as glm_table/")
-        found = audit_table(tmp / "table", spec, run)
-        echo("\n".join(found) if found else "[5/7] audit: no violations in table/")
+        report.step("[4/7] distilled the boosted model into table/ and exported the GLM as glm_table/")
+        audit = audit_table(tmp / "table", spec, run)
+        report.step("\n".join(audit.violations) if audit.violations else "[5/7] audit: no violations in table/")
         rate_book(tmp / "table", book, tmp / "priced.parquet", "exposure", annual=False)
-        echo("[6/7] rated the book into priced.parquet")
-        result = dislocation(str(tmp / "glm_table"), str(tmp / "table"), book, "exposure", False, 0.15,
-                             (0.05, 0.10, 0.25))
-        write_json(tmp / "impact.json", result)
-        plot_impact(result, tmp / "impact.png")
-        echo("\n".join(impact_lines(result)))
+        report.step("[6/7] rated the book into priced.parquet")
+        impact = dislocation(
+            str(tmp / "glm_table"), str(tmp / "table"), book, "exposure", False, 0.15, (0.05, 0.10, 0.25)
+        )
+        write_json(tmp / "impact.json", impact.to_dict())
+        plot_impact(impact.to_dict(), tmp / "impact.png")
+        report.result(impact)
         write_report(run)
-        echo("[7/7] impact of moving from the GLM table written to impact.json and impact.png; report in "
-             "run/report.html")
-        for c in summary["cautions"]:
-            echo(f"caution: {c}")
-    echo(f"demo written to {out}")
-    return out
+        report.step(
+            "[7/7] impact of moving from the GLM table written to impact.json and impact.png; report in run/report.html"
+        )
+        files = tuple(sorted(p.relative_to(tmp).as_posix() for p in tmp.rglob("*") if p.is_file()))
+    return DemoResult(out=out, files=files, cautions=table.cautions)

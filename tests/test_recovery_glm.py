@@ -22,8 +22,8 @@ ROOT = Path(__file__).resolve().parents[1]
 def recovery_run(tmp_path_factory):
     base = tmp_path_factory.mktemp("recovery")
     book = base / "book.parquet"
-    premiumlab.simulate(ROOT / "scenarios" / "motor_main_effects.toml", book)
-    premiumlab.fit(book, ROOT / "scenarios" / "motor_main_effects_spec.toml", base / "run", models="glm")
+    premiumlab.simulate(ROOT / "scenarios" / "motor_main_effects.toml", out=book)
+    premiumlab.fit(book, spec=ROOT / "scenarios" / "motor_main_effects_spec.toml", out=base / "run", models="glm")
     return base
 
 

@@ -31,9 +31,9 @@ def recovered(tmp_path_factory):
     base = tmp_path_factory.mktemp("table_recovery")
     book, spec = base / "book.parquet", base / "spec.toml"
     spec.write_text((ROOT / "scenarios" / "motor_main_effects_spec.toml").read_text() + QUICK_GBM)
-    premiumlab.simulate(ROOT / "scenarios" / "motor_main_effects.toml", book)
-    premiumlab.fit(book, spec, base / "run")
-    premiumlab.tabulate(base / "run", base / "table")
+    premiumlab.simulate(ROOT / "scenarios" / "motor_main_effects.toml", out=book)
+    premiumlab.fit(book, spec=spec, out=base / "run")
+    premiumlab.tabulate(base / "run", out=base / "table")
     frame = pd.read_parquet(book)
     rated = rating_tables.rate(rating_tables.load(base / "table"), frame, "exposure")
     truth = json.loads((base / "truth.json").read_text())["factors"]

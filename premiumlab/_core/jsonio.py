@@ -1,9 +1,10 @@
 """Deterministic JSON files: sorted keys where the writer asks, fixed float formatting, no NaN."""
 from __future__ import annotations
 
+import dataclasses
 import json
 import math
-from pathlib import Path
+from pathlib import Path, PurePath
 from typing import Any
 
 import numpy as np
@@ -12,7 +13,12 @@ from premiumlab._core.errors import InputError
 
 
 def plain(obj: Any) -> Any:
-    """Convert numpy scalars and arrays to plain Python; non-finite floats become None."""
+    """Convert numpy scalars and arrays to plain Python, dataclasses to dicts of their fields and
+    paths to strings; non-finite floats become None."""
+    if dataclasses.is_dataclass(obj) and not isinstance(obj, type):
+        return {f.name: plain(getattr(obj, f.name)) for f in dataclasses.fields(obj)}
+    if isinstance(obj, PurePath):
+        return str(obj)
     if isinstance(obj, dict):
         return {str(k): plain(v) for k, v in obj.items()}
     if isinstance(obj, (list, tuple)):

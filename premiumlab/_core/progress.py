@@ -1,9 +1,46 @@
-"""Progress of long steps: a rich bar on stderr, shown only when stderr is a terminal."""
+"""Progress of long jobs: the reporter a caller passes in, and the rich bar drawn on a terminal.
+
+Library code never prints: a job that has something to say as it goes (`fit`'s experience totals,
+the `demo`'s steps and their results) takes a `Progress` and the command line draws it.
+"""
 from __future__ import annotations
 
 import sys
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
+from typing import Protocol
+
+
+class Progress(Protocol):
+    """What a long job reports while it runs; pass None to a job to have it say nothing."""
+
+    def step(self, message: str) -> None:
+        """One line of text: a step is done, or a figure of it.
+
+        Parameters
+        ----------
+        message : str
+            The line, without a trailing newline (several lines are joined by newlines).
+        """
+
+    def result(self, value: object) -> None:
+        """A finished step's result (a `premiumlab.results` object), for the reporter to show.
+
+        Parameters
+        ----------
+        value : object
+            The result, e.g. a `Comparison` or a `TableResult`.
+        """
+
+
+class Silent:
+    """A `Progress` that says nothing: what a job reports to when its caller passed none."""
+
+    def step(self, message: str) -> None:
+        """Say nothing."""
+
+    def result(self, value: object) -> None:
+        """Show nothing."""
 
 
 @contextmanager

@@ -1,1 +1,1 @@
-"""Applying a rating table: `rate`, `impact` and `audit`, glue over `rating_tables`."""
+"""Applying a rating table over `rating_tables`: `rate`, `impact`, and `audit` with `certify`."""

@@ -7,13 +7,14 @@ from pathlib import Path
 import pandas as pd
 
 from premiumlab._core.cautions import VALIDATION
+from premiumlab._core.jsonio import plain
 from premiumlab._core.cluster import parse_cluster, tasks_on
 from premiumlab.book.scan import parquet_slices, profile, scan_book, with_quantile_bands
 from premiumlab.book.data import Finding, read_columns
 from premiumlab.book.spec import Spec, load_spec
 
 
-@dataclass
+@dataclass(frozen=True)
 class ValidationReport:
     """Findings (errors and warnings) and, when the book is usable, its profile."""
 
@@ -26,17 +27,18 @@ class ValidationReport:
     def errors(self) -> list[Finding]:
         return [f for f in self.findings if f.level == "error"]
 
-    def text(self) -> str:
-        lines = [f"{self.path}: {self.rows} rows, {len(self.errors)} error(s), "
-                 f"{len(self.findings) - len(self.errors)} warning(s)"]
-        lines += [f"  {f}" for f in self.findings]
-        if self.profile is not None:
-            with pd.option_context("display.width", 120, "display.max_columns", 10,
-                                   "display.float_format", "{:,.4g}".format):
-                for name, table in self.profile.items():
-                    lines += ["", f"profile: {name}", table.to_string()]
-        lines += [""] + [f"caution: {c}" for c in VALIDATION]
-        return "\n".join(lines)
+    @property
+    def cautions(self) -> tuple[str, ...]:
+        """The cautions of every validation: the draft, compliance and as-recorded cautions."""
+        return VALIDATION
+
+    def to_dict(self) -> dict:
+        """The report as JSON-able data: each profile table as rows of its level and figures."""
+        profile = None if self.profile is None else {
+            name: table.rename_axis("level").reset_index().astype({"level": str}).to_dict(orient="records")
+            for name, table in self.profile.items()}
+        return plain({"path": self.path, "rows": self.rows, "findings": self.findings, "profile": profile,
+                      "cautions": self.cautions})
 
 
 def validate_book(book_path: str | Path, spec_path: str | Path, cluster: str | None = None) -> ValidationReport:

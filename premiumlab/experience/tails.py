@@ -20,6 +20,7 @@ import numpy as np
 import pandas as pd
 
 from premiumlab._core.errors import InputError
+from premiumlab.results import TailFit
 
 #: Fewest exceedances the fit accepts (a maximum-likelihood fit on fewer says little).
 MIN_EXCEEDANCES = 10
@@ -50,7 +51,7 @@ def threshold_grid(losses: np.ndarray, points: int = GRID_POINTS) -> np.ndarray:
 
 
 @dataclass(frozen=True)
-class TailFit:
+class ParetoFit:
     """The generalised Pareto fit above `threshold` (money): shape xi, scale beta (money), the
     exceedances, and their share of the losses by number and by amount."""
 
@@ -63,7 +64,7 @@ class TailFit:
     share_of_amount: float
 
 
-def fit_tail(losses: np.ndarray, threshold: float) -> TailFit:
+def fit_tail(losses: np.ndarray, threshold: float) -> ParetoFit:
     """Maximum-likelihood generalised Pareto fit to the excesses over `threshold` (location 0)."""
     from scipy.stats import genpareto
     x = np.asarray(losses, dtype=float)
@@ -72,11 +73,11 @@ def fit_tail(losses: np.ndarray, threshold: float) -> TailFit:
         raise InputError(f"--threshold: {threshold:g} leaves {above.size} losses above it; the fit needs at "
                          f"least {MIN_EXCEEDANCES}: choose a lower threshold")
     shape, _, scale = genpareto.fit(above - threshold, floc=0.0)
-    return TailFit(threshold=float(threshold), exceedances=int(above.size), losses=int(x.size), shape=float(shape),
+    return ParetoFit(threshold=float(threshold), exceedances=int(above.size), losses=int(x.size), shape=float(shape),
                    scale=float(scale), share_of_losses=above.size / x.size, share_of_amount=float(above.sum() / x.sum()))
 
 
-def plot_tail(losses: np.ndarray, fit: TailFit, path: str | Path) -> Path:
+def plot_tail(losses: np.ndarray, fit: ParetoFit, path: str | Path) -> Path:
     """Two panels: the mean-excess plot (at up to PLOT_POINTS order statistics) with the threshold
     marked, and the empirical survival of the losses above the threshold against the fitted
     generalised Pareto survival (log scales)."""
@@ -144,9 +145,26 @@ def tail_losses(book_path: str | Path, spec_path: str | Path) -> tuple[np.ndarra
 
 
 def threshold_aid(book_path: str | Path, spec_path: str | Path, threshold: float | None = None,
-                  figure: str | Path | None = None, force: bool = False) -> dict:
+                  figure: str | Path | None = None, force: bool = False) -> TailFit:
     """The `tails` command: mean-excess table, the fit above `threshold` (default: the
-    DEFAULT_QUANTILE quantile of the losses) and optionally the figure; returns the summary."""
+    DEFAULT_QUANTILE quantile of the losses) and optionally the figure.
+
+    Parameters
+    ----------
+    book_path, spec_path : str or Path
+        The book and its pricing spec (the losses are those of `tail_losses`).
+    threshold : float or None
+        Threshold u (money); None for the DEFAULT_QUANTILE quantile of the losses.
+    figure : str or Path or None
+        Also write the mean-excess and tail figure here (.png).
+    force : bool
+        Replace an existing figure.
+
+    Returns
+    -------
+    TailFit
+        The fit above u, what the losses are, notes, the mean-excess table and the cautions.
+    """
     from premiumlab._core.cautions import DRAFT
     if threshold is not None and not (np.isfinite(threshold) and threshold >= 0):
         raise InputError(f"--threshold: {threshold!r} must be a finite amount >= 0")
@@ -165,19 +183,5 @@ def threshold_aid(book_path: str | Path, spec_path: str | Path, threshold: float
     if fit.shape >= 1.0:
         notes.append("shape >= 1: the fitted tail has no finite mean; a cap and an excess load from a longer "
                      "history are needed")
-    return {**asdict(fit), "basis": basis, "default_threshold": threshold is None, "notes": notes,
-            "mean_excess": table.to_dict(orient="records"), "cautions": [DRAFT]}
-
-
-def tail_lines(result: dict) -> list[str]:
-    """The summary as printed by `premiumlab tails`."""
-    lines = [f"losses: {result['losses']} ({result['basis']})",
-             f"threshold {result['threshold']:,.6g}{f' (the {DEFAULT_QUANTILE:.0%} quantile)' if result['default_threshold'] else ''}: "
-             f"{result['exceedances']} exceedances, {result['share_of_losses']:.2%} of the losses and "
-             f"{result['share_of_amount']:.2%} of the amount",
-             f"generalised Pareto above it: shape {result['shape']:.4f}, scale {result['scale']:,.6g}",
-             "mean excess by threshold:", f"  {'threshold':>14} {'exceedances':>12} {'mean excess':>14}"]
-    rows = result["mean_excess"]
-    for row in rows[:: max(1, len(rows) // 10)]:
-        lines.append(f"  {row['threshold']:>14,.6g} {row['exceedances']:>12d} {row['mean_excess']:>14,.6g}")
-    return lines + [f"note: {n}" for n in result["notes"]]
+    return TailFit(**asdict(fit), basis=basis, default_threshold=threshold is None, notes=tuple(notes),
+                   mean_excess=tuple(table.to_dict(orient="records")), cautions=(DRAFT,))

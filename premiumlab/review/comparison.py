@@ -110,20 +110,3 @@ def _cv_figures(run, fig_dir: Path, figures) -> None:
         table["leaves_x_rounds"] = leaves * table["rounds"]
         figures.plot_cv_curve(table, fig_dir / f"cv_{meta['target']}.png", complexity="leaves_x_rounds",
                               chosen=meta["cv"]["chosen"])
-
-
-def summary_lines(result: dict) -> list[str]:
-    """A compact text table of the holdout metrics and the differences with their intervals."""
-    lines = [f"holdout rows: {result['holdout_rows']}   Tweedie power: {result['tweedie_power']:.2f}",
-             f"{'target':<13} {'model':<18} {'mean dev':>11} {'D^2':>8} {'Gini':>8} {'balance':>8}"]
-    for target, block in result["metrics"].items():
-        for name, m in block["models"].items():
-            lines.append(f"{target:<13} {name:<18} {m['mean_deviance']:>11.5g} {m['d2']:>8.4f} "
-                         f"{m['gini']:>8.4f} {m['balance']:>8.4f}")
-    lines.append("differences (paired bootstrap 95 % interval):")
-    for name, d in result["differences"].items():
-        dev, gin = d["deviance_reduction"], d["gini_gain"]
-        lines.append(f"  {name}: deviance reduction {dev['estimate']:.5g} [{dev['lower']:.5g}, "
-                     f"{dev['upper']:.5g}]; Gini gain {gin['estimate']:.4f} [{gin['lower']:.4f}, "
-                     f"{gin['upper']:.4f}]")
-    return lines

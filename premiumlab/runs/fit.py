@@ -8,7 +8,6 @@ from __future__ import annotations
 
 import os
 import platform
-import sys
 import time
 from pathlib import Path
 
@@ -20,6 +19,7 @@ from premiumlab._core.defaults import FALLBACK_TWEEDIE_POWER
 from premiumlab._core.errors import InputError
 from premiumlab._core.jsonio import write_json
 from premiumlab._core.outputs import atomic_output, check_target
+from premiumlab._core.progress import Progress
 from premiumlab.book.data import categorise, factor_levels
 from premiumlab.book.scan import load_book
 from premiumlab.book.spec import Spec, load_spec
@@ -57,11 +57,12 @@ def _versions() -> dict[str, str]:
 
 
 def fit(book_path: str | Path, spec_path: str | Path, out: str | Path, models: str = "glm,gbm",
-        force: bool = False, progress: bool = False, cluster: str | None = None) -> Path:
+        force: bool = False, progress: Progress | None = None, cluster: str | None = None) -> Path:
     """Fit the requested models on the training part of the book and write the run directory.
 
-    `cluster`: where the boosted-model search runs (premiumlab.cluster: None for this process,
-    local:N or a Dask scheduler address)."""
+    `progress`: told the experience step's totals (None: nothing is said). `cluster`: where the
+    boosted-model search runs (premiumlab.cluster: None for this process, local:N or a Dask
+    scheduler address)."""
     kinds = parse_models(models)
     if cluster is not None:
         parse_cluster(cluster)
@@ -73,7 +74,7 @@ def fit(book_path: str | Path, spec_path: str | Path, out: str | Path, models: s
 
 
 def _fit_run(book_path: str | Path, spec_path: str | Path, spec: Spec, out: Path, kinds: list[str], force: bool,
-             progress: bool, runner: TaskRunner) -> Path:
+             progress: Progress | None, runner: TaskRunner) -> Path:
     """`fit` once its inputs are checked and the boosted-model search's `runner` is ready."""
     timings: dict[str, float] = {}
     t0 = time.perf_counter()
@@ -98,10 +99,11 @@ def _fit_run(book_path: str | Path, spec_path: str | Path, spec: Spec, out: Path
         adjustment = adjust_book(book, spec, Path(spec_path).parent, periods, train)
         book = adjusted_book(book, adjustment)
         timings["experience_seconds"] = time.perf_counter() - t
-        if progress:
+        if progress is not None:
             totals = adjustment.record["totals"]["training"]
-            print(f"experience: training amounts {totals['amount_observed']:,.0f} -> {totals['amount_adjusted']:,.0f}, "
-                  f"counts {totals['count_observed']:,.0f} -> {totals['count_adjusted']:,.1f}", file=sys.stderr)
+            progress.step(f"experience: training amounts {totals['amount_observed']:,.0f} -> "
+                          f"{totals['amount_adjusted']:,.0f}, counts {totals['count_observed']:,.0f} -> "
+                          f"{totals['count_adjusted']:,.1f}")
     control = None
     if exp.period_control:
         control = period_control(periods, book.exposure, train, spec.columns.period)

@@ -21,7 +21,7 @@ from pathlib import Path
 import pandas as pd
 
 from premiumlab._core.errors import InputError
-from premiumlab._core.jsonio import read_json, write_json
+from premiumlab._core.jsonio import plain, read_json, write_json
 from premiumlab.book.data import Book, Levels
 from premiumlab.book.scan import load_book
 from premiumlab.book.spec import Spec, parse_spec
@@ -128,14 +128,18 @@ class RunDir:
         )
 
 
-@dataclass
+@dataclass(frozen=True)
 class Run:
-    """A run directory read back: its paths, manifest, spec and factor levels."""
+    """A run directory read back: its paths, manifest, spec and factor levels (what `fit` returns)."""
 
     files: RunDir
     manifest: dict
     spec: Spec
     levels: dict[str, Levels]
+
+    def to_dict(self) -> dict:
+        """The run as JSON-able data: its folder, run.json (the spec included) and levels."""
+        return plain({"path": self.path, "manifest": self.manifest, "levels": self.levels})
 
     @property
     def path(self) -> Path:

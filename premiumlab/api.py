@@ -1,0 +1,424 @@
+"""The Python API: one function per command, named and called as on the command line.
+
+What the command line takes as arguments is positional here, every option keyword-only with the
+command line's default, so ``premiumlab.fit("book.parquet", spec="spec.toml", out="run")`` is
+``premiumlab fit book.parquet --spec spec.toml --out run``. Each function returns a frozen dataclass
+with ``to_dict()`` (`premiumlab.results`, `ValidationReport`, `Run`); none prints. Bad input raises
+`premiumlab._core.errors.InputError` (or `rating_tables.TableError`) with one line naming the file,
+column, row or key.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from pathlib import Path
+from typing import TYPE_CHECKING
+
+from premiumlab.results import (
+    AuditResult,
+    Certificate,
+    Comparison,
+    DemoResult,
+    ImpactResult,
+    RateResult,
+    ReportResult,
+    SimulationResult,
+    TableResult,
+    TailFit,
+)
+
+if TYPE_CHECKING:
+    from premiumlab._core.progress import Progress
+    from premiumlab.book.validate import ValidationReport
+    from premiumlab.runs.rundir import Run
+
+__all__ = [
+    "audit",
+    "certify",
+    "compare",
+    "demo",
+    "fit",
+    "impact",
+    "rate",
+    "report",
+    "simulate",
+    "tabulate",
+    "tails",
+    "validate",
+]
+
+
+def simulate(
+    scenario: str | Path, *, out: str | Path, policies: int | None = None, seed: int | None = None, force: bool = False
+) -> SimulationResult:
+    """Write a synthetic book from an invented scenario, with truth.json beside it.
+
+    Parameters
+    ----------
+    scenario : str or Path
+        Scenario TOML file.
+    out : str or Path
+        Book to write (.csv or .parquet); truth.json (the true effects) goes in the same folder.
+    policies : int or None
+        Number of policies (None: the scenario's).
+    seed : int or None
+        Random seed (None: the scenario's).
+    force : bool
+        Replace existing outputs.
+
+    Returns
+    -------
+    SimulationResult
+        The paths written and the book's policies, rows, claims, exposure and claim amount.
+    """
+    from premiumlab._core.outputs import atomic_files
+    from premiumlab.simulation.simulator import TRUTH_FILE
+    from premiumlab.simulation.simulator import simulate as simulate_book
+
+    out = Path(out)
+    truth = out.parent / TRUTH_FILE
+    with atomic_files([out, truth], force=force, inputs=(scenario,)) as tmp:
+        summary = simulate_book(scenario, tmp / out.name, policies=policies, seed=seed)
+    return SimulationResult(
+        book=out,
+        truth=truth,
+        policies=summary["policies"],
+        rows=summary["rows"],
+        claims=summary["claims"],
+        large_claims=summary["large_claims"],
+        exposure=summary["exposure"],
+        claim_amount=summary["claim_amount"],
+    )
+
+
+def validate(book: str | Path, *, spec: str | Path, cluster: str | None = None) -> ValidationReport:
+    """Check a book against a spec: every finding, and a profile when the book has no errors.
+
+    Parameters
+    ----------
+    book : str or Path
+        Book (.csv, .parquet or a folder of parts).
+    spec : str or Path
+        Pricing spec TOML.
+    cluster : str or None
+        Check the slices of a Parquet book on Dask: local:N or a scheduler address.
+
+    Returns
+    -------
+    ValidationReport
+        Findings (`.errors` the errors among them) and the profile per level or band (exposure,
+        claims, amount, frequency = claims / exposure, severity = amount / claims, loss cost =
+        amount / exposure), None when the book has errors.
+    """
+    from premiumlab.book.validate import validate_book
+
+    return validate_book(book, spec, cluster=cluster)
+
+
+def fit(
+    book: str | Path,
+    *,
+    spec: str | Path,
+    out: str | Path,
+    models: str = "glm,gbm",
+    cluster: str | None = None,
+    force: bool = False,
+    progress: Progress | None = None,
+) -> Run:
+    """Fit GLM baselines and boosted models on the training part; write the run directory.
+
+    Parameters
+    ----------
+    book : str or Path
+        Book (.csv, .parquet or a folder of parts).
+    spec : str or Path
+        Pricing spec TOML.
+    out : str or Path
+        Run directory to write.
+    models : str
+        Model kinds, comma separated: glm, gbm.
+    cluster : str or None
+        Run the boosted-model search on Dask: local:N or a scheduler address.
+    force : bool
+        Replace an existing run directory.
+    progress : Progress or None
+        Told the experience step's totals (None: nothing is said).
+
+    Returns
+    -------
+    Run
+        The run directory read back (as `open_run` gives it).
+    """
+    from premiumlab.runs.fit import fit as fit_run
+    from premiumlab.runs.rundir import open_run
+
+    return open_run(fit_run(book, spec, out, models=models, force=force, progress=progress, cluster=cluster))
+
+
+def compare(run: str | Path) -> Comparison:
+    """Compare GLM and GBM on the holdout; write RUN/comparison.json and RUN/figures/.
+
+    Parameters
+    ----------
+    run : str or Path
+        Run directory written by `fit`.
+
+    Returns
+    -------
+    Comparison
+        Holdout metrics, paired bootstrap differences, lift, double lift and actual vs expected.
+    """
+    from premiumlab.review.comparison import compare as compare_run
+
+    return Comparison.from_summary(compare_run(run))
+
+
+def tabulate(
+    run: str | Path, *, out: str | Path, model: str = "gbm", book: str | Path | None = None, force: bool = False
+) -> TableResult:
+    """Distil a run's model into a banded multiplicative rating table, with its fidelity.
+
+    Parameters
+    ----------
+    run : str or Path
+        Run directory written by `fit`.
+    out : str or Path
+        Rating table folder to write.
+    model : str
+        gbm (distil the boosted model) or glm (export the Tweedie GLM's relativities).
+    book : str or Path or None
+        The run's book, if it has moved.
+    force : bool
+        Replace an existing table folder.
+
+    Returns
+    -------
+    TableResult
+        The folder, the rate level, the fidelity (deviance, Gini, retention) and the cautions.
+    """
+    from premiumlab.tabulation.from_run import tabulate as tabulate_run
+
+    return TableResult.from_summary(tabulate_run(run, out, model=model, force=force, book=book))
+
+
+def audit(table: str | Path, *, spec: str | Path | None = None, run: str | Path | None = None) -> AuditResult:
+    """Check promised directions, bands, relativities and base levels.
+
+    Parameters
+    ----------
+    table : str or Path
+        Rating table folder.
+    spec : str or Path or None
+        Spec whose monotone promises to check.
+    run : str or Path or None
+        Run whose boosted models to re-certify.
+
+    Returns
+    -------
+    AuditResult
+        Every violation as one line (none: the checks passed, which is not an approval).
+    """
+    from premiumlab.apply.audit import audit_table
+
+    return audit_table(table, spec, run)
+
+
+def rate(
+    table: str | Path,
+    book: str | Path,
+    *,
+    out: str | Path,
+    exposure: str = "exposure",
+    annual: bool = False,
+    force: bool = False,
+) -> RateResult:
+    """Rate policies with a table: pure and gross premium and the build-up columns.
+
+    Parameters
+    ----------
+    table : str or Path
+        Rating table folder.
+    book : str or Path
+        Book to rate (.csv, .parquet or a folder of parts).
+    out : str or Path
+        Priced file to write (.csv or .parquet).
+    exposure : str
+        The book's exposure column (years); the premium is the annual premium x exposure.
+    annual : bool
+        Price one full term per policy.
+    force : bool
+        Replace an existing priced file.
+
+    Returns
+    -------
+    RateResult
+        The priced file and the table's cautions.
+    """
+    from premiumlab.apply.rate import rate_book
+
+    return rate_book(table, book, out, exposure, annual, force=force)
+
+
+def impact(
+    book: str | Path,
+    *,
+    current: str | Path,
+    proposed: str | Path,
+    cap: float | None = None,
+    exposure: str = "exposure",
+    annual: bool = False,
+    thresholds: str | Sequence[float] = "0.05,0.10,0.25",
+    out: str | Path | None = None,
+    figure: str | Path | None = None,
+    force: bool = False,
+) -> ImpactResult:
+    """Premium dislocation from the current to the proposed rates, optionally capped.
+
+    Parameters
+    ----------
+    book : str or Path
+        Book of policies (no claim columns needed).
+    current : str or Path
+        Current table folder, or column:NAME for a premium column of the book.
+    proposed : str or Path
+        Proposed table folder.
+    cap : float or None
+        Cap each policy's change at +-cap (0.15 = 15 %).
+    exposure : str
+        The book's exposure column (years).
+    annual : bool
+        Compare one full term per policy.
+    thresholds : str or sequence of float
+        Increases to count, comma separated or as numbers (0.1 = 10 %).
+    out : str or Path or None
+        Also write the summary as JSON.
+    figure : str or Path or None
+        Also write the dislocation figure (.png).
+    force : bool
+        Replace existing outputs.
+
+    Returns
+    -------
+    ImpactResult
+        Totals, overall change = total proposed / total current - 1, change bands, shares above
+        the thresholds, change by factor level, the largest increases and the capping figures.
+    """
+    from premiumlab.apply.impact import dislocation, parse_thresholds, write_impact
+
+    result = dislocation(str(current), str(proposed), book, exposure, annual, cap, parse_thresholds(thresholds))
+    write_impact(
+        result,
+        None if out is None else Path(out),
+        None if figure is None else Path(figure),
+        force,
+        inputs=(book, proposed, current),
+    )
+    return result
+
+
+def certify(model: str | Path, *, factor: str | int, direction: str) -> Certificate:
+    """Certify from the model file alone that the raw score is monotone in a factor.
+
+    Parameters
+    ----------
+    model : str or Path
+        A LightGBM model in text format.
+    factor : str or int
+        Feature name (or 0-based index) promised monotone.
+    direction : str
+        increasing or decreasing.
+
+    Returns
+    -------
+    Certificate
+        Trees and leaf pairs checked and every violation (none: the score is monotone for every
+        possible input).
+    """
+    from premiumlab.apply.audit import certify_model_file
+
+    return certify_model_file(model, factor, direction)
+
+
+def tails(
+    book: str | Path,
+    *,
+    spec: str | Path,
+    threshold: float | None = None,
+    figure: str | Path | None = None,
+    force: bool = False,
+) -> TailFit:
+    """Large-loss threshold aid: mean excess by threshold and a generalised Pareto fit above U.
+
+    Parameters
+    ----------
+    book : str or Path
+        Book (.csv, .parquet or a folder of parts).
+    spec : str or Path
+        Pricing spec TOML (its claims file, if any, gives single claims).
+    threshold : float or None
+        Threshold U (money); None for the 90th percentile of the losses.
+    figure : str or Path or None
+        Also write the mean-excess and tail figure (.png).
+    force : bool
+        Replace an existing figure.
+
+    Returns
+    -------
+    TailFit
+        Shape xi and scale beta of the excesses over U, exceedances, and the mean-excess table
+        e(u) = mean of (x - u) over the losses x > u.
+    """
+    from premiumlab.experience.tails import threshold_aid
+
+    return threshold_aid(book, spec, threshold, figure=figure, force=force)
+
+
+def report(run: str | Path) -> ReportResult:
+    """Write RUN/report.html: one file with the comparison, figures, GLM tables and cautions.
+
+    Parameters
+    ----------
+    run : str or Path
+        Run directory written by `fit` (run `compare` first for the figures and intervals).
+
+    Returns
+    -------
+    ReportResult
+        The report's path.
+    """
+    from premiumlab.review.report import write_report
+
+    return ReportResult(report=write_report(run))
+
+
+def demo(
+    *,
+    out: str | Path = "demo-output",
+    policies: int | None = None,
+    cluster: str | None = None,
+    force: bool = False,
+    progress: Progress | None = None,
+) -> DemoResult:
+    """Run the whole job on the built-in motor scenario.
+
+    Parameters
+    ----------
+    out : str or Path
+        Folder for the demo outputs.
+    policies : int or None
+        Policies in the demo book (None: the scenario's).
+    cluster : str or None
+        Run the boosted-model search on Dask: local:N or a scheduler address.
+    force : bool
+        Replace an existing folder.
+    progress : Progress or None
+        Told each step and the comparison, table and impact results (None: nothing is said).
+
+    Returns
+    -------
+    DemoResult
+        The folder, the files written in it and the table's cautions.
+    """
+    from premiumlab.demo_job import run_demo
+
+    return run_demo(out, policies=policies, force=force, progress=progress, cluster=cluster)

@@ -1,0 +1,115 @@
+"""`audit` and `certify`: a table's checks and promises, and the boosted models' certificates
+re-checked from their text files alone."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from premiumlab._core.errors import InputError
+from premiumlab.results import AuditResult, Certificate
+from rating_tables.monotone import Monotone
+
+
+def audit_table(table_dir: str | Path, spec_path: str | Path | None, run_dir: str | Path | None) -> AuditResult:
+    """Every violation as one line: the table's own checks, the spec's promises, the run's certificate.
+
+    Parameters
+    ----------
+    table_dir : str or Path
+        Rating table folder.
+    spec_path : str or Path or None
+        Spec whose monotone promises the table must keep.
+    run_dir : str or Path or None
+        Run whose constrained boosted models are re-certified.
+
+    Returns
+    -------
+    AuditResult
+        The violations, in the order found, and the draft caution (a clean audit is not an approval).
+    """
+    import rating_tables
+    from premiumlab._core.cautions import DRAFT
+
+    promises = None
+    if spec_path is not None:
+        from premiumlab.book.spec import load_spec
+
+        spec = load_spec(spec_path)
+        promises = {f.name: f.monotone for f in spec.factors if f.monotone != "none"}
+    found = [str(v) for v in rating_tables.audit_path(table_dir, promises=promises)]
+    if run_dir is not None:
+        found += certificate_violations(run_dir)
+    return AuditResult(table=Path(table_dir), violations=tuple(found), cautions=(DRAFT,))
+
+
+def certificate_violations(run_dir: str | Path) -> list[str]:
+    """Re-certify the run's constrained boosted models from their text files alone."""
+    from premiumlab._core.jsonio import read_json
+    from premiumlab.models.trees.certificate import certify
+
+    from premiumlab.runs.rundir import RunDir, model_name
+
+    run = RunDir(Path(run_dir))
+    if not run.models.is_dir():
+        raise InputError(f"{run_dir}: not a run directory (no models/)")
+    out = []
+    for target in run.model_targets("gbm"):
+        meta = read_json(run.model_json("gbm", target))
+        text = run.model_text("gbm", target).read_text(encoding="utf-8")
+        for name, direction in meta.get("monotone", {}).items():
+            cert = certify(text, name, int(direction))
+            if cert["violation_count"]:
+                out.append(
+                    f"certificate: {model_name('gbm', target)} breaks the {name} promise in "
+                    f"{cert['violation_count']} leaf pairs (largest reversal {cert['max_violation']:.6g})"
+                )
+    return out
+
+
+def certify_model_file(model: str | Path, factor: str | int, direction: str) -> Certificate:
+    """Certify from a LightGBM text model file alone that its raw score is monotone in `factor`.
+
+    Parameters
+    ----------
+    model : str or Path
+        A LightGBM model in text format.
+    factor : str or int
+        Feature name, or its 0-based index (an int or a string of digits).
+    direction : str
+        "increasing" or "decreasing".
+
+    Returns
+    -------
+    Certificate
+        The certificate (`premiumlab.models.trees.certificate.certify`) and the draft caution.
+    """
+    from premiumlab._core.cautions import DRAFT
+    from premiumlab.models.trees.certificate import certify
+
+    if direction not in (Monotone.INCREASING, Monotone.DECREASING):
+        raise InputError(f"--direction: '{direction}' must be increasing or decreasing")
+    model = Path(model)
+    try:
+        text = model.read_text(encoding="utf-8")
+    except (FileNotFoundError, IsADirectoryError, UnicodeDecodeError):
+        raise InputError(f"{model}: not a readable LightGBM text model") from None
+    feature = int(factor) if isinstance(factor, str) and factor.isdigit() else factor
+    try:
+        cert = certify(text, feature, Monotone(direction).sign)
+    except InputError as e:
+        raise InputError(f"{model}: {e}") from None
+    return Certificate(
+        model=model,
+        feature=cert["feature"],
+        feature_index=cert["feature_index"],
+        direction=cert["direction"],
+        monotone=cert["monotone"],
+        trees_checked=cert["trees_checked"],
+        trees_splitting_on_feature=cert["trees_splitting_on_feature"],
+        leaf_pairs_checked=cert["leaf_pairs_checked"],
+        violation_count=cert["violation_count"],
+        max_violation=cert["max_violation"],
+        trees_with_violations=tuple(cert["trees_with_violations"]),
+        violations=tuple(cert["violations"]),
+        cautions=(DRAFT,),
+    )

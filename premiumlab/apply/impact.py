@@ -1,0 +1,175 @@
+"""`impact`: the premium dislocation from the current to the proposed rates, and its outputs."""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from premiumlab._core.errors import InputError
+from premiumlab.results import ImpactResult
+
+COLUMN_PREFIX = "column:"
+
+
+def read_frame(path: str | Path) -> pd.DataFrame:
+    """A whole book as a DataFrame (CSV values as strings, so "01" stays "01"), for `impact`."""
+    from premiumlab.book.data import iter_book, read_columns
+
+    columns = read_columns(path)
+    parts = [chunk for _, chunk in iter_book(path, columns)]
+    if not parts:
+        raise InputError(f"{path}: the book has no rows")
+    return pd.concat(parts, ignore_index=True)
+
+
+def column_premiums(source: str, frame: pd.DataFrame) -> np.ndarray:
+    """Premiums per policy from the book column named by `source` (`column:NAME`), all > 0."""
+    name = source[len(COLUMN_PREFIX) :]
+    if name not in frame.columns:
+        raise InputError(f"{source}: the book has no column '{name}'")
+    values = pd.to_numeric(frame[name], errors="coerce").to_numpy(float)
+    bad = np.flatnonzero(~(np.isfinite(values) & (values > 0)))
+    if bad.size:
+        raise InputError(
+            f"column '{name}': {bad.size} rows with a missing or non-positive premium "
+            f"(rows {', '.join(map(str, bad[:5]))})"
+        )
+    return values
+
+
+def gross_premiums(table, frame: pd.DataFrame, exposure: str | None, annual: bool) -> np.ndarray:
+    """Gross premiums per policy rated with a loaded table."""
+    import rating_tables
+
+    return rating_tables.rate(table, frame, None if annual else exposure, annual=annual)["gross_premium"].to_numpy()
+
+
+def dislocation(
+    current: str,
+    proposed: str,
+    book: str | Path,
+    exposure: str | None,
+    annual: bool,
+    cap: float | None,
+    thresholds: tuple[float, ...],
+) -> ImpactResult:
+    """Per-policy change from `current` to `proposed` premiums (tables or `column:NAME`); each
+    table is loaded once.
+
+    Parameters
+    ----------
+    current : str
+        Current table folder, or `column:NAME` for a premium column of the book.
+    proposed : str
+        Proposed table folder.
+    book : str or Path
+        Book of policies.
+    exposure : str or None
+        The book's exposure column (years); ignored with `annual`.
+    annual : bool
+        Compare one full term per policy.
+    cap : float or None
+        Cap each policy's change at +-cap (0.15 = 15 %).
+    thresholds : tuple of float
+        Increases whose shares are counted (0.1 = 10 %).
+
+    Returns
+    -------
+    ImpactResult
+        `rating_tables.impact`'s summary with the proposed table's cautions.
+    """
+    import rating_tables
+
+    if proposed.startswith(COLUMN_PREFIX):
+        raise InputError(f"--proposed {proposed}: the proposed premium must come from a table folder")
+    frame = read_frame(book)
+    table = rating_tables.load(proposed)
+    if current.startswith(COLUMN_PREFIX):
+        tables, now = [table], column_premiums(current, frame)
+    else:
+        current_table = rating_tables.load(current)
+        tables, now = [table, current_table], gross_premiums(current_table, frame, exposure, annual)
+    groups = impact_groups(frame, tables)
+    result = rating_tables.impact(
+        now,
+        gross_premiums(table, frame, exposure, annual),
+        groups,
+        list(groups.columns),
+        thresholds=thresholds,
+        cap=cap,
+    )
+    return ImpactResult(
+        policies=result["policies"],
+        total_current=result["total_current"],
+        total_proposed=result["total_proposed"],
+        overall_change=result["overall_change"],
+        bands=tuple(result["bands"]),
+        above_thresholds=tuple(result["above_thresholds"]),
+        by_factor=result["by_factor"],
+        largest_increases=tuple(result["largest_increases"]),
+        capping=result["capping"],
+        cautions=tuple(table.cautions),
+    )
+
+
+def impact_groups(frame: pd.DataFrame, tables: list) -> pd.DataFrame:
+    """The factor columns the impact is broken down by: every main factor of the tables (the
+    proposed first, so a factor the proposed table drops is still shown), a numeric factor cut into
+    the bands of the first table that has it, a categorical factor as it is."""
+    from rating_tables.table import NumericFactor, band_index
+
+    columns = {}
+    for table in tables:
+        for f in table.main_factors:
+            if f.name in columns:
+                continue
+            if isinstance(f, NumericFactor):
+                values = pd.to_numeric(frame[f.name], errors="coerce").to_numpy(float)
+                columns[f.name] = pd.Categorical.from_codes(
+                    band_index(f.lower, values), categories=f.labels(), ordered=True
+                )
+            else:
+                columns[f.name] = frame[f.name].to_numpy()
+    return pd.DataFrame(columns)
+
+
+def write_impact(
+    result: ImpactResult, out: Path | None, figure: Path | None, force: bool, inputs: tuple[str | Path, ...]
+) -> None:
+    """Write the impact summary as JSON to `out` and its figure (`figures.plot_impact`) to `figure`,
+    both or neither."""
+    from premiumlab._core.jsonio import write_json
+    from premiumlab._core.outputs import atomic_files
+    from premiumlab.evaluation.figures import plot_impact
+
+    targets = [t for t in (out, figure) if t is not None]
+    if not targets:
+        return
+    if figure is not None and figure.suffix.lower() != ".png":
+        raise InputError(f"{figure}: the figure must be a .png file")
+    if out is not None and figure is not None and out.name == figure.name:
+        raise InputError(f"{figure}: give the figure and the JSON summary different names")
+    with atomic_files(targets, force=force, inputs=inputs) as tmp:
+        if out is not None:
+            write_json(tmp / out.name, result.to_dict())
+        if figure is not None:
+            plot_impact(result.to_dict(), tmp / figure.name)
+
+
+def parse_thresholds(thresholds: str | Sequence[float]) -> tuple[float, ...]:
+    """'0.05,0.1' or (0.05, 0.1) -> (0.05, 0.1): the increases whose shares `impact` reports; at
+    least one, every one finite."""
+    try:
+        values = tuple(
+            float(t)
+            for t in (thresholds.split(",") if isinstance(thresholds, str) else thresholds)
+            if not isinstance(t, str) or t.strip()
+        )
+    except (TypeError, ValueError):
+        raise InputError(f"--thresholds: '{thresholds}' must be numbers separated by commas, e.g. 0.05,0.10") from None
+    if not values or not all(np.isfinite(values)):
+        raise InputError(f"--thresholds: '{thresholds}' must name at least one finite number")
+    return values

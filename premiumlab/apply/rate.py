@@ -1,0 +1,44 @@
+"""`rate`: price a book with a filed table into a CSV or Parquet file."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from premiumlab.results import RateResult
+
+
+def rate_book(
+    table_dir: str | Path, book: str | Path, out: str | Path, exposure: str | None, annual: bool, force: bool = False
+) -> RateResult:
+    """Rate `book` with the table into `out` (CSV or Parquet by extension), atomically.
+
+    Parameters
+    ----------
+    table_dir : str or Path
+        Rating table folder.
+    book : str or Path
+        Book to rate (.csv, .parquet or a folder of parts).
+    out : str or Path
+        Priced file to write; it gets the book's columns and `rating_tables.rate`'s.
+    exposure : str or None
+        The book's exposure column (years); ignored with `annual`.
+    annual : bool
+        Price one full term per policy instead of the exposure's share of it.
+    force : bool
+        Replace an existing `out`.
+
+    Returns
+    -------
+    RateResult
+        The priced file and the table's cautions.
+    """
+    import rating_tables
+    from premiumlab._core.outputs import atomic_files
+
+    table = rating_tables.load(table_dir)
+    out = Path(out)
+    with atomic_files([out], force=force, inputs=(book, table_dir)) as tmp:
+        cautions = rating_tables.rate_file(
+            table, book, tmp / out.name, exposure_column=None if annual else exposure, annual=annual
+        )
+    return RateResult(priced=out, cautions=tuple(cautions))

@@ -1,0 +1,181 @@
+"""The text the command line prints for each command's result (the library returns data only)."""
+
+from __future__ import annotations
+
+import json
+from collections.abc import Callable, Iterable
+from typing import Any
+
+from premiumlab.results import (
+    AuditResult,
+    Certificate,
+    Comparison,
+    ImpactResult,
+    SimulationResult,
+    TableResult,
+    TailFit,
+)
+
+
+def caution_lines(cautions: Iterable[str]) -> list[str]:
+    """One `caution: ...` line per caution."""
+    return [f"caution: {c}" for c in cautions]
+
+
+def simulation_line(result: SimulationResult) -> str:
+    """`simulate`: the files written and the book's size."""
+    return f"wrote {result.book} ({result.rows} rows, {result.policies} policies) and {result.truth}"
+
+
+def validation_text(report) -> str:
+    """`validate`: the counts, every finding, the profile tables (when the book has no errors) and
+    the cautions, for a `premiumlab.book.validate.ValidationReport`."""
+    import pandas as pd
+
+    lines = [
+        f"{report.path}: {report.rows} rows, {len(report.errors)} error(s), "
+        f"{len(report.findings) - len(report.errors)} warning(s)"
+    ]
+    lines += [f"  {f}" for f in report.findings]
+    if report.profile is not None:
+        with pd.option_context(
+            "display.width", 120, "display.max_columns", 10, "display.float_format", "{:,.4g}".format
+        ):
+            for name, table in report.profile.items():
+                lines += ["", f"profile: {name}", table.to_string()]
+    lines += ["", *caution_lines(report.cautions)]
+    return "\n".join(lines)
+
+
+def comparison_lines(result: Comparison) -> list[str]:
+    """`compare`: a compact table of the holdout metrics and the differences with their intervals."""
+    lines = [
+        f"holdout rows: {result.holdout_rows}   Tweedie power: {result.tweedie_power:.2f}",
+        f"{'target':<13} {'model':<18} {'mean dev':>11} {'D^2':>8} {'Gini':>8} {'balance':>8}",
+    ]
+    for target, block in result.metrics.items():
+        for name, m in block["models"].items():
+            lines.append(
+                f"{target:<13} {name:<18} {m['mean_deviance']:>11.5g} {m['d2']:>8.4f} "
+                f"{m['gini']:>8.4f} {m['balance']:>8.4f}"
+            )
+    lines.append("differences (paired bootstrap 95 % interval):")
+    for name, d in result.differences.items():
+        dev, gin = d["deviance_reduction"], d["gini_gain"]
+        lines.append(
+            f"  {name}: deviance reduction {dev['estimate']:.5g} [{dev['lower']:.5g}, "
+            f"{dev['upper']:.5g}]; Gini gain {gin['estimate']:.4f} [{gin['lower']:.4f}, "
+            f"{gin['upper']:.4f}]"
+        )
+    return lines
+
+
+def fidelity_lines(result: TableResult) -> list[str]:
+    """`tabulate`: rate level, fidelity and retention."""
+    level, fid = result.rate_level, result.fidelity
+    lines = [
+        f"wrote {result.table}: base rate {level['base_rate']:.4f}, total pure premium "
+        f"{level['total_pure_premium']:,.2f} ({level['target']['basis']}), rounding off-balance "
+        f"{level['rounding_off_balance']:+.4%}"
+    ]
+    if "indicated_overall_change" in level:
+        lines.append(f"indicated overall change against the current premium: {level['indicated_overall_change']:+.2%}")
+    lines.append(f"fidelity on the {fid['rows']} ({fid['policies']} rows, Tweedie power {fid['tweedie_power']:.2f}):")
+    for name, s in fid["models"].items():
+        lines.append(f"  {name:<6} mean deviance {s['mean_deviance']:.6g}  Gini {s['gini']:.4f}")
+    r = fid["retention"]
+    if r.get("gini_table_over_gbm") is not None:
+        lines.append(f"  retention G_table/G_gbm = {r['gini_table_over_gbm']:.3f}")
+    if r.get("gbm_lift_over_glm_kept") is not None:
+        lines.append(f"  retention (G_table - G_glm)/(G_gbm - G_glm) = {r['gbm_lift_over_glm_kept']:.3f}")
+    return lines
+
+
+def audit_lines(result: AuditResult) -> list[str]:
+    """`audit`: every violation, then their count."""
+    return [*result.violations, f"audit: {len(result.violations)} violation(s) in {result.table}"]
+
+
+def impact_lines(result: ImpactResult) -> list[str]:
+    """`impact`: totals, change bands, shares above the thresholds, the largest increase, capping."""
+    lines = [
+        f"policies {result.policies}: current total {result.total_current:,.2f}, proposed "
+        f"{result.total_proposed:,.2f}, overall change {result.overall_change:+.2%}",
+        "change band          policies   share",
+    ]
+    for b in result.bands:
+        lines.append(f"  {b['band']:<18} {b['count']:>8}  {b['count_share']:>6.1%}")
+    for t in result.above_thresholds:
+        lines.append(f"increase above {t['threshold']:.0%}: {t['count']} policies ({t['count_share']:.1%})")
+    if result.largest_increases:
+        top = result.largest_increases[0]
+        lines.append(
+            f"largest increase: row {top['row']}, {top['current']:,.2f} -> {top['proposed']:,.2f} "
+            f"({top['change']:+.1%})"
+        )
+    if result.capping:
+        lines.append(
+            "capping: "
+            + ", ".join(
+                f"{k} {v:.6g}" if isinstance(v, float) else f"{k} {v}"
+                for k, v in result.capping.items()
+                if not isinstance(v, (list, dict))
+            )
+        )
+    return lines
+
+
+def certificate_lines(result: Certificate) -> list[str]:
+    """`certify`: what was checked and each listed violation."""
+    lines = [
+        f"{result.model}: {result.trees_checked} trees checked, {result.trees_splitting_on_feature} split on "
+        f"{result.feature}, {result.leaf_pairs_checked} leaf pairs checked, "
+        f"{result.violation_count} violation(s)"
+    ]
+    for v in result.violations:
+        low, high = v["leaves"]
+        lines.append(
+            f"  tree {v['tree']}: leaf {low} (lower {result.feature}) has value {v['values'][0]:.6g}, "
+            f"leaf {high} (higher) has {v['values'][1]:.6g}; reversal {v['amount']:.6g}"
+        )
+    return lines
+
+
+def tail_lines(result: TailFit) -> list[str]:
+    """`tails`: the losses, the fit above the threshold and every tenth row of the mean-excess table."""
+    from premiumlab.experience.tails import DEFAULT_QUANTILE
+
+    quantile = f" (the {DEFAULT_QUANTILE:.0%} quantile)" if result.default_threshold else ""
+    lines = [
+        f"losses: {result.losses} ({result.basis})",
+        f"threshold {result.threshold:,.6g}{quantile}: "
+        f"{result.exceedances} exceedances, {result.share_of_losses:.2%} of the losses and "
+        f"{result.share_of_amount:.2%} of the amount",
+        f"generalised Pareto above it: shape {result.shape:.4f}, scale {result.scale:,.6g}",
+        "mean excess by threshold:",
+        f"  {'threshold':>14} {'exceedances':>12} {'mean excess':>14}",
+    ]
+    rows = result.mean_excess
+    for row in rows[:: max(1, len(rows) // 10)]:
+        lines.append(f"  {row['threshold']:>14,.6g} {row['exceedances']:>12d} {row['mean_excess']:>14,.6g}")
+    return lines + [f"note: {n}" for n in result.notes]
+
+
+def tail_json(result: TailFit) -> str:
+    """`tails --json`: the fit and the mean-excess table on one line (the cautions go to stderr)."""
+    fields = result.to_dict()
+    del fields["cautions"]
+    return json.dumps(fields, allow_nan=False)
+
+
+#: The text of the results a long job (`demo`) reports as it goes.
+_RESULT_LINES: dict[type, Callable[[Any], list[str]]] = {
+    Comparison: comparison_lines,
+    TableResult: fidelity_lines,
+    ImpactResult: impact_lines,
+}
+
+
+def result_lines(value: object) -> list[str]:
+    """The text of a step's result, for the results `demo` reports."""
+    return _RESULT_LINES[type(value)](value)

@@ -1,0 +1,221 @@
+"""What the commands return: one frozen dataclass per command, each with `to_dict()`.
+
+`validate` returns `premiumlab.book.validate.ValidationReport` and `fit` the run it wrote
+(`premiumlab.runs.fit.Run`, as `open_run` gives it); the other commands' results are here. Nested
+figures (metrics, bands, relativities) are the plain dicts and lists the commands also write to JSON.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+from premiumlab._core.jsonio import plain
+
+
+class Result:
+    """Base of the result types: `to_dict()` gives the fields as JSON-able data."""
+
+    def to_dict(self) -> dict[str, Any]:
+        """The fields in order as plain Python (paths as strings, numpy values as Python numbers,
+        non-finite floats as None), ready for `json.dumps`.
+
+        Returns
+        -------
+        dict
+            Field name -> value.
+        """
+        return plain(self)
+
+
+@dataclass(frozen=True)
+class SimulationResult(Result):
+    """`simulate`: the book and truth.json written, and the book's size.
+
+    Attributes: book and truth (paths); policies, rows (a policy in a period), claims and
+    large_claims (counts); exposure (policy-years); claim_amount (money, the book's total).
+    """
+
+    book: Path
+    truth: Path
+    policies: int
+    rows: int
+    claims: int
+    large_claims: int
+    exposure: float
+    claim_amount: float
+
+
+@dataclass(frozen=True)
+class Comparison(Result):
+    """`compare`: the holdout comparison of a run's models, as written to RUN/comparison.json.
+
+    Attributes: holdout_rows; tweedie_power (the deviance power of the pure premium); metrics
+    (target -> model -> mean deviance, D^2, Gini, balance); differences (pair -> deviance reduction
+    and Gini gain with paired bootstrap 95 % intervals); lift, double_lift, actual_vs_expected
+    (tables as column -> list); cautions.
+    """
+
+    holdout_rows: int
+    tweedie_power: float
+    metrics: dict
+    differences: dict
+    lift: dict
+    double_lift: dict
+    actual_vs_expected: dict
+    cautions: tuple[str, ...]
+
+    @classmethod
+    def from_summary(cls, summary: dict) -> Comparison:
+        """The result of `premiumlab.review.comparison.compare`'s summary dict."""
+        return cls(
+            holdout_rows=summary["holdout_rows"],
+            tweedie_power=summary["tweedie_power"],
+            metrics=summary["metrics"],
+            differences=summary["differences"],
+            lift=summary["lift"],
+            double_lift=summary["double_lift"],
+            actual_vs_expected=summary["actual_vs_expected"],
+            cautions=tuple(summary["cautions"]),
+        )
+
+
+@dataclass(frozen=True)
+class TableResult(Result):
+    """`tabulate`: the rating table folder written and its TABLE/fidelity.json figures.
+
+    Attributes: table (the folder); provenance (run, model, book sha256); fidelity (deviance and
+    Gini of the table, the boosted model and the GLM, and the retention); rate_level (base rate,
+    totals in money, off-balances); distillation (how the factors were banded); cautions;
+    seconds (wall time).
+    """
+
+    table: Path
+    provenance: dict
+    fidelity: dict
+    rate_level: dict
+    distillation: dict
+    cautions: tuple[str, ...]
+    seconds: float
+
+    @classmethod
+    def from_summary(cls, summary: dict) -> TableResult:
+        """The result of `premiumlab.tabulation.from_run.tabulate`'s summary dict."""
+        return cls(
+            table=Path(summary["table"]),
+            provenance=summary["provenance"],
+            fidelity=summary["fidelity"],
+            rate_level=summary["rate_level"],
+            distillation=summary["distillation"],
+            cautions=tuple(summary["cautions"]),
+            seconds=summary["seconds"],
+        )
+
+
+@dataclass(frozen=True)
+class AuditResult(Result):
+    """`audit`: every violation found in a table (its own checks, the spec's promises, the run's
+    certificate), one line each; no violation is not an approval (see cautions)."""
+
+    table: Path
+    violations: tuple[str, ...]
+    cautions: tuple[str, ...]
+
+
+@dataclass(frozen=True)
+class RateResult(Result):
+    """`rate`: the priced file written and the table's cautions."""
+
+    priced: Path
+    cautions: tuple[str, ...]
+
+
+@dataclass(frozen=True)
+class ImpactResult(Result):
+    """`impact`: the dislocation from the current to the proposed premiums.
+
+    Attributes as `rating_tables.impact` returns them: policies; total_current and total_proposed
+    (money); overall_change (total_proposed / total_current - 1); bands (change bands by count and
+    current premium); above_thresholds (share of policies and current premium above each increase);
+    by_factor (change by level); largest_increases; capping (None without a cap); cautions.
+    `to_dict()` is what `--out` writes.
+    """
+
+    policies: int
+    total_current: float
+    total_proposed: float
+    overall_change: float
+    bands: tuple[dict, ...]
+    above_thresholds: tuple[dict, ...]
+    by_factor: dict
+    largest_increases: tuple[dict, ...]
+    capping: dict | None
+    cautions: tuple[str, ...]
+
+
+@dataclass(frozen=True)
+class Certificate(Result):
+    """`certify`: the monotonicity certificate of a LightGBM text model in one factor.
+
+    Attributes: model (the file); the fields of `premiumlab.models.trees.certificate.certify`
+    (feature, feature_index, direction +1/-1, monotone, trees and leaf pairs checked, violation
+    count, largest reversal in raw-score units, the listed violations); cautions.
+    """
+
+    model: Path
+    feature: str
+    feature_index: int
+    direction: int
+    monotone: bool
+    trees_checked: int
+    trees_splitting_on_feature: int
+    leaf_pairs_checked: int
+    violation_count: int
+    max_violation: float
+    trees_with_violations: tuple[int, ...]
+    violations: tuple[Mapping[str, Any], ...]
+    cautions: tuple[str, ...]
+
+
+@dataclass(frozen=True)
+class TailFit(Result):
+    """`tails`: the generalised Pareto fit above a threshold and the mean-excess table.
+
+    Attributes: threshold u (money); exceedances (losses above u) of losses; shape xi and scale
+    beta (money) of F(y) = 1 - (1 + xi y / beta)^(-1 / xi) for the excess y = x - u;
+    share_of_losses and share_of_amount above u; basis (what the losses are);
+    default_threshold (u was the default quantile); notes; mean_excess (rows of threshold,
+    exceedances, mean excess); cautions.
+    """
+
+    threshold: float
+    exceedances: int
+    losses: int
+    shape: float
+    scale: float
+    share_of_losses: float
+    share_of_amount: float
+    basis: str
+    default_threshold: bool
+    notes: tuple[str, ...]
+    mean_excess: tuple[dict, ...]
+    cautions: tuple[str, ...]
+
+
+@dataclass(frozen=True)
+class ReportResult(Result):
+    """`report`: the HTML report written (RUN/report.html)."""
+
+    report: Path
+
+
+@dataclass(frozen=True)
+class DemoResult(Result):
+    """`demo`: the demo folder, every file written in it (relative paths, sorted) and the
+    cautions of its rating table."""
+
+    out: Path
+    files: tuple[str, ...]
+    cautions: tuple[str, ...]
