@@ -18,7 +18,7 @@ from pathlib import Path
 
 import pytest
 
-from conftest import SPEC_TEXT, run_cli, small_book
+from _builders import SPEC_TEXT, run_cli, small_book
 from premiumlab._core.errors import InputError
 from premiumlab._core.outputs import atomic_files, atomic_output
 

@@ -21,7 +21,7 @@ import pandas as pd
 import pytest
 
 import rating_tables
-from conftest import ROOT, SPEC_TEXT, run_cli, small_book
+from _builders import ROOT, SPEC_TEXT, run_cli, small_book
 from test_rater import example_book, example_table
 
 Prepare = Callable[[Path], None]

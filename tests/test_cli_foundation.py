@@ -8,7 +8,7 @@ import sys
 
 import pytest
 
-from conftest import SPEC_TEXT, run_cli, small_book
+from _builders import SPEC_TEXT, run_cli, small_book
 
 
 def digest(path) -> str:

@@ -21,7 +21,7 @@ from premiumlab._core.errors import InputError
 from premiumlab.models.gbm.fit import fit_target
 from premiumlab.book.spec import load_spec
 
-from conftest import SPEC_TEXT, run_cli, small_book
+from _builders import SPEC_TEXT, run_cli, small_book
 from test_gbm import OPTIONS, invented_book
 
 

@@ -11,7 +11,7 @@ from premiumlab.book.data import holdout_flags, iter_book
 from premiumlab._core.errors import InputError
 from premiumlab.book.spec import load_spec
 
-from conftest import small_book
+from _builders import small_book
 
 
 def findings_for(tmp_path, spec_file, edit) -> list[str]:

@@ -3,7 +3,7 @@ from __future__ import annotations
 
 import json
 
-from conftest import run_cli
+from _builders import run_cli
 
 OUTPUTS = ("book.parquet", "truth.json", "spec.toml", "run/run.json", "run/report.html", "run/comparison.json",
            "table/table.json", "glm_table/table.json", "priced.parquet", "impact.json", "impact.png")

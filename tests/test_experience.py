@@ -23,7 +23,7 @@ from premiumlab.experience.adjustments import (adjust, cap_losses, future_midpoi
 from premiumlab.runs.fit import fit
 from premiumlab.book.spec import Experience, parse_spec
 
-from conftest import ROOT, SPEC_TEXT, small_book
+from _builders import ROOT, SPEC_TEXT, small_book
 
 ALL = np.ones(4, dtype=bool)
 

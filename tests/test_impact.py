@@ -9,7 +9,7 @@ import pandas as pd
 import pytest
 
 import rating_tables
-from conftest import run_cli
+from _builders import run_cli
 from rating_tables import TableError, cap_premiums, impact
 from test_rater import example_book, example_table
 

@@ -19,7 +19,7 @@ from pathlib import Path
 import pytest
 
 import rating_tables
-from conftest import ROOT, run_cli
+from _builders import ROOT, run_cli
 from test_rater import example_book, example_table
 
 PACKAGES = ("premiumlab", "rating_tables")

@@ -20,7 +20,7 @@ import premiumlab
 import rating_tables
 from premiumlab.book.bands import assign_bands
 
-from conftest import QUICK_GBM
+from _builders import QUICK_GBM
 
 ROOT = Path(__file__).resolve().parents[1]
 pytestmark = pytest.mark.load

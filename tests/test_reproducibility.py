@@ -16,7 +16,7 @@ import tomllib
 import lightgbm
 import pytest
 
-from conftest import ROOT, run_cli
+from _builders import ROOT, run_cli
 
 GBM = "\n[gbm]\nfolds = 3\nmax_settings = 2\nmax_rounds = 300\nthreads = 2\n"
 POLICIES = 4000

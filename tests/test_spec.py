@@ -8,7 +8,7 @@ import pytest
 from premiumlab._core.errors import InputError
 from premiumlab.book.spec import DEFAULT_PROHIBITED, load_spec, parse_spec
 
-from conftest import SPEC_TEXT
+from _builders import SPEC_TEXT
 
 
 def doc(extra: str = "", base: str = SPEC_TEXT) -> dict:

@@ -9,7 +9,7 @@ import pandas as pd
 import pytest
 
 import rating_tables
-from conftest import run_cli
+from _builders import run_cli
 
 
 def test_table_has_the_spec_interaction_and_promise(demo_run):

