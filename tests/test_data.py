@@ -7,7 +7,8 @@ import pytest
 
 from premiumlab.book.bands import band_labels, quantile_edges
 from premiumlab.book.scan import _repeated_keys, load_book, profile, scan_book, with_quantile_bands
-from premiumlab.book.data import holdout_flags, iter_book
+from premiumlab.book.reading import iter_book
+from premiumlab.book.split import holdout_flags
 from premiumlab._core.errors import InputError
 from premiumlab.book.spec import load_spec
 

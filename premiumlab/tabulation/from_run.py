@@ -32,7 +32,7 @@ import numpy as np
 import pandas as pd
 
 from premiumlab.experience.cautions import cautions_for
-from premiumlab.book.data import Book
+from premiumlab.book.rows import Book
 from premiumlab.tabulation.banding import Banding
 from premiumlab.tabulation.distill import distil
 from premiumlab.tabulation.effects import FactorValues, exposure_sample

@@ -1,24 +1,17 @@
-"""Books of policies: reading CSV/Parquet in chunks, the row checks of a chunk, the seeded split,
-banding (the whole-book pass and its book-level checks are in `book_scan`).
+"""The rows of a book: typing a chunk, the row-level checks and their findings, the typed book.
 
 Row numbers in messages are 0-based data rows (the header is not counted), the same index that
-`predictions.parquet` calls `row`.
+`predictions.parquet` calls `row`. The checks are pure: a chunk in, findings out.
 """
 from __future__ import annotations
 
-import hashlib
-from collections.abc import Iterator
 from dataclasses import dataclass, field
-from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
-from premiumlab.book.bands import banded, quantile_edges
-from premiumlab._core.errors import InputError
 from premiumlab.book.spec import Factor, Spec
 
-CHUNK_ROWS = 500_000
 #: Rows whose exposure exceeds this many terms are reported (exposure is usually at most one term).
 TERM = 1.0
 SHOW_ROWS = 5
@@ -58,93 +51,6 @@ class Book:
     def n_rows(self) -> int:
         return len(self.exposure)
 
-
-# --------------------------------------------------------------------------------------------
-# reading
-
-def book_files(path: Path) -> list[Path]:
-    if not path.exists():
-        raise InputError(f"{path}: book not found")
-    if path.is_dir():
-        parts = sorted(p for p in path.iterdir() if p.suffix.lower() in (".parquet", ".pq"))
-        if not parts:
-            raise InputError(f"{path}: is a directory with no .parquet parts; expected a CSV or Parquet book")
-        return parts
-    if path.suffix.lower() not in (".csv", ".parquet", ".pq"):
-        raise InputError(f"{path}: unsupported book format '{path.suffix}'; use .csv or .parquet")
-    return [path]
-
-
-def book_sha256(path: str | Path) -> str:
-    """sha256 over the bytes of the book file (or its Parquet parts in name order)."""
-    h = hashlib.sha256()
-    for part in book_files(Path(path)):
-        with open(part, "rb") as fh:
-            for block in iter(lambda: fh.read(1 << 20), b""):
-                h.update(block)
-    return h.hexdigest()
-
-
-def unreadable_parquet(path: str | Path, error: Exception) -> InputError:
-    """The error for a Parquet file pyarrow cannot read (it raises several types for damaged files)."""
-    return InputError(f"{path}: not a readable Parquet file ({type(error).__name__}: {error})")
-
-
-def read_columns(path: str | Path) -> list[str]:
-    """The column names of a book, read from its header or Parquet schema."""
-    files = book_files(Path(path))
-    if files[0].suffix.lower() == ".csv":
-        return list(_read_csv(files[0], nrows=0).columns)
-    import pyarrow.parquet as pq
-    try:
-        return list(pq.read_schema(files[0]).names)
-    except Exception as e:  # pyarrow raises several types for damaged files
-        raise unreadable_parquet(files[0], e) from None
-
-
-def _read_csv(path: Path, **kwargs) -> pd.DataFrame | Iterator[pd.DataFrame]:
-    try:
-        return pd.read_csv(path, dtype=str, keep_default_na=False, encoding="utf-8-sig", **kwargs)
-    except UnicodeDecodeError as e:
-        raise InputError(f"{path}: not UTF-8 text (byte {e.start})") from None
-    except pd.errors.EmptyDataError:
-        raise InputError(f"{path}: empty file, no header row") from None
-    except pd.errors.ParserError as e:
-        raise InputError(f"{path}: malformed CSV ({str(e).strip().splitlines()[-1]})") from None
-
-
-def iter_book(path: str | Path, columns: list[str], chunk_rows: int = CHUNK_ROWS
-              ) -> Iterator[tuple[int, pd.DataFrame]]:
-    """Yield (first row index, chunk) over the book; CSV values come as strings."""
-    offset = 0
-    for part in book_files(Path(path)):
-        if part.suffix.lower() == ".csv":
-            # every column is read: with `usecols` pandas drops the extra fields of a ragged row silently
-            reader = _read_csv(part, chunksize=chunk_rows)
-            try:
-                for chunk in reader:
-                    yield offset, chunk[columns].reset_index(drop=True)
-                    offset += len(chunk)
-            except UnicodeDecodeError as e:
-                raise InputError(f"{part}: not UTF-8 text (byte {e.start})") from None
-            except pd.errors.ParserError as e:
-                raise InputError(f"{part}: malformed CSV ({str(e).strip().splitlines()[-1]})") from None
-        else:
-            import pyarrow.parquet as pq
-            try:
-                pf = pq.ParquetFile(part, pre_buffer=False)  # pre-buffering would keep every row group read
-                for batch in pf.iter_batches(batch_size=chunk_rows, columns=columns):
-                    chunk = batch.to_pandas()
-                    yield offset, chunk
-                    offset += len(chunk)
-            except InputError:
-                raise
-            except Exception as e:
-                raise unreadable_parquet(part, e) from None
-
-
-# --------------------------------------------------------------------------------------------
-# row checks (pure: a chunk in, findings out)
 
 class FindingCollector:
     """Collects findings per (level, column, check) across chunks: counts add, first rows kept."""
@@ -292,76 +198,3 @@ def _check_factor(values: pd.Series, f: Factor, offset: int, out: FindingCollect
         out.add("error", f.name, f"with a level not in the spec's levels ({', '.join(f.levels)})", unknown,
                 offset)
     return text
-
-
-# --------------------------------------------------------------------------------------------
-# the split
-
-def holdout_flags(policy: np.ndarray, seed: int, holdout: float) -> np.ndarray:
-    """True for held-out rows: u(seed, policy) < holdout, with u = SipHash-2-4(policy; key from seed)/2^64.
-
-    The hash depends only on the policy id and the seed, so a policy's rows stay together and the split
-    does not change with chunking or row order.
-    """
-    if holdout <= 0:
-        return np.zeros(len(policy), dtype=bool)
-    key = f"{seed:016d}"[-16:]
-    h = pd.util.hash_array(np.asarray(policy, dtype=object), hash_key=key, categorize=True)
-    u = h.astype(np.float64) / 2.0**64
-    return u < holdout
-
-
-# --------------------------------------------------------------------------------------------
-# banding and levels
-
-@dataclass(frozen=True)
-class Levels:
-    """How one factor is cut for tables and GLMs: band edges (numeric) or the level order."""
-
-    name: str
-    labels: tuple[str, ...]
-    base: str
-    edges: tuple[float, ...] | None = None
-
-
-def cut_levels(f: Factor, values: np.ndarray, exposure: np.ndarray, source: str) -> Levels:
-    """Bands or level order of factor `f` from its `values` and their `exposure` (rows, or distinct
-    values with summed exposure).
-
-    Numeric: the spec's edges, else exposure-quantile edges (`n_bands`). Categorical: the spec's
-    `levels` order, else levels sorted as strings. Base: the spec's `base`, else the largest exposure.
-    """
-    if f.type == "numeric":
-        edges = np.asarray(f.bands) if f.bands is not None else quantile_edges(values, exposure, f.n_bands)
-        cat = banded(values, edges)
-        labels = tuple(cat.categories)
-        codes = cat.codes
-        edges_t = tuple(float(e) for e in edges)
-    else:
-        labels = f.levels if f.levels is not None else tuple(sorted(set(values)))
-        codes = pd.Categorical(values, categories=labels).codes
-        edges_t = None
-    expo = np.bincount(codes, weights=exposure, minlength=len(labels))
-    base = f.base if f.base is not None else labels[int(np.argmax(expo))]
-    if f.base is not None and f.base not in labels:
-        raise InputError(f"{source}: key 'factors.{f.name}.base': '{f.base}' is not one of its "
-                         f"levels or bands ({', '.join(labels[:10])})")
-    return Levels(f.name, labels, base, edges_t)
-
-
-def factor_levels(book: Book, spec: Spec, train: np.ndarray) -> dict[str, Levels]:
-    """Bands and level orders per factor (`cut_levels`), fixed on the training rows."""
-    return {f.name: cut_levels(f, book.frame[f.name].to_numpy()[train], book.exposure[train], spec.source)
-            for f in spec.factors}
-
-
-def categorise(book_frame: pd.DataFrame, levels: dict[str, Levels]) -> pd.DataFrame:
-    """Factor columns as ordered Categoricals of band or level labels."""
-    cols = {}
-    for name, lv in levels.items():
-        values = book_frame[name].to_numpy()
-        if lv.edges is not None:
-            cols[name] = banded(values, lv.edges)
-        else:
-            cols[name] = pd.Categorical(values, categories=list(lv.labels), ordered=True)
-    return pd.DataFrame(cols)
