@@ -11,28 +11,27 @@ from pathlib import Path
 
 import pandas as pd
 
+import rating_tables.books
 from premiumlab._core.errors import InputError
+from rating_tables.errors import TableError
 
 CHUNK_ROWS = 500_000
 
 
-def book_files(path: Path) -> list[Path]:
-    if not path.exists():
-        raise InputError(f"{path}: book not found")
-    if path.is_dir():
-        parts = sorted(p for p in path.iterdir() if p.suffix.lower() in (".parquet", ".pq"))
-        if not parts:
-            raise InputError(f"{path}: is a directory with no .parquet parts; expected a CSV or Parquet book")
-        return parts
-    if path.suffix.lower() not in (".csv", ".parquet", ".pq"):
-        raise InputError(f"{path}: unsupported book format '{path.suffix}'; use .csv or .parquet")
-    return [path]
+def book_parts(path: Path) -> tuple[str, list[Path]]:
+    """(kind, files in name order) of the book at `path`: `csv` or `parquet`, and the book file itself
+    or the parts of a book folder, by the one set of rules in `rating_tables.books` (`.csv`,
+    `.parquet` and `.pq`; a folder's parts of one kind, hidden entries skipped)."""
+    try:
+        return rating_tables.books.book_parts(path)
+    except TableError as e:
+        raise InputError(str(e)) from None
 
 
 def book_sha256(path: str | Path) -> str:
-    """sha256 over the bytes of the book file (or its Parquet parts in name order)."""
+    """sha256 over the bytes of the book file (or its parts in name order)."""
     h = hashlib.sha256()
-    for part in book_files(Path(path)):
+    for part in book_parts(Path(path))[1]:
         with open(part, "rb") as fh:
             for block in iter(lambda: fh.read(1 << 20), b""):
                 h.update(block)
@@ -45,15 +44,19 @@ def unreadable_parquet(path: str | Path, error: Exception) -> InputError:
 
 
 def read_columns(path: str | Path) -> list[str]:
-    """The column names of a book, read from its header or Parquet schema."""
-    files = book_files(Path(path))
-    if files[0].suffix.lower() == ".csv":
-        return list(_read_csv(files[0], nrows=0).columns)
+    """The column names of a book, read from the header or Parquet schema of its first file."""
+    kind, files = book_parts(Path(path))
+    return _part_columns(kind, files[0])
+
+
+def _part_columns(kind: str, part: Path) -> list[str]:
+    if kind == "csv":
+        return list(_read_csv(part, nrows=0).columns)
     import pyarrow.parquet as pq
     try:
-        return list(pq.read_schema(files[0]).names)
+        return list(pq.read_schema(part).names)
     except Exception as e:  # pyarrow raises several types for damaged files
-        raise unreadable_parquet(files[0], e) from None
+        raise unreadable_parquet(part, e) from None
 
 
 def _read_csv(path: Path, **kwargs) -> pd.DataFrame | Iterator[pd.DataFrame]:
@@ -69,10 +72,15 @@ def _read_csv(path: Path, **kwargs) -> pd.DataFrame | Iterator[pd.DataFrame]:
 
 def iter_book(path: str | Path, columns: list[str], chunk_rows: int = CHUNK_ROWS
               ) -> Iterator[tuple[int, pd.DataFrame]]:
-    """Yield (first row index, chunk) over the book; CSV values come as strings."""
+    """Yield (first row index, chunk) over the book; CSV values come as strings. A file (or part of
+    a book folder) that lacks one of `columns` is refused by name."""
     offset = 0
-    for part in book_files(Path(path)):
-        if part.suffix.lower() == ".csv":
+    kind, parts = book_parts(Path(path))
+    for part in parts:
+        absent = [c for c in columns if c not in _part_columns(kind, part)]
+        if absent:
+            raise InputError(f"{part}: missing column '{absent[0]}'")
+        if kind == "csv":
             # every column is read: with `usecols` pandas drops the extra fields of a ragged row silently
             reader = _read_csv(part, chunksize=chunk_rows)
             try:

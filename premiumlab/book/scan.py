@@ -20,7 +20,7 @@ from premiumlab.book.bands import assign_bands, banded
 from premiumlab.book.quantiles import book_quantile_edges
 from premiumlab._core.cluster import TaskRunner
 from premiumlab.book.levels import cut_levels
-from premiumlab.book.reading import CHUNK_ROWS, book_files, book_sha256, iter_book, read_columns, unreadable_parquet
+from premiumlab.book.reading import CHUNK_ROWS, book_parts, book_sha256, iter_book, read_columns, unreadable_parquet
 from premiumlab.book.rows import Book, Finding, FindingCollector, TypedChunk, as_text, check_chunk, to_number
 from premiumlab.book.split import holdout_flags
 from premiumlab._core.errors import InputError
@@ -269,10 +269,11 @@ def parquet_slices(path: str | Path, chunk_rows: int = CHUNK_ROWS) -> list[tuple
     file or a folder of parts), in book order; a slice never splits a row group."""
     import pyarrow.parquet as pq
     slices, offset = [], 0
-    for part in book_files(Path(path)):
-        if part.suffix.lower() == ".csv":
-            raise InputError(f"{part}: a CSV book is read in one process; convert it to Parquet to "
-                             "validate it on a cluster")
+    kind, parts = book_parts(Path(path))
+    if kind == "csv":
+        raise InputError(f"{path}: a CSV book is read in one process; convert it to Parquet to "
+                         "validate it on a cluster")
+    for part in parts:
         try:
             meta = pq.ParquetFile(part).metadata
         except Exception as e:  # pyarrow raises several types for damaged files
