@@ -6,9 +6,10 @@ weight and rows, all with a log link, so the raw score is log(prediction).
 
 Tuning: every setting of a small grid is trained on K-1 folds (folds grouped by policy, so the rows
 of a policy stay together) with early stopping on the weighted mean deviance of the held-out fold
-(`premiumlab.metrics.mean_deviance`, the family's deviance; LightGBM's built-in metrics for these
-objectives are negative log-likelihoods, so they are switched off). The setting with the lowest mean
-fold deviance is refitted on the whole training part with the mean of its folds' best round counts.
+(`premiumlab.models.deviance.mean_deviance`, the family's deviance; LightGBM's built-in metrics for
+these objectives are negative log-likelihoods, so they are switched off). The setting with the lowest
+mean fold deviance is refitted on the whole training part with the mean of its folds' best round
+counts.
 
 Balance: sum(weight x prediction) / sum(weight x label) on the training part, i.e. predicted over
 observed claims (frequency) or amounts (severity, pure premium). Outside 1 +- 1 % every prediction
@@ -35,7 +36,7 @@ from premiumlab._core.jsonio import read_json
 from premiumlab._core.progress import progress_bar
 from premiumlab._core.validators import ABOVE_ZERO, AT_LEAST_ZERO, checked_array
 from premiumlab.book.gbm_options import MONOTONE_METHODS, GbmOptions
-from premiumlab.evaluation.metrics import mean_deviance
+from premiumlab.models.deviance import mean_deviance
 from premiumlab.models.targets import TARGETS
 from premiumlab.models.trees.certificate import certify
 
