@@ -145,3 +145,15 @@ def test_a_part_without_a_needed_column_is_refused_by_name(tmp_path, reader, suf
     with pytest.raises(ERRORS, match=rf"{re.escape(str(part))}: (missing column 'bonus'|its columns or types "
                                      r"differ from part-0)"):
         reader(folder)
+
+
+def test_the_rated_output_may_end_in_pq_and_is_parquet(tmp_path):
+    book = tmp_path / "book.csv"
+    BOOK.to_csv(book, index=False)
+    rate_file(example_table(), book, tmp_path / "rated.csv", "exposure")
+    rate_file(example_table(), book, tmp_path / "rated.pq", "exposure")
+    assert pd.read_parquet(tmp_path / "rated.pq")["gross_premium"].tolist() == \
+        pd.read_csv(tmp_path / "rated.csv")["gross_premium"].tolist()
+    with pytest.raises(TableError, match=exactly(f"{tmp_path / 'rated.txt'}: the output must end in .csv or "
+                                                 ".parquet (or .pq, also Parquet)")):
+        rate_file(example_table(), book, tmp_path / "rated.txt", "exposure")
