@@ -6,6 +6,7 @@ starts with `.` or `_` are skipped (hidden files, `._` resource forks, `_SUCCESS
 markers), as are sub-folders and files with other suffixes. A folder holding both CSV and Parquet
 parts is refused: its rows would be read under two sets of typing rules.
 """
+
 from __future__ import annotations
 
 from pathlib import Path
@@ -52,18 +53,26 @@ def book_parts(path: Path) -> tuple[str, list[Path]]:
     if not path.is_dir():
         kind = file_kind(path)
         if kind is None:
-            raise TableError(f"{path}: unsupported book format '{path.suffix}'; a book is a .csv, .parquet "
-                             "or .pq file or a folder of such parts", where=str(path))
+            raise TableError(
+                f"{path}: unsupported book format '{path.suffix}'; a book is a .csv, .parquet "
+                "or .pq file or a folder of such parts",
+                where=str(path),
+            )
         return kind, [path]
-    parts = sorted(p for p in path.iterdir()
-                   if not p.name.startswith(SKIPPED_PREFIXES) and file_kind(p) is not None and p.is_file())
+    parts = sorted(
+        p
+        for p in path.iterdir()
+        if not p.name.startswith(SKIPPED_PREFIXES) and file_kind(p) is not None and p.is_file()
+    )
     if not parts:
         raise TableError(f"{path}: is a directory with no .csv, .parquet or .pq parts", where=str(path))
-    first_of_kind = {}
+    first_of_kind: dict[str, Path] = {}
     for part in parts:
-        first_of_kind.setdefault(file_kind(part), part)
+        first_of_kind.setdefault(KIND_OF_SUFFIX[part.suffix.lower()], part)
     if len(first_of_kind) > 1:
-        raise TableError(f"{path}: the folder mixes CSV and Parquet parts ({first_of_kind['csv'].name} and "
-                         f"{first_of_kind['parquet'].name}); a book folder holds parts of one kind",
-                         where=str(path))
+        raise TableError(
+            f"{path}: the folder mixes CSV and Parquet parts ({first_of_kind['csv'].name} and "
+            f"{first_of_kind['parquet'].name}); a book folder holds parts of one kind",
+            where=str(path),
+        )
     return next(iter(first_of_kind)), parts

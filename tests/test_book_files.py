@@ -5,6 +5,7 @@ Each rule is checked on the three readers: `validate` (the whole-book scan), `fi
 book in one CSV file; refused layouts must give each reader the same one-line message naming the
 path.
 """
+
 from __future__ import annotations
 
 import re
@@ -13,15 +14,14 @@ from pathlib import Path
 
 import pandas as pd
 import pytest
+from conftest import SPEC_TEXT, small_book
+from test_rater import example_table
 
 from premiumlab._core.errors import InputError
 from premiumlab.book.scan import load_book
 from premiumlab.book.spec import load_spec
 from premiumlab.book.validate import validate_book
 from rating_tables import TableError, rate_file
-
-from conftest import SPEC_TEXT, small_book
-from test_rater import example_table
 
 BOOK = small_book(90)
 SPLITS = ((0, 40), (40, 70), (70, 90))
@@ -90,8 +90,11 @@ def test_a_pq_file_is_a_parquet_book(tmp_path, reader, whole):
     assert reader(tmp_path / "book.pq") == whole
 
 
-@pytest.mark.parametrize("suffixes", [(".csv",) * 3, (".parquet",) * 3, (".pq", ".parquet", ".pq")],
-                         ids=["csv-parts", "parquet-parts", "pq-and-parquet-parts"])
+@pytest.mark.parametrize(
+    "suffixes",
+    [(".csv",) * 3, (".parquet",) * 3, (".pq", ".parquet", ".pq")],
+    ids=["csv-parts", "parquet-parts", "pq-and-parquet-parts"],
+)
 def test_a_folder_of_parts_of_one_kind_is_read_in_name_order(tmp_path, reader, whole, suffixes):
     assert reader(_parts(tmp_path / "book", suffixes)) == whole
 
@@ -112,8 +115,13 @@ def exactly(message: str) -> str:
 
 def test_a_folder_mixing_csv_and_parquet_parts_is_refused_by_name(tmp_path, reader):
     folder = _parts(tmp_path / "book", (".parquet", ".csv", ".pq"))
-    with pytest.raises(ERRORS, match=exactly(f"{folder}: the folder mixes CSV and Parquet parts (part-1.csv and "
-                                             "part-0.parquet); a book folder holds parts of one kind")):
+    with pytest.raises(
+        ERRORS,
+        match=exactly(
+            f"{folder}: the folder mixes CSV and Parquet parts (part-1.csv and "
+            "part-0.parquet); a book folder holds parts of one kind"
+        ),
+    ):
         reader(folder)
 
 
@@ -128,8 +136,12 @@ def test_a_folder_without_parts_is_refused_by_name(tmp_path, reader):
 def test_an_unsupported_suffix_or_a_missing_book_is_refused_by_name(tmp_path, reader):
     path = tmp_path / "book.txt"
     BOOK.to_csv(path, index=False)
-    with pytest.raises(ERRORS, match=exactly(f"{path}: unsupported book format '.txt'; a book is a .csv, .parquet "
-                                             "or .pq file or a folder of such parts")):
+    with pytest.raises(
+        ERRORS,
+        match=exactly(
+            f"{path}: unsupported book format '.txt'; a book is a .csv, .parquet or .pq file or a folder of such parts"
+        ),
+    ):
         reader(path)
     with pytest.raises(ERRORS, match=exactly(f"{tmp_path / 'nothing.csv'}: the book does not exist")):
         reader(tmp_path / "nothing.csv")
@@ -142,8 +154,11 @@ def test_a_part_without_a_needed_column_is_refused_by_name(tmp_path, reader, suf
     folder = _parts(tmp_path / "book", (suffix,) * 3)
     part = folder / f"part-1{suffix}"
     _write(BOOK.iloc[40:70].drop(columns="bonus"), part)
-    with pytest.raises(ERRORS, match=rf"{re.escape(str(part))}: (missing column 'bonus'|its columns or types "
-                                     r"differ from part-0)"):
+    with pytest.raises(
+        ERRORS,
+        match=rf"{re.escape(str(part))}: (missing column 'bonus'|its columns or types "
+        r"differ from part-0)",
+    ):
         reader(folder)
 
 
@@ -152,8 +167,12 @@ def test_the_rated_output_may_end_in_pq_and_is_parquet(tmp_path):
     BOOK.to_csv(book, index=False)
     rate_file(example_table(), book, tmp_path / "rated.csv", "exposure")
     rate_file(example_table(), book, tmp_path / "rated.pq", "exposure")
-    assert pd.read_parquet(tmp_path / "rated.pq")["gross_premium"].tolist() == \
-        pd.read_csv(tmp_path / "rated.csv")["gross_premium"].tolist()
-    with pytest.raises(TableError, match=exactly(f"{tmp_path / 'rated.txt'}: the output must end in .csv or "
-                                                 ".parquet (or .pq, also Parquet)")):
+    assert (
+        pd.read_parquet(tmp_path / "rated.pq")["gross_premium"].tolist()
+        == pd.read_csv(tmp_path / "rated.csv")["gross_premium"].tolist()
+    )
+    with pytest.raises(
+        TableError,
+        match=exactly(f"{tmp_path / 'rated.txt'}: the output must end in .csv or .parquet (or .pq, also Parquet)"),
+    ):
         rate_file(example_table(), book, tmp_path / "rated.txt", "exposure")

@@ -6,17 +6,19 @@ break a `Rule` (such as `> 0`). The message names the array, how many values bre
 the position (0-based) and value of the first, e.g.
 ``exposure: 2 value(s) not > 0, first at row 7 (value 0.0)``.
 """
+
 from __future__ import annotations
 
 from collections.abc import Callable
 from dataclasses import dataclass
+from typing import TypeAlias
 
 import numpy as np
 import pandas as pd
 
 from premiumlab._core.errors import InputError
 
-ArrayLike = np.ndarray | pd.Series | list
+ArrayLike: TypeAlias = np.ndarray | pd.Series | list
 
 
 @dataclass(frozen=True)
@@ -38,8 +40,9 @@ ABOVE_ZERO = Rule("> 0", lambda values: values > 0)
 COUNT = Rule("a whole number >= 0", lambda values: (values >= 0) & (values == np.round(values)))
 
 
-def checked_array(name: str, values: ArrayLike, rule: Rule = FINITE, rows: int | None = None, *,
-                  unit: str = "row") -> np.ndarray:
+def checked_array(
+    name: str, values: ArrayLike, rule: Rule = FINITE, rows: int | None = None, *, unit: str = "row"
+) -> np.ndarray:
     """`values` as a one-dimensional float64 array whose values are all finite and meet `rule`.
 
     Parameters
@@ -77,8 +80,10 @@ def checked_array(name: str, values: ArrayLike, rule: Rule = FINITE, rows: int |
     for check in (FINITE,) if rule is FINITE else (FINITE, rule):
         bad = np.flatnonzero(~check.holds(array))
         if bad.size:
-            raise InputError(f"{name}: {bad.size} value(s) not {check.text}, first at {unit} {bad[0]} "
-                             f"(value {float(array[bad[0]])!r})")
+            raise InputError(
+                f"{name}: {bad.size} value(s) not {check.text}, first at {unit} {bad[0]} "
+                f"(value {float(array[bad[0]])!r})"
+            )
     return array
 
 

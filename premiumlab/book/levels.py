@@ -1,4 +1,5 @@
 """How each factor is cut for tables and GLMs: numeric bands or the order of categorical levels."""
+
 from __future__ import annotations
 
 from dataclasses import dataclass
@@ -42,15 +43,19 @@ def cut_levels(f: Factor, values: np.ndarray, exposure: np.ndarray, source: str)
     expo = np.bincount(codes, weights=exposure, minlength=len(labels))
     base = f.base if f.base is not None else labels[int(np.argmax(expo))]
     if f.base is not None and f.base not in labels:
-        raise InputError(f"{source}: key 'factors.{f.name}.base': '{f.base}' is not one of its "
-                         f"levels or bands ({', '.join(labels[:10])})")
+        raise InputError(
+            f"{source}: key 'factors.{f.name}.base': '{f.base}' is not one of its "
+            f"levels or bands ({', '.join(labels[:10])})"
+        )
     return Levels(f.name, labels, base, edges_t)
 
 
 def factor_levels(book: Book, spec: Spec, train: np.ndarray) -> dict[str, Levels]:
     """Bands and level orders per factor (`cut_levels`), fixed on the training rows."""
-    return {f.name: cut_levels(f, book.frame[f.name].to_numpy()[train], book.exposure[train], spec.source)
-            for f in spec.factors}
+    return {
+        f.name: cut_levels(f, book.frame[f.name].to_numpy()[train], book.exposure[train], spec.source)
+        for f in spec.factors
+    }
 
 
 def categorise(book_frame: pd.DataFrame, levels: dict[str, Levels]) -> pd.DataFrame:

@@ -3,11 +3,13 @@
 Row numbers in messages are 0-based data rows (the header is not counted), the same index that
 `predictions.parquet` calls `row`.
 """
+
 from __future__ import annotations
 
 import hashlib
 from collections.abc import Iterator
 from pathlib import Path
+from typing import cast
 
 import pandas as pd
 
@@ -51,8 +53,9 @@ def read_columns(path: str | Path) -> list[str]:
 
 def _part_columns(kind: str, part: Path) -> list[str]:
     if kind == "csv":
-        return list(_read_csv(part, nrows=0).columns)
+        return list(cast(pd.DataFrame, _read_csv(part, nrows=0)).columns)  # no chunksize: one frame
     import pyarrow.parquet as pq
+
     try:
         return list(pq.read_schema(part).names)
     except Exception as e:  # pyarrow raises several types for damaged files
@@ -70,8 +73,7 @@ def _read_csv(path: Path, **kwargs) -> pd.DataFrame | Iterator[pd.DataFrame]:
         raise InputError(f"{path}: malformed CSV ({str(e).strip().splitlines()[-1]})") from None
 
 
-def iter_book(path: str | Path, columns: list[str], chunk_rows: int = CHUNK_ROWS
-              ) -> Iterator[tuple[int, pd.DataFrame]]:
+def iter_book(path: str | Path, columns: list[str], chunk_rows: int = CHUNK_ROWS) -> Iterator[tuple[int, pd.DataFrame]]:
     """Yield (first row index, chunk) over the book; CSV values come as strings. A file (or part of
     a book folder) that lacks one of `columns` is refused by name."""
     offset = 0
@@ -93,6 +95,7 @@ def iter_book(path: str | Path, columns: list[str], chunk_rows: int = CHUNK_ROWS
                 raise InputError(f"{part}: malformed CSV ({str(e).strip().splitlines()[-1]})") from None
         else:
             import pyarrow.parquet as pq
+
             try:
                 pf = pq.ParquetFile(part, pre_buffer=False)  # pre-buffering would keep every row group read
                 for batch in pf.iter_batches(batch_size=chunk_rows, columns=columns):

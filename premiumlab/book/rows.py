@@ -3,6 +3,7 @@
 Row numbers in messages are 0-based data rows (the header is not counted), the same index that
 `predictions.parquet` calls `row`. The checks are pure: a chunk in, findings out.
 """
+
 from __future__ import annotations
 
 from dataclasses import dataclass, field
@@ -73,7 +74,7 @@ class FindingCollector:
     def note(self, level: str, column: str, message: str) -> None:
         self.items[(level, column, message)] = [None, []]
 
-    def merge(self, later: "FindingCollector") -> None:
+    def merge(self, later: FindingCollector) -> None:
         """Add the findings of the rows that follow these in the book."""
         for key, (count, rows) in later.items.items():
             entry = self.items.setdefault(key, [0 if count is not None else None, []])
@@ -88,8 +89,13 @@ class FindingCollector:
                 out.append(Finding(level, column, f"{self.source}: {check}"))
                 continue
             shown = ", ".join(map(str, rows)) + (", ..." if count > len(rows) else "")
-            out.append(Finding(level, column, f"{self.source}: column '{column}': {count} "
-                                              f"row{'s' if count != 1 else ''} {check} (rows {shown})"))
+            out.append(
+                Finding(
+                    level,
+                    column,
+                    f"{self.source}: column '{column}': {count} row{'s' if count != 1 else ''} {check} (rows {shown})",
+                )
+            )
         return out
 
 
@@ -138,39 +144,64 @@ def check_chunk(chunk: pd.DataFrame, offset: int, spec: Spec, out: FindingCollec
     out.add("error", c.exposure, "with a missing exposure", np.isnan(expo) & ~bad, offset)
     out.add("error", c.exposure, "with a non-finite exposure", np.isinf(expo), offset)
     out.add("error", c.exposure, "with exposure <= 0", np.isfinite(expo) & (expo <= 0), offset)
-    out.add("warning", c.exposure, f"with exposure above {TERM:g} term", np.isfinite(expo) & (expo > TERM),
-            offset)
+    out.add("warning", c.exposure, f"with exposure above {TERM:g} term", np.isfinite(expo) & (expo > TERM), offset)
 
     count, bad = to_number(chunk[c.claim_count])
     out.add("error", c.claim_count, "with a non-numeric claim count", bad, offset)
-    out.add("error", c.claim_count, "with a missing or non-finite claim count", ~np.isfinite(count) & ~bad,
-            offset)
+    out.add("error", c.claim_count, "with a missing or non-finite claim count", ~np.isfinite(count) & ~bad, offset)
     out.add("error", c.claim_count, "with a negative claim count", count < 0, offset)
-    out.add("error", c.claim_count, "with a fractional claim count",
-            np.isfinite(count) & (count != np.round(count)), offset)
+    out.add(
+        "error", c.claim_count, "with a fractional claim count", np.isfinite(count) & (count != np.round(count)), offset
+    )
 
     amount = None
     if c.claim_amount is not None:
         amount, bad = to_number(chunk[c.claim_amount])
         out.add("error", c.claim_amount, "with a non-numeric claim amount", bad, offset)
-        out.add("error", c.claim_amount, "with a missing or non-finite claim amount",
-                ~np.isfinite(amount) & ~bad, offset)
+        out.add(
+            "error", c.claim_amount, "with a missing or non-finite claim amount", ~np.isfinite(amount) & ~bad, offset
+        )
         out.add("error", c.claim_amount, "with a negative claim amount", amount < 0, offset)
-        out.add("error", c.claim_amount, f"with a claim amount of {MONEY_LIMIT:g} or more (check the units)",
-                np.isfinite(amount) & (amount >= MONEY_LIMIT), offset)
-        out.add("error", c.claim_amount, f"with a positive amount but zero claims in '{c.claim_count}'",
-                (amount > 0) & (count == 0), offset)
-        out.add("warning", c.claim_amount, "with nil claims (claims but amount 0; excluded from severity)",
-                (amount == 0) & (count > 0), offset)
+        out.add(
+            "error",
+            c.claim_amount,
+            f"with a claim amount of {MONEY_LIMIT:g} or more (check the units)",
+            np.isfinite(amount) & (amount >= MONEY_LIMIT),
+            offset,
+        )
+        out.add(
+            "error",
+            c.claim_amount,
+            f"with a positive amount but zero claims in '{c.claim_count}'",
+            (amount > 0) & (count == 0),
+            offset,
+        )
+        out.add(
+            "warning",
+            c.claim_amount,
+            "with nil claims (claims but amount 0; excluded from severity)",
+            (amount == 0) & (count > 0),
+            offset,
+        )
 
     premium = None
     if c.current_premium is not None:
         premium, bad = to_number(chunk[c.current_premium])
         out.add("error", c.current_premium, "with a non-numeric current premium", bad, offset)
-        out.add("error", c.current_premium, "with a missing, non-finite or non-positive current premium",
-                ~(np.isfinite(premium) & (premium > 0)) & ~bad, offset)
-        out.add("error", c.current_premium, f"with a current premium of {MONEY_LIMIT:g} or more (check the units)",
-                np.isfinite(premium) & (premium >= MONEY_LIMIT), offset)
+        out.add(
+            "error",
+            c.current_premium,
+            "with a missing, non-finite or non-positive current premium",
+            ~(np.isfinite(premium) & (premium > 0)) & ~bad,
+            offset,
+        )
+        out.add(
+            "error",
+            c.current_premium,
+            f"with a current premium of {MONEY_LIMIT:g} or more (check the units)",
+            np.isfinite(premium) & (premium >= MONEY_LIMIT),
+            offset,
+        )
 
     factors: dict[str, np.ndarray] = {}
     for f in spec.factors:
@@ -195,6 +226,5 @@ def _check_factor(values: pd.Series, f: Factor, offset: int, out: FindingCollect
     out.add("error", f.name, "with a missing value", text == "", offset)
     if f.levels is not None:
         unknown = ~pd.Series(text).isin(f.levels).to_numpy() & (text != "")
-        out.add("error", f.name, f"with a level not in the spec's levels ({', '.join(f.levels)})", unknown,
-                offset)
+        out.add("error", f.name, f"with a level not in the spec's levels ({', '.join(f.levels)})", unknown, offset)
     return text

@@ -1,4 +1,5 @@
 """The seeded holdout split of a book's policies."""
+
 from __future__ import annotations
 
 import numpy as np

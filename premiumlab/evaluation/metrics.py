@@ -19,8 +19,14 @@ import numpy as np
 import pandas as pd
 
 from premiumlab._core.errors import InputError
-from premiumlab._core.validators import (ABOVE_ZERO, AT_LEAST_ZERO, ArrayLike, checked_array, checked_arrays,
-                                         checked_weights)
+from premiumlab._core.validators import (
+    ABOVE_ZERO,
+    AT_LEAST_ZERO,
+    ArrayLike,
+    checked_array,
+    checked_arrays,
+    checked_weights,
+)
 from premiumlab.models.deviance import checked_deviance_inputs, unit_deviance_unchecked
 
 BootstrapMetric = Callable[..., np.ndarray]

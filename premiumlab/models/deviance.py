@@ -5,14 +5,21 @@ Poisson-Gamma (pure premium). Used to score fitted models (boosted-model cross-v
 metrics). Pure numpy functions without I/O; inputs are validated here (`premiumlab._core.validators`):
 bad input raises `InputError` naming the argument and the first offending row.
 """
+
 from __future__ import annotations
 
 import numpy as np
 from scipy.special import xlogy
 
 from premiumlab._core.errors import InputError
-from premiumlab._core.validators import (ABOVE_ZERO, AT_LEAST_ZERO, ArrayLike, checked_array, checked_arrays,
-                                         checked_weights)
+from premiumlab._core.validators import (
+    ABOVE_ZERO,
+    AT_LEAST_ZERO,
+    ArrayLike,
+    checked_array,
+    checked_arrays,
+    checked_weights,
+)
 
 
 def _check_power(power: float) -> None:
