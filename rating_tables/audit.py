@@ -14,7 +14,7 @@ import numpy as np
 from rating_tables.errors import TableError
 from rating_tables.io import load
 from rating_tables.table import (MONOTONE, Bands, CategoricalFactor, Factor, InteractionFactor, MainFactor,
-                                 NumericFactor, RatingTable, band_index, band_label, cell_labels,
+                                 NumericFactor, RatingTable, band_index, band_labels, cell_labels,
                                  mapping_to_side)
 
 MONOTONE_TOLERANCE = 1e-12  # relative step below which a reversal is floating-point noise
@@ -91,7 +91,7 @@ def _grid(main: MainFactor, sides: list[Bands | tuple[str, ...]]) -> tuple[list[
         return list(main.levels), levels, [mapping_to_side(main, side)[levels] for side in sides]
     lows = np.unique(np.concatenate([main.lower, *(side.lower for side in sides)]))
     highs = np.append(lows[1:], np.inf)
-    labels = [band_label(lo, hi) for lo, hi in zip(lows, highs)]
+    labels = band_labels(lows, highs)
     return labels, band_index(main.lower, lows), [band_index(side.lower, lows) for side in sides]
 
 

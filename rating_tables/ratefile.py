@@ -1,31 +1,31 @@
 """Rating a book file in row batches so that memory stays flat: CSV or Parquet in and out.
 
-The input is a `.csv` or `.parquet` file or a folder of such parts (read in name order); the
-output format follows `out_path`'s extension. The rated file is the same, byte for byte, whatever
-`batch_rows` is: CSV columns are read as text and passed through unchanged; Parquet columns keep
-their types (dictionary-encoded columns are written decoded), and the output's Parquet row groups
-hold a fixed `row_group_rows` rows. A Parquet output carries the table's cautions as JSON under
+The input is a book as `rating_tables.books` defines it (a `.csv`, `.parquet` or `.pq` file or a
+folder of parts of one kind, read in name order); the output format follows `out_path`'s extension.
+The rated file is the same, byte for byte, whatever `batch_rows` is: CSV columns are read as text
+and passed through unchanged; Parquet columns keep their types (dictionary-encoded columns are
+written decoded), and the output's Parquet row groups hold a fixed `row_group_rows` rows. A Parquet output carries the table's cautions as JSON under
 the schema metadata key `premiumlab.cautions`; for CSV the caller prints the returned cautions.
 """
 from __future__ import annotations
 
 import json
 import os
+from collections.abc import Iterator
 from pathlib import Path
-from typing import Iterator
 
 import pandas as pd
 import pyarrow as pa
 import pyarrow.csv as pa_csv
 import pyarrow.parquet as pq
 
+from rating_tables.books import book_parts, output_kind
 from rating_tables.errors import TableError
 from rating_tables.rate import added_columns, check_no_clash, rating_columns
 from rating_tables.table import RatingTable
 
 CAUTIONS_KEY = b"premiumlab.cautions"
 ROW_GROUP_ROWS = 262_144
-_KINDS = {".csv": "csv", ".parquet": "parquet"}
 
 
 def rate_file(table: RatingTable, in_path: str | os.PathLike, out_path: str | os.PathLike,
@@ -40,7 +40,7 @@ def rate_file(table: RatingTable, in_path: str | os.PathLike, out_path: str | os
     for name, value in (("batch_rows", batch_rows), ("row_group_rows", row_group_rows)):
         if isinstance(value, bool) or not isinstance(value, int) or value < 1:
             raise TableError(f"{name}: must be a positive integer, got {value!r}", where=name)
-    out_kind = _kind(target, "output")
+    out_kind = output_kind(target)
     if target.exists() and os.path.realpath(target) == os.path.realpath(source_path):
         raise TableError(f"{target}: the output would overwrite the input book", where=str(target))
     try:
@@ -72,13 +72,6 @@ def rate_file(table: RatingTable, in_path: str | os.PathLike, out_path: str | os
     return table.cautions
 
 
-def _kind(path: Path, what: str) -> str:
-    kind = _KINDS.get(path.suffix.lower())
-    if kind is None:
-        raise TableError(f"{path}: the {what} must end in .csv or .parquet", where=str(path))
-    return kind
-
-
 def _output_schema(schema: pa.Schema, table: RatingTable) -> pa.Schema:
     fields = [*schema, *(pa.field(name, pa.float64()) for name in added_columns(table))]
     return pa.schema(fields, metadata={CAUTIONS_KEY: json.dumps(list(table.cautions)).encode("utf-8")})
@@ -93,21 +86,12 @@ class _Source:
 
     def __init__(self, path: Path, batch_rows: int) -> None:
         self.batch_rows = batch_rows
-        if path.is_dir():
-            parts = sorted(p for p in path.iterdir() if p.suffix.lower() in _KINDS and p.name[0] not in "._")
-            kinds = {_KINDS[p.suffix.lower()] for p in parts}
-            if len(kinds) != 1:
-                raise TableError(f"{path}: a book folder must hold .csv or .parquet parts, one kind only")
-            self.kind = kinds.pop()
-        elif path.exists():
-            parts, self.kind = [path], _kind(path, "book")
-        else:
-            raise TableError(f"{path}: the book does not exist")
-        self.parts = parts
-        schemas = [self._schema(p) for p in parts]
-        for part, schema in zip(parts, schemas):
+        self.kind, self.parts = book_parts(path)
+        schemas = [self._schema(p) for p in self.parts]
+        for part, schema in zip(self.parts, schemas):
             if not schema.equals(schemas[0]):
-                raise TableError(f"{part}: its columns or types differ from {parts[0].name}'s", where=str(part))
+                raise TableError(f"{part}: its columns or types differ from {self.parts[0].name}'s",
+                                 where=str(part))
         self.schema = schemas[0]
 
     def _schema(self, part: Path) -> pa.Schema:

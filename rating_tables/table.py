@@ -34,8 +34,14 @@ def edge_text(x: float) -> str:
 
 
 def band_label(lower: float, upper: float) -> str:
-    """A band as `[lower, upper)` (lower inclusive, upper exclusive)."""
+    """A band as `[lower, upper)` (lower inclusive, upper exclusive), edges as exact text (`edge_text`),
+    so distinct edges always give distinct labels."""
     return f"[{edge_text(lower)}, {edge_text(upper)})"
+
+
+def band_labels(lower: Any, upper: Any) -> list[str]:
+    """The label (`band_label`) of each band [lower[i], upper[i])."""
+    return [band_label(lo, hi) for lo, hi in zip(lower, upper)]
 
 
 def band_index(lower: np.ndarray, values: np.ndarray) -> np.ndarray:
@@ -255,7 +261,7 @@ class NumericFactor(_ComparedByValue):
 
     def labels(self) -> list[str]:
         """The bands as `[lower, upper)` text."""
-        return [band_label(lo, hi) for lo, hi in zip(self.lower, self.upper)]
+        return band_labels(self.lower, self.upper)
 
 
 @dataclass(frozen=True, eq=False)
@@ -310,7 +316,7 @@ class Bands(_ComparedByValue):
 
     def labels(self) -> list[str]:
         """The bands as `[lower, upper)` text."""
-        return [band_label(lo, hi) for lo, hi in zip(self.lower, self.upper)]
+        return band_labels(self.lower, self.upper)
 
 
 Cells = Union[Bands, tuple[str, ...]]

@@ -103,7 +103,7 @@ def test_no_spread_between_levels_gives_no_credibility_and_bad_input_is_refused(
     """Levels whose means differ less than the within-level noise implies: a = 0, every Z = 0."""
     fit = buhlmann_straub(np.array([1.0, 3.0, 2.0, 2.0]), np.ones(4), np.array([0, 0, 1, 1]), 2)
     assert fit.between == 0.0 and fit.credibility.tolist() == [0.0, 0.0] and fit.k == float("inf")
-    with pytest.raises(InputError, match="weights > 0"):
+    with pytest.raises(InputError, match=r"credibility weights: 1 value\(s\) not > 0, first at row 0 \(value 0.0\)"):
         buhlmann_straub(np.array([1.0]), np.array([0.0]), np.array([0]), 1)
     with pytest.raises(InputError, match="level codes must lie in 0..1"):
         buhlmann_straub(np.array([1.0]), np.array([1.0]), np.array([2]), 2)

@@ -7,9 +7,12 @@ import pytest
 
 from premiumlab.book.bands import band_labels, quantile_edges
 from premiumlab.book.scan import _repeated_keys, load_book, profile, scan_book, with_quantile_bands
-from premiumlab.book.data import holdout_flags, iter_book
+from premiumlab.book.levels import categorise, factor_levels
+from premiumlab.book.reading import iter_book
+from premiumlab.book.split import holdout_flags
 from premiumlab._core.errors import InputError
 from premiumlab.book.spec import load_spec
+from premiumlab.book.validate import validate_book
 
 from _builders import small_book
 
@@ -209,3 +212,24 @@ def test_an_unbanded_numeric_factor_is_profiled_on_the_whole_books_exposure_quan
     ref = df.groupby(pd.cut(df["age"], [-np.inf, *edges, np.inf], right=False), observed=False)[
         ["exposure", "claim_count", "claim_amount"]].sum()
     np.testing.assert_allclose(prof[["exposure", "claims", "amount"]].to_numpy(), ref.to_numpy(), rtol=1e-12)
+
+
+def test_band_edges_differing_in_the_seventh_digit_keep_distinct_labels_in_validate_and_fit(tmp_path, spec_file):
+    """Edges 1234567, 1234568 and 1234569 all read 1.23457e+06 in `g` format; band labels write edges
+    as exact text, as the filed rating table does (`rating_tables.table.band_label`), so `validate`'s
+    profile and `fit`'s levels keep four distinct bands."""
+    spec_path = tmp_path / "close.toml"
+    spec_path.write_text(spec_file.read_text().replace("bands = [25, 40, 60]", "bands = [1234567, 1234568, 1234569]"))
+    df = small_book().assign(age=lambda d: 1234566 + np.arange(len(d)) % 5)
+    df.to_csv(tmp_path / "b.csv", index=False)
+    expected = ["[-inf, 1234567)", "[1234567, 1234568)", "[1234568, 1234569)", "[1234569, inf)"]
+    report = validate_book(tmp_path / "b.csv", spec_path)
+    assert not report.errors
+    assert list(report.profile["age"].index) == expected
+    assert report.profile["age"]["exposure"].tolist() == pytest.approx(
+        df.groupby(np.minimum(np.arange(len(df)) % 5, 3))["exposure"].sum().tolist(), rel=1e-12)
+    spec = load_spec(spec_path)
+    book = load_book(tmp_path / "b.csv", spec)
+    levels = factor_levels(book, spec, ~book.holdout)
+    assert levels["age"].labels == tuple(expected)
+    assert categorise(book.frame, levels)["age"].astype(str).tolist()[:5] == [*expected, expected[3]]

@@ -197,7 +197,7 @@ def test_unknown_level_and_bad_inputs_are_named(book, models):
     exposure = inputs.exposure.copy()
     exposure[5] = 0.0
     bad = GbmInputs(features, inputs.monotone, exposure, inputs.claim_count, inputs.claim_amount, inputs.groups)
-    with pytest.raises(InputError, match=r"exposure: row 5 has 0.0"):
+    with pytest.raises(InputError, match=r"exposure: 1 value\(s\) not > 0, first at row 5 \(value 0.0\)"):
         fit_target(bad, "frequency", OPTIONS)
     promised = GbmInputs(features, {"region": 1}, inputs.exposure, inputs.claim_count, None, inputs.groups)
     with pytest.raises(InputError, match=r"'region' is an unordered categorical"):

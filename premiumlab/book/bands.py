@@ -4,16 +4,15 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-
-def band_label(lower: float, upper: float) -> str:
-    """Label of the band [lower, upper), e.g. "[21, 25)" or "[-inf, 21)"; numbers in `g` format."""
-    return f"[{format(lower, 'g')}, {format(upper, 'g')})"
+from rating_tables.table import band_labels as labels_of_bands
 
 
 def band_labels(edges: np.ndarray | tuple[float, ...]) -> list[str]:
-    """Labels of the bands cut by interior `edges`: (-inf, e0), [e0, e1), ..., [e_last, inf)."""
+    """Labels of the bands cut by interior `edges`: [-inf, e0), [e0, e1), ..., [e_last, inf), as the
+    filed rating tables write them (`rating_tables.table.band_label`: edges as exact text, e.g.
+    "[21, 25)", "[-inf, 21)", "[1234567, 1234568)")."""
     full = np.concatenate([[-np.inf], np.asarray(edges, dtype=float), [np.inf]])
-    return [band_label(full[i], full[i + 1]) for i in range(len(full) - 1)]
+    return labels_of_bands(full[:-1], full[1:])
 
 
 def assign_bands(values: np.ndarray, edges: np.ndarray | tuple[float, ...]) -> np.ndarray:

@@ -1,7 +1,7 @@
 """One pass over a book: per-chunk tallies merged in book order, the book-level checks and the profile.
 
 `scan_book` reads a book chunk by chunk (or, given a task runner, its Parquet slices on Dask
-workers), types and checks every chunk (`data.check_chunk`), and sums what the book-level checks
+workers), types and checks every chunk (`rows.check_chunk`), and sums what the book-level checks
 need into a tally: no repeated (policy, period) pair, claims somewhere, no one-level factor, no two
 factors identical up to relabelling, thin and very many levels. `load_book` keeps the typed rows
 for `fit`; `validate` keeps only the tally, so its memory does not grow with the book.
@@ -19,9 +19,10 @@ import pandas as pd
 from premiumlab.book.bands import assign_bands, banded
 from premiumlab.book.quantiles import book_quantile_edges
 from premiumlab._core.cluster import TaskRunner
-from premiumlab.book.data import (CHUNK_ROWS, Book, Finding, FindingCollector, TypedChunk, as_text, book_files,
-                             book_sha256, check_chunk, cut_levels, holdout_flags, iter_book, read_columns, to_number,
-                             unreadable_parquet)
+from premiumlab.book.levels import cut_levels
+from premiumlab.book.reading import CHUNK_ROWS, book_parts, book_sha256, iter_book, read_columns, unreadable_parquet
+from premiumlab.book.rows import Book, Finding, FindingCollector, TypedChunk, as_text, check_chunk, to_number
+from premiumlab.book.split import holdout_flags
 from premiumlab._core.errors import InputError
 from premiumlab._core.progress import progress_bar
 from premiumlab.book.spec import Factor, Spec
@@ -268,10 +269,11 @@ def parquet_slices(path: str | Path, chunk_rows: int = CHUNK_ROWS) -> list[tuple
     file or a folder of parts), in book order; a slice never splits a row group."""
     import pyarrow.parquet as pq
     slices, offset = [], 0
-    for part in book_files(Path(path)):
-        if part.suffix.lower() == ".csv":
-            raise InputError(f"{part}: a CSV book is read in one process; convert it to Parquet to "
-                             "validate it on a cluster")
+    kind, parts = book_parts(Path(path))
+    if kind == "csv":
+        raise InputError(f"{path}: a CSV book is read in one process; convert it to Parquet to "
+                         "validate it on a cluster")
+    for part in parts:
         try:
             meta = pq.ParquetFile(part).metadata
         except Exception as e:  # pyarrow raises several types for damaged files

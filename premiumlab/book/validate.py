@@ -10,7 +10,8 @@ from premiumlab._core.cautions import VALIDATION
 from premiumlab._core.jsonio import plain
 from premiumlab._core.cluster import parse_cluster, tasks_on
 from premiumlab.book.scan import parquet_slices, profile, scan_book, with_quantile_bands
-from premiumlab.book.data import Finding, read_columns
+from premiumlab.book.reading import read_columns
+from premiumlab.book.rows import Finding
 from premiumlab.book.spec import Spec, load_spec
 
 

@@ -30,7 +30,8 @@ def model_columns(preds: pd.DataFrame, target: str) -> list[str]:
 
 def holdout_metrics(preds: pd.DataFrame, tweedie_power: float) -> dict:
     """Mean deviance, D^2, Gini and balance of every model column on the holdout rows."""
-    from premiumlab.evaluation.metrics import balance, d2, gini, mean_deviance
+    from premiumlab.evaluation.metrics import balance, gini
+    from premiumlab.models.deviance import d2, mean_deviance
     hold = preds[preds["holdout"]].reset_index(drop=True)
     out: dict[str, dict] = {}
     for target in TARGETS.values():

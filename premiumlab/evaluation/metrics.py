@@ -1,8 +1,10 @@
-"""Holdout metrics: Tweedie deviances, D^2, ordered Lorenz curve and Gini, lift, double lift,
-actual-versus-expected, balance, and paired bootstrap intervals for differences between models.
+"""Holdout metrics: ordered Lorenz curve and Gini, lift, double lift, actual-versus-expected,
+balance, and paired bootstrap intervals for differences between models (in deviance, from
+`premiumlab.models.deviance`, or in Gini).
 
-Pure numpy/pandas functions without I/O. Inputs are validated here, at the edge: bad input raises
-`InputError` (a `ValueError`) whose message names the argument and the first offending row.
+Pure numpy/pandas functions without I/O. Inputs are validated here, at the edge
+(`premiumlab._core.validators`): bad input raises `InputError` (a `ValueError`) whose message names
+the argument and the first offending row.
 
 Conventions: `actual` is the observed loss (amount or count) of each row in money or claims,
 `predicted` is a model's prediction per exposure unit (pure premium or frequency), `exposure` is
@@ -15,11 +17,18 @@ from dataclasses import asdict, dataclass
 
 import numpy as np
 import pandas as pd
-from scipy.special import xlogy
 
 from premiumlab._core.errors import InputError
+from premiumlab._core.validators import (
+    ABOVE_ZERO,
+    AT_LEAST_ZERO,
+    ArrayLike,
+    checked_array,
+    checked_arrays,
+    checked_weights,
+)
+from premiumlab.models.deviance import checked_deviance_inputs, unit_deviance_unchecked
 
-ArrayLike = np.ndarray | pd.Series | list
 BootstrapMetric = Callable[..., np.ndarray]
 """(resample_weights of shape (B, n), *arrays) -> B values of the difference between two models."""
 
@@ -30,69 +39,10 @@ _BOOTSTRAP_CELLS_PER_CHUNK = 2_000_000  # resamples are drawn in chunks of about
 # validation at the edge
 
 
-def _vector(name: str, values: ArrayLike) -> np.ndarray:
-    """One-dimensional, non-empty, finite float array, or InputError naming `name`."""
-    try:
-        array = np.asarray(values, dtype=float)
-    except (TypeError, ValueError) as error:
-        raise InputError(f"{name}: values are not numeric ({error})") from None
-    if array.ndim != 1:
-        raise InputError(f"{name}: expected a one-dimensional array, got shape {array.shape}")
-    if array.size == 0:
-        raise InputError(f"{name}: no rows")
-    _require(name, array, np.isfinite(array), "finite")
-    return array
-
-
-def _require(name: str, array: np.ndarray, ok: np.ndarray, rule: str) -> None:
-    """Raise InputError naming the first row where `ok` is False."""
-    if not ok.all():
-        bad = np.flatnonzero(~ok)
-        raise InputError(
-            f"{name}: {bad.size} value(s) not {rule}, first at row {bad[0]} (value {array[bad[0]]!r})"
-        )
-
-
-def _vectors(**named: ArrayLike) -> list[np.ndarray]:
-    """Validate each named array and check they all have the same number of rows."""
-    arrays = [_vector(name, values) for name, values in named.items()]
-    lengths = {name: array.size for name, array in zip(named, arrays)}
-    if len(set(lengths.values())) > 1:
-        listed = ", ".join(f"{name} has {size}" for name, size in lengths.items())
-        raise InputError(f"length mismatch: {listed} rows")
-    return arrays
-
-
-def _require_weights(name: str, weights: np.ndarray) -> None:
-    _require(name, weights, weights >= 0, ">= 0")
-    if weights.sum() <= 0:
-        raise InputError(f"{name}: the total is 0; at least one row needs a positive value")
-
-
 def _require_positive_total(name: str, values: np.ndarray) -> None:
-    _require(name, values, values >= 0, ">= 0")
+    checked_array(name, values, AT_LEAST_ZERO)
     if values.sum() <= 0:
         raise InputError(f"{name}: the total is 0; the metric needs some observed loss")
-
-
-def _check_power(power: float) -> None:
-    numeric = isinstance(power, (int, float, np.number)) and not isinstance(power, bool)
-    if not numeric or not np.isfinite(power) or power < 0 or 0 < power < 1:
-        raise InputError(
-            f"power: {power!r} is not a Tweedie power with a deviance here; use 0, 1, 1 < p < 2, 2 or p > 2"
-        )
-
-
-def _check_deviance_domain(y: np.ndarray, power: float, **predictions: np.ndarray) -> None:
-    """Normal: any y, mu; Poisson and compound Poisson: y >= 0, mu > 0; Gamma and beyond: y, mu > 0."""
-    if power == 0:
-        return
-    for name, mu in predictions.items():
-        _require(name, mu, mu > 0, f"> 0 (Tweedie power {power})")
-    if power < 2:
-        _require("y", y, y >= 0, f">= 0 (Tweedie power {power})")
-    else:
-        _require("y", y, y > 0, f"> 0 (Tweedie power {power})")
 
 
 def _check_bins(bins: int, rows: int) -> None:
@@ -103,67 +53,6 @@ def _check_bins(bins: int, rows: int) -> None:
 
 
 # ---------------------------------------------------------------------------------------------
-# deviance and D^2
-
-
-def _unit_deviance(y: np.ndarray, mu: np.ndarray, power: float) -> np.ndarray:
-    if power == 0:
-        return (y - mu) ** 2
-    if power == 1:
-        return 2 * (xlogy(y, y / mu) - y + mu)
-    if power == 2:
-        return 2 * (np.log(mu / y) + y / mu - 1)
-    return 2 * (
-        np.power(y, 2 - power) / ((1 - power) * (2 - power))
-        - y * np.power(mu, 1 - power) / (1 - power)
-        + np.power(mu, 2 - power) / (2 - power)
-    )
-
-
-def unit_deviance(y: ArrayLike, mu: ArrayLike, power: float) -> np.ndarray:
-    """Tweedie unit deviance d(y, mu) per row, >= 0 and 0 only where y = mu.
-
-    power 0: (y - mu)^2; 1 (Poisson): 2 (y log(y/mu) - y + mu); 2 (Gamma): 2 (log(mu/y) + y/mu - 1);
-    1 < p < 2 and p > 2: 2 (y^(2-p)/((1-p)(2-p)) - y mu^(1-p)/(1-p) + mu^(2-p)/(2-p)).
-    """
-    _check_power(power)
-    y_arr, mu_arr = _vectors(y=y, mu=mu)
-    _check_deviance_domain(y_arr, power, mu=mu_arr)
-    return _unit_deviance(y_arr, mu_arr, power)
-
-
-def _checked_deviance_inputs(
-    y: ArrayLike, weight: ArrayLike, power: float, **predictions: ArrayLike
-) -> list[np.ndarray]:
-    """[y, weight, *predictions], validated for the Tweedie deviance of this power."""
-    _check_power(power)
-    arrays = _vectors(y=y, weight=weight, **predictions)
-    _require_weights("weight", arrays[1])
-    _check_deviance_domain(arrays[0], power, **dict(zip(predictions, arrays[2:])))
-    return arrays
-
-
-def mean_deviance(y: ArrayLike, mu: ArrayLike, weight: ArrayLike, power: float) -> float:
-    """Weighted mean unit deviance: sum(w * d(y, mu)) / sum(w).
-
-    Frequency: y = count/exposure, w = exposure, power 1; severity: y = amount/count, w = count,
-    power 2; pure premium: y = amount/exposure, w = exposure, Tweedie power p.
-    """
-    y_arr, w_arr, mu_arr = _checked_deviance_inputs(y, weight, power, mu=mu)
-    return float(np.sum(w_arr * _unit_deviance(y_arr, mu_arr, power)) / np.sum(w_arr))
-
-
-def d2(y: ArrayLike, mu: ArrayLike, weight: ArrayLike, power: float) -> float:
-    """Share of deviance explained: 1 - D(y, mu) / D(y, ybar), ybar = sum(w y) / sum(w) (unitless)."""
-    y_arr, w_arr, mu_arr = _checked_deviance_inputs(y, weight, power, mu=mu)
-    y_mean = np.full_like(y_arr, np.sum(w_arr * y_arr) / np.sum(w_arr))
-    null = np.sum(w_arr * _unit_deviance(y_arr, y_mean, power))
-    if null <= 0:
-        raise InputError("y: every weighted row equals the mean, so D^2 is undefined (null deviance 0)")
-    return float(1 - np.sum(w_arr * _unit_deviance(y_arr, mu_arr, power)) / null)
-
-
-# ---------------------------------------------------------------------------------------------
 # ordered Lorenz curve and Gini
 
 
@@ -171,9 +60,9 @@ def _checked_loss_inputs(
     actual: ArrayLike, exposure: ArrayLike, **predictions: ArrayLike
 ) -> list[np.ndarray]:
     """[actual, exposure, *predictions], validated: losses >= 0 with a positive total, exposure >= 0."""
-    arrays = _vectors(actual=actual, exposure=exposure, **predictions)
+    arrays = checked_arrays(actual=actual, exposure=exposure, **predictions)
     _require_positive_total("actual", arrays[0])
-    _require_weights("exposure", arrays[1])
+    checked_weights("exposure", arrays[1])
     return arrays
 
 
@@ -302,8 +191,9 @@ def double_lift(
     actual_arr, exposure_arr, a_arr, b_arr = _checked_loss_inputs(
         actual, exposure, pred_a=pred_a, pred_b=pred_b
     )
-    _require("pred_a", a_arr, a_arr > 0, "> 0 (double lift sorts by pred_a / pred_b)")
-    _require("pred_b", b_arr, b_arr > 0, "> 0 (double lift sorts by pred_a / pred_b)")
+    sorted_by_ratio = ABOVE_ZERO.because("double lift sorts by pred_a / pred_b")
+    checked_array("pred_a", a_arr, sorted_by_ratio)
+    checked_array("pred_b", b_arr, sorted_by_ratio)
     _check_bins(bins, actual_arr.size)
     ratio = a_arr / b_arr
     bin_index = _equal_exposure_bins(ratio, exposure_arr, bins)
@@ -482,8 +372,9 @@ def deviance_difference(
 ) -> BootstrapInterval:
     """mean_deviance(a) - mean_deviance(b) with a paired bootstrap interval (> 0: b fits better).
     `groups` (e.g. policy ids) resamples whole groups of rows together."""
-    y_arr, w_arr, mu_a_arr, mu_b_arr = _checked_deviance_inputs(y, weight, power, mu_a=mu_a, mu_b=mu_b)
-    unit_difference = _unit_deviance(y_arr, mu_a_arr, power) - _unit_deviance(y_arr, mu_b_arr, power)
+    y_arr, w_arr, mu_a_arr, mu_b_arr = checked_deviance_inputs(y, weight, power, mu_a=mu_a, mu_b=mu_b)
+    unit_difference = (unit_deviance_unchecked(y_arr, mu_a_arr, power)
+                       - unit_deviance_unchecked(y_arr, mu_b_arr, power))
     return paired_bootstrap(
         _weighted_mean_difference, w_arr * unit_difference, w_arr, n_boot=n_boot, seed=seed, groups=groups
     )

@@ -275,7 +275,8 @@ def latest_period_holdout(periods: np.ndarray) -> np.ndarray:
 
 def read_text_column(path: str | Path, column: str) -> np.ndarray:
     """One column of a book as strings typed the way the book's levels are ("01" stays "01")."""
-    from premiumlab.book.data import as_text, iter_book
+    from premiumlab.book.reading import iter_book
+    from premiumlab.book.rows import as_text
     return np.concatenate([as_text(chunk[column]) for _, chunk in iter_book(path, [column])])
 
 
@@ -318,7 +319,8 @@ def read_claims(path: Path, spec: Spec, policy: np.ndarray, period: np.ndarray |
                 amount: np.ndarray) -> Claims:
     """Read the claims file, match each claim to its book row by policy (and period) and check that
     the claims of every row add up to the row's amount."""
-    from premiumlab.book.data import as_text, iter_book, read_columns
+    from premiumlab.book.reading import iter_book, read_columns
+    from premiumlab.book.rows import as_text
     c, exp = spec.columns, spec.experience
     if not path.exists():
         raise InputError(f"{path}: claims file not found (experience.claims_file)")

@@ -86,7 +86,7 @@ def compare(run_dir: str | Path, n_boot: int = N_BOOT) -> dict:
 
 
 def _actual_vs_expected(run, hold: pd.DataFrame, result: dict, fig_dir: Path, ave, figures) -> None:
-    from premiumlab.book.data import categorise
+    from premiumlab.book.levels import categorise
     if "pure_premium" not in result["metrics"]:
         return
     book = run.load_book()

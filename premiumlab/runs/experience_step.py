@@ -13,7 +13,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from premiumlab.book.data import Book
+from premiumlab.book.rows import Book
 from premiumlab.book.spec import Spec
 from premiumlab.experience.adjustments import Adjustment, prepare
 

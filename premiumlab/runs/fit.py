@@ -20,7 +20,7 @@ from premiumlab._core.errors import InputError
 from premiumlab._core.jsonio import write_json
 from premiumlab._core.outputs import atomic_output, check_target
 from premiumlab._core.progress import Progress
-from premiumlab.book.data import categorise, factor_levels
+from premiumlab.book.levels import categorise, factor_levels
 from premiumlab.book.scan import load_book
 from premiumlab.book.spec import Spec, load_spec
 from premiumlab.experience.adjustments import latest_period_holdout, read_text_column

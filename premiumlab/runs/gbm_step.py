@@ -8,8 +8,8 @@ import pandas as pd
 
 from premiumlab._core.cluster import IN_PROCESS, TaskRunner
 from premiumlab._core.jsonio import write_json
-from premiumlab.book.data import Book
 from premiumlab.book.gbm_options import GbmOptions
+from premiumlab.book.rows import Book
 from premiumlab.book.spec import Spec
 from premiumlab.models.gbm.features import features_from_spec
 from premiumlab.models.targets import TARGETS

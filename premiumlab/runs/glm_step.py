@@ -13,7 +13,8 @@ import numpy as np
 import pandas as pd
 
 from premiumlab._core.jsonio import write_json
-from premiumlab.book.data import Book, Levels
+from premiumlab.book.levels import Levels
+from premiumlab.book.rows import Book
 from premiumlab.book.spec import Spec
 from premiumlab.experience.adjustments import Adjustment, period_order
 from premiumlab.models.glm.fit import GlmInputs, GlmResult, fit_frequency, fit_pure_premium, fit_severity

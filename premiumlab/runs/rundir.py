@@ -22,7 +22,8 @@ import pandas as pd
 
 from premiumlab._core.errors import InputError
 from premiumlab._core.jsonio import plain, read_json, write_json
-from premiumlab.book.data import Book, Levels
+from premiumlab.book.levels import Levels
+from premiumlab.book.rows import Book
 from premiumlab.book.scan import load_book
 from premiumlab.book.spec import Spec, parse_spec
 from premiumlab.experience.adjustments import latest_period_holdout, read_text_column

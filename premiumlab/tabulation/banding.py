@@ -13,6 +13,7 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
+from premiumlab.book.bands import band_labels
 from premiumlab.tabulation.effects import Curve
 from premiumlab.tabulation.segment import isotonic, optimal_segmentation
 from rating_tables.monotone import Monotone
@@ -65,8 +66,7 @@ class Banding:
     def labels(self) -> list[str]:
         """Band labels: `[lower, upper)` or the levels of the band joined by `+`."""
         if self.numeric:
-            full = np.concatenate([[-np.inf], self.edges, [np.inf]])
-            return [f"[{full[k]:g}, {full[k + 1]:g})" for k in range(self.n_bands)]
+            return band_labels(self.edges)
         return ["+".join(lv for lv, b in zip(self.levels, self.band_of_level) if b == k)
                 for k in range(self.n_bands)]
 

@@ -27,6 +27,7 @@ import numpy as np
 import pandas as pd
 
 from premiumlab._core.errors import InputError
+from premiumlab._core.validators import ABOVE_ZERO, checked_array
 
 
 @dataclass(frozen=True)
@@ -49,15 +50,11 @@ class BuhlmannStraub:
 
 def buhlmann_straub(x: np.ndarray, w: np.ndarray, group: np.ndarray, n_groups: int) -> BuhlmannStraub:
     """Fit Buhlmann-Straub to units with values `x`, weights `w` > 0 and level codes `group` (0..n-1)."""
-    x, w = np.asarray(x, dtype=float), np.asarray(w, dtype=float)
     group = np.asarray(group, dtype=np.int64)
-    if not (len(x) == len(w) == len(group)):
-        raise InputError(f"credibility: x, w and group must have one value per unit ({len(x)}, {len(w)}, "
-                         f"{len(group)})")
-    if len(x) and (group.min() < 0 or group.max() >= n_groups):
+    x = checked_array("credibility values", x, rows=len(group))
+    w = checked_array("credibility weights", w, ABOVE_ZERO, rows=len(group))
+    if len(group) and (group.min() < 0 or group.max() >= n_groups):
         raise InputError(f"credibility: level codes must lie in 0..{n_groups - 1}")
-    if not (np.all(np.isfinite(x)) and np.all(w > 0)):
-        raise InputError("credibility: values must be finite and weights > 0")
     m_i = np.bincount(group, weights=w, minlength=n_groups)
     n_i = np.bincount(group, minlength=n_groups)
     with np.errstate(invalid="ignore", divide="ignore"):

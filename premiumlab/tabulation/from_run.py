@@ -32,7 +32,7 @@ import numpy as np
 import pandas as pd
 
 from premiumlab.experience.cautions import cautions_for
-from premiumlab.book.data import Book
+from premiumlab.book.rows import Book
 from premiumlab.tabulation.banding import Banding
 from premiumlab.tabulation.distill import distil
 from premiumlab.tabulation.effects import FactorValues, exposure_sample
@@ -303,7 +303,8 @@ def fidelity(table, frame: pd.DataFrame, spec: Spec, book: Book, preds: pd.DataF
     """Deviance and Gini of the table, the boosted model and the GLM on `rows`, and the retention."""
     from rating_tables import rate
 
-    from premiumlab.evaluation.metrics import gini, mean_deviance
+    from premiumlab.evaluation.metrics import gini
+    from premiumlab.models.deviance import mean_deviance
 
     exposure, amount = book.exposure[rows], book.claim_amount[rows]
     predictions = {"table": rate(table, frame, spec.columns.exposure)["pure_premium"].to_numpy() / exposure}

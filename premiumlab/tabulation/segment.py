@@ -12,25 +12,15 @@ from dataclasses import dataclass
 import numpy as np
 
 from premiumlab._core.errors import InputError
+from premiumlab._core.validators import ABOVE_ZERO, checked_array
 
 #: Costs within this share of the curve's total sum of squares count as equal (fewer bands win).
 COST_TIE_TOLERANCE = 1e-12
 
 
 def _curve(values: np.ndarray, weights: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    y = np.asarray(values, dtype=float)
-    w = np.asarray(weights, dtype=float)
-    if y.ndim != 1 or y.size == 0:
-        raise InputError(f"curve: expected a non-empty one-dimensional array, got shape {y.shape}")
-    if w.shape != y.shape:
-        raise InputError(f"curve weights: expected shape {y.shape}, got {w.shape}")
-    bad = ~np.isfinite(y)
-    if bad.any():
-        raise InputError(f"curve: value at point {int(np.flatnonzero(bad)[0])} is not finite")
-    bad = ~(np.isfinite(w) & (w > 0))
-    if bad.any():
-        raise InputError(f"curve weights: weight at point {int(np.flatnonzero(bad)[0])} is not finite and > 0")
-    return y, w
+    y = checked_array("curve", values, unit="point")
+    return y, checked_array("curve weights", weights, ABOVE_ZERO, y.size, unit="point")
 
 
 def isotonic(values: np.ndarray, weights: np.ndarray, increasing: bool = True) -> np.ndarray:

@@ -21,6 +21,7 @@ from sklearn.metrics import (
 )
 
 from premiumlab.evaluation import metrics
+from premiumlab.models import deviance
 
 
 @pytest.fixture(scope="module")
@@ -53,7 +54,7 @@ def test_mean_deviance_equals_sklearn_tweedie(insurance: pd.DataFrame, power: fl
     Powers >= 2 need y > 0, so the one cell without claims is left out there."""
     rows = insurance[insurance["Claims"] > 0] if power >= 2 else insurance
     y, mu, w = rows["frequency"], rows["predicted"], rows["Holders"]
-    ours = metrics.mean_deviance(y, mu, w, power)
+    ours = deviance.mean_deviance(y, mu, w, power)
     reference = mean_tweedie_deviance(y, mu, sample_weight=w, power=power)
     assert ours == pytest.approx(reference, rel=1e-10, abs=1e-14)
     assert ours > 0
@@ -62,11 +63,11 @@ def test_mean_deviance_equals_sklearn_tweedie(insurance: pd.DataFrame, power: fl
 def test_poisson_and_gamma_deviance_equal_sklearn(insurance: pd.DataFrame) -> None:
     """Power 1 = mean_poisson_deviance and power 2 = mean_gamma_deviance (weighted), to 1e-10."""
     y, mu, w = insurance["frequency"], insurance["predicted"], insurance["Holders"]
-    assert metrics.mean_deviance(y, mu, w, 1) == pytest.approx(
+    assert deviance.mean_deviance(y, mu, w, 1) == pytest.approx(
         mean_poisson_deviance(y, mu, sample_weight=w), rel=1e-10
     )
     positive = insurance[insurance["Claims"] > 0]
-    assert metrics.mean_deviance(positive["frequency"], positive["predicted"], positive["Claims"], 2) == pytest.approx(
+    assert deviance.mean_deviance(positive["frequency"], positive["predicted"], positive["Claims"], 2) == pytest.approx(
         mean_gamma_deviance(positive["frequency"], positive["predicted"], sample_weight=positive["Claims"]),
         rel=1e-10,
     )
@@ -75,7 +76,7 @@ def test_poisson_and_gamma_deviance_equal_sklearn(insurance: pd.DataFrame) -> No
 def test_unit_deviance_averages_to_sklearn(insurance: pd.DataFrame) -> None:
     """Unweighted mean of the unit deviances = sklearn without weights (power 1.5), to 1e-10."""
     y, mu = insurance["frequency"], insurance["predicted"]
-    assert metrics.unit_deviance(y, mu, 1.5).mean() == pytest.approx(
+    assert deviance.unit_deviance(y, mu, 1.5).mean() == pytest.approx(
         mean_tweedie_deviance(y, mu, power=1.5), rel=1e-10
     )
 
@@ -85,7 +86,7 @@ def test_d2_equals_sklearn_d2_tweedie_score(insurance: pd.DataFrame, power: floa
     """D^2 against the weighted mean = sklearn d2_tweedie_score with sample_weight, to 1e-10."""
     rows = insurance[insurance["Claims"] > 0] if power >= 2 else insurance
     y, mu, w = rows["frequency"], rows["predicted"], rows["Holders"]
-    ours = metrics.d2(y, mu, w, power)
+    ours = deviance.d2(y, mu, w, power)
     assert ours == pytest.approx(d2_tweedie_score(y, mu, sample_weight=w, power=power), abs=1e-10)
     assert 0 < ours < 1
 

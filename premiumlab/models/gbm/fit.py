@@ -6,9 +6,10 @@ weight and rows, all with a log link, so the raw score is log(prediction).
 
 Tuning: every setting of a small grid is trained on K-1 folds (folds grouped by policy, so the rows
 of a policy stay together) with early stopping on the weighted mean deviance of the held-out fold
-(`premiumlab.metrics.mean_deviance`, the family's deviance; LightGBM's built-in metrics for these
-objectives are negative log-likelihoods, so they are switched off). The setting with the lowest mean
-fold deviance is refitted on the whole training part with the mean of its folds' best round counts.
+(`premiumlab.models.deviance.mean_deviance`, the family's deviance; LightGBM's built-in metrics for
+these objectives are negative log-likelihoods, so they are switched off). The setting with the lowest
+mean fold deviance is refitted on the whole training part with the mean of its folds' best round
+counts.
 
 Balance: sum(weight x prediction) / sum(weight x label) on the training part, i.e. predicted over
 observed claims (frequency) or amounts (severity, pure premium). Outside 1 +- 1 % every prediction
@@ -33,8 +34,9 @@ from premiumlab._core.cluster import IN_PROCESS, TaskRunner
 from premiumlab._core.errors import InputError
 from premiumlab._core.jsonio import read_json
 from premiumlab._core.progress import progress_bar
+from premiumlab._core.validators import ABOVE_ZERO, AT_LEAST_ZERO, checked_array
 from premiumlab.book.gbm_options import MONOTONE_METHODS, GbmOptions
-from premiumlab.evaluation.metrics import mean_deviance
+from premiumlab.models.deviance import mean_deviance
 from premiumlab.models.targets import TARGETS
 from premiumlab.models.trees.certificate import certify
 
@@ -174,18 +176,6 @@ def _check_options(options: GbmOptions) -> None:
                              f"{', '.join(sorted(GRID_KEYS))}")
 
 
-def _check_vector(name: str, values: np.ndarray | None, rows: int, rule: Callable[[np.ndarray], np.ndarray],
-                  rule_text: str) -> np.ndarray:
-    array = np.asarray(values, dtype=float)
-    if array.shape != (rows,):
-        raise InputError(f"{name}: expected {rows} rows (as features), got shape {array.shape}")
-    ok = np.isfinite(array) & rule(array)
-    if not ok.all():
-        row = int(np.flatnonzero(~ok)[0])
-        raise InputError(f"{name}: row {row} has {float(array[row])!r}; values must be finite and {rule_text}")
-    return array
-
-
 def _check_feature_names(features: pd.DataFrame) -> list[str]:
     names = [str(c) for c in features.columns]
     if not names:
@@ -259,13 +249,13 @@ def _check_monotone(monotone: dict[str, int], names: list[str], categories: dict
 
 def _target_rows(inputs: GbmInputs, target: str, rows: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """(row mask, label, weight) of the target (`premiumlab.models.targets`), the inputs checked."""
-    exposure = _check_vector("exposure", inputs.exposure, rows, lambda a: a > 0, "> 0")
-    count = _check_vector("claim_count", inputs.claim_count, rows, lambda a: a >= 0, ">= 0")
+    exposure = checked_array("exposure", inputs.exposure, ABOVE_ZERO, rows)
+    count = checked_array("claim_count", inputs.claim_count, AT_LEAST_ZERO, rows)
     amount = None
     if TARGETS[target].needs_amount:
         if inputs.claim_amount is None:
             raise InputError(f"claim_amount: required for the {target} model")
-        amount = _check_vector("claim_amount", inputs.claim_amount, rows, lambda a: a >= 0, ">= 0")
+        amount = checked_array("claim_amount", inputs.claim_amount, AT_LEAST_ZERO, rows)
     view = TARGETS[target].view(exposure, count, amount)
     if not (view.weight * view.label).sum() > 0:
         raise InputError(f"{target}: the training rows hold no claims to model")

@@ -16,6 +16,7 @@ import scipy.stats
 
 from premiumlab._core.cautions import DRAFT
 from premiumlab._core.errors import InputError
+from premiumlab._core.validators import ABOVE_ZERO, AT_LEAST_ZERO, COUNT, Rule, checked_array
 from premiumlab.models.glm.engines import (
     Cells,
     ColumnChoice,
@@ -55,16 +56,13 @@ class GlmInputs:
     def __post_init__(self) -> None:
         n_rows = _check_factors(self.factors)
         _check_base_levels(self.factors, self.base_levels)
-        exposure = _numeric_column("exposure", self.exposure, n_rows)
-        _refuse_rows("exposure", ~(exposure > 0), "values are not > 0")
-        count = _numeric_column("claim_count", self.claim_count, n_rows)
-        _refuse_rows("claim_count", (count < 0) | (count != np.round(count)), "values are negative or fractional")
+        exposure = checked_array("exposure", self.exposure, ABOVE_ZERO, n_rows)
+        count = checked_array("claim_count", self.claim_count, COUNT, n_rows)
         object.__setattr__(self, "exposure", exposure)
         object.__setattr__(self, "claim_count", count)
         if self.claim_amount is not None:
-            amount = _numeric_column("claim_amount", self.claim_amount, n_rows)
-            _refuse_rows("claim_amount", amount < 0, "values are negative")
-            _refuse_rows("claim_amount", (amount > 0) & (count == 0), "values are positive with claim_count 0")
+            amount = checked_array("claim_amount", self.claim_amount, AT_LEAST_ZERO, n_rows)
+            checked_array("claim_amount", amount, Rule("0 where claim_count is 0", lambda a: (a == 0) | (count > 0)))
             object.__setattr__(self, "claim_amount", amount)
         unknown = [name for name in self.control if name not in self.factors.columns]
         if unknown:
@@ -102,20 +100,6 @@ def _check_base_levels(factors: pd.DataFrame, base_levels: dict[str, str]) -> No
             raise InputError(f"base_levels: no base level given for factor '{name}'")
         if base_levels[name] not in factors[name].cat.categories:
             raise InputError(f"base_levels['{name}']: '{base_levels[name]}' is not a level of the factor")
-
-
-def _numeric_column(name: str, values: Any, n_rows: int) -> np.ndarray:
-    array = np.asarray(values, dtype=float)
-    if array.shape != (n_rows,):
-        raise InputError(f"{name}: expected {n_rows} values (one per row), got shape {array.shape}")
-    _refuse_rows(name, ~np.isfinite(array), "values are missing or not finite")
-    return array
-
-
-def _refuse_rows(name: str, bad: np.ndarray, what: str) -> None:
-    positions = np.flatnonzero(bad)
-    if positions.size:
-        raise InputError(f"{name}: {positions.size} {what}, first at row position {positions[0]}")
 
 
 @dataclass

@@ -1,0 +1,78 @@
+"""Which files make up a book of policies: the one set of rules every reader of books follows.
+
+A book is one `.csv` file, one `.parquet` or `.pq` file, or a folder of parts of one kind, read in
+name order. In a folder, the parts are the files whose suffix is one of those; entries whose name
+starts with `.` or `_` are skipped (hidden files, `._` resource forks, `_SUCCESS` and `_metadata`
+markers), as are sub-folders and files with other suffixes. A folder holding both CSV and Parquet
+parts is refused: its rows would be read under two sets of typing rules.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from rating_tables.errors import TableError
+
+#: The file kind of each accepted suffix (compared in lower case).
+KIND_OF_SUFFIX = {".csv": "csv", ".parquet": "parquet", ".pq": "parquet"}
+#: Entries of a book folder whose name starts with one of these are not parts.
+SKIPPED_PREFIXES = (".", "_")
+
+
+def file_kind(path: Path) -> str | None:
+    """`csv` or `parquet` from the suffix of `path`, or None for any other suffix."""
+    return KIND_OF_SUFFIX.get(path.suffix.lower())
+
+
+def output_kind(path: Path) -> str:
+    """The kind of book file to write at `path`; TableError naming `path` for another suffix."""
+    kind = file_kind(path)
+    if kind is None:
+        raise TableError(f"{path}: the output must end in .csv or .parquet (or .pq, also Parquet)", where=str(path))
+    return kind
+
+
+def book_parts(path: Path) -> tuple[str, list[Path]]:
+    """(kind, parts in name order) of the book at `path`: the file itself, or a folder's parts.
+
+    Parameters
+    ----------
+    path
+        A book file or a folder of parts (rules in the module docstring).
+
+    Returns
+    -------
+    tuple
+        The kind (`csv` or `parquet`) and the part files, at least one.
+
+    Raises TableError naming `path` when it does not exist, has an unsupported suffix, is a
+    folder without parts, or is a folder mixing CSV and Parquet parts.
+    """
+    if not path.exists():
+        raise TableError(f"{path}: the book does not exist", where=str(path))
+    if not path.is_dir():
+        kind = file_kind(path)
+        if kind is None:
+            raise TableError(
+                f"{path}: unsupported book format '{path.suffix}'; a book is a .csv, .parquet "
+                "or .pq file or a folder of such parts",
+                where=str(path),
+            )
+        return kind, [path]
+    parts = sorted(
+        p
+        for p in path.iterdir()
+        if not p.name.startswith(SKIPPED_PREFIXES) and file_kind(p) is not None and p.is_file()
+    )
+    if not parts:
+        raise TableError(f"{path}: is a directory with no .csv, .parquet or .pq parts", where=str(path))
+    first_of_kind: dict[str, Path] = {}
+    for part in parts:
+        first_of_kind.setdefault(KIND_OF_SUFFIX[part.suffix.lower()], part)
+    if len(first_of_kind) > 1:
+        raise TableError(
+            f"{path}: the folder mixes CSV and Parquet parts ({first_of_kind['csv'].name} and "
+            f"{first_of_kind['parquet'].name}); a book folder holds parts of one kind",
+            where=str(path),
+        )
+    return next(iter(first_of_kind)), parts
