@@ -4,6 +4,7 @@ from __future__ import annotations
 from pathlib import Path
 
 import pytest
+
 from _builders import DEMO_POLICIES, QUICK_GBM, ROOT, SPEC_TEXT, run_cli, small_book
 
 

@@ -18,9 +18,10 @@ from pathlib import Path
 
 import pytest
 
-from _builders import SPEC_TEXT, run_cli, small_book
 from premiumlab._core.errors import InputError
 from premiumlab._core.outputs import atomic_files, atomic_output
+
+from _builders import SPEC_TEXT, run_cli, small_book
 
 POLL_SECONDS = 0.02
 START_TIMEOUT = 120.0

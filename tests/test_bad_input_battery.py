@@ -21,8 +21,8 @@ import pandas as pd
 import pytest
 
 import rating_tables
-from _builders import ROOT, SPEC_TEXT, run_cli, small_book
-from test_rater import example_book, example_table
+
+from _builders import ROOT, SPEC_TEXT, example_book, example_table, run_cli, small_book
 
 Prepare = Callable[[Path], None]
 

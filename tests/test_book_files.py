@@ -14,7 +14,6 @@ from pathlib import Path
 
 import pandas as pd
 import pytest
-from test_rater import example_table
 
 from premiumlab._core.errors import InputError
 from premiumlab.book.scan import load_book
@@ -22,7 +21,7 @@ from premiumlab.book.spec import load_spec
 from premiumlab.book.validate import validate_book
 from rating_tables import TableError, rate_file
 
-from _builders import SPEC_TEXT, small_book
+from _builders import SPEC_TEXT, example_table, small_book
 
 BOOK = small_book(90)
 SPLITS = ((0, 40), (40, 70), (70, 90))

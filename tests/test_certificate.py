@@ -7,10 +7,10 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from premiumlab.models.trees.certificate import certify, sweep
-from premiumlab.models.trees.parser import parse_model
 from premiumlab._core.errors import InputError
 from premiumlab.models.gbm.fit import GbmInputs, GbmOptions, fit_target
+from premiumlab.models.trees.certificate import certify, sweep
+from premiumlab.models.trees.parser import parse_model
 
 GRID = ({"num_leaves": 15, "min_data_in_leaf": 20, "learning_rate": 0.1, "lambda_l2": 1.0},
         {"num_leaves": 7, "min_data_in_leaf": 40, "learning_rate": 0.1, "lambda_l2": 0.0})

@@ -16,14 +16,12 @@ import pandas as pd
 import pytest
 
 from premiumlab._core.cluster import IN_PROCESS, parse_cluster, tasks_on
-from premiumlab.book.scan import parquet_slices, scan_book
 from premiumlab._core.errors import InputError
-from premiumlab.models.gbm.fit import fit_target
+from premiumlab.book.scan import parquet_slices, scan_book
 from premiumlab.book.spec import load_spec
+from premiumlab.models.gbm.fit import fit_target
 
-from _builders import SPEC_TEXT, run_cli, small_book
-from test_gbm import OPTIONS, invented_book
-
+from _builders import OPTIONS, SPEC_TEXT, invented_book, run_cli, small_book
 
 
 def test_a_local_dask_cluster_gives_the_same_models_as_one_process():

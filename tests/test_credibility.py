@@ -16,8 +16,8 @@ import numpy as np
 import pytest
 import statsmodels.api as sm
 
-from premiumlab.tabulation.credibility import buhlmann_straub, credibility_by_level, neighbour_complement
 from premiumlab._core.errors import InputError
+from premiumlab.tabulation.credibility import buhlmann_straub, credibility_by_level, neighbour_complement
 
 
 def test_two_group_policyholders_by_hand():

@@ -5,13 +5,13 @@ import numpy as np
 import pandas as pd
 import pytest
 
+from premiumlab._core.errors import InputError
 from premiumlab.book.bands import band_labels, quantile_edges
-from premiumlab.book.scan import _repeated_keys, load_book, profile, scan_book, with_quantile_bands
 from premiumlab.book.levels import categorise, factor_levels
 from premiumlab.book.reading import iter_book
-from premiumlab.book.split import holdout_flags
-from premiumlab._core.errors import InputError
+from premiumlab.book.scan import _repeated_keys, load_book, profile, scan_book, with_quantile_bands
 from premiumlab.book.spec import load_spec
+from premiumlab.book.split import holdout_flags
 from premiumlab.book.validate import validate_book
 
 from _builders import small_book

@@ -12,12 +12,12 @@ import pandas as pd
 import pytest
 import statsmodels.api as sm
 
+from premiumlab.models.gbm.fit import encode_features
 from premiumlab.models.trees.parser import Trees
 from premiumlab.models.trees.partial_dependence import partial_dependence
 from premiumlab.tabulation.banding import Banding, categorical_banding, merge_thin_levels, numeric_banding
 from premiumlab.tabulation.effects import Curve, cell_exposure, exposure_sample, quantile_grid
 from premiumlab.tabulation.refit import effect_grid, pooled_refit, refit, worst_reversal
-from premiumlab.models.gbm.fit import encode_features
 
 
 def _booster(method: str | None, seed: int = 0) -> tuple[lgb.Booster, pd.DataFrame, dict]:
@@ -268,9 +268,9 @@ def test_table_fidelity_equals_sklearn_tweedie_deviance(demo_run, gbm_table) -> 
     """The table's holdout mean deviance in fidelity.json equals scikit-learn's
     `mean_tweedie_deviance` on the table's own holdout premiums (relative 1e-9, same power and weights);
     the boosted model's equals it on predictions.parquet (1e-9)."""
-    import rating_tables
     from sklearn.metrics import mean_tweedie_deviance
 
+    import rating_tables
     from premiumlab.runs.rundir import open_run
     from premiumlab.tabulation.from_run import rating_frame, reread_book
     fid = gbm_table["summary"]["fidelity"]

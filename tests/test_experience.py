@@ -18,10 +18,18 @@ import pytest
 import statsmodels.api as sm
 
 from premiumlab._core.errors import InputError
-from premiumlab.experience.adjustments import (adjust, cap_losses, future_midpoint, latest_period_holdout, load_ratio,
-                                   period_midpoint, prepare, year_fraction)
-from premiumlab.runs.fit import fit
 from premiumlab.book.spec import Experience, parse_spec
+from premiumlab.experience.adjustments import (
+    adjust,
+    cap_losses,
+    future_midpoint,
+    latest_period_holdout,
+    load_ratio,
+    period_midpoint,
+    prepare,
+    year_fraction,
+)
+from premiumlab.runs.fit import fit
 
 from _builders import ROOT, SPEC_TEXT, small_book
 

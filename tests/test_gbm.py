@@ -12,37 +12,16 @@ from sklearn.metrics import mean_gamma_deviance, mean_poisson_deviance, mean_twe
 
 from premiumlab._core.errors import InputError
 from premiumlab.models.gbm.fit import (
-    GbmInputs, GbmOptions, _deviance_eval, fit_target, fold_of_group, load_model, prepare_training,
+    GbmInputs,
+    GbmOptions,
+    _deviance_eval,
+    fit_target,
+    fold_of_group,
+    load_model,
+    prepare_training,
 )
 
-# One thread: on small books LightGBM is no faster with two, and far slower when the cores are shared.
-OPTIONS = GbmOptions(folds=3, max_settings=2, max_rounds=300, early_stopping_rounds=20, tweedie_power=1.6,
-                     num_threads=1,
-                     grid=({"num_leaves": 7, "min_data_in_leaf": 50, "learning_rate": 0.1, "lambda_l2": 1.0},
-                           {"num_leaves": 15, "min_data_in_leaf": 100, "learning_rate": 0.1, "lambda_l2": 0.0}))
-
-
-def invented_book(policies: int = 3000, seed: int = 7) -> tuple[pd.DataFrame, GbmInputs]:
-    """A fictional motor book of `policies` policies, a third of them with two yearly rows.
-
-    `score` is a centred numeric factor with negative values, exact zeros and positive values.
-    """
-    rng = np.random.default_rng(seed)
-    policy = np.concatenate([np.arange(policies), np.arange(policies // 3)])
-    n = policy.size
-    age = rng.integers(18, 86, policies)[policy].astype(float)
-    score = np.round(rng.normal(0.0, 2.0, policies), 1)[policy]
-    region = pd.Categorical(rng.choice(["Northmere", "Southvale", "Eastholm", "Westreach"], policies)[policy])
-    bonus = rng.integers(0, 5, policies)[policy].astype(float)
-    exposure = rng.uniform(0.1, 1.0, n)
-    log_mu = (np.log(0.12) + 0.015 * (age - 50) + 0.15 * score + 0.12 * bonus
-              + np.where(region == "Northmere", 0.35, 0.0))
-    count = rng.poisson(np.exp(log_mu) * exposure)
-    amount = np.array([rng.gamma(2.0, 900.0 * (1 + 0.1 * b), c).sum() for c, b in zip(count, bonus)])
-    features = pd.DataFrame({"driver_age": age, "score": score, "region": region, "bonus_class": bonus})
-    inputs = GbmInputs(features=features, monotone={"bonus_class": 1}, exposure=exposure, claim_count=count,
-                       claim_amount=amount, groups=policy)
-    return features, inputs
+from _builders import OPTIONS, invented_book
 
 
 @pytest.fixture(scope="module")

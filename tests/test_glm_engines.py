@@ -15,8 +15,8 @@ import statsmodels.api as sm
 
 import premiumlab.models.glm.fit as glm
 from premiumlab._core.errors import InputError
-from premiumlab.models.glm.fit import GlmInputs, GlmResult, fit_frequency, fit_pure_premium, fit_severity
 from premiumlab.models.glm.engines import POISSON, OneHotDesign, choose_engine, row_statistics
+from premiumlab.models.glm.fit import GlmInputs, GlmResult, fit_frequency, fit_pure_premium, fit_severity
 
 ENGINES = ("cells", "rows")
 

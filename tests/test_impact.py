@@ -9,9 +9,9 @@ import pandas as pd
 import pytest
 
 import rating_tables
-from _builders import run_cli
 from rating_tables import TableError, cap_premiums, impact
-from test_rater import example_book, example_table
+
+from _builders import example_book, example_table, run_cli
 
 CURRENT = np.array([100.0, 100.0, 100.0, 200.0, 50.0, 100.0, 100.0])
 PROPOSED = np.array([130.0, 95.0, 104.0, 150.0, 80.0, 105.0, 88.0])

@@ -27,7 +27,8 @@ import pyarrow.parquet as pq
 import pytest
 
 import rating_tables
-from test_rater import example_table
+
+from _builders import example_table
 
 pytestmark = pytest.mark.load
 

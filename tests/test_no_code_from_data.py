@@ -19,8 +19,8 @@ from pathlib import Path
 import pytest
 
 import rating_tables
-from _builders import ROOT, run_cli
-from test_rater import example_book, example_table
+
+from _builders import ROOT, example_book, example_table, run_cli
 
 PACKAGES = ("premiumlab", "rating_tables")
 #: Modules that turn bytes into objects that may run code, or store them so.

@@ -9,6 +9,7 @@ import pandas as pd
 import pytest
 
 import rating_tables
+
 from _builders import run_cli
 
 

@@ -15,39 +15,16 @@ import pandas as pd
 import pyarrow.parquet as pq
 import pytest
 
-from rating_tables import (Bands, CategoricalFactor, InteractionFactor, Loadings, NumericFactor, RatingTable,
-                           TableError, rate, rate_file, solve_base_rate)
+from rating_tables import (
+    NumericFactor,
+    TableError,
+    rate,
+    rate_file,
+    solve_base_rate,
+)
 from rating_tables.ratefile import CAUTIONS_KEY
 
-INF = np.inf
-
-
-def example_table(minimum_premium: float = 120.0) -> RatingTable:
-    """An invented motor table: base 200 per policy-year, three factors and one two-way table."""
-    age = NumericFactor("age", "none", lower=[-INF, 25, 60], upper=[25, 60, INF], relativity=[1.5, 1.0, 1.25],
-                        exposure=[120.0, 800.0, 300.0])
-    region = CategoricalFactor("region", "none", levels=("North", "South", "Coast"), relativity=[1.0, 0.875, 1.5],
-                               exposure=[600.0, 400.0, 220.0], fallback="North", base="North")
-    bonus = CategoricalFactor("bonus", "increasing", levels=("01", "02", "03"), relativity=[0.75, 1.0, 1.25],
-                              exposure=[500.0, 500.0, 220.0])
-    age_region = InteractionFactor("age__region", ("age", "region"), a_cells=Bands([-INF, 30], [30, INF]),
-                                   b_cells=("North", "South", "Coast"),
-                                   relativity=[[1.0, 1.0, 1.125], [1.0, 1.0, 1.0]])
-    return RatingTable(table_id="fictional-motor-2027-draft", effective_date="2027-01-01", base_rate=200.0,
-                       exposure_unit="policy-year", factors=(age, region, bonus, age_region),
-                       loadings=Loadings(lae_ratio=0.10, fixed_expense=30.0, variable_expense=0.15, profit=0.05,
-                                         minimum_premium=minimum_premium),
-                       target={"basis": "experience", "total_pure_premium": 250000.0},
-                       provenance={"run": "fictional", "model": "hand-made"},
-                       cautions=("Invented table for tests.",))
-
-
-def example_book() -> pd.DataFrame:
-    return pd.DataFrame({"policy": ["P1", "P2", "P3", "P4", "P5"],
-                         "age": [22, 45, 70, 27, 35],
-                         "region": ["Coast", "South", "North", "Atlantis", "Coast"],
-                         "bonus": ["03", "01", "02", "02", "01"],
-                         "exposure": [1.0, 0.5, 1.0, 0.25, 0.1]})
+from _builders import INF, example_book, example_table
 
 
 def test_rater_matches_hand_calculation():

@@ -15,7 +15,7 @@ import pytest
 
 import rating_tables
 
-PAGE = Path(__file__).resolve().parents[1] / "docs" / "rating-table.md"
+PAGE = Path(__file__).resolve().parents[2] / "docs" / "rating-table.md"
 SECTION = "Worked example"
 FILE_BLOCK = re.compile(r"<!-- file: (?P<path>[^ ]+) -->\n```[a-z]*\n(?P<text>.*?)```", re.S)
 

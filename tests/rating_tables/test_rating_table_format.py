@@ -10,8 +10,9 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from rating_tables import (CategoricalFactor, NumericFactor, TableError, load, rate, save, write_exhibit)
-from test_rater import example_book, example_table
+from rating_tables import CategoricalFactor, NumericFactor, TableError, load, rate, save, write_exhibit
+
+from _builders import example_book, example_table
 
 INF = np.inf
 

@@ -8,9 +8,9 @@ import shutil
 import numpy as np
 import pytest
 
-from rating_tables import (CategoricalFactor, InteractionFactor, NumericFactor, TableError, audit, audit_path,
-                           save)
-from test_rater import example_table
+from rating_tables import CategoricalFactor, InteractionFactor, NumericFactor, TableError, audit, audit_path, save
+
+from _builders import example_table
 
 INF = np.inf
 

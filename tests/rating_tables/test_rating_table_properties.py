@@ -18,8 +18,19 @@ import pandas as pd
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from rating_tables import (Bands, CategoricalFactor, InteractionFactor, Loadings, NumericFactor, RatingTable,
-                           Rounding, TableError, load, rate, save)
+from rating_tables import (
+    Bands,
+    CategoricalFactor,
+    InteractionFactor,
+    Loadings,
+    NumericFactor,
+    RatingTable,
+    Rounding,
+    TableError,
+    load,
+    rate,
+    save,
+)
 
 INF = math.inf
 SETTINGS = settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow])
