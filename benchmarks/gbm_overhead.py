@@ -9,6 +9,7 @@ Dataset from the encoded matrix, training, balance from the cached training scor
 category codes) is timed on its own. Prints medians, min and max, and the overhead of the medians;
 both models' text must be identical.
 """
+
 from __future__ import annotations
 
 import argparse
@@ -29,8 +30,13 @@ def invented_book(rows: int, seed: int = 1) -> GbmInputs:
     rng = np.random.default_rng(seed)
     numeric = {f"factor_{i}": rng.normal(0.0, 1.0, rows) for i in range(6)}
     region = pd.Categorical(rng.choice([f"zone_{i:02d}" for i in range(12)], rows))
-    log_mu = (np.log(0.1) + 0.3 * numeric["factor_0"] + 0.2 * np.sin(numeric["factor_1"])
-              + 0.2 * numeric["factor_2"] * numeric["factor_3"] + 0.05 * region.codes)
+    log_mu = (
+        np.log(0.1)
+        + 0.3 * numeric["factor_0"]
+        + 0.2 * np.sin(numeric["factor_1"])
+        + 0.2 * numeric["factor_2"] * numeric["factor_3"]
+        + 0.05 * region.codes
+    )
     exposure = rng.uniform(0.2, 1.0, rows)
     count = rng.poisson(np.exp(log_mu) * exposure)
     amount = np.where(count > 0, rng.gamma(2.0 * np.maximum(count, 1), 800.0), 0.0)
@@ -57,8 +63,14 @@ def main() -> None:
     params = {**data.base_params, **SETTING}
 
     def bare() -> lgb.Booster:
-        dataset = lgb.Dataset(data.matrix, label=data.label, weight=data.weight, feature_name=data.feature_names,
-                              categorical_feature=data.categorical_indices, params=params)
+        dataset = lgb.Dataset(
+            data.matrix,
+            label=data.label,
+            weight=data.weight,
+            feature_name=data.feature_names,
+            categorical_feature=data.categorical_indices,
+            params=params,
+        )
         return lgb.train(params, dataset, num_boost_round=args.rounds)
 
     ours, theirs = [], []
@@ -70,11 +82,15 @@ def main() -> None:
         if model.model_text() != booster.model_to_string():
             raise SystemExit("the two fits differ: the comparison is not like for like")
     overhead = statistics.median(ours) / statistics.median(theirs) - 1
-    print(f"book: {args.rows} rows, {len(data.feature_names)} features, {args.rounds} rounds, "
-          f"{args.threads} threads; prepare_training once: {prepare_seconds:.3f} s")
+    print(
+        f"book: {args.rows} rows, {len(data.feature_names)} features, {args.rounds} rounds, "
+        f"{args.threads} threads; prepare_training once: {prepare_seconds:.3f} s"
+    )
     for name, runs in (("premiumlab fit_final", ours), ("bare lightgbm.train", theirs)):
-        print(f"{name:22s} median {statistics.median(runs):7.3f} s  min {min(runs):7.3f}  max {max(runs):7.3f}  "
-              f"runs {', '.join(f'{r:.3f}' for r in runs)}")
+        print(
+            f"{name:22s} median {statistics.median(runs):7.3f} s  min {min(runs):7.3f}  max {max(runs):7.3f}  "
+            f"runs {', '.join(f'{r:.3f}' for r in runs)}"
+        )
     print(f"overhead of the medians: {overhead:+.1%} (limit +10%)")
 
 

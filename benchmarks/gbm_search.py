@@ -11,6 +11,7 @@ with early stopping, timed four ways in one run:
 The one-thread runs must give identical CV tables (the cluster run included). Prints wall seconds
 and the ratios to the one-thread run in this process.
 """
+
 from __future__ import annotations
 
 import argparse
@@ -20,10 +21,17 @@ from dataclasses import replace
 
 import lightgbm as lgb
 import numpy as np
-
 from gbm_overhead import invented_book
+
 from premiumlab._core.cluster import tasks_on
-from premiumlab.models.gbm.fit import GbmOptions, _deviance_eval, _select_settings, cross_validate, fold_of_group, prepare_training
+from premiumlab.models.gbm.fit import (
+    GbmOptions,
+    _deviance_eval,
+    _select_settings,
+    cross_validate,
+    fold_of_group,
+    prepare_training,
+)
 
 
 def bare_search(data, settings: list[dict], options: GbmOptions) -> list[float]:
@@ -34,10 +42,15 @@ def bare_search(data, settings: list[dict], options: GbmOptions) -> list[float]:
     for setting in settings:
         for k in range(options.folds):
             train, valid = np.flatnonzero(fold != k), np.flatnonzero(fold == k)
-            booster = lgb.train({**data.base_params, **setting}, full.subset(train), options.max_rounds,
-                                valid_sets=[full.subset(valid)], valid_names=["fold"],
-                                feval=_deviance_eval(data.label[valid], data.weight[valid], data.power),
-                                callbacks=[lgb.early_stopping(options.early_stopping_rounds, verbose=False)])
+            booster = lgb.train(
+                {**data.base_params, **setting},
+                full.subset(train),
+                options.max_rounds,
+                valid_sets=[full.subset(valid)],
+                valid_names=["fold"],
+                feval=_deviance_eval(data.label[valid], data.weight[valid], data.power),
+                callbacks=[lgb.early_stopping(options.early_stopping_rounds, verbose=False)],
+            )
             out.append(float(booster.best_score["fold"]["deviance"]))
     return out
 
@@ -50,8 +63,9 @@ def main() -> None:
     parser.add_argument("--folds", type=int, default=3)
     parser.add_argument("--rounds", type=int, default=400)
     args = parser.parse_args()
-    one = GbmOptions(folds=args.folds, max_settings=args.settings, num_threads=1, max_rounds=args.rounds,
-                     tweedie_power=1.5)
+    one = GbmOptions(
+        folds=args.folds, max_settings=args.settings, num_threads=1, max_rounds=args.rounds, tweedie_power=1.5
+    )
     data = prepare_training(invented_book(args.rows), "pure_premium", one)
     settings = _select_settings(one)
     many = replace(one, num_threads=args.workers)
@@ -79,8 +93,10 @@ def main() -> None:
         raise SystemExit("premiumlab's fold deviances differ from bare LightGBM's: not like for like")
 
     base = times["premiumlab here, 1 thread"]
-    print(f"search: {args.rows:,} rows, {len(settings)} settings x {args.folds} folds, up to {args.rounds} "
-          f"rounds, early stopping; cluster start-up {ready - start:.1f} s (included)")
+    print(
+        f"search: {args.rows:,} rows, {len(settings)} settings x {args.folds} folds, up to {args.rounds} "
+        f"rounds, early stopping; cluster start-up {ready - start:.1f} s (included)"
+    )
     for name, seconds in times.items():
         print(f"{name:45s} {seconds:8.2f} s   {base / seconds:5.2f}x the one-thread run here")
     print("identical CV tables: one process and the cluster; identical fold deviances: premiumlab and bare LightGBM")

@@ -12,6 +12,7 @@ statsmodels is timed on ``GLM(...).fit()`` alone (dense one-hot exog built befor
 offset log exposure for Poisson); premiumlab on the whole public function, input checks, cell
 aggregation and the chunked row-level statistics included.
 """
+
 from __future__ import annotations
 
 import argparse
@@ -61,11 +62,19 @@ def statsmodels_fit(inputs: GlmInputs, exog: np.ndarray, family: str) -> tuple[n
         model = sm.GLM(count, exog, family=sm.families.Poisson(), offset=np.log(exposure))
     elif family == "gamma":
         rows = (count > 0) & (amount > 0)
-        model = sm.GLM(amount[rows] / count[rows], exog[rows], var_weights=count[rows],
-                       family=sm.families.Gamma(link=sm.families.links.Log()))
+        model = sm.GLM(
+            amount[rows] / count[rows],
+            exog[rows],
+            var_weights=count[rows],
+            family=sm.families.Gamma(link=sm.families.links.Log()),
+        )
     else:
-        model = sm.GLM(amount / exposure, exog, var_weights=exposure,
-                       family=sm.families.Tweedie(var_power=TWEEDIE_POWER, eql=False))
+        model = sm.GLM(
+            amount / exposure,
+            exog,
+            var_weights=exposure,
+            family=sm.families.Tweedie(var_power=TWEEDIE_POWER, eql=False),
+        )
     started = time.perf_counter()
     fit = model.fit()
     return np.asarray(fit.params), time.perf_counter() - started
@@ -89,20 +98,32 @@ def compare(label: str, inputs: GlmInputs, families: tuple[str, ...], required_r
         reference, reference_seconds = statsmodels_fit(inputs, exog, family)
         estimates = np.array([row["estimate"] for row in result.coefficients])
         ratio = reference_seconds / our_seconds
-        print(f"{label} {family:8s} rows {result.n_rows:>9,d}  cells {result.n_cells:>9,d}  "
-              f"params {len(estimates):3d}  engine {result.engine:5s}  premiumlab {our_seconds:7.2f} s  "
-              f"statsmodels {reference_seconds:7.2f} s  ratio {ratio:6.1f}x (need >= {required_ratio:g})  "
-              f"max |coef diff| {np.max(np.abs(estimates - reference)):.2e}", flush=True)
+        print(
+            f"{label} {family:8s} rows {result.n_rows:>9,d}  cells {result.n_cells:>9,d}  "
+            f"params {len(estimates):3d}  engine {result.engine:5s}  premiumlab {our_seconds:7.2f} s  "
+            f"statsmodels {reference_seconds:7.2f} s  ratio {ratio:6.1f}x (need >= {required_ratio:g})  "
+            f"max |coef diff| {np.max(np.abs(estimates - reference)):.2e}",
+            flush=True,
+        )
 
 
 def crossover(n_rows: int) -> None:
     """Both engines on Poisson books whose cell count grows (four to seven factors)."""
-    for sizes in ((10, 10, 10), (10, 10, 10, 5), (10, 10, 10, 10, 5), (12, 10, 10, 10, 8, 5), (12, 10, 10, 10, 8, 8, 5)):
+    for sizes in (
+        (10, 10, 10),
+        (10, 10, 10, 5),
+        (10, 10, 10, 10, 5),
+        (12, 10, 10, 10, 8, 5),
+        (12, 10, 10, 10, 8, 8, 5),
+    ):
         inputs = invented_book(n_rows, sizes, seed=len(sizes))
         cells, cells_seconds = ours(inputs, "poisson", engine="cells")
         _, rows_seconds = ours(inputs, "poisson", engine="rows")
-        print(f"(c) cells {cells.n_cells:>9,d} ({cells.n_cells / n_rows:6.1%} of rows)  cells engine "
-              f"{cells_seconds:6.2f} s  rows engine {rows_seconds:6.2f} s", flush=True)
+        print(
+            f"(c) cells {cells.n_cells:>9,d} ({cells.n_cells / n_rows:6.1%} of rows)  cells engine "
+            f"{cells_seconds:6.2f} s  rows engine {rows_seconds:6.2f} s",
+            flush=True,
+        )
 
 
 def main() -> None:

@@ -15,6 +15,7 @@ Instead, with `--demo DIR` (a folder written by `premiumlab demo`): the demo's o
    book repeated to 1,000,000 rows (categoricals as pandas categoricals), median of 5 runs each.
 Exit code 1 when a target is missed.
 """
+
 from __future__ import annotations
 
 import os
@@ -31,8 +32,7 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.parquet as pq
 
-from rating_tables import (Bands, CategoricalFactor, InteractionFactor, Loadings, NumericFactor, RatingTable, rate,
-                           save)
+from rating_tables import Bands, CategoricalFactor, InteractionFactor, Loadings, NumericFactor, RatingTable, rate, save
 
 INF = np.inf
 POLICIES = 1_000_000
@@ -64,16 +64,24 @@ def build_table(rng: np.random.Generator) -> RatingTable:
     for name, levels in CATEGORICAL.items():
         rel = np.round(np.exp(rng.normal(0, 0.2, len(levels))), 3)
         rel[0] = 1.0
-        factors.append(CategoricalFactor(name, "none", tuple(levels), rel, np.ones(len(levels)),
-                                         fallback=levels[0]))
+        factors.append(CategoricalFactor(name, "none", tuple(levels), rel, np.ones(len(levels)), fallback=levels[0]))
     regions = CATEGORICAL["region"]
     matrix = np.round(np.exp(rng.normal(0, 0.1, (3, len(regions)))), 3)
     matrix[0, :] = 1.0
     matrix[:, 0] = 1.0
-    factors.append(InteractionFactor("driver_age__region", ("driver_age", "region"),
-                                     Bands([-INF, 25, 60], [25, 60, INF]), tuple(regions), matrix))
-    return RatingTable("benchmark-fictional-motor", "2027-01-01", 310.0, "policy-year", tuple(factors),
-                       Loadings(0.08, 40.0, 0.15, 0.05, 75.0))
+    factors.append(
+        InteractionFactor(
+            "driver_age__region", ("driver_age", "region"), Bands([-INF, 25, 60], [25, 60, INF]), tuple(regions), matrix
+        )
+    )
+    return RatingTable(
+        "benchmark-fictional-motor",
+        "2027-01-01",
+        310.0,
+        "policy-year",
+        tuple(factors),
+        Loadings(0.08, 40.0, 0.15, 0.05, 75.0),
+    )
 
 
 def build_book(rng: np.random.Generator, n: int) -> pd.DataFrame:
@@ -102,10 +110,20 @@ def fit_lightgbm(table: RatingTable, book: pd.DataFrame, rng: np.random.Generato
     amount = np.zeros(claims.size)
     amount[claims > 0] = rng.gamma(2.0 * claims[claims > 0], 1500.0)  # sum of c Gamma(2, 1500) claims
     features = [c for c in book.columns if c != "exposure"]
-    data = lgb.Dataset(sample[features], label=amount / sample["exposure"], weight=sample["exposure"],
-                       free_raw_data=False)
-    params = {"objective": "tweedie", "tweedie_variance_power": 1.5, "num_leaves": 31, "learning_rate": 0.05,
-              "min_data_in_leaf": 50, "num_threads": THREADS, "deterministic": True, "verbose": -1, "seed": 1}
+    data = lgb.Dataset(
+        sample[features], label=amount / sample["exposure"], weight=sample["exposure"], free_raw_data=False
+    )
+    params = {
+        "objective": "tweedie",
+        "tweedie_variance_power": 1.5,
+        "num_leaves": 31,
+        "learning_rate": 0.05,
+        "min_data_in_leaf": 50,
+        "num_threads": THREADS,
+        "deterministic": True,
+        "verbose": -1,
+        "seed": 1,
+    }
     model = lgb.train(params, data, num_boost_round=300)
     return model, features
 
@@ -131,9 +149,9 @@ def write_big_book(path: Path, rng: np.random.Generator) -> None:
 def demo_ratio(demo: Path) -> float:
     """Rater speed on the demo's table over LightGBM predict with the demo's tuned model."""
     import rating_tables
+    from premiumlab.book.spec import load_spec
     from premiumlab.models.gbm.features import features_from_spec
     from premiumlab.models.gbm.fit import load_model
-    from premiumlab.book.spec import load_spec
     from premiumlab.runs.rundir import RunDir
 
     spec = load_spec(demo / "spec.toml")
@@ -149,9 +167,11 @@ def demo_ratio(demo: Path) -> float:
     rate_seconds = median_seconds(lambda: rate(table, book, "exposure"))
     gbm_seconds = median_seconds(lambda: model.predict(features))
     trees = model.booster.num_trees()
-    print(f"demo table:        {rate_seconds:.3f} s -> {POLICIES / rate_seconds:,.0f} policies/s; demo's tuned "
-          f"model ({trees} trees): {gbm_seconds:.3f} s -> {POLICIES / gbm_seconds:,.0f} policies/s; "
-          f"table rater / LightGBM = {gbm_seconds / rate_seconds:.1f}x")
+    print(
+        f"demo table:        {rate_seconds:.3f} s -> {POLICIES / rate_seconds:,.0f} policies/s; demo's tuned "
+        f"model ({trees} trees): {gbm_seconds:.3f} s -> {POLICIES / gbm_seconds:,.0f} policies/s; "
+        f"table rater / LightGBM = {gbm_seconds / rate_seconds:.1f}x"
+    )
     return POLICIES / rate_seconds
 
 
@@ -162,25 +182,33 @@ def main() -> int:
     rng = np.random.default_rng(2027)
     table = build_table(rng)
     book = build_book(rng, POLICIES)
-    print(f"book: {POLICIES:,} policies in memory, {len(table.main_factors)} factors + "
-          f"{len(table.interactions)} two-way table; {THREADS} threads for LightGBM; "
-          f"load average {os.getloadavg()[0]:.1f} on {os.cpu_count()} cores")
+    print(
+        f"book: {POLICIES:,} policies in memory, {len(table.main_factors)} factors + "
+        f"{len(table.interactions)} two-way table; {THREADS} threads for LightGBM; "
+        f"load average {os.getloadavg()[0]:.1f} on {os.cpu_count()} cores"
+    )
 
     rate(table, book, "exposure")  # warm up
     seconds = median_seconds(lambda: rate(table, book, "exposure"))
     speed = POLICIES / seconds
-    print(f"rate:              {seconds:.3f} s median of 5 -> {speed:,.0f} policies/s "
-          f"(target >= {RATE_TARGET:,}: {'met' if speed >= RATE_TARGET else 'MISSED'})")
+    print(
+        f"rate:              {seconds:.3f} s median of 5 -> {speed:,.0f} policies/s "
+        f"(target >= {RATE_TARGET:,}: {'met' if speed >= RATE_TARGET else 'MISSED'})"
+    )
 
     start = time.perf_counter()
     model, features = fit_lightgbm(table, book, rng)
-    print(f"LightGBM Tweedie:  300 trees x 31 leaves fitted in this script on a 100,000-policy sample "
-          f"({time.perf_counter() - start:.1f} s)")
+    print(
+        f"LightGBM Tweedie:  300 trees x 31 leaves fitted in this script on a 100,000-policy sample "
+        f"({time.perf_counter() - start:.1f} s)"
+    )
     model.predict(book[features].head(1000), num_threads=THREADS)
     gbm_seconds = median_seconds(lambda: model.predict(book[features], num_threads=THREADS))
     gbm_speed = POLICIES / gbm_seconds
-    print(f"LightGBM predict:  {gbm_seconds:.3f} s median of 5 -> {gbm_speed:,.0f} policies/s; "
-          f"table rater / LightGBM = {speed / gbm_speed:.1f}x")
+    print(
+        f"LightGBM predict:  {gbm_seconds:.3f} s median of 5 -> {gbm_speed:,.0f} policies/s; "
+        f"table rater / LightGBM = {speed / gbm_speed:.1f}x"
+    )
 
     with tempfile.TemporaryDirectory() as tmp:
         folder = Path(tmp)
@@ -188,16 +216,31 @@ def main() -> int:
         start = time.perf_counter()
         write_big_book(folder / "book.parquet", rng)
         size = (folder / "book.parquet").stat().st_size / 1e6
-        print(f"big book:          {BIG_ROWS:,} rows written to Parquet ({size:,.0f} MB) in "
-              f"{time.perf_counter() - start:.1f} s")
-        child = subprocess.run([sys.executable, "-c", CHILD, str(folder / "TABLE"), str(folder / "book.parquet"),
-                                str(folder / "priced.parquet")], capture_output=True, text=True, check=True)
+        print(
+            f"big book:          {BIG_ROWS:,} rows written to Parquet ({size:,.0f} MB) in "
+            f"{time.perf_counter() - start:.1f} s"
+        )
+        child = subprocess.run(
+            [
+                sys.executable,
+                "-c",
+                CHILD,
+                str(folder / "TABLE"),
+                str(folder / "book.parquet"),
+                str(folder / "priced.parquet"),
+            ],
+            capture_output=True,
+            text=True,
+            check=True,
+        )
         peak_gb = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss * 1024 / 1e9  # ru_maxrss is KiB on Linux
         rows = pq.ParquetFile(folder / "priced.parquet").metadata.num_rows
         rated_seconds = float(child.stdout.strip())
-        print(f"rate_file:         {rows:,} rows in batches of 500,000 in {rated_seconds:.1f} s "
-              f"({rows / rated_seconds:,.0f} rows/s); peak RSS of the rating process {peak_gb:.2f} GB "
-              f"(target < {RSS_TARGET_GB} GB: {'met' if peak_gb < RSS_TARGET_GB else 'MISSED'})")
+        print(
+            f"rate_file:         {rows:,} rows in batches of 500,000 in {rated_seconds:.1f} s "
+            f"({rows / rated_seconds:,.0f} rows/s); peak RSS of the rating process {peak_gb:.2f} GB "
+            f"(target < {RSS_TARGET_GB} GB: {'met' if peak_gb < RSS_TARGET_GB else 'MISSED'})"
+        )
     return 0 if speed >= RATE_TARGET and peak_gb < RSS_TARGET_GB and rows == BIG_ROWS else 1
 
 

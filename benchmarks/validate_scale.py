@@ -10,6 +10,7 @@ peak resident memory (ru_maxrss of the child; Dask workers are separate processe
 - `premiumlab validate --cluster local:N` (the slices checked on N worker processes; start-up included).
 The two validate outputs must be identical. Prints seconds, peak memory and ratios to the bare read.
 """
+
 from __future__ import annotations
 
 import argparse
@@ -19,7 +20,7 @@ import time
 from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))
-from test_load import SPEC, peak_run, write_book  # noqa: E402
+from test_load import SPEC, peak_run, write_book
 
 BARE = """
 import sys
@@ -50,12 +51,21 @@ def main() -> None:
         spec.write_text(SPEC)
         runs = {"bare pyarrow read": timed("-c", BARE, str(book), COLUMNS)}
         outputs = {}
-        for name, extra in (("validate here", ()), (f"validate --cluster local:{args.workers}",
-                                                    ("--cluster", f"local:{args.workers}"))):
+        for name, extra in (
+            ("validate here", ()),
+            (f"validate --cluster local:{args.workers}", ("--cluster", f"local:{args.workers}")),
+        ):
             out = Path(folder) / f"{len(outputs)}.txt"
-            runs[name] = timed("-c", "import sys; from premiumlab.cli.app import app; sys.argv[0] = 'premiumlab'; "
-                                     f"sys.stdout = open({str(out)!r}, 'w'); app()",
-                               "validate", str(book), "--spec", str(spec), *extra)
+            runs[name] = timed(
+                "-c",
+                "import sys; from premiumlab.cli.app import app; sys.argv[0] = 'premiumlab'; "
+                f"sys.stdout = open({str(out)!r}, 'w'); app()",
+                "validate",
+                str(book),
+                "--spec",
+                str(spec),
+                *extra,
+            )
             outputs[name] = out.read_text()
         if len(set(outputs.values())) != 1:
             raise SystemExit("validate printed different reports here and on the cluster")

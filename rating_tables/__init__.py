@@ -1,4 +1,5 @@
 """rating_tables: the filed rating-table format, rater, audit and impact (numpy, pandas, pyarrow only)."""
+
 from __future__ import annotations
 
 from rating_tables.audit import Violation, audit, audit_path
@@ -8,10 +9,38 @@ from rating_tables.impact import Capping, cap_premiums, impact
 from rating_tables.io import load, save
 from rating_tables.rate import gross_premium, rate, solve_base_rate
 from rating_tables.ratefile import rate_file
-from rating_tables.table import (DRAFT_CAUTION, Bands, CategoricalFactor, InteractionFactor, Loadings,
-                                 NumericFactor, RatingTable, Rounding)
+from rating_tables.table import (
+    DRAFT_CAUTION,
+    Bands,
+    CategoricalFactor,
+    InteractionFactor,
+    Loadings,
+    NumericFactor,
+    RatingTable,
+    Rounding,
+)
 
-__all__ = ["load", "save", "rate", "rate_file", "solve_base_rate", "gross_premium", "audit", "audit_path",
-           "impact", "cap_premiums", "Capping", "write_exhibit", "RatingTable", "NumericFactor",
-           "CategoricalFactor", "InteractionFactor", "Bands", "Loadings", "Rounding", "TableError", "Violation",
-           "DRAFT_CAUTION"]
+__all__ = [
+    "DRAFT_CAUTION",
+    "Bands",
+    "Capping",
+    "CategoricalFactor",
+    "InteractionFactor",
+    "Loadings",
+    "NumericFactor",
+    "RatingTable",
+    "Rounding",
+    "TableError",
+    "Violation",
+    "audit",
+    "audit_path",
+    "cap_premiums",
+    "gross_premium",
+    "impact",
+    "load",
+    "rate",
+    "rate_file",
+    "save",
+    "solve_base_rate",
+    "write_exhibit",
+]

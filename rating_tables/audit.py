@@ -4,6 +4,7 @@ Structural rules (bands covering (-inf, inf) without gap or overlap, finite posi
 `file` paths inside the table folder) are enforced whenever a table is built or loaded, so a
 `RatingTable` already satisfies them; `audit_path` reports a folder that breaks them as a violation.
 """
+
 from __future__ import annotations
 
 import os
@@ -13,9 +14,20 @@ import numpy as np
 
 from rating_tables.errors import TableError
 from rating_tables.io import load
-from rating_tables.table import (MONOTONE, Bands, CategoricalFactor, Factor, InteractionFactor, MainFactor,
-                                 NumericFactor, RatingTable, band_index, band_labels, cell_labels,
-                                 mapping_to_side)
+from rating_tables.table import (
+    MONOTONE,
+    Bands,
+    CategoricalFactor,
+    Factor,
+    InteractionFactor,
+    MainFactor,
+    NumericFactor,
+    RatingTable,
+    band_index,
+    band_labels,
+    cell_labels,
+    mapping_to_side,
+)
 
 MONOTONE_TOLERANCE = 1e-12  # relative step below which a reversal is floating-point noise
 
@@ -38,8 +50,11 @@ class Violation:
         return f"{self.check}: {self.detail}{size}"
 
 
-def audit(table: RatingTable, promises: dict[str, str] | None = None,
-          bounds: dict[str, tuple[float | None, float | None]] | None = None) -> list[Violation]:
+def audit(
+    table: RatingTable,
+    promises: dict[str, str] | None = None,
+    bounds: dict[str, tuple[float | None, float | None]] | None = None,
+) -> list[Violation]:
     """Findings on `table`; an empty list means it passes.
 
     Directions come from each factor's `monotone`, overridden or added by `promises`
@@ -55,17 +70,25 @@ def audit(table: RatingTable, promises: dict[str, str] | None = None,
     found: list[Violation] = []
     for name, direction in (promises or {}).items():
         if direction not in MONOTONE:
-            raise TableError(f"promises: direction {direction!r} for {name!r} must be one of {', '.join(MONOTONE)}",
-                             where=name)
+            raise TableError(
+                f"promises: direction {direction!r} for {name!r} must be one of {', '.join(MONOTONE)}", where=name
+            )
         if name not in directions:
-            found.append(Violation("promise", name, None, f"factor {name!r}: a direction ({direction}) is "
-                                   "promised but the table has no such numeric or categorical factor"))
+            found.append(
+                Violation(
+                    "promise",
+                    name,
+                    None,
+                    f"factor {name!r}: a direction ({direction}) is "
+                    "promised but the table has no such numeric or categorical factor",
+                )
+            )
         else:
             directions[name] = direction
     for factor in table.main_factors:
         if directions[factor.name] != "none":
             found += _direction(table, factor, directions[factor.name])
-    tolerance = 0.5 * 10.0 ** -table.rounding.relativity_decimals
+    tolerance = 0.5 * 10.0**-table.rounding.relativity_decimals
     for factor in table.factors:
         found += _base(factor, tolerance)
     if bounds:
@@ -73,8 +96,11 @@ def audit(table: RatingTable, promises: dict[str, str] | None = None,
     return found
 
 
-def audit_path(path: str | os.PathLike, promises: dict[str, str] | None = None,
-               bounds: dict[str, tuple[float | None, float | None]] | None = None) -> list[Violation]:
+def audit_path(
+    path: str | os.PathLike,
+    promises: dict[str, str] | None = None,
+    bounds: dict[str, tuple[float | None, float | None]] | None = None,
+) -> list[Violation]:
     """Audit the table folder at `path`; a folder that fails to load gives one violation saying why."""
     try:
         table = load(path)
@@ -120,9 +146,16 @@ def _direction(table: RatingTable, main: MainFactor, direction: str) -> list[Vio
         where = f"{labels[i]} to {labels[i + 1]}"
         before, after = combined[i][worst], combined[i + 1][worst]
         spread = f" ({count} combinations of the other factors' cells, worst shown)" if count > 1 else ""
-        found.append(Violation("monotone", main.name, where,
-                               f"factor {main.name!r}, {where}{context}: promised {direction}, the relativity "
-                               f"goes from {before:.6g} to {after:.6g}{spread}; relative step", float(wrong[i][worst])))
+        found.append(
+            Violation(
+                "monotone",
+                main.name,
+                where,
+                f"factor {main.name!r}, {where}{context}: promised {direction}, the relativity "
+                f"goes from {before:.6g} to {after:.6g}{spread}; relative step",
+                float(wrong[i][worst]),
+            )
+        )
     return found
 
 
@@ -133,46 +166,76 @@ def _base(factor: Factor, tolerance: float) -> list[Violation]:
         for axis, what in ((1, "row"), (0, "column")):
             worst = deviation.max(axis=axis)
             if worst.min() > tolerance:
-                found.append(Violation("base_level", factor.name, what,
-                                       f"interaction {factor.name!r}: no base {what} with every relativity at 1; "
-                                       "closest has a distance from 1", float(worst.min())))
+                found.append(
+                    Violation(
+                        "base_level",
+                        factor.name,
+                        what,
+                        f"interaction {factor.name!r}: no base {what} with every relativity at 1; "
+                        "closest has a distance from 1",
+                        float(worst.min()),
+                    )
+                )
         return found
     if isinstance(factor, CategoricalFactor) and factor.base is not None:
         i = factor.levels.index(factor.base)
         if deviation[i] > tolerance:
-            return [Violation("base_level", factor.name, factor.base,
-                              f"factor {factor.name!r}: base level {factor.base!r} has relativity "
-                              f"{factor.relativity[i]:.6g}, not 1; distance", float(deviation[i]))]
+            return [
+                Violation(
+                    "base_level",
+                    factor.name,
+                    factor.base,
+                    f"factor {factor.name!r}: base level {factor.base!r} has relativity "
+                    f"{factor.relativity[i]:.6g}, not 1; distance",
+                    float(deviation[i]),
+                )
+            ]
         return []
     if deviation.min() > tolerance:
         kind = "band" if isinstance(factor, NumericFactor) else "level"
-        return [Violation("base_level", factor.name, None,
-                          f"factor {factor.name!r}: no {kind} has relativity 1; the closest is at a distance",
-                          float(deviation.min()))]
+        return [
+            Violation(
+                "base_level",
+                factor.name,
+                None,
+                f"factor {factor.name!r}: no {kind} has relativity 1; the closest is at a distance",
+                float(deviation.min()),
+            )
+        ]
     return []
 
 
 def _bounds(table: RatingTable, bounds: dict[str, tuple[float | None, float | None]]) -> list[Violation]:
     names = {f.name for f in table.factors}
-    found = [Violation("bounds", name, None, f"factor {name!r}: bounds are given but the table has no such factor")
-             for name in bounds if name != "*" and name not in names]
+    found = [
+        Violation("bounds", name, None, f"factor {name!r}: bounds are given but the table has no such factor")
+        for name in bounds
+        if name != "*" and name not in names
+    ]
     for factor in table.factors:
         limits = bounds.get(factor.name, bounds.get("*"))
         if limits is None:
             continue
         low, high = limits
-        labels = (_cell_names(factor) if isinstance(factor, InteractionFactor)
-                  else factor.labels())
+        labels = _cell_names(factor) if isinstance(factor, InteractionFactor) else factor.labels()
         values = factor.relativity.ravel()
-        for limit, beyond, word in ((low, lambda v, x: x - v, "below the minimum"),
-                                    (high, lambda v, x: v - x, "above the maximum")):
+        for limit, beyond, word in (
+            (low, lambda v, x: x - v, "below the minimum"),
+            (high, lambda v, x: v - x, "above the maximum"),
+        ):
             if limit is None:
                 continue
             excess = beyond(values, float(limit))
             for i in np.flatnonzero(excess > 0):
-                found.append(Violation("bounds", factor.name, labels[i],
-                                       f"factor {factor.name!r}, {labels[i]}: relativity {values[i]:.6g} is {word} "
-                                       f"{float(limit):.6g}", float(excess[i])))
+                found.append(
+                    Violation(
+                        "bounds",
+                        factor.name,
+                        labels[i],
+                        f"factor {factor.name!r}, {labels[i]}: relativity {values[i]:.6g} is {word} {float(limit):.6g}",
+                        float(excess[i]),
+                    )
+                )
     return found
 
 

@@ -1,4 +1,5 @@
 """The one error type of rating_tables: a bad table, book or argument, told in one line."""
+
 from __future__ import annotations
 
 
@@ -11,8 +12,15 @@ class TableError(ValueError):
     `book`, ...); `factor`, `where` and `amount` locate and size it when known.
     """
 
-    def __init__(self, message: str, *, check: str = "format", factor: str | None = None,
-                 where: str | None = None, amount: float | None = None) -> None:
+    def __init__(
+        self,
+        message: str,
+        *,
+        check: str = "format",
+        factor: str | None = None,
+        where: str | None = None,
+        amount: float | None = None,
+    ) -> None:
         super().__init__(message.replace("\r", " ").replace("\n", " "))
         self.check = check
         self.factor = factor
@@ -24,5 +32,6 @@ class TableError(ValueError):
         message already starts with it."""
         if str(self).startswith(f"{prefix}: "):
             return self
-        return TableError(f"{prefix}: {self}", check=self.check, factor=self.factor,
-                          where=self.where, amount=self.amount)
+        return TableError(
+            f"{prefix}: {self}", check=self.check, factor=self.factor, where=self.where, amount=self.amount
+        )

@@ -8,6 +8,7 @@ table as grids (rows: first factor's cells, columns: second factor's cells).
 The bytes depend only on the table: the workbook's created and modified properties are the table's
 effective date (midnight), and every zip member carries the zip format's first date, 1980-01-01.
 """
+
 from __future__ import annotations
 
 import io
@@ -18,10 +19,18 @@ import zipfile
 from datetime import date, datetime, time
 from typing import Any
 
-from rating_tables.table import (Bands, CategoricalFactor, Cells, Factor, InteractionFactor, NumericFactor,
-                                 RatingTable, edge_text)
+from rating_tables.table import (
+    Bands,
+    CategoricalFactor,
+    Cells,
+    Factor,
+    InteractionFactor,
+    NumericFactor,
+    RatingTable,
+    edge_text,
+)
 
-_FORBIDDEN = set('[]:*?/\\')
+_FORBIDDEN = set("[]:*?/\\")
 _ZIP_DATE = (1980, 1, 1, 0, 0, 0)
 _CORE_PART = "docProps/core.xml"
 
@@ -31,8 +40,11 @@ def write_exhibit(table: RatingTable, path: str | os.PathLike) -> None:
     from openpyxl import Workbook
     from openpyxl.styles import Font, PatternFill
 
-    style = _Style(Font(bold=True), PatternFill("solid", fgColor="DDE4EE"),
-                   "0." + "0" * table.rounding.relativity_decimals if table.rounding.relativity_decimals else "0")
+    style = _Style(
+        Font(bold=True),
+        PatternFill("solid", fgColor="DDE4EE"),
+        "0." + "0" * table.rounding.relativity_decimals if table.rounding.relativity_decimals else "0",
+    )
     book = Workbook()
     summary = book.active
     summary.title = "Summary"
@@ -64,8 +76,11 @@ def _save_fixed(book: Any, stamp: datetime, path: str | os.PathLike) -> None:
         for member in source.infolist():
             fixed = zipfile.ZipInfo(member.filename, date_time=_ZIP_DATE)
             fixed.external_attr = 0o600 << 16
-            out.writestr(fixed, core if member.filename == _CORE_PART else source.read(member),
-                         compress_type=zipfile.ZIP_DEFLATED)
+            out.writestr(
+                fixed,
+                core if member.filename == _CORE_PART else source.read(member),
+                compress_type=zipfile.ZIP_DEFLATED,
+            )
 
 
 class _Style:
@@ -97,8 +112,15 @@ def _plain(value: Any) -> Any:
 
 def _summary(sheet: Any, table: RatingTable, style: _Style) -> None:
     sections: list[tuple[str, list[tuple[str, Any]]]] = [
-        ("Rating table", [("Table id", table.table_id), ("Effective date", table.effective_date),
-                          ("Exposure unit", table.exposure_unit), ("Base rate", table.base_rate)]),
+        (
+            "Rating table",
+            [
+                ("Table id", table.table_id),
+                ("Effective date", table.effective_date),
+                ("Exposure unit", table.exposure_unit),
+                ("Base rate", table.base_rate),
+            ],
+        ),
         ("Loadings", [(k, getattr(table.loadings, k)) for k in table.loadings.__dataclass_fields__]),
         ("Rounding", [(k, getattr(table.rounding, k)) for k in table.rounding.__dataclass_fields__]),
         ("Target", list(table.target.items())),
@@ -137,14 +159,16 @@ def _main(sheet: Any, factor: NumericFactor | CategoricalFactor, style: _Style) 
     keys: list[list[Any]]
     if isinstance(factor, NumericFactor):
         head = ["Band", "Lower", "Upper"]
-        keys = [[label, _number(lo), _number(hi)]
-                for label, lo, hi in zip(factor.labels(), factor.lower, factor.upper)]
+        keys = [[label, _number(lo), _number(hi)] for label, lo, hi in zip(factor.labels(), factor.lower, factor.upper)]
     else:
         head = ["Level"]
         keys = [[level] for level in factor.levels]
-    columns = [("Indicated relativity", factor.indicated, style.relativity_format),
-               ("Selected relativity", factor.relativity, style.relativity_format),
-               ("Exposure", factor.exposure, "#,##0.00"), ("Credibility", factor.credibility, "0.00")]
+    columns = [
+        ("Indicated relativity", factor.indicated, style.relativity_format),
+        ("Selected relativity", factor.relativity, style.relativity_format),
+        ("Exposure", factor.exposure, "#,##0.00"),
+        ("Credibility", factor.credibility, "0.00"),
+    ]
     columns = [c for c in columns if c[1] is not None]
     style.header(sheet, 1, head + [c[0] for c in columns])
     for i, key in enumerate(keys):
@@ -164,9 +188,12 @@ def _headings(cells: Cells) -> list[str]:
 def _grids(sheet: Any, factor: InteractionFactor, style: _Style) -> None:
     a, b = factor.of
     rows, cols = _headings(factor.a_cells), _headings(factor.b_cells)
-    grids = [("Selected relativity", factor.relativity, style.relativity_format),
-             ("Indicated relativity", factor.indicated, style.relativity_format),
-             ("Exposure", factor.exposure, "#,##0.00"), ("Credibility", factor.credibility, "0.00")]
+    grids = [
+        ("Selected relativity", factor.relativity, style.relativity_format),
+        ("Indicated relativity", factor.indicated, style.relativity_format),
+        ("Exposure", factor.exposure, "#,##0.00"),
+        ("Credibility", factor.credibility, "0.00"),
+    ]
     top = 1
     for title, matrix, number_format in grids:
         if matrix is None:

@@ -7,6 +7,7 @@ correction factor k then solves sum(clip(k x proposed, current x (1 - cap), curr
 = sum(proposed) exactly (the fixed point where policies pushed over the cap by the correction are
 capped too, the others scaled by k).
 """
+
 from __future__ import annotations
 
 from dataclasses import dataclass
@@ -17,8 +18,16 @@ import pandas as pd
 from rating_tables.errors import TableError
 
 BAND_EDGES = (-0.20, -0.10, -0.05, 0.0, 0.05, 0.10, 0.20)
-BAND_LABELS = ("below -20%", "-20% to -10%", "-10% to -5%", "-5% to 0%", "0% to +5%", "+5% to +10%",
-               "+10% to +20%", "above +20%")
+BAND_LABELS = (
+    "below -20%",
+    "-20% to -10%",
+    "-10% to -5%",
+    "-5% to 0%",
+    "0% to +5%",
+    "+5% to +10%",
+    "+10% to +20%",
+    "above +20%",
+)
 CHANGE_DECIMALS = 12
 
 
@@ -37,10 +46,18 @@ def change_bands(change: np.ndarray, current: np.ndarray) -> list[dict]:
     counts = np.bincount(codes, minlength=len(BAND_LABELS))
     premium = np.bincount(codes, weights=current, minlength=len(BAND_LABELS))
     edges = (None, *BAND_EDGES, None)
-    return [{"band": label, "lower": edges[i], "upper": edges[i + 1], "count": int(counts[i]),
-             "count_share": _share(counts[i], change.size),
-             "current_premium": float(premium[i]), "premium_share": _share(premium[i], premium.sum())}
-            for i, label in enumerate(BAND_LABELS)]
+    return [
+        {
+            "band": label,
+            "lower": edges[i],
+            "upper": edges[i + 1],
+            "count": int(counts[i]),
+            "count_share": _share(counts[i], change.size),
+            "current_premium": float(premium[i]),
+            "premium_share": _share(premium[i], premium.sum()),
+        }
+        for i, label in enumerate(BAND_LABELS)
+    ]
 
 
 @dataclass(frozen=True)
@@ -63,16 +80,24 @@ class Capping:
 
     def summary(self, current: np.ndarray, proposed: np.ndarray) -> dict:
         """The JSON-able figures of the capping."""
-        out: dict = {"cap": self.cap, "capped_up": int((proposed > self.high).sum()),
-                     "capped_down": int((proposed < self.low).sum()), "total_proposed": float(proposed.sum()),
-                     "total_capped": float(self.capped.sum()), "off_balance": self.off_balance,
-                     "correction_factor": self.correction_factor, "after_correction": None}
+        out: dict = {
+            "cap": self.cap,
+            "capped_up": int((proposed > self.high).sum()),
+            "capped_down": int((proposed < self.low).sum()),
+            "total_proposed": float(proposed.sum()),
+            "total_capped": float(self.capped.sum()),
+            "off_balance": self.off_balance,
+            "correction_factor": self.correction_factor,
+            "after_correction": None,
+        }
         if self.corrected is not None:
             k = self.correction_factor
             out["after_correction"] = {
-                "total": float(self.corrected.sum()), "capped_up": int((k * proposed > self.high).sum()),
+                "total": float(self.corrected.sum()),
+                "capped_up": int((k * proposed > self.high).sum()),
                 "capped_down": int((k * proposed < self.low).sum()),
-                "bands": change_bands(premium_change(current, self.corrected), current)}
+                "bands": change_bands(premium_change(current, self.corrected), current),
+            }
         return out
 
 
@@ -83,9 +108,15 @@ def cap_premiums(current: np.ndarray, proposed: np.ndarray, cap: float) -> Cappi
     capped = np.clip(proposed, low, high)
     total = float(proposed.sum())
     k = _correction(proposed, low, high, total)
-    return Capping(cap=float(cap), low=low, high=high, capped=capped,
-                   off_balance=float(capped.sum() / total - 1.0), correction_factor=k,
-                   corrected=None if k is None else np.clip(k * proposed, low, high))
+    return Capping(
+        cap=float(cap),
+        low=low,
+        high=high,
+        capped=capped,
+        off_balance=float(capped.sum() / total - 1.0),
+        correction_factor=k,
+        corrected=None if k is None else np.clip(k * proposed, low, high),
+    )
 
 
 def _correction(proposed: np.ndarray, low: np.ndarray, high: np.ndarray, target: float) -> float | None:
@@ -101,10 +132,9 @@ def _correction(proposed: np.ndarray, low: np.ndarray, high: np.ndarray, target:
     sum_low = np.concatenate([[0.0], np.cumsum(low[order_low])])
     sum_p_high = np.concatenate([[0.0], np.cumsum(proposed[order_high])])
     sum_high = np.concatenate([[0.0], np.cumsum(high[order_high])])
-    n_started = np.searchsorted(at_low[order_low], knots, side="right")    # policies with low/p <= k
-    n_capped = np.searchsorted(at_high[order_high], knots, side="left")    # policies with high/p < k
-    f = (sum_low[-1] - sum_low[n_started]) + sum_high[n_capped] \
-        + knots * (sum_p_low[n_started] - sum_p_high[n_capped])
+    n_started = np.searchsorted(at_low[order_low], knots, side="right")  # policies with low/p <= k
+    n_capped = np.searchsorted(at_high[order_high], knots, side="left")  # policies with high/p < k
+    f = (sum_low[-1] - sum_low[n_started]) + sum_high[n_capped] + knots * (sum_p_low[n_started] - sum_p_high[n_capped])
     if not f[0] <= target <= f[-1]:
         return None
     j = int(np.searchsorted(f, target, side="left"))
@@ -135,9 +165,17 @@ def by_level(series: pd.Series, current: np.ndarray, proposed: np.ndarray) -> li
     counts = np.bincount(codes, minlength=len(labels))
     cur = np.bincount(codes, weights=current, minlength=len(labels))
     prop = np.bincount(codes, weights=proposed, minlength=len(labels))
-    return [{"level": labels[i], "count": int(counts[i]), "current_premium": float(cur[i]),
-             "proposed_premium": float(prop[i]), "change": float(prop[i] / cur[i] - 1.0)}
-            for i in range(len(labels)) if counts[i]]
+    return [
+        {
+            "level": labels[i],
+            "count": int(counts[i]),
+            "current_premium": float(cur[i]),
+            "proposed_premium": float(prop[i]),
+            "change": float(prop[i] / cur[i] - 1.0),
+        }
+        for i in range(len(labels))
+        if counts[i]
+    ]
 
 
 def _premiums(values: np.ndarray, name: str, n: int) -> np.ndarray:
@@ -146,14 +184,22 @@ def _premiums(values: np.ndarray, name: str, n: int) -> np.ndarray:
         raise TableError(f"{name}: expected {n} premiums (one per book row), got shape {arr.shape}", where=name)
     bad = np.flatnonzero(~(np.isfinite(arr) & (arr > 0)))
     if bad.size:
-        raise TableError(f"{name}: premium {float(arr[bad[0]])!r} at book row {int(bad[0])} (0-based) must be finite "
-                         "and > 0", where=name)
+        raise TableError(
+            f"{name}: premium {float(arr[bad[0]])!r} at book row {int(bad[0])} (0-based) must be finite and > 0",
+            where=name,
+        )
     return arr
 
 
-def impact(current: np.ndarray, proposed: np.ndarray, book: pd.DataFrame, factors: list[str],
-           thresholds: tuple[float, ...] = (0.05, 0.10, 0.25), cap: float | None = None,
-           top: int = 10) -> dict:
+def impact(
+    current: np.ndarray,
+    proposed: np.ndarray,
+    book: pd.DataFrame,
+    factors: list[str],
+    thresholds: tuple[float, ...] = (0.05, 0.10, 0.25),
+    cap: float | None = None,
+    top: int = 10,
+) -> dict:
     """Dislocation summary of moving every policy of `book` from `current` to `proposed` premium.
 
     Returns a JSON-able dict: totals and overall change; the change bands by count and current
@@ -167,10 +213,13 @@ def impact(current: np.ndarray, proposed: np.ndarray, book: pd.DataFrame, factor
     if missing:
         raise TableError(f"factors: the book has no column {missing[0]!r}", where=missing[0])
     for value, name in [(t, "thresholds") for t in thresholds] + ([(cap, "cap")] if cap is not None else []):
-        if isinstance(value, bool) or not isinstance(value, (int, float, np.number)) or not np.isfinite(value) \
-                or (name == "cap" and value < 0):
-            raise TableError(f"{name}: {value!r} must be a finite number{' >= 0' if name == 'cap' else ''}",
-                             where=name)
+        if (
+            isinstance(value, bool)
+            or not isinstance(value, (int, float, np.number))
+            or not np.isfinite(value)
+            or (name == "cap" and value < 0)
+        ):
+            raise TableError(f"{name}: {value!r} must be a finite number{' >= 0' if name == 'cap' else ''}", where=name)
     if isinstance(top, bool) or not isinstance(top, int) or top < 0:
         raise TableError(f"top: {top!r} must be an integer >= 0", where="top")
     change = premium_change(current, proposed)
@@ -178,15 +227,26 @@ def impact(current: np.ndarray, proposed: np.ndarray, book: pd.DataFrame, factor
     order = order[change[order] > 0]
     total_current = float(current.sum())
     return {
-        "policies": n, "total_current": total_current, "total_proposed": float(proposed.sum()),
+        "policies": n,
+        "total_current": total_current,
+        "total_proposed": float(proposed.sum()),
         "overall_change": _share(proposed.sum(), total_current) - 1.0 if n else 0.0,
         "bands": change_bands(change, current),
-        "above_thresholds": [{"threshold": float(t), "count": int((change > t).sum()),
-                              "count_share": _share((change > t).sum(), n),
-                              "premium_share": _share(current[change > t].sum(), total_current)}
-                             for t in thresholds],
+        "above_thresholds": [
+            {
+                "threshold": float(t),
+                "count": int((change > t).sum()),
+                "count_share": _share((change > t).sum(), n),
+                "premium_share": _share(current[change > t].sum(), total_current),
+            }
+            for t in thresholds
+        ],
         "by_factor": {f: by_level(book[f], current, proposed) for f in factors},
-        "largest_increases": [{"row": int(i), "current": float(current[i]), "proposed": float(proposed[i]),
-                               "change": float(change[i])} for i in order],
-        "capping": None if cap is None or n == 0 else cap_premiums(current, proposed, float(cap)).summary(current, proposed),
+        "largest_increases": [
+            {"row": int(i), "current": float(current[i]), "proposed": float(proposed[i]), "change": float(change[i])}
+            for i in order
+        ],
+        "capping": None
+        if cap is None or n == 0
+        else cap_premiums(current, proposed, float(cap)).summary(current, proposed),
     }

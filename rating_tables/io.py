@@ -5,6 +5,7 @@ save then load gives an equal table; output bytes depend only on the table (no t
 Every problem found on reading raises TableError naming the table folder, the file, the factor
 and the 1-based CSV data row or the JSON key.
 """
+
 from __future__ import annotations
 
 import csv
@@ -18,23 +19,49 @@ from typing import Any
 import numpy as np
 
 from rating_tables.errors import TableError
-from rating_tables.table import (OPTIONAL_COLUMNS, TABLE_JSON, Bands, CategoricalFactor, Factor,
-                                 InteractionFactor, Loadings, NumericFactor, RatingTable, Rounding,
-                                 check_file, data_row)
+from rating_tables.table import (
+    OPTIONAL_COLUMNS,
+    TABLE_JSON,
+    Bands,
+    CategoricalFactor,
+    Factor,
+    InteractionFactor,
+    Loadings,
+    NumericFactor,
+    RatingTable,
+    Rounding,
+    check_file,
+    data_row,
+)
 
 FORMAT = "premiumlab.rating-table"
 VERSION = 1
-_TOP_KEYS = ("format", "version", "table_id", "effective_date", "base_rate", "exposure_unit", "factors",
-             "loadings", "rounding", "target", "provenance", "cautions")
+_TOP_KEYS = (
+    "format",
+    "version",
+    "table_id",
+    "effective_date",
+    "base_rate",
+    "exposure_unit",
+    "factors",
+    "loadings",
+    "rounding",
+    "target",
+    "provenance",
+    "cautions",
+)
 _REQUIRED_TOP = {"format", "version", "table_id", "effective_date", "base_rate", "factors", "loadings"}
-_ENTRY_KEYS = {"numeric": ("name", "type", "monotone", "file"),
-               "categorical": ("name", "type", "monotone", "file", "fallback", "base"),
-               "interaction": ("name", "type", "of", "file")}
+_ENTRY_KEYS = {
+    "numeric": ("name", "type", "monotone", "file"),
+    "categorical": ("name", "type", "monotone", "file", "fallback", "base"),
+    "interaction": ("name", "type", "of", "file"),
+}
 _NUMBER = re.compile(r"[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?|[+-]?inf|nan")
 _MISSING = object()
 
 
 # ----------------------------------------------------------------------------------------- reading
+
 
 def load(path: str | os.PathLike) -> RatingTable:
     """Read the rating table in folder `path` (docs/rating-table.md); TableError on any problem."""
@@ -56,8 +83,9 @@ def _load(root: Path) -> RatingTable:
     if meta["format"] != FORMAT:
         raise TableError(f"{TABLE_JSON}: key 'format' is {meta['format']!r}, expected {FORMAT!r}", where="format")
     if meta["version"] != VERSION or isinstance(meta["version"], bool):
-        raise TableError(f"{TABLE_JSON}: key 'version' is {meta['version']!r}; this reader knows version "
-                         f"{VERSION}", where="version")
+        raise TableError(
+            f"{TABLE_JSON}: key 'version' is {meta['version']!r}; this reader knows version {VERSION}", where="version"
+        )
     entries = _typed(meta, "factors", list, "factors")
     factors: list[Factor] = []
     kinds: dict[str, str] = {}
@@ -69,11 +97,17 @@ def _load(root: Path) -> RatingTable:
     loadings = _typed(meta, "loadings", dict, "loadings")
     rounding = _typed(meta, "rounding", dict, "rounding", default={})
     return RatingTable(
-        table_id=meta["table_id"], effective_date=meta["effective_date"], base_rate=meta["base_rate"],
-        exposure_unit=meta.get("exposure_unit", "policy-year"), factors=tuple(factors),
-        loadings=_build(Loadings, loadings, "loadings"), rounding=_build(Rounding, rounding, "rounding"),
-        target=meta.get("target", {}), provenance=meta.get("provenance", {}),
-        cautions=tuple(_typed(meta, "cautions", list, "cautions", default=[])))
+        table_id=meta["table_id"],
+        effective_date=meta["effective_date"],
+        base_rate=meta["base_rate"],
+        exposure_unit=meta.get("exposure_unit", "policy-year"),
+        factors=tuple(factors),
+        loadings=_build(Loadings, loadings, "loadings"),
+        rounding=_build(Rounding, rounding, "rounding"),
+        target=meta.get("target", {}),
+        provenance=meta.get("provenance", {}),
+        cautions=tuple(_typed(meta, "cautions", list, "cautions", default=[])),
+    )
 
 
 def _read_json(path: Path) -> dict:
@@ -115,8 +149,10 @@ def _read_factor(root: Path, entry: Any, where: str, kinds: dict[str, str]) -> F
         raise TableError(f"{TABLE_JSON}: {where} must be an object", where=where)
     kind = _typed(entry, "type", str, f"{where}.type")
     if kind not in _ENTRY_KEYS:
-        raise TableError(f"{TABLE_JSON}: key '{where}.type' is {kind!r}; expected numeric, categorical or "
-                         "interaction", where=f"{where}.type")
+        raise TableError(
+            f"{TABLE_JSON}: key '{where}.type' is {kind!r}; expected numeric, categorical or interaction",
+            where=f"{where}.type",
+        )
     unknown = [k for k in entry if k not in _ENTRY_KEYS[kind]]
     if unknown:
         raise TableError(f"{TABLE_JSON}: unknown key '{where}.{unknown[0]}'", where=f"{where}.{unknown[0]}")
@@ -126,31 +162,49 @@ def _read_factor(root: Path, entry: Any, where: str, kinds: dict[str, str]) -> F
     if kind == "interaction":
         of = _typed(entry, "of", list, f"{where}.of")
         if len(of) != 2 or not all(isinstance(x, str) and x in kinds for x in of):
-            raise TableError(f"{TABLE_JSON}: key '{where}.of' {of!r} must name two factors listed before it",
-                             factor=name, where=f"{where}.of")
+            raise TableError(
+                f"{TABLE_JSON}: key '{where}.of' {of!r} must name two factors listed before it",
+                factor=name,
+                where=f"{where}.of",
+            )
         return _interaction(name, (of[0], of[1]), (kinds[of[0]], kinds[of[1]]), header, rows, file)
     monotone = _typed(entry, "monotone", str, f"{where}.monotone", default="none")
     if kind == "numeric":
         cols = _columns(header, ("lower", "upper", "relativity", "exposure"), file, name)
-        return NumericFactor(name=name, monotone=monotone, lower=_numbers(rows, cols, "lower", file, name),
-                             upper=_numbers(rows, cols, "upper", file, name), file=file,
-                             **_value_columns(rows, cols, file, name))
+        return NumericFactor(
+            name=name,
+            monotone=monotone,
+            lower=_numbers(rows, cols, "lower", file, name),
+            upper=_numbers(rows, cols, "upper", file, name),
+            file=file,
+            **_value_columns(rows, cols, file, name),
+        )
     fallback, base = (entry.get(k) for k in ("fallback", "base"))
     for key, value in (("fallback", fallback), ("base", base)):
         if value is not None and not isinstance(value, str):
-            raise TableError(f"{TABLE_JSON}: key '{where}.{key}' must be a string", factor=name,
-                             where=f"{where}.{key}")
+            raise TableError(f"{TABLE_JSON}: key '{where}.{key}' must be a string", factor=name, where=f"{where}.{key}")
     cols = _columns(header, ("level", "relativity", "exposure"), file, name)
-    return CategoricalFactor(name=name, monotone=monotone, levels=tuple(row[cols["level"]] for row in rows),
-                             file=file, fallback=fallback, base=base, **_value_columns(rows, cols, file, name))
+    return CategoricalFactor(
+        name=name,
+        monotone=monotone,
+        levels=tuple(row[cols["level"]] for row in rows),
+        file=file,
+        fallback=fallback,
+        base=base,
+        **_value_columns(rows, cols, file, name),
+    )
 
 
 def _inside(root: Path, file: str, factor: str) -> Path:
     """The factor file's path, refused when it resolves (through symlinks) outside `root`."""
     target = root / file
     if not Path(os.path.realpath(target)).is_relative_to(os.path.realpath(root)):
-        raise TableError(f"{file}: factor {factor!r}: the path resolves outside the table folder "
-                         "(symbolic link?)", check="file_path", factor=factor, where=file)
+        raise TableError(
+            f"{file}: factor {factor!r}: the path resolves outside the table folder (symbolic link?)",
+            check="file_path",
+            factor=factor,
+            where=file,
+        )
     return target
 
 
@@ -173,32 +227,38 @@ def _read_csv(root: Path, file: str, factor: str) -> tuple[list[str], list[list[
         raise TableError(f"{file}: factor {factor!r}: no data rows", factor=factor)
     for i, row in enumerate(data):
         if len(row) != len(header):
-            raise TableError(f"{file}: factor {factor!r}, {data_row(i)}: {len(row)} fields, the header has "
-                             f"{len(header)}", factor=factor, where=data_row(i))
+            raise TableError(
+                f"{file}: factor {factor!r}, {data_row(i)}: {len(row)} fields, the header has {len(header)}",
+                factor=factor,
+                where=data_row(i),
+            )
     return header, data
 
 
-def _columns(header: list[str], required: tuple[str, ...], file: str, factor: str,
-             optional: tuple[str, ...] = OPTIONAL_COLUMNS) -> dict[str, int]:
+def _columns(
+    header: list[str], required: tuple[str, ...], file: str, factor: str, optional: tuple[str, ...] = OPTIONAL_COLUMNS
+) -> dict[str, int]:
     cols: dict[str, int] = {}
     for j, column in enumerate(header):
         if column not in required and column not in optional:
-            raise TableError(f"{file}: factor {factor!r}: unknown column {column!r} (expected "
-                             f"{', '.join(required)}; optional {', '.join(optional)})", factor=factor,
-                             where=column)
+            raise TableError(
+                f"{file}: factor {factor!r}: unknown column {column!r} (expected "
+                f"{', '.join(required)}; optional {', '.join(optional)})",
+                factor=factor,
+                where=column,
+            )
         if column in cols:
-            raise TableError(f"{file}: factor {factor!r}: column {column!r} appears twice", factor=factor,
-                             where=column)
+            raise TableError(f"{file}: factor {factor!r}: column {column!r} appears twice", factor=factor, where=column)
         cols[column] = j
     for column in required:
         if column not in cols:
-            raise TableError(f"{file}: factor {factor!r}: missing column {column!r}", factor=factor,
-                             where=column)
+            raise TableError(f"{file}: factor {factor!r}: missing column {column!r}", factor=factor, where=column)
     return cols
 
 
-def _numbers(rows: list[list[str]], cols: dict[str, int], column: str, file: str, factor: str,
-             optional: bool = False) -> np.ndarray:
+def _numbers(
+    rows: list[list[str]], cols: dict[str, int], column: str, file: str, factor: str, optional: bool = False
+) -> np.ndarray:
     j = cols[column]
     values = np.empty(len(rows))
     for i, row in enumerate(rows):
@@ -208,8 +268,11 @@ def _numbers(rows: list[list[str]], cols: dict[str, int], column: str, file: str
         elif _NUMBER.fullmatch(text):
             values[i] = float(text)
         else:
-            raise TableError(f"{file}: factor {factor!r}, {data_row(i)}: column {column!r} holds {text!r}, "
-                             "not a number", factor=factor, where=data_row(i))
+            raise TableError(
+                f"{file}: factor {factor!r}, {data_row(i)}: column {column!r} holds {text!r}, not a number",
+                factor=factor,
+                where=data_row(i),
+            )
     return values
 
 
@@ -221,10 +284,14 @@ def _value_columns(rows: list[list[str]], cols: dict[str, int], file: str, facto
     return values
 
 
-def _interaction(name: str, of: tuple[str, str], kinds: tuple[str, str], header: list[str],
-                 rows: list[list[str]], file: str) -> InteractionFactor:
-    key_columns = [c for side, kind in zip(of, kinds)
-                   for c in ((f"{side}_lower", f"{side}_upper") if kind == "numeric" else (f"{side}_level",))]
+def _interaction(
+    name: str, of: tuple[str, str], kinds: tuple[str, str], header: list[str], rows: list[list[str]], file: str
+) -> InteractionFactor:
+    key_columns = [
+        c
+        for side, kind in zip(of, kinds)
+        for c in ((f"{side}_lower", f"{side}_upper") if kind == "numeric" else (f"{side}_level",))
+    ]
     cols = _columns(header, (*key_columns, "relativity"), file, name, optional=("exposure", *OPTIONAL_COLUMNS))
     sides = [_side_keys(rows, cols, side, kind, file, name) for side, kind in zip(of, kinds)]
     (a_cells, a_pos), (b_cells, b_pos) = (_distinct(keys, kind) for keys, kind in zip(sides, kinds))
@@ -233,21 +300,26 @@ def _interaction(name: str, of: tuple[str, str], kinds: tuple[str, str], header:
     for r, (ka, kb) in enumerate(zip(*sides)):
         i, j = a_pos[ka], b_pos[kb]
         if row_of[i, j] >= 0:
-            raise TableError(f"{file}: interaction {name!r}, {data_row(r)}: the cell repeats "
-                             f"{data_row(int(row_of[i, j]))}", factor=name, where=data_row(r))
+            raise TableError(
+                f"{file}: interaction {name!r}, {data_row(r)}: the cell repeats {data_row(int(row_of[i, j]))}",
+                factor=name,
+                where=data_row(r),
+            )
         row_of[i, j] = r
     if (row_of < 0).any():
         i, j = (int(x[0]) for x in np.nonzero(row_of < 0))
         a_label, b_label = (_key_text(cells, k) for cells, k in ((a_cells, i), (b_cells, j)))
-        raise TableError(f"{file}: interaction {name!r}: no row for cell ({of[0]}={a_label}, {of[1]}={b_label})",
-                         factor=name, where=f"{a_label}, {b_label}")
+        raise TableError(
+            f"{file}: interaction {name!r}: no row for cell ({of[0]}={a_label}, {of[1]}={b_label})",
+            factor=name,
+            where=f"{a_label}, {b_label}",
+        )
     values = _value_columns(rows, cols, file, name)
     matrices = {column: v[row_of] for column, v in values.items()}
     return InteractionFactor(name=name, of=of, a_cells=a_cells, b_cells=b_cells, file=file, **matrices)
 
 
-def _side_keys(rows: list[list[str]], cols: dict[str, int], side: str, kind: str, file: str,
-               factor: str) -> list:
+def _side_keys(rows: list[list[str]], cols: dict[str, int], side: str, kind: str, file: str, factor: str) -> list:
     if kind == "categorical":
         return [row[cols[f"{side}_level"]] for row in rows]
     lower = _numbers(rows, cols, f"{side}_lower", file, factor)
@@ -272,6 +344,7 @@ def _key_text(cells: Bands | tuple[str, ...], i: int) -> str:
 
 # ----------------------------------------------------------------------------------------- writing
 
+
 def save(table: RatingTable, path: str | os.PathLike) -> None:
     """Write `table` into folder `path` (created if missing): table.json and one CSV per factor.
 
@@ -288,12 +361,20 @@ def save(table: RatingTable, path: str | os.PathLike) -> None:
 
 
 def _table_json(table: RatingTable) -> dict:
-    return {"format": FORMAT, "version": VERSION, "table_id": table.table_id,
-            "effective_date": table.effective_date, "base_rate": table.base_rate,
-            "exposure_unit": table.exposure_unit, "factors": [_entry(f) for f in table.factors],
-            "loadings": {k: getattr(table.loadings, k) for k in Loadings.__dataclass_fields__},
-            "rounding": {k: getattr(table.rounding, k) for k in Rounding.__dataclass_fields__},
-            "target": table.target, "provenance": table.provenance, "cautions": list(table.cautions)}
+    return {
+        "format": FORMAT,
+        "version": VERSION,
+        "table_id": table.table_id,
+        "effective_date": table.effective_date,
+        "base_rate": table.base_rate,
+        "exposure_unit": table.exposure_unit,
+        "factors": [_entry(f) for f in table.factors],
+        "loadings": {k: getattr(table.loadings, k) for k in Loadings.__dataclass_fields__},
+        "rounding": {k: getattr(table.rounding, k) for k in Rounding.__dataclass_fields__},
+        "target": table.target,
+        "provenance": table.provenance,
+        "cautions": list(table.cautions),
+    }
 
 
 def _entry(factor: Factor) -> dict:
@@ -349,6 +430,11 @@ def _interaction_rows(factor: InteractionFactor) -> list[list[str]]:
     matrices = [factor.relativity, *(getattr(factor, c) for c in extra)]
     for i in range(len(factor.a_cells)):
         for j in range(len(factor.b_cells)):
-            rows.append([*_side_key(factor.a_cells, i), *_side_key(factor.b_cells, j),
-                         *(_number_text(m[i, j]) for m in matrices)])
+            rows.append(
+                [
+                    *_side_key(factor.a_cells, i),
+                    *_side_key(factor.b_cells, j),
+                    *(_number_text(m[i, j]) for m in matrices),
+                ]
+            )
     return rows

@@ -1,10 +1,11 @@
 """The monotone promise of a factor: the one mapping between its name and its sign."""
+
 from __future__ import annotations
 
-from enum import Enum
+from enum import StrEnum
 
 
-class Monotone(str, Enum):
+class Monotone(StrEnum):
     """A factor's promised direction on the pure premium (the spec's and the table's `monotone`).
 
     A `str` enum: ``Monotone.INCREASING == "increasing"``, so it is written to JSON and TOML as the

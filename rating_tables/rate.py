@@ -9,6 +9,7 @@ Numeric values go to the band [lower, upper) that holds them (`table.band_index`
 interior edges at or below the value; -inf and inf fall in the end bands); categorical values are compared as strings (pandas
 categoricals are mapped once per category, then taken by code). Errors name the 0-based book row.
 """
+
 from __future__ import annotations
 
 import dataclasses
@@ -17,8 +18,15 @@ import numpy as np
 import pandas as pd
 
 from rating_tables.errors import TableError
-from rating_tables.table import (Bands, CategoricalFactor, Loadings, NumericFactor,
-                                 RatingTable, band_index, mapping_to_side)
+from rating_tables.table import (
+    Bands,
+    CategoricalFactor,
+    Loadings,
+    NumericFactor,
+    RatingTable,
+    band_index,
+    mapping_to_side,
+)
 
 
 def book_row(i: int) -> str:
@@ -48,8 +56,7 @@ def numeric_values(series: pd.Series, what: str, row_offset: int = 0) -> np.ndar
             bad = np.flatnonzero(coerced.isna().to_numpy() & series.notna().to_numpy())
             where = book_row(row_offset + int(bad[0])) if bad.size else "some row"
             text = series.iloc[int(bad[0])] if bad.size else "?"
-            raise TableError(f"{what}: value {text!r} at {where} is not a number", check="book",
-                             where=where) from None
+            raise TableError(f"{what}: value {text!r} at {where} is not a number", check="book", where=where) from None
     missing = np.flatnonzero(np.isnan(values))
     if missing.size:
         where = book_row(row_offset + int(missing[0]))
@@ -78,8 +85,12 @@ def level_index(factor: CategoricalFactor, series: pd.Series, row_offset: int = 
         if factor.fallback is None:
             first = int(np.flatnonzero(unknown[codes])[0])
             where = book_row(row_offset + first)
-            raise TableError(f"{what}: level {labels[codes[first]]!r} at {where} is not in the table and the "
-                             "factor has no fallback", check="book", factor=factor.name, where=where)
+            raise TableError(
+                f"{what}: level {labels[codes[first]]!r} at {where} is not in the table and the factor has no fallback",
+                check="book",
+                factor=factor.name,
+                where=where,
+            )
         to_level[unknown] = position[factor.fallback]
     return to_level[codes]
 
@@ -88,15 +99,17 @@ def _exposure(book: pd.DataFrame, exposure_column: str | None, annual: bool, row
     if annual:
         return np.ones(len(book))
     if exposure_column is None:
-        raise TableError("exposure: name the book's exposure column, or rate annual (one full term per row)",
-                         check="book")
+        raise TableError(
+            "exposure: name the book's exposure column, or rate annual (one full term per row)", check="book"
+        )
     what = f"exposure column {exposure_column!r}"
     values = numeric_values(_column(book, exposure_column, what), what, row_offset)
     bad = np.flatnonzero(~(np.isfinite(values) & (values >= 0)))
     if bad.size:
         where = book_row(row_offset + int(bad[0]))
-        raise TableError(f"{what}: value {float(values[bad[0]])!r} at {where} must be finite and >= 0", check="book",
-                         where=where)
+        raise TableError(
+            f"{what}: value {float(values[bad[0]])!r} at {where} must be finite and >= 0", check="book", where=where
+        )
     return values
 
 
@@ -116,15 +129,22 @@ def relativities(table: RatingTable, book: pd.DataFrame, row_offset: int = 0) ->
             cells[factor.name] = level_index(factor, series, row_offset)
             out[f"rel_{factor.name}"] = factor.relativity[cells[factor.name]]
         else:
-            i, j = (_side_index(table, side, side_cells, cells, values)
-                    for side, side_cells in zip(factor.of, (factor.a_cells, factor.b_cells)))
+            i, j = (
+                _side_index(table, side, side_cells, cells, values)
+                for side, side_cells in zip(factor.of, (factor.a_cells, factor.b_cells))
+            )
             flat = i.astype(np.intp) * factor.relativity.shape[1] + j  # one flat take: 2-D fancy indexing is slower
             out[f"rel_{factor.name}"] = factor.relativity.ravel()[flat]
     return out
 
 
-def _side_index(table: RatingTable, side: str, side_cells: Bands | tuple[str, ...],
-                cells: dict[str, np.ndarray], values: dict[str, np.ndarray]) -> np.ndarray:
+def _side_index(
+    table: RatingTable,
+    side: str,
+    side_cells: Bands | tuple[str, ...],
+    cells: dict[str, np.ndarray],
+    values: dict[str, np.ndarray],
+) -> np.ndarray:
     if isinstance(side_cells, Bands):
         return band_index(side_cells.lower, values[side])
     main = table.factor(side)
@@ -140,19 +160,26 @@ def pure_premium(base_rate: float, rels: dict[str, np.ndarray], exposure: np.nda
     return pure * exposure
 
 
-def gross_premium(pure: np.ndarray, exposure: np.ndarray, loadings: Loadings, premium_decimals: int,
-                  apply_minimum: bool = True) -> np.ndarray:
+def gross_premium(
+    pure: np.ndarray, exposure: np.ndarray, loadings: Loadings, premium_decimals: int, apply_minimum: bool = True
+) -> np.ndarray:
     """max(minimum_premium, (pure x (1 + lae_ratio) + fixed_expense x exposure) / (1 - variable_expense
     - profit)), rounded half to even to `premium_decimals` (money per row)."""
-    gross = (pure * (1.0 + loadings.lae_ratio) + loadings.fixed_expense * exposure) \
-        / (1.0 - loadings.variable_expense - loadings.profit)
+    gross = (pure * (1.0 + loadings.lae_ratio) + loadings.fixed_expense * exposure) / (
+        1.0 - loadings.variable_expense - loadings.profit
+    )
     if apply_minimum:
         gross = np.maximum(gross, loadings.minimum_premium)
     return np.round(gross, premium_decimals)
 
 
-def rating_columns(table: RatingTable, book: pd.DataFrame, exposure_column: str | None = None,
-                   annual: bool = False, row_offset: int = 0) -> dict[str, np.ndarray]:
+def rating_columns(
+    table: RatingTable,
+    book: pd.DataFrame,
+    exposure_column: str | None = None,
+    annual: bool = False,
+    row_offset: int = 0,
+) -> dict[str, np.ndarray]:
     """The columns the rater adds: `rel_*` in table order, then `pure_premium`, `gross_premium`.
 
     `row_offset` is added to row numbers in error messages (for books rated in batches).
@@ -161,13 +188,17 @@ def rating_columns(table: RatingTable, book: pd.DataFrame, exposure_column: str 
     out = relativities(table, book, row_offset)
     with np.errstate(over="ignore", invalid="ignore"):  # checked below, row by row
         out["pure_premium"] = pure_premium(table.base_rate, out, exposure)
-        out["gross_premium"] = gross_premium(out["pure_premium"], exposure, table.loadings,
-                                             table.rounding.premium_decimals)
+        out["gross_premium"] = gross_premium(
+            out["pure_premium"], exposure, table.loadings, table.rounding.premium_decimals
+        )
     bad = np.flatnonzero(~np.isfinite(out["gross_premium"]))
     if bad.size:
         where = book_row(row_offset + int(bad[0]))
-        raise TableError(f"premium at {where} is too large to represent (exposure {float(exposure[bad[0]])!r}); "
-                         "check the exposure", check="book", where=where)
+        raise TableError(
+            f"premium at {where} is too large to represent (exposure {float(exposure[bad[0]])!r}); check the exposure",
+            check="book",
+            where=where,
+        )
     return out
 
 
@@ -175,8 +206,9 @@ def check_no_clash(existing: list[str], added: list[str], what: str) -> None:
     """Refuse a book that already has a column the rater would add."""
     clash = [c for c in added if c in set(existing)]
     if clash:
-        raise TableError(f"{what}: the book already has a column {clash[0]!r}, which rating would add",
-                         check="book", where=clash[0])
+        raise TableError(
+            f"{what}: the book already has a column {clash[0]!r}, which rating would add", check="book", where=clash[0]
+        )
 
 
 def added_columns(table: RatingTable) -> list[str]:
@@ -184,8 +216,9 @@ def added_columns(table: RatingTable) -> list[str]:
     return [f"rel_{f.name}" for f in table.factors] + ["pure_premium", "gross_premium"]
 
 
-def rate(table: RatingTable, book: pd.DataFrame, exposure_column: str | None = None,
-         annual: bool = False) -> pd.DataFrame:
+def rate(
+    table: RatingTable, book: pd.DataFrame, exposure_column: str | None = None, annual: bool = False
+) -> pd.DataFrame:
     """Rate every row of `book`: its columns plus `rel_*`, `pure_premium` and `gross_premium`.
 
     `exposure_column` is the earned exposure (in the table's exposure unit); with `annual=True`
@@ -196,8 +229,9 @@ def rate(table: RatingTable, book: pd.DataFrame, exposure_column: str | None = N
     return pd.concat([book, added], axis=1)
 
 
-def solve_base_rate(table: RatingTable, book: pd.DataFrame, exposure_column: str | None,
-                    target_total: float, annual: bool = False) -> tuple[RatingTable, dict]:
+def solve_base_rate(
+    table: RatingTable, book: pd.DataFrame, exposure_column: str | None, target_total: float, annual: bool = False
+) -> tuple[RatingTable, dict]:
     """The table with the base rate that makes sum(pure_premium) over `book` equal `target_total`.
 
     Pure premium is linear in the base rate, so the new base rate is base_rate x off-balance factor,
@@ -205,8 +239,12 @@ def solve_base_rate(table: RatingTable, book: pd.DataFrame, exposure_column: str
     `target.total_pure_premium` is set to `target_total`. When a minimum premium is loaded, the report
     also states its effect on the gross premium: sum(gross) / sum(gross without the minimum) - 1.
     """
-    if isinstance(target_total, bool) or not isinstance(target_total, (int, float, np.number)) \
-            or not np.isfinite(target_total) or target_total <= 0:
+    if (
+        isinstance(target_total, bool)
+        or not isinstance(target_total, (int, float, np.number))
+        or not np.isfinite(target_total)
+        or target_total <= 0
+    ):
         raise TableError(f"target_total: must be a finite number > 0, got {target_total!r}", where="target_total")
     exposure = _exposure(book, exposure_column, annual, 0)
     rels = relativities(table, book)
@@ -214,20 +252,31 @@ def solve_base_rate(table: RatingTable, book: pd.DataFrame, exposure_column: str
     if not before > 0:
         raise TableError("book: the table rates it to a total pure premium of 0 (no exposure?)", check="book")
     off_balance = float(target_total) / before
-    solved = dataclasses.replace(table, base_rate=table.base_rate * off_balance,
-                                 target={**table.target, "total_pure_premium": float(target_total)})
+    solved = dataclasses.replace(
+        table,
+        base_rate=table.base_rate * off_balance,
+        target={**table.target, "total_pure_premium": float(target_total)},
+    )
     pure = pure_premium(solved.base_rate, rels, exposure)
-    report: dict = {"base_rate_before": table.base_rate, "base_rate": solved.base_rate,
-                    "off_balance_factor": off_balance, "total_pure_premium_before": before,
-                    "total_pure_premium": float(pure.sum()), "target_total_pure_premium": float(target_total)}
+    report: dict = {
+        "base_rate_before": table.base_rate,
+        "base_rate": solved.base_rate,
+        "off_balance_factor": off_balance,
+        "total_pure_premium_before": before,
+        "total_pure_premium": float(pure.sum()),
+        "target_total_pure_premium": float(target_total),
+    }
     minimum = table.loadings.minimum_premium
     if minimum > 0:
         decimals = table.rounding.premium_decimals
         without = gross_premium(pure, exposure, table.loadings, decimals, apply_minimum=False)
         with_minimum = gross_premium(pure, exposure, table.loadings, decimals)
         report["minimum_premium"] = {
-            "minimum_premium": minimum, "policies_at_minimum": int((without < minimum).sum()),
+            "minimum_premium": minimum,
+            "policies_at_minimum": int((without < minimum).sum()),
             "share_at_minimum": float((without < minimum).mean()),
-            "gross_without_minimum": float(without.sum()), "gross_with_minimum": float(with_minimum.sum()),
-            "effect": float(with_minimum.sum() / without.sum() - 1.0)}
+            "gross_without_minimum": float(without.sum()),
+            "gross_with_minimum": float(with_minimum.sum()),
+            "effect": float(with_minimum.sum() / without.sum() - 1.0),
+        }
     return solved, report

@@ -7,6 +7,7 @@ and passed through unchanged; Parquet columns keep their types (dictionary-encod
 written decoded), and the output's Parquet row groups hold a fixed `row_group_rows` rows. A Parquet output carries the table's cautions as JSON under
 the schema metadata key `premiumlab.cautions`; for CSV the caller prints the returned cautions.
 """
+
 from __future__ import annotations
 
 import json
@@ -28,9 +29,16 @@ CAUTIONS_KEY = b"premiumlab.cautions"
 ROW_GROUP_ROWS = 262_144
 
 
-def rate_file(table: RatingTable, in_path: str | os.PathLike, out_path: str | os.PathLike,
-              exposure_column: str | None = None, annual: bool = False, batch_rows: int = 500_000, *,
-              row_group_rows: int = ROW_GROUP_ROWS) -> tuple[str, ...]:
+def rate_file(
+    table: RatingTable,
+    in_path: str | os.PathLike,
+    out_path: str | os.PathLike,
+    exposure_column: str | None = None,
+    annual: bool = False,
+    batch_rows: int = 500_000,
+    *,
+    row_group_rows: int = ROW_GROUP_ROWS,
+) -> tuple[str, ...]:
     """Rate the book at `in_path` into `out_path` (columns as `rate` adds them); returns the cautions.
 
     Errors name the input and the 0-based row counted over the whole book; a failed call removes
@@ -54,8 +62,9 @@ def rate_file(table: RatingTable, in_path: str | os.PathLike, out_path: str | os
         check_no_clash(source.schema.names, added_columns(table), "book")
         schema = _output_schema(source.schema, table)
         rows = 0
-        with (_ParquetSink(target, schema, row_group_rows) if out_kind == "parquet"
-              else _CsvSink(target, schema)) as sink:
+        with (
+            _ParquetSink(target, schema, row_group_rows) if out_kind == "parquet" else _CsvSink(target, schema)
+        ) as sink:
             for chunk in source.tables():
                 frame = chunk.select(list(dict.fromkeys(needed))).to_pandas()
                 added = rating_columns(table, frame, exposure_column, annual, row_offset=rows)
@@ -90,8 +99,7 @@ class _Source:
         schemas = [self._schema(p) for p in self.parts]
         for part, schema in zip(self.parts, schemas):
             if not schema.equals(schemas[0]):
-                raise TableError(f"{part}: its columns or types differ from {self.parts[0].name}'s",
-                                 where=str(part))
+                raise TableError(f"{part}: its columns or types differ from {self.parts[0].name}'s", where=str(part))
         self.schema = schemas[0]
 
     def _schema(self, part: Path) -> pa.Schema:
@@ -108,8 +116,9 @@ class _Source:
         for part in self.parts:
             try:
                 if self.kind == "csv":
-                    reader = pd.read_csv(part, dtype=str, keep_default_na=False, na_filter=False,
-                                         chunksize=self.batch_rows)
+                    reader = pd.read_csv(
+                        part, dtype=str, keep_default_na=False, na_filter=False, chunksize=self.batch_rows
+                    )
                     for chunk in reader:
                         yield pa.Table.from_pandas(chunk, schema=self.schema, preserve_index=False)
                 else:
@@ -121,8 +130,10 @@ class _Source:
 
     def plain(self, chunk: pa.Table) -> pa.Table:
         """The batch with dictionary columns decoded and no schema metadata."""
-        columns = [col.cast(field.type) if not col.type.equals(field.type) else col
-                   for col, field in zip(chunk.columns, self.schema)]
+        columns = [
+            col.cast(field.type) if not col.type.equals(field.type) else col
+            for col, field in zip(chunk.columns, self.schema)
+        ]
         return pa.Table.from_arrays(columns, schema=self.schema)
 
 

@@ -7,14 +7,16 @@ are read-only float64 copies. A table that exists is well-formed: numeric bands 
 unique non-empty strings, fallback and base levels exist, a two-way table refers to main factors
 listed before it, and `file` paths stay inside the table folder.
 """
+
 from __future__ import annotations
 
 import json
 import math
+from collections.abc import Callable
 from dataclasses import dataclass, field, fields
 from datetime import date
 from pathlib import PurePosixPath
-from typing import Any, Callable, Union
+from typing import Any
 
 import numpy as np
 
@@ -23,8 +25,10 @@ from rating_tables.errors import TableError
 MONOTONE = ("increasing", "decreasing", "none")
 TABLE_JSON = "table.json"
 OPTIONAL_COLUMNS = ("indicated", "credibility")
-DRAFT_CAUTION = ("Draft for review by a qualified actuary: these rates must be filed and approved under "
-                 "local rate regulation before use, and factors prohibited by local law must not be used.")
+DRAFT_CAUTION = (
+    "Draft for review by a qualified actuary: these rates must be filed and approved under "
+    "local rate regulation before use, and factors prohibited by local law must not be used."
+)
 
 
 def edge_text(x: float) -> str:
@@ -81,37 +85,41 @@ def _readonly(values: Any, what: str, prefix: str, ndim: int = 1) -> np.ndarray:
 _RULES: dict[str, tuple[str, Callable[[np.ndarray], np.ndarray], str]] = {
     "relativity": ("relativity", lambda v: np.isfinite(v) & (v > 0), "must be finite and > 0"),
     "exposure": ("format", lambda v: np.isfinite(v) & (v >= 0), "must be finite and >= 0"),
-    "indicated": ("format", lambda v: np.isnan(v) | (np.isfinite(v) & (v > 0)),
-                  "must be empty or finite and > 0"),
-    "credibility": ("format", lambda v: np.isnan(v) | ((v >= 0) & (v <= 1)),
-                    "must be empty or between 0 and 1"),
+    "indicated": ("format", lambda v: np.isnan(v) | (np.isfinite(v) & (v > 0)), "must be empty or finite and > 0"),
+    "credibility": ("format", lambda v: np.isnan(v) | ((v >= 0) & (v <= 1)), "must be empty or between 0 and 1"),
 }
 
 
-def check_column(values: np.ndarray, column: str, prefix: str, factor: str,
-                 row_text: Callable[[int], str]) -> None:
+def check_column(values: np.ndarray, column: str, prefix: str, factor: str, row_text: Callable[[int], str]) -> None:
     """Refuse the first value of `column` that breaks its rule; `row_text` names a flat index."""
     check, ok, rule = _RULES[column]
     flat = values.ravel()
     bad = np.flatnonzero(~ok(flat))
     if bad.size:
         i = int(bad[0])
-        raise TableError(f"{prefix}, {row_text(i)}: {column} {edge_text(flat[i])} {rule}",
-                         check=check, factor=factor, where=row_text(i), amount=float(flat[i]))
+        raise TableError(
+            f"{prefix}, {row_text(i)}: {column} {edge_text(flat[i])} {rule}",
+            check=check,
+            factor=factor,
+            where=row_text(i),
+            amount=float(flat[i]),
+        )
 
 
-def check_bands(lower: np.ndarray, upper: np.ndarray, prefix: str, factor: str,
-                row_text: Callable[[int], str]) -> None:
+def check_bands(lower: np.ndarray, upper: np.ndarray, prefix: str, factor: str, row_text: Callable[[int], str]) -> None:
     """Bands [lower, upper) must be non-empty, contiguous and cover (-inf, inf)."""
+
     def fail(i: int, what: str, amount: float | None = None) -> None:
-        raise TableError(f"{prefix}, {row_text(i)}: {what}", check="bands", factor=factor,
-                         where=row_text(i), amount=amount)
+        raise TableError(
+            f"{prefix}, {row_text(i)}: {what}", check="bands", factor=factor, where=row_text(i), amount=amount
+        )
 
     if lower.size == 0:
         raise TableError(f"{prefix}: has no bands", check="bands", factor=factor)
     if upper.size != lower.size:
-        raise TableError(f"{prefix}: {lower.size} lower edges but {upper.size} upper edges",
-                         check="bands", factor=factor)
+        raise TableError(
+            f"{prefix}: {lower.size} lower edges but {upper.size} upper edges", check="bands", factor=factor
+        )
     missing = np.flatnonzero(np.isnan(lower) | np.isnan(upper))
     if missing.size:
         fail(int(missing[0]), "band edge is not a number")
@@ -128,8 +136,12 @@ def check_bands(lower: np.ndarray, upper: np.ndarray, prefix: str, factor: str,
     if broken.size:
         i = int(broken[0]) + 1
         kind = "gap" if step[i - 1] > 0 else "overlap"
-        fail(i, f"{kind} between the previous band's upper {edge_text(upper[i - 1])} and this "
-                f"band's lower {edge_text(lower[i])}", amount=float(abs(step[i - 1])))
+        fail(
+            i,
+            f"{kind} between the previous band's upper {edge_text(upper[i - 1])} and this "
+            f"band's lower {edge_text(lower[i])}",
+            amount=float(abs(step[i - 1])),
+        )
 
 
 def check_levels(levels: Any, prefix: str, factor: str, row_text: Callable[[int], str]) -> tuple[str, ...]:
@@ -140,11 +152,15 @@ def check_levels(levels: Any, prefix: str, factor: str, row_text: Callable[[int]
     seen: dict[str, int] = {}
     for i, level in enumerate(levels):
         if not isinstance(level, str) or level == "":
-            raise TableError(f"{prefix}, {row_text(i)}: level {level!r} is not a non-empty string",
-                             factor=factor, where=row_text(i))
+            raise TableError(
+                f"{prefix}, {row_text(i)}: level {level!r} is not a non-empty string", factor=factor, where=row_text(i)
+            )
         if level in seen:
-            raise TableError(f"{prefix}, {row_text(i)}: level {level!r} repeats {row_text(seen[level])}",
-                             factor=factor, where=row_text(i))
+            raise TableError(
+                f"{prefix}, {row_text(i)}: level {level!r} repeats {row_text(seen[level])}",
+                factor=factor,
+                where=row_text(i),
+            )
         seen[level] = i
     return levels
 
@@ -152,28 +168,41 @@ def check_levels(levels: Any, prefix: str, factor: str, row_text: Callable[[int]
 def check_file(file: Any, prefix: str, factor: str) -> str:
     """A factor's `file`: a relative POSIX path inside the table folder (normalised)."""
     if not isinstance(file, str) or file == "":
-        raise TableError(f"{prefix}: file must be a non-empty relative path", check="file_path",
-                         factor=factor)
+        raise TableError(f"{prefix}: file must be a non-empty relative path", check="file_path", factor=factor)
     if "\\" in file or "\x00" in file:
-        raise TableError(f"{prefix}: file {file!r} must use '/' separators and no NUL",
-                         check="file_path", factor=factor, where=file)
+        raise TableError(
+            f"{prefix}: file {file!r} must use '/' separators and no NUL", check="file_path", factor=factor, where=file
+        )
     path = PurePosixPath(file)
     if path.is_absolute():
-        raise TableError(f"{prefix}: file {file!r} is an absolute path; it must be relative to the "
-                         "table folder", check="file_path", factor=factor, where=file)
+        raise TableError(
+            f"{prefix}: file {file!r} is an absolute path; it must be relative to the table folder",
+            check="file_path",
+            factor=factor,
+            where=file,
+        )
     if ".." in path.parts:
-        raise TableError(f"{prefix}: file {file!r} uses '..' and would leave the table folder",
-                         check="file_path", factor=factor, where=file)
+        raise TableError(
+            f"{prefix}: file {file!r} uses '..' and would leave the table folder",
+            check="file_path",
+            factor=factor,
+            where=file,
+        )
     if str(path) in (".", TABLE_JSON):
-        raise TableError(f"{prefix}: file {file!r} is not a factor file name", check="file_path",
-                         factor=factor, where=file)
+        raise TableError(
+            f"{prefix}: file {file!r} is not a factor file name", check="file_path", factor=factor, where=file
+        )
     return str(path)
 
 
 def _same(a: Any, b: Any) -> bool:
     if isinstance(a, np.ndarray) or isinstance(b, np.ndarray):
-        return (isinstance(a, np.ndarray) and isinstance(b, np.ndarray) and a.shape == b.shape
-                and bool(np.array_equal(a, b, equal_nan=True)))
+        return (
+            isinstance(a, np.ndarray)
+            and isinstance(b, np.ndarray)
+            and a.shape == b.shape
+            and bool(np.array_equal(a, b, equal_nan=True))
+        )
     return bool(a == b)
 
 
@@ -195,20 +224,17 @@ def _check_name(name: Any, what: str) -> None:
 
 def _check_monotone(monotone: Any, prefix: str, factor: str) -> None:
     if monotone not in MONOTONE:
-        raise TableError(f"{prefix}: monotone {monotone!r} must be one of {', '.join(MONOTONE)}",
-                         factor=factor)
+        raise TableError(f"{prefix}: monotone {monotone!r} must be one of {', '.join(MONOTONE)}", factor=factor)
 
 
-def _optional_columns(factor: Any, prefix: str, shape: tuple[int, ...],
-                      row_text: Callable[[int], str]) -> None:
+def _optional_columns(factor: Any, prefix: str, shape: tuple[int, ...], row_text: Callable[[int], str]) -> None:
     for column in OPTIONAL_COLUMNS:
         values = getattr(factor, column)
         if values is None:
             continue
         arr = _readonly(values, column, prefix, ndim=len(shape))
         if arr.shape != shape:
-            raise TableError(f"{prefix}: {column} has shape {arr.shape}, expected {shape}",
-                             factor=factor.name)
+            raise TableError(f"{prefix}: {column} has shape {arr.shape}, expected {shape}", factor=factor.name)
         check_column(arr, column, prefix, factor.name, row_text)
         _set(factor, column, arr)
 
@@ -225,8 +251,13 @@ def _factor_arrays(factor: Any, prefix: str, n: int) -> None:
 
 def _main_prologue(factor: Any) -> str:
     _check_name(factor.name, "factor")
-    _set(factor, "file", check_file(f"factors/{factor.name}.csv" if factor.file is None else factor.file,
-                                    f"factor {factor.name!r}", factor.name))
+    _set(
+        factor,
+        "file",
+        check_file(
+            f"factors/{factor.name}.csv" if factor.file is None else factor.file, f"factor {factor.name!r}", factor.name
+        ),
+    )
     prefix = f"{factor.file}: factor {factor.name!r}"
     _check_monotone(factor.monotone, prefix, factor.name)
     return prefix
@@ -291,8 +322,9 @@ class CategoricalFactor(_ComparedByValue):
         for key in ("fallback", "base"):
             value = getattr(self, key)
             if value is not None and value not in levels:
-                raise TableError(f"{prefix}: {key} level {value!r} is not one of the factor's levels",
-                                 factor=self.name, where=key)
+                raise TableError(
+                    f"{prefix}: {key} level {value!r} is not one of the factor's levels", factor=self.name, where=key
+                )
         _factor_arrays(self, prefix, len(levels))
 
     def labels(self) -> list[str]:
@@ -319,7 +351,7 @@ class Bands(_ComparedByValue):
         return band_labels(self.lower, self.upper)
 
 
-Cells = Union[Bands, tuple[str, ...]]
+Cells = Bands | tuple[str, ...]
 
 
 def cell_labels(cells: Cells) -> list[str]:
@@ -351,14 +383,17 @@ class InteractionFactor(_ComparedByValue):
         _check_name(self.name, "interaction")
         of = tuple(self.of)
         if len(of) != 2 or not all(isinstance(x, str) and x for x in of) or of[0] == of[1]:
-            raise TableError(f"interaction {self.name!r}: of {of!r} must name two different factors",
-                             factor=self.name)
+            raise TableError(f"interaction {self.name!r}: of {of!r} must name two different factors", factor=self.name)
         _set(self, "of", of)
         if self.name != f"{of[0]}__{of[1]}":
-            raise TableError(f"interaction {self.name!r}: name must be {of[0] + '__' + of[1]!r}",
-                             factor=self.name)
-        _set(self, "file", check_file(f"factors/{self.name}.csv" if self.file is None else self.file,
-                                      f"interaction {self.name!r}", self.name))
+            raise TableError(f"interaction {self.name!r}: name must be {of[0] + '__' + of[1]!r}", factor=self.name)
+        _set(
+            self,
+            "file",
+            check_file(
+                f"factors/{self.name}.csv" if self.file is None else self.file, f"interaction {self.name!r}", self.name
+            ),
+        )
         prefix = f"{self.file}: interaction {self.name!r}"
         for side, attr in zip(of, ("a_cells", "b_cells")):
             cells = getattr(self, attr)
@@ -377,22 +412,20 @@ class InteractionFactor(_ComparedByValue):
 
         relativity = _readonly(self.relativity, "relativity", prefix, ndim=2)
         if relativity.shape != shape:
-            raise TableError(f"{prefix}: relativity has shape {relativity.shape}, expected {shape}",
-                             factor=self.name)
+            raise TableError(f"{prefix}: relativity has shape {relativity.shape}, expected {shape}", factor=self.name)
         check_column(relativity, "relativity", prefix, self.name, cell)
         _set(self, "relativity", relativity)
         if self.exposure is not None:
             exposure = _readonly(self.exposure, "exposure", prefix, ndim=2)
             if exposure.shape != shape:
-                raise TableError(f"{prefix}: exposure has shape {exposure.shape}, expected {shape}",
-                                 factor=self.name)
+                raise TableError(f"{prefix}: exposure has shape {exposure.shape}, expected {shape}", factor=self.name)
             check_column(exposure, "exposure", prefix, self.name, cell)
             _set(self, "exposure", exposure)
         _optional_columns(self, prefix, shape, cell)
 
 
-Factor = Union[NumericFactor, CategoricalFactor, InteractionFactor]
-MainFactor = Union[NumericFactor, CategoricalFactor]
+Factor = NumericFactor | CategoricalFactor | InteractionFactor
+MainFactor = NumericFactor | CategoricalFactor
 
 
 def _number(value: Any, key: str) -> float:
@@ -423,13 +456,19 @@ class Loadings:
         for f in fields(self):
             value = _number(getattr(self, f.name), f"loadings.{f.name}")
             if value < 0:
-                raise TableError(f"{TABLE_JSON}: key 'loadings.{f.name}' must be >= 0, got {value!r}",
-                                 where=f"loadings.{f.name}", amount=value)
+                raise TableError(
+                    f"{TABLE_JSON}: key 'loadings.{f.name}' must be >= 0, got {value!r}",
+                    where=f"loadings.{f.name}",
+                    amount=value,
+                )
             _set(self, f.name, value)
         if self.variable_expense + self.profit >= 1:
-            raise TableError(f"{TABLE_JSON}: keys 'loadings.variable_expense' + 'loadings.profit' = "
-                             f"{self.variable_expense + self.profit!r} must be < 1",
-                             where="loadings", amount=self.variable_expense + self.profit)
+            raise TableError(
+                f"{TABLE_JSON}: keys 'loadings.variable_expense' + 'loadings.profit' = "
+                f"{self.variable_expense + self.profit!r} must be < 1",
+                where="loadings",
+                amount=self.variable_expense + self.profit,
+            )
 
 
 @dataclass(frozen=True)
@@ -443,15 +482,16 @@ class Rounding:
         for f in fields(self):
             value = getattr(self, f.name)
             if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or not 0 <= value <= 12:
-                raise TableError(f"{TABLE_JSON}: key 'rounding.{f.name}' must be an integer from 0 to 12, "
-                                 f"got {value!r}", where=f"rounding.{f.name}")
+                raise TableError(
+                    f"{TABLE_JSON}: key 'rounding.{f.name}' must be an integer from 0 to 12, got {value!r}",
+                    where=f"rounding.{f.name}",
+                )
             _set(self, f.name, int(value))
 
 
 def _plain_json(value: Any, key: str) -> dict:
     if not isinstance(value, dict):
-        raise TableError(f"{TABLE_JSON}: key {key!r} must be an object, got {type(value).__name__}",
-                         where=key)
+        raise TableError(f"{TABLE_JSON}: key {key!r} must be an object, got {type(value).__name__}", where=key)
     try:
         return json.loads(json.dumps(value, allow_nan=False))
     except (TypeError, ValueError) as e:
@@ -489,16 +529,22 @@ class RatingTable:
         _text(self.exposure_unit, "exposure_unit")
         day = self.effective_date
         try:
-            day = (date(day.year, day.month, day.day) if isinstance(day, date)
-                   else date.fromisoformat(_text(day, "effective_date")))
+            day = (
+                date(day.year, day.month, day.day)
+                if isinstance(day, date)
+                else date.fromisoformat(_text(day, "effective_date"))
+            )
         except ValueError:
-            raise TableError(f"{TABLE_JSON}: key 'effective_date' {self.effective_date!r} is not an ISO date "
-                             "(YYYY-MM-DD)", where="effective_date") from None
+            raise TableError(
+                f"{TABLE_JSON}: key 'effective_date' {self.effective_date!r} is not an ISO date (YYYY-MM-DD)",
+                where="effective_date",
+            ) from None
         _set(self, "effective_date", day.isoformat())
         base_rate = _number(self.base_rate, "base_rate")
         if base_rate <= 0:
-            raise TableError(f"{TABLE_JSON}: key 'base_rate' must be > 0, got {base_rate!r}",
-                             where="base_rate", amount=base_rate)
+            raise TableError(
+                f"{TABLE_JSON}: key 'base_rate' must be > 0, got {base_rate!r}", where="base_rate", amount=base_rate
+            )
         _set(self, "base_rate", base_rate)
         if not isinstance(self.loadings, Loadings) or not isinstance(self.rounding, Rounding):
             raise TableError(f"{TABLE_JSON}: loadings and rounding must be Loadings and Rounding objects")
@@ -519,11 +565,18 @@ class RatingTable:
             if not isinstance(factor, (NumericFactor, CategoricalFactor, InteractionFactor)):
                 raise TableError(f"{TABLE_JSON}: factors[{i}] is not a factor object", where=f"factors[{i}]")
             if factor.name in names:
-                raise TableError(f"{TABLE_JSON}: factors[{i}]: factor name {factor.name!r} repeats",
-                                 factor=factor.name, where=f"factors[{i}]")
+                raise TableError(
+                    f"{TABLE_JSON}: factors[{i}]: factor name {factor.name!r} repeats",
+                    factor=factor.name,
+                    where=f"factors[{i}]",
+                )
             if factor.file in files:
-                raise TableError(f"{TABLE_JSON}: factors[{i}]: file {factor.file!r} is used twice",
-                                 check="file_path", factor=factor.name, where=f"factors[{i}]")
+                raise TableError(
+                    f"{TABLE_JSON}: factors[{i}]: file {factor.file!r} is used twice",
+                    check="file_path",
+                    factor=factor.name,
+                    where=f"factors[{i}]",
+                )
             names.add(factor.name)
             files.add(factor.file)
             if isinstance(factor, InteractionFactor):
@@ -554,16 +607,23 @@ def _check_sides(factor: InteractionFactor, mains: dict[str, MainFactor]) -> Non
     for side, cells in zip(factor.of, (factor.a_cells, factor.b_cells)):
         main = mains.get(side)
         if main is None:
-            raise TableError(f"{prefix}: {side!r} must be a numeric or categorical factor listed before the "
-                             "interaction", factor=factor.name, where=side)
+            raise TableError(
+                f"{prefix}: {side!r} must be a numeric or categorical factor listed before the interaction",
+                factor=factor.name,
+                where=side,
+            )
         if isinstance(main, NumericFactor) != isinstance(cells, Bands):
             kind = "bands" if isinstance(main, NumericFactor) else "levels"
-            raise TableError(f"{prefix}: side {side!r} must have {kind} like its main factor",
-                             factor=factor.name, where=side)
+            raise TableError(
+                f"{prefix}: side {side!r} must have {kind} like its main factor", factor=factor.name, where=side
+            )
         if isinstance(main, CategoricalFactor) and set(cells) != set(main.levels):
             odd = sorted(set(cells) ^ set(main.levels))
-            raise TableError(f"{prefix}: side {side!r} levels differ from the main factor's at {odd[0]!r}",
-                             factor=factor.name, where=side)
+            raise TableError(
+                f"{prefix}: side {side!r} levels differ from the main factor's at {odd[0]!r}",
+                factor=factor.name,
+                where=side,
+            )
 
 
 def mapping_to_side(main: CategoricalFactor, cells: tuple[str, ...]) -> np.ndarray:

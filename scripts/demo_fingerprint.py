@@ -9,6 +9,7 @@ Prints one ``sha256  path`` line per file of ``run/models/``, ``table/`` and ``g
 included), sorted by path. With ``--against``, prints the files that differ, appeared or vanished
 and exits 1 if there is any.
 """
+
 from __future__ import annotations
 
 import argparse

@@ -1,4 +1,5 @@
 """Shared fixtures: small hand-written books and specs, and a CLI runner (subprocess, as a user runs it)."""
+
 from __future__ import annotations
 
 from pathlib import Path
@@ -30,8 +31,16 @@ def demo_run(tmp_path_factory) -> dict[str, Path]:
     spec.write_text((ROOT / "scenarios" / "motor_spec.toml").read_text() + QUICK_GBM)
     book = base / "book.parquet"
     steps = [
-        ("simulate", str(ROOT / "scenarios" / "motor.toml"), "--out", str(book),
-         "--policies", str(DEMO_POLICIES), "--seed", "11"),
+        (
+            "simulate",
+            str(ROOT / "scenarios" / "motor.toml"),
+            "--out",
+            str(book),
+            "--policies",
+            str(DEMO_POLICIES),
+            "--seed",
+            "11",
+        ),
         ("fit", str(book), "--spec", str(spec), "--out", str(base / "run")),
         ("compare", str(base / "run")),
         ("report", str(base / "run")),
@@ -39,12 +48,30 @@ def demo_run(tmp_path_factory) -> dict[str, Path]:
         ("tabulate", str(base / "run"), "--out", str(base / "glm_table"), "--model", "glm"),
         ("audit", str(base / "table"), "--spec", str(spec), "--run", str(base / "run")),
         ("rate", str(base / "table"), str(book), "--out", str(base / "priced.parquet")),
-        ("impact", str(book), "--current", str(base / "glm_table"), "--proposed", str(base / "table"),
-         "--cap", "0.15", "--out", str(base / "impact.json")),
+        (
+            "impact",
+            str(book),
+            "--current",
+            str(base / "glm_table"),
+            "--proposed",
+            str(base / "table"),
+            "--cap",
+            "0.15",
+            "--out",
+            str(base / "impact.json"),
+        ),
     ]
     for step in steps:
         r = run_cli(*step)
         assert r.returncode == 0, f"{step[0]} failed: {r.stderr[-3000:]}"
-    return {"base": base, "spec": spec, "book": book, "truth": base / "truth.json", "run": base / "run",
-            "table": base / "table", "glm_table": base / "glm_table", "priced": base / "priced.parquet",
-            "impact": base / "impact.json"}
+    return {
+        "base": base,
+        "spec": spec,
+        "book": book,
+        "truth": base / "truth.json",
+        "run": base / "run",
+        "table": base / "table",
+        "glm_table": base / "glm_table",
+        "priced": base / "priced.parquet",
+        "impact": base / "impact.json",
+    }

@@ -6,6 +6,7 @@ The kill test stops `fit` with SIGKILL (no handler can run) once the temporary f
 on a book large enough for the boosted models to take several seconds after the first GLM file;
 the interrupt test sends SIGINT (Ctrl-C) at the same moment, which the command's handlers see.
 """
+
 from __future__ import annotations
 
 import hashlib
@@ -29,8 +30,11 @@ START_TIMEOUT = 120.0
 
 def _tree(folder: Path) -> dict[str, str]:
     """sha256 of every file under `folder`, by relative path."""
-    return {str(p.relative_to(folder)): hashlib.sha256(p.read_bytes()).hexdigest()
-            for p in sorted(folder.rglob("*")) if p.is_file()}
+    return {
+        str(p.relative_to(folder)): hashlib.sha256(p.read_bytes()).hexdigest()
+        for p in sorted(folder.rglob("*"))
+        if p.is_file()
+    }
 
 
 def _leftovers(parent: Path) -> list[str]:
@@ -40,8 +44,12 @@ def _leftovers(parent: Path) -> list[str]:
 def _fit_and_stop(base: Path, *extra: str, sig: signal.Signals = signal.SIGKILL) -> tuple[int, int, str]:
     """Start `fit` (GLM and GBM), wait until its temporary folder holds a file, send it `sig`;
     (pid, exit code, stderr)."""
-    proc = subprocess.Popen([sys.executable, "-m", "premiumlab", "fit", "book.csv", "--spec", "spec.toml",
-                             "--out", "run", *extra], cwd=base, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "premiumlab", "fit", "book.csv", "--spec", "spec.toml", "--out", "run", *extra],
+        cwd=base,
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.PIPE,
+    )
     tmp = base / f".run.tmp-{proc.pid}"
     deadline = time.monotonic() + START_TIMEOUT
     try:
@@ -91,8 +99,10 @@ def test_force_keeps_the_old_output_until_the_new_one_is_in_place(book_folder):
     and moving the new one in is repaired at the next start (the old run is put back)."""
     base = book_folder
     if not (base / "run").exists():
-        assert run_cli("fit", "book.csv", "--spec", "spec.toml", "--out", "run", "--models", "glm",
-                       cwd=base).returncode == 0
+        assert (
+            run_cli("fit", "book.csv", "--spec", "spec.toml", "--out", "run", "--models", "glm", cwd=base).returncode
+            == 0
+        )
     old = _tree(base / "run")
     pid = _fit_and_kill(base, "--force")
     assert _tree(base / "run") == old
@@ -109,26 +119,23 @@ def test_atomic_output_replaces_only_at_the_end(tmp_path):
     target = tmp_path / "out"
     target.mkdir()
     (target / "a.txt").write_text("old")
-    with pytest.raises(RuntimeError):
-        with atomic_output(target, force=True) as tmp:
-            (tmp / "a.txt").write_text("new")
-            assert (target / "a.txt").read_text() == "old"
-            raise RuntimeError("stop")
+    with pytest.raises(RuntimeError), atomic_output(target, force=True) as tmp:
+        (tmp / "a.txt").write_text("new")
+        assert (target / "a.txt").read_text() == "old"
+        raise RuntimeError("stop")
     assert (target / "a.txt").read_text() == "old" and _leftovers(tmp_path) == []
     with atomic_output(target, force=True) as tmp:
         (tmp / "a.txt").write_text("new")
         assert (target / "a.txt").read_text() == "old"
     assert (target / "a.txt").read_text() == "new" and _leftovers(tmp_path) == []
-    with pytest.raises(InputError, match="out: already exists; use --force"):
-        with atomic_output(target):
-            pass
+    with pytest.raises(InputError, match="out: already exists; use --force"), atomic_output(target):
+        pass
 
 
 def test_atomic_files_name_the_target_not_the_temporary_path(tmp_path):
     target = tmp_path / "priced.csv"
-    with pytest.raises(InputError) as caught:
-        with atomic_files([target]) as tmp:
-            raise InputError(f"{tmp / 'priced.csv'}: cannot be written")
+    with pytest.raises(InputError) as caught, atomic_files([target]) as tmp:
+        raise InputError(f"{tmp / 'priced.csv'}: cannot be written")
     assert str(caught.value) == f"{target}: cannot be written"
     assert not target.exists() and _leftovers(tmp_path) == []
     with pytest.raises(InputError, match="is or holds the input"):
@@ -147,7 +154,7 @@ def test_an_output_another_process_created_meanwhile_is_not_replaced_without_for
             (target / "theirs.txt").write_text("earlier")
     assert sorted(p.name for p in target.iterdir()) == ["theirs.txt"] and _leftovers(tmp_path) == []
     priced = tmp_path / "priced.csv"
-    with pytest.raises(InputError, match="priced.csv: was created by another process"):
+    with pytest.raises(InputError, match=r"priced.csv: was created by another process"):
         with atomic_files([priced]) as tmp:
             (tmp / "priced.csv").write_text("later")
             priced.write_text("earlier")

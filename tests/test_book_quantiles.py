@@ -5,6 +5,7 @@ Reference: numpy's weighted inverted-CDF quantile, through `quantile_edges` (who
 heavy ties, continuous values with negatives and -0.0, a value that dominates the weight, integer
 weights (exact sums, so ties of the cumulative share with k / n_bands are met exactly).
 """
+
 from __future__ import annotations
 
 import numpy as np
@@ -17,7 +18,7 @@ from premiumlab.book.quantiles import book_quantile_edges, sortable_keys
 
 
 def _chunked(values: np.ndarray, weights: np.ndarray, size: int):
-    return lambda: ((values[i:i + size], weights[i:i + size]) for i in range(0, len(values), size))
+    return lambda: ((values[i : i + size], weights[i : i + size]) for i in range(0, len(values), size))
 
 
 def _columns(kind: str, rng: np.random.Generator, n: int) -> tuple[np.ndarray, np.ndarray]:
@@ -68,7 +69,9 @@ def test_random_columns_give_the_same_edges_in_passes(data, n_bands, size):
     n = data.draw(st.integers(1, 200))
     pool = data.draw(st.lists(st.floats(-1e12, 1e12, allow_nan=False), min_size=1, max_size=30))
     values = np.array(data.draw(st.lists(st.sampled_from(pool), min_size=n, max_size=n)))
-    weights = np.array(data.draw(st.lists(st.one_of(st.integers(1, 5).map(float), st.floats(1e-3, 1e3)),
-                                          min_size=n, max_size=n)))
-    np.testing.assert_array_equal(book_quantile_edges(_chunked(values, weights, size), n_bands),
-                                  quantile_edges(values, weights, n_bands))
+    weights = np.array(
+        data.draw(st.lists(st.one_of(st.integers(1, 5).map(float), st.floats(1e-3, 1e3)), min_size=n, max_size=n))
+    )
+    np.testing.assert_array_equal(
+        book_quantile_edges(_chunked(values, weights, size), n_bands), quantile_edges(values, weights, n_bands)
+    )

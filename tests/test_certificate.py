@@ -1,5 +1,6 @@
 """Monotonicity certificate and sweep, checked against LightGBM's own predictions on invented books
 whose true effect of the promised factor is not monotone (so an unconstrained model breaks it)."""
+
 from __future__ import annotations
 
 import lightgbm as lgb
@@ -12,8 +13,10 @@ from premiumlab.models.gbm.fit import GbmInputs, GbmOptions, fit_target
 from premiumlab.models.trees.certificate import certify, sweep
 from premiumlab.models.trees.parser import parse_model
 
-GRID = ({"num_leaves": 15, "min_data_in_leaf": 20, "learning_rate": 0.1, "lambda_l2": 1.0},
-        {"num_leaves": 7, "min_data_in_leaf": 40, "learning_rate": 0.1, "lambda_l2": 0.0})
+GRID = (
+    {"num_leaves": 15, "min_data_in_leaf": 20, "learning_rate": 0.1, "lambda_l2": 1.0},
+    {"num_leaves": 7, "min_data_in_leaf": 40, "learning_rate": 0.1, "lambda_l2": 0.0},
+)
 TRAIN_ROWS = 4500
 
 
@@ -27,20 +30,32 @@ def wavy_book(missing_share: float, rows: int = 6000, seed: int = 11) -> tuple[p
     km = rng.gamma(4.0, 3.0, rows)
     km[rng.random(rows) < missing_share] = np.nan
     region = pd.Categorical(rng.choice(["Ashford", "Brindle", "Corwen"], rows))
-    log_mu = (np.log(0.2) + 0.04 * vehicle_age + 0.5 * np.sin(vehicle_age / 2.0)
-              - 0.0004 * deductible + 0.4 * (deductible == 500.0)
-              + 0.03 * vehicle_age * (np.nan_to_num(km, nan=12.0) - 12.0) / 4.0
-              + np.where(region == "Brindle", 0.3, 0.0))
+    log_mu = (
+        np.log(0.2)
+        + 0.04 * vehicle_age
+        + 0.5 * np.sin(vehicle_age / 2.0)
+        - 0.0004 * deductible
+        + 0.4 * (deductible == 500.0)
+        + 0.03 * vehicle_age * (np.nan_to_num(km, nan=12.0) - 12.0) / 4.0
+        + np.where(region == "Brindle", 0.3, 0.0)
+    )
     exposure = rng.uniform(0.3, 1.0, rows)
     count = rng.poisson(3.0 * np.exp(log_mu) * exposure)
-    features = pd.DataFrame({"vehicle_age": vehicle_age, "deductible": deductible, "annual_km": km,
-                             "region": region})
-    return features, GbmInputs(features=features, monotone={"vehicle_age": 1, "deductible": -1},
-                               exposure=exposure, claim_count=count, claim_amount=None, groups=np.arange(rows))
+    features = pd.DataFrame({"vehicle_age": vehicle_age, "deductible": deductible, "annual_km": km, "region": region})
+    return features, GbmInputs(
+        features=features,
+        monotone={"vehicle_age": 1, "deductible": -1},
+        exposure=exposure,
+        claim_count=count,
+        claim_amount=None,
+        groups=np.arange(rows),
+    )
 
 
-PROMISES = (("vehicle_age", 1, np.arange(0.0, 21.0)),
-            ("deductible", -1, np.array([0.0, 100.0, 250.0, 400.0, 500.0, 750.0, 1000.0, 1500.0, 2000.0])))
+PROMISES = (
+    ("vehicle_age", 1, np.arange(0.0, 21.0)),
+    ("deductible", -1, np.array([0.0, 100.0, 250.0, 400.0, 500.0, 750.0, 1000.0, 1500.0, 2000.0])),
+)
 
 
 @pytest.fixture(scope="module")
@@ -56,11 +71,23 @@ def gappy_book() -> tuple[pd.DataFrame, GbmInputs]:
 def _fit(inputs: GbmInputs, method: str, constrained: bool):
     """Frequency model on the first TRAIN_ROWS rows (3 folds, 2 settings)."""
     train = slice(0, TRAIN_ROWS)
-    part = GbmInputs(features=inputs.features.iloc[train].reset_index(drop=True),
-                     monotone=inputs.monotone if constrained else {}, exposure=inputs.exposure[train],
-                     claim_count=inputs.claim_count[train], claim_amount=None, groups=inputs.groups[train])
-    options = GbmOptions(folds=3, max_settings=2, max_rounds=150, early_stopping_rounds=20, grid=GRID,
-                         monotone_method=method, num_threads=1)   # one thread: as fast on small books
+    part = GbmInputs(
+        features=inputs.features.iloc[train].reset_index(drop=True),
+        monotone=inputs.monotone if constrained else {},
+        exposure=inputs.exposure[train],
+        claim_count=inputs.claim_count[train],
+        claim_amount=None,
+        groups=inputs.groups[train],
+    )
+    options = GbmOptions(
+        folds=3,
+        max_settings=2,
+        max_rounds=150,
+        early_stopping_rounds=20,
+        grid=GRID,
+        monotone_method=method,
+        num_threads=1,
+    )  # one thread: as fast on small books
     return fit_target(part, "frequency", options)
 
 
@@ -96,8 +123,10 @@ def test_promises_kept_with_missing_values_in_another_factor(gappy_book):
     _assert_promises_kept(model, features.iloc[TRAIN_ROWS:])
     used = model.params["monotone_constraints_method"]
     assert (used == "advanced") == (model.constraint_notes == [])
-    assert all("the advanced constraint method broke the promise" in note or "intermediate" in note
-               for note in model.constraint_notes)
+    assert all(
+        "the advanced constraint method broke the promise" in note or "intermediate" in note
+        for note in model.constraint_notes
+    )
 
 
 def test_unconstrained_model_breaks_the_promise_in_both_checks(gappy_book):
@@ -129,21 +158,31 @@ def test_certificate_agrees_with_lightgbm_tree_by_tree_with_zero_as_missing():
     code = rng.integers(0, 4, rows).astype(float)
     y = rng.poisson(np.exp(-1.0 + 0.5 * np.sin(x) + 0.3 * x * np.nan_to_num(other) + 0.2 * code))
     matrix = np.column_stack([x, other, code])
-    params = {"objective": "poisson", "verbosity": -1, "zero_as_missing": True, "num_leaves": 15,
-              "min_data_in_leaf": 20, "deterministic": True, "force_row_wise": True, "num_threads": 1}
+    params = {
+        "objective": "poisson",
+        "verbosity": -1,
+        "zero_as_missing": True,
+        "num_leaves": 15,
+        "min_data_in_leaf": 20,
+        "deterministic": True,
+        "force_row_wise": True,
+        "num_threads": 1,
+    }
     booster = lgb.train(params, lgb.Dataset(matrix, y, categorical_feature=[2], params=params), 30)
     text = booster.model_to_string()
     _, trees = parse_model(text)
-    assert any((((t.decision_type >> 2) & 3) == 1).any() for t in trees)     # the Zero missing type occurs
+    assert any((((t.decision_type >> 2) & 3) == 1).any() for t in trees)  # the Zero missing type occurs
     thresholds = np.unique(np.concatenate([t.threshold[t.split_feature == 0] for t in trees]))
     grid = np.unique(np.concatenate([thresholds, np.nextafter(thresholds, np.inf), [-1e-35, 0.0, 1e-35, -6, 6]]))
     policies = matrix[rng.choice(rows, 1000, replace=False)]
     stacked = np.repeat(policies, grid.size, axis=0)
     stacked[:, 0] = np.tile(grid, len(policies))
     leaves = booster.predict(stacked, pred_leaf=True)
-    caught = {tree.index for tree in trees
-              if (np.diff(tree.leaf_value[leaves[:, tree.index]].reshape(len(policies), grid.size), axis=1)
-                  < 0).any()}
+    caught = {
+        tree.index
+        for tree in trees
+        if (np.diff(tree.leaf_value[leaves[:, tree.index]].reshape(len(policies), grid.size), axis=1) < 0).any()
+    }
     certificate = certify(text, 0, 1)
     assert len(caught) >= 5
     assert set(certificate["trees_with_violations"]) == caught
@@ -151,7 +190,7 @@ def test_certificate_agrees_with_lightgbm_tree_by_tree_with_zero_as_missing():
 
 def test_refuses_unknown_feature_categorical_promise_and_bad_direction(complete_book):
     """Bad requests name what is wrong."""
-    features, inputs = complete_book
+    _features, inputs = complete_book
     model = _fit(inputs, "basic", constrained=True)
     text = model.model_text()
     with pytest.raises(InputError, match=r"'mileage' is not in the model"):

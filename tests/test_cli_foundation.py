@@ -1,4 +1,5 @@
 """Spec and data errors through the command line: exit code, one line on stderr, nothing written."""
+
 from __future__ import annotations
 
 import hashlib
@@ -15,16 +16,19 @@ def digest(path) -> str:
     return hashlib.sha256(path.read_bytes()).hexdigest()
 
 
-@pytest.mark.parametrize("spec_edit, book_edit, fragment", [
-    (("holdout = 0.2", "holdout = 'big'"), None, "split.holdout' must be a number"),
-    (("[factors.region]", "[factors.region]\nmonotone = 'increasing'"), None, "unordered categorical"),
-    (("[factors.region]", "[factors.gender]\ntype = 'categorical'\n[factors.region]"), None, "prohibited"),
-    (("[columns]", "[columns\n"), None, "malformed TOML"),
-    (None, lambda df: df.assign(exposure=-1.0), "exposure <= 0"),
-    (None, lambda df: df.drop(columns=["claim_count"]), "missing column 'claim_count'"),
-    (None, lambda df: df.assign(claim_count=df.claim_count + 0.5), "fractional claim count"),
-    (None, lambda df: df.iloc[:0], "no rows"),
-])
+@pytest.mark.parametrize(
+    "spec_edit, book_edit, fragment",
+    [
+        (("holdout = 0.2", "holdout = 'big'"), None, "split.holdout' must be a number"),
+        (("[factors.region]", "[factors.region]\nmonotone = 'increasing'"), None, "unordered categorical"),
+        (("[factors.region]", "[factors.gender]\ntype = 'categorical'\n[factors.region]"), None, "prohibited"),
+        (("[columns]", "[columns\n"), None, "malformed TOML"),
+        (None, lambda df: df.assign(exposure=-1.0), "exposure <= 0"),
+        (None, lambda df: df.drop(columns=["claim_count"]), "missing column 'claim_count'"),
+        (None, lambda df: df.assign(claim_count=df.claim_count + 0.5), "fractional claim count"),
+        (None, lambda df: df.iloc[:0], "no rows"),
+    ],
+)
 def test_fit_refuses_bad_input_cleanly(tmp_path, spec_edit, book_edit, fragment):
     spec = tmp_path / "spec.toml"
     spec.write_text(SPEC_TEXT if spec_edit is None else SPEC_TEXT.replace(*spec_edit))
@@ -84,9 +88,12 @@ def test_help_on_every_command():
 def test_a_reader_that_stops_early_ends_the_command_quietly(book_file, spec_file):
     """`premiumlab validate ... | head -1`: the shell convention for a writer ended by SIGPIPE is exit
     128 + 13 = 141 with nothing on stderr (the reader here closes the pipe before reading anything)."""
-    proc = subprocess.Popen([sys.executable, "-m", "premiumlab", "validate", str(book_file), "--spec",
-                             str(spec_file)], stdout=subprocess.PIPE, stderr=subprocess.PIPE,
-                            env=dict(os.environ, PYTHONHASHSEED="0"))
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "premiumlab", "validate", str(book_file), "--spec", str(spec_file)],
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        env=dict(os.environ, PYTHONHASHSEED="0"),
+    )
     proc.stdout.close()
     err = proc.stderr.read().decode()
     assert proc.wait(timeout=120) == 141, err

@@ -7,6 +7,7 @@ LocalCluster of two worker processes (the `distributed` package); the book is in
 `validate`, the reference is the one-pass scan of the same book: the slices' findings and sums,
 merged in book order, must equal it exactly.
 """
+
 from __future__ import annotations
 
 import json
@@ -43,8 +44,17 @@ def test_fit_on_a_cluster_writes_the_same_model_files(tmp_path):
     spec.write_text(SPEC_TEXT + "\n[gbm]\nthreads = 1\nfolds = 3\nmax_settings = 2\nmax_rounds = 200\n")
     small_book(3000, seed=5).to_csv(tmp_path / "book.csv", index=False)
     for name, extra in (("here", ()), ("there", ("--cluster", "local:2"))):
-        r = run_cli("fit", str(tmp_path / "book.csv"), "--spec", str(spec), "--out", str(tmp_path / name),
-                    "--models", "gbm", *extra)
+        r = run_cli(
+            "fit",
+            str(tmp_path / "book.csv"),
+            "--spec",
+            str(spec),
+            "--out",
+            str(tmp_path / name),
+            "--models",
+            "gbm",
+            *extra,
+        )
         assert r.returncode == 0, r.stderr
     for target in ("frequency", "severity", "pure_premium"):
         name = f"models/gbm_{target}.txt"
@@ -54,11 +64,14 @@ def test_fit_on_a_cluster_writes_the_same_model_files(tmp_path):
     assert json.loads((tmp_path / "here" / "run.json").read_text())["gbm_search_ran_on"] == "this process"
 
 
-@pytest.mark.parametrize("address, fragment", [
-    ("local:0", "give local:N with N >= 1"),
-    ("local:two", "give local:N with N >= 1"),
-    ("myhost:8786", "give local:N (N worker processes on this machine) or a Dask scheduler address"),
-])
+@pytest.mark.parametrize(
+    "address, fragment",
+    [
+        ("local:0", "give local:N with N >= 1"),
+        ("local:two", "give local:N with N >= 1"),
+        ("myhost:8786", "give local:N (N worker processes on this machine) or a Dask scheduler address"),
+    ],
+)
 def test_bad_cluster_addresses_are_refused(address, fragment):
     with pytest.raises(InputError, match=fragment.replace("(", r"\(").replace(")", r"\)")):
         parse_cluster(address)
@@ -66,8 +79,9 @@ def test_bad_cluster_addresses_are_refused(address, fragment):
 
 def test_an_unreachable_scheduler_is_one_clear_error(tmp_path, monkeypatch):
     import premiumlab._core.cluster as cluster
+
     monkeypatch.setattr(cluster, "CONNECT_TIMEOUT", 2)
-    with pytest.raises(InputError, match="cannot reach the Dask scheduler at tcp://127.0.0.1:9"):
+    with pytest.raises(InputError, match=r"cannot reach the Dask scheduler at tcp://127.0.0.1:9"):
         with tasks_on("tcp://127.0.0.1:9"):
             pass
 
@@ -80,8 +94,11 @@ def test_in_process_runs_tasks_in_order():
 
 def _findings_and_sums(result):
     _, summary, findings = result
-    return [str(f) for f in findings], {name: (lv.values.tolist(), lv.sums.tolist())
-                                        for name, lv in summary.levels.items()}, summary.totals.tolist()
+    return (
+        [str(f) for f in findings],
+        {name: (lv.values.tolist(), lv.sums.tolist()) for name, lv in summary.levels.items()},
+        summary.totals.tolist(),
+    )
 
 
 def test_validate_on_a_cluster_merges_the_slices_to_the_same_findings_and_sums(tmp_path, spec_file):
@@ -124,15 +141,27 @@ def test_fit_on_a_running_scheduler_gives_the_same_model_files(tmp_path):
     command connects to it, checks that its workers run this premiumlab, and writes the same model
     files as a one-process fit."""
     from distributed import LocalCluster
+
     spec = tmp_path / "spec.toml"
     spec.write_text(SPEC_TEXT + "\n[gbm]\nthreads = 1\nfolds = 3\nmax_settings = 2\nmax_rounds = 100\n")
     small_book(1500, seed=8).to_csv(tmp_path / "book.csv", index=False)
     with LocalCluster(n_workers=2, threads_per_worker=1, dashboard_address=None) as cluster:
-        r = run_cli("fit", str(tmp_path / "book.csv"), "--spec", str(spec), "--out", str(tmp_path / "there"),
-                    "--models", "gbm", "--cluster", cluster.scheduler_address)
+        r = run_cli(
+            "fit",
+            str(tmp_path / "book.csv"),
+            "--spec",
+            str(spec),
+            "--out",
+            str(tmp_path / "there"),
+            "--models",
+            "gbm",
+            "--cluster",
+            cluster.scheduler_address,
+        )
         assert r.returncode == 0, r.stderr
-    r = run_cli("fit", str(tmp_path / "book.csv"), "--spec", str(spec), "--out", str(tmp_path / "here"),
-                "--models", "gbm")
+    r = run_cli(
+        "fit", str(tmp_path / "book.csv"), "--spec", str(spec), "--out", str(tmp_path / "here"), "--models", "gbm"
+    )
     assert r.returncode == 0, r.stderr
     name = "models/gbm_pure_premium.txt"
     assert (tmp_path / "there" / name).read_bytes() == (tmp_path / "here" / name).read_bytes()
@@ -142,8 +171,12 @@ def test_fit_on_a_running_scheduler_gives_the_same_model_files(tmp_path):
 
 def test_a_task_that_fails_on_a_worker_is_one_clear_error():
     import operator
+
     with tasks_on("local:1") as runner:
         assert runner.map(operator.truediv, 6.0, [2.0, 3.0], lambda: None) == [3.0, 2.0]
-        with pytest.raises(InputError, match=r"--cluster: a task failed on a local Dask cluster of 1 worker "
-                                             r"process \(ZeroDivisionError: float division by zero\)"):
+        with pytest.raises(
+            InputError,
+            match=r"--cluster: a task failed on a local Dask cluster of 1 worker "
+            r"process \(ZeroDivisionError: float division by zero\)",
+        ):
             runner.map(operator.truediv, 6.0, [2.0, 0.0], lambda: None)

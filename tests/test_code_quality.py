@@ -3,6 +3,7 @@
 Each check runs the tool configured in pyproject.toml on the whole repository, so a contributor's
 `pytest` fails where CI would.
 """
+
 from __future__ import annotations
 
 import shutil

@@ -8,6 +8,7 @@ layout with equal weights gives the same variance components as the Buhlmann est
 credibility-weighted means as its predicted random effects (a textbook equivalence, recalled from
 memory). The simulation check uses invented data.
 """
+
 from __future__ import annotations
 
 import warnings
@@ -95,8 +96,10 @@ def test_numeric_bands_lean_on_their_neighbours():
     assert table["complement"].tolist() == pytest.approx([275.0, 100.0, 375.0, 1700 / 6])  # band 2 empty: overall
     assert table["estimate"].iloc[2] == pytest.approx(375.0)
     z = table["credibility"].to_numpy()
-    np.testing.assert_allclose(table["estimate"].to_numpy()[[0, 1, 3]],
-                               (z * np.nan_to_num(table["experience"]) + (1 - z) * table["complement"]).to_numpy()[[0, 1, 3]])
+    np.testing.assert_allclose(
+        table["estimate"].to_numpy()[[0, 1, 3]],
+        (z * np.nan_to_num(table["experience"]) + (1 - z) * table["complement"]).to_numpy()[[0, 1, 3]],
+    )
 
 
 def test_no_spread_between_levels_gives_no_credibility_and_bad_input_is_refused():
@@ -105,5 +108,5 @@ def test_no_spread_between_levels_gives_no_credibility_and_bad_input_is_refused(
     assert fit.between == 0.0 and fit.credibility.tolist() == [0.0, 0.0] and fit.k == float("inf")
     with pytest.raises(InputError, match=r"credibility weights: 1 value\(s\) not > 0, first at row 0 \(value 0.0\)"):
         buhlmann_straub(np.array([1.0]), np.array([0.0]), np.array([0]), 1)
-    with pytest.raises(InputError, match="level codes must lie in 0..1"):
+    with pytest.raises(InputError, match=r"level codes must lie in 0..1"):
         buhlmann_straub(np.array([1.0]), np.array([1.0]), np.array([2]), 2)

@@ -1,4 +1,5 @@
 """Reading and checking books: each finding names the column, the count and the first rows."""
+
 from __future__ import annotations
 
 import numpy as np
@@ -31,6 +32,7 @@ def _set(col, rows, value):
         df[col] = df[col].astype(object)
         df.loc[rows, col] = value
         return df
+
     return edit
 
 
@@ -50,9 +52,14 @@ EDITS = [
     (_set("bonus", [14], "09"), "not in the spec's levels"),
     (lambda df: df.assign(region="Northmoor"), "factor 'region' has one level only"),
     (lambda df: df.assign(claim_count=0, claim_amount=0.0), "the book has no claims"),
-    (lambda df: df.assign(region=df["bonus"].map({"01": "x", "02": "y", "03": "z"})),
-     "factors 'region' and 'bonus' are identical up to relabelling"),
-    (lambda df: pd.concat([df, df.iloc[[0]]], ignore_index=True), "repeating an earlier ('policy_id', 'year') pair (rows 400)"),
+    (
+        lambda df: df.assign(region=df["bonus"].map({"01": "x", "02": "y", "03": "z"})),
+        "factors 'region' and 'bonus' are identical up to relabelling",
+    ),
+    (
+        lambda df: pd.concat([df, df.iloc[[0]]], ignore_index=True),
+        "repeating an earlier ('policy_id', 'year') pair (rows 400)",
+    ),
 ]
 
 
@@ -69,6 +76,7 @@ def test_amount_with_zero_claims_and_nil_claims(tmp_path, spec_file):
         df.loc[zero, "claim_amount"] = 100.0
         df.loc[nil, "claim_amount"] = 0.0
         return df
+
     found = findings_for(tmp_path, spec_file, edit)
     assert any("2 rows with a positive amount but zero claims" in f for f in found)
     assert any(f.startswith("warning") and "3 rows with nil claims" in f for f in found)
@@ -108,7 +116,7 @@ def test_split_is_stable_keeps_policies_together_and_has_the_right_share():
     frame = pd.DataFrame({"p": policy, "h": flags})
     assert frame.groupby("p")["h"].nunique().max() == 1
     # chunking and order do not matter
-    parts = np.concatenate([holdout_flags(policy[i:i + 7_001], 2026, 0.2) for i in range(0, len(policy), 7_001)])
+    parts = np.concatenate([holdout_flags(policy[i : i + 7_001], 2026, 0.2) for i in range(0, len(policy), 7_001)])
     assert np.array_equal(parts, flags)
     perm = rng.permutation(len(policy))
     assert np.array_equal(holdout_flags(policy[perm], 2026, 0.2), flags[perm])
@@ -140,8 +148,9 @@ def _scan(tmp_path, spec_file, df, chunk_rows):
     return summary, [str(f) for f in findings], spec
 
 
-@pytest.mark.parametrize("edit", [e for e, _ in EDITS] + [
-    lambda df: pd.concat([df, df.iloc[[3, 150, 3]]], ignore_index=True)])
+@pytest.mark.parametrize(
+    "edit", [e for e, _ in EDITS] + [lambda df: pd.concat([df, df.iloc[[3, 150, 3]]], ignore_index=True)]
+)
 def test_findings_do_not_depend_on_the_chunk_size(tmp_path, spec_file, edit):
     """The book-level checks are summed chunk by chunk: chunks of 7 rows and one chunk agree."""
     df = edit(small_book())
@@ -170,8 +179,7 @@ def test_profile_equals_a_pandas_groupby_of_the_whole_book(tmp_path, spec_file):
     bands = pd.cut(df["age"], [-np.inf, 25, 40, 60, np.inf], right=False)
     for name, key in (("age", bands), ("region", df["region"]), ("bonus", df["bonus"])):
         ref = df.groupby(key, observed=False)[["exposure", "claim_count", "claim_amount"]].sum()
-        np.testing.assert_allclose(prof[name][["exposure", "claims", "amount"]].to_numpy(), ref.to_numpy(),
-                                   rtol=1e-12)
+        np.testing.assert_allclose(prof[name][["exposure", "claims", "amount"]].to_numpy(), ref.to_numpy(), rtol=1e-12)
     overall = prof["(overall)"].iloc[0]
     assert overall["frequency"] == pytest.approx(df["claim_count"].sum() / df["exposure"].sum(), rel=1e-12)
     assert overall["severity"] == pytest.approx(df["claim_amount"].sum() / df["claim_count"].sum(), rel=1e-12)
@@ -200,9 +208,10 @@ def test_an_unbanded_numeric_factor_is_profiled_on_the_whole_books_exposure_quan
     the test above) and each band's sums equal a pandas groupby of the rows."""
     spec_path = tmp_path / "unbanded.toml"
     spec_path.write_text(spec_file.read_text().replace("bands = [25, 40, 60]", "n_bands = 4"))
-    df = small_book(3000, seed=11).assign(age=lambda d: d["age"] + np.round(np.random.default_rng(2).uniform(
-        0, 1, len(d)), 3))  # about one distinct value a row
-    summary, found, spec = _scan(tmp_path, spec_path, df, 333)
+    df = small_book(3000, seed=11).assign(
+        age=lambda d: d["age"] + np.round(np.random.default_rng(2).uniform(0, 1, len(d)), 3)
+    )  # about one distinct value a row
+    summary, _found, spec = _scan(tmp_path, spec_path, df, 333)
     assert summary.levels["age"].values.size == 0  # no distinct values kept while scanning
     banded, summary = with_quantile_bands(tmp_path / "b.csv", spec, summary, chunk_rows=333)
     edges = quantile_edges(df["age"].to_numpy(), df["exposure"].to_numpy(), 4)
@@ -210,7 +219,8 @@ def test_an_unbanded_numeric_factor_is_profiled_on_the_whole_books_exposure_quan
     prof = profile(summary, banded)["age"]
     assert list(prof.index) == band_labels(edges)
     ref = df.groupby(pd.cut(df["age"], [-np.inf, *edges, np.inf], right=False), observed=False)[
-        ["exposure", "claim_count", "claim_amount"]].sum()
+        ["exposure", "claim_count", "claim_amount"]
+    ].sum()
     np.testing.assert_allclose(prof[["exposure", "claims", "amount"]].to_numpy(), ref.to_numpy(), rtol=1e-12)
 
 
@@ -227,7 +237,8 @@ def test_band_edges_differing_in_the_seventh_digit_keep_distinct_labels_in_valid
     assert not report.errors
     assert list(report.profile["age"].index) == expected
     assert report.profile["age"]["exposure"].tolist() == pytest.approx(
-        df.groupby(np.minimum(np.arange(len(df)) % 5, 3))["exposure"].sum().tolist(), rel=1e-12)
+        df.groupby(np.minimum(np.arange(len(df)) % 5, 3))["exposure"].sum().tolist(), rel=1e-12
+    )
     spec = load_spec(spec_path)
     book = load_book(tmp_path / "b.csv", spec)
     levels = factor_levels(book, spec, ~book.holdout)

@@ -1,12 +1,24 @@
 """The README's demo command, end to end on a small invented book (4,000 policies of the motor scenario)."""
+
 from __future__ import annotations
 
 import json
 
 from _builders import run_cli
 
-OUTPUTS = ("book.parquet", "truth.json", "spec.toml", "run/run.json", "run/report.html", "run/comparison.json",
-           "table/table.json", "glm_table/table.json", "priced.parquet", "impact.json", "impact.png")
+OUTPUTS = (
+    "book.parquet",
+    "truth.json",
+    "spec.toml",
+    "run/run.json",
+    "run/report.html",
+    "run/comparison.json",
+    "table/table.json",
+    "glm_table/table.json",
+    "priced.parquet",
+    "impact.json",
+    "impact.png",
+)
 
 
 def test_demo_writes_every_output_with_its_cautions(tmp_path):
@@ -15,8 +27,7 @@ def test_demo_writes_every_output_with_its_cautions(tmp_path):
     assert r.returncode == 0, r.stderr[-3000:]
     for name in OUTPUTS:
         assert (out / name).is_file(), name
-    assert [line[:5] for line in r.stdout.splitlines() if line.startswith("[")] == [
-        f"[{i}/7]" for i in range(1, 8)]
+    assert [line[:5] for line in r.stdout.splitlines() if line.startswith("[")] == [f"[{i}/7]" for i in range(1, 8)]
     assert "caution: Draft for review by a qualified actuary" in r.stdout
     assert "folds = 3\nmax_settings = 4" in (out / "spec.toml").read_text()
     run = json.loads((out / "run" / "run.json").read_text())

@@ -4,6 +4,7 @@ References: LightGBM's own `Booster.predict` (brute-force partial dependence on 
 the sample), statsmodels' GLM (Poisson family, log link, `var_weights`) for the banded refit, and
 hand arithmetic written out in the tests. Data are invented in each test with seeded generators.
 """
+
 from __future__ import annotations
 
 import lightgbm as lgb
@@ -24,13 +25,26 @@ def _booster(method: str | None, seed: int = 0) -> tuple[lgb.Booster, pd.DataFra
     """A Poisson booster on invented data: a numeric, a count, a native categorical, a promised code."""
     rng = np.random.default_rng(seed)
     n = 6000
-    x = pd.DataFrame({"age": rng.normal(40, 12, n).round(1), "cars": rng.integers(0, 12, n).astype(float),
-                      "zone": pd.Categorical(rng.choice(["p", "q", "r", "s", "t"], n)),
-                      "bonus": rng.integers(0, 4, n).astype(float)})
+    x = pd.DataFrame(
+        {
+            "age": rng.normal(40, 12, n).round(1),
+            "cars": rng.integers(0, 12, n).astype(float),
+            "zone": pd.Categorical(rng.choice(["p", "q", "r", "s", "t"], n)),
+            "bonus": rng.integers(0, 4, n).astype(float),
+        }
+    )
     eta = -1.5 + 0.02 * (x.age - 40) + 0.08 * x.cars * (x.zone == "q") + 0.2 * x.bonus
     y = rng.poisson(np.exp(eta))
-    params = {"objective": "poisson", "num_leaves": 15, "min_data_in_leaf": 20, "verbosity": -1,
-              "num_threads": 1, "deterministic": True, "seed": 1, "max_cat_to_onehot": 2}
+    params = {
+        "objective": "poisson",
+        "num_leaves": 15,
+        "min_data_in_leaf": 20,
+        "verbosity": -1,
+        "num_threads": 1,
+        "deterministic": True,
+        "seed": 1,
+        "max_cat_to_onehot": 2,
+    }
     if method is not None:
         params |= {"monotone_constraints": [0, 0, 0, 1], "monotone_constraints_method": method}
     booster = lgb.train(params, lgb.Dataset(x, y), num_boost_round=80)
@@ -101,8 +115,14 @@ def test_unordered_levels_ordered_by_effect_and_thin_levels_merged() -> None:
     effect = np.array([0.3, -0.2, 0.1, 0.5, 0.12])
     weight = np.array([0.30, 0.30, 0.01, 0.30, 0.09])
     assert merge_thin_levels(effect, weight, 0.05).tolist() == [2, 0, 1, 3, 1]
-    banding = categorical_banding(Curve("k", np.arange(5), effect, weight), ("A", "B", "C", "D", "E"), "none",
-                                  ordered=False, max_bands=8, min_share=0.05)
+    banding = categorical_banding(
+        Curve("k", np.arange(5), effect, weight),
+        ("A", "B", "C", "D", "E"),
+        "none",
+        ordered=False,
+        max_bands=8,
+        min_share=0.05,
+    )
     assert banding.labels() == ["B", "C+E", "A", "D"]
 
 
@@ -118,20 +138,27 @@ def test_ordered_levels_without_exposure_take_the_previous_band() -> None:
     """Levels L1..L4 where L3 has no training exposure (absent from the curve): with one band per
     level allowed, L3 joins L2's band."""
     curve = Curve("b", np.array([0, 1, 3]), np.array([0.0, 0.4, 0.9]), np.ones(3))
-    banding = categorical_banding(curve, ("L1", "L2", "L3", "L4"), "increasing", ordered=True, max_bands=8,
-                                  min_share=0.0)
+    banding = categorical_banding(
+        curve, ("L1", "L2", "L3", "L4"), "increasing", ordered=True, max_bands=8, min_share=0.0
+    )
     assert banding.band_of_level.tolist() == [0, 1, 1, 2]
 
 
-def _statsmodels_relativities(x_codes: dict, sizes: dict, bases: dict, pairs: list, w: np.ndarray,
-                              y: np.ndarray) -> np.ndarray:
+def _statsmodels_relativities(
+    x_codes: dict, sizes: dict, bases: dict, pairs: list, w: np.ndarray, y: np.ndarray
+) -> np.ndarray:
     """exp(coefficients) of statsmodels' Poisson GLM on the rows, treatment coding as in the refit."""
     columns = [np.ones(len(y))]
     for name, code in x_codes.items():
         columns += [(code == k).astype(float) for k in range(sizes[name]) if k != bases[name]]
     for a, b in pairs:
-        columns += [((x_codes[a] == i) & (x_codes[b] == j)).astype(float)
-                    for i in range(sizes[a]) if i != bases[a] for j in range(sizes[b]) if j != bases[b]]
+        columns += [
+            ((x_codes[a] == i) & (x_codes[b] == j)).astype(float)
+            for i in range(sizes[a])
+            if i != bases[a]
+            for j in range(sizes[b])
+            if j != bases[b]
+        ]
     fit = sm.GLM(y, np.column_stack(columns), family=sm.families.Poisson(), var_weights=w).fit(tol=1e-13)
     return np.exp(fit.params)
 
@@ -145,12 +172,23 @@ def test_refit_equals_statsmodels_poisson_on_the_rows() -> None:
     codes = {"a": rng.integers(0, 4, n), "b": rng.integers(0, 3, n), "c": rng.integers(0, 5, n)}
     sizes, bases = {"a": 4, "b": 3, "c": 5}, {"a": 1, "b": 0, "c": 2}
     w = rng.uniform(0.1, 1.0, n)
-    y = np.exp(0.2 * codes["a"] - 0.1 * codes["b"] + 0.05 * codes["c"] + 0.3 * (codes["a"] == 3) * (codes["b"] == 2)
-               + rng.normal(0, 0.3, n)) * 100
+    y = (
+        np.exp(
+            0.2 * codes["a"]
+            - 0.1 * codes["b"]
+            + 0.05 * codes["c"]
+            + 0.3 * (codes["a"] == 3) * (codes["b"] == 2)
+            + rng.normal(0, 0.3, n)
+        )
+        * 100
+    )
     fit = refit(codes, sizes, bases, [("a", "b")], w, y)
     reference = _statsmodels_relativities(codes, sizes, bases, [("a", "b")], w, y)
-    ours = np.concatenate([[np.exp(fit.intercept)]] + [np.delete(fit.relativities[k], bases[k]) for k in "abc"]
-                          + [fit.two_way[("a", "b")][[0, 2, 3]][:, [1, 2]].ravel()])
+    ours = np.concatenate(
+        [[np.exp(fit.intercept)]]
+        + [np.delete(fit.relativities[k], bases[k]) for k in "abc"]
+        + [fit.two_way[("a", "b")][[0, 2, 3]][:, [1, 2]].ravel()]
+    )
     np.testing.assert_allclose(ours, reference, rtol=1e-8)
     table = fit.two_way[("a", "b")]
     assert np.all(table[bases["a"], :] == 1.0) and np.all(table[:, bases["b"]] == 1.0)
@@ -170,11 +208,20 @@ def test_empty_two_way_cell_is_reported_as_aliased() -> None:
     fit = refit(codes, {"a": 3, "b": 3}, {"a": 0, "b": 0}, [("a", "b")], w, y)
     assert fit.aliased == ["a:b[2, 2]"]
     assert fit.two_way[("a", "b")][2, 2] == 1.0
-    columns = [np.ones(w.size)] + [(codes[k] == j).astype(float) for k in "ab" for j in (1, 2)] + [
-        ((codes["a"] == i) & (codes["b"] == j)).astype(float) for i, j in ((1, 1), (1, 2), (2, 1))]
+    columns = (
+        [np.ones(w.size)]
+        + [(codes[k] == j).astype(float) for k in "ab" for j in (1, 2)]
+        + [((codes["a"] == i) & (codes["b"] == j)).astype(float) for i, j in ((1, 1), (1, 2), (2, 1))]
+    )
     reference = np.exp(sm.GLM(y, np.column_stack(columns), family=sm.families.Poisson()).fit(tol=1e-13).params)
-    ours = [np.exp(fit.intercept), *fit.relativities["a"][1:], *fit.relativities["b"][1:],
-            fit.two_way[("a", "b")][1, 1], fit.two_way[("a", "b")][1, 2], fit.two_way[("a", "b")][2, 1]]
+    ours = [
+        np.exp(fit.intercept),
+        *fit.relativities["a"][1:],
+        *fit.relativities["b"][1:],
+        fit.two_way[("a", "b")][1, 1],
+        fit.two_way[("a", "b")][1, 2],
+        fit.two_way[("a", "b")][2, 1],
+    ]
     np.testing.assert_allclose(ours, reference, rtol=1e-8)
 
 
@@ -194,8 +241,10 @@ def test_pooled_refit_is_monotone_on_a_case_built_to_reverse() -> None:
     is then monotone, its relativity ratio equals statsmodels' fit on the merged bands (1e-8; the
     merged band, now the most exposed, becomes the base)."""
     values, w, y = _reversing_case()
-    bandings = {"x": Banding("x", "increasing", edges=np.array([1.0, 2.0])), "z": Banding("z", "none",
-                                                                                         edges=np.array([1.0]))}
+    bandings = {
+        "x": Banding("x", "increasing", edges=np.array([1.0, 2.0])),
+        "z": Banding("z", "none", edges=np.array([1.0])),
+    }
     plain = refit(values, {"x": 3, "z": 2}, {"x": 0, "z": 0}, [], w, y)
     reference = _statsmodels_relativities(values, {"x": 3, "z": 2}, {"x": 0, "z": 0}, [], w, y)
     np.testing.assert_allclose(plain.relativities["x"][1:], reference[1:3], rtol=1e-8)
@@ -218,11 +267,20 @@ def test_promise_is_checked_through_the_two_way_table() -> None:
     """A promised factor whose main effect rises (1, 1.2) but whose two-way table with z at z's second
     band is 0.8 in x's second band: main x two-way = 0.96 < 1 there, a reversal of log(1/0.96)."""
     from premiumlab.tabulation.refit import Refit
-    fit = Refit({"x": np.array([1.0, 1.2]), "z": np.array([1.0, 1.1])},
-                {("x", "z"): np.array([[1.0, 1.0], [1.0, 0.8]])}, {"x": 0, "z": 0}, [], 1, 0.0)
+
+    fit = Refit(
+        {"x": np.array([1.0, 1.2]), "z": np.array([1.0, 1.1])},
+        {("x", "z"): np.array([[1.0, 1.0], [1.0, 0.8]])},
+        {"x": 0, "z": 0},
+        [],
+        1,
+        0.0,
+    )
     np.testing.assert_allclose(effect_grid("x", fit.relativities, fit.two_way), [[1.0, 1.0], [1.2, 0.96]])
-    bandings = {"x": Banding("x", "increasing", edges=np.array([1.0])), "z": Banding("z", "none",
-                                                                                    edges=np.array([1.0]))}
+    bandings = {
+        "x": Banding("x", "increasing", edges=np.array([1.0])),
+        "z": Banding("z", "none", edges=np.array([1.0])),
+    }
     reversal = worst_reversal(bandings, fit, decimals=3)
     assert reversal.factor == "x" and reversal.amount == pytest.approx(np.log(1 / 0.96), abs=1e-12)
 
@@ -234,6 +292,7 @@ def test_promise_is_checked_through_the_two_way_table() -> None:
 @pytest.fixture(scope="module")
 def gbm_table(demo_run, tmp_path_factory) -> dict:
     from premiumlab.tabulation.from_run import tabulate
+
     out = tmp_path_factory.mktemp("tabulate") / "table"
     return {"summary": tabulate(demo_run["run"], out), "path": out}
 
@@ -241,6 +300,7 @@ def gbm_table(demo_run, tmp_path_factory) -> dict:
 def _training_frame(demo_run) -> tuple:
     from premiumlab.runs.rundir import open_run
     from premiumlab.tabulation.from_run import rating_frame, reread_book
+
     run = open_run(demo_run["run"])
     book = reread_book(run)
     rows = np.flatnonzero(~book.holdout)
@@ -252,6 +312,7 @@ def test_table_total_on_the_training_book_equals_the_experience(demo_run, gbm_ta
     observed claim amounts (relative 1e-9); base bands and levels are exactly 1; the promised factor
     (bonus_class, increasing) never decreases band to band, also through no two-way table."""
     import rating_tables
+
     table = rating_tables.load(gbm_table["path"])
     run, book, rows, frame = _training_frame(demo_run)
     rated = rating_tables.rate(table, frame, run.spec.columns.exposure)
@@ -273,6 +334,7 @@ def test_table_fidelity_equals_sklearn_tweedie_deviance(demo_run, gbm_table) -> 
     import rating_tables
     from premiumlab.runs.rundir import open_run
     from premiumlab.tabulation.from_run import rating_frame, reread_book
+
     fid = gbm_table["summary"]["fidelity"]
     run = open_run(demo_run["run"])
     book = reread_book(run)
@@ -284,14 +346,17 @@ def test_table_fidelity_equals_sklearn_tweedie_deviance(demo_run, gbm_table) -> 
     power = fid["tweedie_power"]
     assert fid["rows"] == "holdout" and fid["policies"] == held.size
     assert fid["models"]["table"]["mean_deviance"] == pytest.approx(
-        mean_tweedie_deviance(y, mu, sample_weight=w, power=power), rel=1e-9)
+        mean_tweedie_deviance(y, mu, sample_weight=w, power=power), rel=1e-9
+    )
     gbm = run.predictions()["gbm_pure_premium"].to_numpy()[held]
     assert fid["models"]["gbm"]["mean_deviance"] == pytest.approx(
-        mean_tweedie_deviance(y, gbm, sample_weight=w, power=power), rel=1e-9)
+        mean_tweedie_deviance(y, gbm, sample_weight=w, power=power), rel=1e-9
+    )
     g = {k: v["gini"] for k, v in fid["models"].items()}
     assert fid["retention"]["gini_table_over_gbm"] == pytest.approx(g["table"] / g["gbm"], rel=1e-12)
     assert fid["retention"]["gbm_lift_over_glm_kept"] == pytest.approx(
-        (g["table"] - g["glm"]) / (g["gbm"] - g["glm"]), rel=1e-12)
+        (g["table"] - g["glm"]) / (g["gbm"] - g["glm"]), rel=1e-12
+    )
 
 
 def test_rate_level_statements(demo_run, gbm_table) -> None:
@@ -302,16 +367,24 @@ def test_rate_level_statements(demo_run, gbm_table) -> None:
     loadings of the fundamental insurance equation (1e-9)."""
     level = gbm_table["summary"]["rate_level"]
     assert level["rounding_off_balance"] == pytest.approx(
-        level["base_rate_unrounded_relativities"] / level["base_rate"] - 1, abs=1e-12)
+        level["base_rate_unrounded_relativities"] / level["base_rate"] - 1, abs=1e-12
+    )
     assert abs(level["rounding_off_balance"]) < 0.005
     assert level["indicated_overall_change"] == pytest.approx(
-        level["gross_premium_total"] / level["current_premium_total"] - 1, abs=1e-12)
+        level["gross_premium_total"] / level["current_premium_total"] - 1, abs=1e-12
+    )
     import rating_tables
+
     table = rating_tables.load(gbm_table["path"])
     _, _, _, frame = _training_frame(demo_run)
     rated = rating_tables.rate(table, frame, "exposure")
-    without = rating_tables.gross_premium(rated["pure_premium"].to_numpy(), frame["exposure"].to_numpy(float),
-                                          table.loadings, table.rounding.premium_decimals, apply_minimum=False)
+    without = rating_tables.gross_premium(
+        rated["pure_premium"].to_numpy(),
+        frame["exposure"].to_numpy(float),
+        table.loadings,
+        table.rounding.premium_decimals,
+        apply_minimum=False,
+    )
     expected = rated["gross_premium"].sum() / without.sum() - 1.0
     assert level["minimum_premium_off_balance"] == pytest.approx(expected, abs=1e-9)
     assert level["policies_at_minimum"] == int((without < table.loadings.minimum_premium).sum())
@@ -321,6 +394,7 @@ def test_tabulate_is_deterministic_and_fast(demo_run, gbm_table, tmp_path) -> No
     """A second tabulate of the same run writes byte-identical table.json, factor CSVs and
     fidelity.json; each took under 60 s on the 20,000-policy book."""
     from premiumlab.tabulation.from_run import tabulate
+
     again = tabulate(demo_run["run"], tmp_path / "again")
     first = gbm_table["path"]
     names = ["table.json", "fidelity.json"] + [f"factors/{p.name}" for p in (first / "factors").iterdir()]
@@ -336,6 +410,7 @@ def test_glm_export_keeps_the_glm_relativities(demo_run, tmp_path) -> None:
 
     import rating_tables
     from premiumlab.tabulation.from_run import tabulate
+
     summary = tabulate(demo_run["run"], tmp_path / "glm", model="glm")
     table = rating_tables.load(tmp_path / "glm")
     glm = json.loads((demo_run["run"] / "models" / "glm_pure_premium.json").read_text())["relativities"]
@@ -360,14 +435,22 @@ def test_current_premium_target_follows_the_fundamental_insurance_equation(demo_
 
     import rating_tables
     from premiumlab.tabulation.from_run import tabulate
+
     run_copy = demo_run["base"] / "run_current_premium"
     if not run_copy.exists():
         shutil.copytree(demo_run["run"], run_copy)
         manifest = json.loads((run_copy / "run.json").read_text())
-        manifest["spec"]["table"] = {**manifest["spec"].get("table", {}), "target": "current_premium",
-                                     "overall_change": 0.05}
-        manifest["spec"]["loadings"] = {"lae_ratio": 0.10, "fixed_expense": 30.0, "variable_expense": 0.20,
-                                        "profit": 0.05}
+        manifest["spec"]["table"] = {
+            **manifest["spec"].get("table", {}),
+            "target": "current_premium",
+            "overall_change": 0.05,
+        }
+        manifest["spec"]["loadings"] = {
+            "lae_ratio": 0.10,
+            "fixed_expense": 30.0,
+            "variable_expense": 0.20,
+            "profit": 0.05,
+        }
         (run_copy / "run.json").write_text(json.dumps(manifest))
     summary = tabulate(run_copy, tmp_path / "cp")
     level = summary["rate_level"]
@@ -388,6 +471,7 @@ def test_a_changed_book_is_refused(demo_run, tmp_path) -> None:
     that names the file and sha256, and nothing is written at the target."""
     from premiumlab._core.errors import InputError
     from premiumlab.tabulation.from_run import tabulate
+
     frame = pd.read_parquet(demo_run["book"])
     frame.loc[0, "exposure"] = frame.loc[0, "exposure"] * 0.5
     changed = tmp_path / "changed.parquet"

@@ -2,6 +2,7 @@
 accepts and every command and option of the command line has its place on the page, and the
 page's example specs are accepted by the reader. The pages are the source of these expectations.
 """
+
 from __future__ import annotations
 
 import dataclasses
@@ -62,7 +63,8 @@ def test_every_command_and_option_is_in_commands_md():
     for name, command in group.commands.items():
         body = section(text, f"`premiumlab {name}`")
         for param in command.params:
-            words = [o for o in param.opts if o != "--help"] if param.param_type_name == "option" \
-                else [param.name.upper()]
+            words = (
+                [o for o in param.opts if o != "--help"] if param.param_type_name == "option" else [param.name.upper()]
+            )
             for word in words:
                 assert f"`{word}" in body, f"{name}: {word}"

@@ -5,6 +5,7 @@ each period's midpoint to the future midpoint, age-to-ultimate factors multiplyi
 amounts, excess load = excess / capped losses). The simulated book with a heavy tail is invented
 data (a simulator-recovery test against the simulator's truth.json).
 """
+
 from __future__ import annotations
 
 import datetime as dt
@@ -38,8 +39,11 @@ ALL = np.ones(4, dtype=bool)
 
 def two_period_book() -> dict:
     """Four rows: 2024 (1 claim of 4,000; 2 claims totalling 12,000), 2025 (1 claim of 9,000; none)."""
-    return {"periods": np.array(["2024", "2024", "2025", "2025"], dtype=object),
-            "count": np.array([1.0, 2.0, 1.0, 0.0]), "amount": np.array([4000.0, 12000.0, 9000.0, 0.0])}
+    return {
+        "periods": np.array(["2024", "2024", "2025", "2025"], dtype=object),
+        "count": np.array([1.0, 2.0, 1.0, 0.0]),
+        "amount": np.array([4000.0, 12000.0, 9000.0, 0.0]),
+    }
 
 
 def test_time_and_trend_by_hand():
@@ -62,8 +66,12 @@ def test_two_period_book_by_hand():
     Excess load L = excess / capped over the rows; adjusted = capped x (1 + L).
     """
     b = two_period_book()
-    exp = Experience(large_loss_cap=10000.0, development={"2024": 1.10, "2025": 1.25},
-                     development_applies_to_counts=True, trend={"frequency": 0.02, "severity": 0.05})
+    exp = Experience(
+        large_loss_cap=10000.0,
+        development={"2024": 1.10, "2025": 1.25},
+        development_applies_to_counts=True,
+        trend={"frequency": 0.02, "severity": 0.05},
+    )
     out = adjust(exp, b["periods"], b["count"], b["amount"], ALL, 2027.5, exp.development)
     g24, g25 = 1.10 * 1.02**3, 1.25 * 1.02**2
     capped = np.array([4000 * 1.05**3 * g24, 10000 * g24, 9000 * 1.05**2 * g25, 0.0])
@@ -87,8 +95,15 @@ def test_two_period_book_by_hand():
 def test_history_excess_load_and_no_adjustment():
     """A load from a longer history replaces the measured one; nothing set leaves every figure as given."""
     b = two_period_book()
-    out = adjust(Experience(large_loss_cap=10000.0, excess_load_history=0.10), b["periods"], b["count"],
-                 b["amount"], ALL, 2027.5, {})
+    out = adjust(
+        Experience(large_loss_cap=10000.0, excess_load_history=0.10),
+        b["periods"],
+        b["count"],
+        b["amount"],
+        ALL,
+        2027.5,
+        {},
+    )
     np.testing.assert_allclose(out.amount, np.minimum(b["amount"], 10000.0) * 1.10, rtol=1e-15)
     assert out.record["large_losses"]["excess_load_measured"] == pytest.approx(2000 / 23000, rel=1e-12)
     same = adjust(Experience(), b["periods"], b["count"], b["amount"], ALL, 2027.5, {})
@@ -107,13 +122,27 @@ def test_loads_measured_on_training_rows_reproduce_their_total():
 
 
 def claims_case(tmp_path: Path, claims: pd.DataFrame, book: pd.DataFrame | None = None) -> tuple:
-    book = book if book is not None else pd.DataFrame({
-        "policy_id": ["P1", "P1", "P2"], "year": [2024, 2025, 2025], "exposure": [1.0, 1.0, 0.5],
-        "claim_count": [2, 1, 1], "claim_amount": [30000.0, 500.0, 800.0],
-        "age": [30, 31, 50], "region": ["N", "N", "S"], "bonus": ["01", "01", "02"]})
+    book = (
+        book
+        if book is not None
+        else pd.DataFrame(
+            {
+                "policy_id": ["P1", "P1", "P2"],
+                "year": [2024, 2025, 2025],
+                "exposure": [1.0, 1.0, 0.5],
+                "claim_count": [2, 1, 1],
+                "claim_amount": [30000.0, 500.0, 800.0],
+                "age": [30, 31, 50],
+                "region": ["N", "N", "S"],
+                "bonus": ["01", "01", "02"],
+            }
+        )
+    )
     claims.to_csv(tmp_path / "claims.csv", index=False)
-    text = SPEC_TEXT + ("\n[experience]\nlarge_loss_cap = 10000.0\nclaims_file = 'claims.csv'\n"
-                        "claims_amount_column = 'paid'\ncatastrophe_column = 'storm'\n")
+    text = SPEC_TEXT + (
+        "\n[experience]\nlarge_loss_cap = 10000.0\nclaims_file = 'claims.csv'\n"
+        "claims_amount_column = 'paid'\ncatastrophe_column = 'storm'\n"
+    )
     spec = parse_spec(tomllib.loads(text), source=str(tmp_path / "spec.toml"))
     periods = book["year"].astype(str).to_numpy(dtype=object)
     return spec, periods, book
@@ -124,8 +153,15 @@ def test_claims_file_caps_each_claim_and_sets_catastrophes_aside(tmp_path):
     the count and comes back as a flat load: K = 5,000 / 26,300, L = 15,000 / 11,300 on the rest."""
     claims = pd.DataFrame({**STANDARD_CLAIMS, "storm": ["No", "yes", "0", "false"]})
     spec, periods, book = claims_case(tmp_path, claims)
-    out = prepare(spec, tmp_path, periods, book["policy_id"].to_numpy(dtype=object),
-                  book["claim_count"].to_numpy(float), book["claim_amount"].to_numpy(float), np.ones(3, dtype=bool))
+    out = prepare(
+        spec,
+        tmp_path,
+        periods,
+        book["policy_id"].to_numpy(dtype=object),
+        book["claim_count"].to_numpy(float),
+        book["claim_amount"].to_numpy(float),
+        np.ones(3, dtype=bool),
+    )
     capped = np.array([10000.0, 500.0, 800.0])
     excess_load, cat_load = 15000 / 11300, 5000 / 26300
     np.testing.assert_allclose(out.amount, capped * (1 + excess_load) * (1 + cat_load), rtol=1e-12)
@@ -134,18 +170,29 @@ def test_claims_file_caps_each_claim_and_sets_catastrophes_aside(tmp_path):
     assert out.record["catastrophe"]["claims"] == 1 and out.record["large_losses"]["basis"] == "per claim"
 
 
-STANDARD_CLAIMS = {"policy_id": ["P1", "P1", "P1", "P2"], "year": [2024, 2024, 2025, 2025],
-                   "paid": [25000.0, 5000.0, 500.0, 800.0], "storm": ["no", "yes", "no", "no"]}
+STANDARD_CLAIMS = {
+    "policy_id": ["P1", "P1", "P1", "P2"],
+    "year": [2024, 2024, 2025, 2025],
+    "paid": [25000.0, 5000.0, 500.0, 800.0],
+    "storm": ["no", "yes", "no", "no"],
+}
 
 
-@pytest.mark.parametrize("edit, row, counts, fragment", [
-    ("policy_id", 3, None, "row 3: no book row has policy_id 'P9', year '2025'"),
-    ("paid", 0, None, "the claims of book row 0 (policy 'P1') add up to 6000.00, but the book's 'claim_amount' "
-                      "is 30000.00"),
-    ("storm", 2, None, "column 'storm', row 2: 'maybe' is not a flag"),
-    (None, None, [1, 1, 1], "book row 0 keeps an amount of 25000.00 outside catastrophes but no claim"),
-    (None, None, [0, 1, 1], "book row 0 has 1 catastrophe claims, more than its claim count"),
-])
+@pytest.mark.parametrize(
+    "edit, row, counts, fragment",
+    [
+        ("policy_id", 3, None, "row 3: no book row has policy_id 'P9', year '2025'"),
+        (
+            "paid",
+            0,
+            None,
+            "the claims of book row 0 (policy 'P1') add up to 6000.00, but the book's 'claim_amount' is 30000.00",
+        ),
+        ("storm", 2, None, "column 'storm', row 2: 'maybe' is not a flag"),
+        (None, None, [1, 1, 1], "book row 0 keeps an amount of 25000.00 outside catastrophes but no claim"),
+        (None, None, [0, 1, 1], "book row 0 has 1 catastrophe claims, more than its claim count"),
+    ],
+)
 def test_claims_file_refusals(tmp_path, edit, row, counts, fragment):
     claims = pd.DataFrame(STANDARD_CLAIMS)
     if edit is not None:
@@ -154,8 +201,15 @@ def test_claims_file_refusals(tmp_path, edit, row, counts, fragment):
     if counts is not None:
         book["claim_count"] = counts
     with pytest.raises(InputError) as info:
-        prepare(spec, tmp_path, periods, book["policy_id"].to_numpy(dtype=object),
-                book["claim_count"].to_numpy(float), book["claim_amount"].to_numpy(float), np.ones(3, dtype=bool))
+        prepare(
+            spec,
+            tmp_path,
+            periods,
+            book["policy_id"].to_numpy(dtype=object),
+            book["claim_count"].to_numpy(float),
+            book["claim_amount"].to_numpy(float),
+            np.ones(3, dtype=bool),
+        )
     assert fragment in str(info.value)
 
 
@@ -163,17 +217,38 @@ def test_development_file_and_missing_period(tmp_path):
     (tmp_path / "dev.csv").write_text("period,factor\n2024,1.05\n2025,1.30\n")
     spec = parse_spec(tomllib.loads(SPEC_TEXT + "\n[experience]\ndevelopment = 'dev.csv'\n"), source="spec.toml")
     periods = np.array(["2024", "2025", "2025"], dtype=object)
-    out = prepare(spec, tmp_path, periods, np.array(["a", "b", "c"], dtype=object), np.array([1.0, 1.0, 0.0]),
-                  np.array([100.0, 200.0, 0.0]), np.ones(3, dtype=bool))
+    out = prepare(
+        spec,
+        tmp_path,
+        periods,
+        np.array(["a", "b", "c"], dtype=object),
+        np.array([1.0, 1.0, 0.0]),
+        np.array([100.0, 200.0, 0.0]),
+        np.ones(3, dtype=bool),
+    )
     np.testing.assert_allclose(out.amount, [105.0, 260.0, 0.0], rtol=1e-12)
     assert out.count.tolist() == [1.0, 1.0, 0.0]  # development applies to amounts only by default
     with pytest.raises(InputError, match="no factor for period '2026' \\(book row 2\\)"):
-        prepare(spec, tmp_path, np.array(["2024", "2025", "2026"], dtype=object), np.array(["a", "b", "c"], dtype=object),
-                np.ones(3), np.ones(3), np.ones(3, dtype=bool))
+        prepare(
+            spec,
+            tmp_path,
+            np.array(["2024", "2025", "2026"], dtype=object),
+            np.array(["a", "b", "c"], dtype=object),
+            np.ones(3),
+            np.ones(3),
+            np.ones(3, dtype=bool),
+        )
     (tmp_path / "dev.csv").write_text("period,factor\n2024,1.05\n2025,-1\n")
-    with pytest.raises(InputError, match="dev.csv: column 'factor', row 1"):
-        prepare(spec, tmp_path, periods, np.array(["a", "b", "c"], dtype=object), np.ones(3), np.ones(3),
-                np.ones(3, dtype=bool))
+    with pytest.raises(InputError, match=r"dev.csv: column 'factor', row 1"):
+        prepare(
+            spec,
+            tmp_path,
+            periods,
+            np.array(["a", "b", "c"], dtype=object),
+            np.ones(3),
+            np.ones(3),
+            np.ones(3, dtype=bool),
+        )
 
 
 def test_latest_period_holdout_orders_numbers_as_numbers():
@@ -185,6 +260,7 @@ def test_latest_period_holdout_orders_numbers_as_numbers():
 
 # --------------------------------------------------------------------------------------------
 # through `fit`
+
 
 def two_year_book(path: Path, n: int = 4000) -> pd.DataFrame:
     book = small_book(n, seed=5)
@@ -198,7 +274,9 @@ def test_no_experience_or_a_cap_above_every_loss_leaves_the_models_unchanged(tmp
     largest loss adjusts nothing, and the GLM files are byte-identical to the run without it."""
     book = two_year_book(tmp_path / "book.csv")
     (tmp_path / "plain.toml").write_text(SPEC_TEXT)
-    (tmp_path / "capped.toml").write_text(SPEC_TEXT + f"\n[experience]\nlarge_loss_cap = {book.claim_amount.max() + 1}\n")
+    (tmp_path / "capped.toml").write_text(
+        SPEC_TEXT + f"\n[experience]\nlarge_loss_cap = {book.claim_amount.max() + 1}\n"
+    )
     plain = fit(tmp_path / "book.csv", tmp_path / "plain.toml", tmp_path / "plain", models="glm")
     capped = fit(tmp_path / "book.csv", tmp_path / "capped.toml", tmp_path / "capped", models="glm")
     assert not (plain / "experience.json").exists()
@@ -217,28 +295,48 @@ def test_period_control_matches_statsmodels_and_frequency_trend_enters_the_count
     the Poisson GLM equals statsmodels' GLM on the rows with C(year) added and offset log(exposure / m)
     (to 1e-6), and differs by sampling error only (0.02) from the fit on fractional counts count x m."""
     import statsmodels.formula.api as smf
+
     book = two_year_book(tmp_path / "book.csv")
-    (tmp_path / "spec.toml").write_text(SPEC_TEXT.replace("holdout = 0.2", "holdout = 0.0") + (
-        "\n[experience]\ntrend = { frequency = 0.03 }\ndevelopment = { 2024 = 1.0, 2025 = 1.2 }\n"
-        "development_applies_to_counts = true\nperiod_control = true\n"))
+    (tmp_path / "spec.toml").write_text(
+        SPEC_TEXT.replace("holdout = 0.2", "holdout = 0.0")
+        + (
+            "\n[experience]\ntrend = { frequency = 0.03 }\ndevelopment = { 2024 = 1.0, 2025 = 1.2 }\n"
+            "development_applies_to_counts = true\nperiod_control = true\n"
+        )
+    )
     run = fit(tmp_path / "book.csv", tmp_path / "spec.toml", tmp_path / "run", models="glm")
     model = json.loads((run / "models" / "glm_frequency.json").read_text())
     assert model["control"] == ["year"] and set(model["relativities"]["year"]) == {"2024", "2025"}
     multiplier = np.where(book["year"] == 2024, 1.03**3, 1.2 * 1.03**2)
-    frame = pd.DataFrame({"y": book["claim_count"].to_numpy(float), "region": book["region"], "bonus": book["bonus"],
-                          "year": book["year"].astype(str),
-                          "age": pd.cut(book["age"], [-np.inf, 25, 40, 60, np.inf], right=False,
-                                        labels=["[-inf, 25)", "[25, 40)", "[40, 60)", "[60, inf)"]).astype(str)})
+    frame = pd.DataFrame(
+        {
+            "y": book["claim_count"].to_numpy(float),
+            "region": book["region"],
+            "bonus": book["bonus"],
+            "year": book["year"].astype(str),
+            "age": pd.cut(
+                book["age"],
+                [-np.inf, 25, 40, 60, np.inf],
+                right=False,
+                labels=["[-inf, 25)", "[25, 40)", "[40, 60)", "[60, inf)"],
+            ).astype(str),
+        }
+    )
     base = model["base_levels"]
     formula = "y ~ " + " + ".join(f"C({n}, Treatment({base[n]!r}))" for n in ("age", "region", "bonus", "year"))
     other = "2025" if base["year"] == "2024" else "2024"
     term = f"C(year, Treatment({base['year']!r}))[T.{other}]"
-    exact = smf.glm(formula, frame, family=sm.families.Poisson(),
-                    offset=np.log(book["exposure"].to_numpy() / multiplier)).fit(tol=1e-12)
+    exact = smf.glm(
+        formula, frame, family=sm.families.Poisson(), offset=np.log(book["exposure"].to_numpy() / multiplier)
+    ).fit(tol=1e-12)
     ours = np.log(model["relativities"]["year"][other])
     assert ours == pytest.approx(exact.params[term], abs=1e-6)
-    fractional = smf.glm(formula, frame.assign(y=frame["y"] * multiplier), family=sm.families.Poisson(),
-                         offset=np.log(book["exposure"].to_numpy())).fit(tol=1e-12)
+    fractional = smf.glm(
+        formula,
+        frame.assign(y=frame["y"] * multiplier),
+        family=sm.families.Poisson(),
+        offset=np.log(book["exposure"].to_numpy()),
+    ).fit(tol=1e-12)
     assert ours == pytest.approx(fractional.params[term], abs=0.02)
     preds = pd.read_parquet(run / "predictions.parquet")
     np.testing.assert_allclose(preds["claim_count_adjusted"], book["claim_count"] * multiplier, rtol=1e-12)
@@ -279,6 +377,7 @@ def test_capping_a_heavy_tail_recovers_the_relativities_better(tmp_path):
     log error of the Tweedie relativities below 0.6 times that of the uncapped amounts, on each of two seeds."""
     from premiumlab.simulation.scenario_file import parse_scenario
     from premiumlab.simulation.simulator import generate
+
     scenario = parse_scenario(tomllib.loads((ROOT / "scenarios" / "motor_main_effects.toml").read_text() + HEAVY_TAIL))
     spec_text = (ROOT / "scenarios" / "motor_main_effects_spec.toml").read_text() + "\n[glm]\ntweedie_power = 1.6\n"
     (tmp_path / "plain.toml").write_text(spec_text)
@@ -290,8 +389,7 @@ def test_capping_a_heavy_tail_recovers_the_relativities_better(tmp_path):
         errors = {}
         for name in ("plain", "capped"):
             run = fit(tmp_path / "book.parquet", tmp_path / f"{name}.toml", tmp_path / f"{name}{seed}", models="glm")
-            errors[name] = mean_abs_log_error(json.loads((run / "models" / "glm_pure_premium.json").read_text()),
-                                              truth)
+            errors[name] = mean_abs_log_error(json.loads((run / "models" / "glm_pure_premium.json").read_text()), truth)
         record = json.loads((tmp_path / f"capped{seed}" / "experience.json").read_text())
         train = record["totals"]["training"]
         assert train["amount_adjusted"] == pytest.approx(train["amount_observed"], rel=1e-12)

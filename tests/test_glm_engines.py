@@ -3,6 +3,7 @@
 Reference for the estimates: statsmodels GLM on the rows of the same book without the aliased or
 empty columns (that fit is what the dropped-column fit must equal). Books are invented.
 """
+
 from __future__ import annotations
 
 import json
@@ -34,10 +35,16 @@ def small_book(n_rows: int = 4_000, seed: int = 11) -> pd.DataFrame:
 
 def inputs_of(book: pd.DataFrame, factors: dict[str, pd.Categorical], **changes) -> GlmInputs:
     frame = pd.DataFrame(factors)
-    first_levels = {name: frame[name].cat.categories[0] for name in frame if isinstance(frame[name].dtype, pd.CategoricalDtype)}
-    arguments = dict(factors=frame, base_levels=first_levels,
-                     exposure=book["exposure"].to_numpy(), claim_count=book["count"].to_numpy(),
-                     claim_amount=book["amount"].to_numpy())
+    first_levels = {
+        name: frame[name].cat.categories[0] for name in frame if isinstance(frame[name].dtype, pd.CategoricalDtype)
+    }
+    arguments = dict(
+        factors=frame,
+        base_levels=first_levels,
+        exposure=book["exposure"].to_numpy(),
+        claim_count=book["count"].to_numpy(),
+        claim_amount=book["amount"].to_numpy(),
+    )
     arguments.update(changes)
     return GlmInputs(**arguments)
 
@@ -51,8 +58,12 @@ def statsmodels_frequency(book: pd.DataFrame) -> sm.GLM:
     columns = [np.ones(len(book))]
     for name in ("area", "cover"):
         columns += [(book[name] == k).to_numpy(float) for k in range(1, book[name].max() + 1)]
-    return sm.GLM(book["count"].to_numpy(), np.column_stack(columns), family=sm.families.Poisson(),
-                  offset=np.log(book["exposure"].to_numpy())).fit()
+    return sm.GLM(
+        book["count"].to_numpy(),
+        np.column_stack(columns),
+        family=sm.families.Poisson(),
+        offset=np.log(book["exposure"].to_numpy()),
+    ).fit()
 
 
 @pytest.fixture(scope="module")
@@ -64,8 +75,11 @@ def book() -> pd.DataFrame:
 def test_aliased_factor_is_dropped_and_named(book, engine):
     """A factor identical to another up to relabelling: its terms are aliased, named, relativity 1;
     the rest equals statsmodels without it (coefficients 1e-8, deviance, df_resid and AIC 1e-8 rel)."""
-    factors = {"area": labelled(book["area"], "a"), "cover": labelled(book["cover"], "c"),
-               "area_copy": pd.Categorical.from_codes(3 - book["area"].to_numpy(), ["z0", "z1", "z2", "z3"])}
+    factors = {
+        "area": labelled(book["area"], "a"),
+        "cover": labelled(book["cover"], "c"),
+        "area_copy": pd.Categorical.from_codes(3 - book["area"].to_numpy(), ["z0", "z1", "z2", "z3"]),
+    }
     result = fit_frequency(inputs_of(book, factors), engine=engine)
     assert result.aliased == ["area_copy[z1]", "area_copy[z2]", "area_copy[z3]"]
     assert sum("aliased" in note for note in result.notes) == 3
@@ -86,8 +100,9 @@ def test_level_without_exposure_is_reported(book, engine):
     assert any(note.startswith("area[a_unused]: no rows") for note in result.notes)
     assert result.relativities["area"]["a_unused"] == 1.0
     assert list(result.relativities["area"]) == ["a0", "a1", "a2", "a3", "a_unused"]
-    np.testing.assert_allclose([row["estimate"] for row in result.coefficients],
-                               statsmodels_frequency(book).params, atol=1e-8)
+    np.testing.assert_allclose(
+        [row["estimate"] for row in result.coefficients], statsmodels_frequency(book).params, atol=1e-8
+    )
 
 
 def test_level_without_claims_is_dropped_from_severity_only(book):
@@ -107,8 +122,7 @@ def test_level_without_claims_is_dropped_from_severity_only(book):
 
 def test_chunked_statistics_equal_one_pass(book):
     """Partial sums over 613-row chunks equal a single pass to 1e-12 relative."""
-    design = OneHotDesign(("area",), (("a0", "a1", "a2", "a3"),), (0,),
-                          book[["area"]].to_numpy().astype(np.int32))
+    design = OneHotDesign(("area",), (("a0", "a1", "a2", "a3"),), (0,), book[["area"]].to_numpy().astype(np.int32))
     beta_full = np.array([-1.2, 0.0, 0.1, 0.25, 0.4])
     count, exposure = book["count"].to_numpy(), book["exposure"].to_numpy()
     whole = row_statistics(design, beta_full, count, exposure, POISSON, 4)
@@ -122,10 +136,13 @@ def test_row_order_does_not_change_the_model(book):
     factors = {"area": labelled(book["area"], "a"), "cover": labelled(book["cover"], "c")}
     first = fit_pure_premium(inputs_of(book, factors), power=1.4)
     shuffled = book.sample(frac=1.0, random_state=3).reset_index(drop=True)
-    second = fit_pure_premium(inputs_of(shuffled, {"area": labelled(shuffled["area"], "a"),
-                                                    "cover": labelled(shuffled["cover"], "c")}), power=1.4)
-    np.testing.assert_allclose([r["estimate"] for r in first.coefficients],
-                               [r["estimate"] for r in second.coefficients], rtol=0, atol=1e-12)
+    second = fit_pure_premium(
+        inputs_of(shuffled, {"area": labelled(shuffled["area"], "a"), "cover": labelled(shuffled["cover"], "c")}),
+        power=1.4,
+    )
+    np.testing.assert_allclose(
+        [r["estimate"] for r in first.coefficients], [r["estimate"] for r in second.coefficients], rtol=0, atol=1e-12
+    )
     assert first.deviance == pytest.approx(second.deviance, rel=1e-12)
     text = json.dumps(first.to_json_dict())
     assert text == json.dumps(first.to_json_dict())
@@ -143,13 +160,16 @@ def test_engine_choice_rule():
     assert choose_engine(1_000_000, 50_001) == "rows"
 
 
-@pytest.mark.parametrize("change, message", [
-    ({"exposure": "zero"}, "exposure: 1 value(s) not > 0, first at row 7 (value 0.0)"),
-    ({"claim_count": "fraction"}, "claim_count: 1 value(s) not a whole number >= 0, first at row 7 (value 0.5)"),
-    ({"claim_amount": "orphan"}, "claim_amount: 1 value(s) not 0 where claim_count is 0, first at row"),
-    ({"base_levels": {"area": "a9", "cover": "c0"}}, "base_levels['area']: 'a9' is not a level"),
-    ({"control": ["year"]}, "control: 'year' is not a factor"),
-])
+@pytest.mark.parametrize(
+    "change, message",
+    [
+        ({"exposure": "zero"}, "exposure: 1 value(s) not > 0, first at row 7 (value 0.0)"),
+        ({"claim_count": "fraction"}, "claim_count: 1 value(s) not a whole number >= 0, first at row 7 (value 0.5)"),
+        ({"claim_amount": "orphan"}, "claim_amount: 1 value(s) not 0 where claim_count is 0, first at row"),
+        ({"base_levels": {"area": "a9", "cover": "c0"}}, "base_levels['area']: 'a9' is not a level"),
+        ({"control": ["year"]}, "control: 'year' is not a factor"),
+    ],
+)
 def test_bad_inputs_are_refused_by_name(book, change, message):
     factors = {"area": labelled(book["area"], "a"), "cover": labelled(book["cover"], "c")}
     key, value = next(iter(change.items()))
@@ -189,8 +209,10 @@ def test_bad_calls_are_refused_by_name(book):
 def test_a_numerical_failure_inside_an_engine_names_the_model(book, monkeypatch):
     """statsmodels raises ValueError when its first deviance is NaN; that reaches the user as one
     input error naming the model (the engine is replaced by one that fails the same way)."""
+
     def failing(*_args, **_kwargs):
         raise ValueError("The first guess on the deviance function returned a nan.")
+
     monkeypatch.setattr(glm, "fit_on_cells", failing)
     inputs = inputs_of(book, {"area": labelled(book["area"], "a"), "cover": labelled(book["cover"], "c")})
     with pytest.raises(InputError, match=r"the frequency GLM could not be fitted \(The first guess on the deviance"):

@@ -1,4 +1,5 @@
 """Premium dislocation on a hand-checked book, and the capping correction at its fixed point."""
+
 from __future__ import annotations
 
 import dataclasses
@@ -15,8 +16,9 @@ from _builders import example_book, example_table, run_cli
 
 CURRENT = np.array([100.0, 100.0, 100.0, 200.0, 50.0, 100.0, 100.0])
 PROPOSED = np.array([130.0, 95.0, 104.0, 150.0, 80.0, 105.0, 88.0])
-BOOK = pd.DataFrame({"region": ["Hollow", "Hollow", "Ridge", "Ridge", "Hollow", "Ridge", "Ridge"],
-                     "age": [30, 30, 41, 41, 52, 52, 52]})
+BOOK = pd.DataFrame(
+    {"region": ["Hollow", "Hollow", "Ridge", "Ridge", "Hollow", "Ridge", "Ridge"], "age": [30, 30, 41, 41, 52, 52, 52]}
+)
 
 
 def test_bands_thresholds_levels_and_largest_increases_by_hand():
@@ -28,8 +30,16 @@ def test_bands_thresholds_levels_and_largest_increases_by_hand():
     assert out["total_current"] == 750.0 and out["total_proposed"] == 752.0
     assert out["overall_change"] == pytest.approx(2 / 750, rel=1e-12)
     counts = {b["band"]: b["count"] for b in out["bands"]}
-    assert counts == {"below -20%": 1, "-20% to -10%": 1, "-10% to -5%": 0, "-5% to 0%": 1, "0% to +5%": 1,
-                      "+5% to +10%": 1, "+10% to +20%": 0, "above +20%": 2}
+    assert counts == {
+        "below -20%": 1,
+        "-20% to -10%": 1,
+        "-10% to -5%": 0,
+        "-5% to 0%": 1,
+        "0% to +5%": 1,
+        "+5% to +10%": 1,
+        "+10% to +20%": 0,
+        "above +20%": 2,
+    }
     premium = {b["band"]: b["current_premium"] for b in out["bands"]}
     assert premium["below -20%"] == 200.0 and premium["above +20%"] == 150.0
     assert sum(b["premium_share"] for b in out["bands"]) == pytest.approx(1.0, rel=1e-12)
@@ -110,16 +120,27 @@ def test_the_impact_command_breaks_numeric_factors_down_by_band_and_draws_the_fi
     sum equals the sum of that band's rated premiums, and --figure writes a PNG."""
     proposed = example_table()
     age, region, _, cross = proposed.factors
-    current = dataclasses.replace(proposed, factors=(dataclasses.replace(age, relativity=[1.2, 1.0, 1.5]),
-                                                     region, cross))
+    current = dataclasses.replace(
+        proposed, factors=(dataclasses.replace(age, relativity=[1.2, 1.0, 1.5]), region, cross)
+    )
     rating_tables.save(proposed, tmp_path / "proposed")
     rating_tables.save(current, tmp_path / "current")
-    book = pd.concat([example_book()] * 3, ignore_index=True).assign(age=[22, 45, 70, 27, 35, 18, 24, 25, 59, 60,
-                                                                        61, 90, 33, 44, 55])
+    book = pd.concat([example_book()] * 3, ignore_index=True).assign(
+        age=[22, 45, 70, 27, 35, 18, 24, 25, 59, 60, 61, 90, 33, 44, 55]
+    )
     book.to_csv(tmp_path / "book.csv", index=False)
-    r = run_cli("impact", str(tmp_path / "book.csv"), "--current", str(tmp_path / "current"), "--proposed",
-                str(tmp_path / "proposed"), "--out", str(tmp_path / "impact.json"), "--figure",
-                str(tmp_path / "impact.png"))
+    r = run_cli(
+        "impact",
+        str(tmp_path / "book.csv"),
+        "--current",
+        str(tmp_path / "current"),
+        "--proposed",
+        str(tmp_path / "proposed"),
+        "--out",
+        str(tmp_path / "impact.json"),
+        "--figure",
+        str(tmp_path / "impact.png"),
+    )
     assert r.returncode == 0, r.stderr
     out = json.loads((tmp_path / "impact.json").read_text())
     assert list(out["by_factor"]) == ["age", "region", "bonus"]
@@ -133,7 +154,15 @@ def test_the_impact_command_breaks_numeric_factors_down_by_band_and_draws_the_fi
         assert level["proposed_premium"] == pytest.approx(priced_new[band == i].sum(), rel=1e-12)
     png = (tmp_path / "impact.png").read_bytes()
     assert png[:8] == b"\x89PNG\r\n\x1a\n" and len(png) > 20_000
-    r = run_cli("impact", str(tmp_path / "book.csv"), "--current", str(tmp_path / "current"), "--proposed",
-                str(tmp_path / "proposed"), "--figure", str(tmp_path / "impact.jpg"))
+    r = run_cli(
+        "impact",
+        str(tmp_path / "book.csv"),
+        "--current",
+        str(tmp_path / "current"),
+        "--proposed",
+        str(tmp_path / "proposed"),
+        "--figure",
+        str(tmp_path / "impact.jpg"),
+    )
     assert r.returncode == 2 and "impact.jpg: the figure must be a .png file" in r.stderr
     assert not (tmp_path / "impact.jpg").exists()

@@ -1,5 +1,6 @@
 """Friedman's H statistic: brute-force partial dependence against a closed form, recovery of an
 invented product interaction from a boosted model, and zero for an additive (stump) model."""
+
 from __future__ import annotations
 
 import numpy as np
@@ -17,13 +18,19 @@ def test_h_matches_closed_form_for_a_product_plus_additive_terms():
     means and c their sample covariance (ddof 0), so H_12 = sqrt(sum of its squares); every pair
     with x3 or region has H = 0. Agreement to 1e-9 relative; h2 in [0, 1]."""
     rng = np.random.default_rng(4)
-    frame = pd.DataFrame({"x1": rng.normal(1.0, 1.0, 400), "x2": rng.uniform(0.0, 2.0, 400),
-                          "x3": rng.normal(0.0, 1.0, 400),
-                          "region": pd.Categorical(rng.choice(["Dunmore", "Elsby"], 400))})
+    frame = pd.DataFrame(
+        {
+            "x1": rng.normal(1.0, 1.0, 400),
+            "x2": rng.uniform(0.0, 2.0, 400),
+            "x3": rng.normal(0.0, 1.0, 400),
+            "region": pd.Categorical(rng.choice(["Dunmore", "Elsby"], 400)),
+        }
+    )
 
     def score(features: pd.DataFrame) -> np.ndarray:
-        return (features["x1"] * features["x2"] + features["x3"]
-                + np.where(features["region"] == "Elsby", 0.5, 0.0)).to_numpy()
+        return (
+            features["x1"] * features["x2"] + features["x3"] + np.where(features["region"] == "Elsby", 0.5, 0.0)
+        ).to_numpy()
 
     results = h_statistics(score, frame, ["x1", "x2", "x3", "region"], seed=9, sample_size=120)
     sample = frame.iloc[np.sort(np.random.default_rng(9).choice(400, 120, replace=False))]
@@ -45,19 +52,27 @@ def interaction_book() -> tuple[pd.DataFrame, GbmInputs]:
     age, power = rng.normal(0.0, 1.0, rows), rng.normal(0.0, 1.0, rows)
     density, bonus = rng.uniform(0.0, 1.0, rows), rng.integers(0, 6, rows).astype(float)
     region = pd.Categorical(rng.choice(["Halden", "Irwell", "Jarrow"], rows))
-    log_mu = (np.log(0.3) + 0.6 * age * power + 0.5 * density + 0.1 * bonus
-              + np.where(region == "Irwell", 0.3, 0.0))
+    log_mu = np.log(0.3) + 0.6 * age * power + 0.5 * density + 0.1 * bonus + np.where(region == "Irwell", 0.3, 0.0)
     exposure = rng.uniform(0.5, 1.0, rows)
     count = rng.poisson(np.exp(log_mu) * exposure)
-    features = pd.DataFrame({"driver_age_std": age, "vehicle_power_std": power, "town_density": density,
-                             "bonus": bonus, "region": region})
+    features = pd.DataFrame(
+        {"driver_age_std": age, "vehicle_power_std": power, "town_density": density, "bonus": bonus, "region": region}
+    )
     return features, GbmInputs(features, {}, exposure, count, None, np.arange(rows))
 
 
 def _model(inputs: GbmInputs, leaves: int):
-    options = GbmOptions(folds=3, max_settings=2, max_rounds=200, early_stopping_rounds=20, num_threads=1,
-                         grid=({"num_leaves": leaves, "min_data_in_leaf": 50, "learning_rate": 0.1},
-                               {"num_leaves": leaves, "min_data_in_leaf": 100, "learning_rate": 0.1}))
+    options = GbmOptions(
+        folds=3,
+        max_settings=2,
+        max_rounds=200,
+        early_stopping_rounds=20,
+        num_threads=1,
+        grid=(
+            {"num_leaves": leaves, "min_data_in_leaf": 50, "learning_rate": 0.1},
+            {"num_leaves": leaves, "min_data_in_leaf": 100, "learning_rate": 0.1},
+        ),
+    )
     return fit_target(inputs, "frequency", options)
 
 
@@ -92,6 +107,7 @@ def test_seeded_and_checked(interaction_book):
 
     def score(frame: pd.DataFrame) -> np.ndarray:
         return (frame["driver_age_std"] * frame["town_density"]).to_numpy()
+
     first = h_statistics(score, features, ["driver_age_std", "town_density", "bonus"], seed=1, sample_size=50)
     again = h_statistics(score, features, ["driver_age_std", "town_density", "bonus"], seed=1, sample_size=50)
     assert first == again

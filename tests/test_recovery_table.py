@@ -7,6 +7,7 @@ the table's log relativity is averaged (exposure-weighted) over the book's rows 
 before it is compared with the truth there; both sides are centred on their exposure-weighted mean.
 Marked `load` (a boosted fit on 300,000 rows): run by `.ci/run` with `-m load`.
 """
+
 from __future__ import annotations
 
 import json
@@ -55,8 +56,9 @@ def test_table_relativities_within_0_05_mean_absolute_log_error_of_truth(recover
         else:
             band = pd.Categorical(frame[factor].astype(str), categories=labels).codes
         expo = np.bincount(band, weights=frame["exposure"], minlength=len(labels))
-        table_log = np.bincount(band, weights=frame["exposure"] * np.log(rated[f"rel_{factor}"]),
-                                minlength=len(labels)) / expo
+        table_log = (
+            np.bincount(band, weights=frame["exposure"] * np.log(rated[f"rel_{factor}"]), minlength=len(labels)) / expo
+        )
         truth_log = np.log([true[label] for label in labels])
         diff = np.abs(_centred(table_log, expo) - _centred(truth_log, expo))
         errors[factor] = float(np.average(diff, weights=expo))
@@ -70,7 +72,8 @@ def test_promised_factor_comes_out_monotone(recovered):
     promised = [f for f in spec.factors if f.direction != 0]
     assert promised
     for f in promised:
-        by_level = rated.groupby(pd.Categorical(frame[f.name].astype(str), categories=list(f.levels)),
-                                 observed=True)[f"rel_{f.name}"].first()
+        by_level = rated.groupby(pd.Categorical(frame[f.name].astype(str), categories=list(f.levels)), observed=True)[
+            f"rel_{f.name}"
+        ].first()
         steps = f.direction * np.diff(by_level.to_numpy())
         assert (steps >= 0).all(), by_level

@@ -7,6 +7,7 @@ The book is a small simulated motor book (invented data, fixed seed) with a two-
 every kind of table file, including the exhibit workbook, is compared. The book's digest is checked
 against Python's hashlib.
 """
+
 from __future__ import annotations
 
 import hashlib
@@ -33,13 +34,23 @@ def twice(tmp_path_factory):
     spec = base / "spec.toml"
     spec.write_text((ROOT / "scenarios" / "motor_spec.toml").read_text() + GBM)
     book = base / "book.parquet"
-    r = run_cli("simulate", str(ROOT / "scenarios" / "motor.toml"), "--out", str(book), "--policies", str(POLICIES),
-                "--seed", "5")
+    r = run_cli(
+        "simulate",
+        str(ROOT / "scenarios" / "motor.toml"),
+        "--out",
+        str(book),
+        "--policies",
+        str(POLICIES),
+        "--seed",
+        "5",
+    )
     assert r.returncode == 0, r.stderr
     for name in ("a", "b"):
         (base / name).mkdir()
-        for step in (("fit", str(book), "--spec", str(spec), "--out", str(base / name / "run")),
-                     ("tabulate", str(base / name / "run"), "--out", str(base / name / "table"))):
+        for step in (
+            ("fit", str(book), "--spec", str(spec), "--out", str(base / name / "run")),
+            ("tabulate", str(base / name / "run"), "--out", str(base / name / "table")),
+        ):
             r = run_cli(*step)
             assert r.returncode == 0, f"{step[0]}: {r.stderr[-2000:]}"
     return base
@@ -49,13 +60,19 @@ def test_model_and_run_files_are_byte_identical(twice):
     a, b = _files(twice / "a" / "run"), _files(twice / "b" / "run")
     assert sorted(a) == sorted(b)
     models = [k for k in a if k.startswith("models/")]
-    assert {"models/glm_frequency.json", "models/glm_severity.json", "models/glm_pure_premium.json",
-            "models/gbm_pure_premium.txt", "models/gbm_pure_premium.json"} <= set(models)
+    assert {
+        "models/glm_frequency.json",
+        "models/glm_severity.json",
+        "models/glm_pure_premium.json",
+        "models/gbm_pure_premium.txt",
+        "models/gbm_pure_premium.json",
+    } <= set(models)
     different = [k for k in a if k != "run.json" and a[k] != b[k]]
     assert different == []
     manifest_a, manifest_b = (json.loads(x["run.json"]) for x in (a, b))
-    assert {k: v for k, v in manifest_a.items() if k != "timings"} == \
-        {k: v for k, v in manifest_b.items() if k != "timings"}
+    assert {k: v for k, v in manifest_a.items() if k != "timings"} == {
+        k: v for k, v in manifest_b.items() if k != "timings"
+    }
 
 
 def test_table_files_are_byte_identical(twice):

@@ -1,4 +1,5 @@
 """The run directory contract (docs/run-directory.md) on the session's small motor run."""
+
 from __future__ import annotations
 
 import json
@@ -36,17 +37,31 @@ def test_predictions_let_a_reviewer_recompute_every_figure(demo_run):
     book = pd.read_parquet(demo_run["book"])
     assert len(preds) == len(book) and np.array_equal(preds["row"], np.arange(len(book)))
     assert np.array_equal(preds["exposure"], book["exposure"])
-    for col in ("holdout", "claim_count", "claim_amount", "glm_frequency", "glm_severity", "glm_pure_premium",
-                "gbm_frequency", "gbm_severity", "gbm_pure_premium"):
+    for col in (
+        "holdout",
+        "claim_count",
+        "claim_amount",
+        "glm_frequency",
+        "glm_severity",
+        "glm_pure_premium",
+        "gbm_frequency",
+        "gbm_severity",
+        "gbm_pure_premium",
+    ):
         assert col in preds
     # the holdout metric in metrics.json is recomputable from predictions (scikit-learn as reference)
     from sklearn.metrics import mean_tweedie_deviance
+
     metrics = json.loads((demo_run["run"] / "metrics.json").read_text())
     block = metrics["pure_premium"]
     hold = preds[preds["holdout"]]
     ours = block["models"]["gbm_pure_premium"]["mean_deviance"]
-    ref = mean_tweedie_deviance(hold["claim_amount"] / hold["exposure"], hold["gbm_pure_premium"],
-                                sample_weight=hold["exposure"], power=block["power"])
+    ref = mean_tweedie_deviance(
+        hold["claim_amount"] / hold["exposure"],
+        hold["gbm_pure_premium"],
+        sample_weight=hold["exposure"],
+        power=block["power"],
+    )
     assert ours == pytest.approx(ref, rel=1e-10)
 
 
@@ -65,8 +80,13 @@ def test_compare_wrote_figures_and_intervals(demo_run):
     for part in ("deviance_reduction", "gini_gain"):
         assert d[part]["lower"] <= d[part]["estimate"] <= d[part]["upper"]
     figs = {p.name for p in (demo_run["run"] / "figures").glob("*.png")}
-    assert {"lift_pure_premium.png", "double_lift_pure_premium.png", "lorenz_pure_premium.png",
-            "cv_pure_premium.png", "ave_driver_age.png"} <= figs
+    assert {
+        "lift_pure_premium.png",
+        "double_lift_pure_premium.png",
+        "lorenz_pure_premium.png",
+        "cv_pure_premium.png",
+        "ave_driver_age.png",
+    } <= figs
     html = (demo_run["run"] / "report.html").read_text()
     assert "rate regulation" in html and html.count("data:image/png;base64") == len(figs)
 

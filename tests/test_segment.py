@@ -3,6 +3,7 @@
 Reference: exhaustive enumeration of all contiguous segmentations of small curves (n <= 10 points,
 at most 4 segments), computed independently here with plain loops; invented random curves.
 """
+
 from __future__ import annotations
 
 import itertools
@@ -16,7 +17,7 @@ from premiumlab.tabulation.segment import optimal_segmentation
 
 def _direct_cost(y: np.ndarray, w: np.ndarray, starts: list[int]) -> float:
     """Sum of w (y - segment mean)^2, segment by segment, with no prefix sums."""
-    bounds = list(starts) + [len(y)]
+    bounds = [*list(starts), len(y)]
     total = 0.0
     for a, b in zip(bounds[:-1], bounds[1:]):
         mean = np.sum(w[a:b] * y[a:b]) / np.sum(w[a:b])
@@ -30,7 +31,7 @@ def _brute_force(y: np.ndarray, w: np.ndarray, max_segments: int, min_share: flo
     for cuts in range(max_segments):
         for inner in itertools.combinations(range(1, n), cuts):
             starts = [0, *inner]
-            bounds = starts + [n]
+            bounds = [*starts, n]
             if any(w[a:b].sum() < min_share * w.sum() - 1e-15 for a, b in zip(bounds[:-1], bounds[1:])):
                 continue
             best = min(best, _direct_cost(y, w, starts))
@@ -50,7 +51,7 @@ def test_segmentation_equals_brute_force(seed: int) -> None:
     w = rng.uniform(0.1, 2.0, n)
     seg = optimal_segmentation(y, w, max_segments, min_share)
     assert 1 <= seg.count <= max_segments
-    bounds = list(seg.starts) + [n]
+    bounds = [*list(seg.starts), n]
     assert bounds[0] == 0 and all(a < b for a, b in zip(bounds[:-1], bounds[1:]))
     for a, b in zip(bounds[:-1], bounds[1:]):
         assert w[a:b].sum() >= min_share * w.sum() - 1e-12

@@ -6,6 +6,7 @@ chi-square goodness of fit), Poisson and binomial sampling error, and statsmodel
 show that a main-effects model misses the motor interaction). Expected values are recomputed here
 from the scenario files with tomllib and numpy, independently of the simulator's code.
 """
+
 from __future__ import annotations
 
 import json
@@ -64,8 +65,9 @@ def true_frequency(book: pd.DataFrame, doc: dict) -> np.ndarray:
         inside = np.ones(len(book), dtype=bool)
         for name, region in ia["region"].items():
             col = book[name]
-            inside &= (col.isin(region) if isinstance(region[0], str)
-                       else (col >= region[0]) & (col < region[1])).to_numpy()
+            inside &= (
+                col.isin(region) if isinstance(region[0], str) else (col >= region[0]) & (col < region[1])
+            ).to_numpy()
         freq = np.where(inside, freq * ia.get("frequency", 1.0), freq)
     return freq
 
@@ -87,6 +89,7 @@ def motor(tmp_path_factory) -> tuple[pd.DataFrame, dict]:
 # --------------------------------------------------------------------------------------------
 # determinism, schema, exposure
 
+
 @pytest.mark.parametrize("suffix", [".csv", ".parquet"])
 def test_same_seed_gives_identical_bytes(tmp_path: Path, suffix: str) -> None:
     """Same scenario, policies and seed -> byte-identical book and truth.json; another seed differs."""
@@ -107,8 +110,15 @@ def test_book_schema_dtypes_and_data_checks(motor) -> None:
     book, _ = motor
     doc = scenario_doc("motor")
     factors = list(doc["factors"])
-    assert list(book.columns) == ["policy_id", "year", "exposure", "claim_count", "claim_amount",
-                                  *factors, "current_premium"]
+    assert list(book.columns) == [
+        "policy_id",
+        "year",
+        "exposure",
+        "claim_count",
+        "claim_amount",
+        *factors,
+        "current_premium",
+    ]
     assert not book.isna().any().any()
     assert book["policy_id"].str.fullmatch(r"P\d{7}").all()
     assert not book.duplicated(["policy_id", "year"]).any()
@@ -146,6 +156,7 @@ def test_share_of_policies_in_force_throughout(main_effects) -> None:
 
 # --------------------------------------------------------------------------------------------
 # recovery of the truth
+
 
 def test_claims_by_level_and_band_match_expected_poisson(main_effects) -> None:
     """Actual claims per level and per band against the expectation sum(exposure x true frequency)
@@ -230,14 +241,17 @@ def test_interaction_is_strong_enough_for_a_main_effects_glm_to_miss(motor) -> N
         cols.append(pd.get_dummies(label_column(book, name, f), prefix=name, drop_first=True, dtype=float))
     X = sm.add_constant(pd.concat(cols, axis=1))
     with threadpool_limits(1):  # a small dense problem: more BLAS threads only contend
-        fit = sm.GLM(book["claim_count"], X, family=sm.families.Poisson(),
-                     offset=np.log(book["exposure"])).fit()
+        fit = sm.GLM(book["claim_count"], X, family=sm.families.Poisson(), offset=np.log(book["exposure"])).fit()
     inside = ((book["driver_age"] < 30) & (book["vehicle_power"] >= 90)).to_numpy()
     ae = book["claim_count"][inside].sum() / fit.mu[inside].sum()
     assert ae >= 1.2, ae
     cells = truth["interaction"]["cells"]
-    in_region = [c for c in cells if c["driver_age"] in ("[-inf, 21)", "[21, 25)", "[25, 30)")
-                 and c["vehicle_power"] in ("[90, 110)", "[110, 140)", "[140, inf)")]
+    in_region = [
+        c
+        for c in cells
+        if c["driver_age"] in ("[-inf, 21)", "[21, 25)", "[25, 30)")
+        and c["vehicle_power"] in ("[90, 110)", "[110, 140)", "[140, inf)")
+    ]
     assert len(in_region) == 9
     for c in cells:
         assert c["frequency"] == pytest.approx(3.0 if c in in_region else 1.0, rel=1e-12)
@@ -289,15 +303,19 @@ def test_large_loss_share_of_amounts(tmp_path: Path) -> None:
     assert abs(summary["large_claims"] - p * n) < 4 * math.sqrt(n * p * (1 - p))
 
 
-@pytest.mark.parametrize("kind,params,reference", [
-    ("pareto", {"threshold": 25000.0, "shape": 2.2}, st.pareto(b=2.2, scale=25000.0)),
-    ("lognormal", {"median": 60000.0, "sigma": 0.8}, st.lognorm(s=0.8, scale=60000.0)),
-])
+@pytest.mark.parametrize(
+    "kind,params,reference",
+    [
+        ("pareto", {"threshold": 25000.0, "shape": 2.2}, st.pareto(b=2.2, scale=25000.0)),
+        ("lognormal", {"median": 60000.0, "sigma": 0.8}, st.lognorm(s=0.8, scale=60000.0)),
+    ],
+)
 def test_large_loss_mean_equals_scipy(kind: str, params: dict, reference) -> None:
     """The large-loss mean in truth.json equals scipy.stats' mean of the same distribution (1e-12)."""
     doc = tomllib.loads(LARGE_LOSS_SCENARIO)
     doc["large_losses"] = {"probability": 0.02, "distribution": kind, **params}
     from premiumlab.simulation.scenario_file import parse_scenario
+
     truth = generate(parse_scenario(doc), policies=200).truth
     assert truth["large_losses"]["mean"] == pytest.approx(reference.mean(), rel=1e-12)
 
@@ -347,12 +365,15 @@ def test_numeric_distributions_match_scipy() -> None:
     """Each numeric distribution kind against scipy.stats: Kolmogorov-Smirnov p > 0.001 for
     uniform, normal, lognormal and histogram (rv_histogram), chi-square p > 0.001 for integers."""
     from premiumlab.simulation.scenario_file import parse_scenario
+
     book = generate(parse_scenario(tomllib.loads(DISTRIBUTIONS_SCENARIO))).book
     assert len(book) == 4000
-    for name, ref in (("u", st.uniform(2.0, 5.0)), ("z", st.norm(40.0, 12.0)),
-                      ("ln", st.lognorm(s=0.4, scale=900.0)),
-                      ("h", st.rv_histogram((np.array([0.5, 0.3, 0.2]), np.array([0.0, 10, 30, 60])),
-                                            density=False))):
+    for name, ref in (
+        ("u", st.uniform(2.0, 5.0)),
+        ("z", st.norm(40.0, 12.0)),
+        ("ln", st.lognorm(s=0.4, scale=900.0)),
+        ("h", st.rv_histogram((np.array([0.5, 0.3, 0.2]), np.array([0.0, 10, 30, 60])), density=False)),
+    ):
         assert st.kstest(book[name], ref.cdf).pvalue > 1e-3, name
     counts = book["k"].value_counts().reindex([1, 2, 3, 4]).to_numpy()
     assert counts.sum() == 4000 and pd.api.types.is_integer_dtype(book["k"])
@@ -385,8 +406,9 @@ def test_current_premium_follows_the_tariff_and_loss_ratio(motor) -> None:
         f = doc["factors"][name]
         rel *= label_column(book, name, f).map(spec["relativities"]).to_numpy()
         assert spec["shrink"] == doc["current_tariff"]["shrink"][name]
-    np.testing.assert_allclose(book["current_premium"], np.round(tariff["base_rate"] * rel * book["exposure"], 2),
-                               rtol=0, atol=0.0051)
+    np.testing.assert_allclose(
+        book["current_premium"], np.round(tariff["base_rate"] * rel * book["exposure"], 2), rtol=0, atol=0.0051
+    )
     ratio = truth["book"]["expected_amount"] / book["current_premium"].sum()
     assert ratio == pytest.approx(doc["current_tariff"]["expected_loss_ratio"], rel=1e-4)
 
@@ -404,6 +426,7 @@ def test_scenario_and_its_spec_agree(name: str) -> None:
     factors in order with the same types, band edges, levels (when listed) and base levels, the
     simulator's columns, and the scenario's interaction."""
     from premiumlab.book.spec import load_spec
+
     path = SCENARIOS / f"{name}_spec.toml"
     raw = tomllib.loads(path.read_text(encoding="utf-8"))
     assert set(raw) <= SPEC_KEYS
@@ -421,7 +444,13 @@ def test_scenario_and_its_spec_agree(name: str) -> None:
             assert list(f.levels) == s["levels"]
     c = spec.columns
     assert (c.exposure, c.claim_count, c.claim_amount, c.policy_id, c.period, c.current_premium) == (
-        "exposure", "claim_count", "claim_amount", "policy_id", "year", "current_premium")
+        "exposure",
+        "claim_count",
+        "claim_amount",
+        "policy_id",
+        "year",
+        "current_premium",
+    )
     expected = [tuple(doc["interaction"]["factors"])] if "interaction" in doc else []
     assert [tuple(p) for p in spec.table.interactions] == expected
 
@@ -430,6 +459,7 @@ def test_scenario_and_its_spec_agree(name: str) -> None:
 def test_promised_monotone_direction_holds_in_truth(name: str) -> None:
     """Every monotone promise in the spec is kept by the true pure-premium relativities (small book)."""
     from premiumlab.book.spec import load_spec
+
     spec = load_spec(SCENARIOS / f"{name}_spec.toml")
     truth = generate(load_scenario(SCENARIOS / f"{name}.toml"), policies=5000).truth
     promised = [f for f in spec.factors if f.monotone != "none"]
@@ -499,32 +529,48 @@ probabilities = [0.4, 0.6]
 """
 
 
-@pytest.mark.parametrize("old,new,key", [
-    ("base_severity = 1000.0", "base_severity = 1000.0\nseverity_shap = 2.0", "scenario.severity_shap"),
-    ("policies = 100", "polices = 100", "scenario.polices"),
-    ("seed = 1", "seed = 1\ncolour = 'red'", "scenario.colour"),
-    ("bands = [25, 40]", "bands = [25, 40]\nbandz = [1]", "factors.age.bandz"),
-    ("policies = 100", "policies = '100'", "scenario.policies"),
-    ("base_frequency = 0.1\n", "", "scenario.base_frequency"),
-    ("periods = [2024, 2025]", "periods = [2024, 2026]", "scenario.periods"),
-    ("probabilities = [0.4, 0.6]", "probabilities = [0.4, 0.7]", "factors.zone.probabilities"),
-    ("[[18, 0.5], [40, 0.0]]", "[[40, 0.5], [18, 0.0]]", "factors.age.frequency_curve"),
-    ("bands = [25, 40]", "bands = [40, 25]", "factors.age.bands"),
-    ("distribution = \"uniform\"", "distribution = \"beta\"", "factors.age.distribution"),
-    ("high = 80.0", "high = 10.0", "factors.age.high"),
-    ("low = 18.0", "low = 18.0\nround_to = 5\nclip = [18, 80]", "factors.age.clip"),
-    ("type = \"categorical\"", "type = \"categorical\"\ndepends_on = \"later\"", "factors.zone.depends_on"),
-    ("probabilities = [0.4, 0.6]", "probabilities = [0.4, 0.6]\ndepends_on = \"age\"\n"
-     "[factors.zone.when.\"[0, 25)\"]\nprobabilities = [0.5, 0.5]", "factors.zone.when.[0, 25)"),
-    ("probabilities = [0.4, 0.6]", "probabilities = [0.4, 0.6]\nfrequency_relativity = { a = 1.0 }",
-     "factors.zone.frequency_relativity.b"),
-    ("[factors.zone]", "[interaction]\nfactors = [\"age\", \"zone\"]\n[interaction.region]\n"
-     "age = [18, 25]\nzone = [\"c\"]\n[factors.zone]", "interaction.region.zone"),
-    ("[factors.zone]", "[current_tariff.shrink]\nheight = 0.5\n[factors.zone]", "current_tariff.shrink.height"),
-    ("[factors.zone]", "[large_losses]\nprobability = 0.02\ndistribution = \"pareto\"\nthreshold = 1e5\n"
-     "shape = 0.9\n[factors.zone]", "large_losses.shape"),
-    ("[factors.zone]", "[factors.exposure]\ntype = \"categorical\"\n[factors.zone]", "factors.exposure"),
-])
+@pytest.mark.parametrize(
+    "old,new,key",
+    [
+        ("base_severity = 1000.0", "base_severity = 1000.0\nseverity_shap = 2.0", "scenario.severity_shap"),
+        ("policies = 100", "polices = 100", "scenario.polices"),
+        ("seed = 1", "seed = 1\ncolour = 'red'", "scenario.colour"),
+        ("bands = [25, 40]", "bands = [25, 40]\nbandz = [1]", "factors.age.bandz"),
+        ("policies = 100", "policies = '100'", "scenario.policies"),
+        ("base_frequency = 0.1\n", "", "scenario.base_frequency"),
+        ("periods = [2024, 2025]", "periods = [2024, 2026]", "scenario.periods"),
+        ("probabilities = [0.4, 0.6]", "probabilities = [0.4, 0.7]", "factors.zone.probabilities"),
+        ("[[18, 0.5], [40, 0.0]]", "[[40, 0.5], [18, 0.0]]", "factors.age.frequency_curve"),
+        ("bands = [25, 40]", "bands = [40, 25]", "factors.age.bands"),
+        ('distribution = "uniform"', 'distribution = "beta"', "factors.age.distribution"),
+        ("high = 80.0", "high = 10.0", "factors.age.high"),
+        ("low = 18.0", "low = 18.0\nround_to = 5\nclip = [18, 80]", "factors.age.clip"),
+        ('type = "categorical"', 'type = "categorical"\ndepends_on = "later"', "factors.zone.depends_on"),
+        (
+            "probabilities = [0.4, 0.6]",
+            'probabilities = [0.4, 0.6]\ndepends_on = "age"\n[factors.zone.when."[0, 25)"]\nprobabilities = [0.5, 0.5]',
+            "factors.zone.when.[0, 25)",
+        ),
+        (
+            "probabilities = [0.4, 0.6]",
+            "probabilities = [0.4, 0.6]\nfrequency_relativity = { a = 1.0 }",
+            "factors.zone.frequency_relativity.b",
+        ),
+        (
+            "[factors.zone]",
+            '[interaction]\nfactors = ["age", "zone"]\n[interaction.region]\n'
+            'age = [18, 25]\nzone = ["c"]\n[factors.zone]',
+            "interaction.region.zone",
+        ),
+        ("[factors.zone]", "[current_tariff.shrink]\nheight = 0.5\n[factors.zone]", "current_tariff.shrink.height"),
+        (
+            "[factors.zone]",
+            '[large_losses]\nprobability = 0.02\ndistribution = "pareto"\nthreshold = 1e5\nshape = 0.9\n[factors.zone]',
+            "large_losses.shape",
+        ),
+        ("[factors.zone]", '[factors.exposure]\ntype = "categorical"\n[factors.zone]', "factors.exposure"),
+    ],
+)
 def test_scenario_errors_name_the_key(tmp_path: Path, old: str, new: str, key: str) -> None:
     """Each bad scenario is refused with an InputError whose one-line message names file and key."""
     assert old in MINIMAL
@@ -549,8 +595,12 @@ def test_minimal_scenario_is_valid_and_file_errors_are_named(tmp_path: Path) -> 
             load_scenario(path)
     out = tmp_path / "out"
     out.mkdir()
-    cases = [dict(out_path=out / "book.xlsx"), dict(out_path=out / "book.csv", policies=0),
-             dict(out_path=out / "book.csv", seed=-1), dict(out_path=tmp_path / "nowhere" / "book.csv")]
+    cases = [
+        dict(out_path=out / "book.xlsx"),
+        dict(out_path=out / "book.csv", policies=0),
+        dict(out_path=out / "book.csv", seed=-1),
+        dict(out_path=tmp_path / "nowhere" / "book.csv"),
+    ]
     for kwargs in cases:
         with pytest.raises(InputError):
             simulate(good, **kwargs)

@@ -1,4 +1,5 @@
 """The pricing spec: valid specs parse into typed objects; every refusal names the key."""
+
 from __future__ import annotations
 
 import tomllib
@@ -28,29 +29,44 @@ def test_valid_spec_parses_with_documented_defaults(spec_file):
     assert "gender" in spec.compliance.prohibited
 
 
-@pytest.mark.parametrize("extra, base_edit, fragment", [
-    ("", ("holdout = 0.2", "holdout = 1.5"), "split.holdout"),
-    ("", ("seed = 7", "seeds = 3"), "split.seeds' is unknown"),
-    ("[glm]\ntweedie_power = 2.5", None, "glm.tweedie_power"),
-    ("[gbm]\nfolds = 'five'", None, "gbm.folds' must be an integer"),
-    ("[loadings]\nvariable_expense = 0.7\nprofit = 0.3", None, "variable_expense + profit must be below 1"),
-    ("[table]\ninteractions = [['age', 'colour_of_car']]", None, "colour_of_car"),
-    ("[factors.zone]\ntype = 'categorical'\nmonotone = 'increasing'", None, "unordered categorical"),
-    ("[factors.zone]\ntype = 'categorical'\nlevels = ['a', 'a']", None, "lists level 'a' twice"),
-    ("[factors.zone]\ntype = 'spatial'", None, "factors.zone.type"),
-    ("[factors.zone]\ntype = 'numeric'\nbands = [3, 2]", None, "strictly increasing"),
-    ("[factors.zone]\ntype = 'numeric'\ncolour = 1", None, "factors.zone.colour' is unknown"),
-    ("[factors.gender]\ntype = 'categorical'", None, "prohibited"),
-    ("[factors.exposure]\ntype = 'numeric'", None, "also a column of [columns]"),
-    ("[experience]\nexcess_load_history = 0.1", None, "experience.excess_load_history' needs experience.large_loss_cap"),
-    ("[experience]\ncatastrophe_column = 'cat'", None, "experience.catastrophe_column' needs experience.claims_file"),
-    ("[experience]\ntrend = { inflation = 0.02 }", None, "experience.trend.inflation' is unknown"),
-    ("[experience]\ncap = 1000", None, "experience.cap' is unknown"),
-    ("", ("holdout = 0.2", "holdout = 'newest'"), "split.holdout' must be a number in [0, 1) or 'latest_period', got 'newest'"),
-    ("", ('claim_count = "claim_count"', ''), "columns.claim_count' is required"),
-    ("", ('period = "year"', 'period = "exposure"'), "already used"),
-    ("[unknown_section]\na = 1", None, "'unknown_section' is unknown"),
-])
+@pytest.mark.parametrize(
+    "extra, base_edit, fragment",
+    [
+        ("", ("holdout = 0.2", "holdout = 1.5"), "split.holdout"),
+        ("", ("seed = 7", "seeds = 3"), "split.seeds' is unknown"),
+        ("[glm]\ntweedie_power = 2.5", None, "glm.tweedie_power"),
+        ("[gbm]\nfolds = 'five'", None, "gbm.folds' must be an integer"),
+        ("[loadings]\nvariable_expense = 0.7\nprofit = 0.3", None, "variable_expense + profit must be below 1"),
+        ("[table]\ninteractions = [['age', 'colour_of_car']]", None, "colour_of_car"),
+        ("[factors.zone]\ntype = 'categorical'\nmonotone = 'increasing'", None, "unordered categorical"),
+        ("[factors.zone]\ntype = 'categorical'\nlevels = ['a', 'a']", None, "lists level 'a' twice"),
+        ("[factors.zone]\ntype = 'spatial'", None, "factors.zone.type"),
+        ("[factors.zone]\ntype = 'numeric'\nbands = [3, 2]", None, "strictly increasing"),
+        ("[factors.zone]\ntype = 'numeric'\ncolour = 1", None, "factors.zone.colour' is unknown"),
+        ("[factors.gender]\ntype = 'categorical'", None, "prohibited"),
+        ("[factors.exposure]\ntype = 'numeric'", None, "also a column of [columns]"),
+        (
+            "[experience]\nexcess_load_history = 0.1",
+            None,
+            "experience.excess_load_history' needs experience.large_loss_cap",
+        ),
+        (
+            "[experience]\ncatastrophe_column = 'cat'",
+            None,
+            "experience.catastrophe_column' needs experience.claims_file",
+        ),
+        ("[experience]\ntrend = { inflation = 0.02 }", None, "experience.trend.inflation' is unknown"),
+        ("[experience]\ncap = 1000", None, "experience.cap' is unknown"),
+        (
+            "",
+            ("holdout = 0.2", "holdout = 'newest'"),
+            "split.holdout' must be a number in [0, 1) or 'latest_period', got 'newest'",
+        ),
+        ("", ('claim_count = "claim_count"', ""), "columns.claim_count' is required"),
+        ("", ('period = "year"', 'period = "exposure"'), "already used"),
+        ("[unknown_section]\na = 1", None, "'unknown_section' is unknown"),
+    ],
+)
 def test_refusals_name_the_key(extra, base_edit, fragment):
     base = SPEC_TEXT if base_edit is None else SPEC_TEXT.replace(*base_edit)
     with pytest.raises(InputError, match=None) as info:

@@ -1,4 +1,5 @@
 """The table steps of the pipeline on the session's small motor run: tabulate, audit, rate, impact."""
+
 from __future__ import annotations
 
 import json
@@ -17,7 +18,8 @@ def test_table_has_the_spec_interaction_and_promise(demo_run):
     table = rating_tables.load(demo_run["table"])
     names = [f.name for f in table.factors]
     assert "driver_age__vehicle_power" in names or any(
-        getattr(f, "of", None) == ("driver_age", "vehicle_power") for f in table.factors)
+        getattr(f, "of", None) == ("driver_age", "vehicle_power") for f in table.factors
+    )
     bonus = next(f for f in table.factors if f.name == "bonus_class")
     assert bonus.monotone == "increasing"
     assert any("rate regulation" in c for c in table.cautions)
@@ -102,15 +104,33 @@ def test_tabulate_refuses_to_replace_its_own_run(demo_run):
 
 def test_impact_thresholds_are_chosen_by_the_user(demo_run, tmp_path):
     out = tmp_path / "impact.json"
-    r = run_cli("impact", str(demo_run["book"]), "--current", str(demo_run["glm_table"]), "--proposed",
-                str(demo_run["table"]), "--thresholds", "0.0,0.2,0.5", "--out", str(out))
+    r = run_cli(
+        "impact",
+        str(demo_run["book"]),
+        "--current",
+        str(demo_run["glm_table"]),
+        "--proposed",
+        str(demo_run["table"]),
+        "--thresholds",
+        "0.0,0.2,0.5",
+        "--out",
+        str(out),
+    )
     assert r.returncode == 0, r.stderr
     shares = json.loads(out.read_text())["above_thresholds"]
     assert [s["threshold"] for s in shares] == [0.0, 0.2, 0.5]
     counts = [s["count"] for s in shares]
     assert counts[0] >= counts[1] >= counts[2]
-    bad = run_cli("impact", str(demo_run["book"]), "--current", str(demo_run["glm_table"]), "--proposed",
-                  str(demo_run["table"]), "--thresholds", "ten")
+    bad = run_cli(
+        "impact",
+        str(demo_run["book"]),
+        "--current",
+        str(demo_run["glm_table"]),
+        "--proposed",
+        str(demo_run["table"]),
+        "--thresholds",
+        "ten",
+    )
     assert bad.returncode == 2 and "--thresholds" in bad.stderr
 
 

@@ -5,6 +5,7 @@ maximum-likelihood fit); the threshold-stability property that a generalised Par
 excess (beta + xi u) / (1 - xi), linear in u (recalled from memory; checked here against scipy's
 numerical expectation). Books and claims files are invented.
 """
+
 from __future__ import annotations
 
 import json
@@ -65,9 +66,13 @@ def claims_book(tmp_path) -> tuple:
     book.to_csv(tmp_path / "book.csv", index=False)
     with_claims = book[book["claim_amount"] > 0]
     first = np.round(with_claims["claim_amount"].to_numpy() * 0.7, 2)
-    claims = pd.DataFrame({"policy_id": np.repeat(with_claims["policy_id"].to_numpy(), 2),
-                           "year": 2025, "claim_amount": np.column_stack(
-                               [first, with_claims["claim_amount"].to_numpy() - first]).ravel()})
+    claims = pd.DataFrame(
+        {
+            "policy_id": np.repeat(with_claims["policy_id"].to_numpy(), 2),
+            "year": 2025,
+            "claim_amount": np.column_stack([first, with_claims["claim_amount"].to_numpy() - first]).ravel(),
+        }
+    )
     claims["storm"] = np.arange(len(claims)) % 10 == 0
     claims.to_csv(tmp_path / "claims.csv", index=False)
     return book, claims
@@ -76,12 +81,17 @@ def claims_book(tmp_path) -> tuple:
 def test_tails_through_the_cli_on_single_claims_without_catastrophes(tmp_path):
     """With a claims file the losses are the claims that are not storm-flagged, trended 4 % a year
     from mid-2025 to mid-2027 (1.04^2); --json gives threshold, exceedances, shape and scale."""
-    book, claims = claims_book(tmp_path)
-    (tmp_path / "spec.toml").write_text(SPEC_TEXT + (
-        "\n[experience]\nlarge_loss_cap = 3000.0\nclaims_file = 'claims.csv'\ncatastrophe_column = 'storm'\n"
-        "trend = { severity = 0.04 }\n"))
-    r = run_cli("tails", str(tmp_path / "book.csv"), "--spec", str(tmp_path / "spec.toml"), "--threshold", "500",
-                "--json")
+    _book, claims = claims_book(tmp_path)
+    (tmp_path / "spec.toml").write_text(
+        SPEC_TEXT
+        + (
+            "\n[experience]\nlarge_loss_cap = 3000.0\nclaims_file = 'claims.csv'\ncatastrophe_column = 'storm'\n"
+            "trend = { severity = 0.04 }\n"
+        )
+    )
+    r = run_cli(
+        "tails", str(tmp_path / "book.csv"), "--spec", str(tmp_path / "spec.toml"), "--threshold", "500", "--json"
+    )
     assert r.returncode == 0, r.stderr
     out = json.loads(r.stdout)
     losses = claims.loc[~claims["storm"] & (claims["claim_amount"] > 0), "claim_amount"].to_numpy() * 1.04**2
@@ -104,9 +114,11 @@ def test_tails_cli_text_figure_and_refusals(tmp_path):
     again = run_cli("tails", str(tmp_path / "book.csv"), "--spec", str(tmp_path / "spec.toml"), "--figure", str(figure))
     assert again.returncode == 2 and "already exists" in again.stderr
     assert len(again.stderr.strip().splitlines()) == 1
-    for kwargs, fragment in [({"threshold": 1e9}, "leaves 0 losses above it"),
-                             ({"threshold": -1.0}, "--threshold: -1.0 must be a finite amount >= 0"),
-                             ({"figure": tmp_path / "tail.svg"}, "must be a .png file")]:
+    for kwargs, fragment in [
+        ({"threshold": 1e9}, "leaves 0 losses above it"),
+        ({"threshold": -1.0}, "--threshold: -1.0 must be a finite amount >= 0"),
+        ({"figure": tmp_path / "tail.svg"}, "must be a .png file"),
+    ]:
         with pytest.raises(InputError, match=None) as info:
             threshold_aid(tmp_path / "book.csv", tmp_path / "spec.toml", **kwargs)
         assert fragment in str(info.value)

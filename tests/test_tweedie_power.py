@@ -5,6 +5,7 @@ f(y) = sum_n poisson.pmf(n, lam) gamma.pdf(y, n alpha, scale), lam = w mu^(2-p) 
 alpha = (2-p)/(p-1), scale = phi (p-1) mu^(p-1) / w, and P(Y = 0) = exp(-lam).
 Recovery: an invented book drawn from that compound distribution with power 1.6.
 """
+
 from __future__ import annotations
 
 import time
@@ -59,8 +60,7 @@ def tweedie_book(n_rows: int = 20_000, seed: int = 16) -> GlmInputs:
     scale = phi * (p - 1) * mu ** (p - 1) / exposure
     rate = np.where(count > 0, rng.gamma(np.maximum(count, 1) * (2 - p) / (p - 1), scale), 0.0)
     frame = pd.DataFrame(factors)
-    return GlmInputs(frame, {name: frame[name].cat.categories[0] for name in frame},
-                     exposure, count, rate * exposure)
+    return GlmInputs(frame, {name: frame[name].cat.categories[0] for name in frame}, exposure, count, rate * exposure)
 
 
 def test_auto_power_recovers_the_simulated_power():

@@ -10,6 +10,7 @@ Dask moves the tasks and the training matrix between the processes of your own c
 own serialisation; premiumlab never unpickles anything it reads from disk. A Dask scheduler runs
 whatever its clients send it: connect only to one you control.
 """
+
 from __future__ import annotations
 
 import logging
@@ -28,8 +29,9 @@ class TaskRunner(Protocol):
 
     description: str
 
-    def map(self, fn: Callable[[Any, Any], Any], shared: Any, items: Sequence[Any],
-            advance: Callable[[], None]) -> list: ...
+    def map(
+        self, fn: Callable[[Any, Any], Any], shared: Any, items: Sequence[Any], advance: Callable[[], None]
+    ) -> list: ...
 
 
 class InProcess:
@@ -37,8 +39,9 @@ class InProcess:
 
     description = "this process"
 
-    def map(self, fn: Callable[[Any, Any], Any], shared: Any, items: Sequence[Any],
-            advance: Callable[[], None]) -> list:
+    def map(
+        self, fn: Callable[[Any, Any], Any], shared: Any, items: Sequence[Any], advance: Callable[[], None]
+    ) -> list:
         results = []
         for item in items:
             results.append(fn(shared, item))
@@ -53,9 +56,11 @@ class DaskTasks:
         self.client = client
         self.description = description
 
-    def map(self, fn: Callable[[Any, Any], Any], shared: Any, items: Sequence[Any],
-            advance: Callable[[], None]) -> list:
+    def map(
+        self, fn: Callable[[Any, Any], Any], shared: Any, items: Sequence[Any], advance: Callable[[], None]
+    ) -> list:
         from distributed import as_completed
+
         on_workers = self.client.scatter(shared, broadcast=True, hash=False)
         futures = [self.client.submit(fn, on_workers, item, pure=False) for item in items]
         try:
@@ -65,8 +70,10 @@ class DaskTasks:
         except InputError:
             raise
         except Exception as e:  # what a worker raised, e.g. a library it lacks
-            raise InputError(f"--cluster: a task failed on {self.description} ({type(e).__name__}: {e}); "
-                             "the workers need the same premiumlab and libraries as this machine") from None
+            raise InputError(
+                f"--cluster: a task failed on {self.description} ({type(e).__name__}: {e}); "
+                "the workers need the same premiumlab and libraries as this machine"
+            ) from None
 
 
 IN_PROCESS = InProcess()
@@ -81,8 +88,10 @@ def parse_cluster(address: str) -> tuple[str, int | str]:
         return "local", int(count)
     if "://" in address:
         return "remote", address
-    raise InputError(f"--cluster: {address!r}: give local:N (N worker processes on this machine) or "
-                     "a Dask scheduler address such as tcp://host:8786")
+    raise InputError(
+        f"--cluster: {address!r}: give local:N (N worker processes on this machine) or "
+        "a Dask scheduler address such as tcp://host:8786"
+    )
 
 
 @contextmanager
@@ -97,8 +106,16 @@ def tasks_on(address: str | None) -> Iterator[TaskRunner]:
     except ImportError:
         raise InputError("--cluster: Dask is not installed; pip install 'premiumlab[dask]'") from None
     if kind == "local":
-        with LocalCluster(n_workers=where, threads_per_worker=1, processes=True, dashboard_address=None,
-                          silence_logs=logging.ERROR) as cluster, Client(cluster) as client:
+        with (
+            LocalCluster(
+                n_workers=where,
+                threads_per_worker=1,
+                processes=True,
+                dashboard_address=None,
+                silence_logs=logging.ERROR,
+            ) as cluster,
+            Client(cluster) as client,
+        ):
             yield DaskTasks(client, f"a local Dask cluster of {where} worker process{'es' if where != 1 else ''}")
         return
     try:
@@ -116,13 +133,18 @@ def tasks_on(address: str | None) -> Iterator[TaskRunner]:
 def _check_worker_versions(client: Any, where: str) -> None:
     """Refuse workers that lack premiumlab or run another version of it than this process."""
     from importlib.metadata import version
+
     here = version("premiumlab")
     try:
         theirs = client.run(version, "premiumlab")
     except Exception as e:
-        raise InputError(f"--cluster: a worker of the Dask scheduler at {where} cannot load premiumlab "
-                         f"({type(e).__name__}: {e}); install premiumlab {here} on every worker") from None
+        raise InputError(
+            f"--cluster: a worker of the Dask scheduler at {where} cannot load premiumlab "
+            f"({type(e).__name__}: {e}); install premiumlab {here} on every worker"
+        ) from None
     other = sorted({v for v in theirs.values() if v != here})
     if other:
-        raise InputError(f"--cluster: workers of the Dask scheduler at {where} run premiumlab "
-                         f"{', '.join(other)}, this machine {here}; install the same version everywhere")
+        raise InputError(
+            f"--cluster: workers of the Dask scheduler at {where} run premiumlab "
+            f"{', '.join(other)}, this machine {here}; install the same version everywhere"
+        )

@@ -1,4 +1,5 @@
 """Named defaults shared by several steps, each written once."""
+
 from __future__ import annotations
 
 #: The seed of the split, the boosted models, the folds, the effect-curve samples and the simulator,

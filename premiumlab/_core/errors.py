@@ -1,4 +1,5 @@
 """Errors that reach the user as one clear line and an exit code."""
+
 from __future__ import annotations
 
 

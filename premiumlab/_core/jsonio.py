@@ -1,4 +1,5 @@
 """Deterministic JSON files: sorted keys where the writer asks, fixed float formatting, no NaN."""
+
 from __future__ import annotations
 
 import dataclasses

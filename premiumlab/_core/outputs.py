@@ -7,6 +7,7 @@ two moves leaves the old output aside: the sweep puts it back). Without `force`,
 another process created while the command ran is not replaced either. A target that is or holds
 one of the command's inputs is refused, so that `--force` cannot destroy an input.
 """
+
 from __future__ import annotations
 
 import os
@@ -87,13 +88,16 @@ def _discard(tmp: Path) -> None:
 
 
 def _appeared(target: Path) -> InputError:
-    return InputError(f"{target}: was created by another process while this command ran; nothing was "
-                      "replaced (use --force to replace it)")
+    return InputError(
+        f"{target}: was created by another process while this command ran; nothing was "
+        "replaced (use --force to replace it)"
+    )
 
 
 @contextmanager
-def atomic_output(target: str | Path, force: bool = False, kind: str = "dir",
-                  inputs: tuple[str | Path, ...] = ()) -> Iterator[Path]:
+def atomic_output(
+    target: str | Path, force: bool = False, kind: str = "dir", inputs: tuple[str | Path, ...] = ()
+) -> Iterator[Path]:
     """Yield a temporary path (a folder for kind="dir", a file path for kind="file") beside `target`.
 
     On success it is renamed to `target`; on any error it is removed and `target` is untouched.
@@ -130,8 +134,7 @@ def atomic_output(target: str | Path, force: bool = False, kind: str = "dir",
 
 
 @contextmanager
-def atomic_files(targets: list[Path], force: bool = False,
-                 inputs: tuple[str | Path, ...] = ()) -> Iterator[Path]:
+def atomic_files(targets: list[Path], force: bool = False, inputs: tuple[str | Path, ...] = ()) -> Iterator[Path]:
     """Yield a hidden temporary folder; the files written there under the targets' names are moved
     into place at the end (all targets share one folder). On any error nothing is moved."""
     parent = targets[0].parent

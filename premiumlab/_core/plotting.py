@@ -2,6 +2,7 @@
 
 matplotlib is imported lazily and only through its object interface (no pyplot, so no global state).
 """
+
 from __future__ import annotations
 
 from pathlib import Path
@@ -15,9 +16,7 @@ if TYPE_CHECKING:
     from matplotlib.axes import Axes
     from matplotlib.figure import Figure
 
-CAPTION = (
-    "Draft for review by a qualified actuary; rates must be filed and approved under local rate regulation."
-)
+CAPTION = "Draft for review by a qualified actuary; rates must be filed and approved under local rate regulation."
 ACTUAL_COLOUR = "#202020"
 MODEL_COLOURS = ["#2b6a99", "#c2582b", "#4d8c3a", "#7a5a9e", "#a08a2a", "#3a8f8f"]
 BAR_COLOUR = "#d9d9d9"

@@ -3,6 +3,7 @@
 Library code never prints: a job that has something to say as it goes (`fit`'s experience totals,
 the `demo`'s steps and their results) takes a `Progress` and the command line draws it.
 """
+
 from __future__ import annotations
 
 import sys
@@ -50,7 +51,14 @@ def progress_bar(description: str, total: int) -> Iterator[Callable[[], None]]:
     from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
 
     console = Console(stderr=True)
-    with Progress(TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(), TimeElapsedColumn(),
-                  console=console, transient=True, disable=not sys.stderr.isatty()) as bar:
+    with Progress(
+        TextColumn("{task.description}"),
+        BarColumn(),
+        MofNCompleteColumn(),
+        TimeElapsedColumn(),
+        console=console,
+        transient=True,
+        disable=not sys.stderr.isatty(),
+    ) as bar:
         task = bar.add_task(description, total=total)
         yield lambda: bar.advance(task)

@@ -46,7 +46,6 @@ def certificate_violations(run_dir: str | Path) -> list[str]:
     """Re-certify the run's constrained boosted models from their text files alone."""
     from premiumlab._core.jsonio import read_json
     from premiumlab.models.trees.certificate import certify
-
     from premiumlab.runs.rundir import RunDir, model_name
 
     run = RunDir(Path(run_dir))

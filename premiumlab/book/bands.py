@@ -1,4 +1,5 @@
 """Numeric bands: edges, labels and assignment (lower edge inclusive, upper exclusive)."""
+
 from __future__ import annotations
 
 import numpy as np

@@ -8,6 +8,7 @@ the next 16 bits (one histogram per distinct prefix, so at most n_bands - 1 of t
 the next distinct value above each u_j, which is the edge. `chunks()` must give the same
 (values, weights) chunks at every call: the book's values and exposures, read again each pass.
 """
+
 from __future__ import annotations
 
 from collections.abc import Callable, Iterable
@@ -53,7 +54,7 @@ def _histograms(chunks: Chunks, prefixes: set[int], level: int) -> dict[int, np.
 def book_quantile_edges(chunks: Chunks, n_bands: int) -> np.ndarray:
     """`bands.quantile_edges` of all the chunks' values and weights, in five passes (module doc)."""
     targets = np.arange(1, n_bands) / n_bands
-    prefix = [0] * len(targets)   # the settled high bits of each target's key
+    prefix = [0] * len(targets)  # the settled high bits of each target's key
     below = [0.0] * len(targets)  # the weight of the keys below that prefix
     total = None
     for level in range(LEVELS):

@@ -6,6 +6,7 @@ need into a tally: no repeated (policy, period) pair, claims somewhere, no one-l
 factors identical up to relabelling, thin and very many levels. `load_book` keeps the typed rows
 for `fit`; `validate` keeps only the tally, so its memory does not grow with the book.
 """
+
 from __future__ import annotations
 
 from collections.abc import Iterator
@@ -16,16 +17,16 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from premiumlab.book.bands import assign_bands, banded
-from premiumlab.book.quantiles import book_quantile_edges
 from premiumlab._core.cluster import TaskRunner
-from premiumlab.book.levels import cut_levels
-from premiumlab.book.reading import CHUNK_ROWS, book_parts, book_sha256, iter_book, read_columns, unreadable_parquet
-from premiumlab.book.rows import Book, Finding, FindingCollector, TypedChunk, as_text, check_chunk, to_number
-from premiumlab.book.split import holdout_flags
 from premiumlab._core.errors import InputError
 from premiumlab._core.progress import progress_bar
+from premiumlab.book.bands import assign_bands, banded
+from premiumlab.book.levels import cut_levels
+from premiumlab.book.quantiles import book_quantile_edges
+from premiumlab.book.reading import CHUNK_ROWS, book_parts, book_sha256, iter_book, read_columns, unreadable_parquet
+from premiumlab.book.rows import Book, Finding, FindingCollector, TypedChunk, as_text, check_chunk, to_number
 from premiumlab.book.spec import Factor, Spec
+from premiumlab.book.split import holdout_flags
 
 #: A level or band holding less than this share of the exposure is reported as thin.
 THIN_LEVEL_SHARE = 0.005
@@ -55,7 +56,7 @@ class LevelSums:
     values: np.ndarray
     sums: np.ndarray  # shape (len(values), len(SUMS))
 
-    def merged(self, values: np.ndarray, sums: np.ndarray) -> "LevelSums":
+    def merged(self, values: np.ndarray, sums: np.ndarray) -> LevelSums:
         """These sums plus those of more distinct `values` (which may repeat ours)."""
         uniq, inv = _sorted_codes(np.concatenate([self.values, values]))
         return LevelSums(uniq, _sums_by(inv, np.concatenate([self.sums, sums]), len(uniq)))
@@ -63,8 +64,7 @@ class LevelSums:
 
 def _sums_by(codes: np.ndarray, weights: np.ndarray, k: int) -> np.ndarray:
     """Column sums of `weights` (rows x columns) per code 0..k-1: shape (k, columns)."""
-    return np.column_stack([np.bincount(codes, weights=weights[:, j], minlength=k)
-                            for j in range(weights.shape[1])])
+    return np.column_stack([np.bincount(codes, weights=weights[:, j], minlength=k) for j in range(weights.shape[1])])
 
 
 @dataclass
@@ -106,17 +106,19 @@ class _Tally:
         self.spec = spec
         self.totals = np.zeros(len(SUMS))
         self.levels: dict[str, LevelSums] = {f.name: _no_sums(f) for f in spec.factors}
-        self.spread: dict[str, tuple[float, float]] = {f.name: (np.inf, -np.inf) for f in spec.factors
-                                                       if f.type == "numeric"}
+        self.spread: dict[str, tuple[float, float]] = {
+            f.name: (np.inf, -np.inf) for f in spec.factors if f.type == "numeric"
+        }
         names = spec.factor_names
         # distinct (a, b) level pairs; None once some level of one meets two levels of the other
         self.pairs: dict[tuple[str, str], pd.DataFrame | None] = {
-            (a, b): pd.DataFrame({"a": [], "b": []}) for i, a in enumerate(names) for b in names[i + 1:]}
+            (a, b): pd.DataFrame({"a": [], "b": []}) for i, a in enumerate(names) for b in names[i + 1 :]
+        }
         self.seen_keys: list[np.ndarray] = []
         self.repeat_hashes: list[np.ndarray] = []
 
     @classmethod
-    def of_chunk(cls, spec: Spec, t: TypedChunk) -> "_Tally":
+    def of_chunk(cls, spec: Spec, t: TypedChunk) -> _Tally:
         """The tally of one typed chunk."""
         tally = cls(spec)
         weights = _row_weights(t.exposure, t.count, t.amount)
@@ -142,7 +144,7 @@ class _Tally:
             tally.repeat_hashes = [np.unique(keys[repeat])] if repeat.any() else []
         return tally
 
-    def merge(self, later: "_Tally") -> None:
+    def merge(self, later: _Tally) -> None:
         """Add the tally of the rows that follow these in the book."""
         self.totals += later.totals
         for f in self.spec.factors:
@@ -156,8 +158,11 @@ class _Tally:
                 self.spread[f.name] = (min(low, their_low), max(high, their_high))
         for key, pairs in self.pairs.items():
             theirs = later.pairs[key]
-            self.pairs[key] = None if pairs is None or theirs is None else _one_to_one(
-                pd.concat([pairs, theirs], ignore_index=True).drop_duplicates(ignore_index=True))
+            self.pairs[key] = (
+                None
+                if pairs is None or theirs is None
+                else _one_to_one(pd.concat([pairs, theirs], ignore_index=True).drop_duplicates(ignore_index=True))
+            )
         for keys in later.seen_keys:
             for seen in self.seen_keys:
                 hit = seen[np.minimum(np.searchsorted(seen, keys), len(seen) - 1)] == keys
@@ -178,8 +183,9 @@ def _key_hashes(policy: np.ndarray, period: np.ndarray) -> np.ndarray:
 def _no_sums(f: Factor) -> LevelSums:
     """Empty sums for factor `f`: no values, or one zero row per band for a numeric factor with `bands`."""
     if f.type == "numeric" and f.bands is not None:
-        return LevelSums(np.concatenate([[-np.inf], np.asarray(f.bands, dtype=float)]),
-                         np.zeros((len(f.bands) + 1, len(SUMS))))
+        return LevelSums(
+            np.concatenate([[-np.inf], np.asarray(f.bands, dtype=float)]), np.zeros((len(f.bands) + 1, len(SUMS)))
+        )
     return LevelSums(np.array([], dtype=float if f.type == "numeric" else object), np.zeros((0, len(SUMS))))
 
 
@@ -237,15 +243,20 @@ def _book_checks(tally: _Tally, path: Path, out: FindingCollector) -> None:
             out.note("error", f.name, f"factor '{f.name}' has one level only ({single}); it cannot be rated")
         if f.type == "categorical":
             if k > MANY_LEVELS:
-                out.note("warning", f.name, f"factor '{f.name}' has {k} levels (more than "
-                                            f"{MANY_LEVELS}); consider grouping")
+                out.note(
+                    "warning", f.name, f"factor '{f.name}' has {k} levels (more than {MANY_LEVELS}); consider grouping"
+                )
             total = lv.sums[:, 1].sum()
             if total > 0:
                 share = lv.sums[:, 1] / total
                 thin = [str(u) for u, s in zip(lv.values, share) if s < THIN_LEVEL_SHARE]
                 if thin:
-                    out.note("warning", f.name, f"factor '{f.name}': {len(thin)} thin level(s) under "
-                                                f"{THIN_LEVEL_SHARE:.1%} of exposure: {', '.join(thin[:8])}")
+                    out.note(
+                        "warning",
+                        f.name,
+                        f"factor '{f.name}': {len(thin)} thin level(s) under "
+                        f"{THIN_LEVEL_SHARE:.1%} of exposure: {', '.join(thin[:8])}",
+                    )
     for (a, b), pairs in tally.pairs.items():  # still one to one: as many levels of a as of b as pairs
         if pairs is not None and len(pairs) >= 2:
             out.note("error", b, f"factors '{a}' and '{b}' are identical up to relabelling; keep one of them")
@@ -254,25 +265,33 @@ def _book_checks(tally: _Tally, path: Path, out: FindingCollector) -> None:
 def _concat(parts: list[TypedChunk]) -> TypedChunk:
     """One `TypedChunk` from the chunks' parts, column by column, releasing each part's column once it is
     copied (so the book is held about once, not twice)."""
+
     def cat(holders: list, name: str):
         vals = [h[name] if isinstance(h, dict) else getattr(h, name) for h in holders]
         for h in holders:
             h.pop(name) if isinstance(h, dict) else setattr(h, name, None)
         return None if vals[0] is None else np.concatenate(vals)
+
     factors = {k: cat([p.factors for p in parts], k) for k in list(parts[0].factors)}
-    return TypedChunk(*(cat(parts, name) for name in ("exposure", "count", "amount", "premium")), factors,
-                  cat(parts, "policy"), cat(parts, "period"))
+    return TypedChunk(
+        *(cat(parts, name) for name in ("exposure", "count", "amount", "premium")),
+        factors,
+        cat(parts, "policy"),
+        cat(parts, "period"),
+    )
 
 
 def parquet_slices(path: str | Path, chunk_rows: int = CHUNK_ROWS) -> list[tuple[str, list[int], int]]:
     """(file, row groups, first row) of each slice of about `chunk_rows` rows of a Parquet book (a
     file or a folder of parts), in book order; a slice never splits a row group."""
     import pyarrow.parquet as pq
+
     slices, offset = [], 0
     kind, parts = book_parts(Path(path))
     if kind == "csv":
-        raise InputError(f"{path}: a CSV book is read in one process; convert it to Parquet to "
-                         "validate it on a cluster")
+        raise InputError(
+            f"{path}: a CSV book is read in one process; convert it to Parquet to validate it on a cluster"
+        )
     for part in parts:
         try:
             meta = pq.ParquetFile(part).metadata
@@ -291,6 +310,7 @@ def parquet_slices(path: str | Path, chunk_rows: int = CHUNK_ROWS) -> list[tuple
 def _scan_slice(job: tuple[Spec, list[str]], piece: tuple[str, list[int], int]) -> tuple[FindingCollector, _Tally]:
     """Check one slice of a Parquet book (run here or on a Dask worker): its findings and tally."""
     import pyarrow.parquet as pq
+
     spec, needed = job
     file, groups, offset = piece
     try:
@@ -301,8 +321,9 @@ def _scan_slice(job: tuple[Spec, list[str]], piece: tuple[str, list[int], int]) 
     return out, _Tally.of_chunk(spec, check_chunk(chunk, offset, spec, out))
 
 
-def scan_book(path: str | Path, spec: Spec, keep_rows: bool = True, chunk_rows: int = CHUNK_ROWS,
-              runner: TaskRunner | None = None) -> tuple[TypedChunk | None, BookSummary, list[Finding]]:
+def scan_book(
+    path: str | Path, spec: Spec, keep_rows: bool = True, chunk_rows: int = CHUNK_ROWS, runner: TaskRunner | None = None
+) -> tuple[TypedChunk | None, BookSummary, list[Finding]]:
     """Read the whole book chunk by chunk, typing it and collecting every finding.
 
     Returns (the typed book, or None with `keep_rows=False`; the summed summary; the findings).
@@ -318,8 +339,9 @@ def scan_book(path: str | Path, spec: Spec, keep_rows: bool = True, chunk_rows: 
         hint = ""
         if len(header) == 1 and any(sep in header[0] for sep in (";", "\t", "|")):
             hint = " (the header is one column: is the delimiter a comma?)"
-        raise InputError(f"{p}: missing column{'s' if len(missing) > 1 else ''} "
-                         f"{', '.join(repr(m) for m in missing)}{hint}")
+        raise InputError(
+            f"{p}: missing column{'s' if len(missing) > 1 else ''} {', '.join(repr(m) for m in missing)}{hint}"
+        )
     out = FindingCollector(str(p))
     tally = _Tally(spec)
     parts = []
@@ -350,16 +372,23 @@ def load_book(path: str | Path, spec: Spec) -> Book:
     n = len(typed.exposure)
     policy = typed.policy if typed.policy is not None else np.arange(n).astype(str).astype(object)
     frame = pd.DataFrame({f.name: typed.factors[f.name] for f in spec.factors})
-    return Book(path=str(path), frame=frame, exposure=typed.exposure, claim_count=typed.count,
-                claim_amount=typed.amount, current_premium=typed.premium, policy=policy,
-                holdout=holdout_flags(policy, spec.split.seed, spec.split.holdout),
-                sha256=book_sha256(path), warnings=[f for f in findings if f.level == "warning"])
+    return Book(
+        path=str(path),
+        frame=frame,
+        exposure=typed.exposure,
+        claim_count=typed.count,
+        claim_amount=typed.amount,
+        current_premium=typed.premium,
+        policy=policy,
+        holdout=holdout_flags(policy, spec.split.seed, spec.split.holdout),
+        sha256=book_sha256(path),
+        warnings=[f for f in findings if f.level == "warning"],
+    )
 
 
-
-
-def with_quantile_bands(path: str | Path, spec: Spec, summary: BookSummary, chunk_rows: int = CHUNK_ROWS
-                        ) -> tuple[Spec, BookSummary]:
+def with_quantile_bands(
+    path: str | Path, spec: Spec, summary: BookSummary, chunk_rows: int = CHUNK_ROWS
+) -> tuple[Spec, BookSummary]:
     """Band the numeric factors that have no `bands`: their exposure-quantile edges over the whole
     book (`book_quantiles`: five reads of the factor and the exposure, memory independent of the
     distinct values), then their sums per band in one more read. Returns the spec with those
@@ -372,6 +401,7 @@ def with_quantile_bands(path: str | Path, spec: Spec, summary: BookSummary, chun
     def values_and_exposure(name: str) -> Iterator[tuple[np.ndarray, np.ndarray]]:
         for _, chunk in iter_book(path, [name, c.exposure], chunk_rows):
             yield to_number(chunk[name])[0], _usable_exposure(to_number(chunk[c.exposure])[0])
+
     banded_factors = {}
     for f in unbanded:
         edges = book_quantile_edges(partial(values_and_exposure, f.name), f.n_bands)
@@ -384,8 +414,7 @@ def with_quantile_bands(path: str | Path, spec: Spec, summary: BookSummary, chun
         amount = to_number(chunk[c.claim_amount])[0] if c.claim_amount else None
         weights = _row_weights(to_number(chunk[c.exposure])[0], to_number(chunk[c.claim_count])[0], amount)
         for name, f in banded_factors.items():
-            sums[name].sums += _sums_by(assign_bands(to_number(chunk[name])[0], f.bands), weights,
-                                        len(f.bands) + 1)
+            sums[name].sums += _sums_by(assign_bands(to_number(chunk[name])[0], f.bands), weights, len(f.bands) + 1)
     levels.update(sums)
     return banded, replace(summary, levels=levels)
 
@@ -412,9 +441,14 @@ def profile(summary: BookSummary, spec: Spec) -> dict[str, pd.DataFrame]:
 def _profile_table(sums: np.ndarray, index: pd.Index, has_amount: bool) -> pd.DataFrame:
     """One profile table from summed (rows, exposure, claims, amount); groups with no rows are NaN."""
     empty = sums[:, 0] == 0
-    g = pd.DataFrame({"exposure": np.where(empty, np.nan, sums[:, 1]),
-                      "claims": np.where(empty, np.nan, sums[:, 2]),
-                      "amount": np.where(empty | (not has_amount), np.nan, sums[:, 3])}, index=index)
+    g = pd.DataFrame(
+        {
+            "exposure": np.where(empty, np.nan, sums[:, 1]),
+            "claims": np.where(empty, np.nan, sums[:, 2]),
+            "amount": np.where(empty | (not has_amount), np.nan, sums[:, 3]),
+        },
+        index=index,
+    )
     g["frequency"] = g["claims"] / g["exposure"]
     g["severity"] = g["amount"] / g["claims"]
     g["loss_cost"] = g["amount"] / g["exposure"]

@@ -6,6 +6,7 @@ types and impossible options are refused with an `InputError` naming the file an
 `premiumlab.book.gbm_options.GbmOptions`, the [loadings] section into the table format's
 `rating_tables.Loadings`.
 """
+
 from __future__ import annotations
 
 from collections.abc import Callable
@@ -25,8 +26,20 @@ FACTOR_TYPES = ("numeric", "categorical")
 #: Factor names refused by default: characteristics that rating law in many places forbids.
 #: A jurisdiction sets its own list in `[compliance] prohibited`.
 DEFAULT_PROHIBITED = (
-    "gender", "sex", "race", "ethnicity", "ethnic_origin", "colour", "color", "religion",
-    "nationality", "national_origin", "disability", "sexual_orientation", "genetic", "marital_status",
+    "gender",
+    "sex",
+    "race",
+    "ethnicity",
+    "ethnic_origin",
+    "colour",
+    "color",
+    "religion",
+    "nationality",
+    "national_origin",
+    "disability",
+    "sexual_orientation",
+    "genetic",
+    "marital_status",
 )
 
 
@@ -43,8 +56,7 @@ class Columns:
 
     def used(self) -> list[str]:
         """Every column name the spec maps, in a fixed order."""
-        names = [self.exposure, self.claim_count, self.claim_amount, self.policy_id, self.period,
-                 self.current_premium]
+        names = [self.exposure, self.claim_count, self.claim_amount, self.policy_id, self.period, self.current_premium]
         return [n for n in names if n is not None]
 
 
@@ -258,15 +270,17 @@ def _parse_factor(factors: TomlTable, name: str) -> Factor:
             if len(levels) < 2:
                 raise t.error("levels", "needs at least two levels")
         if monotone != Monotone.NONE and levels is None:
-            raise t.error("monotone", f": a monotone promise needs an order, but '{name}' is an unordered "
-                                      f"categorical; give its `levels` in order")
+            raise t.error(
+                "monotone",
+                f": a monotone promise needs an order, but '{name}' is an unordered "
+                f"categorical; give its `levels` in order",
+            )
     named = {}
     for key in ("base", "fallback"):
         named[key] = None if t.value(key, None) is None else t.string(key)
         if named[key] is not None and levels is not None and named[key] not in levels:
             raise t.error(key, f"'{named[key]}' is not one of its levels")
-    return Factor(name=name, type=ftype, monotone=monotone, bands=bands, n_bands=n_bands, levels=levels,
-                  **named)
+    return Factor(name=name, type=ftype, monotone=monotone, bands=bands, n_bands=n_bands, levels=levels, **named)
 
 
 def _power(t: TomlTable, key: str, word: str) -> float | str:
@@ -324,28 +338,38 @@ def _text(t: TomlTable, key: str) -> str:
 
 
 def _parse_experience(doc: TomlTable, columns: Columns) -> Experience:
-    given = _section(doc, "experience", {
-        "large_loss_cap": lambda t, k: t.number(k, low=0.0, low_open=True),
-        "excess_load_history": lambda t, k: t.number(k, low=0.0, high=10.0),
-        "claims_file": _text,
-        "claims_amount_column": _text,
-        "catastrophe_column": _text,
-        "development": _rates_by_period,
-        "development_applies_to_counts": _boolean,
-        "trend": _trend,
-        "future_midpoint": lambda t, k: t.date(k),
-        "term_years": lambda t, k: t.number(k, low=0.0, high=10.0, low_open=True),
-        "period_midpoints": _dates_by_period,
-        "period_control": _boolean,
-    })
+    given = _section(
+        doc,
+        "experience",
+        {
+            "large_loss_cap": lambda t, k: t.number(k, low=0.0, low_open=True),
+            "excess_load_history": lambda t, k: t.number(k, low=0.0, high=10.0),
+            "claims_file": _text,
+            "claims_amount_column": _text,
+            "catastrophe_column": _text,
+            "development": _rates_by_period,
+            "development_applies_to_counts": _boolean,
+            "trend": _trend,
+            "future_midpoint": lambda t, k: t.date(k),
+            "term_years": lambda t, k: t.number(k, low=0.0, high=10.0, low_open=True),
+            "period_midpoints": _dates_by_period,
+            "period_control": _boolean,
+        },
+    )
     e = Experience(**given)
     needs = [  # (key, what it needs, whether that is there)
         ("large_loss_cap", "columns.claim_amount", columns.claim_amount is not None),
         ("excess_load_history", "experience.large_loss_cap", e.large_loss_cap is not None),
-        ("claims_file", "columns.policy_id and columns.claim_amount",
-         columns.policy_id is not None and columns.claim_amount is not None),
-        ("claims_file", "experience.large_loss_cap or experience.catastrophe_column",
-         e.large_loss_cap is not None or e.catastrophe_column is not None),
+        (
+            "claims_file",
+            "columns.policy_id and columns.claim_amount",
+            columns.policy_id is not None and columns.claim_amount is not None,
+        ),
+        (
+            "claims_file",
+            "experience.large_loss_cap or experience.catastrophe_column",
+            e.large_loss_cap is not None or e.catastrophe_column is not None,
+        ),
         ("claims_amount_column", "experience.claims_file", e.claims_file is not None),
         ("catastrophe_column", "experience.claims_file", e.claims_file is not None),
         ("development", "columns.period", columns.period is not None),
@@ -364,16 +388,20 @@ def _parse_experience(doc: TomlTable, columns: Columns) -> Experience:
 
 def _parse_gbm(doc: TomlTable, seed: int) -> GbmOptions:
     """The [gbm] section; the seed is the split's, the word "glm" for tweedie_power is None."""
-    given = _section(doc, "gbm", {
-        "folds": lambda t, k: t.integer(k, low=2),
-        "max_settings": lambda t, k: t.integer(k, low=1),
-        "threads": lambda t, k: t.integer(k, low=1),
-        "max_rounds": lambda t, k: t.integer(k, low=1),
-        "early_stopping_rounds": lambda t, k: t.integer(k, low=1),
-        "monotone_method": lambda t, k: t.string(k, choices=MONOTONE_METHODS),
-        "constrain_severity": _boolean,
-        "tweedie_power": lambda t, k: _power(t, k, "glm"),
-    })
+    given = _section(
+        doc,
+        "gbm",
+        {
+            "folds": lambda t, k: t.integer(k, low=2),
+            "max_settings": lambda t, k: t.integer(k, low=1),
+            "threads": lambda t, k: t.integer(k, low=1),
+            "max_rounds": lambda t, k: t.integer(k, low=1),
+            "early_stopping_rounds": lambda t, k: t.integer(k, low=1),
+            "monotone_method": lambda t, k: t.string(k, choices=MONOTONE_METHODS),
+            "constrain_severity": _boolean,
+            "tweedie_power": lambda t, k: _power(t, k, "glm"),
+        },
+    )
     if "threads" in given:
         given["num_threads"] = given.pop("threads")
     if given.get("tweedie_power") == "glm":
@@ -382,13 +410,17 @@ def _parse_gbm(doc: TomlTable, seed: int) -> GbmOptions:
 
 
 def _parse_loadings(doc: TomlTable) -> Loadings:
-    given = _section(doc, "loadings", {
-        "lae_ratio": lambda t, k: t.number(k, low=0.0, high=5.0),
-        "fixed_expense": lambda t, k: t.number(k, low=0.0),
-        "variable_expense": lambda t, k: t.number(k, low=0.0, high=1.0, high_open=True),
-        "profit": lambda t, k: t.number(k, low=0.0, high=1.0, high_open=True),
-        "minimum_premium": lambda t, k: t.number(k, low=0.0),
-    })
+    given = _section(
+        doc,
+        "loadings",
+        {
+            "lae_ratio": lambda t, k: t.number(k, low=0.0, high=5.0),
+            "fixed_expense": lambda t, k: t.number(k, low=0.0),
+            "variable_expense": lambda t, k: t.number(k, low=0.0, high=1.0, high_open=True),
+            "profit": lambda t, k: t.number(k, low=0.0, high=1.0, high_open=True),
+            "minimum_premium": lambda t, k: t.number(k, low=0.0),
+        },
+    )
     variable_and_profit = sum(given.get(k, getattr(Loadings, k)) for k in ("variable_expense", "profit"))
     if variable_and_profit >= 1.0:
         raise doc.error("loadings", f": variable_expense + profit must be below 1, got {variable_and_profit:g}")
@@ -422,44 +454,71 @@ def parse_spec(doc: dict, source: str = "spec") -> Spec:
         if f.name in columns.used():
             raise factors_table.error(f.name, f": '{f.name}' is also a column of [columns]")
 
-    compliance = Compliance(**_section(top, "compliance", {
-        "prohibited": lambda t, k: t.strings(k, what="a list of factor names"),
-        "jurisdiction": _text,
-    }))
+    compliance = Compliance(
+        **_section(
+            top,
+            "compliance",
+            {
+                "prohibited": lambda t, k: t.strings(k, what="a list of factor names"),
+                "jurisdiction": _text,
+            },
+        )
+    )
     banned = {p.lower() for p in compliance.prohibited}
     for f in factors:
         if f.name.lower() in banned:
-            raise factors_table.error(f.name, f": factor '{f.name}' is prohibited ([compliance] prohibited); "
-                                              f"factors prohibited by local law must not be used in rating, "
-                                              f"so this spec is refused")
+            raise factors_table.error(
+                f.name,
+                f": factor '{f.name}' is prohibited ([compliance] prohibited); "
+                f"factors prohibited by local law must not be used in rating, "
+                f"so this spec is refused",
+            )
 
-    split = Split(**_section(top, "split", {
-        "holdout": _holdout,
-        "seed": lambda t, k: t.integer(k, low=0),
-    }))
+    split = Split(
+        **_section(
+            top,
+            "split",
+            {
+                "holdout": _holdout,
+                "seed": lambda t, k: t.integer(k, low=0),
+            },
+        )
+    )
     if split.holdout == "latest_period":
         if columns.period is None:
             raise top.error("split.holdout", "'latest_period' needs columns.period")
         split = Split(holdout=0.0, seed=split.seed, out_of_time=True)
-    glm = GlmOptions(**_section(top, "glm", {
-        "engine": lambda t, k: t.string(k, choices=("auto", "cells", "rows")),
-        "tweedie_power": lambda t, k: _power(t, k, "auto"),
-    }))
+    glm = GlmOptions(
+        **_section(
+            top,
+            "glm",
+            {
+                "engine": lambda t, k: t.string(k, choices=("auto", "cells", "rows")),
+                "tweedie_power": lambda t, k: _power(t, k, "auto"),
+            },
+        )
+    )
     gbm = _parse_gbm(top, split.seed)
-    table = TableOptions(**_section(top, "table", {
-        "table_id": _text,
-        "effective_date": lambda t, k: t.date(k),
-        "exposure_unit": _text,
-        "max_bands": lambda t, k: t.integer(k, low=1),
-        "min_band_exposure": lambda t, k: t.number(k, low=0.0, high=0.5),
-        "interactions": _interactions,
-        "sample": lambda t, k: t.integer(k, low=100),
-        "grid_points": lambda t, k: t.integer(k, low=2),
-        "relativity_decimals": lambda t, k: t.integer(k, low=0),
-        "premium_decimals": lambda t, k: t.integer(k, low=0),
-        "target": lambda t, k: t.string(k, choices=("experience", "current_premium")),
-        "overall_change": lambda t, k: t.number(k, low=-0.9, high=10.0),
-    }))
+    table = TableOptions(
+        **_section(
+            top,
+            "table",
+            {
+                "table_id": _text,
+                "effective_date": lambda t, k: t.date(k),
+                "exposure_unit": _text,
+                "max_bands": lambda t, k: t.integer(k, low=1),
+                "min_band_exposure": lambda t, k: t.number(k, low=0.0, high=0.5),
+                "interactions": _interactions,
+                "sample": lambda t, k: t.integer(k, low=100),
+                "grid_points": lambda t, k: t.integer(k, low=2),
+                "relativity_decimals": lambda t, k: t.integer(k, low=0),
+                "premium_decimals": lambda t, k: t.integer(k, low=0),
+                "target": lambda t, k: t.string(k, choices=("experience", "current_premium")),
+                "overall_change": lambda t, k: t.number(k, low=-0.9, high=10.0),
+            },
+        )
+    )
     names = {f.name for f in factors}
     for i, (a, b) in enumerate(table.interactions):
         for n in (a, b):
@@ -469,8 +528,19 @@ def parse_spec(doc: dict, source: str = "spec") -> Spec:
         raise top.error("table.target", "is current_premium but columns.current_premium is not set")
     loadings = _parse_loadings(top)
     experience = _parse_experience(top, columns)
-    return Spec(columns=columns, factors=factors, split=split, glm=glm, gbm=gbm, table=table,
-                loadings=loadings, compliance=compliance, experience=experience, source=source, raw=doc)
+    return Spec(
+        columns=columns,
+        factors=factors,
+        split=split,
+        glm=glm,
+        gbm=gbm,
+        table=table,
+        loadings=loadings,
+        compliance=compliance,
+        experience=experience,
+        source=source,
+        raw=doc,
+    )
 
 
 def load_spec(path: str | Path) -> Spec:

@@ -1,4 +1,5 @@
 """`validate`: every finding in a book, and its profile per level or band."""
+
 from __future__ import annotations
 
 from dataclasses import dataclass
@@ -7,11 +8,11 @@ from pathlib import Path
 import pandas as pd
 
 from premiumlab._core.cautions import VALIDATION
-from premiumlab._core.jsonio import plain
 from premiumlab._core.cluster import parse_cluster, tasks_on
-from premiumlab.book.scan import parquet_slices, profile, scan_book, with_quantile_bands
+from premiumlab._core.jsonio import plain
 from premiumlab.book.reading import read_columns
 from premiumlab.book.rows import Finding
+from premiumlab.book.scan import parquet_slices, profile, scan_book, with_quantile_bands
 from premiumlab.book.spec import Spec, load_spec
 
 
@@ -35,11 +36,23 @@ class ValidationReport:
 
     def to_dict(self) -> dict:
         """The report as JSON-able data: each profile table as rows of its level and figures."""
-        profile = None if self.profile is None else {
-            name: table.rename_axis("level").reset_index().astype({"level": str}).to_dict(orient="records")
-            for name, table in self.profile.items()}
-        return plain({"path": self.path, "rows": self.rows, "findings": self.findings, "profile": profile,
-                      "cautions": self.cautions})
+        profile = (
+            None
+            if self.profile is None
+            else {
+                name: table.rename_axis("level").reset_index().astype({"level": str}).to_dict(orient="records")
+                for name, table in self.profile.items()
+            }
+        )
+        return plain(
+            {
+                "path": self.path,
+                "rows": self.rows,
+                "findings": self.findings,
+                "profile": profile,
+                "cautions": self.cautions,
+            }
+        )
 
 
 def validate_book(book_path: str | Path, spec_path: str | Path, cluster: str | None = None) -> ValidationReport:

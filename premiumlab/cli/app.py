@@ -271,9 +271,7 @@ def impact(
         str, typer.Option(help="Increases to count, comma separated (0.1 = 10 %).")
     ] = "0.05,0.10,0.25",
     out: Annotated[Path | None, typer.Option("--out", help="Also write the summary as JSON.")] = None,
-    figure: Annotated[
-        Path | None, typer.Option("--figure", help="Also write the dislocation figure (.png).")
-    ] = None,
+    figure: Annotated[Path | None, typer.Option("--figure", help="Also write the dislocation figure (.png).")] = None,
     force: Force = False,
 ) -> None:
     """Premium dislocation from the current to the proposed rates, optionally capped."""

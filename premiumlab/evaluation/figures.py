@@ -5,6 +5,7 @@ Each function takes tables already computed by `premiumlab.metrics` (or the CV t
 model, or an impact result) and an output path, draws with matplotlib's Agg canvas (imported lazily, no pyplot and so no
 global state) and returns the path. Every figure carries the review caution as a footer.
 """
+
 from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
@@ -27,6 +28,7 @@ from premiumlab._core.plotting import (
 
 if TYPE_CHECKING:
     pass
+
 
 def _require_columns(table: pd.DataFrame, columns: Sequence[str], what: str) -> None:
     missing = [c for c in columns if c not in table.columns]
@@ -106,9 +108,7 @@ def plot_lorenz(
     return save_figure(fig, path)
 
 
-def plot_actual_vs_expected(
-    tables: Mapping[str, pd.DataFrame], path: str | Path, *, factor: str
-) -> Path:
+def plot_actual_vs_expected(tables: Mapping[str, pd.DataFrame], path: str | Path, *, factor: str) -> Path:
     """Actual / expected per level of one factor, a line per model, over bars of exposure on a
     second axis (tables from `metrics.actual_vs_expected`, same levels in the same order)."""
     _require_models(tables, "plot_actual_vs_expected")
@@ -160,13 +160,25 @@ def plot_cv_curve(
     fig = new_figure()
     ax = fig.subplots()
     ax.errorbar(
-        table[complexity], table[mean], yerr=table[sd], fmt="o", color=model_colour(0),
-        ecolor="#8aa9c4", capsize=3, label="setting (mean +- 1 sd over folds)",
+        table[complexity],
+        table[mean],
+        yerr=table[sd],
+        fmt="o",
+        color=model_colour(0),
+        ecolor="#8aa9c4",
+        capsize=3,
+        label="setting (mean +- 1 sd over folds)",
     )
     best = table.iloc[chosen]
     ax.plot(
-        [best[complexity]], [best[mean]], "o", markersize=13, markerfacecolor="none",
-        markeredgecolor=model_colour(1), markeredgewidth=1.8, label="chosen",
+        [best[complexity]],
+        [best[mean]],
+        "o",
+        markersize=13,
+        markerfacecolor="none",
+        markeredgecolor=model_colour(1),
+        markeredgewidth=1.8,
+        label="chosen",
     )
     ax.set_xlabel(complexity)
     ax.set_ylabel("cross-validated mean deviance")
@@ -197,8 +209,7 @@ def plot_impact(result: Mapping[str, object], path: str | Path, *, factor: str |
     ax.set_xticklabels(bands["band"], rotation=40, ha="right", fontsize=8)
     ax.set_xlabel("change of premium, proposed / current - 1")
     ax.set_ylabel("share")
-    ax.set_title(f"Dislocation: {result['policies']:,} policies, overall {result['overall_change']:+.2%}",
-                 fontsize=11)
+    ax.set_title(f"Dislocation: {result['policies']:,} policies, overall {result['overall_change']:+.2%}", fontsize=11)
     ax.legend(frameon=False, fontsize=8)
     plain_axes(ax)
     if factor:
@@ -206,8 +217,12 @@ def plot_impact(result: Mapping[str, object], path: str | Path, *, factor: str |
         ax = axes[1]
         spots = np.arange(len(levels))
         ax.axhline(0.0, color="#999999", linewidth=0.8)
-        ax.bar(spots, levels["change"], width=0.7,
-               color=[model_colour(1) if c > 0 else model_colour(0) for c in levels["change"]])
+        ax.bar(
+            spots,
+            levels["change"],
+            width=0.7,
+            color=[model_colour(1) if c > 0 else model_colour(0) for c in levels["change"]],
+        )
         level_ticks(ax, spots, [str(v) for v in levels["level"]], fontsize=8)
         ax.set_xlabel(factor)
         ax.set_ylabel("premium-weighted mean change")

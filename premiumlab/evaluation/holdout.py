@@ -5,6 +5,7 @@ prediction, weight and deviance power: frequency (Poisson, power 1), severity (G
 pure premium (Tweedie at the GLM's power). Pure premium is also compared as frequency x severity
 against the direct Tweedie model.
 """
+
 from __future__ import annotations
 
 import numpy as np
@@ -32,6 +33,7 @@ def holdout_metrics(preds: pd.DataFrame, tweedie_power: float) -> dict:
     """Mean deviance, D^2, Gini and balance of every model column on the holdout rows."""
     from premiumlab.evaluation.metrics import balance, gini
     from premiumlab.models.deviance import d2, mean_deviance
+
     hold = preds[preds["holdout"]].reset_index(drop=True)
     out: dict[str, dict] = {}
     for target in TARGETS.values():
@@ -43,6 +45,9 @@ def holdout_metrics(preds: pd.DataFrame, tweedie_power: float) -> dict:
         for col in model_columns(hold, target.name):
             mu = hold.loc[mask, col].to_numpy(float)
             out[target.name]["models"][col] = {
-                "mean_deviance": mean_deviance(y, mu, weight, power), "d2": d2(y, mu, weight, power),
-                "gini": gini(actual, mu, weight), "balance": balance(actual, mu, weight)}
+                "mean_deviance": mean_deviance(y, mu, weight, power),
+                "d2": d2(y, mu, weight, power),
+                "gini": gini(actual, mu, weight),
+                "balance": balance(actual, mu, weight),
+            }
     return out

@@ -10,6 +10,7 @@ Conventions: `actual` is the observed loss (amount or count) of each row in mone
 `predicted` is a model's prediction per exposure unit (pure premium or frequency), `exposure` is
 earned exposure; a row's expected loss is `predicted * exposure`.
 """
+
 from __future__ import annotations
 
 from collections.abc import Callable
@@ -56,9 +57,7 @@ def _check_bins(bins: int, rows: int) -> None:
 # ordered Lorenz curve and Gini
 
 
-def _checked_loss_inputs(
-    actual: ArrayLike, exposure: ArrayLike, **predictions: ArrayLike
-) -> list[np.ndarray]:
+def _checked_loss_inputs(actual: ArrayLike, exposure: ArrayLike, **predictions: ArrayLike) -> list[np.ndarray]:
     """[actual, exposure, *predictions], validated: losses >= 0 with a positive total, exposure >= 0."""
     arrays = checked_arrays(actual=actual, exposure=exposure, **predictions)
     _require_positive_total("actual", arrays[0])
@@ -146,9 +145,7 @@ def _ratio(numerator: np.ndarray, denominator: np.ndarray) -> np.ndarray:
     return out
 
 
-def lift_table(
-    actual: ArrayLike, predicted: ArrayLike, exposure: ArrayLike, bins: int = 10
-) -> pd.DataFrame:
+def lift_table(actual: ArrayLike, predicted: ArrayLike, exposure: ArrayLike, bins: int = 10) -> pd.DataFrame:
     """Lift by equal-exposure bins of predicted per exposure (bin 1 = lowest prediction).
 
     Rows are assigned by their cumulative-exposure midpoint (see `_equal_exposure_bins`); tied
@@ -160,9 +157,7 @@ def lift_table(
     actual_arr, exposure_arr, predicted_arr = _checked_loss_inputs(actual, exposure, predicted=predicted)
     _check_bins(bins, actual_arr.size)
     bin_index = _equal_exposure_bins(predicted_arr, exposure_arr, bins)
-    sums = _bin_sums(
-        bin_index, bins, exposure=exposure_arr, expected=predicted_arr * exposure_arr, actual=actual_arr
-    )
+    sums = _bin_sums(bin_index, bins, exposure=exposure_arr, expected=predicted_arr * exposure_arr, actual=actual_arr)
     mean_actual = _ratio(sums["actual"], sums["exposure"])
     return pd.DataFrame(
         {
@@ -188,9 +183,7 @@ def double_lift(
     total. The model whose index tracks `actual_index` more closely ranks risks better.
     `mean_ratio` is the exposure-weighted mean of pred_a / pred_b in the bin.
     """
-    actual_arr, exposure_arr, a_arr, b_arr = _checked_loss_inputs(
-        actual, exposure, pred_a=pred_a, pred_b=pred_b
-    )
+    actual_arr, exposure_arr, a_arr, b_arr = _checked_loss_inputs(actual, exposure, pred_a=pred_a, pred_b=pred_b)
     sorted_by_ratio = ABOVE_ZERO.because("double lift sorts by pred_a / pred_b")
     checked_array("pred_a", a_arr, sorted_by_ratio)
     checked_array("pred_b", b_arr, sorted_by_ratio)
@@ -252,8 +245,10 @@ def actual_vs_expected(
     )
     grouped = frame.groupby("level", sort=True, observed=True)
     table = grouped.agg(
-        policies=("exposure", "size"), exposure=("exposure", "sum"),
-        actual=("actual", "sum"), expected=("expected", "sum"),
+        policies=("exposure", "size"),
+        exposure=("exposure", "sum"),
+        actual=("actual", "sum"),
+        expected=("expected", "sum"),
     ).reset_index()
     table["actual_to_expected"] = _ratio(table["actual"].to_numpy(), table["expected"].to_numpy())
     return table
@@ -373,8 +368,7 @@ def deviance_difference(
     """mean_deviance(a) - mean_deviance(b) with a paired bootstrap interval (> 0: b fits better).
     `groups` (e.g. policy ids) resamples whole groups of rows together."""
     y_arr, w_arr, mu_a_arr, mu_b_arr = checked_deviance_inputs(y, weight, power, mu_a=mu_a, mu_b=mu_b)
-    unit_difference = (unit_deviance_unchecked(y_arr, mu_a_arr, power)
-                       - unit_deviance_unchecked(y_arr, mu_b_arr, power))
+    unit_difference = unit_deviance_unchecked(y_arr, mu_a_arr, power) - unit_deviance_unchecked(y_arr, mu_b_arr, power)
     return paired_bootstrap(
         _weighted_mean_difference, w_arr * unit_difference, w_arr, n_boot=n_boot, seed=seed, groups=groups
     )
@@ -404,10 +398,14 @@ def gini_difference(
 ) -> BootstrapInterval:
     """gini(a) - gini(b) with a paired bootstrap interval (> 0: a ranks risks better).
     `groups` (e.g. policy ids) resamples whole groups of rows together."""
-    actual_arr, exposure_arr, a_arr, b_arr = _checked_loss_inputs(
-        actual, exposure, pred_a=pred_a, pred_b=pred_b
-    )
+    actual_arr, exposure_arr, a_arr, b_arr = _checked_loss_inputs(actual, exposure, pred_a=pred_a, pred_b=pred_b)
     return paired_bootstrap(
-        _gini_difference_batch, actual_arr, a_arr, b_arr, exposure_arr,
-        n_boot=n_boot, seed=seed, groups=groups,
+        _gini_difference_batch,
+        actual_arr,
+        a_arr,
+        b_arr,
+        exposure_arr,
+        n_boot=n_boot,
+        seed=seed,
+        groups=groups,
     )

@@ -17,6 +17,7 @@ total: capping and the loads move amounts between policies, never the level.
 Pure functions on arrays come first; the readers of the period column, the development CSV and the
 claims file (the edges) come last.
 """
+
 from __future__ import annotations
 
 import datetime as dt
@@ -37,6 +38,7 @@ _FALSE = ("0", "false", "no", "n", "f", "")
 # --------------------------------------------------------------------------------------------
 # time and trend
 
+
 def year_fraction(day: dt.date) -> float:
     """A date as a fractional year: year + (days since 1 January) / days in that year."""
     start = dt.date(day.year, 1, 1)
@@ -51,8 +53,10 @@ def period_midpoint(label: str, given: Mapping[str, str]) -> float:
         return year_fraction(dt.date.fromisoformat(given[label]))
     if len(label) == 4 and label.isdigit():
         return int(label) + 0.5
-    raise InputError(f"experience.period_midpoints: no midpoint for period '{label}' (only four-digit year "
-                     f"labels have one by default); add it as a date")
+    raise InputError(
+        f"experience.period_midpoints: no midpoint for period '{label}' (only four-digit year "
+        f"labels have one by default); add it as a date"
+    )
 
 
 def future_midpoint(exp: Experience, effective_date: str) -> float:
@@ -77,6 +81,7 @@ def trend_factor(years: np.ndarray, rate: float) -> np.ndarray:
 
 # --------------------------------------------------------------------------------------------
 # large losses and loads
+
 
 def cap_losses(amount: np.ndarray, cap: float | None) -> tuple[np.ndarray, np.ndarray]:
     """(capped, excess): min(amount, cap) and amount - capped; no cap leaves amounts whole."""
@@ -120,8 +125,16 @@ class Adjustment:
         return self.count_base * self.count_multiplier
 
 
-def adjust(exp: Experience, periods: np.ndarray, count: np.ndarray, amount: np.ndarray, train: np.ndarray,
-           future: float, development: Mapping[str, float], claims: Claims | None = None) -> Adjustment:
+def adjust(
+    exp: Experience,
+    periods: np.ndarray,
+    count: np.ndarray,
+    amount: np.ndarray,
+    train: np.ndarray,
+    future: float,
+    development: Mapping[str, float],
+    claims: Claims | None = None,
+) -> Adjustment:
     """Apply the adjustments of the module docstring to the rows of a book.
 
     periods: the period label of each row (None-free strings; ignored without trend and development);
@@ -167,65 +180,114 @@ def adjust(exp: Experience, periods: np.ndarray, count: np.ndarray, amount: np.n
     multiplier = (count_dev * freq_trend)[code]
     record = _record(exp, labels, code, years, dev, count_dev, sev_trend, freq_trend, future, development)
     record["large_losses"] = {
-        "cap": exp.large_loss_cap, "basis": "per claim" if claims is not None else "per row total",
-        "losses_capped": int((excess_units > 0).sum()), "excess_training": float(excess[tr].sum()),
-        "capped_training": float(capped[tr].sum()), "excess_load_measured": measured_excess,
+        "cap": exp.large_loss_cap,
+        "basis": "per claim" if claims is not None else "per row total",
+        "losses_capped": int((excess_units > 0).sum()),
+        "excess_training": float(excess[tr].sum()),
+        "capped_training": float(capped[tr].sum()),
+        "excess_load_measured": measured_excess,
         "excess_load": float(excess_load),
-        "excess_load_from": "experience.excess_load_history" if exp.excess_load_history is not None
-        else "training rows"}
-    record["catastrophe"] = {"column": exp.catastrophe_column, "claims": int(cat.sum()),
-                             "amount_training": float(catastrophe[tr].sum()), "load": cat_load}
+        "excess_load_from": "experience.excess_load_history"
+        if exp.excess_load_history is not None
+        else "training rows",
+    }
+    record["catastrophe"] = {
+        "column": exp.catastrophe_column,
+        "claims": int(cat.sum()),
+        "amount_training": float(catastrophe[tr].sum()),
+        "load": cat_load,
+    }
     developed = capped + excess + catastrophe
-    record["totals"] = {name: _totals(rows, count, amount, developed, count_base * multiplier, adjusted)
-                        for name, rows in (("training", tr), ("all", np.ones(n, dtype=bool)))}
+    record["totals"] = {
+        name: _totals(rows, count, amount, developed, count_base * multiplier, adjusted)
+        for name, rows in (("training", tr), ("all", np.ones(n, dtype=bool)))
+    }
     return Adjustment(count_base, multiplier, adjusted, record)
 
 
 def _check_counts(count_base: np.ndarray, amount: np.ndarray, cat_claims: np.ndarray) -> None:
     bad = np.flatnonzero(count_base < 0)
     if bad.size:
-        raise InputError(f"experience.catastrophe_column: book row {bad[0]} has {cat_claims[bad[0]]} catastrophe "
-                         f"claims, more than its claim count")
+        raise InputError(
+            f"experience.catastrophe_column: book row {bad[0]} has {cat_claims[bad[0]]} catastrophe "
+            f"claims, more than its claim count"
+        )
     bad = np.flatnonzero((count_base == 0) & (amount > 0))
     if bad.size:
-        raise InputError(f"experience.catastrophe_column: book row {bad[0]} keeps an amount of "
-                         f"{amount[bad[0]]:.2f} outside catastrophes but no claim once its "
-                         f"{cat_claims[bad[0]]} catastrophe claim(s) are taken out of its count")
+        raise InputError(
+            f"experience.catastrophe_column: book row {bad[0]} keeps an amount of "
+            f"{amount[bad[0]]:.2f} outside catastrophes but no claim once its "
+            f"{cat_claims[bad[0]]} catastrophe claim(s) are taken out of its count"
+        )
 
 
-def _totals(rows: np.ndarray, count: np.ndarray, amount: np.ndarray, developed: np.ndarray,
-            count_adjusted: np.ndarray, adjusted: np.ndarray) -> dict:
-    return {"rows": int(rows.sum()), "count_observed": float(np.sum(count[rows])),
-            "amount_observed": float(np.sum(amount[rows])),
-            "amount_developed_trended": float(developed[rows].sum()),
-            "count_adjusted": float(count_adjusted[rows].sum()), "amount_adjusted": float(adjusted[rows].sum())}
+def _totals(
+    rows: np.ndarray,
+    count: np.ndarray,
+    amount: np.ndarray,
+    developed: np.ndarray,
+    count_adjusted: np.ndarray,
+    adjusted: np.ndarray,
+) -> dict:
+    return {
+        "rows": int(rows.sum()),
+        "count_observed": float(np.sum(count[rows])),
+        "amount_observed": float(np.sum(amount[rows])),
+        "amount_developed_trended": float(developed[rows].sum()),
+        "count_adjusted": float(count_adjusted[rows].sum()),
+        "amount_adjusted": float(adjusted[rows].sum()),
+    }
 
 
-def _record(exp: Experience, labels: np.ndarray, code: np.ndarray, years: np.ndarray, dev: np.ndarray,
-            count_dev: np.ndarray, sev: np.ndarray, freq: np.ndarray, future: float,
-            development: Mapping[str, float]) -> dict:
+def _record(
+    exp: Experience,
+    labels: np.ndarray,
+    code: np.ndarray,
+    years: np.ndarray,
+    dev: np.ndarray,
+    count_dev: np.ndarray,
+    sev: np.ndarray,
+    freq: np.ndarray,
+    future: float,
+    development: Mapping[str, float],
+) -> dict:
     rows = np.bincount(code, minlength=len(labels))
-    periods = {str(p): {"rows": int(rows[i]), "years_to_future": float(years[i]),
-                        "development": float(dev[i]), "count_development": float(count_dev[i]),
-                        "severity_trend": float(sev[i]), "frequency_trend": float(freq[i]),
-                        "amount_multiplier": float(sev[i] * freq[i] * dev[i]),
-                        "count_multiplier": float(freq[i] * count_dev[i])}
-               for i, p in enumerate(labels)}
-    return {"format": "premiumlab.experience", "version": 1,
-            "order": "severity trend, cap (catastrophe claims set aside), development and frequency trend, "
-                     "flat excess and catastrophe loads measured on the training rows",
-            "applied": applied(exp), "not_applied": not_applied(exp),
-            "trend": dict(exp.trend), "future_midpoint_year": future if exp.trend else None,
-            "development_table": {str(k): float(v) for k, v in development.items()},
-            "development_applies_to_counts": exp.development_applies_to_counts, "periods": periods}
+    periods = {
+        str(p): {
+            "rows": int(rows[i]),
+            "years_to_future": float(years[i]),
+            "development": float(dev[i]),
+            "count_development": float(count_dev[i]),
+            "severity_trend": float(sev[i]),
+            "frequency_trend": float(freq[i]),
+            "amount_multiplier": float(sev[i] * freq[i] * dev[i]),
+            "count_multiplier": float(freq[i] * count_dev[i]),
+        }
+        for i, p in enumerate(labels)
+    }
+    return {
+        "format": "premiumlab.experience",
+        "version": 1,
+        "order": "severity trend, cap (catastrophe claims set aside), development and frequency trend, "
+        "flat excess and catastrophe loads measured on the training rows",
+        "applied": applied(exp),
+        "not_applied": not_applied(exp),
+        "trend": dict(exp.trend),
+        "future_midpoint_year": future if exp.trend else None,
+        "development_table": {str(k): float(v) for k, v in development.items()},
+        "development_applies_to_counts": exp.development_applies_to_counts,
+        "periods": periods,
+    }
 
 
 def applied(exp: Experience) -> list[str]:
     """The adjustments the spec sets, in words."""
     out = []
     if exp.development:
-        out.append("developed to ultimate by period" + (" (amounts and counts)" if exp.development_applies_to_counts
-                                                       else " (amounts)"))
+        out.append(
+            "developed to ultimate by period"
+            + (" (amounts and counts)" if exp.development_applies_to_counts else " (amounts)")
+        )
     if exp.trend:
         rates = ", ".join(f"{k} {v:.2%} a year" for k, v in sorted(exp.trend.items()))
         out.append(f"trended to the future policy period ({rates})")
@@ -265,18 +327,19 @@ def latest_period_holdout(periods: np.ndarray) -> np.ndarray:
     labels = np.asarray(periods, dtype=object).astype(str)
     order = period_order(labels.tolist())
     if len(order) < 2:
-        raise InputError(f"split.holdout: 'latest_period' needs at least two periods, the book has one "
-                         f"('{order[0]}')")
+        raise InputError(f"split.holdout: 'latest_period' needs at least two periods, the book has one ('{order[0]}')")
     return labels == order[-1]
 
 
 # --------------------------------------------------------------------------------------------
 # the edges: reading the period column, the development CSV and the claims file
 
+
 def read_text_column(path: str | Path, column: str) -> np.ndarray:
     """One column of a book as strings typed the way the book's levels are ("01" stays "01")."""
     from premiumlab.book.reading import iter_book
     from premiumlab.book.rows import as_text
+
     return np.concatenate([as_text(chunk[column]) for _, chunk in iter_book(path, [column])])
 
 
@@ -310,17 +373,18 @@ def _flags(values: np.ndarray, path: Path, column: str) -> np.ndarray:
     lower = pd.Series(values, dtype=object).str.lower()
     bad = np.flatnonzero(~lower.isin(_TRUE + _FALSE).to_numpy())
     if bad.size:
-        raise InputError(f"{path}: column '{column}', row {bad[0]}: {values[bad[0]]!r} is not a flag "
-                         f"(true/false, yes/no or 1/0)")
+        raise InputError(
+            f"{path}: column '{column}', row {bad[0]}: {values[bad[0]]!r} is not a flag (true/false, yes/no or 1/0)"
+        )
     return lower.isin(_TRUE).to_numpy()
 
 
-def read_claims(path: Path, spec: Spec, policy: np.ndarray, period: np.ndarray | None,
-                amount: np.ndarray) -> Claims:
+def read_claims(path: Path, spec: Spec, policy: np.ndarray, period: np.ndarray | None, amount: np.ndarray) -> Claims:
     """Read the claims file, match each claim to its book row by policy (and period) and check that
     the claims of every row add up to the row's amount."""
     from premiumlab.book.reading import iter_book, read_columns
     from premiumlab.book.rows import as_text
+
     c, exp = spec.columns, spec.experience
     if not path.exists():
         raise InputError(f"{path}: claims file not found (experience.claims_file)")
@@ -335,19 +399,26 @@ def read_claims(path: Path, spec: Spec, policy: np.ndarray, period: np.ndarray |
     frame = pd.concat(chunks, ignore_index=True) if chunks else pd.DataFrame(columns=wanted)
     text = {k: as_text(frame[k]) for k in keys}
     values = pd.to_numeric(frame[amount_col].astype("string").str.strip(), errors="coerce").to_numpy(
-        dtype=float, na_value=np.nan)
+        dtype=float, na_value=np.nan
+    )
     bad = np.flatnonzero(~(np.isfinite(values) & (values >= 0)))
     if bad.size:
-        raise InputError(f"{path}: column '{amount_col}', row {bad[0]}: {frame[amount_col].iloc[bad[0]]!r} is not "
-                         f"an amount >= 0")
-    cat = (_flags(as_text(frame[exp.catastrophe_column]), path, exp.catastrophe_column) if exp.catastrophe_column
-           else np.zeros(len(frame), dtype=bool))
+        raise InputError(
+            f"{path}: column '{amount_col}', row {bad[0]}: {frame[amount_col].iloc[bad[0]]!r} is not an amount >= 0"
+        )
+    cat = (
+        _flags(as_text(frame[exp.catastrophe_column]), path, exp.catastrophe_column)
+        if exp.catastrophe_column
+        else np.zeros(len(frame), dtype=bool)
+    )
     book_keys = [policy] + ([period] if c.period else [])
     index = pd.MultiIndex.from_arrays([np.asarray(k, dtype=object) for k in book_keys])
     if not index.is_unique:
         first = int(np.flatnonzero(index.duplicated())[0])
-        raise InputError(f"{path}: policy '{policy[first]}' has several book rows; name columns.period so that "
-                         f"claims can be matched to rows")
+        raise InputError(
+            f"{path}: policy '{policy[first]}' has several book rows; name columns.period so that "
+            f"claims can be matched to rows"
+        )
     row = index.get_indexer(pd.MultiIndex.from_arrays([text[k] for k in keys]))
     unknown = np.flatnonzero(row < 0)
     if unknown.size:
@@ -357,13 +428,22 @@ def read_claims(path: Path, spec: Spec, policy: np.ndarray, period: np.ndarray |
     off = np.flatnonzero(np.abs(total - amount) > 0.005 + 1e-9 * np.abs(amount))
     if off.size:
         r = off[0]
-        raise InputError(f"{path}: the claims of book row {r} (policy '{policy[r]}') add up to {total[r]:.2f}, but "
-                         f"the book's '{c.claim_amount}' is {amount[r]:.2f}")
+        raise InputError(
+            f"{path}: the claims of book row {r} (policy '{policy[r]}') add up to {total[r]:.2f}, but "
+            f"the book's '{c.claim_amount}' is {amount[r]:.2f}"
+        )
     return Claims(row.astype(np.int64), values, cat)
 
 
-def prepare(spec: Spec, spec_dir: Path, periods: np.ndarray | None, policy: np.ndarray, count: np.ndarray,
-            amount: np.ndarray | None, train: np.ndarray) -> Adjustment:
+def prepare(
+    spec: Spec,
+    spec_dir: Path,
+    periods: np.ndarray | None,
+    policy: np.ndarray,
+    count: np.ndarray,
+    amount: np.ndarray | None,
+    train: np.ndarray,
+) -> Adjustment:
     """Read what the spec's [experience] names (development CSV, claims file, both relative to
     `spec_dir`) and adjust the rows; a book without amounts adjusts its counts only."""
     exp = spec.experience
@@ -374,4 +454,3 @@ def prepare(spec: Spec, spec_dir: Path, periods: np.ndarray | None, policy: np.n
     labels = periods if periods is not None else np.full(len(count), "", dtype=object)
     future = future_midpoint(exp, spec.table.effective_date)
     return adjust(exp, labels, count, amount, train, future, development_factors(exp, spec_dir), claims)
-

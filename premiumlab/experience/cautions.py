@@ -1,4 +1,5 @@
 """The cautions of outputs made under a spec: draft, compliance, and what was done to the amounts."""
+
 from __future__ import annotations
 
 from premiumlab._core.cautions import AS_GIVEN, DRAFT, PROHIBITED
@@ -15,6 +16,9 @@ def cautions_for(spec: Spec) -> list[str]:
         return [DRAFT, PROHIBITED, AS_GIVEN]
     done = "; ".join(applied(exp))
     missing = "; ".join(not_applied(exp)) or "none"
-    return [DRAFT, PROHIBITED,
-            f"Claim experience was adjusted before modelling: {done} (figures in the run's experience.json). "
-            f"Not applied: {missing}."]
+    return [
+        DRAFT,
+        PROHIBITED,
+        f"Claim experience was adjusted before modelling: {done} (figures in the run's experience.json). "
+        f"Not applied: {missing}.",
+    ]

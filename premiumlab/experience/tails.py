@@ -11,6 +11,7 @@ the cap leaves them), otherwise the positive amount of each row (a policy in a p
 single losses, one row per claim, is then a list of claims). With [experience] trend set they are
 trended for severity to the future policy period, so that u reads as a cap in that money.
 """
+
 from __future__ import annotations
 
 from dataclasses import asdict, dataclass
@@ -67,14 +68,24 @@ class ParetoFit:
 def fit_tail(losses: np.ndarray, threshold: float) -> ParetoFit:
     """Maximum-likelihood generalised Pareto fit to the excesses over `threshold` (location 0)."""
     from scipy.stats import genpareto
+
     x = np.asarray(losses, dtype=float)
     above = x[x > threshold]
     if above.size < MIN_EXCEEDANCES:
-        raise InputError(f"--threshold: {threshold:g} leaves {above.size} losses above it; the fit needs at "
-                         f"least {MIN_EXCEEDANCES}: choose a lower threshold")
+        raise InputError(
+            f"--threshold: {threshold:g} leaves {above.size} losses above it; the fit needs at "
+            f"least {MIN_EXCEEDANCES}: choose a lower threshold"
+        )
     shape, _, scale = genpareto.fit(above - threshold, floc=0.0)
-    return ParetoFit(threshold=float(threshold), exceedances=int(above.size), losses=int(x.size), shape=float(shape),
-                   scale=float(scale), share_of_losses=above.size / x.size, share_of_amount=float(above.sum() / x.sum()))
+    return ParetoFit(
+        threshold=float(threshold),
+        exceedances=int(above.size),
+        losses=int(x.size),
+        shape=float(shape),
+        scale=float(scale),
+        share_of_losses=above.size / x.size,
+        share_of_amount=float(above.sum() / x.sum()),
+    )
 
 
 def plot_tail(losses: np.ndarray, fit: ParetoFit, path: str | Path) -> Path:
@@ -84,6 +95,7 @@ def plot_tail(losses: np.ndarray, fit: ParetoFit, path: str | Path) -> Path:
     from scipy.stats import genpareto
 
     from premiumlab._core.plotting import new_figure, plain_axes, save_figure
+
     table = mean_excess(losses, threshold_grid(losses, min(len(losses), PLOT_POINTS)))
     fig = new_figure(width=10.0, height=4.4)
     left, right = fig.subplots(1, 2)
@@ -97,8 +109,12 @@ def plot_tail(losses: np.ndarray, fit: ParetoFit, path: str | Path) -> Path:
     empirical = 1.0 - np.arange(excess.size) / excess.size
     right.loglog(excess + fit.threshold, empirical, linestyle="none", marker=".", color="#202020", label="losses")
     grid = np.geomspace(max(excess.min(), 1e-9 * fit.scale), excess.max(), 200)
-    right.loglog(grid + fit.threshold, genpareto.sf(grid, fit.shape, scale=fit.scale), color="#c2582b",
-                 label=f"GPD shape {fit.shape:.3f}, scale {fit.scale:,.4g}")
+    right.loglog(
+        grid + fit.threshold,
+        genpareto.sf(grid, fit.shape, scale=fit.scale),
+        color="#c2582b",
+        label=f"GPD shape {fit.shape:.3f}, scale {fit.scale:,.4g}",
+    )
     right.set_xlabel("loss")
     right.set_ylabel("share of exceedances above")
     right.set_title(f"Tail above the threshold ({fit.exceedances} losses)")
@@ -119,6 +135,7 @@ def tail_losses(book_path: str | Path, spec_path: str | Path) -> tuple[np.ndarra
         trend_factor,
         years_to_future,
     )
+
     spec = load_spec(spec_path)
     if spec.columns.claim_amount is None:
         raise InputError(f"{spec.source}: key 'columns.claim_amount' is not set; the threshold aid needs amounts")
@@ -126,11 +143,17 @@ def tail_losses(book_path: str | Path, spec_path: str | Path) -> tuple[np.ndarra
     exp, c = spec.experience, spec.columns
     periods = read_text_column(book_path, c.period) if c.period else np.full(book.n_rows, "", dtype=object)
     labels, code = np.unique(periods.astype(str), return_inverse=True)
-    trend = trend_factor(years_to_future(exp, labels, future_midpoint(exp, spec.table.effective_date)),
-                         exp.trend.get("severity", 0.0))[code]
+    trend = trend_factor(
+        years_to_future(exp, labels, future_midpoint(exp, spec.table.effective_date)), exp.trend.get("severity", 0.0)
+    )[code]
     if exp.claims_file is not None:
-        claims = read_claims(Path(spec_path).parent / exp.claims_file, spec, book.policy,
-                             periods if c.period else None, book.claim_amount)
+        claims = read_claims(
+            Path(spec_path).parent / exp.claims_file,
+            spec,
+            book.policy,
+            periods if c.period else None,
+            book.claim_amount,
+        )
         keep = ~claims.catastrophe & (claims.amount > 0)
         losses, basis = claims.amount[keep] * trend[claims.row[keep]], "single claims of the claims file"
     else:
@@ -139,13 +162,19 @@ def tail_losses(book_path: str | Path, spec_path: str | Path) -> tuple[np.ndarra
     if exp.trend.get("severity"):
         basis += ", trended for severity to the future policy period"
     if losses.size <= MIN_EXCEEDANCES:
-        raise InputError(f"{book_path}: {losses.size} positive losses; the threshold aid needs more than "
-                         f"{MIN_EXCEEDANCES}")
+        raise InputError(
+            f"{book_path}: {losses.size} positive losses; the threshold aid needs more than {MIN_EXCEEDANCES}"
+        )
     return losses, basis
 
 
-def threshold_aid(book_path: str | Path, spec_path: str | Path, threshold: float | None = None,
-                  figure: str | Path | None = None, force: bool = False) -> TailFit:
+def threshold_aid(
+    book_path: str | Path,
+    spec_path: str | Path,
+    threshold: float | None = None,
+    figure: str | Path | None = None,
+    force: bool = False,
+) -> TailFit:
     """The `tails` command: mean-excess table, the fit above `threshold` (default: the
     DEFAULT_QUANTILE quantile of the losses) and optionally the figure.
 
@@ -166,6 +195,7 @@ def threshold_aid(book_path: str | Path, spec_path: str | Path, threshold: float
         The fit above u, what the losses are, notes, the mean-excess table and the cautions.
     """
     from premiumlab._core.cautions import DRAFT
+
     if threshold is not None and not (np.isfinite(threshold) and threshold >= 0):
         raise InputError(f"--threshold: {threshold!r} must be a finite amount >= 0")
     losses, basis = tail_losses(book_path, spec_path)
@@ -174,6 +204,7 @@ def threshold_aid(book_path: str | Path, spec_path: str | Path, threshold: float
     table = mean_excess(losses, threshold_grid(losses))
     if figure is not None:
         from premiumlab._core.outputs import atomic_files
+
         target = Path(figure)
         if target.suffix.lower() != ".png":
             raise InputError(f"{target}: the figure must be a .png file")
@@ -181,7 +212,14 @@ def threshold_aid(book_path: str | Path, spec_path: str | Path, threshold: float
             plot_tail(losses, fit, tmp / target.name)
     notes = []
     if fit.shape >= 1.0:
-        notes.append("shape >= 1: the fitted tail has no finite mean; a cap and an excess load from a longer "
-                     "history are needed")
-    return TailFit(**asdict(fit), basis=basis, default_threshold=threshold is None, notes=tuple(notes),
-                   mean_excess=tuple(table.to_dict(orient="records")), cautions=(DRAFT,))
+        notes.append(
+            "shape >= 1: the fitted tail has no finite mean; a cap and an excess load from a longer history are needed"
+        )
+    return TailFit(
+        **asdict(fit),
+        basis=basis,
+        default_threshold=threshold is None,
+        notes=tuple(notes),
+        mean_excess=tuple(table.to_dict(orient="records")),
+        cautions=(DRAFT,),
+    )

@@ -6,6 +6,7 @@ rows with claims and a positive amount; weight claims; Gamma, power 2) and pure 
 exposure; weight exposure; Tweedie at the GLM's power). Pure premium is also compared as frequency x
 severity against the direct Tweedie model.
 """
+
 from __future__ import annotations
 
 from pathlib import Path
@@ -38,18 +39,28 @@ def compare(run_dir: str | Path, n_boot: int = N_BOOT) -> dict:
     )
     from premiumlab.runs.experience_step import fitted_basis
     from premiumlab.runs.rundir import open_run
+
     run = open_run(run_dir)
     preds = fitted_basis(run.predictions())
     if not preds["holdout"].any():
-        raise InputError(f"{run.path}: the run has no holdout (split.holdout = 0), so there is nothing to "
-                         f"compare on; refit with a holdout share above 0 or holdout = \"latest_period\"")
+        raise InputError(
+            f"{run.path}: the run has no holdout (split.holdout = 0), so there is nothing to "
+            f'compare on; refit with a holdout share above 0 or holdout = "latest_period"'
+        )
     if not any(c.startswith("gbm_") for c in preds) or not any(c.startswith("glm_") for c in preds):
         raise InputError(f"{run.path}: compare needs both GLM and GBM predictions; fit with --models glm,gbm")
     power = run.model_json("glm", "pure_premium")["power"] if "glm_pure_premium" in preds else FALLBACK_TWEEDIE_POWER
     seed = run.spec.split.seed
-    result = {"holdout_rows": int(preds["holdout"].sum()), "tweedie_power": power,
-              "metrics": holdout_metrics(preds, power), "differences": {}, "lift": {}, "double_lift": {},
-              "actual_vs_expected": {}, "cautions": run.manifest["cautions"]}
+    result = {
+        "holdout_rows": int(preds["holdout"].sum()),
+        "tweedie_power": power,
+        "metrics": holdout_metrics(preds, power),
+        "differences": {},
+        "lift": {},
+        "double_lift": {},
+        "actual_vs_expected": {},
+        "cautions": run.manifest["cautions"],
+    }
     hold = preds[preds["holdout"]].reset_index(drop=True)
     groups = hold["policy_group"].to_numpy() if "policy_group" in hold else None
     fig_dir = run.files.figures
@@ -67,14 +78,15 @@ def compare(run_dir: str | Path, n_boot: int = N_BOOT) -> dict:
                 continue
             dev = deviance_difference(y, col[a], col[b], weight, pw, n_boot=n_boot, seed=seed, groups=g)
             gin = gini_difference(actual, col[b], col[a], weight, n_boot=n_boot, seed=seed, groups=g)
-            result["differences"][f"{b} vs {a}"] = {
-                "deviance_reduction": dev.to_dict(), "gini_gain": gin.to_dict()}
+            result["differences"][f"{b} vs {a}"] = {"deviance_reduction": dev.to_dict(), "gini_gain": gin.to_dict()}
         lifts = {c: lift_table(actual, v, weight) for c, v in col.items()}
         result["lift"][target] = {c: t.to_dict(orient="list") for c, t in lifts.items()}
         figures.plot_lift(lifts, fig_dir / f"lift_{target}.png", title=f"Lift, {target.replace('_', ' ')}")
-        figures.plot_lorenz({c: lorenz_curve(actual, v, weight) for c, v in col.items()},
-                            fig_dir / f"lorenz_{target}.png",
-                            ginis={c: m["gini"] for c, m in result["metrics"][target]["models"].items()})
+        figures.plot_lorenz(
+            {c: lorenz_curve(actual, v, weight) for c, v in col.items()},
+            fig_dir / f"lorenz_{target}.png",
+            ginis={c: m["gini"] for c, m in result["metrics"][target]["models"].items()},
+        )
         a, b = f"gbm_{target}", f"glm_{target}"
         dl = double_lift(actual, col[a], col[b], weight)
         result["double_lift"][target] = dl.to_dict(orient="list")
@@ -87,16 +99,18 @@ def compare(run_dir: str | Path, n_boot: int = N_BOOT) -> dict:
 
 def _actual_vs_expected(run, hold: pd.DataFrame, result: dict, fig_dir: Path, ave, figures) -> None:
     from premiumlab.book.levels import categorise
+
     if "pure_premium" not in result["metrics"]:
         return
     book = run.load_book()
     cats = categorise(book.frame, run.levels).iloc[hold["row"].to_numpy()].reset_index(drop=True)
-    mask, actual, weight, _ = target_view(hold, "pure_premium")
+    _mask, actual, weight, _ = target_view(hold, "pure_premium")
     cols = [c for c in ("glm_pure_premium", "gbm_pure_premium") if c in hold]
     for factor in run.levels:
         tables = {c: ave(actual, hold[c].to_numpy(float), weight, cats[factor]) for c in cols}
-        result["actual_vs_expected"][factor] = {c: t.astype({"level": str}).to_dict(orient="list")
-                                                for c, t in tables.items()}
+        result["actual_vs_expected"][factor] = {
+            c: t.astype({"level": str}).to_dict(orient="list") for c, t in tables.items()
+        }
         figures.plot_actual_vs_expected(tables, fig_dir / f"ave_{factor}.png", factor=factor)
 
 
@@ -108,5 +122,6 @@ def _cv_figures(run, fig_dir: Path, figures) -> None:
             continue
         leaves = table["setting"].map(lambda s: s.get("num_leaves", 31))
         table["leaves_x_rounds"] = leaves * table["rounds"]
-        figures.plot_cv_curve(table, fig_dir / f"cv_{meta['target']}.png", complexity="leaves_x_rounds",
-                              chosen=meta["cv"]["chosen"])
+        figures.plot_cv_curve(
+            table, fig_dir / f"cv_{meta['target']}.png", complexity="leaves_x_rounds", chosen=meta["cv"]["chosen"]
+        )

@@ -4,6 +4,7 @@ With [experience] adjustments set, one step between loading and modelling adjust
 (premiumlab.runs.experience_step) and writes what it used to RUN/experience.json; every model is
 fitted on the adjusted figures, and predictions.parquet keeps the observed ones beside them.
 """
+
 from __future__ import annotations
 
 import os
@@ -51,13 +52,28 @@ def _versions() -> dict[str, str]:
     import statsmodels
 
     from premiumlab import __version__
-    return {"premiumlab": __version__, "python": platform.python_version(), "numpy": np.__version__,
-            "pandas": pd.__version__, "scipy": scipy.__version__, "statsmodels": statsmodels.__version__,
-            "scikit-learn": sklearn.__version__, "lightgbm": lightgbm.__version__}
+
+    return {
+        "premiumlab": __version__,
+        "python": platform.python_version(),
+        "numpy": np.__version__,
+        "pandas": pd.__version__,
+        "scipy": scipy.__version__,
+        "statsmodels": statsmodels.__version__,
+        "scikit-learn": sklearn.__version__,
+        "lightgbm": lightgbm.__version__,
+    }
 
 
-def fit(book_path: str | Path, spec_path: str | Path, out: str | Path, models: str = "glm,gbm",
-        force: bool = False, progress: Progress | None = None, cluster: str | None = None) -> Path:
+def fit(
+    book_path: str | Path,
+    spec_path: str | Path,
+    out: str | Path,
+    models: str = "glm,gbm",
+    force: bool = False,
+    progress: Progress | None = None,
+    cluster: str | None = None,
+) -> Path:
     """Fit the requested models on the training part of the book and write the run directory.
 
     `progress`: told the experience step's totals (None: nothing is said). `cluster`: where the
@@ -73,8 +89,16 @@ def fit(book_path: str | Path, spec_path: str | Path, out: str | Path, models: s
         return _fit_run(book_path, spec_path, spec, out, kinds, force, progress, runner)
 
 
-def _fit_run(book_path: str | Path, spec_path: str | Path, spec: Spec, out: Path, kinds: list[str], force: bool,
-             progress: Progress | None, runner: TaskRunner) -> Path:
+def _fit_run(
+    book_path: str | Path,
+    spec_path: str | Path,
+    spec: Spec,
+    out: Path,
+    kinds: list[str],
+    force: bool,
+    progress: Progress | None,
+    runner: TaskRunner,
+) -> Path:
     """`fit` once its inputs are checked and the boosted-model search's `runner` is ready."""
     timings: dict[str, float] = {}
     t0 = time.perf_counter()
@@ -101,18 +125,26 @@ def _fit_run(book_path: str | Path, spec_path: str | Path, spec: Spec, out: Path
         timings["experience_seconds"] = time.perf_counter() - t
         if progress is not None:
             totals = adjustment.record["totals"]["training"]
-            progress.step(f"experience: training amounts {totals['amount_observed']:,.0f} -> "
-                          f"{totals['amount_adjusted']:,.0f}, counts {totals['count_observed']:,.0f} -> "
-                          f"{totals['count_adjusted']:,.1f}")
+            progress.step(
+                f"experience: training amounts {totals['amount_observed']:,.0f} -> "
+                f"{totals['amount_adjusted']:,.0f}, counts {totals['count_observed']:,.0f} -> "
+                f"{totals['count_adjusted']:,.1f}"
+            )
     control = None
     if exp.period_control:
         control = period_control(periods, book.exposure, train, spec.columns.period)
     with atomic_output(out, force=force) as tmp:
         run = RunDir(tmp)
         run.models.mkdir()
-        preds = pd.DataFrame({"row": np.arange(book.n_rows, dtype=np.int64), "holdout": book.holdout,
-                              "exposure": book.exposure, "claim_count": observed.claim_count,
-                              "policy_group": pd.factorize(book.policy)[0].astype(np.int64)})
+        preds = pd.DataFrame(
+            {
+                "row": np.arange(book.n_rows, dtype=np.int64),
+                "holdout": book.holdout,
+                "exposure": book.exposure,
+                "claim_count": observed.claim_count,
+                "policy_group": pd.factorize(book.policy)[0].astype(np.int64),
+            }
+        )
         if has_amount:
             preds["claim_amount"] = observed.claim_amount
         if adjustment is not None:
@@ -125,24 +157,33 @@ def _fit_run(book_path: str | Path, spec_path: str | Path, spec: Spec, out: Path
             timings["glm_seconds"] = time.perf_counter() - t
         if "gbm" in kinds:
             from premiumlab.runs.gbm_step import fit_gbms
+
             t = time.perf_counter()
             fit_gbms(book, spec, train, glm_power, run, preds, runner)
             timings["gbm_seconds"] = time.perf_counter() - t
         preds.to_parquet(run.predictions, index=False)
         if book.holdout.any():
             from premiumlab.evaluation.holdout import holdout_metrics
+
             write_json(run.metrics, holdout_metrics(fitted_basis(preds), glm_power or FALLBACK_TWEEDIE_POWER))
         run.write_levels(levels)
-        run.write_manifest({
-            "spec": spec.raw,
-            "book": {"path_from_run": os.path.relpath(Path(book_path).resolve(), out.resolve()),
-                     "sha256": book.sha256},
-            "rows": {"total": book.n_rows, "train": int(train.sum()), "holdout": int(book.holdout.sum())},
-            "seed": spec.split.seed, "threads": spec.gbm.num_threads, "models": kinds,
-            **({"gbm_search_ran_on": runner.description} if "gbm" in kinds else {}),
-            "warnings": [str(w) for w in book.warnings],
-            "versions": _versions(), "timings": timings,
-            "cautions": cautions_for(spec),
-            **({"experience": run.experience.name} if adjustment is not None else {}),
-        })
+        run.write_manifest(
+            {
+                "spec": spec.raw,
+                "book": {
+                    "path_from_run": os.path.relpath(Path(book_path).resolve(), out.resolve()),
+                    "sha256": book.sha256,
+                },
+                "rows": {"total": book.n_rows, "train": int(train.sum()), "holdout": int(book.holdout.sum())},
+                "seed": spec.split.seed,
+                "threads": spec.gbm.num_threads,
+                "models": kinds,
+                **({"gbm_search_ran_on": runner.description} if "gbm" in kinds else {}),
+                "warnings": [str(w) for w in book.warnings],
+                "versions": _versions(),
+                "timings": timings,
+                "cautions": cautions_for(spec),
+                **({"experience": run.experience.name} if adjustment is not None else {}),
+            }
+        )
     return out

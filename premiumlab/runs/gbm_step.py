@@ -1,4 +1,5 @@
 """Boosted models inside a run: options from the spec, the three targets, certificate and H statistic."""
+
 from __future__ import annotations
 
 from dataclasses import replace
@@ -27,19 +28,31 @@ def gbm_options(spec: Spec, glm_power: float | None) -> GbmOptions:
     return spec.gbm if spec.gbm.tweedie_power is not None else replace(spec.gbm, tweedie_power=glm_power)
 
 
-def fit_gbms(book: Book, spec: Spec, train: np.ndarray, glm_power: float | None, run: RunDir,
-             preds: pd.DataFrame, runner: TaskRunner = IN_PROCESS) -> None:
+def fit_gbms(
+    book: Book,
+    spec: Spec,
+    train: np.ndarray,
+    glm_power: float | None,
+    run: RunDir,
+    preds: pd.DataFrame,
+    runner: TaskRunner = IN_PROCESS,
+) -> None:
     """Fit frequency, severity and pure-premium models on the training rows (the search's fits on
     `runner`); write models, the monotonicity certificate and the interaction ranking; add
     predictions for every row."""
     from premiumlab.models.gbm.fit import GbmInputs, fit_target
+
     features = features_from_spec(book.frame, spec)
     monotone = {f.name: f.direction for f in spec.factors if f.direction != 0}
     groups = pd.factorize(book.policy[train])[0]
-    inputs = GbmInputs(features=features.loc[train].reset_index(drop=True), monotone=monotone,
-                       exposure=book.exposure[train], claim_count=book.claim_count[train],
-                       claim_amount=None if book.claim_amount is None else book.claim_amount[train],
-                       groups=groups)
+    inputs = GbmInputs(
+        features=features.loc[train].reset_index(drop=True),
+        monotone=monotone,
+        exposure=book.exposure[train],
+        claim_count=book.claim_count[train],
+        claim_amount=None if book.claim_amount is None else book.claim_amount[train],
+        groups=groups,
+    )
     options = gbm_options(spec, glm_power)
     targets = [name for name, t in TARGETS.items() if book.claim_amount is not None or not t.needs_amount]
     models = {}
@@ -59,6 +72,7 @@ def fit_gbms(book: Book, spec: Spec, train: np.ndarray, glm_power: float | None,
 def certify_run(models: dict, features: pd.DataFrame, holdout: np.ndarray, spec: Spec) -> dict:
     """Structural certificate and empirical sweep for every promised factor of each constrained model."""
     from premiumlab.models.trees.certificate import certify, sweep
+
     rng = np.random.default_rng(spec.split.seed)
     pool = np.flatnonzero(holdout) if holdout.any() else np.arange(len(features))
     take = rng.choice(pool, size=min(SWEEP_POLICIES, len(pool)), replace=False)
@@ -68,20 +82,30 @@ def certify_run(models: dict, features: pd.DataFrame, holdout: np.ndarray, spec:
         if not model.monotone:
             continue
         text = model.model_text()
-        out[target] = {name: {"certificate": certify(text, name, d),
-                              "sweep": sweep(model, sample, name, d)}
-                       for name, d in model.monotone.items()}
-    return {"models": out, "sweep_policies": len(sample),
-            "sweep_rows": "held-out policies" if holdout.any() else "training policies (no holdout)"}
+        out[target] = {
+            name: {"certificate": certify(text, name, d), "sweep": sweep(model, sample, name, d)}
+            for name, d in model.monotone.items()
+        }
+    return {
+        "models": out,
+        "sweep_policies": len(sample),
+        "sweep_rows": "held-out policies" if holdout.any() else "training policies (no holdout)",
+    }
 
 
 def rank_interactions(model, features: pd.DataFrame, train: np.ndarray, spec: Spec) -> dict:
     """Friedman's H for pairs of the top factors by gain, on a seeded sample of training policies."""
     from premiumlab.models.trees.interactions import h_statistics, top_factors_by_gain
+
     top = top_factors_by_gain(model.booster, H_FACTORS)
     if len(top) < 2:
-        return {"model": model.target, "sample": 0, "factors": top, "pairs": [],
-                "note": "the boosted model splits on fewer than two factors, so it has no interactions"}
+        return {
+            "model": model.target,
+            "sample": 0,
+            "factors": top,
+            "pairs": [],
+            "note": "the boosted model splits on fewer than two factors, so it has no interactions",
+        }
     sample = features.loc[train].reset_index(drop=True)
     pairs = h_statistics(model.predict_raw, sample, top, seed=spec.split.seed, sample_size=H_SAMPLE)
     return {"model": model.target, "sample": min(H_SAMPLE, len(sample)), "factors": top, "pairs": pairs}

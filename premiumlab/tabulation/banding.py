@@ -7,6 +7,7 @@ band edges are the upper grid values of the cells they follow. Unordered categor
 ordered by effect, then thin levels merged into their nearest neighbour in that order
 (`merge_thin_levels`).
 """
+
 from __future__ import annotations
 
 from dataclasses import dataclass, replace
@@ -60,15 +61,13 @@ class Banding:
         """The banding with bands k and k+1 pooled into one."""
         if self.numeric:
             return replace(self, edges=np.delete(self.edges, k))
-        return replace(self, band_of_level=np.where(self.band_of_level > k, self.band_of_level - 1,
-                                                    self.band_of_level))
+        return replace(self, band_of_level=np.where(self.band_of_level > k, self.band_of_level - 1, self.band_of_level))
 
     def labels(self) -> list[str]:
         """Band labels: `[lower, upper)` or the levels of the band joined by `+`."""
         if self.numeric:
             return band_labels(self.edges)
-        return ["+".join(lv for lv, b in zip(self.levels, self.band_of_level) if b == k)
-                for k in range(self.n_bands)]
+        return ["+".join(lv for lv, b in zip(self.levels, self.band_of_level) if b == k) for k in range(self.n_bands)]
 
 
 def ordered_bands(curve: Curve, direction: int, max_bands: int, min_share: float) -> np.ndarray:
@@ -111,8 +110,15 @@ def merge_thin_levels(effect: np.ndarray, weight: np.ndarray, min_weight: float)
     return out
 
 
-def categorical_banding(curve: Curve, levels: tuple[str, ...], monotone: str, ordered: bool, max_bands: int,
-                        min_share: float, base_level: str | None = None) -> Banding:
+def categorical_banding(
+    curve: Curve,
+    levels: tuple[str, ...],
+    monotone: str,
+    ordered: bool,
+    max_bands: int,
+    min_share: float,
+    base_level: str | None = None,
+) -> Banding:
     """Bands of a categorical factor. `curve.points` index `levels` (levels without training exposure
     are absent from the curve): they join the previous level's band when ordered (the first band when
     no level precedes), else the band holding the most exposure."""
@@ -128,8 +134,9 @@ def categorical_banding(curve: Curve, levels: tuple[str, ...], monotone: str, or
         band[band < 0] = 0
     else:
         band[band < 0] = np.argmax(np.bincount(present, weights=curve.weight))
-    return Banding(curve.factor, monotone, levels=tuple(levels), band_of_level=band, ordered=ordered,
-                   base_level=base_level)
+    return Banding(
+        curve.factor, monotone, levels=tuple(levels), band_of_level=band, ordered=ordered, base_level=base_level
+    )
 
 
 def base_band(banding: Banding, band_exposure: np.ndarray) -> int:

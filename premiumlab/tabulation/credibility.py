@@ -19,6 +19,7 @@ Credibility estimate: Z_i xbar_i + (1 - Z_i) C_i, with the complement C_i the ov
 categorical factor and, for a band of a numeric factor, the exposure-weighted mean experience of
 its neighbouring bands (the overall xbar where they have no exposure).
 """
+
 from __future__ import annotations
 
 from dataclasses import dataclass
@@ -34,12 +35,12 @@ from premiumlab._core.validators import ABOVE_ZERO, checked_array
 class BuhlmannStraub:
     """Structural parameters and per-level figures of a Buhlmann-Straub fit (module docstring)."""
 
-    weight: np.ndarray       # m_i, exposure per level
-    units: np.ndarray        # n_i, rows per level
-    mean: np.ndarray         # xbar_i (NaN without exposure)
-    overall: float           # xbar
-    within: float            # v
-    between: float           # a, >= 0
+    weight: np.ndarray  # m_i, exposure per level
+    units: np.ndarray  # n_i, rows per level
+    mean: np.ndarray  # xbar_i (NaN without exposure)
+    overall: float  # xbar
+    within: float  # v
+    between: float  # a, >= 0
     credibility: np.ndarray  # Z_i
 
     @property
@@ -66,7 +67,7 @@ def buhlmann_straub(x: np.ndarray, w: np.ndarray, group: np.ndarray, n_groups: i
     has = m_i > 0
     r = int(has.sum())
     spread = float(np.sum(m_i[has] * (mean[has] - overall) ** 2))
-    denominator = m - np.sum(m_i ** 2) / m
+    denominator = m - np.sum(m_i**2) / m
     between = max(0.0, (spread - (r - 1) * within) / denominator) if r > 1 and dof > 0 else 0.0
     z = m_i / (m_i + within / between) if between > 0 else np.zeros(n_groups)
     return BuhlmannStraub(m_i, n_i, mean, overall, within, between, z)
@@ -83,8 +84,9 @@ def neighbour_complement(mean: np.ndarray, weight: np.ndarray, overall: float) -
         return np.where(total > 0, (left_s + right_s) / total, overall)
 
 
-def credibility_by_level(amount: np.ndarray, exposure: np.ndarray, codes: np.ndarray, n_levels: int,
-                         numeric: bool = False) -> pd.DataFrame:
+def credibility_by_level(
+    amount: np.ndarray, exposure: np.ndarray, codes: np.ndarray, n_levels: int, numeric: bool = False
+) -> pd.DataFrame:
     """Buhlmann-Straub credibility of each level's pure premium toward its complement.
 
     amount (money) and exposure (> 0) of each row, codes its level or band (0..n_levels-1, bands in
@@ -94,13 +96,28 @@ def credibility_by_level(amount: np.ndarray, exposure: np.ndarray, codes: np.nda
     """
     exposure = np.asarray(exposure, dtype=float)
     fit = buhlmann_straub(np.asarray(amount, dtype=float) / exposure, exposure, codes, n_levels)
-    complement = (neighbour_complement(fit.mean, fit.weight, fit.overall) if numeric
-                  else np.full(n_levels, fit.overall))
+    complement = neighbour_complement(fit.mean, fit.weight, fit.overall) if numeric else np.full(n_levels, fit.overall)
     experience = np.where(fit.weight > 0, fit.mean, np.nan)
-    estimate = np.where(fit.weight > 0, fit.credibility * np.nan_to_num(fit.mean) + (1 - fit.credibility) * complement,
-                        complement)
-    table = pd.DataFrame({"exposure": fit.weight, "rows": fit.units, "experience": experience,
-                          "complement": complement, "credibility": fit.credibility, "estimate": estimate})
-    table.attrs.update({"within_variance": fit.within, "between_variance": fit.between, "k": fit.k,
-                        "overall": fit.overall, "complement": "neighbouring bands" if numeric else "overall"})
+    estimate = np.where(
+        fit.weight > 0, fit.credibility * np.nan_to_num(fit.mean) + (1 - fit.credibility) * complement, complement
+    )
+    table = pd.DataFrame(
+        {
+            "exposure": fit.weight,
+            "rows": fit.units,
+            "experience": experience,
+            "complement": complement,
+            "credibility": fit.credibility,
+            "estimate": estimate,
+        }
+    )
+    table.attrs.update(
+        {
+            "within_variance": fit.within,
+            "between_variance": fit.between,
+            "k": fit.k,
+            "overall": fit.overall,
+            "complement": "neighbouring bands" if numeric else "overall",
+        }
+    )
     return table

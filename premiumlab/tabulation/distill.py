@@ -8,6 +8,7 @@
 3. Refit (`premiumlab.tabulation.refit`): Poisson quasi-likelihood GLM on the banded cells with the
    two-way tables of the spec, bands of a promised factor pooled until every promise holds.
 """
+
 from __future__ import annotations
 
 from dataclasses import dataclass
@@ -31,8 +32,14 @@ class Distillation:
     pooled: PooledRefit
 
 
-def distil(model_text: str, sample: np.ndarray, factors: list[FactorValues], exposure: np.ndarray,
-           response: np.ndarray, options: TableOptions) -> Distillation:
+def distil(
+    model_text: str,
+    sample: np.ndarray,
+    factors: list[FactorValues],
+    exposure: np.ndarray,
+    response: np.ndarray,
+    options: TableOptions,
+) -> Distillation:
     """Curves -> bands -> pooled refit.
 
     Parameters
@@ -59,18 +66,33 @@ def distil(model_text: str, sample: np.ndarray, factors: list[FactorValues], exp
     curves, bandings = {}, {}
     for factor in factors:
         if factor.name not in trees.feature_names:
-            raise InputError(f"boosted model: factor '{factor.name}' is not one of its features "
-                             f"({', '.join(trees.feature_names)})")
-        curve = effect_curve(trees, sample, trees.feature_names.index(factor.name), factor, exposure,
-                             options.grid_points)
+            raise InputError(
+                f"boosted model: factor '{factor.name}' is not one of its features ({', '.join(trees.feature_names)})"
+            )
+        curve = effect_curve(
+            trees, sample, trees.feature_names.index(factor.name), factor, exposure, options.grid_points
+        )
         curves[factor.name] = curve
         if factor.levels is None:
-            bandings[factor.name] = numeric_banding(curve, factor.monotone, options.max_bands,
-                                                    options.min_band_exposure)
+            bandings[factor.name] = numeric_banding(
+                curve, factor.monotone, options.max_bands, options.min_band_exposure
+            )
         else:
-            bandings[factor.name] = categorical_banding(curve, factor.levels, factor.monotone, factor.ordered,
-                                                        options.max_bands, options.min_band_exposure,
-                                                        factor.base_level)
-    pooled = pooled_refit(bandings, {f.name: f.values for f in factors}, list(options.interactions), exposure,
-                          response, options.relativity_decimals)
+            bandings[factor.name] = categorical_banding(
+                curve,
+                factor.levels,
+                factor.monotone,
+                factor.ordered,
+                options.max_bands,
+                options.min_band_exposure,
+                factor.base_level,
+            )
+    pooled = pooled_refit(
+        bandings,
+        {f.name: f.values for f in factors},
+        list(options.interactions),
+        exposure,
+        response,
+        options.relativity_decimals,
+    )
     return Distillation(curves, bandings, pooled)

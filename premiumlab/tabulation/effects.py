@@ -9,6 +9,7 @@
 - Curve (`effect_curve`): the exact partial dependence of the raw (log) score on one factor over
   the sample (`premiumlab.models.trees.partial_dependence`), known up to an additive constant.
 """
+
 from __future__ import annotations
 
 from dataclasses import dataclass
@@ -73,14 +74,19 @@ class FactorValues:
     base_level: str | None = None
 
 
-def effect_curve(trees: Trees, sample: np.ndarray, feature: int, factor: FactorValues, exposure: np.ndarray,
-                 grid_points: int) -> Curve:
+def effect_curve(
+    trees: Trees, sample: np.ndarray, feature: int, factor: FactorValues, exposure: np.ndarray, grid_points: int
+) -> Curve:
     """The factor's partial dependence on the log score over its grid (numeric) or its levels with
     training exposure (categorical), with the exposure each point stands for."""
     if factor.levels is None:
         grid = quantile_grid(factor.values, exposure, grid_points)
-        return Curve(factor.name, grid, partial_dependence(trees, sample, feature, grid),
-                     cell_exposure(grid, factor.values, exposure))
+        return Curve(
+            factor.name,
+            grid,
+            partial_dependence(trees, sample, feature, grid),
+            cell_exposure(grid, factor.values, exposure),
+        )
     weight = np.bincount(factor.values, weights=exposure, minlength=len(factor.levels))
     present = np.flatnonzero(weight > 0)
     effect = partial_dependence(trees, sample, feature, factor.model_codes[present].astype(float))

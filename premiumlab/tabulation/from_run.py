@@ -21,27 +21,27 @@ with the GLM's power (the boosted model's when there is no GLM) and the Gini of 
 premium per exposure unit, beside the boosted model's and the GLM's predictions from
 predictions.parquet; retention G_table / G_GBM and (G_table - G_GLM) / (G_GBM - G_GLM).
 """
+
 from __future__ import annotations
 
-from dataclasses import replace
-
 import time
+from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
-from premiumlab.experience.cautions import cautions_for
+from premiumlab._core.errors import InputError
+from premiumlab._core.jsonio import write_json
+from premiumlab._core.outputs import atomic_output, check_target
 from premiumlab.book.rows import Book
+from premiumlab.book.spec import Spec
+from premiumlab.experience.cautions import cautions_for
+from premiumlab.runs.rundir import Run, open_run
 from premiumlab.tabulation.banding import Banding
 from premiumlab.tabulation.distill import distil
 from premiumlab.tabulation.effects import FactorValues, exposure_sample
 from premiumlab.tabulation.refit import band_exposure, round_relativity
-from premiumlab._core.errors import InputError
-from premiumlab._core.jsonio import write_json
-from premiumlab._core.outputs import atomic_output, check_target
-from premiumlab.runs.rundir import Run, open_run
-from premiumlab.book.spec import Spec
 
 MODELS = ("gbm", "glm")
 #: Training rows on which the rebuilt features must reproduce the run's boosted predictions.
@@ -58,8 +58,7 @@ def reread_book(run: Run, book: str | Path | None = None) -> Book:
     loaded = run.load_book(book)
     path = loaded.path
     if loaded.claim_amount is None:
-        raise InputError(f"{path}: a pure-premium table needs claim amounts; the spec names no "
-                         f"columns.claim_amount")
+        raise InputError(f"{path}: a pure-premium table needs claim amounts; the spec names no columns.claim_amount")
     return loaded
 
 
@@ -90,8 +89,10 @@ def level_indices(book: Book, run: Run, name: str) -> tuple[tuple[str, ...], np.
     codes = pd.Categorical(book.frame[name], categories=list(levels)).codes.astype(np.int64)
     if (codes < 0).any():
         row = int(np.flatnonzero(codes < 0)[0])
-        raise InputError(f"{book.path}: column '{name}', row {row}: level {book.frame[name].iloc[row]!r} is not "
-                         f"one of the run's levels ({run.files.levels})")
+        raise InputError(
+            f"{book.path}: column '{name}', row {row}: level {book.frame[name].iloc[row]!r} is not "
+            f"one of the run's levels ({run.files.levels})"
+        )
     return levels, codes
 
 
@@ -112,28 +113,40 @@ def gbm_bands(run: Run, book: Book, preds: pd.DataFrame, train: np.ndarray) -> t
     check = rows[:CHECK_ROWS]
     stored = preds["gbm_pure_premium"].to_numpy()
     if not np.allclose(model.predict(features.iloc[check]), stored[check], rtol=CHECK_TOLERANCE, atol=0):
-        raise InputError(f"{model_text}: the model does not reproduce "
-                         f"column 'gbm_pure_premium' of predictions.parquet on the book")
+        raise InputError(
+            f"{model_text}: the model does not reproduce column 'gbm_pure_premium' of predictions.parquet on the book"
+        )
     factors = []
     for f in spec.factors:
         if f.type == "numeric":
             factors.append(FactorValues(f.name, f.monotone, book.frame[f.name].to_numpy(dtype=float)[rows]))
             continue
         levels, codes = level_indices(book, run, f.name)
-        factors.append(FactorValues(f.name, f.monotone, codes[rows], levels=levels,
-                                    model_codes=_model_codes(model, f.name, levels), ordered=f.levels is not None,
-                                    base_level=f.base))
+        factors.append(
+            FactorValues(
+                f.name,
+                f.monotone,
+                codes[rows],
+                levels=levels,
+                model_codes=_model_codes(model, f.name, levels),
+                ordered=f.levels is not None,
+                base_level=f.base,
+            )
+        )
     sample = model.encode(features.iloc[rows[exposure_sample(book.exposure[rows], opts.sample, spec.split.seed)]])
     result = distil(model.model_text(), sample, factors, book.exposure[rows], stored[rows], opts)
     fit = result.pooled.fit
     notes = {
         "method": "partial dependence on the raw score, isotonic where promised, optimal segmentation, "
-                  "Poisson quasi-likelihood refit on the boosted predictions with monotone pooling",
-        "sample_policies": int(opts.sample), "seed": spec.split.seed,
+        "Poisson quasi-likelihood refit on the boosted predictions with monotone pooling",
+        "sample_policies": int(opts.sample),
+        "seed": spec.split.seed,
         "grid_points": {n: int(c.points.size) for n, c in result.curves.items()},
         "bands_before_pooling": {n: b.n_bands for n, b in result.initial.items()},
         "bands": {n: b.n_bands for n, b in result.pooled.bandings.items()},
-        "merges": result.pooled.merges, "aliased_terms": fit.aliased, "refit_iterations": fit.iterations,
+        "merges": result.pooled.merges,
+        "aliased_terms": fit.aliased,
+        "refit_iterations": fit.iterations,
     }
     return result.pooled.bandings, fit.relativities, fit.two_way, fit.bases, notes
 
@@ -167,8 +180,14 @@ def glm_bands(run: Run, book: Book) -> tuple[dict, dict, dict, dict, dict]:
             labels = band_labels(levels.edges)
         else:
             labels = list(levels.labels)
-            banding = Banding(f.name, f.monotone, levels=tuple(labels), band_of_level=np.arange(len(labels)),
-                              ordered=f.levels is not None, base_level=levels.base)
+            banding = Banding(
+                f.name,
+                f.monotone,
+                levels=tuple(labels),
+                band_of_level=np.arange(len(labels)),
+                ordered=f.levels is not None,
+                base_level=levels.base,
+            )
         values = []
         for label in labels:
             value = fitted.get(label)
@@ -177,8 +196,11 @@ def glm_bands(run: Run, book: Book) -> tuple[dict, dict, dict, dict, dict]:
             values.append(1.0 if value is None else float(value))
         bandings[f.name], relativities[f.name] = banding, np.array(values)
         bases[f.name] = labels.index(levels.base)
-    notes = {"method": "relativities of the run's Tweedie GLM (models/glm_pure_premium.json) on its bands",
-             "power": glm.get("power"), "levels_without_estimate_set_to_1": defaulted}
+    notes = {
+        "method": "relativities of the run's Tweedie GLM (models/glm_pure_premium.json) on its bands",
+        "power": glm.get("power"),
+        "levels_without_estimate_set_to_1": defaulted,
+    }
     return bandings, relativities, {}, bases, notes
 
 
@@ -193,16 +215,23 @@ def _row_cells(banding: Banding, book: Book, run: Run, rows: np.ndarray) -> np.n
     return level_indices(book, run, banding.name)[1][rows]
 
 
-def table_factors(spec: Spec, bandings: dict[str, Banding], relativities: dict[str, np.ndarray],
-                  two_way: dict[tuple[str, str], np.ndarray], bases: dict[str, int], cells: dict[str, np.ndarray],
-                  exposure: np.ndarray, amount: np.ndarray, decimals: int | None) -> tuple:
+def table_factors(
+    spec: Spec,
+    bandings: dict[str, Banding],
+    relativities: dict[str, np.ndarray],
+    two_way: dict[tuple[str, str], np.ndarray],
+    bases: dict[str, int],
+    cells: dict[str, np.ndarray],
+    exposure: np.ndarray,
+    amount: np.ndarray,
+    decimals: int | None,
+) -> tuple:
     """Rating-table factors in spec order, then the two-way tables; relativities rounded to `decimals`
     (None: unrounded), the unrounded refit kept as `indicated`, exposure of the training rows, and the
     Buhlmann-Straub credibility of each band's or level's own experience (amount per exposure) toward
     its complement (neighbouring bands, or the overall level for categoricals) for the reviewer."""
-    from rating_tables import Bands, CategoricalFactor, InteractionFactor, NumericFactor
-
     from premiumlab.tabulation.credibility import credibility_by_level
+    from rating_tables import Bands, CategoricalFactor, InteractionFactor, NumericFactor
 
     def selected(values: np.ndarray) -> np.ndarray:
         return values if decimals is None else round_relativity(values, decimals)
@@ -214,9 +243,18 @@ def table_factors(spec: Spec, bandings: dict[str, Banding], relativities: dict[s
             lower = np.concatenate([[-np.inf], b.edges])
             upper = np.concatenate([b.edges, [np.inf]])
             z = credibility_by_level(amount, exposure, cells[f.name], b.n_bands, numeric=True)["credibility"]
-            out.append(NumericFactor(f.name, f.monotone, lower, upper, selected(rel),
-                                     band_exposure(cells[f.name], b.n_bands, exposure), indicated=rel,
-                                     credibility=z.to_numpy()))
+            out.append(
+                NumericFactor(
+                    f.name,
+                    f.monotone,
+                    lower,
+                    upper,
+                    selected(rel),
+                    band_exposure(cells[f.name], b.n_bands, exposure),
+                    indicated=rel,
+                    credibility=z.to_numpy(),
+                )
+            )
             sides[f.name] = (Bands(lower, upper), np.arange(b.n_bands))
             continue
         level_rel = rel[b.band_of_level]
@@ -226,17 +264,30 @@ def table_factors(spec: Spec, bandings: dict[str, Banding], relativities: dict[s
             in_base = np.flatnonzero(b.band_of_level == bases[f.name])
             base = b.levels[in_base[np.argmax(level_exposure[in_base])]]
         z = credibility_by_level(amount, exposure, cells[f.name], len(b.levels))["credibility"]
-        out.append(CategoricalFactor(f.name, f.monotone, b.levels, selected(level_rel), level_exposure,
-                                     fallback=f.fallback, base=base, indicated=level_rel,
-                                     credibility=z.to_numpy()))
+        out.append(
+            CategoricalFactor(
+                f.name,
+                f.monotone,
+                b.levels,
+                selected(level_rel),
+                level_exposure,
+                fallback=f.fallback,
+                base=base,
+                indicated=level_rel,
+                credibility=z.to_numpy(),
+            )
+        )
         sides[f.name] = (b.levels, b.band_of_level)
     for (a, b), matrix in two_way.items():
         (a_cells, a_band), (b_cells, b_band) = sides[a], sides[b]
         expanded = matrix[np.ix_(a_band, b_band)]
         cell_exposure = np.zeros(expanded.shape)
         np.add.at(cell_exposure, (cells[a], cells[b]), exposure)
-        out.append(InteractionFactor(f"{a}__{b}", (a, b), a_cells, b_cells, selected(expanded),
-                                     exposure=cell_exposure, indicated=expanded))
+        out.append(
+            InteractionFactor(
+                f"{a}__{b}", (a, b), a_cells, b_cells, selected(expanded), exposure=cell_exposure, indicated=expanded
+            )
+        )
     return tuple(out)
 
 
@@ -254,29 +305,51 @@ def pure_premium_target(spec: Spec, book: Book, train: np.ndarray) -> dict:
         return {"basis": "experience", "total_pure_premium": float(book.claim_amount[train].sum())}
     current = float(book.current_premium[train].sum())
     premium = current * (1.0 + opts.overall_change)
-    pure = (premium * (1.0 - load.variable_expense - load.profit)
-            - load.fixed_expense * float(book.exposure[train].sum())) / (1.0 + load.lae_ratio)
+    pure = (
+        premium * (1.0 - load.variable_expense - load.profit) - load.fixed_expense * float(book.exposure[train].sum())
+    ) / (1.0 + load.lae_ratio)
     if not pure > 0:
-        raise InputError(f"{spec.source}: key 'table.overall_change': the target premium {premium:.2f} leaves no "
-                         f"pure premium after fixed expenses and loadings")
-    return {"basis": "current_premium", "current_premium_total": current, "overall_change": opts.overall_change,
-            "target_premium_total": premium, "permissible_loss_ratio": pure / premium, "total_pure_premium": pure}
+        raise InputError(
+            f"{spec.source}: key 'table.overall_change': the target premium {premium:.2f} leaves no "
+            f"pure premium after fixed expenses and loadings"
+        )
+    return {
+        "basis": "current_premium",
+        "current_premium_total": current,
+        "overall_change": opts.overall_change,
+        "target_premium_total": premium,
+        "permissible_loss_ratio": pure / premium,
+        "total_pure_premium": pure,
+    }
 
 
 def make_table(spec: Spec, factors: tuple, base_rate: float, target: dict, provenance: dict):
     from rating_tables import Loadings, RatingTable, Rounding
 
     opts, load = spec.table, spec.loadings
-    return RatingTable(table_id=opts.table_id, effective_date=opts.effective_date, base_rate=base_rate,
-                       exposure_unit=opts.exposure_unit, factors=factors,
-                       loadings=Loadings(load.lae_ratio, load.fixed_expense, load.variable_expense, load.profit,
-                                         load.minimum_premium),
-                       rounding=Rounding(opts.relativity_decimals, opts.premium_decimals),
-                       target=target, provenance=provenance, cautions=tuple(cautions_for(spec)))
+    return RatingTable(
+        table_id=opts.table_id,
+        effective_date=opts.effective_date,
+        base_rate=base_rate,
+        exposure_unit=opts.exposure_unit,
+        factors=factors,
+        loadings=Loadings(load.lae_ratio, load.fixed_expense, load.variable_expense, load.profit, load.minimum_premium),
+        rounding=Rounding(opts.relativity_decimals, opts.premium_decimals),
+        target=target,
+        provenance=provenance,
+        cautions=tuple(cautions_for(spec)),
+    )
 
 
-def rate_level(spec: Spec, unrounded: tuple, rounded: tuple, frame: pd.DataFrame, target: dict,
-               provenance: dict, current_total: float | None):
+def rate_level(
+    spec: Spec,
+    unrounded: tuple,
+    rounded: tuple,
+    frame: pd.DataFrame,
+    target: dict,
+    provenance: dict,
+    current_total: float | None,
+):
     """Solve the base rate of the rounded table; state the off-balances (module docstring)."""
     from rating_tables import rate, solve_base_rate
 
@@ -286,33 +359,49 @@ def rate_level(spec: Spec, unrounded: tuple, rounded: tuple, frame: pd.DataFrame
     table, report = solve_base_rate(make_table(spec, rounded, 1.0, target, provenance), frame, expo, total)
     rounded_at_exact = exact["base_rate"] * report["total_pure_premium_before"]
     gross = float(rate(table, frame, expo)["gross_premium"].sum())
-    out = {"target": target, "base_rate": table.base_rate, "base_rate_unrounded_relativities": exact["base_rate"],
-           "total_pure_premium": report["total_pure_premium"],
-           "rounding_off_balance": rounded_at_exact / total - 1.0,
-           "minimum_premium_off_balance": report.get("minimum_premium", {}).get("effect", 0.0),
-           "policies_at_minimum": report.get("minimum_premium", {}).get("policies_at_minimum", 0),
-           "gross_premium_total": gross}
+    out = {
+        "target": target,
+        "base_rate": table.base_rate,
+        "base_rate_unrounded_relativities": exact["base_rate"],
+        "total_pure_premium": report["total_pure_premium"],
+        "rounding_off_balance": rounded_at_exact / total - 1.0,
+        "minimum_premium_off_balance": report.get("minimum_premium", {}).get("effect", 0.0),
+        "policies_at_minimum": report.get("minimum_premium", {}).get("policies_at_minimum", 0),
+        "gross_premium_total": gross,
+    }
     if current_total is not None:
         out["current_premium_total"] = current_total
         out["indicated_overall_change"] = gross / current_total - 1.0
     return table, out
 
 
-def fidelity(table, frame: pd.DataFrame, spec: Spec, book: Book, preds: pd.DataFrame, rows: np.ndarray,
-             power: float, rows_name: str) -> dict:
+def fidelity(
+    table,
+    frame: pd.DataFrame,
+    spec: Spec,
+    book: Book,
+    preds: pd.DataFrame,
+    rows: np.ndarray,
+    power: float,
+    rows_name: str,
+) -> dict:
     """Deviance and Gini of the table, the boosted model and the GLM on `rows`, and the retention."""
-    from rating_tables import rate
-
     from premiumlab.evaluation.metrics import gini
     from premiumlab.models.deviance import mean_deviance
+    from rating_tables import rate
 
     exposure, amount = book.exposure[rows], book.claim_amount[rows]
     predictions = {"table": rate(table, frame, spec.columns.exposure)["pure_premium"].to_numpy() / exposure}
     for name in ("gbm", "glm"):
         if f"{name}_pure_premium" in preds.columns:
             predictions[name] = preds[f"{name}_pure_premium"].to_numpy()[rows]
-    scores = {name: {"mean_deviance": mean_deviance(amount / exposure, mu, exposure, power),
-                     "gini": gini(amount, mu, exposure)} for name, mu in predictions.items()}
+    scores = {
+        name: {
+            "mean_deviance": mean_deviance(amount / exposure, mu, exposure, power),
+            "gini": gini(amount, mu, exposure),
+        }
+        for name, mu in predictions.items()
+    }
     g = {name: s["gini"] for name, s in scores.items()}
     retention = {}
     if "gbm" in g:
@@ -321,8 +410,13 @@ def fidelity(table, frame: pd.DataFrame, spec: Spec, book: Book, preds: pd.DataF
             gap = g["gbm"] - g["glm"]
             retention["gbm_lift_over_glm_kept"] = (g["table"] - g["glm"]) / gap if gap else None
             retention["gini_gbm_minus_glm"] = gap
-    return {"rows": rows_name, "policies": int(rows.size), "tweedie_power": power, "models": scores,
-            "retention": retention}
+    return {
+        "rows": rows_name,
+        "policies": int(rows.size),
+        "tweedie_power": power,
+        "models": scores,
+        "retention": retention,
+    }
 
 
 def _power(run: Run, model: str) -> float:
@@ -340,8 +434,9 @@ def _power(run: Run, model: str) -> float:
 # the command
 
 
-def tabulate(run_dir: str | Path, out: str | Path, model: str = "gbm", force: bool = False,
-             book: str | Path | None = None) -> dict:
+def tabulate(
+    run_dir: str | Path, out: str | Path, model: str = "gbm", force: bool = False, book: str | Path | None = None
+) -> dict:
     """Write the rating table TABLE/ (table.json, factors/*.csv), TABLE/fidelity.json and
     TABLE/exhibit.xlsx from a run; returns the summary written to fidelity.json."""
     from rating_tables import save, write_exhibit
@@ -367,18 +462,33 @@ def tabulate(run_dir: str | Path, out: str | Path, model: str = "gbm", force: bo
     exposure = loaded.exposure[rows]
     amount = loaded.claim_amount[rows]
     unrounded = table_factors(spec, bandings, rel, two_way, bases, cells, exposure, amount, None)
-    rounded = table_factors(spec, bandings, rel, two_way, bases, cells, exposure, amount,
-                            spec.table.relativity_decimals)
+    rounded = table_factors(
+        spec, bandings, rel, two_way, bases, cells, exposure, amount, spec.table.relativity_decimals
+    )
     target = pure_premium_target(spec, loaded, train)
-    provenance = {"run": Path(run_dir).resolve().name, "model": f"{model}_pure_premium",
-                  "book_sha256": loaded.sha256}
+    provenance = {"run": Path(run_dir).resolve().name, "model": f"{model}_pure_premium", "book_sha256": loaded.sha256}
     current = None if loaded.current_premium is None else float(loaded.current_premium[train].sum())
     table, level = rate_level(spec, unrounded, rounded, rating_frame(loaded, spec, rows), target, provenance, current)
     held = np.flatnonzero(loaded.holdout) if loaded.holdout.any() else rows
-    measured = fidelity(table, rating_frame(loaded, spec, held), spec, loaded, preds, held, _power(run, model),
-                        "holdout" if loaded.holdout.any() else "training (the run has no holdout)")
-    summary = {"format": "premiumlab.fidelity", "version": 1, "provenance": provenance, "fidelity": measured,
-               "rate_level": level, "distillation": notes, "cautions": list(table.cautions)}
+    measured = fidelity(
+        table,
+        rating_frame(loaded, spec, held),
+        spec,
+        loaded,
+        preds,
+        held,
+        _power(run, model),
+        "holdout" if loaded.holdout.any() else "training (the run has no holdout)",
+    )
+    summary = {
+        "format": "premiumlab.fidelity",
+        "version": 1,
+        "provenance": provenance,
+        "fidelity": measured,
+        "rate_level": level,
+        "distillation": notes,
+        "cautions": list(table.cautions),
+    }
     with atomic_output(out, force=force, inputs=inputs) as tmp:
         save(table, tmp)
         write_json(tmp / "fidelity.json", summary)

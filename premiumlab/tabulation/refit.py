@@ -11,6 +11,7 @@ bands, every pair with a base band sharing its base level.
 Pooling (`pooled_refit`): merges the adjacent bands of a promised factor with the worst reversal
 and refits, until main effect x every two-way table is monotone, before and after rounding.
 """
+
 from __future__ import annotations
 
 import itertools
@@ -45,12 +46,14 @@ class Refit:
 
 def _pair_cells(sizes: dict[str, int], bases: dict[str, int], a: str, b: str) -> list[tuple[int, int]]:
     """The non-base pairs of bands of a two-way table (a, b), in row-major order."""
-    return list(itertools.product([i for i in range(sizes[a]) if i != bases[a]],
-                                  [j for j in range(sizes[b]) if j != bases[b]]))
+    return list(
+        itertools.product([i for i in range(sizes[a]) if i != bases[a]], [j for j in range(sizes[b]) if j != bases[b]])
+    )
 
 
-def banded_design(codes: dict[str, np.ndarray], sizes: dict[str, int], bases: dict[str, int],
-                  pairs: list[tuple[str, str]]) -> OneHotDesign:
+def banded_design(
+    codes: dict[str, np.ndarray], sizes: dict[str, int], bases: dict[str, int], pairs: list[tuple[str, str]]
+) -> OneHotDesign:
     """The one-hot design of the rows: one factor per banded factor (levels "0", "1", ..., base the
     base band), then one per two-way table (a, b) named "a:b" with level 0 for every pair of bands
     that includes a base band and one level "i, j" per non-base pair (i, j)."""
@@ -66,15 +69,21 @@ def banded_design(codes: dict[str, np.ndarray], sizes: dict[str, int], bases: di
         for level, (i, j) in enumerate(cells, start=1):
             level_of_pair[i, j] = level
         names.append(f"{a}:{b}")
-        levels.append(("base",) + tuple(f"{i}, {j}" for i, j in cells))
+        levels.append(("base", *tuple(f"{i}, {j}" for i, j in cells)))
         base_codes.append(0)
         columns.append(level_of_pair[codes[a], codes[b]])
     n_rows = next(iter(codes.values())).size
     return OneHotDesign(tuple(names), tuple(levels), tuple(base_codes), column_major(columns, n_rows))
 
 
-def refit(codes: dict[str, np.ndarray], sizes: dict[str, int], bases: dict[str, int],
-          pairs: list[tuple[str, str]], exposure: np.ndarray, response: np.ndarray) -> Refit:
+def refit(
+    codes: dict[str, np.ndarray],
+    sizes: dict[str, int],
+    bases: dict[str, int],
+    pairs: list[tuple[str, str]],
+    exposure: np.ndarray,
+    response: np.ndarray,
+) -> Refit:
     """Fit the banded multiplicative model to `response` (per exposure unit) with weights `exposure`.
 
     Parameters
@@ -114,7 +123,7 @@ def refit(codes: dict[str, np.ndarray], sizes: dict[str, int], bases: dict[str, 
     relativity = [np.exp(beta[design.columns_of(j)]) for j in range(len(design.factor_names))]
     rel = dict(zip(codes, relativity))
     two = {}
-    for (a, b), pair_relativity in zip(pairs, relativity[len(codes):]):
+    for (a, b), pair_relativity in zip(pairs, relativity[len(codes) :]):
         matrix = np.ones((sizes[a], sizes[b]))
         for (i, j), value in zip(_pair_cells(sizes, bases, a, b), pair_relativity[1:]):
             matrix[i, j] = value
@@ -128,11 +137,12 @@ def refit(codes: dict[str, np.ndarray], sizes: dict[str, int], bases: dict[str, 
 
 def round_relativity(values: np.ndarray, decimals: int) -> np.ndarray:
     """Relativities rounded half to even to `decimals`, never below 10^-decimals (a table needs > 0)."""
-    return np.maximum(np.round(values, decimals), 10.0 ** -decimals)
+    return np.maximum(np.round(values, decimals), 10.0**-decimals)
 
 
-def effect_grid(name: str, relativities: dict[str, np.ndarray], two_way: dict[tuple[str, str], np.ndarray]
-                ) -> np.ndarray:
+def effect_grid(
+    name: str, relativities: dict[str, np.ndarray], two_way: dict[tuple[str, str], np.ndarray]
+) -> np.ndarray:
     """Relativity of factor `name` by band (rows) for every combination of the bands of the factors it
     shares a two-way table with (columns): main effect x each of its two-way tables."""
     out = relativities[name][:, None]
@@ -186,8 +196,14 @@ def band_exposure(codes: np.ndarray, n_bands: int, exposure: np.ndarray) -> np.n
     return np.bincount(codes, weights=exposure, minlength=n_bands)
 
 
-def pooled_refit(bandings: dict[str, Banding], values: dict[str, np.ndarray], pairs: list[tuple[str, str]],
-                 exposure: np.ndarray, response: np.ndarray, decimals: int) -> PooledRefit:
+def pooled_refit(
+    bandings: dict[str, Banding],
+    values: dict[str, np.ndarray],
+    pairs: list[tuple[str, str]],
+    exposure: np.ndarray,
+    response: np.ndarray,
+    decimals: int,
+) -> PooledRefit:
     """Refit, find the worst adjacent reversal of a promised factor, pool those two bands, refit, until
     no promise is breached (`values`: numeric values or level indices of the training rows)."""
     bandings = dict(bandings)
@@ -202,7 +218,13 @@ def pooled_refit(bandings: dict[str, Banding], values: dict[str, np.ndarray], pa
             return PooledRefit(bandings, fit, codes, merges)
         name, k = reversal.factor, reversal.band
         labels = bandings[name].labels()
-        merges.append({"factor": name, "bands": [labels[k], labels[k + 1]],
-                       "reversal_log": reversal.amount, "after_rounding": reversal.rounded})
+        merges.append(
+            {
+                "factor": name,
+                "bands": [labels[k], labels[k + 1]],
+                "reversal_log": reversal.amount,
+                "after_rounding": reversal.rounded,
+            }
+        )
         bandings[name] = bandings[name].merged(k)
         codes[name] = np.where(codes[name] > k, codes[name] - 1, codes[name])

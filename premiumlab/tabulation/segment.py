@@ -5,6 +5,7 @@ Both work on a curve given at ordered points (grid values or ordered levels) wit
 weight per point (the exposure the point stands for). They are pure functions with no I/O; loops
 run over the points of the curve (at most a few hundred), never over policies.
 """
+
 from __future__ import annotations
 
 from dataclasses import dataclass
@@ -83,8 +84,9 @@ def segment_cost_matrix(values: np.ndarray, weights: np.ndarray, min_weight: flo
     return np.where(feasible, cost, np.inf)
 
 
-def optimal_segmentation(values: np.ndarray, weights: np.ndarray, max_segments: int,
-                         min_share: float = 0.0) -> Segmentation:
+def optimal_segmentation(
+    values: np.ndarray, weights: np.ndarray, max_segments: int, min_share: float = 0.0
+) -> Segmentation:
     """Exact dynamic programme: the contiguous segmentation into at most `max_segments` segments,
     each holding at least `min_share` of the total weight, that minimises the weighted squared error
     of the curve around the segment means.

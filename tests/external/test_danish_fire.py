@@ -6,6 +6,7 @@ severity distributions using extreme value theory", ASTIN Bulletin 27(1), fits a
 distribution above a threshold of 10 million kroner: 109 exceedances, shape about 0.50 and scale
 about 7.0 (recalled from memory: 0.497 and 6.98).
 """
+
 from __future__ import annotations
 
 import json
@@ -35,8 +36,9 @@ def test_threshold_aid_reproduces_the_published_danish_tail(tmp_path):
     book = tmp_path / "danish.csv"
     # one row per loss: a book of single losses; `half` is a placeholder factor (a spec needs one)
     rows = np.arange(losses.size)
-    book.write_text("exposure,claim_count,loss,half\n" + "".join(
-        f"1,1,{x:.17g},{'ab'[i % 2]}\n" for i, x in zip(rows, losses)))
+    book.write_text(
+        "exposure,claim_count,loss,half\n" + "".join(f"1,1,{x:.17g},{'ab'[i % 2]}\n" for i, x in zip(rows, losses))
+    )
     (tmp_path / "spec.toml").write_text(SPEC)
     r = run_cli("tails", str(book), "--spec", str(tmp_path / "spec.toml"), "--threshold", "10", "--json")
     assert r.returncode == 0, r.stderr

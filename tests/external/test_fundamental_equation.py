@@ -7,6 +7,7 @@ indicated rate per exposure of the pure premium method,
 with V the variable expense provision and Q the profit provision, both shares of premium.
 Figures constructed for this test, formula as published; not recalled from the text.
 """
+
 from __future__ import annotations
 
 import numpy as np
@@ -23,8 +24,14 @@ LAE_RATIO, FIXED, VARIABLE, PROFIT = 0.08, 40.0, 0.15, 0.05
 
 def _table(minimum_premium: float = 0.0) -> RatingTable:
     level = CategoricalFactor("cover", "none", ("standard",), [1.0], [1.0])
-    return RatingTable("fundamental-equation-check", "2027-01-01", LOSS_PER_EXPOSURE, "exposure",
-                       (level,), Loadings(LAE_RATIO, FIXED, VARIABLE, PROFIT, minimum_premium))
+    return RatingTable(
+        "fundamental-equation-check",
+        "2027-01-01",
+        LOSS_PER_EXPOSURE,
+        "exposure",
+        (level,),
+        Loadings(LAE_RATIO, FIXED, VARIABLE, PROFIT, minimum_premium),
+    )
 
 
 def test_indicated_rate_per_exposure():
@@ -38,7 +45,9 @@ def test_indicated_rate_per_exposure():
 def test_the_premium_balances_the_fundamental_equation():
     """387.50 = losses 250 + LAE 20 + fixed 40 + variable 15 % x 387.50 (58.125) + profit 5 % x 387.50
     (19.375): premium equals losses + LAE + underwriting expenses + underwriting profit."""
-    premium = rate(_table(), pd.DataFrame({"cover": ["standard"], "exposure": [1.0]}), "exposure")["gross_premium"].iloc[0]
+    premium = rate(_table(), pd.DataFrame({"cover": ["standard"], "exposure": [1.0]}), "exposure")[
+        "gross_premium"
+    ].iloc[0]
     balance = LOSS_PER_EXPOSURE * (1 + LAE_RATIO) + FIXED + (VARIABLE + PROFIT) * premium
     assert premium == pytest.approx(balance, abs=1e-9)
     # permissible loss ratio (losses and LAE over premium) = 1 - V - Q - F / premium = 270 / 387.5 = 0.69677...

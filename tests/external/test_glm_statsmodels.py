@@ -6,6 +6,7 @@ Poisson), and the Poisson fit of the car-insurance claims data of Baxter, Coutts
 Statistics with S*: residual deviance 51.42 on 54 degrees of freedom, AIC 388.7 (recalled from
 memory; statsmodels gives the same figures, which is asserted too).
 """
+
 from __future__ import annotations
 
 import numpy as np
@@ -29,10 +30,12 @@ def insurance() -> pd.DataFrame:
 
 
 def insurance_inputs(data: pd.DataFrame) -> GlmInputs:
-    factors = pd.DataFrame({
-        name: pd.Categorical(data[name], categories=list(pd.unique(data[name])))
-        for name in ("District", "Group", "Age")
-    })
+    factors = pd.DataFrame(
+        {
+            name: pd.Categorical(data[name], categories=list(pd.unique(data[name])))
+            for name in ("District", "Group", "Age")
+        }
+    )
     return GlmInputs(
         factors=factors,
         base_levels={name: factors[name].cat.categories[0] for name in factors},
@@ -54,8 +57,9 @@ def test_insurance_poisson_matches_the_printed_fit_and_statsmodels(insurance, en
 
     order = {name: list(pd.unique(insurance[name])) for name in ("District", "Group", "Age")}
     formula = "Claims ~ " + " + ".join(f"C({name}, levels={order[name]!r})" for name in order)
-    reference = smf.glm(formula, data=insurance, family=sm.families.Poisson(),
-                        offset=np.log(insurance["Holders"])).fit()
+    reference = smf.glm(
+        formula, data=insurance, family=sm.families.Poisson(), offset=np.log(insurance["Holders"])
+    ).fit()
     assert result.deviance == pytest.approx(reference.deviance, rel=1e-8)
     assert result.aic == pytest.approx(reference.aic, rel=1e-8)
     for name, levels in order.items():
@@ -100,11 +104,19 @@ def statsmodels_on_rows(inputs: GlmInputs, family: str):
         model = sm.GLM(count, exog, family=sm.families.Poisson(), offset=np.log(exposure))
     elif family == "gamma":
         rows = (count > 0) & (amount > 0)
-        model = sm.GLM(amount[rows] / count[rows], exog[rows], var_weights=count[rows],
-                       family=sm.families.Gamma(link=sm.families.links.Log()))
+        model = sm.GLM(
+            amount[rows] / count[rows],
+            exog[rows],
+            var_weights=count[rows],
+            family=sm.families.Gamma(link=sm.families.links.Log()),
+        )
     else:
-        model = sm.GLM(amount / exposure, exog, var_weights=exposure,
-                       family=sm.families.Tweedie(var_power=TWEEDIE_POWER, eql=False))
+        model = sm.GLM(
+            amount / exposure,
+            exog,
+            var_weights=exposure,
+            family=sm.families.Tweedie(var_power=TWEEDIE_POWER, eql=False),
+        )
     return model.fit()
 
 

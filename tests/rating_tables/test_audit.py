@@ -1,4 +1,5 @@
 """The audit finds and names injected violations, with the size of each, and passes a clean table."""
+
 from __future__ import annotations
 
 import dataclasses
@@ -45,8 +46,13 @@ def test_reversal_inside_a_two_way_table_is_found():
     """Main effect 1.5, 1.0, 0.9 is decreasing, but for Coast at age >= 30 the two-way relativity 1.3 makes
     [25, 30) -> [30, 60) go from 1.0 x 1.0 to 1.0 x 1.3: up by 30 % for region 'Coast' only."""
     table = example_table()
-    two_way = InteractionFactor("age__region", ("age", "region"), table.factor("age__region").a_cells,
-                                ("North", "South", "Coast"), [[1.0, 1.0, 1.0], [1.0, 1.0, 1.3]])
+    two_way = InteractionFactor(
+        "age__region",
+        ("age", "region"),
+        table.factor("age__region").a_cells,
+        ("North", "South", "Coast"),
+        [[1.0, 1.0, 1.0], [1.0, 1.0, 1.3]],
+    )
     found = audit(_replace(table, age=_age([1.5, 1.0, 0.9], "decreasing"), age__region=two_way))
     assert [(v.check, v.factor, v.where) for v in found] == [("monotone", "age", "[25, 30) to [30, 60)")]
     assert found[0].amount == pytest.approx(0.3, rel=1e-12)
@@ -64,8 +70,9 @@ def test_ordered_categorical_promise_is_checked_in_file_order():
 def test_missing_base_level_is_found():
     """No age band at 1 (closest 1.1, off by 0.1); region's named base North at 1.05 (off by 0.05).
     1.0004 rounds to 1.000 at 3 decimals and counts as the base; 1.0006 does not."""
-    region = CategoricalFactor("region", "none", ("North", "South", "Coast"), [1.05, 0.875, 1.5], [1.0] * 3,
-                               fallback="North", base="North")
+    region = CategoricalFactor(
+        "region", "none", ("North", "South", "Coast"), [1.05, 0.875, 1.5], [1.0] * 3, fallback="North", base="North"
+    )
     found = audit(_replace(example_table(), age=_age([1.5, 1.1, 1.25]), region=region))
     assert [(v.check, v.factor) for v in found] == [("base_level", "age"), ("base_level", "region")]
     assert [v.amount for v in found] == pytest.approx([0.1, 0.05], rel=1e-9)
@@ -75,31 +82,42 @@ def test_missing_base_level_is_found():
 
 def test_two_way_table_needs_a_base_row_and_column():
     table = example_table()
-    two_way = InteractionFactor("age__region", ("age", "region"), table.factor("age__region").a_cells,
-                                ("North", "South", "Coast"), [[1.1, 1.0, 1.125], [1.2, 1.0, 1.05]])
+    two_way = InteractionFactor(
+        "age__region",
+        ("age", "region"),
+        table.factor("age__region").a_cells,
+        ("North", "South", "Coast"),
+        [[1.1, 1.0, 1.125], [1.2, 1.0, 1.05]],
+    )
     found = audit(_replace(table, age__region=two_way))
     assert [(v.check, v.where) for v in found] == [("base_level", "row")]
-    assert found[0].amount == pytest.approx(0.125, rel=1e-9)   # row [1.1, 1.0, 1.125] is closest: max gap 0.125
+    assert found[0].amount == pytest.approx(0.125, rel=1e-9)  # row [1.1, 1.0, 1.125] is closest: max gap 0.125
 
 
 def test_bounds_and_unknown_promises():
     """Bounds 0.8 to 1.4 on every factor: age 1.5 and Coast 1.5 exceed by 0.1, bonus 01 at 0.75 is 0.05 short."""
     found = audit(example_table(), promises={"vehicle_use": "increasing"}, bounds={"*": (0.8, 1.4)})
     assert [(v.check, v.factor, v.where) for v in found] == [
-        ("promise", "vehicle_use", None), ("bounds", "age", "[-inf, 25)"), ("bounds", "region", "Coast"),
-        ("bounds", "bonus", "01")]
+        ("promise", "vehicle_use", None),
+        ("bounds", "age", "[-inf, 25)"),
+        ("bounds", "region", "Coast"),
+        ("bounds", "bonus", "01"),
+    ]
     assert [v.amount for v in found[1:]] == pytest.approx([0.1, 0.1, 0.05], rel=1e-9)
     with pytest.raises(TableError, match="direction 'upward' for 'age' must be one of"):
         audit(example_table(), promises={"age": "upward"})
 
 
-@pytest.mark.parametrize("name, old, new, check, text", [
-    ("factors/age.csv", "25.0,60.0,1.0", "26.0,60.0,1.0", "bands", "gap between the previous band's upper 25"),
-    ("factors/age.csv", "25.0,60.0,1.0", "20.0,60.0,1.0", "bands", "overlap"),
-    ("factors/age.csv", "25.0,60.0,1.0,", "25.0,60.0,0.0,", "relativity", "relativity 0 must be finite and > 0"),
-    ("table.json", '"file": "factors/bonus.csv"', '"file": "../bonus.csv"', "file_path", "uses '..'"),
-    ("table.json", '"file": "factors/bonus.csv"', '"file": "/tmp/bonus.csv"', "file_path", "absolute path"),
-])
+@pytest.mark.parametrize(
+    "name, old, new, check, text",
+    [
+        ("factors/age.csv", "25.0,60.0,1.0", "26.0,60.0,1.0", "bands", "gap between the previous band's upper 25"),
+        ("factors/age.csv", "25.0,60.0,1.0", "20.0,60.0,1.0", "bands", "overlap"),
+        ("factors/age.csv", "25.0,60.0,1.0,", "25.0,60.0,0.0,", "relativity", "relativity 0 must be finite and > 0"),
+        ("table.json", '"file": "factors/bonus.csv"', '"file": "../bonus.csv"', "file_path", "uses '..'"),
+        ("table.json", '"file": "factors/bonus.csv"', '"file": "/tmp/bonus.csv"', "file_path", "absolute path"),
+    ],
+)
 def test_structural_violations_of_a_folder_are_reported(tmp_path, name, old, new, check, text):
     folder = tmp_path / "T"
     save(example_table(), folder)

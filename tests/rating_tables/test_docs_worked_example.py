@@ -5,6 +5,7 @@ The table folder and the book are read from the page itself (each file is the fe
 by hand on the page; here `rating_tables.rate` must give them to the cent, and the files must be in
 the canonical form that `rating_tables.save` writes.
 """
+
 from __future__ import annotations
 
 import re
@@ -38,8 +39,12 @@ def example(tmp_path_factory) -> dict:
         target = base / ("book" if path == "book.csv" else "table") / path
         target.parent.mkdir(parents=True, exist_ok=True)
         target.write_text(text, encoding="utf-8")
-    return {"body": body, "files": files, "table": rating_tables.load(base / "table"),
-            "book": pd.read_csv(base / "book" / "book.csv", dtype={"policy_id": str, "region": str})}
+    return {
+        "body": body,
+        "files": files,
+        "table": rating_tables.load(base / "table"),
+        "book": pd.read_csv(base / "book" / "book.csv", dtype={"policy_id": str, "region": str}),
+    }
 
 
 def test_the_example_files_are_in_canonical_form(example, tmp_path):

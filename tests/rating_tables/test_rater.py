@@ -3,6 +3,7 @@
 The hand calculation applies the premium formula of docs/rating-table.md to an invented table (figures
 written out below); batch rating is checked against one-piece rating byte for byte.
 """
+
 from __future__ import annotations
 
 import dataclasses
@@ -46,8 +47,19 @@ def test_rater_matches_hand_calculation():
     assert rated["rel_age"].tolist() == [1.5, 1.0, 1.25, 1.0, 1.0]
     assert rated["rel_region"].tolist() == [1.5, 0.875, 1.0, 1.0, 1.5]
     assert rated["rel_age__region"].tolist() == [1.125, 1.0, 1.0, 1.0, 1.0]
-    assert list(rated.columns) == ["policy", "age", "region", "bonus", "exposure", "rel_age", "rel_region",
-                                   "rel_bonus", "rel_age__region", "pure_premium", "gross_premium"]
+    assert list(rated.columns) == [
+        "policy",
+        "age",
+        "region",
+        "bonus",
+        "exposure",
+        "rel_age",
+        "rel_region",
+        "rel_bonus",
+        "rel_age__region",
+        "pure_premium",
+        "gross_premium",
+    ]
 
 
 def test_annual_rates_one_full_term():
@@ -62,8 +74,9 @@ def test_annual_rates_one_full_term():
 
 def test_band_edges_are_lower_inclusive():
     """25 is in [25, 60), 24.999 in [-inf, 25); 60 in [60, inf); -inf and inf in the end bands."""
-    book = pd.DataFrame({"age": [24.999, 25.0, 59.999, 60.0, -INF, INF], "region": "North", "bonus": "02",
-                         "exposure": 1.0})
+    book = pd.DataFrame(
+        {"age": [24.999, 25.0, 59.999, 60.0, -INF, INF], "region": "North", "bonus": "02", "exposure": 1.0}
+    )
     assert rate(example_table(), book, "exposure")["rel_age"].tolist() == [1.5, 1.0, 1.0, 1.25, 1.5, 1.25]
 
 
@@ -81,10 +94,13 @@ def test_levels_are_compared_as_strings():
     """An integer column 1 is the text '1', not the level '01'; a categorical column rates like text."""
     table = example_table()
     book = example_book()
-    categorical = book.assign(region=pd.Categorical(book["region"], categories=["South", "Coast", "North",
-                                                                                  "Atlantis", "Unused"]))
-    pd.testing.assert_frame_equal(rate(table, categorical, "exposure").drop(columns="region"),
-                                  rate(table, book, "exposure").drop(columns="region"))
+    categorical = book.assign(
+        region=pd.Categorical(book["region"], categories=["South", "Coast", "North", "Atlantis", "Unused"])
+    )
+    pd.testing.assert_frame_equal(
+        rate(table, categorical, "exposure").drop(columns="region"),
+        rate(table, book, "exposure").drop(columns="region"),
+    )
     with pytest.raises(TableError, match=r"factor 'bonus': level '1' at book row 0 \(0-based\)"):
         rate(table, book.assign(bonus=[1, 2, 3, 2, 1]), "exposure")
 
@@ -95,12 +111,15 @@ def test_unknown_level_without_fallback_names_value_and_row():
         rate(example_table(), book, "exposure")
 
 
-@pytest.mark.parametrize("column, value, message", [
-    ("age", np.nan, r"factor 'age': missing value at book row 2 \(0-based\)"),
-    ("age", "old", r"factor 'age': value 'old' at book row 2 \(0-based\) is not a number"),
-    ("region", None, r"factor 'region': missing value at book row 2"),
-    ("exposure", -1.0, r"exposure column 'exposure': value -1.0 at book row 2 \(0-based\) must be finite and >= 0"),
-])
+@pytest.mark.parametrize(
+    "column, value, message",
+    [
+        ("age", np.nan, r"factor 'age': missing value at book row 2 \(0-based\)"),
+        ("age", "old", r"factor 'age': value 'old' at book row 2 \(0-based\) is not a number"),
+        ("region", None, r"factor 'region': missing value at book row 2"),
+        ("exposure", -1.0, r"exposure column 'exposure': value -1.0 at book row 2 \(0-based\) must be finite and >= 0"),
+    ],
+)
 def test_bad_book_values_are_refused_with_the_row(column, value, message):
     book = example_book().astype({column: object})
     book.loc[2, column] = value
@@ -140,11 +159,15 @@ def test_solve_base_rate_meets_the_target_and_states_the_minimum_premium_effect(
 
 def _big_book(n: int) -> pd.DataFrame:
     rng = np.random.default_rng(2027)
-    return pd.DataFrame({"policy": [f"F{i:07d}" for i in range(n)],
-                         "age": rng.integers(17, 95, n).astype(float),
-                         "region": pd.Categorical(rng.choice(["North", "South", "Coast", "Islands"], n)),
-                         "bonus": rng.choice(["01", "02", "03"], n),
-                         "exposure": np.round(rng.uniform(0.05, 1.0, n), 4)})
+    return pd.DataFrame(
+        {
+            "policy": [f"F{i:07d}" for i in range(n)],
+            "age": rng.integers(17, 95, n).astype(float),
+            "region": pd.Categorical(rng.choice(["North", "South", "Coast", "Islands"], n)),
+            "bonus": rng.choice(["01", "02", "03"], n),
+            "exposure": np.round(rng.uniform(0.05, 1.0, n), 4),
+        }
+    )
 
 
 def _digest(path: Path) -> str:

@@ -1,4 +1,5 @@
 """The rating-table folder of docs/rating-table.md: exact round trip, the files as specified, refusals, exhibit."""
+
 from __future__ import annotations
 
 import dataclasses
@@ -21,11 +22,27 @@ def _with_exhibit_columns():
     """The example table with `indicated` and `credibility` columns on two factors."""
     table = example_table()
     age = table.factor("age")
-    age = NumericFactor(age.name, age.monotone, age.lower, age.upper, age.relativity, age.exposure,
-                        indicated=[1.4871, 0.9994, 1.2627], credibility=[0.6, 1.0, 0.85])
+    age = NumericFactor(
+        age.name,
+        age.monotone,
+        age.lower,
+        age.upper,
+        age.relativity,
+        age.exposure,
+        indicated=[1.4871, 0.9994, 1.2627],
+        credibility=[0.6, 1.0, 0.85],
+    )
     region = table.factor("region")
-    region = CategoricalFactor(region.name, region.monotone, region.levels, region.relativity, region.exposure,
-                               fallback=region.fallback, base=region.base, indicated=[1.0, 0.8712, np.nan])
+    region = CategoricalFactor(
+        region.name,
+        region.monotone,
+        region.levels,
+        region.relativity,
+        region.exposure,
+        fallback=region.fallback,
+        base=region.base,
+        indicated=[1.0, 0.8712, np.nan],
+    )
     factors = (age, region, *table.factors[2:])
     return dataclasses.replace(table, factors=factors)
 
@@ -48,16 +65,27 @@ def test_round_trip_gives_an_equal_table_identical_premiums_and_identical_bytes(
     again = tmp_path / "AGAIN"
     save(loaded, again)
     files = sorted(p.relative_to(saved).as_posix() for p in saved.rglob("*") if p.is_file())
-    assert files == ["factors/age.csv", "factors/age__region.csv", "factors/bonus.csv", "factors/region.csv",
-                     "table.json"]
+    assert files == [
+        "factors/age.csv",
+        "factors/age__region.csv",
+        "factors/bonus.csv",
+        "factors/region.csv",
+        "table.json",
+    ]
     for name in files:
         assert (saved / name).read_bytes() == (again / name).read_bytes()
 
 
 def test_floats_survive_the_round_trip_exactly(tmp_path):
     """Edges and relativities that are not short decimals (0.1 + 0.2, 1/3) come back bit for bit."""
-    odd = NumericFactor("age", "none", [-INF, 1e-300, 0.1 + 0.2], [1e-300, 0.1 + 0.2, INF],
-                        [1 / 3, 2 / 3, 1.0000000000000002], [1e-9, 0.0, 123456789.123])
+    odd = NumericFactor(
+        "age",
+        "none",
+        [-INF, 1e-300, 0.1 + 0.2],
+        [1e-300, 0.1 + 0.2, INF],
+        [1 / 3, 2 / 3, 1.0000000000000002],
+        [1e-9, 0.0, 123456789.123],
+    )
     table = example_table()
     table = dataclasses.replace(table, factors=(odd, *table.factors[1:]))
     save(table, tmp_path / "T")
@@ -69,23 +97,60 @@ def test_floats_survive_the_round_trip_exactly(tmp_path):
 
 def test_files_follow_the_contract(saved):
     meta = json.loads((saved / "table.json").read_text())
-    assert list(meta) == ["format", "version", "table_id", "effective_date", "base_rate", "exposure_unit",
-                          "factors", "loadings", "rounding", "target", "provenance", "cautions"]
+    assert list(meta) == [
+        "format",
+        "version",
+        "table_id",
+        "effective_date",
+        "base_rate",
+        "exposure_unit",
+        "factors",
+        "loadings",
+        "rounding",
+        "target",
+        "provenance",
+        "cautions",
+    ]
     assert meta["format"] == "premiumlab.rating-table" and meta["version"] == 1
-    assert meta["factors"][1] == {"name": "region", "type": "categorical", "monotone": "none",
-                                  "file": "factors/region.csv", "fallback": "North", "base": "North"}
-    assert meta["factors"][3] == {"name": "age__region", "type": "interaction", "of": ["age", "region"],
-                                  "file": "factors/age__region.csv"}
-    assert meta["loadings"] == {"lae_ratio": 0.1, "fixed_expense": 30.0, "variable_expense": 0.15, "profit": 0.05,
-                                "minimum_premium": 120.0}
+    assert meta["factors"][1] == {
+        "name": "region",
+        "type": "categorical",
+        "monotone": "none",
+        "file": "factors/region.csv",
+        "fallback": "North",
+        "base": "North",
+    }
+    assert meta["factors"][3] == {
+        "name": "age__region",
+        "type": "interaction",
+        "of": ["age", "region"],
+        "file": "factors/age__region.csv",
+    }
+    assert meta["loadings"] == {
+        "lae_ratio": 0.1,
+        "fixed_expense": 30.0,
+        "variable_expense": 0.15,
+        "profit": 0.05,
+        "minimum_premium": 120.0,
+    }
     assert meta["cautions"][0].startswith("Draft for review by a qualified actuary")
     assert (saved / "factors/age.csv").read_text().splitlines() == [
         "lower,upper,relativity,exposure,indicated,credibility",
-        "-inf,25.0,1.5,120.0,1.4871,0.6", "25.0,60.0,1.0,800.0,0.9994,1.0", "60.0,inf,1.25,300.0,1.2627,0.85"]
+        "-inf,25.0,1.5,120.0,1.4871,0.6",
+        "25.0,60.0,1.0,800.0,0.9994,1.0",
+        "60.0,inf,1.25,300.0,1.2627,0.85",
+    ]
     assert (saved / "factors/region.csv").read_text().splitlines() == [
-        "level,relativity,exposure,indicated", "North,1.0,600.0,1.0", "South,0.875,400.0,0.8712", "Coast,1.5,220.0,"]
+        "level,relativity,exposure,indicated",
+        "North,1.0,600.0,1.0",
+        "South,0.875,400.0,0.8712",
+        "Coast,1.5,220.0,",
+    ]
     assert (saved / "factors/age__region.csv").read_text().splitlines()[:3] == [
-        "age_lower,age_upper,region_level,relativity", "-inf,30.0,North,1.0", "-inf,30.0,South,1.0"]
+        "age_lower,age_upper,region_level,relativity",
+        "-inf,30.0,North,1.0",
+        "-inf,30.0,South,1.0",
+    ]
 
 
 def _edit(folder: Path, name: str, old: str, new: str) -> None:
@@ -95,30 +160,57 @@ def _edit(folder: Path, name: str, old: str, new: str) -> None:
     path.write_text(text.replace(old, new, 1))
 
 
-@pytest.mark.parametrize("name, old, new, message", [
-    ("factors/age.csv", "25.0,60.0,1.0", "26.0,60.0,1.0",
-     r"factors/age.csv: factor 'age', data row 2 \(1-based\): gap between the previous band's upper 25 and this "
-     r"band's lower 26"),
-    ("factors/age.csv", "25.0,60.0,1.0", "24.0,60.0,1.0", r"data row 2 \(1-based\): overlap"),
-    ("factors/age.csv", "60.0,inf,1.25", "60.0,70.0,1.25", r"data row 3 \(1-based\): the last band must end at inf"),
-    ("factors/age.csv", "25.0,60.0,1.0,", "25.0,60.0,0.0,", r"data row 2 \(1-based\): relativity 0 must be finite"),
-    ("factors/age.csv", "25.0,60.0,1.0,", "25.0,60.0,-1.5,", r"data row 2 \(1-based\): relativity -1.5"),
-    ("factors/age.csv", "25.0,60.0,1.0,", "25.0,60.0,one,", r"data row 2 \(1-based\): column 'relativity' holds 'one'"),
-    ("factors/age.csv", "25.0,60.0,1.0,", "25.0,60.0,1.0,2,", r"data row 2 \(1-based\): 7 fields, the header has 6"),
-    ("factors/age.csv", "lower,upper", "low,upper", r"factor 'age': unknown column 'low'"),
-    ("factors/region.csv", "Coast,1.5", "South,1.5", r"data row 3 \(1-based\): level 'South' repeats data row 2"),
-    ("factors/region.csv", "Coast,1.5", ",1.5", r"data row 3 \(1-based\): level '' is not a non-empty string"),
-    ("factors/age__region.csv", "30.0,inf,Coast,1.0\n", "", r"no row for cell \(age=\[30, inf\), region='Coast'\)"),
-    ("table.json", '"fallback": "North"', '"fallback": "West"', "fallback level 'West' is not one of"),
-    ("table.json", '"version": 1', '"version": 2', "this reader knows version 1"),
-    ("table.json", '"format": "premiumlab.rating-table"', '"format": "other"', "key 'format' is 'other'"),
-    ("table.json", '"base_rate": 200.0', '"base_rate": "200"', "key 'base_rate' must be a number"),
-    ("table.json", '"profit": 0.05', '"profit": 0.9', r"'loadings.variable_expense' \+ 'loadings.profit' = 1.05"),
-    ("table.json", '"exposure_unit"', '"exposure_units"', "unknown key 'exposure_units'"),
-    ("table.json", '"file": "factors/bonus.csv"', '"file": "factors/none.csv"', "factors/none.csv: factor 'bonus': file not found"),
-    ("table.json", '"file": "factors/bonus.csv"', '"file": "/etc/passwd"', "is an absolute path"),
-    ("table.json", '"file": "factors/bonus.csv"', '"file": "../bonus.csv"', "uses '..' and would leave the table"),
-])
+@pytest.mark.parametrize(
+    "name, old, new, message",
+    [
+        (
+            "factors/age.csv",
+            "25.0,60.0,1.0",
+            "26.0,60.0,1.0",
+            r"factors/age.csv: factor 'age', data row 2 \(1-based\): gap between the previous band's upper 25 and this "
+            r"band's lower 26",
+        ),
+        ("factors/age.csv", "25.0,60.0,1.0", "24.0,60.0,1.0", r"data row 2 \(1-based\): overlap"),
+        (
+            "factors/age.csv",
+            "60.0,inf,1.25",
+            "60.0,70.0,1.25",
+            r"data row 3 \(1-based\): the last band must end at inf",
+        ),
+        ("factors/age.csv", "25.0,60.0,1.0,", "25.0,60.0,0.0,", r"data row 2 \(1-based\): relativity 0 must be finite"),
+        ("factors/age.csv", "25.0,60.0,1.0,", "25.0,60.0,-1.5,", r"data row 2 \(1-based\): relativity -1.5"),
+        (
+            "factors/age.csv",
+            "25.0,60.0,1.0,",
+            "25.0,60.0,one,",
+            r"data row 2 \(1-based\): column 'relativity' holds 'one'",
+        ),
+        (
+            "factors/age.csv",
+            "25.0,60.0,1.0,",
+            "25.0,60.0,1.0,2,",
+            r"data row 2 \(1-based\): 7 fields, the header has 6",
+        ),
+        ("factors/age.csv", "lower,upper", "low,upper", r"factor 'age': unknown column 'low'"),
+        ("factors/region.csv", "Coast,1.5", "South,1.5", r"data row 3 \(1-based\): level 'South' repeats data row 2"),
+        ("factors/region.csv", "Coast,1.5", ",1.5", r"data row 3 \(1-based\): level '' is not a non-empty string"),
+        ("factors/age__region.csv", "30.0,inf,Coast,1.0\n", "", r"no row for cell \(age=\[30, inf\), region='Coast'\)"),
+        ("table.json", '"fallback": "North"', '"fallback": "West"', "fallback level 'West' is not one of"),
+        ("table.json", '"version": 1', '"version": 2', "this reader knows version 1"),
+        ("table.json", '"format": "premiumlab.rating-table"', '"format": "other"', "key 'format' is 'other'"),
+        ("table.json", '"base_rate": 200.0', '"base_rate": "200"', "key 'base_rate' must be a number"),
+        ("table.json", '"profit": 0.05', '"profit": 0.9', r"'loadings.variable_expense' \+ 'loadings.profit' = 1.05"),
+        ("table.json", '"exposure_unit"', '"exposure_units"', "unknown key 'exposure_units'"),
+        (
+            "table.json",
+            '"file": "factors/bonus.csv"',
+            '"file": "factors/none.csv"',
+            "factors/none.csv: factor 'bonus': file not found",
+        ),
+        ("table.json", '"file": "factors/bonus.csv"', '"file": "/etc/passwd"', "is an absolute path"),
+        ("table.json", '"file": "factors/bonus.csv"', '"file": "../bonus.csv"', "uses '..' and would leave the table"),
+    ],
+)
 def test_bad_folders_are_refused_naming_file_factor_and_row(saved, name, old, new, message):
     _edit(saved, name, old, new)
     with pytest.raises(TableError, match=message) as caught:
@@ -131,7 +223,7 @@ def test_a_symlink_out_of_the_table_is_refused(saved, tmp_path):
     outside = tmp_path / "elsewhere.csv"
     shutil.move(saved / "factors/bonus.csv", outside)
     os.symlink(outside, saved / "factors/bonus.csv")
-    with pytest.raises(TableError, match="factors/bonus.csv: factor 'bonus': the path resolves outside the table"):
+    with pytest.raises(TableError, match=r"factors/bonus.csv: factor 'bonus': the path resolves outside the table"):
         load(saved)
     inside = saved / "factors/bonus-real.csv"
     shutil.move(outside, inside)
@@ -147,7 +239,7 @@ def test_constructor_refuses_what_load_refuses():
         NumericFactor("age", "up", [-INF], [INF], [1], [1])
     with pytest.raises(TableError, match=r"relativity nan must be finite"):
         CategoricalFactor("region", "none", ("A", "B"), [1, np.nan], [1, 1])
-    with pytest.raises(TableError, match="uses '..'"):
+    with pytest.raises(TableError, match=r"uses '..'"):
         CategoricalFactor("region", "none", ("A",), [1], [1], file="factors/../../x.csv")
 
 
@@ -162,8 +254,15 @@ def test_exhibit_holds_summary_and_factor_sheets(tmp_path):
     assert summary["total_pure_premium"] == 250000.0
     assert summary["1"].startswith("Draft for review by a qualified actuary")
     age = list(book["age"].iter_rows(values_only=True))
-    assert age[0] == ("Band", "Lower", "Upper", "Indicated relativity", "Selected relativity", "Exposure",
-                      "Credibility")
+    assert age[0] == (
+        "Band",
+        "Lower",
+        "Upper",
+        "Indicated relativity",
+        "Selected relativity",
+        "Exposure",
+        "Credibility",
+    )
     assert age[1] == ("[-inf, 25)", "-inf", 25.0, 1.4871, 1.5, 120.0, 0.6)
     region = list(book["region"].iter_rows(values_only=True))
     assert region[3] == ("Coast", None, 1.5, 220.0)

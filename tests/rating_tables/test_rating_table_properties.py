@@ -4,6 +4,7 @@ Random valid tables and books rate to the product formula, computed independentl
 Python loops; every valid table survives write and read unchanged; mutated files are refused with
 TableError and never with another exception.
 """
+
 from __future__ import annotations
 
 import csv
@@ -55,29 +56,59 @@ def tables(draw) -> RatingTable:
     for k in range(draw(st.integers(1, 2))):
         edges = _edges(draw)
         n = len(edges) + 1
-        factors.append(NumericFactor(f"x{k}", draw(st.sampled_from(["none", "increasing", "decreasing"])),
-                                     [-INF, *edges], [*edges, INF], _values(draw, RELATIVITY, n),
-                                     _values(draw, EXPOSURE, n),
-                                     indicated=draw(st.none() | st.just(_values(draw, RELATIVITY, n)))))
+        factors.append(
+            NumericFactor(
+                f"x{k}",
+                draw(st.sampled_from(["none", "increasing", "decreasing"])),
+                [-INF, *edges],
+                [*edges, INF],
+                _values(draw, RELATIVITY, n),
+                _values(draw, EXPOSURE, n),
+                indicated=draw(st.none() | st.just(_values(draw, RELATIVITY, n))),
+            )
+        )
     for k in range(draw(st.integers(1, 2))):
         levels = draw(st.lists(LEVEL, min_size=1, max_size=5, unique=True).filter(lambda ls: UNKNOWN not in ls))
         n = len(levels)
-        factors.append(CategoricalFactor(f"c{k}", "none", tuple(levels), _values(draw, RELATIVITY, n),
-                                         _values(draw, EXPOSURE, n), fallback=draw(st.none() | st.sampled_from(levels)),
-                                         credibility=draw(st.none() | st.just(_values(draw, st.floats(0, 1), n)))))
+        factors.append(
+            CategoricalFactor(
+                f"c{k}",
+                "none",
+                tuple(levels),
+                _values(draw, RELATIVITY, n),
+                _values(draw, EXPOSURE, n),
+                fallback=draw(st.none() | st.sampled_from(levels)),
+                credibility=draw(st.none() | st.just(_values(draw, st.floats(0, 1), n))),
+            )
+        )
     if draw(st.booleans()):
         edges = _edges(draw, 3)
         levels = draw(st.permutations(factors[-1].levels))
         shape = (len(edges) + 1, len(levels))
         matrix = np.array(_values(draw, RELATIVITY, shape[0] * shape[1])).reshape(shape)
-        factors.append(InteractionFactor(f"x0__{factors[-1].name}", ("x0", factors[-1].name),
-                                         Bands([-INF, *edges], [*edges, INF]), tuple(levels), matrix))
+        factors.append(
+            InteractionFactor(
+                f"x0__{factors[-1].name}",
+                ("x0", factors[-1].name),
+                Bands([-INF, *edges], [*edges, INF]),
+                tuple(levels),
+                matrix,
+            )
+        )
     variable = draw(st.floats(0, 0.6))
-    loadings = Loadings(draw(st.floats(0, 0.3)), draw(st.floats(0, 100)), variable, draw(st.floats(0, 0.3)),
-                        draw(st.floats(0, 200)))
-    return RatingTable("random-table", "2027-01-01", draw(st.floats(0.01, 1e4)), "policy-year", tuple(factors),
-                       loadings, Rounding(draw(st.integers(0, 6)), draw(st.integers(0, 4))),
-                       target={"basis": "experience", "total_pure_premium": draw(st.floats(1, 1e9))})
+    loadings = Loadings(
+        draw(st.floats(0, 0.3)), draw(st.floats(0, 100)), variable, draw(st.floats(0, 0.3)), draw(st.floats(0, 200))
+    )
+    return RatingTable(
+        "random-table",
+        "2027-01-01",
+        draw(st.floats(0.01, 1e4)),
+        "policy-year",
+        tuple(factors),
+        loadings,
+        Rounding(draw(st.integers(0, 6)), draw(st.integers(0, 4))),
+        target={"basis": "experience", "total_pure_premium": draw(st.floats(1, 1e9))},
+    )
 
 
 @st.composite
@@ -140,9 +171,11 @@ def test_random_tables_rate_to_the_product_formula(case):
         assert abs(got - want) <= 1e-12 * abs(want)
     lo = table.loadings
     for got, pure, e in zip(rated["gross_premium"], expected, book["exposure"]):
-        gross = max(lo.minimum_premium, (pure * (1 + lo.lae_ratio) + lo.fixed_expense * e)
-                    / (1 - lo.variable_expense - lo.profit))
-        assert abs(got - gross) <= 0.5 * 10.0 ** -table.rounding.premium_decimals * (1 + 1e-9) + 1e-9 * gross
+        gross = max(
+            lo.minimum_premium,
+            (pure * (1 + lo.lae_ratio) + lo.fixed_expense * e) / (1 - lo.variable_expense - lo.profit),
+        )
+        assert abs(got - gross) <= 0.5 * 10.0**-table.rounding.premium_decimals * (1 + 1e-9) + 1e-9 * gross
     categorical = book.astype({f.name: "category" for f in table.main_factors if isinstance(f, CategoricalFactor)})
     np.testing.assert_array_equal(rate(table, categorical, "exposure")["pure_premium"], rated["pure_premium"])
 
@@ -158,7 +191,10 @@ def test_write_then_read_gives_the_same_table_bytes_and_premiums(case):
         save(loaded, Path(tmp) / "b")
         for path in (Path(tmp) / "a").rglob("*.*"):
             assert path.read_bytes() == (Path(tmp) / "b" / path.relative_to(Path(tmp) / "a")).read_bytes()
-    assert rate(loaded, book, "exposure")["gross_premium"].tolist() == rate(table, book, "exposure")["gross_premium"].tolist()
+    assert (
+        rate(loaded, book, "exposure")["gross_premium"].tolist()
+        == rate(table, book, "exposure")["gross_premium"].tolist()
+    )
 
 
 def _rows(path: Path) -> list[list[str]]:
@@ -191,10 +227,10 @@ def test_mutated_factor_files_load_or_raise_table_error(table, data):
         kind = data.draw(MUTATION)
         raw = path.read_bytes()
         if kind == "truncate":
-            path.write_bytes(raw[:data.draw(st.integers(0, len(raw)))])
+            path.write_bytes(raw[: data.draw(st.integers(0, len(raw)))])
         elif kind == "byte":
             i = data.draw(st.integers(0, len(raw) - 1))
-            path.write_bytes(raw[:i] + bytes([data.draw(st.integers(0, 255))]) + raw[i + 1:])
+            path.write_bytes(raw[:i] + bytes([data.draw(st.integers(0, 255))]) + raw[i + 1 :])
         else:
             rows = _rows(path)
             r = data.draw(st.integers(0, len(rows) - 1))
@@ -218,9 +254,15 @@ def test_invalid_relativities_gaps_and_repeated_levels_are_refused(table, data):
         path = folder / factor.file
         rows = _rows(path)
         r = data.draw(st.integers(1, len(rows) - 1))
-        how = data.draw(st.sampled_from(["relativity", "repeat"] + (["gap"] if isinstance(factor, NumericFactor) and len(rows) > 3 else [])))
+        how = data.draw(
+            st.sampled_from(
+                ["relativity", "repeat"] + (["gap"] if isinstance(factor, NumericFactor) and len(rows) > 3 else [])
+            )
+        )
         if how == "relativity":
-            rows[r][rows[0].index("relativity")] = data.draw(st.sampled_from(["0", "-1", "abc", "", "nan", "inf", "1e400"]))
+            rows[r][rows[0].index("relativity")] = data.draw(
+                st.sampled_from(["0", "-1", "abc", "", "nan", "inf", "1e400"])
+            )
         elif how == "repeat":
             rows.insert(r, list(rows[r]))
         else:
@@ -246,8 +288,11 @@ def test_mutated_table_json_loads_or_raises_table_error(table, data):
         meta = json.loads((folder / "table.json").read_text())
         holder = meta
         for _ in range(data.draw(st.integers(0, 2))):
-            children = [k for k, v in (holder.items() if isinstance(holder, dict) else enumerate(holder))
-                        if isinstance(v, (dict, list)) and v]
+            children = [
+                k
+                for k, v in (holder.items() if isinstance(holder, dict) else enumerate(holder))
+                if isinstance(v, (dict, list)) and v
+            ]
             if not children:
                 break
             holder = holder[data.draw(st.sampled_from(children))]

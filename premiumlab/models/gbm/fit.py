@@ -17,6 +17,7 @@ is multiplied by 1 / balance (stored as `rebalance_factor`, applied in `predict`
 
 Models are LightGBM text plus JSON; nothing is pickled.
 """
+
 from __future__ import annotations
 
 import math
@@ -41,8 +42,18 @@ from premiumlab.models.targets import TARGETS
 from premiumlab.models.trees.certificate import certify
 
 SIMPLER_METHOD = {"advanced": "intermediate", "intermediate": "basic"}
-GRID_KEYS = frozenset({"num_leaves", "min_data_in_leaf", "min_sum_hessian_in_leaf", "learning_rate",
-                       "lambda_l2", "lambda_l1", "max_depth", "min_gain_to_split"})
+GRID_KEYS = frozenset(
+    {
+        "num_leaves",
+        "min_data_in_leaf",
+        "min_sum_hessian_in_leaf",
+        "learning_rate",
+        "lambda_l2",
+        "lambda_l1",
+        "max_depth",
+        "min_gain_to_split",
+    }
+)
 BALANCE_TOLERANCE = 0.01
 JSON_FORMAT = "premiumlab.gbm"
 _DEFAULT_OPTIONS = GbmOptions()
@@ -75,13 +86,13 @@ class TrainingData:
     """Encoded features, label and weight of one target, with the fixed LightGBM parameters."""
 
     target: str
-    matrix: np.ndarray            # float64, rows x features; categoricals as level codes
+    matrix: np.ndarray  # float64, rows x features; categoricals as level codes
     label: np.ndarray
     weight: np.ndarray
     groups: np.ndarray
     feature_names: list[str]
     categories: dict[str, list[str]]
-    monotone: dict[str, int]      # the promises this model is constrained to keep ({} if none)
+    monotone: dict[str, int]  # the promises this model is constrained to keep ({} if none)
     base_params: dict
 
     @property
@@ -94,9 +105,14 @@ class TrainingData:
         return TARGETS[self.target].deviance_power(self.base_params.get("tweedie_variance_power"))
 
     def dataset(self) -> lgb.Dataset:
-        return lgb.Dataset(self.matrix, label=self.label, weight=self.weight,
-                           feature_name=self.feature_names, categorical_feature=self.categorical_indices,
-                           params=_dataset_params(self.base_params))
+        return lgb.Dataset(
+            self.matrix,
+            label=self.label,
+            weight=self.weight,
+            feature_name=self.feature_names,
+            categorical_feature=self.categorical_indices,
+            params=_dataset_params(self.base_params),
+        )
 
 
 @dataclass
@@ -115,7 +131,7 @@ class GbmModel:
     rebalance_factor: float
     feature_names: list[str]
     categories: dict[str, list[str]]
-    monotone: dict[str, int]      # factor -> direction the model is constrained to ({} if none)
+    monotone: dict[str, int]  # factor -> direction the model is constrained to ({} if none)
     training_rows: int
     constraint_notes: list[str] = field(default_factory=list)
 
@@ -140,15 +156,24 @@ class GbmModel:
     def to_json_dict(self) -> dict:
         """Parameters, CV results, balance, features and category codes (JSON-able)."""
         return {
-            "format": JSON_FORMAT, "version": 1,
-            "target": self.target, "objective": self.objective, "params": self.params,
+            "format": JSON_FORMAT,
+            "version": 1,
+            "target": self.target,
+            "objective": self.objective,
+            "params": self.params,
             "num_threads": self.params["num_threads"],
             "cv": {"table": self.cv_table, "chosen": self.chosen},
-            "best_rounds": self.best_rounds, "training_rows": self.training_rows,
-            "balance": self.balance, "rebalanced": self.rebalanced,
-            "rebalance_factor": self.rebalance_factor, "balance_note": _balance_note(self),
-            "feature_names": self.feature_names, "categories": self.categories,
-            "monotone": self.monotone, "constraint_notes": self.constraint_notes, "caution": DRAFT,
+            "best_rounds": self.best_rounds,
+            "training_rows": self.training_rows,
+            "balance": self.balance,
+            "rebalanced": self.rebalanced,
+            "rebalance_factor": self.rebalance_factor,
+            "balance_note": _balance_note(self),
+            "feature_names": self.feature_names,
+            "categories": self.categories,
+            "monotone": self.monotone,
+            "constraint_notes": self.constraint_notes,
+            "caution": DRAFT,
         }
 
 
@@ -163,8 +188,9 @@ def _check_options(options: GbmOptions) -> None:
         if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < low:
             raise InputError(f"gbm option {name}: {value!r} must be an integer >= {low}")
     if options.monotone_method not in MONOTONE_METHODS:
-        raise InputError(f"gbm option monotone_method: {options.monotone_method!r} is not one of "
-                         f"{', '.join(MONOTONE_METHODS)}")
+        raise InputError(
+            f"gbm option monotone_method: {options.monotone_method!r} is not one of {', '.join(MONOTONE_METHODS)}"
+        )
     if options.tweedie_power is not None and not 1.0 <= options.tweedie_power < 2.0:
         raise InputError(f"gbm option tweedie_power: {options.tweedie_power!r} must be in [1, 2)")
     if not options.grid:
@@ -172,8 +198,9 @@ def _check_options(options: GbmOptions) -> None:
     for i, setting in enumerate(options.grid):
         unknown = sorted(set(setting) - GRID_KEYS)
         if unknown:
-            raise InputError(f"gbm option grid[{i}]: unknown key {unknown[0]!r}; allowed: "
-                             f"{', '.join(sorted(GRID_KEYS))}")
+            raise InputError(
+                f"gbm option grid[{i}]: unknown key {unknown[0]!r}; allowed: {', '.join(sorted(GRID_KEYS))}"
+            )
 
 
 def _check_feature_names(features: pd.DataFrame) -> list[str]:
@@ -184,8 +211,9 @@ def _check_feature_names(features: pd.DataFrame) -> list[str]:
         raise InputError(f"features: duplicate column names {sorted(n for n in names if names.count(n) > 1)[0]!r}")
     for name in names:
         if set(name) & _FORBIDDEN_NAME_CHARACTERS:
-            raise InputError(f"features column {name!r}: LightGBM refuses spaces and any of "
-                             "[ ] { } \" : , in feature names")
+            raise InputError(
+                f'features column {name!r}: LightGBM refuses spaces and any of [ ] {{ }} " : , in feature names'
+            )
     return names
 
 
@@ -213,13 +241,13 @@ def _category_codes(column: pd.Series, levels: list[str], name: str) -> np.ndarr
         value = column.iloc[row]
         if pd.isna(value):
             raise InputError(f"features column {name!r}: missing level at row {row}")
-        raise InputError(f"features column {name!r}: unknown level {str(value)!r} at row {row} "
-                         f"(known: {', '.join(levels)})")
+        raise InputError(
+            f"features column {name!r}: unknown level {str(value)!r} at row {row} (known: {', '.join(levels)})"
+        )
     return codes.astype(np.float64)
 
 
-def encode_features(features: pd.DataFrame, feature_names: list[str],
-                    categories: dict[str, list[str]]) -> np.ndarray:
+def encode_features(features: pd.DataFrame, feature_names: list[str], categories: dict[str, list[str]]) -> np.ndarray:
     """The float64 matrix (rows x feature_names) with categoricals replaced by fixed level codes."""
     missing = [n for n in feature_names if n not in features.columns]
     if missing:
@@ -241,8 +269,9 @@ def _check_monotone(monotone: dict[str, int], names: list[str], categories: dict
         if name not in names:
             raise InputError(f"monotone: factor {name!r} is not a features column")
         if name in categories:
-            raise InputError(f"monotone: factor {name!r} is an unordered categorical; pass an ordered "
-                             "factor as integer codes 0..k-1")
+            raise InputError(
+                f"monotone: factor {name!r} is an unordered categorical; pass an ordered factor as integer codes 0..k-1"
+            )
         if direction not in (1, -1):
             raise InputError(f"monotone: factor {name!r} has direction {direction!r}; use +1 or -1")
 
@@ -271,11 +300,19 @@ def _constrained(target: str, monotone: dict[str, int], options: GbmOptions) -> 
 def _base_params(target: str, names: list[str], monotone: dict[str, int], options: GbmOptions) -> dict:
     """The fixed (non-searched) LightGBM parameters: objective, determinism, threads, constraints."""
     params = {
-        "objective": TARGETS[target].objective, "metric": "None", "verbosity": -1,
-        "seed": options.seed, "num_threads": options.num_threads,
-        "deterministic": True, "force_row_wise": True,
-        "bagging_fraction": 1.0, "bagging_freq": 0, "feature_fraction": 1.0,
-        "max_bin": 255, "feature_pre_filter": False, "zero_as_missing": False,
+        "objective": TARGETS[target].objective,
+        "metric": "None",
+        "verbosity": -1,
+        "seed": options.seed,
+        "num_threads": options.num_threads,
+        "deterministic": True,
+        "force_row_wise": True,
+        "bagging_fraction": 1.0,
+        "bagging_freq": 0,
+        "feature_fraction": 1.0,
+        "max_bin": 255,
+        "feature_pre_filter": False,
+        "zero_as_missing": False,
     }
     if TARGETS[target].power is None:
         params["tweedie_variance_power"] = options.variance_power
@@ -286,8 +323,16 @@ def _base_params(target: str, names: list[str], monotone: dict[str, int], option
 
 
 def _dataset_params(params: dict) -> dict:
-    keys = ("verbosity", "seed", "num_threads", "deterministic", "force_row_wise", "max_bin",
-            "feature_pre_filter", "zero_as_missing")
+    keys = (
+        "verbosity",
+        "seed",
+        "num_threads",
+        "deterministic",
+        "force_row_wise",
+        "max_bin",
+        "feature_pre_filter",
+        "zero_as_missing",
+    )
     return {k: params[k] for k in keys}
 
 
@@ -306,9 +351,17 @@ def prepare_training(inputs: GbmInputs, target: str, options: GbmOptions) -> Tra
     mask, label, weight = _target_rows(inputs, target, rows)
     monotone = _constrained(target, inputs.monotone, options)
     matrix = encode_features(inputs.features, names, categories)[mask]
-    return TrainingData(target=target, matrix=matrix, label=label, weight=weight, groups=groups[mask],
-                        feature_names=names, categories=categories, monotone=monotone,
-                        base_params=_base_params(target, names, monotone, options))
+    return TrainingData(
+        target=target,
+        matrix=matrix,
+        label=label,
+        weight=weight,
+        groups=groups[mask],
+        feature_names=names,
+        categories=categories,
+        monotone=monotone,
+        base_params=_base_params(target, names, monotone, options),
+    )
 
 
 # ---------------------------------------------------------------------------------------------
@@ -332,23 +385,37 @@ def _select_settings(options: GbmOptions) -> list[dict]:
     return [grid[i] for i in sorted(picked)]
 
 
-def _deviance_eval(label: np.ndarray, weight: np.ndarray,
-                   power: float) -> Callable[[np.ndarray, lgb.Dataset], tuple[str, float, bool]]:
+def _deviance_eval(
+    label: np.ndarray, weight: np.ndarray, power: float
+) -> Callable[[np.ndarray, lgb.Dataset], tuple[str, float, bool]]:
     """LightGBM feval on one validation fold: weighted mean deviance of the family, predictions on
     the response scale. The float64 labels are used, not the Dataset's float32 copy."""
+
     def evaluate(predictions: np.ndarray, _: lgb.Dataset) -> tuple[str, float, bool]:
         return "deviance", mean_deviance(label, predictions, weight, power), False
+
     return evaluate
 
 
-def _fold_fit(full: lgb.Dataset, data: TrainingData, setting: dict, train_rows: np.ndarray,
-              valid_rows: np.ndarray, options: GbmOptions) -> tuple[float, int]:
+def _fold_fit(
+    full: lgb.Dataset,
+    data: TrainingData,
+    setting: dict,
+    train_rows: np.ndarray,
+    valid_rows: np.ndarray,
+    options: GbmOptions,
+) -> tuple[float, int]:
     """(held-out deviance at the best round, best round count) of one setting on one fold."""
     feval = _deviance_eval(data.label[valid_rows], data.weight[valid_rows], data.power)
-    booster = lgb.train({**data.base_params, **setting}, full.subset(train_rows),
-                        num_boost_round=options.max_rounds, valid_sets=[full.subset(valid_rows)],
-                        valid_names=["fold"], feval=feval,
-                        callbacks=[lgb.early_stopping(options.early_stopping_rounds, verbose=False)])
+    booster = lgb.train(
+        {**data.base_params, **setting},
+        full.subset(train_rows),
+        num_boost_round=options.max_rounds,
+        valid_sets=[full.subset(valid_rows)],
+        valid_names=["fold"],
+        feval=feval,
+        callbacks=[lgb.early_stopping(options.early_stopping_rounds, verbose=False)],
+    )
     return float(booster.best_score["fold"]["deviance"]), int(booster.best_iteration or options.max_rounds)
 
 
@@ -362,8 +429,7 @@ class _SearchJob:
 
     @cached_property
     def binned(self) -> tuple[lgb.Dataset, np.ndarray]:
-        return (self.data.dataset().construct(),
-                fold_of_group(self.data.groups, self.options.folds, self.options.seed))
+        return (self.data.dataset().construct(), fold_of_group(self.data.groups, self.options.folds, self.options.seed))
 
 
 def _fold_task(job: _SearchJob, task: tuple[dict, int]) -> tuple[float, int]:
@@ -373,27 +439,33 @@ def _fold_task(job: _SearchJob, task: tuple[dict, int]) -> tuple[float, int]:
     return _fold_fit(full, job.data, setting, np.flatnonzero(fold != k), np.flatnonzero(fold == k), job.options)
 
 
-def cross_validate(data: TrainingData, settings: list[dict], options: GbmOptions,
-                   runner: TaskRunner = IN_PROCESS) -> list[dict]:
+def cross_validate(
+    data: TrainingData, settings: list[dict], options: GbmOptions, runner: TaskRunner = IN_PROCESS
+) -> list[dict]:
     """One CV row per setting: fold deviances at each fold's best round, their mean and sample
     standard deviation, the folds' best rounds and their rounded mean (`rounds`). The settings x
     folds fits are independent tasks for `runner` (premiumlab.cluster)."""
     fold = fold_of_group(data.groups, options.folds, options.seed)
     empty = [k for k in range(options.folds) if not (fold == k).any()]
     if empty:
-        raise InputError(f"gbm folds: fold {empty[0]} of {options.folds} holds no {data.target} rows; "
-                         "use fewer folds")
+        raise InputError(f"gbm folds: fold {empty[0]} of {options.folds} holds no {data.target} rows; use fewer folds")
     tasks = [(setting, k) for setting in settings for k in range(options.folds)]
     with progress_bar(f"cross-validating the {data.target} model", len(tasks)) as advance:
         results = runner.map(_fold_task, _SearchJob(data, options), tasks, advance)
     table = []
     for i, setting in enumerate(settings):
-        mine = results[i * options.folds:(i + 1) * options.folds]
+        mine = results[i * options.folds : (i + 1) * options.folds]
         deviances, rounds = [r[0] for r in mine], [r[1] for r in mine]
-        table.append({"setting": setting, "mean_deviance": float(np.mean(deviances)),
-                      "sd_deviance": float(np.std(deviances, ddof=1)),
-                      "rounds": max(1, int(round(float(np.mean(rounds))))),
-                      "fold_deviances": deviances, "fold_rounds": rounds})
+        table.append(
+            {
+                "setting": setting,
+                "mean_deviance": float(np.mean(deviances)),
+                "sd_deviance": float(np.std(deviances, ddof=1)),
+                "rounds": max(1, round(float(np.mean(rounds)))),
+                "fold_deviances": deviances,
+                "fold_rounds": rounds,
+            }
+        )
     return table
 
 
@@ -403,8 +475,10 @@ def cross_validate(data: TrainingData, settings: list[dict], options: GbmOptions
 
 def _balance_note(model: GbmModel) -> str:
     if model.rebalanced:
-        return (f"training balance {model.balance:.6f} was outside 1 +- {BALANCE_TOLERANCE:.0%}: predictions "
-                f"are multiplied by {model.rebalance_factor:.6f} to restore the observed total")
+        return (
+            f"training balance {model.balance:.6f} was outside 1 +- {BALANCE_TOLERANCE:.0%}: predictions "
+            f"are multiplied by {model.rebalance_factor:.6f} to restore the observed total"
+        )
     return f"training balance {model.balance:.6f} is within 1 +- {BALANCE_TOLERANCE:.0%}: not rebalanced"
 
 
@@ -415,22 +489,35 @@ def _training_balance(booster: lgb.Booster, data: TrainingData) -> float:
 
     def ratio(predictions: np.ndarray, _: lgb.Dataset) -> tuple[str, float, bool]:
         return "balance", float(np.sum(data.weight * predictions)) / observed, False
+
     return float(booster.eval_train(feval=ratio)[0][2])
 
 
-def fit_final(data: TrainingData, setting: dict, rounds: int, cv_table: list[dict] | None = None,
-              chosen: int = 0) -> GbmModel:
+def fit_final(
+    data: TrainingData, setting: dict, rounds: int, cv_table: list[dict] | None = None, chosen: int = 0
+) -> GbmModel:
     """Train `setting` on all of `data` for `rounds` rounds, measure the balance, rebalance if needed."""
     params = {**data.base_params, **setting}
     booster = lgb.train(params, data.dataset(), num_boost_round=rounds, keep_training_booster=True)
     balance = _training_balance(booster, data)
     booster.free_dataset()
     rebalanced = abs(balance - 1.0) > BALANCE_TOLERANCE
-    return GbmModel(booster=booster, target=data.target, objective=params["objective"], params=params,
-                    cv_table=cv_table or [], chosen=chosen, best_rounds=rounds, balance=balance,
-                    rebalanced=rebalanced, rebalance_factor=1.0 / balance if rebalanced else 1.0,
-                    feature_names=list(data.feature_names), categories=dict(data.categories),
-                    monotone=dict(data.monotone), training_rows=len(data.label))
+    return GbmModel(
+        booster=booster,
+        target=data.target,
+        objective=params["objective"],
+        params=params,
+        cv_table=cv_table or [],
+        chosen=chosen,
+        best_rounds=rounds,
+        balance=balance,
+        rebalanced=rebalanced,
+        rebalance_factor=1.0 / balance if rebalanced else 1.0,
+        feature_names=list(data.feature_names),
+        categories=dict(data.categories),
+        monotone=dict(data.monotone),
+        training_rows=len(data.label),
+    )
 
 
 def _tuned_fit(data: TrainingData, options: GbmOptions, runner: TaskRunner) -> GbmModel:
@@ -445,12 +532,12 @@ def uncertified_factors(model: GbmModel) -> list[str]:
     if not model.monotone:
         return []
     text = model.model_text()
-    return [name for name, direction in model.monotone.items()
-            if certify(text, name, direction)["violation_count"] > 0]
+    return [name for name, direction in model.monotone.items() if certify(text, name, direction)["violation_count"] > 0]
 
 
-def fit_target(inputs: GbmInputs, target: str, options: GbmOptions = _DEFAULT_OPTIONS,
-               runner: TaskRunner = IN_PROCESS) -> GbmModel:
+def fit_target(
+    inputs: GbmInputs, target: str, options: GbmOptions = _DEFAULT_OPTIONS, runner: TaskRunner = IN_PROCESS
+) -> GbmModel:
     """Tune by grouped K-fold CV (the fits run on `runner`), then refit the chosen setting on the
     whole training part here.
 
@@ -463,8 +550,10 @@ def fit_target(inputs: GbmInputs, target: str, options: GbmOptions = _DEFAULT_OP
     notes: list[str] = []
     while (broken := uncertified_factors(model)) and options.monotone_method in SIMPLER_METHOD:
         simpler = SIMPLER_METHOD[options.monotone_method]
-        notes.append(f"the {options.monotone_method} constraint method broke the promise on "
-                     f"{', '.join(broken)} (certificate); refitted with the {simpler} method")
+        notes.append(
+            f"the {options.monotone_method} constraint method broke the promise on "
+            f"{', '.join(broken)} (certificate); refitted with the {simpler} method"
+        )
         options = replace(options, monotone_method=simpler)
         model = _tuned_fit(prepare_training(inputs, target, options), options, runner)
     model.constraint_notes = notes
@@ -482,9 +571,21 @@ def load_model(text_path: str | Path, json_path: str | Path) -> GbmModel:
     meta = read_json(json_path)
     if not isinstance(meta, dict) or meta.get("format") != JSON_FORMAT:
         raise InputError(f"{json_path}: not a {JSON_FORMAT} JSON file (key 'format')")
-    required = ("target", "objective", "params", "cv", "best_rounds", "balance", "rebalanced",
-                "rebalance_factor", "feature_names", "categories", "monotone", "training_rows",
-                "constraint_notes")
+    required = (
+        "target",
+        "objective",
+        "params",
+        "cv",
+        "best_rounds",
+        "balance",
+        "rebalanced",
+        "rebalance_factor",
+        "feature_names",
+        "categories",
+        "monotone",
+        "training_rows",
+        "constraint_notes",
+    )
     absent = [key for key in required if key not in meta]
     if absent:
         raise InputError(f"{json_path}: missing key {absent[0]!r}")
@@ -494,9 +595,20 @@ def load_model(text_path: str | Path, json_path: str | Path) -> GbmModel:
         raise InputError(f"{text_path}: not a LightGBM text model ({error})") from None
     if booster.feature_name() != meta["feature_names"]:
         raise InputError(f"{json_path}: key 'feature_names' does not match the features of {text_path}")
-    return GbmModel(booster=booster, target=meta["target"], objective=meta["objective"], params=meta["params"],
-                    cv_table=meta["cv"]["table"], chosen=meta["cv"]["chosen"], best_rounds=meta["best_rounds"],
-                    balance=meta["balance"], rebalanced=meta["rebalanced"],
-                    rebalance_factor=meta["rebalance_factor"], feature_names=meta["feature_names"],
-                    categories=meta["categories"], monotone=meta["monotone"], training_rows=meta["training_rows"],
-                    constraint_notes=meta["constraint_notes"])
+    return GbmModel(
+        booster=booster,
+        target=meta["target"],
+        objective=meta["objective"],
+        params=meta["params"],
+        cv_table=meta["cv"]["table"],
+        chosen=meta["cv"]["chosen"],
+        best_rounds=meta["best_rounds"],
+        balance=meta["balance"],
+        rebalanced=meta["rebalanced"],
+        rebalance_factor=meta["rebalance_factor"],
+        feature_names=meta["feature_names"],
+        categories=meta["categories"],
+        monotone=meta["monotone"],
+        training_rows=meta["training_rows"],
+        constraint_notes=meta["constraint_notes"],
+    )

@@ -7,6 +7,7 @@ weight ``w`` (exposure or claim count); the response is the rate ``y = a / w`` w
 the same estimates, Fisher information and deviance as the count form with offset log(exposure);
 the row statistics are computed in the form statsmodels reports for the row-level fit.
 """
+
 from __future__ import annotations
 
 import itertools
@@ -126,8 +127,12 @@ class OneHotDesign:
 
     def take(self, rows: np.ndarray) -> OneHotDesign:
         """The design restricted to ``rows`` (boolean mask or positions)."""
-        return OneHotDesign(self.factor_names, self.levels, self.base_codes, column_major(
-            [column[rows] for column in self.codes.T], len(np.arange(self.n_rows)[rows])))
+        return OneHotDesign(
+            self.factor_names,
+            self.levels,
+            self.base_codes,
+            column_major([column[rows] for column in self.codes.T], len(np.arange(self.n_rows)[rows])),
+        )
 
     def chunks(self, chunk_rows: int = CHUNK_ROWS) -> Iterator[slice]:
         for start in range(0, self.n_rows, chunk_rows):
@@ -168,7 +173,9 @@ class OneHotDesign:
             shape = self.group_shape(group)
             table = np.zeros(shape)
             for axis, j in enumerate(group):
-                table = table + beta_full[self.columns_of(j)].reshape([-1 if a == axis else 1 for a in range(len(shape))])
+                table = table + beta_full[self.columns_of(j)].reshape(
+                    [-1 if a == axis else 1 for a in range(len(shape))]
+                )
             eta += table.ravel()[code[rows]]
         return eta
 
@@ -203,19 +210,24 @@ class OneHotDesign:
             size = int(np.prod(shape))
             counts = np.bincount(code, weights, minlength=size).reshape(shape)
             fill(group, counts, itertools.combinations(range(len(group)), 2))
-            for other, other_code in zip(self.groups[g + 1:], self.group_codes[g + 1:]):
+            for other, other_code in zip(self.groups[g + 1 :], self.group_codes[g + 1 :]):
                 other_shape = self.group_shape(other)
                 other_size = int(np.prod(other_shape))
                 counts = np.bincount(code * other_size + other_code, weights, minlength=size * other_size)
-                fill(group + other, counts.reshape(shape + other_shape),
-                     itertools.product(range(len(group)), range(len(group), len(group) + len(other))))
+                fill(
+                    group + other,
+                    counts.reshape(shape + other_shape),
+                    itertools.product(range(len(group)), range(len(group), len(group) + len(other))),
+                )
         return gram
 
     def sparse(self, columns: np.ndarray) -> sp.csc_matrix:
         """The 0/1 design with the given full-space columns, in that order, as a CSC matrix."""
         rows = np.tile(np.arange(self.n_rows), 1 + len(self.levels))
-        full_columns = np.concatenate([np.zeros(self.n_rows, dtype=np.int64)]
-                                      + [offset + self.codes[:, j] for j, offset in enumerate(self.offsets)])
+        full_columns = np.concatenate(
+            [np.zeros(self.n_rows, dtype=np.int64)]
+            + [offset + self.codes[:, j] for j, offset in enumerate(self.offsets)]
+        )
         full = sp.csc_matrix((np.ones(rows.size), (rows, full_columns)), shape=(self.n_rows, self.n_full))
         return full[:, columns]
 
@@ -330,11 +342,14 @@ def fit_on_cells(cells: Cells, kept: np.ndarray, family: Family) -> EngineFit:
         if family.name == "poisson":
             model = sm.GLM(cells.numerator, exog, family=family.statsmodels(), offset=np.log(cells.weight))
         else:
-            model = sm.GLM(cells.numerator / cells.weight, exog, family=family.statsmodels(),
-                           var_weights=cells.weight)
+            model = sm.GLM(cells.numerator / cells.weight, exog, family=family.statsmodels(), var_weights=cells.weight)
         fit = model.fit(tol=COEFFICIENT_TOLERANCE, tol_criterion="params", maxiter=MAX_ITERATIONS)
-    return EngineFit(np.asarray(fit.params), np.asarray(fit.normalized_cov_params), bool(fit.converged),
-                     int(fit.fit_history["iteration"]))
+    return EngineFit(
+        np.asarray(fit.params),
+        np.asarray(fit.normalized_cov_params),
+        bool(fit.converged),
+        int(fit.fit_history["iteration"]),
+    )
 
 
 def fit_on_rows(
@@ -352,7 +367,7 @@ def fit_on_rows(
     beta = np.full(len(kept), np.inf)
     beta_full = np.zeros(design.n_full)
     converged, iteration = False, 0
-    for iteration in range(1, MAX_ITERATIONS + 1):
+    for iteration in range(1, MAX_ITERATIONS + 1):  # noqa: B007 - the count of steps is returned
         working_weight = weight * mu ** (2.0 - family.power)
         information = scipy.linalg.cho_factor(design.gram(working_weight)[np.ix_(kept, kept)])
         score_side = design.transpose_times(working_weight * (eta + (rate - mu) / mu))[kept]
@@ -398,7 +413,7 @@ def poisson_irls(design: sp.spmatrix, rate: np.ndarray, weight: np.ndarray) -> E
     mu = np.exp(design @ beta)
     deviance = deviance_of(rate, mu, var_weights=weight)
     converged, iteration = False, 0
-    for iteration in range(1, MAX_ITERATIONS + 1):
+    for iteration in range(1, MAX_ITERATIONS + 1):  # noqa: B007 - the count of steps is returned
         information = scipy.linalg.cho_factor((design.T @ sp.diags(weight * mu) @ design).toarray())
         step = scipy.linalg.cho_solve(information, design.T @ (weight * (rate - mu)))
         for _ in range(STEP_HALVINGS):
@@ -467,5 +482,6 @@ def row_statistics(
         rate = np.exp(design.linear_predictor(beta_full, rows))
         endog, mu, var_weights = family.row_view(numerator[rows], weight[rows], rate)
         llf += model_family.loglike(endog, mu, var_weights=var_weights, scale=dispersion)
-    return RowStatistics(n_rows, n_parameters, float(deviance), float(null_deviance), pearson_chi2,
-                         float(dispersion), float(llf))
+    return RowStatistics(
+        n_rows, n_parameters, float(deviance), float(null_deviance), pearson_chi2, float(dispersion), float(llf)
+    )

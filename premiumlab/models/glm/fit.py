@@ -5,6 +5,7 @@ or the rows engine (IRLS on the sparse one-hot rows); every statistic is the row
 statsmodels reports for the fit on the rows with ``var_weights`` (and offset log exposure for
 Poisson). Terms are ``Intercept`` and ``factor[level]`` with treatment coding against the base level.
 """
+
 from __future__ import annotations
 
 from dataclasses import dataclass, field
@@ -144,8 +145,10 @@ class GlmResult:
             "aic": _json_float(self.aic),
             "llf": _json_float(self.llf),
             "coefficients": [
-                {key: (row[key] if key == "term" else _json_float(row[key]))
-                 for key in ("term", "estimate", "std_error", "p_value")}
+                {
+                    key: (row[key] if key == "term" else _json_float(row[key]))
+                    for key in ("term", "estimate", "std_error", "p_value")
+                }
                 for row in self.coefficients
             ],
             "relativities": {
@@ -155,7 +158,9 @@ class GlmResult:
             "base_levels": dict(self.base_levels),
             "control": list(self.control),
             "aliased": list(self.aliased),
-            "power_profile": [{key: _json_float(value) for key, value in entry.items()} for entry in self.power_profile],
+            "power_profile": [
+                {key: _json_float(value) for key, value in entry.items()} for entry in self.power_profile
+            ],
             "notes": list(self.notes),
             "caution": DRAFT,
         }
@@ -264,8 +269,10 @@ def _estimate(problem: _Problem, family: Family, engine: str) -> EngineFit:
     except InputError:
         raise
     except (ValueError, FloatingPointError, np.linalg.LinAlgError) as e:
-        raise InputError(f"the {problem.label} GLM could not be fitted ({' '.join(str(e).split())}); "
-                         "check the book for extreme or degenerate values") from None
+        raise InputError(
+            f"the {problem.label} GLM could not be fitted ({' '.join(str(e).split())}); "
+            "check the book for extreme or degenerate values"
+        ) from None
 
 
 def _full_beta(problem: _Problem, fit: EngineFit) -> np.ndarray:
@@ -289,10 +296,13 @@ def _fit(problem: _Problem, family: Family, engine: str, inputs: GlmInputs, note
     }
     dropped = set(problem.columns.no_data) | set(problem.columns.collinear)
     notes = list(notes)
-    notes += [f"{term}: no rows in the {problem.label} fit; not estimated, relativity 1.0"
-              for term in problem.columns.no_data]
-    notes += [f"{term}: aliased (a linear combination of earlier terms); not estimated, relativity 1.0"
-              for term in problem.columns.collinear]
+    notes += [
+        f"{term}: no rows in the {problem.label} fit; not estimated, relativity 1.0" for term in problem.columns.no_data
+    ]
+    notes += [
+        f"{term}: aliased (a linear combination of earlier terms); not estimated, relativity 1.0"
+        for term in problem.columns.collinear
+    ]
     if not fit.converged:
         notes.append(f"{engine} engine did not converge in {fit.iterations} iterations")
     return GlmResult(
@@ -373,6 +383,7 @@ def fit_pure_premium(inputs: GlmInputs, power: str | float = "auto", engine: str
     problem = _target_problem(PURE_PREMIUM, inputs)
     engine = _engine_name(engine, problem)
     if power == "auto":
+
         def row_means(candidate: float) -> np.ndarray:
             fit = _estimate(problem, _family(PURE_PREMIUM, candidate), engine)
             return np.exp(problem.design.linear_predictor(_full_beta(problem, fit)))

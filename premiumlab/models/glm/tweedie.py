@@ -6,6 +6,7 @@ alpha = (2-p)/(p-1); P(Y = 0) = exp(-lam). The density is statsmodels' ``Tweedie
 (series in the Wright Bessel function, evaluated only on positive responses; zeros in closed form).
 The extended quasi-likelihood is infinite at zero losses and is not used.
 """
+
 from __future__ import annotations
 
 from collections.abc import Callable
@@ -26,8 +27,9 @@ def tweedie_loglik_obs(
 ) -> np.ndarray:
     """log f(y; mu, phi / w, p) per observation (natural log), 1 < p < 2."""
     family = sm.families.Tweedie(var_power=power, eql=False)
-    return family.loglike_obs(np.asarray(y, dtype=float), np.asarray(mu, dtype=float),
-                              var_weights=weights, scale=dispersion)
+    return family.loglike_obs(
+        np.asarray(y, dtype=float), np.asarray(mu, dtype=float), var_weights=weights, scale=dispersion
+    )
 
 
 def ml_dispersion(
@@ -39,6 +41,7 @@ def ml_dispersion(
     e^+-3 of the Pearson estimate sum w (y-mu)^2/mu^p / n, the bracket moved while the maximum
     lies on its edge.
     """
+
     def negative_loglik(log_phi: float) -> float:
         return -float(np.sum(tweedie_loglik_obs(y, mu, power, float(np.exp(log_phi)), weights)))
 

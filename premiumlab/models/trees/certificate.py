@@ -20,6 +20,7 @@ Linear trees and multi-output models are refused.
 The sweep (empirical): for held-out policies, set the factor to each point of an ascending grid and
 count steps where the raw score moves against the promise by more than 1e-12.
 """
+
 from __future__ import annotations
 
 from collections.abc import Callable
@@ -30,18 +31,17 @@ import pandas as pd
 
 from premiumlab._core.defaults import SEED
 from premiumlab._core.errors import InputError
-from premiumlab.models.trees.parser import (MISSING_ZERO, ZERO_THRESHOLD, Tree, is_categorical, missing_type,
-                                           parse_model)
+from premiumlab.models.trees.parser import MISSING_ZERO, ZERO_THRESHOLD, Tree, is_categorical, missing_type, parse_model
 
-LISTED_VIOLATIONS = 50                       # violations listed in full; all are counted
+LISTED_VIOLATIONS = 50  # violations listed in full; all are counted
 SWEEP_TOLERANCE = 1e-12
 
 
 class Violation(TypedDict):
     tree: int
-    leaves: list[int]          # [lower leaf, upper leaf] on the promised feature
-    values: list[float]        # their leaf values
-    amount: float              # how far the pair moves against the promise (raw score units)
+    leaves: list[int]  # [lower leaf, upper leaf] on the promised feature
+    values: list[float]  # their leaf values
+    amount: float  # how far the pair moves against the promise (raw score units)
 
 
 class Certificate(TypedDict):
@@ -51,12 +51,12 @@ class Certificate(TypedDict):
     monotone: bool
     trees_checked: int
     trees_splitting_on_feature: int
-    leaf_pairs_checked: int        # pairs of leaves of one tree overlapping on every other feature and
-                                   # ordered on this one: the pairs whose values must be ordered
+    leaf_pairs_checked: int  # pairs of leaves of one tree overlapping on every other feature and
+    # ordered on this one: the pairs whose values must be ordered
     violation_count: int
     max_violation: float
     trees_with_violations: list[int]
-    violations: list[Violation]   # the largest LISTED_VIOLATIONS, by amount
+    violations: list[Violation]  # the largest LISTED_VIOLATIONS, by amount
 
 
 class SweepResult(TypedDict):
@@ -95,7 +95,7 @@ def _cells_and_routes(tree: Tree) -> tuple[dict[int, np.ndarray], dict[int, np.n
         on_feature = tree.split_feature == feature
         if categorical[on_feature].any():
             codes = np.unique(np.concatenate([tree.left_codes(n) for n in np.flatnonzero(on_feature)]))
-            cells[int(feature)] = np.concatenate([codes, [-1]]).astype(np.float64)   # -1: every other value
+            cells[int(feature)] = np.concatenate([codes, [-1]]).astype(np.float64)  # -1: every other value
         else:
             zero_type = bool((missing_type(tree.decision_type[on_feature]) == MISSING_ZERO).any())
             cells[int(feature)] = _numeric_cells(tree.threshold[on_feature], zero_type)
@@ -146,30 +146,39 @@ def _check_direction(direction: int) -> None:
 
 def _tree_pairs(tree: Tree, feature: int, direction: int) -> tuple[int, list[Violation]]:
     """(comparable leaf pairs, violations) of one tree for the promised feature."""
-    cells, regions = leaf_regions(tree)
+    _cells, regions = leaf_regions(tree)
     if feature not in regions:
         return 0, []
     if is_categorical(tree.decision_type[tree.split_feature == feature]).any():
-        raise InputError(f"model text: tree {tree.index} splits the promised feature as a categorical; "
-                         "a promise needs a numeric (integer-coded) feature")
+        raise InputError(
+            f"model text: tree {tree.index} splits the promised feature as a categorical; "
+            "a promise needs a numeric (integer-coded) feature"
+        )
     leaves = tree.leaf_value.size
     overlap = np.ones((leaves, leaves), dtype=bool)
     for f, region in regions.items():
         if f != feature:
             as_int = region.astype(np.int64)
             overlap &= (as_int @ as_int.T) > 0
-    ordered_cells = regions[feature][:, :-1]              # the last cell is NaN: not ordered
+    ordered_cells = regions[feature][:, :-1]  # the last cell is NaN: not ordered
     count = ordered_cells.shape[1]
     has_value = ordered_cells.any(axis=1)
     lowest = np.where(has_value, ordered_cells.argmax(axis=1), count)
     highest = np.where(has_value, count - 1 - ordered_cells[:, ::-1].argmax(axis=1), -1)
-    below = overlap & (lowest[:, None] < highest[None, :])    # some x of row leaf below some x of column leaf
+    below = overlap & (lowest[:, None] < highest[None, :])  # some x of row leaf below some x of column leaf
     comparable = int(np.triu(below | below.T, k=1).sum())
     values = tree.leaf_value
     against = direction * (values[:, None] - values[None, :])
     lower, upper = np.nonzero(below & (against > 0))
-    violations = [Violation(tree=tree.index, leaves=[int(a), int(b)], values=[float(values[a]), float(values[b])],
-                            amount=float(against[a, b])) for a, b in zip(lower, upper)]
+    violations = [
+        Violation(
+            tree=tree.index,
+            leaves=[int(a), int(b)],
+            values=[float(values[a]), float(values[b])],
+            amount=float(against[a, b]),
+        )
+        for a, b in zip(lower, upper)
+    ]
     return comparable, violations
 
 
@@ -186,13 +195,19 @@ def certify(model_text: str, feature: str | int, direction: int) -> Certificate:
         pairs += tree_pairs
         violations.extend(tree_violations)
     violations.sort(key=lambda v: -v["amount"])
-    return Certificate(feature=names[index], feature_index=index, direction=direction,
-                       monotone=not violations, trees_checked=len(trees),
-                       trees_splitting_on_feature=splitting, leaf_pairs_checked=pairs,
-                       violation_count=len(violations),
-                       max_violation=violations[0]["amount"] if violations else 0.0,
-                       trees_with_violations=sorted({v["tree"] for v in violations}),
-                       violations=violations[:LISTED_VIOLATIONS])
+    return Certificate(
+        feature=names[index],
+        feature_index=index,
+        direction=direction,
+        monotone=not violations,
+        trees_checked=len(trees),
+        trees_splitting_on_feature=splitting,
+        leaf_pairs_checked=pairs,
+        violation_count=len(violations),
+        max_violation=violations[0]["amount"] if violations else 0.0,
+        trees_with_violations=sorted({v["tree"] for v in violations}),
+        violations=violations[:LISTED_VIOLATIONS],
+    )
 
 
 # ---------------------------------------------------------------------------------------------
@@ -208,8 +223,15 @@ def _default_grid(values: pd.Series, points: int = 50) -> np.ndarray:
     return np.unique(np.quantile(finite, np.linspace(0.0, 1.0, points), method="inverted_cdf"))
 
 
-def sweep(model: RawScorer | Callable[[pd.DataFrame], np.ndarray], features_sample: pd.DataFrame, feature: str,
-          direction: int, grid: np.ndarray | None = None, policies: int = 1000, seed: int = SEED) -> SweepResult:
+def sweep(
+    model: RawScorer | Callable[[pd.DataFrame], np.ndarray],
+    features_sample: pd.DataFrame,
+    feature: str,
+    direction: int,
+    grid: np.ndarray | None = None,
+    policies: int = 1000,
+    seed: int = SEED,
+) -> SweepResult:
     """Set `feature` to every grid value (ascending; default: the observed values at 50 quantiles
     of the sample) for up to
     `policies` seeded rows of `features_sample` and count grid steps where the raw score moves
@@ -232,8 +254,14 @@ def sweep(model: RawScorer | Callable[[pd.DataFrame], np.ndarray], features_samp
     scores = np.asarray(predict_raw(stacked), dtype=np.float64).reshape(len(sample), points.size)
     against = -direction * np.diff(scores, axis=1)
     bad = against > SWEEP_TOLERANCE
-    return SweepResult(feature=feature, direction=direction, policies=len(sample), grid=points.tolist(),
-                       steps_checked=int(bad.size), violation_count=int(bad.sum()),
-                       policies_with_violation=int(bad.any(axis=1).sum()),
-                       max_violation=float(max(against.max(), 0.0)), tolerance=SWEEP_TOLERANCE)
-
+    return SweepResult(
+        feature=feature,
+        direction=direction,
+        policies=len(sample),
+        grid=points.tolist(),
+        steps_checked=int(bad.size),
+        violation_count=int(bad.sum()),
+        policies_with_violation=int(bad.any(axis=1).sum()),
+        max_violation=float(max(against.max(), 0.0)),
+        tolerance=SWEEP_TOLERANCE,
+    )

@@ -9,6 +9,7 @@ sample is replicated n times), centred to mean zero over i. For a pair (j, k),
 H measures departure from a multiplicative effect of the pair; pairs are ranked by unnormalised H,
 which is on the score's scale and so does not make weak pairs look strong.
 """
+
 from __future__ import annotations
 
 from collections.abc import Callable, Sequence
@@ -39,12 +40,13 @@ def top_factors_by_gain(booster: lgb.Booster, count: int = DEFAULT_FACTORS) -> l
     return [names[i] for i in order[:count] if gains[i] > 0]
 
 
-def _centred_pd(predict_raw: Callable[[pd.DataFrame], np.ndarray], sample: pd.DataFrame,
-                factors: Sequence[str]) -> np.ndarray:
+def _centred_pd(
+    predict_raw: Callable[[pd.DataFrame], np.ndarray], sample: pd.DataFrame, factors: Sequence[str]
+) -> np.ndarray:
     """Centred partial dependence of `factors` at each sample point (one predict on n x n rows)."""
     n = len(sample)
-    stacked = sample.take(np.tile(np.arange(n), n)).reset_index(drop=True)   # row a*n + b: background b
-    at_point = np.repeat(np.arange(n), n)                                    # ... with factors of point a
+    stacked = sample.take(np.tile(np.arange(n), n)).reset_index(drop=True)  # row a*n + b: background b
+    at_point = np.repeat(np.arange(n), n)  # ... with factors of point a
     for factor in factors:
         stacked[factor] = sample[factor].take(at_point).reset_index(drop=True)
     scores = np.asarray(predict_raw(stacked), dtype=np.float64)
@@ -54,8 +56,13 @@ def _centred_pd(predict_raw: Callable[[pd.DataFrame], np.ndarray], sample: pd.Da
     return dependence - dependence.mean()
 
 
-def h_statistics(booster_predict_raw: Callable[[pd.DataFrame], np.ndarray], features_sample: pd.DataFrame,
-                 factors: Sequence[str], seed: int, sample_size: int = DEFAULT_SAMPLE) -> list[PairInteraction]:
+def h_statistics(
+    booster_predict_raw: Callable[[pd.DataFrame], np.ndarray],
+    features_sample: pd.DataFrame,
+    factors: Sequence[str],
+    seed: int,
+    sample_size: int = DEFAULT_SAMPLE,
+) -> list[PairInteraction]:
     """H statistics of every pair of `factors` on a seeded sample of `sample_size` rows of
     `features_sample`, ranked by unnormalised H (largest first; ties in factor order)."""
     factors = list(factors)
@@ -66,15 +73,21 @@ def h_statistics(booster_predict_raw: Callable[[pd.DataFrame], np.ndarray], feat
         raise InputError(f"h_statistics: need at least two distinct factors, got {factors}")
     if len(features_sample) < 2:
         raise InputError("h_statistics: features_sample needs at least two rows")
-    rows = np.random.default_rng(seed).choice(len(features_sample), min(sample_size, len(features_sample)),
-                                              replace=False)
+    rows = np.random.default_rng(seed).choice(
+        len(features_sample), min(sample_size, len(features_sample)), replace=False
+    )
     sample = features_sample.iloc[np.sort(rows)].reset_index(drop=True)
     one_way = {f: _centred_pd(booster_predict_raw, sample, [f]) for f in factors}
     results = []
     for a, b in combinations(factors, 2):
         joint = _centred_pd(booster_predict_raw, sample, [a, b])
         residual_ss = float(np.sum((joint - one_way[a] - one_way[b]) ** 2))
-        joint_ss = float(np.sum(joint ** 2))
-        results.append(PairInteraction(pair=[a, b], h2=residual_ss / joint_ss if joint_ss > 0 else 0.0,
-                                       h_unnormalised=float(np.sqrt(residual_ss))))
+        joint_ss = float(np.sum(joint**2))
+        results.append(
+            PairInteraction(
+                pair=[a, b],
+                h2=residual_ss / joint_ss if joint_ss > 0 else 0.0,
+                h_unnormalised=float(np.sqrt(residual_ss)),
+            )
+        )
     return sorted(results, key=lambda r: -r["h_unnormalised"])

@@ -16,6 +16,7 @@ Routing at a node (LightGBM's ``NumericalDecision`` and ``CategoricalDecision``)
   is set in its ``cat_threshold`` words, and everything else (other codes, negative values, NaN)
   to the right.
 """
+
 from __future__ import annotations
 
 from dataclasses import dataclass
@@ -24,8 +25,8 @@ import numpy as np
 
 from premiumlab._core.errors import InputError
 
-ZERO_THRESHOLD = float(np.float32(1e-35))   # LightGBM's kZeroThreshold
-MISSING_ZERO, MISSING_NAN = 1, 2                # decision_type bits 2-3 (0: no missing handling)
+ZERO_THRESHOLD = float(np.float32(1e-35))  # LightGBM's kZeroThreshold
+MISSING_ZERO, MISSING_NAN = 1, 2  # decision_type bits 2-3 (0: no missing handling)
 CATEGORY_WORD_BITS = 32
 
 
@@ -57,7 +58,7 @@ class Tree:
         """Boolean mask over integer codes 0 .. 32 x words - 1 of a categorical node: True for the
         codes sent left (bit ``code % 32`` of word ``code // 32`` of its ``cat_threshold`` slice)."""
         slot = int(self.threshold[node])
-        words = self.cat_threshold[self.cat_boundaries[slot]:self.cat_boundaries[slot + 1]]
+        words = self.cat_threshold[self.cat_boundaries[slot] : self.cat_boundaries[slot + 1]]
         return ((words[:, None] >> np.arange(CATEGORY_WORD_BITS)[None, :]) & 1).ravel().astype(bool)
 
     def left_codes(self, node: int) -> np.ndarray:
@@ -150,14 +151,23 @@ def parse_model(model_text: str) -> tuple[list[str], list[Tree]]:
             raise InputError(f"model text: tree {index} is a linear tree; only constant leaves are supported")
         leaves = int(fields.get("num_leaves", "0"))
         internal = leaves - 1
-        arrays = {key: _numbers(fields, key, index, dtype, required=internal > 0)
-                  for key, dtype in (("split_feature", np.int64), ("threshold", np.float64),
-                                     ("decision_type", np.int64), ("left_child", np.int64),
-                                     ("right_child", np.int64))}
-        tree = Tree(index=index, leaf_value=_numbers(fields, "leaf_value", index, np.float64),
-                    cat_boundaries=_numbers(fields, "cat_boundaries", index, np.int64, required=False),
-                    cat_threshold=_numbers(fields, "cat_threshold", index, np.int64, required=False),
-                    **arrays)
+        arrays = {
+            key: _numbers(fields, key, index, dtype, required=internal > 0)
+            for key, dtype in (
+                ("split_feature", np.int64),
+                ("threshold", np.float64),
+                ("decision_type", np.int64),
+                ("left_child", np.int64),
+                ("right_child", np.int64),
+            )
+        }
+        tree = Tree(
+            index=index,
+            leaf_value=_numbers(fields, "leaf_value", index, np.float64),
+            cat_boundaries=_numbers(fields, "cat_boundaries", index, np.int64, required=False),
+            cat_threshold=_numbers(fields, "cat_threshold", index, np.int64, required=False),
+            **arrays,
+        )
         if tree.leaf_value.size != leaves or any(a.size != internal for a in arrays.values()):
             raise InputError(f"model text: tree {index} has arrays that disagree with num_leaves={leaves}")
         trees.append(tree)

@@ -6,6 +6,7 @@ those splits send there (routing as `premiumlab.models.trees.parser` states it).
 split on the feature add the same amount at every grid point and are skipped, so the curve is
 known up to an additive constant.
 """
+
 from __future__ import annotations
 
 import numpy as np
@@ -13,8 +14,16 @@ import numpy as np
 from premiumlab.models.trees.parser import Tree, Trees
 
 
-def _walk(tree: Tree, node: int, rows: np.ndarray, on_grid: np.ndarray, columns: list[np.ndarray],
-          feature: int, grid: np.ndarray, out: np.ndarray) -> None:
+def _walk(
+    tree: Tree,
+    node: int,
+    rows: np.ndarray,
+    on_grid: np.ndarray,
+    columns: list[np.ndarray],
+    feature: int,
+    grid: np.ndarray,
+    out: np.ndarray,
+) -> None:
     """Send `rows` of the sample down from `node` (child < 0 is leaf ~child); at splits on `feature`
     they go both ways, each way narrowing `on_grid` to the grid points the split sends there."""
     if node < 0:
