@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import json
 from collections.abc import Callable, Iterable
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from premiumlab.results import (
     AuditResult,
@@ -15,6 +15,9 @@ from premiumlab.results import (
     TableResult,
     TailFit,
 )
+
+if TYPE_CHECKING:
+    from premiumlab.book.validate import ValidationReport
 
 
 def caution_lines(cautions: Iterable[str]) -> list[str]:
@@ -27,7 +30,7 @@ def simulation_line(result: SimulationResult) -> str:
     return f"wrote {result.book} ({result.rows} rows, {result.policies} policies) and {result.truth}"
 
 
-def validation_text(report) -> str:
+def validation_text(report: ValidationReport) -> str:
     """`validate`: the counts, every finding, the profile tables (when the book has no errors) and
     the cautions, for a `premiumlab.book.validate.ValidationReport`."""
     import pandas as pd

@@ -17,6 +17,7 @@ def features_from_spec(frame: pd.DataFrame, spec: Spec) -> pd.DataFrame:
         if f.type == "numeric":
             cols[f.name] = values.to_numpy(dtype=float)
         elif f.direction != 0:
+            assert f.levels is not None  # the spec refuses a promise on a categorical without `levels`
             cols[f.name] = pd.Categorical(values, categories=list(f.levels)).codes.astype(float)
         else:
             levels = list(f.levels) if f.levels is not None else sorted(set(values))

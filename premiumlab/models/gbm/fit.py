@@ -142,7 +142,7 @@ class GbmModel:
     def predict_raw(self, features: pd.DataFrame) -> np.ndarray:
         """log(prediction): the booster's raw score plus log(rebalance_factor)."""
         raw = self.booster.predict(self.encode(features), raw_score=True, num_threads=self.params["num_threads"])
-        return raw + math.log(self.rebalance_factor)
+        return np.asarray(raw, dtype=np.float64) + math.log(self.rebalance_factor)
 
     def predict(self, features: pd.DataFrame) -> np.ndarray:
         """Frequency (claims per exposure unit), severity (money per claim) or pure premium
@@ -409,9 +409,9 @@ def _fold_fit(
     feval = _deviance_eval(data.label[valid_rows], data.weight[valid_rows], data.power)
     booster = lgb.train(
         {**data.base_params, **setting},
-        full.subset(train_rows),
+        full.subset(train_rows.tolist()),
         num_boost_round=options.max_rounds,
-        valid_sets=[full.subset(valid_rows)],
+        valid_sets=[full.subset(valid_rows.tolist())],
         valid_names=["fold"],
         feval=feval,
         callbacks=[lgb.early_stopping(options.early_stopping_rounds, verbose=False)],

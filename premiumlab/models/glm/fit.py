@@ -377,12 +377,11 @@ def fit_pure_premium(inputs: GlmInputs, power: str | float = "auto", engine: str
     and the dispersion at its maximum likelihood for each power (see premiumlab.tweedie).
     """
     _check_engine(engine)
-    if power != "auto":
-        power = _fixed_power(power)
+    fixed_power = None if power == "auto" else _fixed_power(power)
     _require_amount(inputs, PURE_PREMIUM)
     problem = _target_problem(PURE_PREMIUM, inputs)
     engine = _engine_name(engine, problem)
-    if power == "auto":
+    if fixed_power is None:
 
         def row_means(candidate: float) -> np.ndarray:
             fit = _estimate(problem, _family(PURE_PREMIUM, candidate), engine)
@@ -393,7 +392,7 @@ def fit_pure_premium(inputs: GlmInputs, power: str | float = "auto", engine: str
         if chosen in (POWER_GRID[0], POWER_GRID[-1]):
             notes.append(f"power {chosen:g} is at the edge of the searched range; the likelihood may peak outside it")
     else:
-        chosen, profile, notes = power, [], []
+        chosen, profile, notes = fixed_power, [], []
     result = _fit(problem, _family(PURE_PREMIUM, chosen), engine, inputs, notes)
     result.power_profile = profile
     return result

@@ -89,15 +89,15 @@ def _numeric_cells(thresholds: np.ndarray, zero_type: bool) -> np.ndarray:
 
 def _cells_and_routes(tree: Tree) -> tuple[dict[int, np.ndarray], dict[int, np.ndarray]]:
     """Per split feature: cell representatives; per internal node: which cells of its feature go left."""
-    categorical = is_categorical(tree.decision_type)
+    categorical = np.asarray(is_categorical(tree.decision_type))
     cells: dict[int, np.ndarray] = {}
     for feature in np.unique(tree.split_feature):
         on_feature = tree.split_feature == feature
         if categorical[on_feature].any():
-            codes = np.unique(np.concatenate([tree.left_codes(n) for n in np.flatnonzero(on_feature)]))
+            codes = np.unique(np.concatenate([tree.left_codes(int(n)) for n in np.flatnonzero(on_feature)]))
             cells[int(feature)] = np.concatenate([codes, [-1]]).astype(np.float64)  # -1: every other value
         else:
-            zero_type = bool((missing_type(tree.decision_type[on_feature]) == MISSING_ZERO).any())
+            zero_type = bool(np.any(missing_type(tree.decision_type[on_feature]) == MISSING_ZERO))
             cells[int(feature)] = _numeric_cells(tree.threshold[on_feature], zero_type)
     routes = {node: tree.goes_left(node, cells[int(feature)]) for node, feature in enumerate(tree.split_feature)}
     return cells, routes
@@ -149,7 +149,7 @@ def _tree_pairs(tree: Tree, feature: int, direction: int) -> tuple[int, list[Vio
     _cells, regions = leaf_regions(tree)
     if feature not in regions:
         return 0, []
-    if is_categorical(tree.decision_type[tree.split_feature == feature]).any():
+    if np.any(is_categorical(tree.decision_type[tree.split_feature == feature])):
         raise InputError(
             f"model text: tree {tree.index} splits the promised feature as a categorical; "
             "a promise needs a numeric (integer-coded) feature"
