@@ -527,7 +527,7 @@ def _tuned_fit(data: TrainingData, options: GbmOptions, runner: TaskRunner) -> G
     return fit_final(data, settings[chosen], table[chosen]["rounds"], table, chosen)
 
 
-def uncertified_factors(model: GbmModel) -> list[str]:
+def _uncertified_factors(model: GbmModel) -> list[str]:
     """The constrained factors whose monotonicity certificate finds a violating leaf pair."""
     if not model.monotone:
         return []
@@ -548,7 +548,7 @@ def fit_target(
     """
     model = _tuned_fit(prepare_training(inputs, target, options), options, runner)
     notes: list[str] = []
-    while (broken := uncertified_factors(model)) and options.monotone_method in SIMPLER_METHOD:
+    while (broken := _uncertified_factors(model)) and options.monotone_method in SIMPLER_METHOD:
         simpler = SIMPLER_METHOD[options.monotone_method]
         notes.append(
             f"the {options.monotone_method} constraint method broke the promise on "

@@ -65,11 +65,6 @@ POISSON = Family("poisson", 1.0)
 GAMMA = Family("gamma", 2.0)
 
 
-def tweedie_family(power: float) -> Family:
-    """Tweedie family with variance power ``power`` (1 < power < 2)."""
-    return Family("tweedie", float(power))
-
-
 def _margin(counts: np.ndarray, keep: tuple[int, ...]) -> np.ndarray:
     """Sum of a counts array over every axis but ``keep`` (kept axes in their order)."""
     return counts.sum(axis=tuple(axis for axis in range(counts.ndim) if axis not in keep))

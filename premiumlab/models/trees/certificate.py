@@ -103,7 +103,7 @@ def _cells_and_routes(tree: Tree) -> tuple[dict[int, np.ndarray], dict[int, np.n
     return cells, routes
 
 
-def leaf_regions(tree: Tree) -> tuple[dict[int, np.ndarray], dict[int, np.ndarray]]:
+def _leaf_regions(tree: Tree) -> tuple[dict[int, np.ndarray], dict[int, np.ndarray]]:
     """(cells per feature, feature -> boolean matrix leaves x cells: which cells reach each leaf)."""
     cells, routes = _cells_and_routes(tree)
     leaves = tree.leaf_value.size
@@ -146,7 +146,7 @@ def _check_direction(direction: int) -> None:
 
 def _tree_pairs(tree: Tree, feature: int, direction: int) -> tuple[int, list[Violation]]:
     """(comparable leaf pairs, violations) of one tree for the promised feature."""
-    _cells, regions = leaf_regions(tree)
+    _cells, regions = _leaf_regions(tree)
     if feature not in regions:
         return 0, []
     if np.any(is_categorical(tree.decision_type[tree.split_feature == feature])):
