@@ -184,7 +184,34 @@ def _tree_pairs(tree: Tree, feature: int, direction: int) -> tuple[int, list[Vio
 
 def certify(model_text: str, feature: str | int, direction: int) -> Certificate:
     """Check every tree of a LightGBM text model for monotonicity in `feature` (+1 increasing,
-    -1 decreasing); exact for every input, from the text alone (see the module docstring)."""
+    -1 decreasing); exact for every input, from the text alone (see the module docstring).
+
+    A comparable pair of leaves (A, B) of one tree, with some value of the feature in A below some
+    value in B and the two regions overlapping on every other feature, violates the promise when
+    direction x (value(A) - value(B)) > 0; that amount is the violation (raw score units).
+
+    Parameters
+    ----------
+    model_text : str
+        The model as ``Booster.model_to_string()`` writes it.
+    feature : str or int
+        The promised feature, by name or by index in the model's features; numeric (an ordered
+        factor as integer codes).
+    direction : int
+        +1 (increasing) or -1 (decreasing).
+
+    Returns
+    -------
+    Certificate
+        `monotone` (no violation), the trees and leaf pairs checked, the violation count, the
+        largest violation, the trees with violations, and the LISTED_VIOLATIONS largest in full.
+
+    Raises
+    ------
+    InputError
+        A direction other than +-1, an unknown feature, a model the parser refuses, or a
+        categorical split on the promised feature.
+    """
     _check_direction(direction)
     names, trees = parse_model(model_text)
     index = _resolve_feature(names, feature)
@@ -236,7 +263,40 @@ def sweep(
     of the sample) for up to
     `policies` seeded rows of `features_sample` and count grid steps where the raw score moves
     against `direction` by more than 1e-12 (one predict call on the stacked rows). `model` has a
-    `predict_raw(features)` method (a `GbmModel`) or is itself such a function."""
+    `predict_raw(features)` method (a `GbmModel`) or is itself such a function.
+
+    A step from grid point g_k to g_(k+1) for one policy is a violation when
+    -direction x (score(g_(k+1)) - score(g_k)) > 1e-12 (SWEEP_TOLERANCE).
+
+    Parameters
+    ----------
+    model : RawScorer or callable
+        Gives the raw score (log of the prediction) of a features frame.
+    features_sample : pd.DataFrame
+        Policies in the model's feature encoding (as `GbmModel.predict_raw` reads them).
+    feature : str
+        The promised feature, a column of `features_sample`.
+    direction : int
+        +1 (increasing) or -1 (decreasing).
+    grid : np.ndarray or None
+        At least two strictly increasing values of the feature; None: the sample's values at 50
+        evenly spaced quantiles.
+    policies : int
+        Largest number of rows of `features_sample` drawn (without replacement).
+    seed : int
+        Seed of that draw.
+
+    Returns
+    -------
+    SweepResult
+        The grid, the policies and steps checked, the violating steps, the policies with one, the
+        largest step against the promise (raw score units, 0 if none) and the tolerance.
+
+    Raises
+    ------
+    InputError
+        A direction other than +-1, `feature` not a column, no rows, or a bad grid.
+    """
     _check_direction(direction)
     if feature not in features_sample.columns:
         raise InputError(f"sweep: features_sample has no column {feature!r}")
