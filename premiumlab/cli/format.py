@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import json
 from collections.abc import Callable, Iterable
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from premiumlab.results import (
     AuditResult,
@@ -16,20 +16,56 @@ from premiumlab.results import (
     TailFit,
 )
 
+if TYPE_CHECKING:
+    from premiumlab.book.validate import ValidationReport
+
 
 def caution_lines(cautions: Iterable[str]) -> list[str]:
-    """One `caution: ...` line per caution."""
+    """One `caution: ...` line per caution.
+
+    Parameters
+    ----------
+    cautions : iterable of str
+        The cautions of a result.
+
+    Returns
+    -------
+    list[str]
+        The lines, in the order given.
+    """
     return [f"caution: {c}" for c in cautions]
 
 
 def simulation_line(result: SimulationResult) -> str:
-    """`simulate`: the files written and the book's size."""
+    """`simulate`: the files written and the book's size.
+
+    Parameters
+    ----------
+    result : SimulationResult
+        What `simulate` returned.
+
+    Returns
+    -------
+    str
+        One line.
+    """
     return f"wrote {result.book} ({result.rows} rows, {result.policies} policies) and {result.truth}"
 
 
-def validation_text(report) -> str:
+def validation_text(report: ValidationReport) -> str:
     """`validate`: the counts, every finding, the profile tables (when the book has no errors) and
-    the cautions, for a `premiumlab.book.validate.ValidationReport`."""
+    the cautions, for a `premiumlab.book.validate.ValidationReport`.
+
+    Parameters
+    ----------
+    report : ValidationReport
+        What `validate` returned.
+
+    Returns
+    -------
+    str
+        The lines joined by newlines; profile figures with 4 significant digits.
+    """
     import pandas as pd
 
     lines = [
@@ -48,7 +84,19 @@ def validation_text(report) -> str:
 
 
 def comparison_lines(result: Comparison) -> list[str]:
-    """`compare`: a compact table of the holdout metrics and the differences with their intervals."""
+    """`compare`: a compact table of the holdout metrics and the differences with their intervals.
+
+    Parameters
+    ----------
+    result : Comparison
+        What `compare` returned.
+
+    Returns
+    -------
+    list[str]
+        A header, one line per target and model (mean deviance, D^2, Gini, balance), then one per
+        difference with its 95 % interval.
+    """
     lines = [
         f"holdout rows: {result.holdout_rows}   Tweedie power: {result.tweedie_power:.2f}",
         f"{'target':<13} {'model':<18} {'mean dev':>11} {'D^2':>8} {'Gini':>8} {'balance':>8}",
@@ -71,7 +119,20 @@ def comparison_lines(result: Comparison) -> list[str]:
 
 
 def fidelity_lines(result: TableResult) -> list[str]:
-    """`tabulate`: rate level, fidelity and retention."""
+    """`tabulate`: rate level, fidelity and retention.
+
+    Parameters
+    ----------
+    result : TableResult
+        What `tabulate` returned.
+
+    Returns
+    -------
+    list[str]
+        The table written with its base rate, total pure premium (money) and rounding off-balance,
+        the indicated change when there is one, the mean deviance and Gini of each model, and the
+        retention ratios that are defined.
+    """
     level, fid = result.rate_level, result.fidelity
     lines = [
         f"wrote {result.table}: base rate {level['base_rate']:.4f}, total pure premium "
@@ -92,12 +153,35 @@ def fidelity_lines(result: TableResult) -> list[str]:
 
 
 def audit_lines(result: AuditResult) -> list[str]:
-    """`audit`: every violation, then their count."""
+    """`audit`: every violation, then their count.
+
+    Parameters
+    ----------
+    result : AuditResult
+        What `audit` returned.
+
+    Returns
+    -------
+    list[str]
+        One line per violation, then the count.
+    """
     return [*result.violations, f"audit: {len(result.violations)} violation(s) in {result.table}"]
 
 
 def impact_lines(result: ImpactResult) -> list[str]:
-    """`impact`: totals, change bands, shares above the thresholds, the largest increase, capping."""
+    """`impact`: totals, change bands, shares above the thresholds, the largest increase, capping.
+
+    Parameters
+    ----------
+    result : ImpactResult
+        What `impact` returned.
+
+    Returns
+    -------
+    list[str]
+        Totals (money) and the overall change, the policies per change band, the shares above each
+        threshold, the largest increase and the capping figures, when there are any.
+    """
     lines = [
         f"policies {result.policies}: current total {result.total_current:,.2f}, proposed "
         f"{result.total_proposed:,.2f}, overall change {result.overall_change:+.2%}",
@@ -126,7 +210,19 @@ def impact_lines(result: ImpactResult) -> list[str]:
 
 
 def certificate_lines(result: Certificate) -> list[str]:
-    """`certify`: what was checked and each listed violation."""
+    """`certify`: what was checked and each listed violation.
+
+    Parameters
+    ----------
+    result : Certificate
+        What `certify` returned.
+
+    Returns
+    -------
+    list[str]
+        The trees and leaf pairs checked and the violation count, then one line per listed
+        violation with its two leaf values and the reversal (raw score units).
+    """
     lines = [
         f"{result.model}: {result.trees_checked} trees checked, {result.trees_splitting_on_feature} split on "
         f"{result.feature}, {result.leaf_pairs_checked} leaf pairs checked, "
@@ -142,7 +238,20 @@ def certificate_lines(result: Certificate) -> list[str]:
 
 
 def tail_lines(result: TailFit) -> list[str]:
-    """`tails`: the losses, the fit above the threshold and every tenth row of the mean-excess table."""
+    """`tails`: the losses, the fit above the threshold and every tenth row of the mean-excess table.
+
+    Parameters
+    ----------
+    result : TailFit
+        What `tails` returned.
+
+    Returns
+    -------
+    list[str]
+        The losses, the threshold (money) with its exceedances and shares, the generalised Pareto
+        shape and scale, about ten rows of the mean-excess table (a step of len // 10 rows, at
+        least 1), and the notes.
+    """
     from premiumlab.experience.tails import DEFAULT_QUANTILE
 
     quantile = f" (the {DEFAULT_QUANTILE:.0%} quantile)" if result.default_threshold else ""
@@ -162,7 +271,18 @@ def tail_lines(result: TailFit) -> list[str]:
 
 
 def tail_json(result: TailFit) -> str:
-    """`tails --json`: the fit and the mean-excess table on one line (the cautions go to stderr)."""
+    """`tails --json`: the fit and the mean-excess table on one line (the cautions go to stderr).
+
+    Parameters
+    ----------
+    result : TailFit
+        What `tails` returned.
+
+    Returns
+    -------
+    str
+        `result.to_dict()` without `cautions`, as JSON (non-finite numbers refused).
+    """
     fields = result.to_dict()
     del fields["cautions"]
     return json.dumps(fields, allow_nan=False)
@@ -177,5 +297,16 @@ _RESULT_LINES: dict[type, Callable[[Any], list[str]]] = {
 
 
 def result_lines(value: object) -> list[str]:
-    """The text of a step's result, for the results `demo` reports."""
+    """The text of a step's result, for the results `demo` reports.
+
+    Parameters
+    ----------
+    value : Comparison, TableResult or ImpactResult
+        A step's result.
+
+    Returns
+    -------
+    list[str]
+        Its lines, as `comparison_lines`, `fidelity_lines` or `impact_lines` give them.
+    """
     return _RESULT_LINES[type(value)](value)

@@ -45,7 +45,30 @@ def checked_deviance_inputs(
 ) -> list[np.ndarray]:
     """[y, weight, *predictions] as float arrays, validated for the Tweedie deviance of `power`:
     finite, of one length, weights >= 0 with a positive total, y and predictions in the family's
-    domain (see `unit_deviance`)."""
+    domain (see `unit_deviance`).
+
+    Parameters
+    ----------
+    y : array-like of float
+        Observed rates, one per row (e.g. claims per exposure unit, money per claim).
+    weight : array-like of float
+        Row weights w >= 0 (exposure units or claims), with sum(w) > 0.
+    power : float
+        Tweedie variance power: 0, 1, 1 < p < 2, 2 or p > 2.
+    **predictions : array-like of float
+        Predicted means mu, one array per model, named as they appear in messages.
+
+    Returns
+    -------
+    list[np.ndarray]
+        The float64 arrays [y, weight, *predictions], in that order.
+
+    Raises
+    ------
+    InputError
+        A power without a deviance here, arrays of different lengths, a non-finite value, a negative
+        weight or a zero total weight, or y or a prediction outside the family's domain.
+    """
     _check_power(power)
     arrays = checked_arrays(y=y, weight=weight, **predictions)
     checked_weights("weight", arrays[1])
@@ -54,7 +77,22 @@ def checked_deviance_inputs(
 
 
 def unit_deviance_unchecked(y: np.ndarray, mu: np.ndarray, power: float) -> np.ndarray:
-    """The formula of `unit_deviance` on arrays already validated (`checked_deviance_inputs`)."""
+    """The formula of `unit_deviance` on arrays already validated (`checked_deviance_inputs`).
+
+    Parameters
+    ----------
+    y : np.ndarray
+        Observed rates, float64, in the family's domain.
+    mu : np.ndarray
+        Predicted means, float64, same length as `y`.
+    power : float
+        Tweedie variance power, already checked.
+
+    Returns
+    -------
+    np.ndarray
+        d(y, mu) per row, float64, >= 0 (the formulas of `unit_deviance`).
+    """
     if power == 0:
         return (y - mu) ** 2
     if power == 1:
@@ -74,6 +112,26 @@ def unit_deviance(y: ArrayLike, mu: ArrayLike, power: float) -> np.ndarray:
     power 0: (y - mu)^2; 1 (Poisson): 2 (y log(y/mu) - y + mu); 2 (Gamma): 2 (log(mu/y) + y/mu - 1);
     1 < p < 2 and p > 2: 2 (y^(2-p)/((1-p)(2-p)) - y mu^(1-p)/(1-p) + mu^(2-p)/(2-p)).
     Domain: any y and mu for power 0; y >= 0 and mu > 0 for powers below 2; y, mu > 0 from 2 on.
+
+    Parameters
+    ----------
+    y : array-like of float
+        Observed rates, one per row.
+    mu : array-like of float
+        Predicted means, one per row.
+    power : float
+        Tweedie variance power: 0, 1, 1 < p < 2, 2 or p > 2.
+
+    Returns
+    -------
+    np.ndarray
+        d(y, mu) per row, float64.
+
+    Raises
+    ------
+    InputError
+        A power without a deviance here, arrays of different lengths, a non-finite value, or y or
+        mu outside the domain.
     """
     _check_power(power)
     y_arr, mu_arr = checked_arrays(y=y, mu=mu)
@@ -86,13 +144,58 @@ def mean_deviance(y: ArrayLike, mu: ArrayLike, weight: ArrayLike, power: float) 
 
     Frequency: y = count/exposure, w = exposure, power 1; severity: y = amount/count, w = count,
     power 2; pure premium: y = amount/exposure, w = exposure, Tweedie power p.
+
+    Parameters
+    ----------
+    y : array-like of float
+        Observed rates, one per row.
+    mu : array-like of float
+        Predicted means, one per row.
+    weight : array-like of float
+        Row weights w >= 0 (exposure units or claims), with sum(w) > 0.
+    power : float
+        Tweedie variance power: 0, 1, 1 < p < 2, 2 or p > 2.
+
+    Returns
+    -------
+    float
+        sum(w d(y, mu)) / sum(w), >= 0; deviance per unit of weight.
+
+    Raises
+    ------
+    InputError
+        As `checked_deviance_inputs`.
     """
     y_arr, w_arr, mu_arr = checked_deviance_inputs(y, weight, power, mu=mu)
     return float(np.sum(w_arr * unit_deviance_unchecked(y_arr, mu_arr, power)) / np.sum(w_arr))
 
 
 def d2(y: ArrayLike, mu: ArrayLike, weight: ArrayLike, power: float) -> float:
-    """Share of deviance explained: 1 - D(y, mu) / D(y, ybar), ybar = sum(w y) / sum(w) (unitless)."""
+    """Share of deviance explained: 1 - D(y, mu) / D(y, ybar), ybar = sum(w y) / sum(w) (unitless).
+
+    D(y, m) = sum(w d(y, m)) is the weighted total deviance and ybar the intercept-only model.
+
+    Parameters
+    ----------
+    y : array-like of float
+        Observed rates, one per row.
+    mu : array-like of float
+        Predicted means, one per row.
+    weight : array-like of float
+        Row weights w >= 0 (exposure units or claims), with sum(w) > 0.
+    power : float
+        Tweedie variance power: 0, 1, 1 < p < 2, 2 or p > 2.
+
+    Returns
+    -------
+    float
+        D^2, at most 1 (1: a perfect fit; 0: no better than ybar; negative: worse than ybar).
+
+    Raises
+    ------
+    InputError
+        As `checked_deviance_inputs`, or every weighted row equal to ybar (null deviance 0).
+    """
     y_arr, w_arr, mu_arr = checked_deviance_inputs(y, weight, power, mu=mu)
     y_mean = np.full_like(y_arr, np.sum(w_arr * y_arr) / np.sum(w_arr))
     null = np.sum(w_arr * unit_deviance_unchecked(y_arr, y_mean, power))

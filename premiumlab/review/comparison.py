@@ -27,7 +27,28 @@ N_BOOT = 200
 
 
 def compare(run_dir: str | Path, n_boot: int = N_BOOT) -> dict:
-    """Write RUN/comparison.json and RUN/figures/*.png; return the comparison."""
+    """Write RUN/comparison.json and RUN/figures/*.png; return the comparison.
+
+    Parameters
+    ----------
+    run_dir : str or Path
+        A run directory written by `fit` with GLM and GBM predictions and a holdout.
+    n_boot : int
+        Paired bootstrap resamples (of policies, when the run has policy groups) for the intervals
+        of the deviance reduction and the Gini gain.
+
+    Returns
+    -------
+    dict
+        The content of comparison.json (docs/run-directory.md): `holdout_rows`, `tweedie_power`,
+        `metrics` per target and model, `differences` with their intervals, `lift`,
+        `double_lift`, `actual_vs_expected` per factor and `cautions`.
+
+    Raises
+    ------
+    InputError
+        Not a run directory, a run without a holdout, or without both GLM and GBM predictions.
+    """
     from premiumlab.evaluation import figures
     from premiumlab.evaluation.metrics import (
         actual_vs_expected,

@@ -45,7 +45,23 @@ def _glm_section(files: RunDir) -> str:
 
 def write_report(run_dir: str | Path) -> Path:
     """Write RUN/report.html from run.json, metrics and comparison.json (run `compare` first for
-    figures and intervals); returns the path."""
+    figures and intervals); returns the path.
+
+    Parameters
+    ----------
+    run_dir : str or Path
+        A run directory written by `fit`.
+
+    Returns
+    -------
+    Path
+        RUN/report.html, one self-contained HTML file (figures embedded as base64 PNG).
+
+    Raises
+    ------
+    InputError
+        Not a run directory.
+    """
     run = open_run(run_dir)
     manifest = run.manifest
     comparison = read_json(run.files.comparison) if run.files.comparison.exists() else None

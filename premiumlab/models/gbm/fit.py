@@ -142,7 +142,7 @@ class GbmModel:
     def predict_raw(self, features: pd.DataFrame) -> np.ndarray:
         """log(prediction): the booster's raw score plus log(rebalance_factor)."""
         raw = self.booster.predict(self.encode(features), raw_score=True, num_threads=self.params["num_threads"])
-        return raw + math.log(self.rebalance_factor)
+        return np.asarray(raw, dtype=np.float64) + math.log(self.rebalance_factor)
 
     def predict(self, features: pd.DataFrame) -> np.ndarray:
         """Frequency (claims per exposure unit), severity (money per claim) or pure premium
@@ -248,7 +248,30 @@ def _category_codes(column: pd.Series, levels: list[str], name: str) -> np.ndarr
 
 
 def encode_features(features: pd.DataFrame, feature_names: list[str], categories: dict[str, list[str]]) -> np.ndarray:
-    """The float64 matrix (rows x feature_names) with categoricals replaced by fixed level codes."""
+    """The float64 matrix (rows x feature_names) with categoricals replaced by fixed level codes.
+
+    Parameters
+    ----------
+    features : pd.DataFrame
+        One column per feature (other columns are ignored): numeric, or categorical/text for the
+        features named in `categories`.
+    feature_names : list[str]
+        The model's features, in its column order.
+    categories : dict[str, list[str]]
+        Categorical feature -> its levels as text; a level's code is its position in the list.
+
+    Returns
+    -------
+    np.ndarray
+        float64, rows x len(feature_names): numeric values as they are (NaN kept), categorical
+        values as their level codes 0..k-1.
+
+    Raises
+    ------
+    InputError
+        A feature column missing, a categorical value missing or not among its levels, or a
+        non-categorical column that is not numeric.
+    """
     missing = [n for n in feature_names if n not in features.columns]
     if missing:
         raise InputError(f"features: missing column {missing[0]!r}")
@@ -337,7 +360,30 @@ def _dataset_params(params: dict) -> dict:
 
 
 def prepare_training(inputs: GbmInputs, target: str, options: GbmOptions) -> TrainingData:
-    """Validate the inputs and build the encoded training data of one target."""
+    """Validate the inputs and build the encoded training data of one target.
+
+    Parameters
+    ----------
+    inputs : GbmInputs
+        The training part of the book.
+    target : str
+        "frequency", "severity" or "pure_premium" (`premiumlab.models.targets.TARGETS`).
+    options : GbmOptions
+        Tuning options; here their ranges are checked and the fixed LightGBM parameters built.
+
+    Returns
+    -------
+    TrainingData
+        On the target's rows only: the encoded matrix, label (claims per exposure unit, money per
+        claim or money per exposure unit), weight (exposure units or claims), policy groups, and
+        the fixed LightGBM parameters with the monotone constraints the target keeps.
+
+    Raises
+    ------
+    InputError
+        An unknown target, an option out of range, bad feature names or monotone promises, groups
+        of the wrong length, a missing or invalid exposure, count or amount, or no claims to model.
+    """
     if target not in TARGETS:
         raise InputError(f"target: {target!r} is not one of {', '.join(TARGETS)}")
     _check_options(options)
@@ -370,7 +416,24 @@ def prepare_training(inputs: GbmInputs, target: str, options: GbmOptions) -> Tra
 
 def fold_of_group(groups: np.ndarray, folds: int, seed: int) -> np.ndarray:
     """Fold index (0..folds-1) of each row: a seeded hash of its group, so a policy's rows share a
-    fold and the assignment does not depend on row order."""
+    fold and the assignment does not depend on row order.
+
+    fold = hash(group; key = seed mod 10^16) mod folds, with pandas' 64-bit `hash_array`.
+
+    Parameters
+    ----------
+    groups : np.ndarray
+        The policy code of each row.
+    folds : int
+        Number of folds, >= 2.
+    seed : int
+        Seed of the hash, >= 0.
+
+    Returns
+    -------
+    np.ndarray
+        int64 fold index per row, in 0..folds-1.
+    """
     hash_key = f"{seed % 10**16:016d}"
     hashes = pd.util.hash_array(np.asarray(groups), hash_key=hash_key, categorize=False)
     return (hashes % np.uint64(folds)).astype(np.int64)
@@ -409,9 +472,9 @@ def _fold_fit(
     feval = _deviance_eval(data.label[valid_rows], data.weight[valid_rows], data.power)
     booster = lgb.train(
         {**data.base_params, **setting},
-        full.subset(train_rows),
+        full.subset(train_rows.tolist()),
         num_boost_round=options.max_rounds,
-        valid_sets=[full.subset(valid_rows)],
+        valid_sets=[full.subset(valid_rows.tolist())],
         valid_names=["fold"],
         feval=feval,
         callbacks=[lgb.early_stopping(options.early_stopping_rounds, verbose=False)],
@@ -444,7 +507,34 @@ def cross_validate(
 ) -> list[dict]:
     """One CV row per setting: fold deviances at each fold's best round, their mean and sample
     standard deviation, the folds' best rounds and their rounded mean (`rounds`). The settings x
-    folds fits are independent tasks for `runner` (premiumlab.cluster)."""
+    folds fits are independent tasks for `runner` (`premiumlab._core.cluster`).
+
+    A fold's deviance is the weighted mean deviance of its held-out rows,
+    sum(w d(y, mu)) / sum(w), at the target's power (`premiumlab.models.deviance.mean_deviance`).
+
+    Parameters
+    ----------
+    data : TrainingData
+        The encoded training data of one target (`prepare_training`).
+    settings : list[dict]
+        LightGBM parameters per setting, laid over `data.base_params`.
+    options : GbmOptions
+        folds, seed (of the fold hash), max_rounds and early_stopping_rounds are used.
+    runner : TaskRunner
+        Where the settings x folds fits run (default: one after the other in this process).
+
+    Returns
+    -------
+    list[dict]
+        One dict per setting, in the order given: `setting`, `mean_deviance`, `sd_deviance`
+        (ddof 1), `rounds` (max(1, round(mean of the folds' best rounds))), `fold_deviances`,
+        `fold_rounds`.
+
+    Raises
+    ------
+    InputError
+        A fold holds none of the target's rows.
+    """
     fold = fold_of_group(data.groups, options.folds, options.seed)
     empty = [k for k in range(options.folds) if not (fold == k).any()]
     if empty:
@@ -496,7 +586,29 @@ def _training_balance(booster: lgb.Booster, data: TrainingData) -> float:
 def fit_final(
     data: TrainingData, setting: dict, rounds: int, cv_table: list[dict] | None = None, chosen: int = 0
 ) -> GbmModel:
-    """Train `setting` on all of `data` for `rounds` rounds, measure the balance, rebalance if needed."""
+    """Train `setting` on all of `data` for `rounds` rounds, measure the balance, rebalance if needed.
+
+    Balance = sum(w x prediction) / sum(w x label) on the training rows; outside 1 +- 1 %
+    (BALANCE_TOLERANCE) every prediction is multiplied by rebalance_factor = 1 / balance.
+
+    Parameters
+    ----------
+    data : TrainingData
+        The encoded training data of one target.
+    setting : dict
+        LightGBM parameters laid over `data.base_params`.
+    rounds : int
+        Boosting rounds, >= 1.
+    cv_table : list[dict] or None
+        The cross-validation table to keep with the model (None: none, stored as []).
+    chosen : int
+        Index of `setting` in `cv_table`.
+
+    Returns
+    -------
+    GbmModel
+        The fitted booster with its parameters, balance and rebalance factor.
+    """
     params = {**data.base_params, **setting}
     booster = lgb.train(params, data.dataset(), num_boost_round=rounds, keep_training_booster=True)
     balance = _training_balance(booster, data)
@@ -527,7 +639,7 @@ def _tuned_fit(data: TrainingData, options: GbmOptions, runner: TaskRunner) -> G
     return fit_final(data, settings[chosen], table[chosen]["rounds"], table, chosen)
 
 
-def uncertified_factors(model: GbmModel) -> list[str]:
+def _uncertified_factors(model: GbmModel) -> list[str]:
     """The constrained factors whose monotonicity certificate finds a violating leaf pair."""
     if not model.monotone:
         return []
@@ -541,14 +653,36 @@ def fit_target(
     """Tune by grouped K-fold CV (the fits run on `runner`), then refit the chosen setting on the
     whole training part here.
 
-    A constrained model is certified (premiumlab.certificate). If a promise is broken (LightGBM
-    4.7's advanced method does so when another feature has missing values), the whole tuning is
-    redone with the next simpler constraint method (advanced -> intermediate -> basic), and
-    `constraint_notes` says so.
+    A constrained model is certified (`premiumlab.models.trees.certificate`). If a promise is broken
+    (LightGBM 4.7's advanced method does so when another feature has missing values), the whole
+    tuning is redone with the next simpler constraint method (advanced -> intermediate -> basic),
+    and `constraint_notes` says so.
+
+    Parameters
+    ----------
+    inputs : GbmInputs
+        The training part of the book.
+    target : str
+        "frequency", "severity" or "pure_premium".
+    options : GbmOptions
+        The grid, folds, rounds, threads, seed and constraint method (default: `GbmOptions()`).
+    runner : TaskRunner
+        Where the cross-validation fits run (default: in this process).
+
+    Returns
+    -------
+    GbmModel
+        The model of the setting with the lowest mean fold deviance, refitted on every training
+        row of the target, with its CV table and constraint notes.
+
+    Raises
+    ------
+    InputError
+        As `prepare_training` and `cross_validate`.
     """
     model = _tuned_fit(prepare_training(inputs, target, options), options, runner)
     notes: list[str] = []
-    while (broken := uncertified_factors(model)) and options.monotone_method in SIMPLER_METHOD:
+    while (broken := _uncertified_factors(model)) and options.monotone_method in SIMPLER_METHOD:
         simpler = SIMPLER_METHOD[options.monotone_method]
         notes.append(
             f"the {options.monotone_method} constraint method broke the promise on "
@@ -562,7 +696,26 @@ def fit_target(
 
 def load_model(text_path: str | Path, json_path: str | Path) -> GbmModel:
     """A model from its LightGBM text file and its JSON file (as written from `model_text` and
-    `to_json_dict`)."""
+    `to_json_dict`).
+
+    Parameters
+    ----------
+    text_path : str or Path
+        The LightGBM text model (RUN/models/gbm_*.txt, docs/run-directory.md).
+    json_path : str or Path
+        Its JSON file (RUN/models/gbm_*.json, format "premiumlab.gbm").
+
+    Returns
+    -------
+    GbmModel
+        The model, predicting as it did when written.
+
+    Raises
+    ------
+    InputError
+        A file unreadable, not a LightGBM text model or not a premiumlab.gbm JSON, a key missing,
+        or feature names that differ between the two files.
+    """
     text_path, json_path = Path(text_path), Path(json_path)
     try:
         text = text_path.read_text(encoding="utf-8")

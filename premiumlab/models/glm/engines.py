@@ -65,18 +65,26 @@ POISSON = Family("poisson", 1.0)
 GAMMA = Family("gamma", 2.0)
 
 
-def tweedie_family(power: float) -> Family:
-    """Tweedie family with variance power ``power`` (1 < power < 2)."""
-    return Family("tweedie", float(power))
-
-
 def _margin(counts: np.ndarray, keep: tuple[int, ...]) -> np.ndarray:
     """Sum of a counts array over every axis but ``keep`` (kept axes in their order)."""
     return counts.sum(axis=tuple(axis for axis in range(counts.ndim) if axis not in keep))
 
 
 def column_major(columns: list[np.ndarray], n_rows: int) -> np.ndarray:
-    """(n_rows, len(columns)) Fortran-ordered native-integer array from 1-D code columns."""
+    """(n_rows, len(columns)) Fortran-ordered native-integer array from 1-D code columns.
+
+    Parameters
+    ----------
+    columns : list[np.ndarray]
+        One integer array of level codes per factor, each of length `n_rows`.
+    n_rows : int
+        Number of rows (used for the shape when there are no columns).
+
+    Returns
+    -------
+    np.ndarray
+        intp array of shape (n_rows, len(columns)), column j being ``columns[j]``.
+    """
     if not columns:
         return np.zeros((n_rows, 0), dtype=np.intp)
     return np.array(columns, dtype=np.intp).T
@@ -247,7 +255,23 @@ class Cells:
 
 
 def aggregate_cells(design: OneHotDesign, numerator: np.ndarray, weight: np.ndarray) -> Cells:
-    """Group rows by their level codes (sorted cells) and sum numerator, weight and rows per cell."""
+    """Group rows by their level codes (sorted cells) and sum numerator, weight and rows per cell.
+
+    Parameters
+    ----------
+    design : OneHotDesign
+        The rows' level codes.
+    numerator : np.ndarray
+        Per row: claim count or claim amount (money).
+    weight : np.ndarray
+        Per row: exposure units or claim count.
+
+    Returns
+    -------
+    Cells
+        One cell per distinct combination of levels, in ascending order of the codes: its design
+        row, and the sums of numerator, weight and rows (as floats) over the rows in it.
+    """
     key = np.zeros(design.n_rows, dtype=np.int64)
     span = 1
     for j, lv in enumerate(design.levels):
@@ -281,6 +305,20 @@ def choose_columns(design: OneHotDesign, row_count: np.ndarray) -> ColumnChoice:
     Rank is revealed by a Cholesky factorisation of X'X taken column by column in term order: a
     column whose squared distance to the span of the kept ones is below ALIAS_TOLERANCE times its
     squared norm is aliased (as a QR with columns kept in their given order would find).
+
+    Parameters
+    ----------
+    design : OneHotDesign
+        The design whose full-space columns are chosen (the cells' design, or the rows').
+    row_count : np.ndarray
+        Weight of each design row in X'X: the rows per cell (or 1 per row); a level whose column
+        has weight 0 has no data.
+
+    Returns
+    -------
+    ColumnChoice
+        The kept full-space columns in term order, and the term names dropped for lack of data and
+        as aliased. Base levels are neither kept nor listed.
     """
     gram = design.gram(row_count)
     terms = design.full_terms()
@@ -314,6 +352,18 @@ def choose_engine(n_rows: int, n_cells: int) -> str:
 
     Timed on 1,000,000 Poisson rows (benchmarks/glm_fit.py, part c): cells engine 0.5 s against
     rows engine 0.8 s at 0.1 % cells, equal (1.4 s) at 4.3 %, 14.6 s against 1.4 s at 20 %.
+
+    Parameters
+    ----------
+    n_rows : int
+        Rows of the fit.
+    n_cells : int
+        Distinct combinations of levels among them.
+
+    Returns
+    -------
+    str
+        "cells" or "rows".
     """
     return "cells" if n_cells <= max(CELLS_MIN_LIMIT, CELLS_SHARE_OF_ROWS * n_rows) else "rows"
 
@@ -335,6 +385,21 @@ def fit_on_cells(cells: Cells, kept: np.ndarray, family: Family) -> EngineFit:
 
     BLAS runs on one thread here: the cell design is small, and two BLAS threads on a busy
     two-core machine made these fits 5-10 times slower (benchmarks/glm_fit.py).
+
+    Parameters
+    ----------
+    cells : Cells
+        The cells with their summed numerator, weight and rows (`aggregate_cells`).
+    kept : np.ndarray
+        Full-space columns to estimate, of full column rank on the cells (`choose_columns`).
+    family : Family
+        Poisson, Gamma or Tweedie at its power, log link.
+
+    Returns
+    -------
+    EngineFit
+        beta on the kept columns, the inverse Fisher information at unit dispersion
+        (statsmodels' ``normalized_cov_params``), whether it converged, and the iterations.
     """
     exog = cells.design.dense(kept)
     with warnings.catch_warnings(), threadpool_limits(limits=1, user_api="blas"):
@@ -360,6 +425,25 @@ def fit_on_rows(
     Working weights w * mu**(2 - power), working response eta + (y - mu) / mu, start
     mu = (y + mean y) / 2 as statsmodels; covariance from X'WX of the last iteration, at
     coefficients within 1e-10 of the estimate (as statsmodels does).
+
+    Parameters
+    ----------
+    design : OneHotDesign
+        The rows' level codes.
+    numerator : np.ndarray
+        Per row: claim count or claim amount (money); the rate is y = numerator / weight.
+    weight : np.ndarray
+        Per row: exposure units or claim count, > 0.
+    kept : np.ndarray
+        Full-space columns to estimate, of full column rank (`choose_columns`).
+    family : Family
+        Poisson, Gamma or Tweedie at its power (its variance power is used), log link.
+
+    Returns
+    -------
+    EngineFit
+        beta on the kept columns, (X'WX)^-1 at unit dispersion, whether every coefficient step fell
+        below 1e-10 within MAX_ITERATIONS, and the iterations.
     """
     rate = numerator / weight
     mu = (rate + numerator.sum() / weight.sum()) / 2.0
@@ -464,7 +548,33 @@ def row_statistics(
 ) -> RowStatistics:
     """Deviance, null deviance (intercept only, rate sum(a)/sum(w)), Pearson chi2, dispersion
     (chi2 / df_resid; 1 for Poisson) and log-likelihood at that dispersion, from partial sums over
-    row chunks. Log-likelihood, deviance and variance are statsmodels' own family functions."""
+    row chunks. Log-likelihood, deviance and variance are statsmodels' own family functions.
+
+    Pearson chi2 = sum(v (y - mu)^2 / V(mu)), with (y, mu, v) the row view of the family
+    (`Family.row_view`: counts and unit weights for Poisson, rates and var_weights w otherwise).
+
+    Parameters
+    ----------
+    design : OneHotDesign
+        The rows' level codes.
+    beta_full : np.ndarray
+        Coefficients indexed by full-space column (0 for columns not estimated).
+    numerator : np.ndarray
+        Per row: claim count or claim amount (money).
+    weight : np.ndarray
+        Per row: exposure units or claim count, > 0.
+    family : Family
+        The fitted family.
+    n_parameters : int
+        Estimated coefficients k; df_resid = rows - k.
+    chunk_rows : int
+        Rows per pass chunk (bounds the memory of a pass).
+
+    Returns
+    -------
+    RowStatistics
+        The statistics as statsmodels reports them for the row-level fit.
+    """
     model_family = family.statsmodels()
     null_rate = numerator.sum() / weight.sum()
     deviance = null_deviance = pearson_chi2 = 0.0

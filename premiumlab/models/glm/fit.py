@@ -349,7 +349,29 @@ def _family(target: Target, tweedie_power: float | None = None) -> Family:
 
 
 def fit_frequency(inputs: GlmInputs, engine: str = "auto") -> GlmResult:
-    """Poisson GLM of claim counts, log link, offset log(exposure); relativities per claim frequency."""
+    """Poisson GLM of claim counts, log link, offset log(exposure); relativities per claim frequency.
+
+    log E[count] = log(exposure) + x'beta, so exp(x'beta) is the claim frequency (claims per
+    exposure unit).
+
+    Parameters
+    ----------
+    inputs : GlmInputs
+        The rows: factors, base levels, exposure and claim counts.
+    engine : str
+        "auto" (cells when they are few, `choose_engine`), "cells" or "rows".
+
+    Returns
+    -------
+    GlmResult
+        Coefficients, relativities and row-level statistics (dispersion 1).
+
+    Raises
+    ------
+    InputError
+        An unknown engine, a base level without rows, no more rows than parameters, or a fit that
+        fails on the data.
+    """
     _check_engine(engine)
     problem = _target_problem(FREQUENCY, inputs)
     return _fit(problem, _family(FREQUENCY), _engine_name(engine, problem), inputs, [])
@@ -359,6 +381,26 @@ def fit_severity(inputs: GlmInputs, engine: str = "auto") -> GlmResult:
     """Gamma GLM of amount / count with var_weights count, on rows with count > 0 and amount > 0.
 
     Nil claims (count > 0, amount 0) are excluded and counted in the notes.
+
+    log E[amount / count] = x'beta, so exp(x'beta) is the severity (money per claim).
+
+    Parameters
+    ----------
+    inputs : GlmInputs
+        The rows, with claim amounts (money).
+    engine : str
+        "auto" (cells when they are few, `choose_engine`), "cells" or "rows".
+
+    Returns
+    -------
+    GlmResult
+        Coefficients, relativities and row-level statistics on the rows with claims, dispersion
+        Pearson chi2 / df_resid.
+
+    Raises
+    ------
+    InputError
+        No claim amounts, no row with count > 0 and amount > 0, or as `fit_frequency`.
     """
     _check_engine(engine)
     _require_amount(inputs, SEVERITY)
@@ -374,15 +416,37 @@ def fit_pure_premium(inputs: GlmInputs, power: str | float = "auto", engine: str
     """Tweedie GLM of amount / exposure with var_weights exposure, log link.
 
     ``power="auto"``: profile likelihood over 1.1..1.9 on the rows with the true Tweedie density
-    and the dispersion at its maximum likelihood for each power (see premiumlab.tweedie).
+    and the dispersion at its maximum likelihood for each power (see `premiumlab.models.glm.tweedie`).
+
+    log E[amount / exposure] = x'beta, so exp(x'beta) is the pure premium (money per exposure
+    unit); Var = phi mu^p / exposure.
+
+    Parameters
+    ----------
+    inputs : GlmInputs
+        The rows, with claim amounts (money).
+    power : str or float
+        "auto", or a fixed variance power p with 1 < p < 2.
+    engine : str
+        "auto" (cells when they are few, `choose_engine`), "cells" or "rows".
+
+    Returns
+    -------
+    GlmResult
+        Coefficients, relativities and row-level statistics at the chosen power; with "auto" also
+        the profile (`power_profile`: power, log-likelihood, dispersion) and a note on the choice.
+
+    Raises
+    ------
+    InputError
+        A power that is neither "auto" nor in (1, 2), no claim amounts, or as `fit_frequency`.
     """
     _check_engine(engine)
-    if power != "auto":
-        power = _fixed_power(power)
+    fixed_power = None if power == "auto" else _fixed_power(power)
     _require_amount(inputs, PURE_PREMIUM)
     problem = _target_problem(PURE_PREMIUM, inputs)
     engine = _engine_name(engine, problem)
-    if power == "auto":
+    if fixed_power is None:
 
         def row_means(candidate: float) -> np.ndarray:
             fit = _estimate(problem, _family(PURE_PREMIUM, candidate), engine)
@@ -393,7 +457,7 @@ def fit_pure_premium(inputs: GlmInputs, power: str | float = "auto", engine: str
         if chosen in (POWER_GRID[0], POWER_GRID[-1]):
             notes.append(f"power {chosen:g} is at the edge of the searched range; the likelihood may peak outside it")
     else:
-        chosen, profile, notes = power, [], []
+        chosen, profile, notes = fixed_power, [], []
     result = _fit(problem, _family(PURE_PREMIUM, chosen), engine, inputs, notes)
     result.power_profile = profile
     return result

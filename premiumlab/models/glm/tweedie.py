@@ -25,7 +25,29 @@ MAX_BRACKET_SHIFTS = 5
 def tweedie_loglik_obs(
     y: np.ndarray, mu: np.ndarray, power: float, dispersion: float, weights: np.ndarray | float = 1.0
 ) -> np.ndarray:
-    """log f(y; mu, phi / w, p) per observation (natural log), 1 < p < 2."""
+    """log f(y; mu, phi / w, p) per observation (natural log), 1 < p < 2.
+
+    f is the compound Poisson-Gamma density of the module docstring: P(Y = 0) = exp(-lam) with
+    lam = w mu^(2-p) / (phi (2-p)), and a series for y > 0.
+
+    Parameters
+    ----------
+    y : np.ndarray
+        Observed rates, >= 0 (e.g. money per exposure unit).
+    mu : np.ndarray
+        Means, > 0, in the units of `y`.
+    power : float
+        Variance power p, 1 < p < 2.
+    dispersion : float
+        phi > 0.
+    weights : np.ndarray or float
+        Weights w > 0 (e.g. exposure units); the variance of a row is phi mu^p / w.
+
+    Returns
+    -------
+    np.ndarray
+        log f per observation.
+    """
     family = sm.families.Tweedie(var_power=power, eql=False)
     return family.loglike_obs(
         np.asarray(y, dtype=float), np.asarray(mu, dtype=float), var_weights=weights, scale=dispersion
@@ -40,6 +62,22 @@ def ml_dispersion(
     Bounded Brent search on log phi (to 1e-4, a log-likelihood error of order 1e-8 per row) within
     e^+-3 of the Pearson estimate sum w (y-mu)^2/mu^p / n, the bracket moved while the maximum
     lies on its edge.
+
+    Parameters
+    ----------
+    y : np.ndarray
+        Observed rates, >= 0.
+    mu : np.ndarray
+        Fitted means, > 0.
+    power : float
+        Variance power p, 1 < p < 2.
+    weights : np.ndarray or float
+        Weights w > 0 (e.g. exposure units).
+
+    Returns
+    -------
+    tuple[float, float]
+        The maximum-likelihood dispersion phi and the log-likelihood sum(log f) there.
     """
 
     def negative_loglik(log_phi: float) -> float:
@@ -65,6 +103,24 @@ def profile_power(
     ``mean_at(p)`` returns the fitted row means of the GLM at power p. Grid 1.1..1.9 by 0.1, then
     steps of 0.02 from the best grid point in each direction while the likelihood rises (the
     grid points either side bound a unimodal profile's maximum).
+
+    The profile log-likelihood at p is max over phi of sum_i log f(y_i; mu_i(p), phi / w_i, p)
+    (`ml_dispersion`).
+
+    Parameters
+    ----------
+    mean_at : callable
+        p -> fitted row means (same units as `y`) of the GLM refitted at variance power p.
+    y : np.ndarray
+        Observed rates, >= 0 (money per exposure unit).
+    weights : np.ndarray
+        Weights w > 0 (exposure units).
+
+    Returns
+    -------
+    tuple[float, list[dict[str, float]]]
+        The power with the largest profile log-likelihood, and every power tried with its
+        log-likelihood and dispersion, ascending in power.
     """
     profile: dict[float, dict[str, float]] = {}
 

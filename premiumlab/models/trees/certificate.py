@@ -89,21 +89,21 @@ def _numeric_cells(thresholds: np.ndarray, zero_type: bool) -> np.ndarray:
 
 def _cells_and_routes(tree: Tree) -> tuple[dict[int, np.ndarray], dict[int, np.ndarray]]:
     """Per split feature: cell representatives; per internal node: which cells of its feature go left."""
-    categorical = is_categorical(tree.decision_type)
+    categorical = np.asarray(is_categorical(tree.decision_type))
     cells: dict[int, np.ndarray] = {}
     for feature in np.unique(tree.split_feature):
         on_feature = tree.split_feature == feature
         if categorical[on_feature].any():
-            codes = np.unique(np.concatenate([tree.left_codes(n) for n in np.flatnonzero(on_feature)]))
+            codes = np.unique(np.concatenate([tree.left_codes(int(n)) for n in np.flatnonzero(on_feature)]))
             cells[int(feature)] = np.concatenate([codes, [-1]]).astype(np.float64)  # -1: every other value
         else:
-            zero_type = bool((missing_type(tree.decision_type[on_feature]) == MISSING_ZERO).any())
+            zero_type = bool(np.any(missing_type(tree.decision_type[on_feature]) == MISSING_ZERO))
             cells[int(feature)] = _numeric_cells(tree.threshold[on_feature], zero_type)
     routes = {node: tree.goes_left(node, cells[int(feature)]) for node, feature in enumerate(tree.split_feature)}
     return cells, routes
 
 
-def leaf_regions(tree: Tree) -> tuple[dict[int, np.ndarray], dict[int, np.ndarray]]:
+def _leaf_regions(tree: Tree) -> tuple[dict[int, np.ndarray], dict[int, np.ndarray]]:
     """(cells per feature, feature -> boolean matrix leaves x cells: which cells reach each leaf)."""
     cells, routes = _cells_and_routes(tree)
     leaves = tree.leaf_value.size
@@ -146,10 +146,10 @@ def _check_direction(direction: int) -> None:
 
 def _tree_pairs(tree: Tree, feature: int, direction: int) -> tuple[int, list[Violation]]:
     """(comparable leaf pairs, violations) of one tree for the promised feature."""
-    _cells, regions = leaf_regions(tree)
+    _cells, regions = _leaf_regions(tree)
     if feature not in regions:
         return 0, []
-    if is_categorical(tree.decision_type[tree.split_feature == feature]).any():
+    if np.any(is_categorical(tree.decision_type[tree.split_feature == feature])):
         raise InputError(
             f"model text: tree {tree.index} splits the promised feature as a categorical; "
             "a promise needs a numeric (integer-coded) feature"
@@ -184,7 +184,34 @@ def _tree_pairs(tree: Tree, feature: int, direction: int) -> tuple[int, list[Vio
 
 def certify(model_text: str, feature: str | int, direction: int) -> Certificate:
     """Check every tree of a LightGBM text model for monotonicity in `feature` (+1 increasing,
-    -1 decreasing); exact for every input, from the text alone (see the module docstring)."""
+    -1 decreasing); exact for every input, from the text alone (see the module docstring).
+
+    A comparable pair of leaves (A, B) of one tree, with some value of the feature in A below some
+    value in B and the two regions overlapping on every other feature, violates the promise when
+    direction x (value(A) - value(B)) > 0; that amount is the violation (raw score units).
+
+    Parameters
+    ----------
+    model_text : str
+        The model as ``Booster.model_to_string()`` writes it.
+    feature : str or int
+        The promised feature, by name or by index in the model's features; numeric (an ordered
+        factor as integer codes).
+    direction : int
+        +1 (increasing) or -1 (decreasing).
+
+    Returns
+    -------
+    Certificate
+        `monotone` (no violation), the trees and leaf pairs checked, the violation count, the
+        largest violation, the trees with violations, and the LISTED_VIOLATIONS largest in full.
+
+    Raises
+    ------
+    InputError
+        A direction other than +-1, an unknown feature, a model the parser refuses, or a
+        categorical split on the promised feature.
+    """
     _check_direction(direction)
     names, trees = parse_model(model_text)
     index = _resolve_feature(names, feature)
@@ -236,7 +263,40 @@ def sweep(
     of the sample) for up to
     `policies` seeded rows of `features_sample` and count grid steps where the raw score moves
     against `direction` by more than 1e-12 (one predict call on the stacked rows). `model` has a
-    `predict_raw(features)` method (a `GbmModel`) or is itself such a function."""
+    `predict_raw(features)` method (a `GbmModel`) or is itself such a function.
+
+    A step from grid point g_k to g_(k+1) for one policy is a violation when
+    -direction x (score(g_(k+1)) - score(g_k)) > 1e-12 (SWEEP_TOLERANCE).
+
+    Parameters
+    ----------
+    model : RawScorer or callable
+        Gives the raw score (log of the prediction) of a features frame.
+    features_sample : pd.DataFrame
+        Policies in the model's feature encoding (as `GbmModel.predict_raw` reads them).
+    feature : str
+        The promised feature, a column of `features_sample`.
+    direction : int
+        +1 (increasing) or -1 (decreasing).
+    grid : np.ndarray or None
+        At least two strictly increasing values of the feature; None: the sample's values at 50
+        evenly spaced quantiles.
+    policies : int
+        Largest number of rows of `features_sample` drawn (without replacement).
+    seed : int
+        Seed of that draw.
+
+    Returns
+    -------
+    SweepResult
+        The grid, the policies and steps checked, the violating steps, the policies with one, the
+        largest step against the promise (raw score units, 0 if none) and the tolerance.
+
+    Raises
+    ------
+    InputError
+        A direction other than +-1, `feature` not a column, no rows, or a bad grid.
+    """
     _check_direction(direction)
     if feature not in features_sample.columns:
         raise InputError(f"sweep: features_sample has no column {feature!r}")

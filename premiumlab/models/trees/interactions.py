@@ -33,7 +33,20 @@ class PairInteraction(TypedDict):
 
 
 def top_factors_by_gain(booster: lgb.Booster, count: int = DEFAULT_FACTORS) -> list[str]:
-    """The `count` features with the largest total split gain (ties in feature order), gain > 0 only."""
+    """The `count` features with the largest total split gain (ties in feature order), gain > 0 only.
+
+    Parameters
+    ----------
+    booster : lgb.Booster
+        The fitted LightGBM booster.
+    count : int
+        Most features to return.
+
+    Returns
+    -------
+    list[str]
+        Feature names, largest total gain first; fewer than `count` when fewer have a gain above 0.
+    """
     gains = booster.feature_importance(importance_type="gain")
     names = booster.feature_name()
     order = np.argsort(-gains, kind="stable")
@@ -64,7 +77,36 @@ def h_statistics(
     sample_size: int = DEFAULT_SAMPLE,
 ) -> list[PairInteraction]:
     """H statistics of every pair of `factors` on a seeded sample of `sample_size` rows of
-    `features_sample`, ranked by unnormalised H (largest first; ties in factor order)."""
+    `features_sample`, ranked by unnormalised H (largest first; ties in factor order).
+
+    H^2_jk = sum_i (PD_jk - PD_j - PD_k)^2 / sum_i PD_jk^2 and unnormalised H_jk =
+    sqrt(sum_i (PD_jk - PD_j - PD_k)^2), the PD centred over the sample (module docstring).
+
+    Parameters
+    ----------
+    booster_predict_raw : callable
+        Raw (log) score of a features frame, one value per row.
+    features_sample : pd.DataFrame
+        Rows in the model's feature encoding, with a column per factor in `factors`.
+    factors : sequence of str
+        At least two distinct factors; every pair of them is measured.
+    seed : int
+        Seed of the sample draw (without replacement).
+    sample_size : int
+        Rows sampled, n; each partial dependence predicts n^2 rows.
+
+    Returns
+    -------
+    list[PairInteraction]
+        One entry per pair: `pair`, `h2` (unitless, >= 0; 0 when the joint PD is flat) and
+        `h_unnormalised` (raw score units), largest unnormalised H first.
+
+    Raises
+    ------
+    InputError
+        A factor not a column, fewer than two distinct factors, fewer than two rows, or a scorer
+        returning the wrong shape.
+    """
     factors = list(factors)
     absent = [f for f in factors if f not in features_sample.columns]
     if absent:

@@ -31,12 +31,34 @@ CATEGORY_WORD_BITS = 32
 
 
 def is_categorical(decision_type: int | np.ndarray) -> bool | np.ndarray:
-    """Whether a decision_type (or each of an array of them) is a categorical split (bit 0)."""
+    """Whether a decision_type (or each of an array of them) is a categorical split (bit 0).
+
+    Parameters
+    ----------
+    decision_type : int or np.ndarray of int
+        A node's ``decision_type`` from the model text, or an array of them.
+
+    Returns
+    -------
+    bool or np.ndarray of bool
+        (decision_type & 1) != 0: a bool for an int, an array shaped like an array.
+    """
     return (decision_type & 1) != 0
 
 
 def missing_type(decision_type: int | np.ndarray) -> int | np.ndarray:
-    """Missing type of a decision_type (bits 2-3): 0 None, MISSING_ZERO or MISSING_NAN."""
+    """Missing type of a decision_type (bits 2-3): 0 None, MISSING_ZERO or MISSING_NAN.
+
+    Parameters
+    ----------
+    decision_type : int or np.ndarray of int
+        A node's ``decision_type`` from the model text, or an array of them.
+
+    Returns
+    -------
+    int or np.ndarray of int
+        (decision_type >> 2) & 3: an int for an int, an array shaped like an array.
+    """
     return (decision_type >> 2) & 3
 
 
