@@ -26,6 +26,9 @@ from premiumlab.simulation.simulator import generate, simulate
 
 SCENARIOS = Path(__file__).resolve().parent.parent / "scenarios"
 NAMES = ("motor", "household", "motor_main_effects")
+#: The scenarios unlike motor (generated levels, missing values, a strong interaction, a heavy tail);
+#: tests/test_simulate_scenarios.py tests them further.
+UNLIKE_MOTOR = ("property", "interaction", "heavy_tail")
 
 
 def scenario_doc(name: str) -> dict:
@@ -420,7 +423,7 @@ SPEC_KEYS = {"columns", "factors", "split", "table", "loadings"}
 SPEC_FACTOR_KEYS = {"type", "monotone", "bands", "levels", "base"}
 
 
-@pytest.mark.parametrize("name", NAMES)
+@pytest.mark.parametrize("name", NAMES + UNLIKE_MOTOR)
 def test_scenario_and_its_spec_agree(name: str) -> None:
     """The spec uses only the agreed keys, parses with premiumlab.spec, and names the scenario's
     factors in order with the same types, band edges, levels (when listed) and base levels, the
@@ -455,7 +458,7 @@ def test_scenario_and_its_spec_agree(name: str) -> None:
     assert [tuple(p) for p in spec.table.interactions] == expected
 
 
-@pytest.mark.parametrize("name", NAMES)
+@pytest.mark.parametrize("name", (*NAMES, "property"))
 def test_promised_monotone_direction_holds_in_truth(name: str) -> None:
     """Every monotone promise in the spec is kept by the true pure-premium relativities (small book)."""
     from premiumlab.book.spec import load_spec

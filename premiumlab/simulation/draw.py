@@ -16,29 +16,38 @@ base_severity x prod_j sev_j(x_j) x I_sev(x)) or, with probability `large_losses
 (a Pareto or lognormal draw times the same severity relativity prod_j sev_j(x_j) x I_sev(x)), so the
 severity relativities hold for the whole claim. `freq_j`, `sev_j` are the factor's true
 relativities (numeric: exp of a piecewise-linear log-relativity curve; categorical: one per
-level) and `I` the interaction multiplier (1 outside its region). `claim_amount` is the row's sum of
-claims rounded to cents (at least 0.01 when it has claims).
+level) and `I` the interaction multiplier (1 outside its region). On a row whose value of factor j is
+missing, freq_j and sev_j are the missing value's relativities instead; the interaction still acts
+on the true value. `claim_amount` is the row's sum of claims rounded to cents (at least 0.01 when it
+has claims).
+
+Missing values are drawn from side streams of the seed (`scenario.side_stream`), never from the
+book's generator, so the main draws are those of a scenario without them.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+import math
+from dataclasses import dataclass, field
 
 import numpy as np
 
-from premiumlab.simulation.scenario import Factor, Scenario
+from premiumlab.simulation.scenario import MISSING_STREAM, Factor, Scenario, side_stream
 
 DAYS_PER_PERIOD = 365
 
 
 @dataclass(frozen=True)
 class Rows:
-    """The rows of the book before claims: who, when, how much exposure, which factor values."""
+    """The rows of the book before claims: who, when, how much exposure, which factor values (true
+    values, also where the book shows them missing), and per factor with missing values the rows
+    where it is missing."""
 
     policy: np.ndarray
     period: np.ndarray
     exposure: np.ndarray
     values: dict[str, np.ndarray]
+    missing: dict[str, np.ndarray] = field(default_factory=dict)
 
 
 @dataclass(frozen=True)
@@ -128,7 +137,44 @@ def draw_factors(rng: np.random.Generator, factors: tuple[Factor, ...], n: int) 
     return raw
 
 
-def true_effects(scenario: Scenario, values: dict[str, np.ndarray]) -> Effects:
+def draw_missing(seed: int, factors: tuple[Factor, ...], raw: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
+    """Which policies lose the value of each factor with `missing`, each factor from its own stream.
+
+    Parameters
+    ----------
+    seed : int
+        The book's seed.
+    factors : tuple of Factor
+        The scenario's factors.
+    raw : dict of str to numpy.ndarray
+        Per factor, the policies' raw draws (`draw_factors`).
+
+    Returns
+    -------
+    dict of str to numpy.ndarray
+        Per factor with `missing`, a boolean per policy: missing with probability `share`, or the
+        group's share for a policy whose `more_often_when` factor has that level or band in the
+        first period.
+    """
+    out: dict[str, np.ndarray] = {}
+    by_name = {f.name: f for f in factors}
+    for index, f in enumerate(factors):
+        m = f.missing
+        if m is None:
+            continue
+        n = len(raw[f.name])
+        probability = np.full(n, m.share)
+        if m.group_factor is not None and m.group_label is not None:
+            g = by_name[m.group_factor]
+            in_group = g.label_codes(g.value(raw[g.name], 0)) == g.labels.index(m.group_label)
+            probability[in_group] = m.group_share
+        out[f.name] = side_stream(seed, MISSING_STREAM, index).random(n) < probability
+    return out
+
+
+def true_effects(
+    scenario: Scenario, values: dict[str, np.ndarray], missing: dict[str, np.ndarray] | None = None
+) -> Effects:
     """The true effects of every row (no random draw).
 
     Parameters
@@ -136,7 +182,10 @@ def true_effects(scenario: Scenario, values: dict[str, np.ndarray]) -> Effects:
     scenario : Scenario
         The scenario.
     values : dict of str to numpy.ndarray
-        Per factor, the rows' values (numeric) or level codes.
+        Per factor, the rows' true values (numeric) or level codes.
+    missing : dict of str to numpy.ndarray, optional
+        Per factor with missing values, the rows where it is missing: its effect there is the
+        missing value's relativity.
 
     Returns
     -------
@@ -147,6 +196,11 @@ def true_effects(scenario: Scenario, values: dict[str, np.ndarray]) -> Effects:
     n = len(next(iter(values.values())))
     log_f = {f.name: f.log_effect(values[f.name], "frequency") for f in scenario.factors}
     log_s = {f.name: f.log_effect(values[f.name], "severity") for f in scenario.factors}
+    for f in scenario.factors:
+        rows = (missing or {}).get(f.name)
+        if f.missing is not None and rows is not None:
+            log_f[f.name] = np.where(rows, math.log(f.missing.frequency_relativity), log_f[f.name])
+            log_s[f.name] = np.where(rows, math.log(f.missing.severity_relativity), log_s[f.name])
     inter_f, inter_s = np.ones(n), np.ones(n)
     ia = scenario.interaction
     if ia is not None:

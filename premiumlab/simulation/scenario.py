@@ -1,5 +1,6 @@
-"""The scenario as typed objects: factors with their distributions and true effects, large losses,
-the interaction and the current tariff (read from a file by `premiumlab.simulation.scenario_file`).
+"""The scenario as typed objects: factors with their distributions, true effects, generated levels and
+missing values, large losses, the interaction and the current tariff (read from a file by
+`premiumlab.simulation.scenario_file`).
 """
 
 from __future__ import annotations
@@ -9,6 +10,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
+from scipy.special import ndtri
 
 from premiumlab.book.bands import assign_bands
 
@@ -23,6 +25,32 @@ DISTRIBUTION_PARAMETERS = {
     "lognormal": ("median", "sigma"),
     "histogram": ("edges", "weights"),
 }
+#: First spawn-key entry of the side streams (`side_stream`): the draws of the features added after
+#: the first scenarios come from their own streams, so they never shift the book's main draws.
+GENERATED_LEVELS_STREAM = 1
+MISSING_STREAM = 2
+
+
+def side_stream(seed: int, stream: int, factor_index: int) -> np.random.Generator:
+    """A generator independent of the book's main one, `default_rng(seed)`.
+
+    Parameters
+    ----------
+    seed : int
+        The seed (>= 0) of the book or of the scenario.
+    stream : int
+        What the stream draws: `GENERATED_LEVELS_STREAM` or `MISSING_STREAM`.
+    factor_index : int
+        The factor's position in the scenario (0-based).
+
+    Returns
+    -------
+    numpy.random.Generator
+        `default_rng(SeedSequence(seed, spawn_key=(stream, factor_index)))`: a child of the main
+        generator's seed sequence (whose spawn key is empty), independent of it and of every other
+        (stream, factor) pair.
+    """
+    return np.random.default_rng(np.random.SeedSequence(seed, spawn_key=(stream, factor_index)))
 
 
 @dataclass(frozen=True)
@@ -51,11 +79,84 @@ class Distribution:
 
 
 @dataclass(frozen=True)
+class GeneratedLevels:
+    """The scenario key `generate` of a categorical factor: many levels with a skewed size law and
+    relativities drawn from a seeded stream (`scenario_file` states the law)."""
+
+    count: int
+    prefix: str
+    exposure_skew: float
+    frequency_sigma: float
+    severity_sigma: float
+
+    def labels(self) -> tuple[str, ...]:
+        """prefix + the level number 1..count, zero-padded to the width of `count` ("T001".."T300").
+
+        Returns
+        -------
+        tuple of str
+            The level names, largest level first.
+        """
+        width = len(str(self.count))
+        return tuple(f"{self.prefix}{k:0{width}d}" for k in range(1, self.count + 1))
+
+    def probabilities(self) -> np.ndarray:
+        """Level probabilities: p_k proportional to exp(exposure_skew x z_k), z_k = Phi^-1((count - k +
+        0.5) / count), the count quantiles of a lognormal law with log-sd `exposure_skew`, largest first.
+
+        Returns
+        -------
+        numpy.ndarray
+            count probabilities summing to 1, non-increasing in k.
+        """
+        z = ndtri((np.arange(self.count, 0, -1) - 0.5) / self.count)
+        weights = np.exp(self.exposure_skew * (z - z[0]))
+        return weights / weights.sum()
+
+    def relativities(self, rng: np.random.Generator, probabilities: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """True frequency and severity relativities: r_k = exp(sigma x e_k) / sum_j p_j exp(sigma x e_j),
+        e_k independent standard normal draws (frequency first, then severity), so that the
+        probability-weighted mean relativity sum_k p_k r_k is 1.
+
+        Parameters
+        ----------
+        rng : numpy.random.Generator
+            The factor's stream (`side_stream` with `GENERATED_LEVELS_STREAM`).
+        probabilities : numpy.ndarray
+            The level probabilities p_k.
+
+        Returns
+        -------
+        tuple of numpy.ndarray
+            (frequency, severity) relativities, one > 0 per level.
+        """
+        out = []
+        for sigma in (self.frequency_sigma, self.severity_sigma):
+            r = np.exp(sigma * rng.standard_normal(self.count))
+            out.append(r / float(np.sum(probabilities * r)))
+        return out[0], out[1]
+
+
+@dataclass(frozen=True)
+class Missing:
+    """The scenario key `missing` of a factor: which policies lose the value, and the true effect of
+    a missing value (it replaces the factor's effect on those rows)."""
+
+    share: float
+    frequency_relativity: float = 1.0
+    severity_relativity: float = 1.0
+    group_factor: str | None = None
+    group_label: str | None = None
+    group_share: float = 0.0
+
+
+@dataclass(frozen=True)
 class Factor:
     """A rating factor of the scenario with its distribution and true effects.
 
     Numeric factors carry `bands` (interior edges) and log-relativity knots; categorical factors
-    carry `levels` with a relativity per level. Internally categorical values are level codes.
+    carry `levels` with a relativity per level (drawn when `generated`). Internally categorical
+    values are level codes; a factor with `missing` loses its value on some policies.
     """
 
     name: str
@@ -73,6 +174,8 @@ class Factor:
     severity_knots: np.ndarray | None = None
     frequency_relativity: np.ndarray | None = None
     severity_relativity: np.ndarray | None = None
+    generated: GeneratedLevels | None = None
+    missing: Missing | None = None
 
     @property
     def numeric(self) -> bool:
@@ -108,6 +211,22 @@ class Factor:
             return np.interp(values, knots[:, 0], knots[:, 1])
         rel = self.frequency_relativity if target == "frequency" else self.severity_relativity
         return np.zeros(len(values)) if rel is None else np.log(rel)[values]
+
+    def level_relativities(self, target: str) -> np.ndarray:
+        """A categorical factor's true relativity per level on "frequency" or "severity".
+
+        Parameters
+        ----------
+        target : str
+            "frequency" or "severity".
+
+        Returns
+        -------
+        numpy.ndarray
+            One relativity per level, in `labels` order (all 1 when the scenario gives none).
+        """
+        rel = self.frequency_relativity if target == "frequency" else self.severity_relativity
+        return np.ones(len(self.labels)) if rel is None else rel
 
     def in_region(self, values: np.ndarray, region: tuple) -> np.ndarray:
         """Rows inside an interaction region: [low, high) for numeric, a set of level codes otherwise."""

@@ -53,6 +53,41 @@ Scenario keys (every key; anything else is refused with an `InputError` naming t
   severity_relativity   the same for severity
   [factors.NAME.when.LABEL]  numeric: any of the distribution's parameter keys; categorical:
                      `probabilities`
+  generate           optional table, instead of levels, probabilities and the two relativity
+                     tables: many generated levels (e.g. territories), keys:
+    count            integer >= 2, required: number of levels
+    prefix           string, default "": level k (1-based) is named prefix + k zero-padded to the
+                     width of count ("T001" ... "T300")
+    exposure_skew    number >= 0, default 1: level k has probability p_k proportional to
+                     exp(exposure_skew x z_k), z_k = Phi^-1((count - k + 0.5) / count) (the count
+                     quantiles of a lognormal law with log-sd exposure_skew, largest level first;
+                     0 = equal levels). With 300 levels, 1.8 puts about 30 % of the levels under 50
+                     policies in a book of 200,000 and about 6 % of the exposure under 200 policies
+    frequency_sigma  number >= 0, default 0: true frequency relativity r_k = exp(sigma x e_k) / c,
+                     e_k independent standard normal draws, c = sum_j p_j exp(sigma x e_j) so that the
+                     probability-weighted mean relativity sum_k p_k r_k is 1 (0 = no effect)
+    severity_sigma   number >= 0, default 0: the same for severity
+                     The draws e_k come from a stream of the scenario's `seed` (never the book's
+                     seed override) of their own, so the truth is the scenario's and shifts no other
+                     draw; truth.json lists every level's probability and relativities (`generated`)
+  missing            optional table: the factor's value is missing on some policies (on all of a
+                     policy's rows); in the book an empty cell (CSV) or null (Parquet), numeric
+                     values NaN or null. Keys:
+    share            number in [0, 1), required: probability that a policy's value is missing
+                     (outside the more_often_when group)
+    frequency_relativity  number > 0, default 1: true frequency relativity of a missing value, on the
+                     scale of this factor's relativities (a categorical `frequency_relativity`, or
+                     exp of a numeric curve): it replaces the factor's effect on those rows
+    severity_relativity   number > 0, default 1: the same for severity
+    more_often_when  optional table {factor, level, share}: policies whose other factor `factor`
+                     has level (or band label) `level` (true value, in the policy's first period)
+                     lose the value with probability `share` in [0, 1) instead
+                     Missingness is drawn from a stream of the book's seed of its own (after the
+                     values), so it shifts no other draw. The interaction and the factors that
+                     depend on this one use the true value; the current tariff rates a missing
+                     value with the missing group's true relativity. truth.json gives the factor a
+                     `missing` entry: the keys above, the exposure, policies and shares missing, and
+                     the missing group's relativities normalised to the factor's base
 
 [interaction]        optional
   factors            required [a, b]: two different factors
@@ -72,6 +107,7 @@ Scenario keys (every key; anything else is refused with an `InputError` naming t
 from __future__ import annotations
 
 import math
+from dataclasses import replace
 from pathlib import Path
 from typing import Any
 
@@ -81,13 +117,17 @@ from premiumlab._core.toml_schema import REQUIRED, TomlTable, is_number, read_to
 from premiumlab.book.bands import band_labels
 from premiumlab.simulation.scenario import (
     DISTRIBUTION_PARAMETERS,
+    GENERATED_LEVELS_STREAM,
     LEAD_COLUMNS,
     PREMIUM_COLUMN,
     Distribution,
     Factor,
+    GeneratedLevels,
     Interaction,
     LargeLosses,
+    Missing,
     Scenario,
+    side_stream,
 )
 
 
@@ -151,13 +191,19 @@ def parse_scenario(doc: dict, source: str = "scenario") -> Scenario:
 
     factors_table = top.table("factors")
     factors: list[Factor] = []
+    missing_tables: list[TomlTable | None] = []
     for name in factors_table.all_keys():
         if name in LEAD_COLUMNS or name == PREMIUM_COLUMN:
             raise factors_table.error(name, "clashes with a column the simulator writes")
-        factors.append(_parse_factor(factors_table.table(name), name, factors))
+        factor, missing_table = _parse_factor(factors_table.table(name), name, factors, head["seed"])
+        factors.append(factor)
+        missing_tables.append(missing_table)
     if not factors:
         raise top.error("factors", "must define at least one factor")
     factors_table.refuse_unknown()
+    factors = [
+        f if t is None else replace(f, missing=_parse_missing(t, f, factors)) for f, t in zip(factors, missing_tables)
+    ]
 
     large = top.optional_table("large_losses")
     interaction = top.optional_table("interaction")
@@ -188,7 +234,9 @@ def _periods(s: TomlTable) -> tuple[int, ...]:
     return tuple(value)
 
 
-def _parse_factor(t: TomlTable, name: str, earlier: list[Factor]) -> Factor:
+def _parse_factor(t: TomlTable, name: str, earlier: list[Factor], seed: int) -> tuple[Factor, TomlTable | None]:
+    """The factor (without its missing values) and its `missing` table, read once every factor is
+    known; `seed` is the scenario's, for generated levels."""
     ftype = t.string("type", choices=("numeric", "categorical"))
     depends_on = t.value("depends_on", None)
     parent = None
@@ -196,7 +244,7 @@ def _parse_factor(t: TomlTable, name: str, earlier: list[Factor]) -> Factor:
         parent = next((f for f in earlier if f.name == depends_on), None)
         if parent is None:
             raise t.error("depends_on", f"must name a factor defined above this one, got {depends_on!r}")
-    parsed = _parse_numeric(t) if ftype == "numeric" else _parse_categorical(t)
+    parsed = _parse_numeric(t) if ftype == "numeric" else _parse_categorical(t, seed, len(earlier))
     labels = parsed["labels"]
     base = t.value("base", None)
     if base is not None and base not in labels:
@@ -217,8 +265,9 @@ def _parse_factor(t: TomlTable, name: str, earlier: list[Factor]) -> Factor:
             when[label] = _parse_distribution(override, parsed["distribution"], labels)
             override.refuse_unknown()
         when_table.refuse_unknown()
+    missing = t.optional_table("missing")
     t.refuse_unknown()
-    return Factor(name=name, type=ftype, base=base, depends_on=depends_on, when=when, **parsed)
+    return Factor(name=name, type=ftype, base=base, depends_on=depends_on, when=when, **parsed), missing
 
 
 def _parse_distribution(t: TomlTable, template: Distribution | str, levels: tuple[str, ...]) -> Distribution:
@@ -308,7 +357,10 @@ def _relativities(t: TomlTable, key: str, levels: tuple[str, ...]) -> np.ndarray
     return values
 
 
-def _parse_categorical(t: TomlTable) -> dict[str, Any]:
+def _parse_categorical(t: TomlTable, seed: int, index: int) -> dict[str, Any]:
+    generate = t.optional_table("generate")
+    if generate is not None:
+        return _parse_generated(generate, t, seed, index)
     levels = _names(t, "levels", "level")
     if len(levels) < 2:
         raise t.error("levels", f"must list at least two levels, got {list(levels)!r}")
@@ -319,6 +371,52 @@ def _parse_categorical(t: TomlTable) -> dict[str, Any]:
         frequency_relativity=_relativities(t, "frequency_relativity", levels),
         severity_relativity=_relativities(t, "severity_relativity", levels),
     )
+
+
+def _parse_generated(g: TomlTable, factor: TomlTable, seed: int, index: int) -> dict[str, Any]:
+    """A categorical factor's generated levels, probabilities and relativities (key `generate`)."""
+    for key in ("levels", "probabilities", "frequency_relativity", "severity_relativity"):
+        if factor.has(key):
+            raise factor.error(key, "cannot be given with generate (the levels and their relativities are generated)")
+    spec = GeneratedLevels(
+        count=g.integer("count", low=2),
+        prefix=g.string("prefix", ""),
+        exposure_skew=g.number("exposure_skew", 1.0, low=0),
+        frequency_sigma=g.number("frequency_sigma", 0.0, low=0),
+        severity_sigma=g.number("severity_sigma", 0.0, low=0),
+    )
+    g.refuse_unknown()
+    probabilities = spec.probabilities()
+    frequency, severity = spec.relativities(side_stream(seed, GENERATED_LEVELS_STREAM, index), probabilities)
+    return dict(
+        distribution=Distribution("levels", {"probabilities": tuple(float(p) for p in probabilities)}),
+        labels=spec.labels(),
+        frequency_relativity=frequency,
+        severity_relativity=severity,
+        generated=spec,
+    )
+
+
+def _parse_missing(t: TomlTable, factor: Factor, factors: list[Factor]) -> Missing:
+    """The factor's `missing` table; `factors` are all the scenario's (the group may be any other)."""
+    share = t.number("share", low=0, high=1, high_open=True)
+    frequency = t.number("frequency_relativity", 1.0, low=0, low_open=True)
+    severity = t.number("severity_relativity", 1.0, low=0, low_open=True)
+    group = t.optional_table("more_often_when")
+    t.refuse_unknown()
+    if group is None:
+        return Missing(share, frequency, severity)
+    name = group.string("factor", nonempty=True)
+    other = next((f for f in factors if f.name == name and f is not factor), None)
+    if other is None:
+        raise group.error("factor", f"must name another factor of the scenario, got {name!r}")
+    label = group.string("level")
+    if label not in other.labels:
+        shown = ", ".join(other.labels[:8]) + (", ..." if len(other.labels) > 8 else "")
+        raise group.error("level", f"must be a level or band of {name} ({shown}), got {label!r}")
+    group_share = group.number("share", low=0, high=1, high_open=True)
+    group.refuse_unknown()
+    return Missing(share, frequency, severity, name, label, group_share)
 
 
 def _parse_large_losses(t: TomlTable) -> LargeLosses:

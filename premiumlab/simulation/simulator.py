@@ -20,8 +20,8 @@ import pandas as pd
 
 from premiumlab._core.errors import InputError
 from premiumlab._core.jsonio import write_json
-from premiumlab.simulation.draw import Rows, claim_amounts, draw_factors, exposure_rows, true_effects
-from premiumlab.simulation.scenario import PREMIUM_COLUMN, Scenario
+from premiumlab.simulation.draw import Rows, claim_amounts, draw_factors, draw_missing, exposure_rows, true_effects
+from premiumlab.simulation.scenario import PREMIUM_COLUMN, Factor, Scenario
 from premiumlab.simulation.scenario_file import load_scenario
 from premiumlab.simulation.truth import TRUTH_FILE, expected_totals, factor_truths, truth_document
 
@@ -45,8 +45,13 @@ def _current_premium(
         f = scenario.factor(name)
         true_pp = factors[name]["relativities"]["pure_premium"]
         table = np.array([true_pp[label] for label in f.labels]) ** k
-        relativity *= table[f.label_codes(rows.values[name])]
+        row_relativity = table[f.label_codes(rows.values[name])]
         described[name] = {"shrink": k, "relativities": dict(zip(f.labels, table))}
+        if name in rows.missing:
+            missing_relativity = factors[name]["missing"]["relativities"]["pure_premium"] ** k
+            row_relativity[rows.missing[name]] = missing_relativity
+            described[name]["missing"] = missing_relativity
+        relativity *= row_relativity
     base_rate = expected_amount / (scenario.expected_loss_ratio * float(np.sum(rows.exposure * relativity)))
     premium = np.maximum(np.round(base_rate * relativity * rows.exposure, 2), 0.01)
     return premium, {"expected_loss_ratio": scenario.expected_loss_ratio, "base_rate": base_rate, "factors": described}
@@ -56,6 +61,22 @@ def _policy_ids(n: int) -> np.ndarray:
     """'P0000001', 'P0000002', ... (at least seven digits)."""
     width = max(7, len(str(n)))
     return np.char.add("P", np.char.zfill(np.arange(1, n + 1).astype(str), width))
+
+
+def _book_column(
+    f: Factor, values: np.ndarray, missing: np.ndarray | None
+) -> np.ndarray | pd.api.extensions.ExtensionArray:
+    """A factor's column: level names, or numbers (integers when `round_to` is whole); missing
+    values are None (categorical), NaN (float) or <NA> (nullable integers)."""
+    if not f.numeric:
+        column = np.asarray(f.labels, dtype=object)[values]
+        if missing is not None:
+            column[missing] = None
+        return column
+    if not f.writes_integers:
+        return values if missing is None else np.where(missing, np.nan, values)
+    integers = values.astype(np.int64)
+    return integers if missing is None else pd.arrays.IntegerArray(integers, missing)
 
 
 def _checked_override(value: Any, name: str, low: int) -> int:
@@ -90,8 +111,10 @@ def generate(scenario: Scenario, policies: int | None = None, seed: int | None =
         rng, n, len(scenario.periods), scenario.new_business_share, scenario.lapse_share
     )
     raw = draw_factors(rng, scenario.factors, n)
-    rows = Rows(policy, period, exposure, {f.name: f.value(raw[f.name][policy], period) for f in scenario.factors})
-    effects = true_effects(scenario, rows.values)
+    missing = {name: lost[policy] for name, lost in draw_missing(s, scenario.factors, raw).items()}
+    values = {f.name: f.value(raw[f.name][policy], period) for f in scenario.factors}
+    rows = Rows(policy, period, exposure, values, missing)
+    effects = true_effects(scenario, rows.values, rows.missing)
     counts = rng.poisson(exposure * effects.frequency)
     amounts, large_claims = claim_amounts(rng, scenario, counts, effects.severity_relativity)
 
@@ -109,10 +132,7 @@ def generate(scenario: Scenario, policies: int | None = None, seed: int | None =
         }
     )
     for f in scenario.factors:
-        v = rows.values[f.name]
-        book[f.name] = (
-            (v.astype(np.int64) if f.writes_integers else v) if f.numeric else np.asarray(f.labels, dtype=object)[v]
-        )
+        book[f.name] = _book_column(f, rows.values[f.name], rows.missing.get(f.name))
     book[PREMIUM_COLUMN] = premium
     truth = truth_document(scenario, n, s, rows, effects, factors, at_base, expected_claims, expected_amount, tariff)
     return SimulatedBook(book, truth, large_claims)

@@ -11,17 +11,26 @@ lists, per band/level pair with exposure, the mean interaction multiplier (weigh
 no interaction). `base` gives frequency, severity and pure premium at the base of every factor
 (outside the interaction), `scenario_base` where every effect is 1, `large_losses` the expected
 share of claim amounts from large losses.
+
+A factor with missing values has a `missing` entry: its scenario keys (`share`, `more_often_when`,
+`frequency_relativity`, `severity_relativity`), the exposure, policies and shares missing, and the
+missing group's `relativities` averaged and normalised as a level's; its levels and bands hold only
+the rows where the value is shown (the interaction cells use the true values). A factor with
+generated levels has a `generated` entry: its `generate` keys, and per level its probability and its
+frequency and severity relativities on the scenario's scale (sum_k p_k r_k = 1), also for levels
+without exposure in the book.
 """
 
 from __future__ import annotations
 
 import math
+from dataclasses import asdict
 from typing import Any
 
 import numpy as np
 
 from premiumlab.simulation.draw import Effects, Rows
-from premiumlab.simulation.scenario import Factor, Scenario
+from premiumlab.simulation.scenario import Factor, Missing, Scenario
 
 GRID_POINTS = 101
 TRUTH_FILE = "truth.json"
@@ -39,21 +48,23 @@ def _weighted_means(codes: np.ndarray, k: int, weights: np.ndarray, values: np.n
         return np.bincount(codes, weights=weights * values, minlength=k) / w
 
 
-def _factor_truth(
-    f: Factor, values: np.ndarray, exposure: np.ndarray, effects: Effects
-) -> tuple[dict, dict[str, float]]:
+def _factor_truth(f: Factor, rows: Rows, effects: Effects) -> tuple[dict, dict[str, float]]:
     """The factor's entry of truth.json, and its unnormalised band/level averages at its base."""
+    values, exposure, missing = rows.values[f.name], rows.exposure, rows.missing.get(f.name)
     codes = f.label_codes(values)
     k = len(f.labels)
+    if missing is not None:
+        codes = np.where(missing, k, codes)  # the missing group is group k, after the labels
+    groups = k if missing is None else k + 1
     fr, sr = np.exp(effects.log_frequency[f.name]), np.exp(effects.log_severity[f.name])
     expected_claims = exposure * effects.frequency
     raw = {
-        "frequency": _weighted_means(codes, k, exposure, fr),
-        "severity": _weighted_means(codes, k, expected_claims, sr),
-        "pure_premium": _weighted_means(codes, k, exposure, fr * sr),
+        "frequency": _weighted_means(codes, groups, exposure, fr),
+        "severity": _weighted_means(codes, groups, expected_claims, sr),
+        "pure_premium": _weighted_means(codes, groups, exposure, fr * sr),
     }
-    label_exposure = np.bincount(codes, weights=exposure, minlength=k)
-    base = f.base if f.base is not None else f.labels[int(np.argmax(label_exposure))]
+    label_exposure = np.bincount(codes, weights=exposure, minlength=groups)
+    base = f.base if f.base is not None else f.labels[int(np.argmax(label_exposure[:k]))]
     b = f.labels.index(base)
     out: dict[str, Any] = {
         "type": f.type,
@@ -74,7 +85,40 @@ def _factor_truth(
         }
     else:
         out["levels"] = list(f.labels)
+    if f.generated is not None:
+        out["generated"] = {
+            **asdict(f.generated),
+            "probabilities": dict(zip(f.labels, f.distribution.parameters["probabilities"])),
+            "frequency_relativity": dict(zip(f.labels, f.level_relativities("frequency"))),
+            "severity_relativity": dict(zip(f.labels, f.level_relativities("severity"))),
+        }
+    if missing is not None and f.missing is not None:
+        normalised = {t: v[k] / v[b] for t, v in raw.items()}
+        out["missing"] = _missing_truth(f.missing, rows.policy, missing, label_exposure, normalised)
     return out, {t: float(v[b]) for t, v in raw.items()}
+
+
+def _missing_truth(
+    m: Missing, policy: np.ndarray, missing: np.ndarray, group_exposure: np.ndarray, relativities: dict
+) -> dict:
+    """truth.json's `missing` of a factor: its keys, what is missing in the book (`missing` per row,
+    `group_exposure` per group, the missing group last), and the missing group's relativities."""
+    policies = int(policy.max()) + 1  # every policy has at least one row
+    missing_policies = len(np.unique(policy[missing]))
+    exposure = float(group_exposure[-1])
+    return {
+        "share": m.share,
+        "more_often_when": None
+        if m.group_factor is None
+        else {"factor": m.group_factor, "level": m.group_label, "share": m.group_share},
+        "frequency_relativity": m.frequency_relativity,
+        "severity_relativity": m.severity_relativity,
+        "policies": missing_policies,
+        "share_of_policies": missing_policies / policies,
+        "exposure": exposure,
+        "share_of_exposure": exposure / float(group_exposure.sum()),
+        "relativities": relativities,
+    }
 
 
 def _interaction_truth(scenario: Scenario, rows: Rows, effects: Effects) -> dict | None:
@@ -132,7 +176,7 @@ def factor_truths(scenario: Scenario, rows: Rows, effects: Effects) -> tuple[dic
         Per factor its truth.json entry, and per target (frequency, severity, pure_premium) the
         product over factors of their unnormalised band/level averages at the base.
     """
-    per_factor = {f.name: _factor_truth(f, rows.values[f.name], rows.exposure, effects) for f in scenario.factors}
+    per_factor = {f.name: _factor_truth(f, rows, effects) for f in scenario.factors}
     factors = {name: entry for name, (entry, _) in per_factor.items()}
     at_base = {t: math.prod(at[t] for _, at in per_factor.values()) for t in ("frequency", "severity", "pure_premium")}
     return factors, at_base
