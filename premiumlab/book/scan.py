@@ -283,7 +283,26 @@ def _concat(parts: list[TypedChunk]) -> TypedChunk:
 
 def parquet_slices(path: str | Path, chunk_rows: int = CHUNK_ROWS) -> list[tuple[str, list[int], int]]:
     """(file, row groups, first row) of each slice of about `chunk_rows` rows of a Parquet book (a
-    file or a folder of parts), in book order; a slice never splits a row group."""
+    file or a folder of parts), in book order; a slice never splits a row group.
+
+    Parameters
+    ----------
+    path : str or Path
+        A Parquet book: a file or a folder of parts (`book_parts`).
+    chunk_rows : int
+        Rows a slice reaches before it is closed (CHUNK_ROWS by default); a slice ends at the
+        first row group that takes it to `chunk_rows` rows or more, or at the end of its file.
+
+    Returns
+    -------
+    list of tuple of (str, list of int, int)
+        Per slice: the file, its row-group indices, and the 0-based book row of its first row.
+
+    Raises
+    ------
+    InputError
+        For a CSV book (a cluster reads Parquet only) or an unreadable Parquet file.
+    """
     import pyarrow.parquet as pq
 
     slices, offset = [], 0
@@ -330,6 +349,31 @@ def scan_book(
     Without the rows, memory stays about one chunk plus the distinct levels and 8 bytes a row for
     the (policy, period) keys when a period column is named. With a `runner` (and no rows kept),
     the slices of a Parquet book are checked as its tasks and their tallies merged in book order.
+
+    Parameters
+    ----------
+    path : str or Path
+        A book file or a folder of book parts.
+    spec : Spec
+        The pricing spec: the columns and factors to read and check.
+    keep_rows : bool
+        Keep the typed rows (True, for `load_book`) or only the sums (False, for `validate`).
+    chunk_rows : int
+        Most rows read at once (CHUNK_ROWS by default), or the slice size on a cluster.
+    runner : TaskRunner or None
+        Where to check the slices of a Parquet book when `keep_rows` is False; None reads the
+        book here, chunk by chunk.
+
+    Returns
+    -------
+    tuple of (TypedChunk or None, BookSummary, list of Finding)
+        The typed book (None with `keep_rows=False`); the rows, exposure, claims and amount summed
+        over the book and per level or band; every finding, errors and warnings, in book order.
+
+    Raises
+    ------
+    InputError
+        When a column the spec names is missing, the book has no rows or cannot be read.
     """
     p = Path(path)
     header = read_columns(p)
@@ -364,7 +408,27 @@ def scan_book(
 
 
 def load_book(path: str | Path, spec: Spec) -> Book:
-    """Read, check and type a book; the first error stops with `InputError` (exit 2)."""
+    """Read, check and type a book; the first error stops with `InputError` (exit 2).
+
+    Parameters
+    ----------
+    path : str or Path
+        A book file or a folder of book parts.
+    spec : Spec
+        The pricing spec: columns, factors and the holdout split.
+
+    Returns
+    -------
+    Book
+        The typed rows, each row's policy id (its 0-based row number as text when the spec names
+        no policy column), the holdout flags (`holdout_flags`, by `split.seed` and
+        `split.holdout`), the book's sha256 and its warnings.
+
+    Raises
+    ------
+    InputError
+        With the message of the first error finding, or when the book cannot be read.
+    """
     typed, _, findings = scan_book(path, spec)
     errors = [f for f in findings if f.level == "error"]
     if errors:
@@ -392,7 +456,25 @@ def with_quantile_bands(
     """Band the numeric factors that have no `bands`: their exposure-quantile edges over the whole
     book (`book_quantiles`: five reads of the factor and the exposure, memory independent of the
     distinct values), then their sums per band in one more read. Returns the spec with those
-    edges as the factors' bands, and the summary with their sums."""
+    edges as the factors' bands, and the summary with their sums.
+
+    Parameters
+    ----------
+    path : str or Path
+        The book the summary was made from.
+    spec : Spec
+        The pricing spec.
+    summary : BookSummary
+        The sums of a scan of the book (`scan_book`).
+    chunk_rows : int
+        Most rows read at once (CHUNK_ROWS by default).
+
+    Returns
+    -------
+    tuple of (Spec, BookSummary)
+        The spec with every numeric factor banded and the summary with sums per band for the
+        factors banded here; both unchanged when every numeric factor has `bands`.
+    """
     unbanded = [f for f in spec.factors if f.type == "numeric" and f.bands is None]
     if not unbanded:
         return spec, summary
@@ -422,7 +504,27 @@ def with_quantile_bands(
 def profile(summary: BookSummary, spec: Spec) -> dict[str, pd.DataFrame]:
     """Exposure, claims, amount, frequency (claims/exposure), severity (amount/claims) and loss cost
     (amount/exposure) per level or band, and overall; bands and levels cut as `cut_levels` does on
-    the whole book (every numeric factor banded: give the spec `with_quantile_bands` returns)."""
+    the whole book (every numeric factor banded: give the spec `with_quantile_bands` returns).
+
+    Parameters
+    ----------
+    summary : BookSummary
+        The book's sums per level or band (`scan_book`, then `with_quantile_bands`).
+    spec : Spec
+        The pricing spec with every numeric factor banded.
+
+    Returns
+    -------
+    dict of str to pandas.DataFrame
+        "(overall)" (one row, "all") and one table per factor indexed by its levels or bands in
+        order, with columns exposure (exposure units), claims, amount (money; NaN without a claim
+        amount column), frequency, severity and loss_cost; a level or band without rows is NaN.
+
+    Raises
+    ------
+    InputError
+        When the spec's `base` of a factor is not one of its levels or bands (`cut_levels`).
+    """
     has_amount = spec.columns.claim_amount is not None
     out = {"(overall)": _profile_table(summary.totals[None, :], pd.Index(["all"]), has_amount)}
     for f in spec.factors:
