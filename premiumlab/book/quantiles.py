@@ -111,5 +111,6 @@ def _edges_above(chunks: Chunks, keys: list[int]) -> np.ndarray:
         better = here & (candidate < nxt)
         nxt[better] = candidate[better]
         found |= here
+    assert lowest is not None  # the weights sum to more than zero (pass 1), so some chunk has values
     edges = np.unique([_from_key(int(n if f else w)) for n, f, w in zip(nxt, found, wanted)])
     return edges[edges > _from_key(int(lowest))]

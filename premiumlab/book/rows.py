@@ -248,11 +248,13 @@ def check_chunk(chunk: pd.DataFrame, offset: int, spec: Spec, out: FindingCollec
     factors: dict[str, np.ndarray] = {}
     for f in spec.factors:
         factors[f.name] = _check_factor(chunk[f.name], f, offset, out)
-    policy = as_text(chunk[c.policy_id]) if c.policy_id else None
-    if policy is not None:
+    policy: np.ndarray | None = None
+    if c.policy_id:
+        policy = as_text(chunk[c.policy_id])
         out.add("error", c.policy_id, "with a missing policy id", policy == "", offset)
-    period = as_text(chunk[c.period]) if c.period else None
-    if period is not None:
+    period: np.ndarray | None = None
+    if c.period:
+        period = as_text(chunk[c.period])
         out.add("error", c.period, "with a missing period", period == "", offset)
     return TypedChunk(expo, count, amount, premium, factors, policy, period)
 

@@ -157,11 +157,11 @@ class _Tally:
                 (low, high), (their_low, their_high) = self.spread[f.name], later.spread[f.name]
                 self.spread[f.name] = (min(low, their_low), max(high, their_high))
         for key, pairs in self.pairs.items():
-            theirs = later.pairs[key]
+            their_pairs = later.pairs[key]
             self.pairs[key] = (
                 None
-                if pairs is None or theirs is None
-                else _one_to_one(pd.concat([pairs, theirs], ignore_index=True).drop_duplicates(ignore_index=True))
+                if pairs is None or their_pairs is None
+                else _one_to_one(pd.concat([pairs, their_pairs], ignore_index=True).drop_duplicates(ignore_index=True))
             )
         for keys in later.seen_keys:
             for seen in self.seen_keys:
@@ -212,6 +212,7 @@ def _repeated_keys(path: Path, spec: Spec, candidates: np.ndarray) -> np.ndarray
     """Rows repeating an earlier (policy, period) pair, confirmed on the text of the rows whose
     key hash is among `candidates` (a second read of the two columns; hashes can collide)."""
     c = spec.columns
+    assert c.policy_id is not None and c.period is not None  # keys are hashed only when both are named
     rows, policy, period = [], [], []
     for off, chunk in iter_book(path, [c.policy_id, c.period]):
         p, t = as_text(chunk[c.policy_id]), as_text(chunk[c.period])
@@ -228,7 +229,7 @@ def _book_checks(tally: _Tally, path: Path, out: FindingCollector) -> None:
     spec, c = tally.spec, tally.spec.columns
     if tally.totals[2] == 0:
         out.note("error", c.claim_count, f"the book has no claims (column '{c.claim_count}' sums to 0)")
-    if tally.repeat_hashes:
+    if tally.repeat_hashes and c.policy_id is not None:  # keys are hashed only with a policy and a period
         rows = _repeated_keys(path, spec, np.concatenate(tally.repeat_hashes))
         out.add_rows("error", c.policy_id, f"repeating an earlier ('{c.policy_id}', '{c.period}') pair", rows)
     for f in spec.factors:
@@ -274,10 +275,13 @@ def _concat(parts: list[TypedChunk]) -> TypedChunk:
 
     factors = {k: cat([p.factors for p in parts], k) for k in list(parts[0].factors)}
     return TypedChunk(
-        *(cat(parts, name) for name in ("exposure", "count", "amount", "premium")),
-        factors,
-        cat(parts, "policy"),
-        cat(parts, "period"),
+        exposure=cat(parts, "exposure"),
+        count=cat(parts, "count"),
+        amount=cat(parts, "amount"),
+        premium=cat(parts, "premium"),
+        factors=factors,
+        policy=cat(parts, "policy"),
+        period=cat(parts, "period"),
     )
 
 
@@ -433,6 +437,7 @@ def load_book(path: str | Path, spec: Spec) -> Book:
     errors = [f for f in findings if f.level == "error"]
     if errors:
         raise InputError(errors[0].message)
+    assert typed is not None  # scan_book keeps the rows by default
     n = len(typed.exposure)
     policy = typed.policy if typed.policy is not None else np.arange(n).astype(str).astype(object)
     frame = pd.DataFrame({f.name: typed.factors[f.name] for f in spec.factors})
@@ -484,10 +489,11 @@ def with_quantile_bands(
         for _, chunk in iter_book(path, [name, c.exposure], chunk_rows):
             yield to_number(chunk[name])[0], _usable_exposure(to_number(chunk[c.exposure])[0])
 
+    edges: dict[str, tuple[float, ...]] = {}
     banded_factors = {}
     for f in unbanded:
-        edges = book_quantile_edges(partial(values_and_exposure, f.name), f.n_bands)
-        banded_factors[f.name] = replace(f, bands=tuple(float(e) for e in edges))
+        edges[f.name] = tuple(float(e) for e in book_quantile_edges(partial(values_and_exposure, f.name), f.n_bands))
+        banded_factors[f.name] = replace(f, bands=edges[f.name])
     banded = replace(spec, factors=tuple(banded_factors.get(f.name, f) for f in spec.factors))
     levels = dict(summary.levels)
     sums = {name: _no_sums(f) for name, f in banded_factors.items()}
@@ -495,8 +501,10 @@ def with_quantile_bands(
     for _, chunk in iter_book(path, columns, chunk_rows):
         amount = to_number(chunk[c.claim_amount])[0] if c.claim_amount else None
         weights = _row_weights(to_number(chunk[c.exposure])[0], to_number(chunk[c.claim_count])[0], amount)
-        for name, f in banded_factors.items():
-            sums[name].sums += _sums_by(assign_bands(to_number(chunk[name])[0], f.bands), weights, len(f.bands) + 1)
+        for name, factor_edges in edges.items():
+            sums[name].sums += _sums_by(
+                assign_bands(to_number(chunk[name])[0], factor_edges), weights, len(factor_edges) + 1
+            )
     levels.update(sums)
     return banded, replace(summary, levels=levels)
 

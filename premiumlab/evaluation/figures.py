@@ -10,7 +10,7 @@ from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
 from pathlib import Path
-from typing import TYPE_CHECKING
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -25,9 +25,6 @@ from premiumlab._core.plotting import (
     plain_axes,
     save_figure,
 )
-
-if TYPE_CHECKING:
-    pass
 
 
 def _require_columns(table: pd.DataFrame, columns: Sequence[str], what: str) -> None:
@@ -269,7 +266,7 @@ def plot_cv_curve(
     return save_figure(fig, path)
 
 
-def plot_impact(result: Mapping[str, object], path: str | Path, *, factor: str | None = None) -> Path:
+def plot_impact(result: Mapping[str, Any], path: str | Path, *, factor: str | None = None) -> Path:
     """Left: share of policies and of current premium in each change band; right: the
     premium-weighted mean change (sum proposed / sum current - 1) by level of `factor`, by default
     the factor whose levels' changes spread widest (`result` from `rating_tables.impact`).

@@ -26,6 +26,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
+import numpy.typing as npt
 import pandas as pd
 
 from premiumlab._core.errors import InputError
@@ -81,14 +82,14 @@ def future_midpoint(exp: Experience, effective_date: str) -> float:
     return _year_fraction(dt.date.fromisoformat(effective_date)) + exp.term_years / 2.0
 
 
-def years_to_future(exp: Experience, labels: Sequence[str], future: float) -> np.ndarray:
+def years_to_future(exp: Experience, labels: Sequence[str] | npt.NDArray[np.str_], future: float) -> np.ndarray:
     """Years from each period's midpoint to the future midpoint (zeros without a trend).
 
     Parameters
     ----------
     exp : Experience
         The spec's [experience] section.
-    labels : sequence of str
+    labels : sequence or ndarray of str
         Period labels: four-digit years ("2024" -> 2024.5), or labels listed in
         `period_midpoints`.
     future : float
@@ -528,6 +529,7 @@ def read_claims(path: Path, spec: Spec, policy: np.ndarray, period: np.ndarray |
     if not path.exists():
         raise InputError(f"{path}: claims file not found (experience.claims_file)")
     amount_col = exp.claims_amount_column or c.claim_amount
+    assert c.policy_id is not None and amount_col is not None  # the spec refuses a claims_file without them
     keys = [c.policy_id] + ([c.period] if c.period else [])
     wanted = keys + [amount_col] + ([exp.catastrophe_column] if exp.catastrophe_column else [])
     header = read_columns(path)

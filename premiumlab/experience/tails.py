@@ -140,6 +140,8 @@ def _tail_losses(book_path: str | Path, spec_path: str | Path) -> tuple[np.ndarr
     if spec.columns.claim_amount is None:
         raise InputError(f"{spec.source}: key 'columns.claim_amount' is not set; the threshold aid needs amounts")
     book = load_book(book_path, spec)
+    amount = book.claim_amount
+    assert amount is not None  # columns.claim_amount is set (checked above), so the book has amounts
     exp, c = spec.experience, spec.columns
     periods = read_text_column(book_path, c.period) if c.period else np.full(book.n_rows, "", dtype=object)
     labels, code = np.unique(periods.astype(str), return_inverse=True)
@@ -152,13 +154,13 @@ def _tail_losses(book_path: str | Path, spec_path: str | Path) -> tuple[np.ndarr
             spec,
             book.policy,
             periods if c.period else None,
-            book.claim_amount,
+            amount,
         )
         keep = ~claims.catastrophe & (claims.amount > 0)
         losses, basis = claims.amount[keep] * trend[claims.row[keep]], "single claims of the claims file"
     else:
-        keep = book.claim_amount > 0
-        losses, basis = book.claim_amount[keep] * trend[keep], "row totals (one policy in one period)"
+        keep = amount > 0
+        losses, basis = amount[keep] * trend[keep], "row totals (one policy in one period)"
     if exp.trend.get("severity"):
         basis += ", trended for severity to the future policy period"
     if losses.size <= MIN_EXCEEDANCES:
