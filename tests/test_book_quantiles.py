@@ -14,7 +14,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from premiumlab.book.bands import quantile_edges
-from premiumlab.book.quantiles import book_quantile_edges, sortable_keys
+from premiumlab.book.quantiles import _sortable_keys, book_quantile_edges
 
 
 def _chunked(values: np.ndarray, weights: np.ndarray, size: int):
@@ -47,11 +47,11 @@ def test_passes_give_the_edges_of_the_whole_column(kind, n_bands):
 
 def test_sortable_keys_sort_as_the_values():
     values = np.array([-np.inf, -1e300, -2.5, -1e-300, -0.0, 0.0, 1e-300, 3.0, 1e300, np.inf])
-    keys = sortable_keys(values)
+    keys = _sortable_keys(values)
     assert (np.diff(keys.astype(object)) >= 0).all() and keys[4] == keys[5]
     rng = np.random.default_rng(1)
     sample = rng.normal(0, 1e6, 10_000)
-    np.testing.assert_array_equal(np.argsort(sortable_keys(sample), kind="stable"), np.argsort(sample, kind="stable"))
+    np.testing.assert_array_equal(np.argsort(_sortable_keys(sample), kind="stable"), np.argsort(sample, kind="stable"))
 
 
 def test_a_single_value_and_zero_weights():

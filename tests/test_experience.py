@@ -21,14 +21,14 @@ import statsmodels.api as sm
 from premiumlab._core.errors import InputError
 from premiumlab.book.spec import Experience, parse_spec
 from premiumlab.experience.adjustments import (
-    adjust,
-    cap_losses,
+    _adjust,
+    _cap_losses,
+    _load_ratio,
+    _period_midpoint,
+    _year_fraction,
     future_midpoint,
     latest_period_holdout,
-    load_ratio,
-    period_midpoint,
     prepare,
-    year_fraction,
 )
 from premiumlab.runs.fit import fit
 
@@ -48,12 +48,12 @@ def two_period_book() -> dict:
 
 def test_time_and_trend_by_hand():
     """Fractional years: 1 July 2027 is day 181 of 365; a year label's midpoint is its middle."""
-    assert year_fraction(dt.date(2027, 7, 1)) == pytest.approx(2027 + 181 / 365, abs=1e-12)
-    assert year_fraction(dt.date(2024, 3, 1)) == pytest.approx(2024 + 60 / 366, abs=1e-12)  # leap year
-    assert period_midpoint("2024", {}) == 2024.5
-    assert period_midpoint("2024H1", {"2024H1": "2024-04-01"}) == pytest.approx(2024 + 91 / 366, abs=1e-12)
+    assert _year_fraction(dt.date(2027, 7, 1)) == pytest.approx(2027 + 181 / 365, abs=1e-12)
+    assert _year_fraction(dt.date(2024, 3, 1)) == pytest.approx(2024 + 60 / 366, abs=1e-12)  # leap year
+    assert _period_midpoint("2024", {}) == 2024.5
+    assert _period_midpoint("2024H1", {"2024H1": "2024-04-01"}) == pytest.approx(2024 + 91 / 366, abs=1e-12)
     with pytest.raises(InputError, match="no midpoint for period 'Q3'"):
-        period_midpoint("Q3", {})
+        _period_midpoint("Q3", {})
     assert future_midpoint(Experience(trend={"severity": 0.05}), "2027-01-01") == pytest.approx(2027.5)
     assert future_midpoint(Experience(trend={"severity": 0.05}, term_years=0.5), "2027-01-01") == pytest.approx(2027.25)
 
@@ -72,7 +72,7 @@ def test_two_period_book_by_hand():
         development_applies_to_counts=True,
         trend={"frequency": 0.02, "severity": 0.05},
     )
-    out = adjust(exp, b["periods"], b["count"], b["amount"], ALL, 2027.5, exp.development)
+    out = _adjust(exp, b["periods"], b["count"], b["amount"], ALL, 2027.5, exp.development)
     g24, g25 = 1.10 * 1.02**3, 1.25 * 1.02**2
     capped = np.array([4000 * 1.05**3 * g24, 10000 * g24, 9000 * 1.05**2 * g25, 0.0])
     excess = np.array([0.0, (12000 * 1.05**3 - 10000) * g24, 0.0, 0.0])
@@ -95,7 +95,7 @@ def test_two_period_book_by_hand():
 def test_history_excess_load_and_no_adjustment():
     """A load from a longer history replaces the measured one; nothing set leaves every figure as given."""
     b = two_period_book()
-    out = adjust(
+    out = _adjust(
         Experience(large_loss_cap=10000.0, excess_load_history=0.10),
         b["periods"],
         b["count"],
@@ -106,17 +106,17 @@ def test_history_excess_load_and_no_adjustment():
     )
     np.testing.assert_allclose(out.amount, np.minimum(b["amount"], 10000.0) * 1.10, rtol=1e-15)
     assert out.record["large_losses"]["excess_load_measured"] == pytest.approx(2000 / 23000, rel=1e-12)
-    same = adjust(Experience(), b["periods"], b["count"], b["amount"], ALL, 2027.5, {})
+    same = _adjust(Experience(), b["periods"], b["count"], b["amount"], ALL, 2027.5, {})
     assert np.array_equal(same.amount, b["amount"]) and np.array_equal(same.count, b["count"])
-    assert cap_losses(np.array([5.0, 15.0]), 10.0)[1].tolist() == [0.0, 5.0]
-    assert load_ratio(0.0, 0.0) == 0.0
+    assert _cap_losses(np.array([5.0, 15.0]), 10.0)[1].tolist() == [0.0, 5.0]
+    assert _load_ratio(0.0, 0.0) == 0.0
 
 
 def test_loads_measured_on_training_rows_reproduce_their_total():
     """The loads are measured on the training rows: their adjusted total equals their developed total."""
     b = two_period_book()
     train = np.array([True, True, False, True])
-    out = adjust(Experience(large_loss_cap=5000.0), b["periods"], b["count"], b["amount"], train, 2027.5, {})
+    out = _adjust(Experience(large_loss_cap=5000.0), b["periods"], b["count"], b["amount"], train, 2027.5, {})
     assert out.amount[train].sum() == pytest.approx(16000.0, rel=1e-12)
     assert out.record["large_losses"]["excess_load"] == pytest.approx(7000 / 9000, rel=1e-12)
 

@@ -199,18 +199,18 @@ def test_bootstrap_weights_are_resamples_of_whole_units() -> None:
     """Every resample's weights sum to the number of units drawn (exact resampling, 0 spread);
     rows of one group always share a weight; one group per row reproduces the row bootstrap."""
     rows = 60
-    draws_total = metrics.paired_bootstrap(lambda w, a: w.sum(axis=1) - rows, np.zeros(rows), seed=1)
+    draws_total = metrics._paired_bootstrap(lambda w, a: w.sum(axis=1) - rows, np.zeros(rows), seed=1)
     assert (draws_total.lower, draws_total.upper) == (0.0, 0.0)
     groups = np.repeat(np.arange(20), 3)
-    spread = metrics.paired_bootstrap(
+    spread = metrics._paired_bootstrap(
         lambda w, a: np.abs(w.reshape(w.shape[0], 20, 3) - w[:, ::3, None]).max(axis=(1, 2)),
         np.zeros(rows),
         seed=1,
         groups=groups,
     )
     assert (spread.lower, spread.upper) == (0.0, 0.0)
-    per_row = metrics.paired_bootstrap(lambda w, a: w @ a, np.arange(rows, dtype=float), seed=2)
-    per_group = metrics.paired_bootstrap(
+    per_row = metrics._paired_bootstrap(lambda w, a: w @ a, np.arange(rows, dtype=float), seed=2)
+    per_group = metrics._paired_bootstrap(
         lambda w, a: w @ a, np.arange(rows, dtype=float), seed=2, groups=np.arange(rows)
     )
     assert (per_row.lower, per_row.upper) == (per_group.lower, per_group.upper)

@@ -16,7 +16,7 @@ import pytest
 from scipy.stats import genpareto
 
 from premiumlab._core.errors import InputError
-from premiumlab.experience.tails import MIN_EXCEEDANCES, fit_tail, mean_excess, threshold_aid, threshold_grid
+from premiumlab.experience.tails import MIN_EXCEEDANCES, _fit_tail, _mean_excess, _threshold_grid, threshold_aid
 
 from _builders import SPEC_TEXT, run_cli, small_book
 
@@ -27,7 +27,7 @@ def test_mean_excess_of_a_gpd_sample_follows_scipy():
     """On 200,000 draws: e(u) within 2 % of scipy's E[X - u | X > u] = (beta + xi u) / (1 - xi)."""
     x = genpareto.rvs(XI, scale=BETA, size=200_000, random_state=np.random.default_rng(1))
     u = np.array([0.0, 500.0, 2000.0])
-    table = mean_excess(x, u)
+    table = _mean_excess(x, u)
     reference = [genpareto.expect(lambda y, t=t: y - t, args=(XI,), scale=BETA, lb=t, conditional=True) for t in u]
     np.testing.assert_allclose(reference, (BETA + XI * u) / (1 - XI), rtol=1e-6)
     np.testing.assert_allclose(table["mean_excess"], reference, rtol=0.02)
@@ -36,11 +36,11 @@ def test_mean_excess_of_a_gpd_sample_follows_scipy():
 
 def test_mean_excess_by_definition_with_ties():
     x = np.array([1.0, 2.0, 2.0, 5.0])
-    table = mean_excess(x, np.array([0.0, 2.0, 5.0]))
+    table = _mean_excess(x, np.array([0.0, 2.0, 5.0]))
     assert table["exceedances"].tolist() == [4, 1, 0]
     assert table["mean_excess"].iloc[0] == pytest.approx(2.5) and table["mean_excess"].iloc[1] == pytest.approx(3.0)
     assert np.isnan(table["mean_excess"].iloc[2])
-    grid = threshold_grid(np.arange(100.0))
+    grid = _threshold_grid(np.arange(100.0))
     assert grid[0] == 0.0 and (np.arange(100.0) > grid[-1]).sum() >= MIN_EXCEEDANCES
 
 
@@ -50,14 +50,14 @@ def test_fit_above_a_threshold_recovers_the_tail():
     recalled from memory) and equals scipy's own fit to 1e-9."""
     rng = np.random.default_rng(4)
     x = np.concatenate([rng.uniform(0, 5000, 8000), 5000 + genpareto.rvs(XI, scale=BETA, size=2000, random_state=rng)])
-    fit = fit_tail(x, 5000.0)
+    fit = _fit_tail(x, 5000.0)
     assert fit.exceedances == 2000 and fit.share_of_losses == pytest.approx(0.2)
     assert fit.shape == pytest.approx(XI, abs=3 * (1 + XI) / np.sqrt(2000))
     assert fit.scale == pytest.approx(BETA, abs=3 * BETA * np.sqrt(2 * (1 + XI) / 2000))
     shape, _, scale = genpareto.fit(x[x > 5000] - 5000, floc=0)
     assert (fit.shape, fit.scale) == pytest.approx((shape, scale), rel=1e-9)
     with pytest.raises(InputError, match="leaves 0 losses above it"):
-        fit_tail(x, 1e12)
+        _fit_tail(x, 1e12)
 
 
 def claims_book(tmp_path) -> tuple:

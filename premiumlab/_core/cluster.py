@@ -100,12 +100,12 @@ def tasks_on(address: str | None) -> Iterator[TaskRunner]:
     if address is None:
         yield IN_PROCESS
         return
-    kind, where = parse_cluster(address)
+    _, where = parse_cluster(address)
     try:
         from distributed import Client, LocalCluster
     except ImportError:
         raise InputError("--cluster: Dask is not installed; pip install 'premiumlab[dask]'") from None
-    if kind == "local":
+    if isinstance(where, int):  # local:N, N worker processes; else a scheduler address
         with (
             LocalCluster(
                 n_workers=where,

@@ -6,7 +6,7 @@ matplotlib is imported lazily and only through its object interface (no pyplot, 
 from __future__ import annotations
 
 from pathlib import Path
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
@@ -42,7 +42,7 @@ def plain_axes(ax: Axes) -> None:
     ax.spines["right"].set_visible(False)
 
 
-def level_ticks(ax: Axes, positions: np.ndarray, labels: list[str], **text: object) -> None:
+def level_ticks(ax: Axes, positions: np.ndarray, labels: list[str], **text: Any) -> None:
     """One tick per level; slanted when there are many levels or long labels."""
     ax.set_xticks(positions)
     slanted = len(labels) > 8 or max(len(label) for label in labels) > 6

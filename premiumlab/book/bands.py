@@ -11,18 +11,56 @@ from rating_tables.table import band_labels as labels_of_bands
 def band_labels(edges: np.ndarray | tuple[float, ...]) -> list[str]:
     """Labels of the bands cut by interior `edges`: [-inf, e0), [e0, e1), ..., [e_last, inf), as the
     filed rating tables write them (`rating_tables.table.band_label`: edges as exact text, e.g.
-    "[21, 25)", "[-inf, 21)", "[1234567, 1234568)")."""
+    "[21, 25)", "[-inf, 21)", "[1234567, 1234568)").
+
+    Parameters
+    ----------
+    edges : ndarray or tuple of float
+        Interior band edges, ascending, in the factor's own unit; the outer edges -inf and inf are
+        added here.
+
+    Returns
+    -------
+    list of str
+        len(edges) + 1 labels, lowest band first.
+    """
     full = np.concatenate([[-np.inf], np.asarray(edges, dtype=float), [np.inf]])
     return labels_of_bands(full[:-1], full[1:])
 
 
 def assign_bands(values: np.ndarray, edges: np.ndarray | tuple[float, ...]) -> np.ndarray:
-    """Band index of each value: number of interior edges <= value (0 .. len(edges))."""
+    """Band index of each value: number of interior edges <= value (0 .. len(edges)).
+
+    Parameters
+    ----------
+    values : ndarray
+        Values of a numeric factor, in the unit of `edges`.
+    edges : ndarray or tuple of float
+        Interior band edges, ascending; a value equal to an edge falls in the band above it.
+
+    Returns
+    -------
+    ndarray of int
+        The band index of each value, 0 for the band below the first edge.
+    """
     return np.searchsorted(np.asarray(edges, dtype=float), np.asarray(values, dtype=float), side="right")
 
 
 def banded(values: np.ndarray, edges: np.ndarray | tuple[float, ...]) -> pd.Categorical:
-    """Values as an ordered pandas Categorical of band labels."""
+    """Values as an ordered pandas Categorical of band labels.
+
+    Parameters
+    ----------
+    values : ndarray
+        Values of a numeric factor, in the unit of `edges`.
+    edges : ndarray or tuple of float
+        Interior band edges, ascending (`assign_bands`).
+
+    Returns
+    -------
+    pandas.Categorical
+        Ordered, with every band's label (`band_labels`) as a category, used or not.
+    """
     labels = band_labels(edges)
     return pd.Categorical.from_codes(assign_bands(values, edges), categories=labels, ordered=True)
 
@@ -35,6 +73,21 @@ def quantile_edges(values: np.ndarray, weights: np.ndarray, n_bands: int) -> np.
     k/n_bands of the weight. Weights are summed per distinct value first, so rows or their distinct
     values with summed weights give the same edges, whatever their order. Coinciding edges (heavy
     ties) collapse, giving fewer bands; no band is empty.
+
+    Parameters
+    ----------
+    values : ndarray
+        Values of a numeric factor (rows, or distinct values), without NaN.
+    weights : ndarray
+        Weight of each value, >= 0 with a positive total: its exposure (exposure units,
+        policy-years by default).
+    n_bands : int
+        Bands wanted (>= 1); fewer come back when ties make edges coincide.
+
+    Returns
+    -------
+    ndarray of float
+        The distinct interior edges, ascending, each above the smallest value (at most n_bands - 1).
     """
     uniq, inv = np.unique(np.asarray(values, dtype=float), return_inverse=True)
     w = np.bincount(inv.ravel(), weights=np.asarray(weights, dtype=float), minlength=len(uniq))

@@ -29,6 +29,27 @@ def cut_levels(f: Factor, values: np.ndarray, exposure: np.ndarray, source: str)
 
     Numeric: the spec's edges, else exposure-quantile edges (`n_bands`). Categorical: the spec's
     `levels` order, else levels sorted as strings. Base: the spec's `base`, else the largest exposure.
+
+    Parameters
+    ----------
+    f : Factor
+        The factor as the spec gives it.
+    values : ndarray
+        Its values: float for a numeric factor, strings for a categorical one.
+    exposure : ndarray
+        Exposure of each value (exposure units, policy-years by default), aligned with `values`.
+    source : str
+        The spec file, named in the error for a `base` that is not a level or band.
+
+    Returns
+    -------
+    Levels
+        Labels in order, the base label and, for a numeric factor, the interior band edges.
+
+    Raises
+    ------
+    InputError
+        When the spec's `base` is not one of the factor's levels or band labels.
     """
     if f.type == "numeric":
         edges = np.asarray(f.bands) if f.bands is not None else quantile_edges(values, exposure, f.n_bands)
@@ -51,7 +72,22 @@ def cut_levels(f: Factor, values: np.ndarray, exposure: np.ndarray, source: str)
 
 
 def factor_levels(book: Book, spec: Spec, train: np.ndarray) -> dict[str, Levels]:
-    """Bands and level orders per factor (`cut_levels`), fixed on the training rows."""
+    """Bands and level orders per factor (`cut_levels`), fixed on the training rows.
+
+    Parameters
+    ----------
+    book : Book
+        The typed book.
+    spec : Spec
+        The pricing spec: its factors, in order.
+    train : ndarray of bool
+        True for the training rows, one per book row.
+
+    Returns
+    -------
+    dict of str to Levels
+        The levels of each factor by name, in spec order.
+    """
     return {
         f.name: cut_levels(f, book.frame[f.name].to_numpy()[train], book.exposure[train], spec.source)
         for f in spec.factors
@@ -59,7 +95,21 @@ def factor_levels(book: Book, spec: Spec, train: np.ndarray) -> dict[str, Levels
 
 
 def categorise(book_frame: pd.DataFrame, levels: dict[str, Levels]) -> pd.DataFrame:
-    """Factor columns as ordered Categoricals of band or level labels."""
+    """Factor columns as ordered Categoricals of band or level labels.
+
+    Parameters
+    ----------
+    book_frame : pandas.DataFrame
+        The factor columns of a typed book (`Book.frame`), numeric factors as floats.
+    levels : dict of str to Levels
+        The cut of each factor to categorise (`factor_levels`); the columns come out in its order.
+
+    Returns
+    -------
+    pandas.DataFrame
+        One ordered Categorical column per factor of `levels`, every label a category; a
+        categorical value outside the factor's levels becomes missing.
+    """
     cols = {}
     for name, lv in levels.items():
         values = book_frame[name].to_numpy()

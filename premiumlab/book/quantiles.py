@@ -21,7 +21,7 @@ LEVELS = 64 // BITS
 _SIGN = np.uint64(1 << 63)
 
 
-def sortable_keys(values: np.ndarray) -> np.ndarray:
+def _sortable_keys(values: np.ndarray) -> np.ndarray:
     """uint64 keys ordered as the float64 values (-0.0 counts as 0.0; NaN must be absent)."""
     bits = (np.asarray(values, dtype=np.float64) + 0.0).view(np.uint64)
     return np.where(bits & _SIGN, ~bits, bits | _SIGN)
@@ -41,7 +41,7 @@ def _histograms(chunks: Chunks, prefixes: set[int], level: int) -> dict[int, np.
     shift = np.uint64(64 - BITS * (level + 1))
     out = {p: np.zeros(BINS) for p in prefixes}
     for values, weights in chunks():
-        keys = sortable_keys(values)
+        keys = _sortable_keys(values)
         weights = np.asarray(weights, dtype=float)
         digit = ((keys >> shift) & np.uint64(BINS - 1)).astype(np.intp)
         high = keys >> np.uint64(64 - BITS * level) if level else None
@@ -52,7 +52,27 @@ def _histograms(chunks: Chunks, prefixes: set[int], level: int) -> dict[int, np.
 
 
 def book_quantile_edges(chunks: Chunks, n_bands: int) -> np.ndarray:
-    """`bands.quantile_edges` of all the chunks' values and weights, in five passes (module doc)."""
+    """`bands.quantile_edges` of all the chunks' values and weights, in five passes (module doc).
+
+    Parameters
+    ----------
+    chunks : callable
+        Called once per pass, with no argument; gives (values, weights) array pairs, the same at
+        every call: a numeric factor's values (without NaN) and their exposure (exposure units,
+        >= 0).
+    n_bands : int
+        Bands wanted (>= 1), as for `bands.quantile_edges`.
+
+    Returns
+    -------
+    ndarray of float
+        The interior edges `bands.quantile_edges` gives on all the values and weights at once.
+
+    Raises
+    ------
+    ValueError
+        When the weights sum to zero.
+    """
     targets = np.arange(1, n_bands) / n_bands
     prefix = [0] * len(targets)  # the settled high bits of each target's key
     below = [0.0] * len(targets)  # the weight of the keys below that prefix
@@ -81,7 +101,7 @@ def _edges_above(chunks: Chunks, keys: list[int]) -> np.ndarray:
     found = np.zeros(len(keys), dtype=bool)
     lowest = None
     for values, _ in chunks():
-        chunk_keys = np.sort(sortable_keys(values))
+        chunk_keys = np.sort(_sortable_keys(values))
         if chunk_keys.size == 0:
             continue
         lowest = chunk_keys[0] if lowest is None else min(lowest, chunk_keys[0])
@@ -91,5 +111,6 @@ def _edges_above(chunks: Chunks, keys: list[int]) -> np.ndarray:
         better = here & (candidate < nxt)
         nxt[better] = candidate[better]
         found |= here
+    assert lowest is not None  # the weights sum to more than zero (pass 1), so some chunk has values
     edges = np.unique([_from_key(int(n if f else w)) for n, f, w in zip(nxt, found, wanted)])
     return edges[edges > _from_key(int(lowest))]

@@ -23,7 +23,23 @@ CHUNK_ROWS = 500_000
 def book_parts(path: Path) -> tuple[str, list[Path]]:
     """(kind, files in name order) of the book at `path`: `csv` or `parquet`, and the book file itself
     or the parts of a book folder, by the one set of rules in `rating_tables.books` (`.csv`,
-    `.parquet` and `.pq`; a folder's parts of one kind, hidden entries skipped)."""
+    `.parquet` and `.pq`; a folder's parts of one kind, hidden entries skipped).
+
+    Parameters
+    ----------
+    path : Path
+        A book file or a folder of book parts.
+
+    Returns
+    -------
+    tuple of (str, list of Path)
+        The kind, "csv" or "parquet", and the files to read in order.
+
+    Raises
+    ------
+    InputError
+        When `path` is not a book by those rules (the `TableError` message, unchanged).
+    """
     try:
         return rating_tables.books.book_parts(path)
     except TableError as e:
@@ -31,7 +47,18 @@ def book_parts(path: Path) -> tuple[str, list[Path]]:
 
 
 def book_sha256(path: str | Path) -> str:
-    """sha256 over the bytes of the book file (or its parts in name order)."""
+    """sha256 over the bytes of the book file (or its parts in name order).
+
+    Parameters
+    ----------
+    path : str or Path
+        A book file or a folder of book parts (`book_parts`).
+
+    Returns
+    -------
+    str
+        The hex digest of the bytes of every file, one after the other.
+    """
     h = hashlib.sha256()
     for part in book_parts(Path(path))[1]:
         with open(part, "rb") as fh:
@@ -41,12 +68,36 @@ def book_sha256(path: str | Path) -> str:
 
 
 def unreadable_parquet(path: str | Path, error: Exception) -> InputError:
-    """The error for a Parquet file pyarrow cannot read (it raises several types for damaged files)."""
+    """The error for a Parquet file pyarrow cannot read (it raises several types for damaged files).
+
+    Parameters
+    ----------
+    path : str or Path
+        The Parquet file.
+    error : Exception
+        What pyarrow raised; its type and message go into the line.
+
+    Returns
+    -------
+    InputError
+        The error to raise, one line naming the file.
+    """
     return InputError(f"{path}: not a readable Parquet file ({type(error).__name__}: {error})")
 
 
 def read_columns(path: str | Path) -> list[str]:
-    """The column names of a book, read from the header or Parquet schema of its first file."""
+    """The column names of a book, read from the header or Parquet schema of its first file.
+
+    Parameters
+    ----------
+    path : str or Path
+        A book file or a folder of book parts (`book_parts`).
+
+    Returns
+    -------
+    list of str
+        The column names in file order.
+    """
     kind, files = book_parts(Path(path))
     return _part_columns(kind, files[0])
 
@@ -75,7 +126,29 @@ def _read_csv(path: Path, **kwargs) -> pd.DataFrame | Iterator[pd.DataFrame]:
 
 def iter_book(path: str | Path, columns: list[str], chunk_rows: int = CHUNK_ROWS) -> Iterator[tuple[int, pd.DataFrame]]:
     """Yield (first row index, chunk) over the book; CSV values come as strings. A file (or part of
-    a book folder) that lacks one of `columns` is refused by name."""
+    a book folder) that lacks one of `columns` is refused by name.
+
+    Parameters
+    ----------
+    path : str or Path
+        A book file or a folder of book parts (`book_parts`).
+    columns : list of str
+        The columns to keep, in this order.
+    chunk_rows : int
+        Most rows in a chunk (CHUNK_ROWS by default); a chunk never spans two files.
+
+    Yields
+    ------
+    tuple of (int, pandas.DataFrame)
+        The 0-based book row of the chunk's first row, and the chunk with `columns` only and a
+        fresh 0-based index.
+
+    Raises
+    ------
+    InputError
+        For a missing column, a file that is not UTF-8 or malformed CSV, or an unreadable Parquet
+        file.
+    """
     offset = 0
     kind, parts = book_parts(Path(path))
     for part in parts:

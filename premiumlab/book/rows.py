@@ -100,7 +100,20 @@ class FindingCollector:
 
 
 def to_number(values: pd.Series) -> tuple[np.ndarray, np.ndarray]:
-    """(float values, mask of present-but-not-numeric entries); blanks become NaN, unmasked."""
+    """(float values, mask of present-but-not-numeric entries); blanks become NaN, unmasked.
+
+    Parameters
+    ----------
+    values : pandas.Series
+        One column of a chunk: text (CSV) or numbers (Parquet). Text is stripped; "nan" in any
+        case reads as NaN and is not flagged.
+
+    Returns
+    -------
+    tuple of (ndarray, ndarray)
+        The values as float64 (NaN where blank, missing or not a number) and a bool mask, True
+        where an entry is present but not a number.
+    """
     if pd.api.types.is_numeric_dtype(values) and not pd.api.types.is_bool_dtype(values):
         return values.to_numpy(dtype=float, na_value=np.nan), np.zeros(len(values), dtype=bool)
     text = values.astype("string").str.strip()
@@ -115,6 +128,16 @@ def as_text(values: pd.Series) -> np.ndarray:
 
     The text is made once per distinct value and shared by its rows, so a factor with few levels
     costs one pointer per row however long the book is.
+
+    Parameters
+    ----------
+    values : pandas.Series
+        One column of a chunk: text, integers or floats.
+
+    Returns
+    -------
+    ndarray of object
+        The stripped text of each value, "" where it is missing.
     """
     codes, uniques = pd.factorize(values, use_na_sentinel=True)
     if pd.api.types.is_float_dtype(values):
@@ -137,7 +160,26 @@ class TypedChunk:
 
 
 def check_chunk(chunk: pd.DataFrame, offset: int, spec: Spec, out: FindingCollector) -> TypedChunk:
-    """Type one chunk and record its row-level findings."""
+    """Type one chunk and record its row-level findings.
+
+    Parameters
+    ----------
+    chunk : pandas.DataFrame
+        Rows of the book with the spec's columns (`iter_book`).
+    offset : int
+        The 0-based book row of the chunk's first row, so that findings name book rows.
+    spec : Spec
+        The pricing spec: its columns and factors.
+    out : FindingCollector
+        Receives the chunk's findings (errors and warnings per column and check).
+
+    Returns
+    -------
+    TypedChunk
+        Exposure (exposure units), claim count, claim amount and current premium (money) as
+        float64, numeric factors as float64 and categorical factors, policy ids and periods as
+        text; the optional columns None when the spec does not name them.
+    """
     c = spec.columns
     expo, bad = to_number(chunk[c.exposure])
     out.add("error", c.exposure, "with a non-numeric exposure", bad, offset)
@@ -206,11 +248,13 @@ def check_chunk(chunk: pd.DataFrame, offset: int, spec: Spec, out: FindingCollec
     factors: dict[str, np.ndarray] = {}
     for f in spec.factors:
         factors[f.name] = _check_factor(chunk[f.name], f, offset, out)
-    policy = as_text(chunk[c.policy_id]) if c.policy_id else None
-    if policy is not None:
+    policy: np.ndarray | None = None
+    if c.policy_id:
+        policy = as_text(chunk[c.policy_id])
         out.add("error", c.policy_id, "with a missing policy id", policy == "", offset)
-    period = as_text(chunk[c.period]) if c.period else None
-    if period is not None:
+    period: np.ndarray | None = None
+    if c.period:
+        period = as_text(chunk[c.period])
         out.add("error", c.period, "with a missing period", period == "", offset)
     return TypedChunk(expo, count, amount, premium, factors, policy, period)
 

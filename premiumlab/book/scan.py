@@ -157,11 +157,11 @@ class _Tally:
                 (low, high), (their_low, their_high) = self.spread[f.name], later.spread[f.name]
                 self.spread[f.name] = (min(low, their_low), max(high, their_high))
         for key, pairs in self.pairs.items():
-            theirs = later.pairs[key]
+            their_pairs = later.pairs[key]
             self.pairs[key] = (
                 None
-                if pairs is None or theirs is None
-                else _one_to_one(pd.concat([pairs, theirs], ignore_index=True).drop_duplicates(ignore_index=True))
+                if pairs is None or their_pairs is None
+                else _one_to_one(pd.concat([pairs, their_pairs], ignore_index=True).drop_duplicates(ignore_index=True))
             )
         for keys in later.seen_keys:
             for seen in self.seen_keys:
@@ -212,6 +212,7 @@ def _repeated_keys(path: Path, spec: Spec, candidates: np.ndarray) -> np.ndarray
     """Rows repeating an earlier (policy, period) pair, confirmed on the text of the rows whose
     key hash is among `candidates` (a second read of the two columns; hashes can collide)."""
     c = spec.columns
+    assert c.policy_id is not None and c.period is not None  # keys are hashed only when both are named
     rows, policy, period = [], [], []
     for off, chunk in iter_book(path, [c.policy_id, c.period]):
         p, t = as_text(chunk[c.policy_id]), as_text(chunk[c.period])
@@ -228,7 +229,7 @@ def _book_checks(tally: _Tally, path: Path, out: FindingCollector) -> None:
     spec, c = tally.spec, tally.spec.columns
     if tally.totals[2] == 0:
         out.note("error", c.claim_count, f"the book has no claims (column '{c.claim_count}' sums to 0)")
-    if tally.repeat_hashes:
+    if tally.repeat_hashes and c.policy_id is not None:  # keys are hashed only with a policy and a period
         rows = _repeated_keys(path, spec, np.concatenate(tally.repeat_hashes))
         out.add_rows("error", c.policy_id, f"repeating an earlier ('{c.policy_id}', '{c.period}') pair", rows)
     for f in spec.factors:
@@ -274,16 +275,38 @@ def _concat(parts: list[TypedChunk]) -> TypedChunk:
 
     factors = {k: cat([p.factors for p in parts], k) for k in list(parts[0].factors)}
     return TypedChunk(
-        *(cat(parts, name) for name in ("exposure", "count", "amount", "premium")),
-        factors,
-        cat(parts, "policy"),
-        cat(parts, "period"),
+        exposure=cat(parts, "exposure"),
+        count=cat(parts, "count"),
+        amount=cat(parts, "amount"),
+        premium=cat(parts, "premium"),
+        factors=factors,
+        policy=cat(parts, "policy"),
+        period=cat(parts, "period"),
     )
 
 
 def parquet_slices(path: str | Path, chunk_rows: int = CHUNK_ROWS) -> list[tuple[str, list[int], int]]:
     """(file, row groups, first row) of each slice of about `chunk_rows` rows of a Parquet book (a
-    file or a folder of parts), in book order; a slice never splits a row group."""
+    file or a folder of parts), in book order; a slice never splits a row group.
+
+    Parameters
+    ----------
+    path : str or Path
+        A Parquet book: a file or a folder of parts (`book_parts`).
+    chunk_rows : int
+        Rows a slice reaches before it is closed (CHUNK_ROWS by default); a slice ends at the
+        first row group that takes it to `chunk_rows` rows or more, or at the end of its file.
+
+    Returns
+    -------
+    list of tuple of (str, list of int, int)
+        Per slice: the file, its row-group indices, and the 0-based book row of its first row.
+
+    Raises
+    ------
+    InputError
+        For a CSV book (a cluster reads Parquet only) or an unreadable Parquet file.
+    """
     import pyarrow.parquet as pq
 
     slices, offset = [], 0
@@ -330,6 +353,31 @@ def scan_book(
     Without the rows, memory stays about one chunk plus the distinct levels and 8 bytes a row for
     the (policy, period) keys when a period column is named. With a `runner` (and no rows kept),
     the slices of a Parquet book are checked as its tasks and their tallies merged in book order.
+
+    Parameters
+    ----------
+    path : str or Path
+        A book file or a folder of book parts.
+    spec : Spec
+        The pricing spec: the columns and factors to read and check.
+    keep_rows : bool
+        Keep the typed rows (True, for `load_book`) or only the sums (False, for `validate`).
+    chunk_rows : int
+        Most rows read at once (CHUNK_ROWS by default), or the slice size on a cluster.
+    runner : TaskRunner or None
+        Where to check the slices of a Parquet book when `keep_rows` is False; None reads the
+        book here, chunk by chunk.
+
+    Returns
+    -------
+    tuple of (TypedChunk or None, BookSummary, list of Finding)
+        The typed book (None with `keep_rows=False`); the rows, exposure, claims and amount summed
+        over the book and per level or band; every finding, errors and warnings, in book order.
+
+    Raises
+    ------
+    InputError
+        When a column the spec names is missing, the book has no rows or cannot be read.
     """
     p = Path(path)
     header = read_columns(p)
@@ -364,11 +412,32 @@ def scan_book(
 
 
 def load_book(path: str | Path, spec: Spec) -> Book:
-    """Read, check and type a book; the first error stops with `InputError` (exit 2)."""
+    """Read, check and type a book; the first error stops with `InputError` (exit 2).
+
+    Parameters
+    ----------
+    path : str or Path
+        A book file or a folder of book parts.
+    spec : Spec
+        The pricing spec: columns, factors and the holdout split.
+
+    Returns
+    -------
+    Book
+        The typed rows, each row's policy id (its 0-based row number as text when the spec names
+        no policy column), the holdout flags (`holdout_flags`, by `split.seed` and
+        `split.holdout`), the book's sha256 and its warnings.
+
+    Raises
+    ------
+    InputError
+        With the message of the first error finding, or when the book cannot be read.
+    """
     typed, _, findings = scan_book(path, spec)
     errors = [f for f in findings if f.level == "error"]
     if errors:
         raise InputError(errors[0].message)
+    assert typed is not None  # scan_book keeps the rows by default
     n = len(typed.exposure)
     policy = typed.policy if typed.policy is not None else np.arange(n).astype(str).astype(object)
     frame = pd.DataFrame({f.name: typed.factors[f.name] for f in spec.factors})
@@ -392,7 +461,25 @@ def with_quantile_bands(
     """Band the numeric factors that have no `bands`: their exposure-quantile edges over the whole
     book (`book_quantiles`: five reads of the factor and the exposure, memory independent of the
     distinct values), then their sums per band in one more read. Returns the spec with those
-    edges as the factors' bands, and the summary with their sums."""
+    edges as the factors' bands, and the summary with their sums.
+
+    Parameters
+    ----------
+    path : str or Path
+        The book the summary was made from.
+    spec : Spec
+        The pricing spec.
+    summary : BookSummary
+        The sums of a scan of the book (`scan_book`).
+    chunk_rows : int
+        Most rows read at once (CHUNK_ROWS by default).
+
+    Returns
+    -------
+    tuple of (Spec, BookSummary)
+        The spec with every numeric factor banded and the summary with sums per band for the
+        factors banded here; both unchanged when every numeric factor has `bands`.
+    """
     unbanded = [f for f in spec.factors if f.type == "numeric" and f.bands is None]
     if not unbanded:
         return spec, summary
@@ -402,10 +489,11 @@ def with_quantile_bands(
         for _, chunk in iter_book(path, [name, c.exposure], chunk_rows):
             yield to_number(chunk[name])[0], _usable_exposure(to_number(chunk[c.exposure])[0])
 
+    edges: dict[str, tuple[float, ...]] = {}
     banded_factors = {}
     for f in unbanded:
-        edges = book_quantile_edges(partial(values_and_exposure, f.name), f.n_bands)
-        banded_factors[f.name] = replace(f, bands=tuple(float(e) for e in edges))
+        edges[f.name] = tuple(float(e) for e in book_quantile_edges(partial(values_and_exposure, f.name), f.n_bands))
+        banded_factors[f.name] = replace(f, bands=edges[f.name])
     banded = replace(spec, factors=tuple(banded_factors.get(f.name, f) for f in spec.factors))
     levels = dict(summary.levels)
     sums = {name: _no_sums(f) for name, f in banded_factors.items()}
@@ -413,8 +501,10 @@ def with_quantile_bands(
     for _, chunk in iter_book(path, columns, chunk_rows):
         amount = to_number(chunk[c.claim_amount])[0] if c.claim_amount else None
         weights = _row_weights(to_number(chunk[c.exposure])[0], to_number(chunk[c.claim_count])[0], amount)
-        for name, f in banded_factors.items():
-            sums[name].sums += _sums_by(assign_bands(to_number(chunk[name])[0], f.bands), weights, len(f.bands) + 1)
+        for name, factor_edges in edges.items():
+            sums[name].sums += _sums_by(
+                assign_bands(to_number(chunk[name])[0], factor_edges), weights, len(factor_edges) + 1
+            )
     levels.update(sums)
     return banded, replace(summary, levels=levels)
 
@@ -422,7 +512,27 @@ def with_quantile_bands(
 def profile(summary: BookSummary, spec: Spec) -> dict[str, pd.DataFrame]:
     """Exposure, claims, amount, frequency (claims/exposure), severity (amount/claims) and loss cost
     (amount/exposure) per level or band, and overall; bands and levels cut as `cut_levels` does on
-    the whole book (every numeric factor banded: give the spec `with_quantile_bands` returns)."""
+    the whole book (every numeric factor banded: give the spec `with_quantile_bands` returns).
+
+    Parameters
+    ----------
+    summary : BookSummary
+        The book's sums per level or band (`scan_book`, then `with_quantile_bands`).
+    spec : Spec
+        The pricing spec with every numeric factor banded.
+
+    Returns
+    -------
+    dict of str to pandas.DataFrame
+        "(overall)" (one row, "all") and one table per factor indexed by its levels or bands in
+        order, with columns exposure (exposure units), claims, amount (money; NaN without a claim
+        amount column), frequency, severity and loss_cost; a level or band without rows is NaN.
+
+    Raises
+    ------
+    InputError
+        When the spec's `base` of a factor is not one of its levels or bands (`cut_levels`).
+    """
     has_amount = spec.columns.claim_amount is not None
     out = {"(overall)": _profile_table(summary.totals[None, :], pd.Index(["all"]), has_amount)}
     for f in spec.factors:

@@ -11,6 +11,21 @@ def holdout_flags(policy: np.ndarray, seed: int, holdout: float) -> np.ndarray:
 
     The hash depends only on the policy id and the seed, so a policy's rows stay together and the split
     does not change with chunking or row order.
+
+    Parameters
+    ----------
+    policy : ndarray
+        The policy id of each row (as text).
+    seed : int
+        The split's seed (`split.seed`); written as 16 decimal digits (zero-padded, the last 16
+        of a longer one), it is the hash key.
+    holdout : float
+        Share of policies held out, in [0, 1); 0 or less holds none out.
+
+    Returns
+    -------
+    ndarray of bool
+        True for the rows of held-out policies.
     """
     if holdout <= 0:
         return np.zeros(len(policy), dtype=bool)

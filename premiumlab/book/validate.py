@@ -59,7 +59,29 @@ def validate_book(book_path: str | Path, spec_path: str | Path, cluster: str | N
     """Scan the whole book and report every finding; profile it when it has no errors.
 
     `cluster` (premiumlab.cluster: local:N or a Dask scheduler address): check the slices of a
-    Parquet book on Dask workers, which must see the book at the same path."""
+    Parquet book on Dask workers, which must see the book at the same path.
+
+    Parameters
+    ----------
+    book_path : str or Path
+        A book file or a folder of book parts.
+    spec_path : str or Path
+        The pricing spec (TOML).
+    cluster : str or None
+        local:N or a Dask scheduler address; None checks the book in this process.
+
+    Returns
+    -------
+    ValidationReport
+        Every finding; the rows read; the profile (`scan.profile`) when no finding is an error,
+        else None. A missing column gives one error finding per column, and no rows.
+
+    Raises
+    ------
+    InputError
+        For a spec or book that cannot be read, a bad `cluster` address, a CSV book with a
+        cluster, or a cluster that cannot be reached.
+    """
     if cluster is not None:
         parse_cluster(cluster)
     spec: Spec = load_spec(spec_path)

@@ -1,7 +1,7 @@
 """Figures as PNG files: lift, double lift, ordered Lorenz curves, actual-versus-expected by factor
 level, the cross-validation curve, and the dislocation of a rate change.
 
-Each function takes tables already computed by `premiumlab.metrics` (or the CV table of the boosted
+Each function takes tables already computed by `premiumlab.evaluation.metrics` (or the CV table of the boosted
 model, or an impact result) and an output path, draws with matplotlib's Agg canvas (imported lazily, no pyplot and so no
 global state) and returns the path. Every figure carries the review caution as a footer.
 """
@@ -10,7 +10,7 @@ from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
 from pathlib import Path
-from typing import TYPE_CHECKING
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -25,9 +25,6 @@ from premiumlab._core.plotting import (
     plain_axes,
     save_figure,
 )
-
-if TYPE_CHECKING:
-    pass
 
 
 def _require_columns(table: pd.DataFrame, columns: Sequence[str], what: str) -> None:
@@ -45,7 +42,23 @@ def plot_lift(
     tables: Mapping[str, pd.DataFrame], path: str | Path, *, title: str = "Lift by equal-exposure bins"
 ) -> Path:
     """One panel per model: mean actual and mean predicted per exposure unit against the bin of
-    that model's prediction (tables from `metrics.lift_table`)."""
+    that model's prediction (tables from `metrics.lift_table`).
+
+    Parameters
+    ----------
+    tables : mapping of str to pandas.DataFrame
+        Per model name, its lift table (`bin`, `mean_actual`, `mean_predicted`), one panel each in
+        this order.
+    path : str or Path
+        The PNG file to write; its folder must exist.
+    title : str
+        The figure's title.
+
+    Returns
+    -------
+    Path
+        `path`, written.
+    """
     _require_models(tables, "plot_lift")
     for name, table in tables.items():
         _require_columns(table, ["bin", "mean_actual", "mean_predicted"], f"lift table of {name}")
@@ -66,7 +79,22 @@ def plot_lift(
 
 def plot_double_lift(table: pd.DataFrame, path: str | Path, *, name_a: str, name_b: str) -> Path:
     """Actual, model a and model b as indices to their own overall means against the bin of
-    pred_a / pred_b (table from `metrics.double_lift`); the flatter mismatch ranks better."""
+    pred_a / pred_b (table from `metrics.double_lift`); the flatter mismatch ranks better.
+
+    Parameters
+    ----------
+    table : pandas.DataFrame
+        The double lift table (`bin`, `actual_index`, `a_index`, `b_index`).
+    path : str or Path
+        The PNG file to write; its folder must exist.
+    name_a, name_b : str
+        The names of models a and b, for the labels.
+
+    Returns
+    -------
+    Path
+        `path`, written.
+    """
     _require_columns(table, ["bin", "actual_index", "a_index", "b_index"], "double lift table")
     fig = new_figure()
     ax = fig.subplots()
@@ -87,7 +115,22 @@ def plot_lorenz(
     curves: Mapping[str, pd.DataFrame], path: str | Path, *, ginis: Mapping[str, float] | None = None
 ) -> Path:
     """Ordered Lorenz curves of several models on one chart with the line of equality (curves from
-    `metrics.lorenz_curve`; `ginis` adds each model's Gini to its label)."""
+    `metrics.lorenz_curve`; `ginis` adds each model's Gini to its label).
+
+    Parameters
+    ----------
+    curves : mapping of str to pandas.DataFrame
+        Per model name, its ordered Lorenz curve (`exposure_share`, `loss_share`).
+    path : str or Path
+        The PNG file to write; its folder must exist.
+    ginis : mapping of str to float or None
+        Gini per model name, shown to three decimals; models not in it are labelled by name only.
+
+    Returns
+    -------
+    Path
+        `path`, written.
+    """
     _require_models(curves, "plot_lorenz")
     for name, curve in curves.items():
         _require_columns(curve, ["exposure_share", "loss_share"], f"Lorenz curve of {name}")
@@ -110,7 +153,23 @@ def plot_lorenz(
 
 def plot_actual_vs_expected(tables: Mapping[str, pd.DataFrame], path: str | Path, *, factor: str) -> Path:
     """Actual / expected per level of one factor, a line per model, over bars of exposure on a
-    second axis (tables from `metrics.actual_vs_expected`, same levels in the same order)."""
+    second axis (tables from `metrics.actual_vs_expected`, same levels in the same order).
+
+    Parameters
+    ----------
+    tables : mapping of str to pandas.DataFrame
+        Per model name, its A/E table (`level`, `exposure`, `actual_to_expected`); the exposure
+        bars come from the first.
+    path : str or Path
+        The PNG file to write; its folder must exist.
+    factor : str
+        The factor's name, for the axis and title.
+
+    Returns
+    -------
+    Path
+        `path`, written.
+    """
     _require_models(tables, "plot_actual_vs_expected")
     for name, table in tables.items():
         _require_columns(table, ["level", "exposure", "actual_to_expected"], f"A/E table of {name}")
@@ -150,7 +209,26 @@ def plot_cv_curve(
     sd: str = "sd_deviance",
 ) -> Path:
     """Mean cross-validated deviance with +-1 sd bars against a complexity measure, one point per
-    setting; the setting at row position `chosen` is marked."""
+    setting; the setting at row position `chosen` is marked.
+
+    Parameters
+    ----------
+    cv_table : pandas.DataFrame or sequence of mappings
+        One row per setting with the columns named by `complexity`, `mean` and `sd`.
+    path : str or Path
+        The PNG file to write; its folder must exist.
+    complexity : str
+        The column to plot along the x axis (e.g. the number of trees).
+    chosen : int
+        Row position (0-based) of the chosen setting.
+    mean, sd : str
+        The columns of the mean and standard deviation of the deviance over the folds.
+
+    Returns
+    -------
+    Path
+        `path`, written.
+    """
     table = pd.DataFrame(cv_table)
     _require_columns(table, [complexity, mean, sd], "CV table")
     if table.empty:
@@ -188,10 +266,27 @@ def plot_cv_curve(
     return save_figure(fig, path)
 
 
-def plot_impact(result: Mapping[str, object], path: str | Path, *, factor: str | None = None) -> Path:
+def plot_impact(result: Mapping[str, Any], path: str | Path, *, factor: str | None = None) -> Path:
     """Left: share of policies and of current premium in each change band; right: the
     premium-weighted mean change (sum proposed / sum current - 1) by level of `factor`, by default
-    the factor whose levels' changes spread widest (`result` from `rating_tables.impact`)."""
+    the factor whose levels' changes spread widest (`result` from `rating_tables.impact`).
+
+    Parameters
+    ----------
+    result : mapping
+        The impact summary as `rating_tables.impact` returns it (`ImpactResult.to_dict()`):
+        `bands`, `by_factor`, `policies` and `overall_change` are drawn.
+    path : str or Path
+        The PNG file to write; its folder must exist.
+    factor : str or None
+        The factor of the right panel; None for the one whose level changes have the widest
+        range (max - min), and no right panel when the result has no factor.
+
+    Returns
+    -------
+    Path
+        `path`, written.
+    """
     bands = pd.DataFrame(result["bands"])
     _require_columns(bands, ["band", "count_share", "premium_share"], "impact bands")
     by_factor = {name: pd.DataFrame(levels) for name, levels in result["by_factor"].items() if levels}

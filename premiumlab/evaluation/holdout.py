@@ -15,14 +15,43 @@ from premiumlab.models.targets import CLAIM_AMOUNT, CLAIM_COUNT, EXPOSURE, TARGE
 
 
 def target_view(preds: pd.DataFrame, target: str) -> tuple[pd.Series, np.ndarray, np.ndarray, np.ndarray]:
-    """(row mask, actual total, weight, actual per weight unit) of one target on the given rows."""
+    """(row mask, actual total, weight, actual per weight unit) of one target on the given rows.
+
+    Parameters
+    ----------
+    preds : pandas.DataFrame
+        Rows of `predictions.parquet`: exposure, claim count and (for severity and pure premium)
+        claim amount.
+    target : str
+        The target's name: "frequency", "severity" or "pure_premium".
+
+    Returns
+    -------
+    tuple of (pandas.Series, ndarray, ndarray, ndarray)
+        The target's rows as a bool Series on `preds`' index; then, on those rows, the numerator
+        (claims or money), the weight (exposure units or claims) and the label numerator / weight.
+    """
     amount = preds[CLAIM_AMOUNT].to_numpy(float) if TARGETS[target].needs_amount else None
     view = TARGETS[target].view(preds[EXPOSURE].to_numpy(float), preds[CLAIM_COUNT].to_numpy(float), amount)
     return pd.Series(view.rows, index=preds.index), view.numerator, view.weight, view.label
 
 
 def model_columns(preds: pd.DataFrame, target: str) -> list[str]:
-    """Prediction columns for a target: glm_/gbm_ target, plus freq x sev for pure premium."""
+    """Prediction columns for a target: glm_/gbm_ target, plus freq x sev for pure premium.
+
+    Parameters
+    ----------
+    preds : pandas.DataFrame
+        Rows of `predictions.parquet`.
+    target : str
+        The target's name: "frequency", "severity" or "pure_premium".
+
+    Returns
+    -------
+    list of str
+        Those of glm_TARGET, gbm_TARGET (and for pure premium glm_freq_x_sev, gbm_freq_x_sev)
+        that `preds` has, in that order.
+    """
     names = [f"{k}_{target}" for k in ("glm", "gbm")]
     if target == "pure_premium":
         names += ["glm_freq_x_sev", "gbm_freq_x_sev"]
@@ -30,7 +59,28 @@ def model_columns(preds: pd.DataFrame, target: str) -> list[str]:
 
 
 def holdout_metrics(preds: pd.DataFrame, tweedie_power: float) -> dict:
-    """Mean deviance, D^2, Gini and balance of every model column on the holdout rows."""
+    """Mean deviance, D^2, Gini and balance of every model column on the holdout rows.
+
+    Per target and model column, on the target's holdout rows with label y = numerator / weight,
+    weight w and prediction mu: mean deviance sum(w d(y, mu)) / sum(w) with the target's Tweedie
+    power; D^2 = 1 - D(y, mu) / D(y, ybar), ybar = sum(w y) / sum(w); the Gini of the numerator
+    ordered by mu (`metrics.gini`); balance sum(mu w) / sum(numerator).
+
+    Parameters
+    ----------
+    preds : pandas.DataFrame
+        Rows of `predictions.parquet`: the bool `holdout` column, exposure, claim count, claim
+        amount if the book has one, and the model columns.
+    tweedie_power : float
+        The GLM's Tweedie power, the deviance power of pure premium (frequency uses 1, severity 2).
+
+    Returns
+    -------
+    dict
+        Per target name (severity and pure premium only with a claim amount column): `power`,
+        `rows` (holdout rows of the target) and `models`, per model column `mean_deviance`, `d2`,
+        `gini` and `balance`.
+    """
     from premiumlab.evaluation.metrics import balance, gini
     from premiumlab.models.deviance import d2, mean_deviance
 

@@ -99,7 +99,24 @@ def _gini_batch(
 def lorenz_curve(actual: ArrayLike, predicted: ArrayLike, exposure: ArrayLike) -> pd.DataFrame:
     """Ordered Lorenz curve (Frees, Meyers and Cummings, 2011): rows sorted by predicted per exposure
     (ascending), tied predictions merged into one point. Columns `exposure_share` and `loss_share`
-    (cumulative shares in [0, 1]), first row (0, 0)."""
+    (cumulative shares in [0, 1]), first row (0, 0).
+
+    Parameters
+    ----------
+    actual : array_like
+        Observed loss of each row (money or claims), >= 0 with a positive total.
+    predicted : array_like
+        A model's prediction per exposure unit of each row; only its order matters.
+    exposure : array_like
+        Earned exposure of each row (exposure units), >= 0 with a positive total.
+
+    Returns
+    -------
+    pandas.DataFrame
+        `exposure_share` = cumulative exposure / total exposure and `loss_share` = cumulative
+        actual / total actual at the end of each run of tied predictions, lowest prediction first,
+        after a first row (0, 0).
+    """
     actual_arr, exposure_arr, predicted_arr = _checked_loss_inputs(actual, exposure, predicted=predicted)
     x, y = _lorenz_batch(np.ones((1, actual_arr.size)), actual_arr, predicted_arr, exposure_arr)
     return pd.DataFrame({"exposure_share": x[0], "loss_share": y[0]})
@@ -108,7 +125,23 @@ def lorenz_curve(actual: ArrayLike, predicted: ArrayLike, exposure: ArrayLike) -
 def gini(actual: ArrayLike, predicted: ArrayLike, exposure: ArrayLike) -> float:
     """Gini of the ordered Lorenz curve: 1 - 2 * trapezoid area under (exposure share, loss share),
     tied predictions merged (so the value does not depend on the order of ties). 0 for a constant
-    prediction; larger is better at separating low from high risks."""
+    prediction; larger is better at separating low from high risks.
+
+    Parameters
+    ----------
+    actual : array_like
+        Observed loss of each row (money or claims), >= 0 with a positive total.
+    predicted : array_like
+        A model's prediction per exposure unit of each row; only its order matters.
+    exposure : array_like
+        Earned exposure of each row (exposure units), >= 0 with a positive total.
+
+    Returns
+    -------
+    float
+        Gini = 1 - sum_i (x_i - x_(i-1)) (y_i + y_(i-1)) over the points (x, y) of `lorenz_curve`,
+        in [-1, 1] (unitless).
+    """
     actual_arr, exposure_arr, predicted_arr = _checked_loss_inputs(actual, exposure, predicted=predicted)
     return float(_gini_batch(np.ones((1, actual_arr.size)), actual_arr, predicted_arr, exposure_arr)[0])
 
@@ -153,6 +186,22 @@ def lift_table(actual: ArrayLike, predicted: ArrayLike, exposure: ArrayLike, bin
     `bin`, `policies`, `exposure`, `mean_predicted` = sum(predicted * exposure) / sum(exposure),
     `mean_actual` = sum(actual) / sum(exposure) (both per exposure unit), and `actual_to_overall` =
     mean_actual / (total actual / total exposure).
+
+    Parameters
+    ----------
+    actual : array_like
+        Observed loss of each row (money or claims), >= 0 with a positive total.
+    predicted : array_like
+        A model's prediction per exposure unit of each row (pure premium or frequency).
+    exposure : array_like
+        Earned exposure of each row (exposure units), >= 0 with a positive total.
+    bins : int
+        Number of equal-exposure bins, 1 to the number of rows.
+
+    Returns
+    -------
+    pandas.DataFrame
+        One row per bin with the columns above; the means are NaN in a bin without exposure.
     """
     actual_arr, exposure_arr, predicted_arr = _checked_loss_inputs(actual, exposure, predicted=predicted)
     _check_bins(bins, actual_arr.size)
@@ -182,6 +231,23 @@ def double_lift(
     likewise, where A is actual loss, E exposure and P_a = sum(pred_a * exposure), per bin k and in
     total. The model whose index tracks `actual_index` more closely ranks risks better.
     `mean_ratio` is the exposure-weighted mean of pred_a / pred_b in the bin.
+
+    Parameters
+    ----------
+    actual : array_like
+        Observed loss of each row (money or claims), >= 0 with a positive total.
+    pred_a, pred_b : array_like
+        The two models' predictions per exposure unit of each row, > 0 (their ratio orders rows).
+    exposure : array_like
+        Earned exposure of each row (exposure units), >= 0 with a positive total.
+    bins : int
+        Number of equal-exposure bins, 1 to the number of rows.
+
+    Returns
+    -------
+    pandas.DataFrame
+        One row per bin: `bin`, `policies`, `exposure`, `mean_ratio`, `actual_index`, `a_index`
+        and `b_index` (NaN in a bin without exposure).
     """
     actual_arr, exposure_arr, a_arr, b_arr = _checked_loss_inputs(actual, exposure, pred_a=pred_a, pred_b=pred_b)
     sorted_by_ratio = ABOVE_ZERO.because("double lift sorts by pred_a / pred_b")
@@ -226,6 +292,22 @@ def actual_vs_expected(
     sum(predicted * exposure) (same units as actual), `actual_to_expected` = actual / expected.
     Levels come in category order for a categorical series (unused categories left out),
     otherwise sorted; the series' name is used in error messages.
+
+    Parameters
+    ----------
+    actual : array_like
+        Observed loss of each row (money or claims), >= 0 with a positive total.
+    predicted : array_like
+        A model's prediction per exposure unit of each row (pure premium or frequency).
+    exposure : array_like
+        Earned exposure of each row (exposure units), >= 0 with a positive total.
+    levels : pandas.Series or array_like
+        The level or band of each row, none missing.
+
+    Returns
+    -------
+    pandas.DataFrame
+        One row per level present; `actual_to_expected` is NaN where `expected` is 0.
     """
     actual_arr, exposure_arr, predicted_arr = _checked_loss_inputs(actual, exposure, predicted=predicted)
     levels = levels if isinstance(levels, pd.Series) else pd.Series(levels)
@@ -255,7 +337,22 @@ def actual_vs_expected(
 
 
 def balance(actual: ArrayLike, predicted: ArrayLike, exposure: ArrayLike) -> float:
-    """Expected over actual in total: sum(predicted * exposure) / sum(actual) (1 = balanced)."""
+    """Expected over actual in total: sum(predicted * exposure) / sum(actual) (1 = balanced).
+
+    Parameters
+    ----------
+    actual : array_like
+        Observed loss of each row (money or claims), >= 0 with a positive total.
+    predicted : array_like
+        A model's prediction per exposure unit of each row (pure premium or frequency).
+    exposure : array_like
+        Earned exposure of each row (exposure units), >= 0 with a positive total.
+
+    Returns
+    -------
+    float
+        sum(predicted * exposure) / sum(actual) (unitless).
+    """
     actual_arr, exposure_arr, predicted_arr = _checked_loss_inputs(actual, exposure, predicted=predicted)
     return float(np.sum(predicted_arr * exposure_arr) / actual_arr.sum())
 
@@ -287,7 +384,7 @@ def _resample_counts(rng: np.random.Generator, units: int, resamples: int) -> np
     return np.bincount(flat, minlength=resamples * units).reshape(resamples, units)
 
 
-def paired_bootstrap(
+def _paired_bootstrap(
     metric_fn: BootstrapMetric,
     *arrays: np.ndarray,
     n_boot: int = 200,
@@ -366,10 +463,38 @@ def deviance_difference(
     groups: ArrayLike | None = None,
 ) -> BootstrapInterval:
     """mean_deviance(a) - mean_deviance(b) with a paired bootstrap interval (> 0: b fits better).
-    `groups` (e.g. policy ids) resamples whole groups of rows together."""
+    `groups` (e.g. policy ids) resamples whole groups of rows together.
+
+    The difference is sum(w (d(y, mu_a) - d(y, mu_b))) / sum(w), with d the Tweedie unit deviance
+    of `power` (`premiumlab.models.deviance.unit_deviance`); each resample weights the rows by how
+    often they (or their group) are drawn.
+
+    Parameters
+    ----------
+    y : array_like
+        Observed response per unit of weight (frequency, severity or pure premium).
+    mu_a, mu_b : array_like
+        The two models' predictions of y, in the family's domain.
+    weight : array_like
+        Row weights (exposure units or claims), >= 0 with a positive total.
+    power : float
+        Tweedie power of the deviance: 0, 1, 1 < p < 2, 2 or p > 2.
+    n_boot : int
+        Bootstrap resamples, >= 2.
+    seed : int
+        Seed of numpy's `default_rng` drawing the resamples.
+    groups : array_like or None
+        A group id per row (e.g. policy ids): whole groups are drawn; None draws rows.
+
+    Returns
+    -------
+    BootstrapInterval
+        The difference on the full sample, the 2.5 and 97.5 percentiles of the resampled
+        differences and the share of them above 0.
+    """
     y_arr, w_arr, mu_a_arr, mu_b_arr = checked_deviance_inputs(y, weight, power, mu_a=mu_a, mu_b=mu_b)
     unit_difference = unit_deviance_unchecked(y_arr, mu_a_arr, power) - unit_deviance_unchecked(y_arr, mu_b_arr, power)
-    return paired_bootstrap(
+    return _paired_bootstrap(
         _weighted_mean_difference, w_arr * unit_difference, w_arr, n_boot=n_boot, seed=seed, groups=groups
     )
 
@@ -397,9 +522,31 @@ def gini_difference(
     groups: ArrayLike | None = None,
 ) -> BootstrapInterval:
     """gini(a) - gini(b) with a paired bootstrap interval (> 0: a ranks risks better).
-    `groups` (e.g. policy ids) resamples whole groups of rows together."""
+    `groups` (e.g. policy ids) resamples whole groups of rows together.
+
+    Parameters
+    ----------
+    actual : array_like
+        Observed loss of each row (money or claims), >= 0 with a positive total.
+    pred_a, pred_b : array_like
+        The two models' predictions per exposure unit of each row.
+    exposure : array_like
+        Earned exposure of each row (exposure units), >= 0 with a positive total.
+    n_boot : int
+        Bootstrap resamples, >= 2.
+    seed : int
+        Seed of numpy's `default_rng` drawing the resamples.
+    groups : array_like or None
+        A group id per row (e.g. policy ids): whole groups are drawn; None draws rows.
+
+    Returns
+    -------
+    BootstrapInterval
+        The difference on the full sample, the 2.5 and 97.5 percentiles of the resampled
+        differences and the share of them above 0.
+    """
     actual_arr, exposure_arr, a_arr, b_arr = _checked_loss_inputs(actual, exposure, pred_a=pred_a, pred_b=pred_b)
-    return paired_bootstrap(
+    return _paired_bootstrap(
         _gini_difference_batch,
         actual_arr,
         a_arr,

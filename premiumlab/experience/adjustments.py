@@ -26,6 +26,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
+import numpy.typing as npt
 import pandas as pd
 
 from premiumlab._core.errors import InputError
@@ -39,18 +40,18 @@ _FALSE = ("0", "false", "no", "n", "f", "")
 # time and trend
 
 
-def year_fraction(day: dt.date) -> float:
+def _year_fraction(day: dt.date) -> float:
     """A date as a fractional year: year + (days since 1 January) / days in that year."""
     start = dt.date(day.year, 1, 1)
     days = (dt.date(day.year + 1, 1, 1) - start).days
     return day.year + (day - start).days / days
 
 
-def period_midpoint(label: str, given: Mapping[str, str]) -> float:
+def _period_midpoint(label: str, given: Mapping[str, str]) -> float:
     """Midpoint of a period as a fractional year: `given[label]` (a date) if listed, else a
     four-digit year label "2024" -> 2024.5; any other label must be listed."""
     if label in given:
-        return year_fraction(dt.date.fromisoformat(given[label]))
+        return _year_fraction(dt.date.fromisoformat(given[label]))
     if len(label) == 4 and label.isdigit():
         return int(label) + 0.5
     raise InputError(
@@ -61,21 +62,69 @@ def period_midpoint(label: str, given: Mapping[str, str]) -> float:
 
 def future_midpoint(exp: Experience, effective_date: str) -> float:
     """The future policy period's midpoint (fractional year): `future_midpoint`, else the table's
-    effective date plus half a term of `term_years`."""
+    effective date plus half a term of `term_years`.
+
+    Parameters
+    ----------
+    exp : Experience
+        The spec's [experience] section.
+    effective_date : str
+        The rating table's effective date (ISO, YYYY-MM-DD).
+
+    Returns
+    -------
+    float
+        The midpoint as a fractional year: year + (days since 1 January) / days in that year, plus
+        term_years / 2 when taken from the effective date.
+    """
     if exp.future_midpoint is not None:
-        return year_fraction(dt.date.fromisoformat(exp.future_midpoint))
-    return year_fraction(dt.date.fromisoformat(effective_date)) + exp.term_years / 2.0
+        return _year_fraction(dt.date.fromisoformat(exp.future_midpoint))
+    return _year_fraction(dt.date.fromisoformat(effective_date)) + exp.term_years / 2.0
 
 
-def years_to_future(exp: Experience, labels: Sequence[str], future: float) -> np.ndarray:
-    """Years from each period's midpoint to the future midpoint (zeros without a trend)."""
+def years_to_future(exp: Experience, labels: Sequence[str] | npt.NDArray[np.str_], future: float) -> np.ndarray:
+    """Years from each period's midpoint to the future midpoint (zeros without a trend).
+
+    Parameters
+    ----------
+    exp : Experience
+        The spec's [experience] section.
+    labels : sequence or ndarray of str
+        Period labels: four-digit years ("2024" -> 2024.5), or labels listed in
+        `period_midpoints`.
+    future : float
+        The future midpoint (fractional year, `future_midpoint`).
+
+    Returns
+    -------
+    ndarray of float
+        t = future - midpoint per label (years; negative for a period after the future midpoint).
+
+    Raises
+    ------
+    InputError
+        With a trend, for a label that is not a four-digit year and not in `period_midpoints`.
+    """
     if not exp.trend:
         return np.zeros(len(labels))
-    return future - np.array([period_midpoint(p, exp.period_midpoints) for p in labels], dtype=float)
+    return future - np.array([_period_midpoint(p, exp.period_midpoints) for p in labels], dtype=float)
 
 
 def trend_factor(years: np.ndarray, rate: float) -> np.ndarray:
-    """(1 + rate)^years: an annual rate compounded over `years` (negative years trend back)."""
+    """(1 + rate)^years: an annual rate compounded over `years` (negative years trend back).
+
+    Parameters
+    ----------
+    years : ndarray
+        Years to trend over (`years_to_future`).
+    rate : float
+        Annual trend rate (0.05 = 5 % a year), > -1.
+
+    Returns
+    -------
+    ndarray of float
+        The multiplier (1 + rate)^years per element of `years`.
+    """
     return np.power(1.0 + rate, np.asarray(years, dtype=float))
 
 
@@ -83,7 +132,7 @@ def trend_factor(years: np.ndarray, rate: float) -> np.ndarray:
 # large losses and loads
 
 
-def cap_losses(amount: np.ndarray, cap: float | None) -> tuple[np.ndarray, np.ndarray]:
+def _cap_losses(amount: np.ndarray, cap: float | None) -> tuple[np.ndarray, np.ndarray]:
     """(capped, excess): min(amount, cap) and amount - capped; no cap leaves amounts whole."""
     amount = np.asarray(amount, dtype=float)
     if cap is None:
@@ -92,7 +141,7 @@ def cap_losses(amount: np.ndarray, cap: float | None) -> tuple[np.ndarray, np.nd
     return capped, amount - capped
 
 
-def load_ratio(part: float, base: float) -> float:
+def _load_ratio(part: float, base: float) -> float:
     """part / base, the flat load that spreads `part` over losses totalling `base` (0 without either)."""
     return float(part / base) if base > 0 and part > 0 else 0.0
 
@@ -125,7 +174,7 @@ class Adjustment:
         return self.count_base * self.count_multiplier
 
 
-def adjust(
+def _adjust(
     exp: Experience,
     periods: np.ndarray,
     count: np.ndarray,
@@ -161,7 +210,7 @@ def adjust(
     else:
         units, unit_row, cat = claims.amount, claims.row, claims.catastrophe
     trended = units * sev_trend[code[unit_row]]
-    capped_units, excess_units = cap_losses(np.where(cat, 0.0, trended), exp.large_loss_cap)
+    capped_units, excess_units = _cap_losses(np.where(cat, 0.0, trended), exp.large_loss_cap)
     g = (dev * freq_trend)[code]
 
     def per_row(values: np.ndarray) -> np.ndarray:
@@ -173,9 +222,9 @@ def adjust(
     _check_counts(count_base, capped + excess, cat_claims)
 
     tr = np.asarray(train, dtype=bool)
-    measured_excess = load_ratio(excess[tr].sum(), capped[tr].sum())
+    measured_excess = _load_ratio(excess[tr].sum(), capped[tr].sum())
     excess_load = exp.excess_load_history if exp.excess_load_history is not None else measured_excess
-    cat_load = load_ratio(catastrophe[tr].sum(), (capped + excess)[tr].sum())
+    cat_load = _load_ratio(catastrophe[tr].sum(), (capped + excess)[tr].sum())
     adjusted = capped * (1.0 + excess_load) * (1.0 + cat_load)
     multiplier = (count_dev * freq_trend)[code]
     record = _record(exp, labels, code, years, dev, count_dev, sev_trend, freq_trend, future, development)
@@ -281,7 +330,19 @@ def _record(
 
 
 def applied(exp: Experience) -> list[str]:
-    """The adjustments the spec sets, in words."""
+    """The adjustments the spec sets, in words.
+
+    Parameters
+    ----------
+    exp : Experience
+        The spec's [experience] section.
+
+    Returns
+    -------
+    list of str
+        One phrase each for development, trend (with its rates), the large-loss cap and the
+        catastrophe load, in that order, for those set.
+    """
     out = []
     if exp.development:
         out.append(
@@ -300,7 +361,19 @@ def applied(exp: Experience) -> list[str]:
 
 
 def not_applied(exp: Experience) -> list[str]:
-    """The adjustments the spec does not set, in words."""
+    """The adjustments the spec does not set, in words.
+
+    Parameters
+    ----------
+    exp : Experience
+        The spec's [experience] section.
+
+    Returns
+    -------
+    list of str
+        One phrase each for development, trend, the large-loss cap and catastrophes, in that
+        order, for those not set.
+    """
     out = []
     if not exp.development:
         out.append("not developed to ultimate")
@@ -314,7 +387,18 @@ def not_applied(exp: Experience) -> list[str]:
 
 
 def period_order(labels: Sequence[str]) -> list[str]:
-    """Distinct period labels in time order: as numbers when they all are, else as text."""
+    """Distinct period labels in time order: as numbers when they all are, else as text.
+
+    Parameters
+    ----------
+    labels : sequence of str
+        The period label of each row (repeats allowed).
+
+    Returns
+    -------
+    list of str
+        The distinct labels, earliest first.
+    """
     unique = sorted(set(labels))
     numeric = pd.to_numeric(pd.Series(unique, dtype=object), errors="coerce")
     if numeric.notna().all():
@@ -323,7 +407,23 @@ def period_order(labels: Sequence[str]) -> list[str]:
 
 
 def latest_period_holdout(periods: np.ndarray) -> np.ndarray:
-    """True for the rows of the latest period (the out-of-time holdout)."""
+    """True for the rows of the latest period (the out-of-time holdout).
+
+    Parameters
+    ----------
+    periods : ndarray
+        The period label of each row; the latest is the last in `period_order`.
+
+    Returns
+    -------
+    ndarray of bool
+        True for the rows of the latest period.
+
+    Raises
+    ------
+    InputError
+        When the book has a single period.
+    """
     labels = np.asarray(periods, dtype=object).astype(str)
     order = period_order(labels.tolist())
     if len(order) < 2:
@@ -336,14 +436,27 @@ def latest_period_holdout(periods: np.ndarray) -> np.ndarray:
 
 
 def read_text_column(path: str | Path, column: str) -> np.ndarray:
-    """One column of a book as strings typed the way the book's levels are ("01" stays "01")."""
+    """One column of a book as strings typed the way the book's levels are ("01" stays "01").
+
+    Parameters
+    ----------
+    path : str or Path
+        A book file or a folder of book parts.
+    column : str
+        The column to read.
+
+    Returns
+    -------
+    ndarray of object
+        The stripped text of each row (`rows.as_text`), "" where it is missing.
+    """
     from premiumlab.book.reading import iter_book
     from premiumlab.book.rows import as_text
 
     return np.concatenate([as_text(chunk[column]) for _, chunk in iter_book(path, [column])])
 
 
-def read_development(path: Path) -> dict[str, float]:
+def _read_development(path: Path) -> dict[str, float]:
     """A development CSV with columns period,factor (factors > 0), one row per period."""
     if not path.is_file():
         raise InputError(f"{path}: development file not found (experience.development)")
@@ -362,10 +475,10 @@ def read_development(path: Path) -> dict[str, float]:
     return dict(zip(period, factor.tolist()))
 
 
-def development_factors(exp: Experience, spec_dir: Path) -> dict[str, float]:
+def _development_factors(exp: Experience, spec_dir: Path) -> dict[str, float]:
     """The development table of the spec, or the CSV it names (relative to the spec's folder)."""
     if isinstance(exp.development, str):
-        return read_development(spec_dir / exp.development)
+        return _read_development(spec_dir / exp.development)
     return dict(exp.development)
 
 
@@ -381,7 +494,34 @@ def _flags(values: np.ndarray, path: Path, column: str) -> np.ndarray:
 
 def read_claims(path: Path, spec: Spec, policy: np.ndarray, period: np.ndarray | None, amount: np.ndarray) -> Claims:
     """Read the claims file, match each claim to its book row by policy (and period) and check that
-    the claims of every row add up to the row's amount."""
+    the claims of every row add up to the row's amount.
+
+    Parameters
+    ----------
+    path : Path
+        The claims file (CSV or Parquet).
+    spec : Spec
+        The pricing spec: the policy and period columns, the amount column of the claims
+        (`claims_amount_column`, else the book's `claim_amount`) and the catastrophe flag column.
+    policy : ndarray
+        The policy id of each book row (text).
+    period : ndarray or None
+        The period label of each book row, when the spec names a period column.
+    amount : ndarray
+        The claim amount of each book row (money).
+
+    Returns
+    -------
+    Claims
+        Per claim in file order: its 0-based book row, its amount (money) and its catastrophe flag.
+
+    Raises
+    ------
+    InputError
+        When the file or a column is missing, an amount is not a number >= 0 or a flag not
+        true/false, a policy (and period) repeats in the book or matches no book row, or the
+        claims of a row do not add up to its amount (within 0.005 + 1e-9 x the amount).
+    """
     from premiumlab.book.reading import iter_book, read_columns
     from premiumlab.book.rows import as_text
 
@@ -389,6 +529,7 @@ def read_claims(path: Path, spec: Spec, policy: np.ndarray, period: np.ndarray |
     if not path.exists():
         raise InputError(f"{path}: claims file not found (experience.claims_file)")
     amount_col = exp.claims_amount_column or c.claim_amount
+    assert c.policy_id is not None and amount_col is not None  # the spec refuses a claims_file without them
     keys = [c.policy_id] + ([c.period] if c.period else [])
     wanted = keys + [amount_col] + ([exp.catastrophe_column] if exp.catastrophe_column else [])
     header = read_columns(path)
@@ -445,7 +586,32 @@ def prepare(
     train: np.ndarray,
 ) -> Adjustment:
     """Read what the spec's [experience] names (development CSV, claims file, both relative to
-    `spec_dir`) and adjust the rows; a book without amounts adjusts its counts only."""
+    `spec_dir`) and adjust the rows; a book without amounts adjusts its counts only.
+
+    Parameters
+    ----------
+    spec : Spec
+        The pricing spec: its [experience], columns and the table's effective date.
+    spec_dir : Path
+        The spec file's folder.
+    periods : ndarray or None
+        The period label of each row, None when the spec names no period column.
+    policy : ndarray
+        The policy id of each row (text).
+    count : ndarray
+        The claim count of each row.
+    amount : ndarray or None
+        The claim amount of each row (money), None for a book without amounts.
+    train : ndarray of bool
+        The rows on which the excess and catastrophe loads are measured.
+
+    Returns
+    -------
+    Adjustment
+        Per row the count left after catastrophe claims, the count multiplier c_p (1 + f)^t and
+        the adjusted amount capped (1 + L) (1 + K) (module docstring), and the record for
+        RUN/experience.json.
+    """
     exp = spec.experience
     amount = np.zeros(len(count)) if amount is None else amount
     claims = None
@@ -453,4 +619,4 @@ def prepare(
         claims = read_claims(spec_dir / exp.claims_file, spec, policy, periods, amount)
     labels = periods if periods is not None else np.full(len(count), "", dtype=object)
     future = future_midpoint(exp, spec.table.effective_date)
-    return adjust(exp, labels, count, amount, train, future, development_factors(exp, spec_dir), claims)
+    return _adjust(exp, labels, count, amount, train, future, _development_factors(exp, spec_dir), claims)

@@ -10,7 +10,18 @@ from premiumlab.experience.adjustments import applied, not_applied
 def cautions_for(spec: Spec) -> list[str]:
     """The cautions for outputs made under `spec`: the draft and compliance cautions, then either
     the amounts-as-given caution (no [experience] adjustment set) or which adjustments were applied
-    and which were not (the figures used are in RUN/experience.json)."""
+    and which were not (the figures used are in RUN/experience.json).
+
+    Parameters
+    ----------
+    spec : Spec
+        The pricing spec the outputs are made under.
+
+    Returns
+    -------
+    list of str
+        Three cautions: draft, prohibited factors, then the amounts-as-given or adjustments one.
+    """
     exp = spec.experience
     if not exp.configured:
         return [DRAFT, PROHIBITED, AS_GIVEN]

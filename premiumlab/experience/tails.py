@@ -32,7 +32,7 @@ GRID_POINTS = 50
 PLOT_POINTS = 1000
 
 
-def mean_excess(losses: np.ndarray, thresholds: np.ndarray) -> pd.DataFrame:
+def _mean_excess(losses: np.ndarray, thresholds: np.ndarray) -> pd.DataFrame:
     """Per threshold u: exceedances #{x > u} and the mean excess e(u) (NaN with no exceedance)."""
     x = np.sort(np.asarray(losses, dtype=float))
     u = np.asarray(thresholds, dtype=float)
@@ -43,7 +43,7 @@ def mean_excess(losses: np.ndarray, thresholds: np.ndarray) -> pd.DataFrame:
     return pd.DataFrame({"threshold": u, "exceedances": above.astype(np.int64), "mean_excess": excess})
 
 
-def threshold_grid(losses: np.ndarray, points: int = GRID_POINTS) -> np.ndarray:
+def _threshold_grid(losses: np.ndarray, points: int = GRID_POINTS) -> np.ndarray:
     """Thresholds from the smallest loss to the one leaving MIN_EXCEEDANCES above it, evenly spaced
     in rank (quantiles of the losses)."""
     x = np.sort(np.asarray(losses, dtype=float))
@@ -65,7 +65,7 @@ class ParetoFit:
     share_of_amount: float
 
 
-def fit_tail(losses: np.ndarray, threshold: float) -> ParetoFit:
+def _fit_tail(losses: np.ndarray, threshold: float) -> ParetoFit:
     """Maximum-likelihood generalised Pareto fit to the excesses over `threshold` (location 0)."""
     from scipy.stats import genpareto
 
@@ -88,7 +88,7 @@ def fit_tail(losses: np.ndarray, threshold: float) -> ParetoFit:
     )
 
 
-def plot_tail(losses: np.ndarray, fit: ParetoFit, path: str | Path) -> Path:
+def _plot_tail(losses: np.ndarray, fit: ParetoFit, path: str | Path) -> Path:
     """Two panels: the mean-excess plot (at up to PLOT_POINTS order statistics) with the threshold
     marked, and the empirical survival of the losses above the threshold against the fitted
     generalised Pareto survival (log scales)."""
@@ -96,7 +96,7 @@ def plot_tail(losses: np.ndarray, fit: ParetoFit, path: str | Path) -> Path:
 
     from premiumlab._core.plotting import new_figure, plain_axes, save_figure
 
-    table = mean_excess(losses, threshold_grid(losses, min(len(losses), PLOT_POINTS)))
+    table = _mean_excess(losses, _threshold_grid(losses, min(len(losses), PLOT_POINTS)))
     fig = new_figure(width=10.0, height=4.4)
     left, right = fig.subplots(1, 2)
     left.plot(table["threshold"], table["mean_excess"], marker=".", color="#2b6a99", linewidth=1)
@@ -124,7 +124,7 @@ def plot_tail(losses: np.ndarray, fit: ParetoFit, path: str | Path) -> Path:
     return save_figure(fig, path)
 
 
-def tail_losses(book_path: str | Path, spec_path: str | Path) -> tuple[np.ndarray, str]:
+def _tail_losses(book_path: str | Path, spec_path: str | Path) -> tuple[np.ndarray, str]:
     """The losses of the module docstring and a phrase saying what they are."""
     from premiumlab.book.scan import load_book
     from premiumlab.book.spec import load_spec
@@ -140,6 +140,8 @@ def tail_losses(book_path: str | Path, spec_path: str | Path) -> tuple[np.ndarra
     if spec.columns.claim_amount is None:
         raise InputError(f"{spec.source}: key 'columns.claim_amount' is not set; the threshold aid needs amounts")
     book = load_book(book_path, spec)
+    amount = book.claim_amount
+    assert amount is not None  # columns.claim_amount is set (checked above), so the book has amounts
     exp, c = spec.experience, spec.columns
     periods = read_text_column(book_path, c.period) if c.period else np.full(book.n_rows, "", dtype=object)
     labels, code = np.unique(periods.astype(str), return_inverse=True)
@@ -152,13 +154,13 @@ def tail_losses(book_path: str | Path, spec_path: str | Path) -> tuple[np.ndarra
             spec,
             book.policy,
             periods if c.period else None,
-            book.claim_amount,
+            amount,
         )
         keep = ~claims.catastrophe & (claims.amount > 0)
         losses, basis = claims.amount[keep] * trend[claims.row[keep]], "single claims of the claims file"
     else:
-        keep = book.claim_amount > 0
-        losses, basis = book.claim_amount[keep] * trend[keep], "row totals (one policy in one period)"
+        keep = amount > 0
+        losses, basis = amount[keep] * trend[keep], "row totals (one policy in one period)"
     if exp.trend.get("severity"):
         basis += ", trended for severity to the future policy period"
     if losses.size <= MIN_EXCEEDANCES:
@@ -181,7 +183,7 @@ def threshold_aid(
     Parameters
     ----------
     book_path, spec_path : str or Path
-        The book and its pricing spec (the losses are those of `tail_losses`).
+        The book and its pricing spec (the losses are those of the module docstring).
     threshold : float or None
         Threshold u (money); None for the DEFAULT_QUANTILE quantile of the losses.
     figure : str or Path or None
@@ -198,10 +200,10 @@ def threshold_aid(
 
     if threshold is not None and not (np.isfinite(threshold) and threshold >= 0):
         raise InputError(f"--threshold: {threshold!r} must be a finite amount >= 0")
-    losses, basis = tail_losses(book_path, spec_path)
+    losses, basis = _tail_losses(book_path, spec_path)
     u = float(np.quantile(losses, DEFAULT_QUANTILE)) if threshold is None else float(threshold)
-    fit = fit_tail(losses, u)
-    table = mean_excess(losses, threshold_grid(losses))
+    fit = _fit_tail(losses, u)
+    table = _mean_excess(losses, _threshold_grid(losses))
     if figure is not None:
         from premiumlab._core.outputs import atomic_files
 
@@ -209,7 +211,7 @@ def threshold_aid(
         if target.suffix.lower() != ".png":
             raise InputError(f"{target}: the figure must be a .png file")
         with atomic_files([target], force=force, inputs=(book_path, spec_path)) as tmp:
-            plot_tail(losses, fit, tmp / target.name)
+            _plot_tail(losses, fit, tmp / target.name)
     notes = []
     if fit.shape >= 1.0:
         notes.append(
