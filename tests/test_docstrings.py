@@ -4,6 +4,7 @@ Public: a module-level function whose name and module path have no leading under
 premiumlab or rating_tables. The typer commands of `premiumlab/cli/app.py` are left out: their
 docstring is the command's --help text, and their options carry their own help.
 """
+
 from __future__ import annotations
 
 import ast
@@ -18,7 +19,9 @@ def _public_functions():
     for package in PACKAGES:
         for path in sorted((ROOT / package).rglob("*.py")):
             relative = path.relative_to(ROOT)
-            if relative in NOT_CHECKED or any(part.startswith("_") and part != "__init__.py" for part in relative.parts):
+            if relative in NOT_CHECKED or any(
+                part.startswith("_") and part != "__init__.py" for part in relative.parts
+            ):
                 continue
             tree = ast.parse(path.read_text(encoding="utf-8"))
             for node in tree.body:
