@@ -20,7 +20,9 @@ import lightgbm as lgb
 import numpy as np
 import pandas as pd
 
-from premiumlab.models.gbm.fit import GbmInputs, GbmOptions, fit_final, prepare_training
+from premiumlab.book.gbm_options import GbmOptions
+from premiumlab.models.gbm.fit import fit_final
+from premiumlab.models.gbm.training import GbmInputs, prepare_training
 
 SETTING = {"num_leaves": 31, "min_data_in_leaf": 200, "learning_rate": 0.05, "lambda_l2": 1.0}
 

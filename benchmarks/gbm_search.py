@@ -24,14 +24,9 @@ import numpy as np
 from gbm_overhead import invented_book
 
 from premiumlab._core.cluster import tasks_on
-from premiumlab.models.gbm.fit import (
-    GbmOptions,
-    _deviance_eval,
-    _select_settings,
-    cross_validate,
-    fold_of_group,
-    prepare_training,
-)
+from premiumlab.book.gbm_options import GbmOptions
+from premiumlab.models.gbm.search import _deviance_eval, cross_validate, fold_of_group, select_settings
+from premiumlab.models.gbm.training import prepare_training
 
 
 def bare_search(data, settings: list[dict], options: GbmOptions) -> list[float]:
@@ -67,7 +62,7 @@ def main() -> None:
         folds=args.folds, max_settings=args.settings, num_threads=1, max_rounds=args.rounds, tweedie_power=1.5
     )
     data = prepare_training(invented_book(args.rows), "pure_premium", one)
-    settings = _select_settings(one)
+    settings = select_settings(one)
     many = replace(one, num_threads=args.workers)
     data_many = prepare_training(invented_book(args.rows), "pure_premium", many)
 

@@ -14,7 +14,8 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from premiumlab.models.gbm.fit import GbmInputs, GbmOptions
+from premiumlab.book.gbm_options import GbmOptions
+from premiumlab.models.gbm.training import GbmInputs
 from rating_tables import Bands, CategoricalFactor, InteractionFactor, Loadings, NumericFactor, RatingTable
 
 SPEC_TEXT = """

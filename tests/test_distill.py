@@ -13,7 +13,7 @@ import pandas as pd
 import pytest
 import statsmodels.api as sm
 
-from premiumlab.models.gbm.fit import encode_features
+from premiumlab.models.gbm.training import encode_features
 from premiumlab.models.trees.parser import Trees
 from premiumlab.models.trees.partial_dependence import partial_dependence
 from premiumlab.tabulation.banding import Banding, categorical_banding, merge_thin_levels, numeric_banding

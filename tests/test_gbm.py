@@ -12,15 +12,10 @@ import pytest
 from sklearn.metrics import mean_gamma_deviance, mean_poisson_deviance, mean_tweedie_deviance
 
 from premiumlab._core.errors import InputError
-from premiumlab.models.gbm.fit import (
-    GbmInputs,
-    GbmOptions,
-    _deviance_eval,
-    fit_target,
-    fold_of_group,
-    load_model,
-    prepare_training,
-)
+from premiumlab.book.gbm_options import GbmOptions
+from premiumlab.models.gbm.fit import fit_target, load_model
+from premiumlab.models.gbm.search import _deviance_eval, fold_of_group
+from premiumlab.models.gbm.training import GbmInputs, prepare_training
 
 from _builders import OPTIONS, invented_book
 

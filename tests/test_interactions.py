@@ -8,7 +8,9 @@ import pandas as pd
 import pytest
 
 from premiumlab._core.errors import InputError
-from premiumlab.models.gbm.fit import GbmInputs, GbmOptions, fit_target
+from premiumlab.book.gbm_options import GbmOptions
+from premiumlab.models.gbm.fit import fit_target
+from premiumlab.models.gbm.training import GbmInputs
 from premiumlab.models.trees.interactions import h_statistics, top_factors_by_gain
 
 

@@ -40,7 +40,8 @@ def fit_gbms(
     """Fit frequency, severity and pure-premium models on the training rows (the search's fits on
     `runner`); write models, the monotonicity certificate and the interaction ranking; add
     predictions for every row."""
-    from premiumlab.models.gbm.fit import GbmInputs, fit_target
+    from premiumlab.models.gbm.fit import fit_target
+    from premiumlab.models.gbm.training import GbmInputs
 
     features = features_from_spec(book.frame, spec)
     monotone = {f.name: f.direction for f in spec.factors if f.direction != 0}
