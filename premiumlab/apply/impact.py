@@ -14,7 +14,7 @@ from premiumlab.results import ImpactResult
 COLUMN_PREFIX = "column:"
 
 
-def read_frame(path: str | Path) -> pd.DataFrame:
+def _read_frame(path: str | Path) -> pd.DataFrame:
     """A whole book as a DataFrame (CSV values as strings, so "01" stays "01"), for `impact`."""
     from premiumlab.book.reading import iter_book, read_columns
 
@@ -25,7 +25,7 @@ def read_frame(path: str | Path) -> pd.DataFrame:
     return pd.concat(parts, ignore_index=True)
 
 
-def column_premiums(source: str, frame: pd.DataFrame) -> np.ndarray:
+def _column_premiums(source: str, frame: pd.DataFrame) -> np.ndarray:
     """Premiums per policy from the book column named by `source` (`column:NAME`), all > 0."""
     name = source[len(COLUMN_PREFIX) :]
     if name not in frame.columns:
@@ -40,7 +40,7 @@ def column_premiums(source: str, frame: pd.DataFrame) -> np.ndarray:
     return values
 
 
-def gross_premiums(table, frame: pd.DataFrame, exposure: str | None, annual: bool) -> np.ndarray:
+def _gross_premiums(table, frame: pd.DataFrame, exposure: str | None, annual: bool) -> np.ndarray:
     """Gross premiums per policy rated with a loaded table."""
     import rating_tables
 
@@ -85,17 +85,17 @@ def dislocation(
 
     if proposed.startswith(COLUMN_PREFIX):
         raise InputError(f"--proposed {proposed}: the proposed premium must come from a table folder")
-    frame = read_frame(book)
+    frame = _read_frame(book)
     table = rating_tables.load(proposed)
     if current.startswith(COLUMN_PREFIX):
-        tables, now = [table], column_premiums(current, frame)
+        tables, now = [table], _column_premiums(current, frame)
     else:
         current_table = rating_tables.load(current)
-        tables, now = [table, current_table], gross_premiums(current_table, frame, exposure, annual)
-    groups = impact_groups(frame, tables)
+        tables, now = [table, current_table], _gross_premiums(current_table, frame, exposure, annual)
+    groups = _impact_groups(frame, tables)
     result = rating_tables.impact(
         now,
-        gross_premiums(table, frame, exposure, annual),
+        _gross_premiums(table, frame, exposure, annual),
         groups,
         list(groups.columns),
         thresholds=thresholds,
@@ -115,7 +115,7 @@ def dislocation(
     )
 
 
-def impact_groups(frame: pd.DataFrame, tables: list) -> pd.DataFrame:
+def _impact_groups(frame: pd.DataFrame, tables: list) -> pd.DataFrame:
     """The factor columns the impact is broken down by: every main factor of the tables (the
     proposed first, so a factor the proposed table drops is still shown), a numeric factor cut into
     the bands of the first table that has it, a categorical factor as it is."""

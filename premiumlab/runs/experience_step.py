@@ -21,7 +21,7 @@ from premiumlab.experience.adjustments import Adjustment, prepare
 ADJUSTABLE = ("claim_count", "claim_amount")
 
 
-def adjusted_column(name: str) -> str:
+def _adjusted_column(name: str) -> str:
     """The predictions.parquet column of an adjusted figure, e.g. "claim_amount_adjusted"."""
     return f"{name}_adjusted"
 
@@ -40,13 +40,13 @@ def adjusted_book(book: Book, adjustment: Adjustment) -> Book:
 
 def add_adjusted_columns(preds: pd.DataFrame, adjusted: Book) -> None:
     """Add the adjusted counts (and amounts, when the book has them) to the predictions frame."""
-    preds[adjusted_column("claim_count")] = adjusted.claim_count
+    preds[_adjusted_column("claim_count")] = adjusted.claim_count
     if adjusted.claim_amount is not None:
-        preds[adjusted_column("claim_amount")] = adjusted.claim_amount
+        preds[_adjusted_column("claim_amount")] = adjusted.claim_amount
 
 
 def fitted_basis(preds: pd.DataFrame) -> pd.DataFrame:
     """Predictions with the adjusted counts and amounts, when there are any, in the observed columns:
     the figures the models were fitted to."""
-    swap = {adjusted_column(name): name for name in ADJUSTABLE if adjusted_column(name) in preds}
+    swap = {_adjusted_column(name): name for name in ADJUSTABLE if _adjusted_column(name) in preds}
     return preds.drop(columns=list(swap.values())).rename(columns=swap) if swap else preds

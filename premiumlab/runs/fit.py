@@ -33,7 +33,7 @@ from premiumlab.runs.rundir import RunDir
 MODEL_KINDS = ("glm", "gbm")
 
 
-def parse_models(text: str) -> list[str]:
+def _parse_models(text: str) -> list[str]:
     """'glm,gbm' -> ['glm', 'gbm'], refusing unknown or repeated names."""
     names = [t.strip() for t in text.split(",") if t.strip()]
     bad = [n for n in names if n not in MODEL_KINDS]
@@ -79,7 +79,7 @@ def fit(
     `progress`: told the experience step's totals (None: nothing is said). `cluster`: where the
     boosted-model search runs (premiumlab.cluster: None for this process, local:N or a Dask
     scheduler address)."""
-    kinds = parse_models(models)
+    kinds = _parse_models(models)
     if cluster is not None:
         parse_cluster(cluster)
     spec = load_spec(spec_path)

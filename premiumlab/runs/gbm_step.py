@@ -23,7 +23,7 @@ H_SAMPLE = 300
 H_FACTORS = 6
 
 
-def gbm_options(spec: Spec, glm_power: float | None) -> GbmOptions:
+def _gbm_options(spec: Spec, glm_power: float | None) -> GbmOptions:
     """The spec's [gbm] options; a Tweedie power not fixed there is the GLM's (`glm_power`, if fitted)."""
     return spec.gbm if spec.gbm.tweedie_power is not None else replace(spec.gbm, tweedie_power=glm_power)
 
@@ -54,7 +54,7 @@ def fit_gbms(
         claim_amount=None if book.claim_amount is None else book.claim_amount[train],
         groups=groups,
     )
-    options = gbm_options(spec, glm_power)
+    options = _gbm_options(spec, glm_power)
     targets = [name for name, t in TARGETS.items() if book.claim_amount is not None or not t.needs_amount]
     models = {}
     for target in targets:
@@ -66,11 +66,11 @@ def fit_gbms(
     if "severity" in models:
         preds["gbm_freq_x_sev"] = preds["gbm_frequency"] * preds["gbm_severity"]
     main = models.get("pure_premium", models["frequency"])
-    write_json(run.certificate, certify_run(models, features, book.holdout, spec))
-    write_json(run.interactions, rank_interactions(main, features, train, spec))
+    write_json(run.certificate, _certify_run(models, features, book.holdout, spec))
+    write_json(run.interactions, _rank_interactions(main, features, train, spec))
 
 
-def certify_run(models: dict, features: pd.DataFrame, holdout: np.ndarray, spec: Spec) -> dict:
+def _certify_run(models: dict, features: pd.DataFrame, holdout: np.ndarray, spec: Spec) -> dict:
     """Structural certificate and empirical sweep for every promised factor of each constrained model."""
     from premiumlab.models.trees.certificate import certify, sweep
 
@@ -94,7 +94,7 @@ def certify_run(models: dict, features: pd.DataFrame, holdout: np.ndarray, spec:
     }
 
 
-def rank_interactions(model, features: pd.DataFrame, train: np.ndarray, spec: Spec) -> dict:
+def _rank_interactions(model, features: pd.DataFrame, train: np.ndarray, spec: Spec) -> dict:
     """Friedman's H for pairs of the top factors by gain, on a seeded sample of training policies."""
     from premiumlab.models.trees.interactions import h_statistics, top_factors_by_gain
 

@@ -39,7 +39,7 @@ def period_control(periods: np.ndarray, exposure: np.ndarray, train: np.ndarray,
     return PeriodControl(name, values, order[int(np.argmax(expo))], expo)
 
 
-def glm_inputs(
+def _glm_inputs(
     book: Book,
     cats: pd.DataFrame,
     levels: dict[str, Levels],
@@ -88,8 +88,8 @@ def fit_glms(
         names = [control.name]
     multiplier = None if adjustment is None else adjustment.count_multiplier
     counts = book if adjustment is None else replace(book, claim_count=adjustment.count_base)
-    inputs = glm_inputs(counts, cats, levels, train, multiplier, names)
-    whole = glm_inputs(counts, cats, levels, train, None, names) if multiplier is not None else inputs
+    inputs = _glm_inputs(counts, cats, levels, train, multiplier, names)
+    whole = _glm_inputs(counts, cats, levels, train, None, names) if multiplier is not None else inputs
     engine = spec.glm.engine
     results = {"frequency": fit_frequency(inputs, engine=engine)}
     if has_amount:

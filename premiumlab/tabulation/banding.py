@@ -70,7 +70,7 @@ class Banding:
         return ["+".join(lv for lv, b in zip(self.levels, self.band_of_level) if b == k) for k in range(self.n_bands)]
 
 
-def ordered_bands(curve: Curve, direction: int, max_bands: int, min_share: float) -> np.ndarray:
+def _ordered_bands(curve: Curve, direction: int, max_bands: int, min_share: float) -> np.ndarray:
     """Band index of each curve point: isotonic curve when a direction is promised, then the optimal
     segmentation (at most `max_bands` bands, each holding at least `min_share` of the weight)."""
     effect = curve.effect if direction == 0 else isotonic(curve.effect, curve.weight, increasing=direction > 0)
@@ -79,7 +79,7 @@ def ordered_bands(curve: Curve, direction: int, max_bands: int, min_share: float
 
 def numeric_banding(curve: Curve, monotone: str, max_bands: int, min_share: float) -> Banding:
     """Bands of a numeric factor from its curve; edges at the first grid value of each band."""
-    band = ordered_bands(curve, Monotone(monotone).sign, max_bands, min_share)
+    band = _ordered_bands(curve, Monotone(monotone).sign, max_bands, min_share)
     starts = np.flatnonzero(np.diff(band)) + 1
     return Banding(curve.factor, monotone, edges=np.asarray(curve.points, dtype=float)[starts])
 
@@ -124,7 +124,7 @@ def categorical_banding(
     no level precedes), else the band holding the most exposure."""
     points = np.asarray(curve.points, dtype=np.int64)
     if ordered:
-        present = ordered_bands(curve, Monotone(monotone).sign, max_bands, min_share)
+        present = _ordered_bands(curve, Monotone(monotone).sign, max_bands, min_share)
     else:
         present = merge_thin_levels(curve.effect, curve.weight, min_share * curve.weight.sum())
     band = np.full(len(levels), -1, dtype=np.int64)

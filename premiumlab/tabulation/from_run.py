@@ -62,7 +62,7 @@ def reread_book(run: Run, book: str | Path | None = None) -> Book:
     return loaded
 
 
-def checked_predictions(run: Run, book: Book, column: str) -> pd.DataFrame:
+def _checked_predictions(run: Run, book: Book, column: str) -> pd.DataFrame:
     """predictions.parquet, checked row by row against the book and for the column needed."""
     preds = run.predictions()
     where = run.files.predictions
@@ -75,7 +75,7 @@ def checked_predictions(run: Run, book: Book, column: str) -> pd.DataFrame:
     return preds
 
 
-def fitted_amounts(book: Book, preds: pd.DataFrame) -> Book:
+def _fitted_amounts(book: Book, preds: pd.DataFrame) -> Book:
     """The book with the claim amounts the models were fitted to: after [experience] adjustments
     (developed, trended, capped plus loads) when the run made them, else as observed."""
     if "claim_amount_adjusted" not in preds.columns:
@@ -83,7 +83,7 @@ def fitted_amounts(book: Book, preds: pd.DataFrame) -> Book:
     return replace(book, claim_amount=preds["claim_amount_adjusted"].to_numpy(dtype=float))
 
 
-def level_indices(book: Book, run: Run, name: str) -> tuple[tuple[str, ...], np.ndarray]:
+def _level_indices(book: Book, run: Run, name: str) -> tuple[tuple[str, ...], np.ndarray]:
     """(levels of a categorical factor as the run fixed them, index of each book row's level)."""
     levels = tuple(run.levels[name].labels)
     codes = pd.Categorical(book.frame[name], categories=list(levels)).codes.astype(np.int64)
@@ -100,7 +100,7 @@ def level_indices(book: Book, run: Run, name: str) -> tuple[tuple[str, ...], np.
 # bands and relativities from either model
 
 
-def gbm_bands(run: Run, book: Book, preds: pd.DataFrame, train: np.ndarray) -> tuple[dict, dict, dict, dict, dict]:
+def _gbm_bands(run: Run, book: Book, preds: pd.DataFrame, train: np.ndarray) -> tuple[dict, dict, dict, dict, dict]:
     """Distil the boosted pure-premium model: (bandings, relativities, two-way tables, base bands, notes)."""
     from premiumlab.models.gbm.features import features_from_spec
     from premiumlab.models.gbm.fit import load_model
@@ -121,7 +121,7 @@ def gbm_bands(run: Run, book: Book, preds: pd.DataFrame, train: np.ndarray) -> t
         if f.type == "numeric":
             factors.append(FactorValues(f.name, f.monotone, book.frame[f.name].to_numpy(dtype=float)[rows]))
             continue
-        levels, codes = level_indices(book, run, f.name)
+        levels, codes = _level_indices(book, run, f.name)
         factors.append(
             FactorValues(
                 f.name,
@@ -163,7 +163,7 @@ def _model_codes(model, name: str, levels: tuple[str, ...]) -> np.ndarray:
     return np.array([position[level] for level in levels], dtype=float)
 
 
-def glm_bands(run: Run, book: Book) -> tuple[dict, dict, dict, dict, dict]:
+def _glm_bands(run: Run, book: Book) -> tuple[dict, dict, dict, dict, dict]:
     """The Tweedie GLM's relativities on the run's bands: (bandings, relativities, {}, base bands, notes)."""
     from premiumlab.book.bands import band_labels
 
@@ -212,10 +212,10 @@ def _row_cells(banding: Banding, book: Book, run: Run, rows: np.ndarray) -> np.n
     """Per training row: its band (numeric) or its level index (categorical)."""
     if banding.numeric:
         return banding.codes(book.frame[banding.name].to_numpy(dtype=float)[rows])
-    return level_indices(book, run, banding.name)[1][rows]
+    return _level_indices(book, run, banding.name)[1][rows]
 
 
-def table_factors(
+def _table_factors(
     spec: Spec,
     bandings: dict[str, Banding],
     relativities: dict[str, np.ndarray],
@@ -298,7 +298,7 @@ def rating_frame(book: Book, spec: Spec, rows: np.ndarray) -> pd.DataFrame:
     return frame
 
 
-def pure_premium_target(spec: Spec, book: Book, train: np.ndarray) -> dict:
+def _pure_premium_target(spec: Spec, book: Book, train: np.ndarray) -> dict:
     """The target of the rate level (see the module docstring), as stored in table.json."""
     opts, load = spec.table, spec.loadings
     if opts.target == "experience":
@@ -323,7 +323,7 @@ def pure_premium_target(spec: Spec, book: Book, train: np.ndarray) -> dict:
     }
 
 
-def make_table(spec: Spec, factors: tuple, base_rate: float, target: dict, provenance: dict):
+def _make_table(spec: Spec, factors: tuple, base_rate: float, target: dict, provenance: dict):
     from rating_tables import Loadings, RatingTable, Rounding
 
     opts, load = spec.table, spec.loadings
@@ -341,7 +341,7 @@ def make_table(spec: Spec, factors: tuple, base_rate: float, target: dict, prove
     )
 
 
-def rate_level(
+def _rate_level(
     spec: Spec,
     unrounded: tuple,
     rounded: tuple,
@@ -355,8 +355,8 @@ def rate_level(
 
     total = target["total_pure_premium"]
     expo = spec.columns.exposure
-    _, exact = solve_base_rate(make_table(spec, unrounded, 1.0, target, provenance), frame, expo, total)
-    table, report = solve_base_rate(make_table(spec, rounded, 1.0, target, provenance), frame, expo, total)
+    _, exact = solve_base_rate(_make_table(spec, unrounded, 1.0, target, provenance), frame, expo, total)
+    table, report = solve_base_rate(_make_table(spec, rounded, 1.0, target, provenance), frame, expo, total)
     rounded_at_exact = exact["base_rate"] * report["total_pure_premium_before"]
     gross = float(rate(table, frame, expo)["gross_premium"].sum())
     out = {
@@ -375,7 +375,7 @@ def rate_level(
     return table, out
 
 
-def fidelity(
+def _fidelity(
     table,
     frame: pd.DataFrame,
     spec: Spec,
@@ -450,27 +450,27 @@ def tabulate(
     run = open_run(run_dir)
     spec = run.spec
     loaded = reread_book(run, book)
-    preds = checked_predictions(run, loaded, f"{model}_pure_premium")
-    loaded = fitted_amounts(loaded, preds)
+    preds = _checked_predictions(run, loaded, f"{model}_pure_premium")
+    loaded = _fitted_amounts(loaded, preds)
     train = ~loaded.holdout
     rows = np.flatnonzero(train)
     if model == "gbm":
-        bandings, rel, two_way, bases, notes = gbm_bands(run, loaded, preds, train)
+        bandings, rel, two_way, bases, notes = _gbm_bands(run, loaded, preds, train)
     else:
-        bandings, rel, two_way, bases, notes = glm_bands(run, loaded)
+        bandings, rel, two_way, bases, notes = _glm_bands(run, loaded)
     cells = {n: _row_cells(b, loaded, run, rows) for n, b in bandings.items()}
     exposure = loaded.exposure[rows]
     amount = loaded.claim_amount[rows]
-    unrounded = table_factors(spec, bandings, rel, two_way, bases, cells, exposure, amount, None)
-    rounded = table_factors(
+    unrounded = _table_factors(spec, bandings, rel, two_way, bases, cells, exposure, amount, None)
+    rounded = _table_factors(
         spec, bandings, rel, two_way, bases, cells, exposure, amount, spec.table.relativity_decimals
     )
-    target = pure_premium_target(spec, loaded, train)
+    target = _pure_premium_target(spec, loaded, train)
     provenance = {"run": Path(run_dir).resolve().name, "model": f"{model}_pure_premium", "book_sha256": loaded.sha256}
     current = None if loaded.current_premium is None else float(loaded.current_premium[train].sum())
-    table, level = rate_level(spec, unrounded, rounded, rating_frame(loaded, spec, rows), target, provenance, current)
+    table, level = _rate_level(spec, unrounded, rounded, rating_frame(loaded, spec, rows), target, provenance, current)
     held = np.flatnonzero(loaded.holdout) if loaded.holdout.any() else rows
-    measured = fidelity(
+    measured = _fidelity(
         table,
         rating_frame(loaded, spec, held),
         spec,

@@ -51,7 +51,7 @@ def _pair_cells(sizes: dict[str, int], bases: dict[str, int], a: str, b: str) ->
     )
 
 
-def banded_design(
+def _banded_design(
     codes: dict[str, np.ndarray], sizes: dict[str, int], bases: dict[str, int], pairs: list[tuple[str, str]]
 ) -> OneHotDesign:
     """The one-hot design of the rows: one factor per banded factor (levels "0", "1", ..., base the
@@ -107,7 +107,7 @@ def refit(
     InputError
         When Newton's method does not converge.
     """
-    cells = aggregate_cells(banded_design(codes, sizes, bases, pairs), exposure * response, exposure)
+    cells = aggregate_cells(_banded_design(codes, sizes, bases, pairs), exposure * response, exposure)
     design = cells.design
     kept = choose_columns(design, cells.weight).kept
     fit = poisson_irls(design.sparse(kept), cells.numerator / cells.weight, cells.weight)

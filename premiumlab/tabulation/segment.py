@@ -67,7 +67,7 @@ class Segmentation:
         return np.searchsorted(self.starts, np.arange(points), side="right") - 1
 
 
-def segment_cost_matrix(values: np.ndarray, weights: np.ndarray, min_weight: float) -> np.ndarray:
+def _segment_cost_matrix(values: np.ndarray, weights: np.ndarray, min_weight: float) -> np.ndarray:
     """C[i, j] = within-segment weighted squared error of points i .. j-1 (i < j), +inf where the
     segment is empty or its weight falls below `min_weight`. Shape (n+1, n+1)."""
     y, w = _curve(values, weights)
@@ -101,7 +101,7 @@ def optimal_segmentation(
     if not 0.0 <= min_share <= 1.0:
         raise InputError(f"min_share: {min_share} must be between 0 and 1")
     n = y.size
-    cost = segment_cost_matrix(y, w, min_share * w.sum())
+    cost = _segment_cost_matrix(y, w, min_share * w.sum())
     segments = min(max_segments, n)
     best = np.full((segments + 1, n + 1), np.inf)
     best[0, 0] = 0.0
