@@ -140,7 +140,26 @@ def write_impact(
     result: ImpactResult, out: Path | None, figure: Path | None, force: bool, inputs: tuple[str | Path, ...]
 ) -> None:
     """Write the impact summary as JSON to `out` and its figure (`figures.plot_impact`) to `figure`,
-    both or neither."""
+    both or neither.
+
+    Parameters
+    ----------
+    result : ImpactResult
+        The summary `dislocation` returned.
+    out : Path or None
+        JSON file for `result.to_dict()` (None: not written).
+    figure : Path or None
+        PNG file for the figure (None: not drawn); its name must differ from `out`'s.
+    force : bool
+        Replace existing files at `out` and `figure`.
+    inputs : tuple of str or Path
+        The command's inputs (tables and book), which neither output may overwrite.
+
+    Raises
+    ------
+    InputError
+        When `figure` is not a .png file, or `out` and `figure` share a name.
+    """
     from premiumlab._core.jsonio import write_json
     from premiumlab._core.outputs import atomic_files
     from premiumlab.evaluation.figures import plot_impact
@@ -161,7 +180,24 @@ def write_impact(
 
 def parse_thresholds(thresholds: str | Sequence[float]) -> tuple[float, ...]:
     """'0.05,0.1' or (0.05, 0.1) -> (0.05, 0.1): the increases whose shares `impact` reports; at
-    least one, every one finite."""
+    least one, every one finite.
+
+    Parameters
+    ----------
+    thresholds : str or sequence of float
+        Premium increases as shares of the current premium (0.1 = 10 %): numbers separated by
+        commas (blank entries skipped), or the numbers themselves.
+
+    Returns
+    -------
+    tuple of float
+        The thresholds in the order given.
+
+    Raises
+    ------
+    InputError
+        When an entry is not a number, no entry is given, or one is not finite.
+    """
     try:
         values = tuple(
             float(t)

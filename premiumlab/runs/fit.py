@@ -76,9 +76,35 @@ def fit(
 ) -> Path:
     """Fit the requested models on the training part of the book and write the run directory.
 
-    `progress`: told the experience step's totals (None: nothing is said). `cluster`: where the
-    boosted-model search runs (premiumlab.cluster: None for this process, local:N or a Dask
-    scheduler address)."""
+    Parameters
+    ----------
+    book_path : str or Path
+        The book (.csv, .parquet or a folder of parts).
+    spec_path : str or Path
+        The pricing spec (TOML, docs/spec.md); files it names are resolved against its folder.
+    out : str or Path
+        The run directory to write (docs/run-directory.md), atomically.
+    models : str
+        Model kinds separated by commas: "glm", "gbm" or "glm,gbm".
+    force : bool
+        Replace an existing `out`.
+    progress : Progress or None
+        Told the experience step's totals (None: nothing is said).
+    cluster : str or None
+        Where the boosted-model search runs (premiumlab._core.cluster): None for this process,
+        local:N for N local worker processes, or a Dask scheduler address.
+
+    Returns
+    -------
+    Path
+        The run directory `out`.
+
+    Raises
+    ------
+    InputError
+        On an unknown or repeated model kind, a bad cluster address, spec or book, an existing
+        `out` without `force`, or a split that leaves no training rows.
+    """
     kinds = _parse_models(models)
     if cluster is not None:
         parse_cluster(cluster)

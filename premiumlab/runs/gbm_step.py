@@ -39,7 +39,28 @@ def fit_gbms(
 ) -> None:
     """Fit frequency, severity and pure-premium models on the training rows (the search's fits on
     `runner`); write models, the monotonicity certificate and the interaction ranking; add
-    predictions for every row."""
+    predictions for every row.
+
+    Parameters
+    ----------
+    book : Book
+        The book with the figures the models are fitted to (adjusted when the run adjusts them);
+        without claim amounts only the frequency model is fitted.
+    spec : Spec
+        The pricing spec: factors and their monotone promises, [gbm] options, the split's seed.
+    train : np.ndarray
+        Boolean mask of the training rows.
+    glm_power : float or None
+        The Tweedie power of the GLM's pure-premium fit, used when [gbm] fixes none (None: no GLM).
+    run : RunDir
+        The run directory being written: models/gbm_TARGET.txt and .json, certificate.json and
+        interactions.json go there.
+    preds : pd.DataFrame
+        The predictions frame, one row per book row, changed in place: it gains gbm_TARGET per
+        fitted target (per exposure unit) and, with a severity model, gbm_freq_x_sev.
+    runner : TaskRunner
+        Where the cross-validation search's (setting, fold) fits run (default: this process).
+    """
     from premiumlab.models.gbm.fit import fit_target
     from premiumlab.models.gbm.training import GbmInputs
 

@@ -54,7 +54,25 @@ CHECK_TOLERANCE = 1e-9
 
 
 def reread_book(run: Run, book: str | Path | None = None) -> Book:
-    """The run's book (or `book`, e.g. after a move), refused unless its sha256 is the run's."""
+    """The run's book (or `book`, e.g. after a move), refused unless its sha256 is the run's.
+
+    Parameters
+    ----------
+    run : Run
+        The run directory read back (`open_run`).
+    book : str or Path or None
+        Where the book is now (None: the path recorded in run.json, relative to the run).
+
+    Returns
+    -------
+    Book
+        The book, typed and checked, with the run's split.
+
+    Raises
+    ------
+    InputError
+        When the book differs from the run's (sha256), or the spec names no claim amounts.
+    """
     loaded = run.load_book(book)
     path = loaded.path
     if loaded.claim_amount is None:
@@ -292,7 +310,22 @@ def _table_factors(
 
 
 def rating_frame(book: Book, spec: Spec, rows: np.ndarray) -> pd.DataFrame:
-    """The factor columns and the exposure column of the chosen rows, as the rater reads them."""
+    """The factor columns and the exposure column of the chosen rows, as the rater reads them.
+
+    Parameters
+    ----------
+    book : Book
+        The run's book.
+    spec : Spec
+        The run's spec; the exposure column takes its name from columns.exposure.
+    rows : np.ndarray
+        Indices of the book rows to keep, in the order wanted.
+
+    Returns
+    -------
+    pd.DataFrame
+        One row per index in `rows` (index 0 .. len(rows)-1): the spec's factors and the exposure.
+    """
     frame = book.frame.iloc[rows].reset_index(drop=True).copy()
     frame[spec.columns.exposure] = book.exposure[rows]
     return frame
@@ -438,7 +471,34 @@ def tabulate(
     run_dir: str | Path, out: str | Path, model: str = "gbm", force: bool = False, book: str | Path | None = None
 ) -> dict:
     """Write the rating table TABLE/ (table.json, factors/*.csv), TABLE/fidelity.json and
-    TABLE/exhibit.xlsx from a run; returns the summary written to fidelity.json."""
+    TABLE/exhibit.xlsx from a run; returns the summary written to fidelity.json.
+
+    Parameters
+    ----------
+    run_dir : str or Path
+        The run directory (`fit`); its pure-premium model of kind `model` is tabulated.
+    out : str or Path
+        The table folder TABLE to write, atomically.
+    model : str
+        "gbm": distil the boosted pure-premium model; "glm": the Tweedie GLM's relativities on the
+        run's bands.
+    force : bool
+        Replace an existing `out`.
+    book : str or Path or None
+        The run's book at another path (None: the path recorded in run.json); its sha256 must match.
+
+    Returns
+    -------
+    dict
+        The fidelity.json summary (format, version, provenance, fidelity, rate_level, distillation,
+        cautions; docs/rating-table.md) with `table` (the folder) and `seconds` (wall time) added.
+
+    Raises
+    ------
+    InputError
+        On an unknown `model`, an existing `out` without `force`, a run or book that does not match
+        (book sha256, predictions, levels, model), or a rate-level target that leaves no pure premium.
+    """
     from rating_tables import save, write_exhibit
 
     if model not in MODELS:
