@@ -4,12 +4,16 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 import pandas as pd
 
 from premiumlab._core.errors import InputError
 from premiumlab.results import ImpactResult
+
+if TYPE_CHECKING:
+    from rating_tables.table import RatingTable
 
 COLUMN_PREFIX = "column:"
 
@@ -40,7 +44,7 @@ def _column_premiums(source: str, frame: pd.DataFrame) -> np.ndarray:
     return values
 
 
-def _gross_premiums(table, frame: pd.DataFrame, exposure: str | None, annual: bool) -> np.ndarray:
+def _gross_premiums(table: RatingTable, frame: pd.DataFrame, exposure: str | None, annual: bool) -> np.ndarray:
     """Gross premiums per policy rated with a loaded table."""
     import rating_tables
 
@@ -115,7 +119,7 @@ def dislocation(
     )
 
 
-def _impact_groups(frame: pd.DataFrame, tables: list) -> pd.DataFrame:
+def _impact_groups(frame: pd.DataFrame, tables: list[RatingTable]) -> pd.DataFrame:
     """The factor columns the impact is broken down by: every main factor of the tables (the
     proposed first, so a factor the proposed table drops is still shown), a numeric factor cut into
     the bands of the first table that has it, a categorical factor as it is."""

@@ -134,6 +134,7 @@ def _fit_run(
     if exp.configured or exp.period_control or spec.split.out_of_time:
         periods = read_text_column(book_path, spec.columns.period) if spec.columns.period else None
     if spec.split.out_of_time:
+        assert periods is not None, "the spec refuses split.holdout = 'latest_period' without columns.period"
         book.holdout = latest_period_holdout(periods)
     timings["load_seconds"] = time.perf_counter() - t0
     train = ~book.holdout
@@ -158,7 +159,9 @@ def _fit_run(
             )
     control = None
     if exp.period_control:
-        control = period_control(periods, book.exposure, train, spec.columns.period)
+        period = spec.columns.period
+        assert periods is not None and period is not None, "the spec refuses period_control without columns.period"
+        control = period_control(periods, book.exposure, train, period)
     with atomic_output(out, force=force) as tmp:
         run = RunDir(tmp)
         run.models.mkdir()

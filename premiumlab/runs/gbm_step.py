@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from dataclasses import replace
+from typing import TYPE_CHECKING
 
 import numpy as np
 import pandas as pd
@@ -15,6 +16,9 @@ from premiumlab.book.spec import Spec
 from premiumlab.models.gbm.features import features_from_spec
 from premiumlab.models.targets import TARGETS
 from premiumlab.runs.rundir import RunDir, model_name
+
+if TYPE_CHECKING:
+    from premiumlab.models.gbm.fit import GbmModel
 
 #: Held-out policies swept per promised factor by the empirical monotonicity check.
 SWEEP_POLICIES = 1000
@@ -91,7 +95,7 @@ def fit_gbms(
     write_json(run.interactions, _rank_interactions(main, features, train, spec))
 
 
-def _certify_run(models: dict, features: pd.DataFrame, holdout: np.ndarray, spec: Spec) -> dict:
+def _certify_run(models: dict[str, GbmModel], features: pd.DataFrame, holdout: np.ndarray, spec: Spec) -> dict:
     """Structural certificate and empirical sweep for every promised factor of each constrained model."""
     from premiumlab.models.trees.certificate import certify, sweep
 
@@ -115,7 +119,7 @@ def _certify_run(models: dict, features: pd.DataFrame, holdout: np.ndarray, spec
     }
 
 
-def _rank_interactions(model, features: pd.DataFrame, train: np.ndarray, spec: Spec) -> dict:
+def _rank_interactions(model: GbmModel, features: pd.DataFrame, train: np.ndarray, spec: Spec) -> dict:
     """Friedman's H for pairs of the top factors by gain, on a seeded sample of training policies."""
     from premiumlab.models.trees.interactions import h_statistics, top_factors_by_gain
 

@@ -177,7 +177,9 @@ class Run:
                 f"({recorded}, {self.files.manifest} key 'book.sha256')"
             )
         if self.spec.split.out_of_time:
-            book.holdout = latest_period_holdout(read_text_column(p, self.spec.columns.period))
+            period = self.spec.columns.period
+            assert period is not None, "the spec refuses split.holdout = 'latest_period' without columns.period"
+            book.holdout = latest_period_holdout(read_text_column(p, period))
         return book
 
 

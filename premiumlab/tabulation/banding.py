@@ -44,30 +44,38 @@ class Banding:
 
     @property
     def n_bands(self) -> int:
-        return self.edges.size + 1 if self.numeric else int(self.band_of_level.max()) + 1
+        return self.edges.size + 1 if self.edges is not None else int(self.level_bands()[1].max()) + 1
 
     @property
     def direction(self) -> int:
         """The promise's sign: +1 increasing, -1 decreasing, 0 none."""
         return Monotone(self.monotone).sign
 
+    def level_bands(self) -> tuple[tuple[str, ...], np.ndarray]:
+        """`(levels, band_of_level)` of a categorical banding; a numeric banding has neither."""
+        if self.levels is None or self.band_of_level is None:
+            raise TypeError(f"banding of '{self.name}': a numeric banding has no levels")
+        return self.levels, self.band_of_level
+
     def codes(self, values: np.ndarray) -> np.ndarray:
         """Band of each value: numeric values, or level indices into `levels`."""
-        if self.numeric:
+        if self.edges is not None:
             return np.searchsorted(self.edges, np.asarray(values, dtype=float), side="right")
-        return self.band_of_level[values]
+        return self.level_bands()[1][values]
 
     def merged(self, k: int) -> Banding:
         """The banding with bands k and k+1 pooled into one."""
-        if self.numeric:
+        if self.edges is not None:
             return replace(self, edges=np.delete(self.edges, k))
-        return replace(self, band_of_level=np.where(self.band_of_level > k, self.band_of_level - 1, self.band_of_level))
+        band = self.level_bands()[1]
+        return replace(self, band_of_level=np.where(band > k, band - 1, band))
 
     def labels(self) -> list[str]:
         """Band labels: `[lower, upper)` or the levels of the band joined by `+`."""
-        if self.numeric:
+        if self.edges is not None:
             return band_labels(self.edges)
-        return ["+".join(lv for lv, b in zip(self.levels, self.band_of_level) if b == k) for k in range(self.n_bands)]
+        levels, band = self.level_bands()
+        return ["+".join(lv for lv, b in zip(levels, band) if b == k) for k in range(self.n_bands)]
 
 
 def _ordered_bands(curve: Curve, direction: int, max_bands: int, min_share: float) -> np.ndarray:
@@ -218,5 +226,6 @@ def base_band(banding: Banding, band_exposure: np.ndarray) -> int:
         The base band's index (the first of equally exposed bands).
     """
     if banding.base_level is not None and not banding.numeric:
-        return int(banding.band_of_level[banding.levels.index(banding.base_level)])
+        levels, band = banding.level_bands()
+        return int(band[levels.index(banding.base_level)])
     return int(np.argmax(band_exposure))

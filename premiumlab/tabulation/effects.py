@@ -160,5 +160,6 @@ def effect_curve(
         )
     weight = np.bincount(factor.values, weights=exposure, minlength=len(factor.levels))
     present = np.flatnonzero(weight > 0)
+    assert factor.model_codes is not None, "a categorical factor carries the boosted model's code of each level"
     effect = partial_dependence(trees, sample, feature, factor.model_codes[present].astype(float))
     return Curve(factor.name, present, effect, weight[present], factor.levels)

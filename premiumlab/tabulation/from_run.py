@@ -27,6 +27,7 @@ from __future__ import annotations
 import time
 from dataclasses import replace
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 import pandas as pd
@@ -42,6 +43,10 @@ from premiumlab.tabulation.banding import Banding
 from premiumlab.tabulation.distill import distil
 from premiumlab.tabulation.effects import FactorValues, exposure_sample
 from premiumlab.tabulation.refit import band_exposure, round_relativity
+
+if TYPE_CHECKING:
+    from premiumlab.models.gbm.fit import GbmModel
+    from rating_tables.table import Cells, Factor, RatingTable
 
 MODELS = ("gbm", "glm")
 #: Training rows on which the rebuilt features must reproduce the run's boosted predictions.
@@ -74,10 +79,17 @@ def reread_book(run: Run, book: str | Path | None = None) -> Book:
         When the book differs from the run's (sha256), or the spec names no claim amounts.
     """
     loaded = run.load_book(book)
-    path = loaded.path
-    if loaded.claim_amount is None:
-        raise InputError(f"{path}: a pure-premium table needs claim amounts; the spec names no columns.claim_amount")
+    _claim_amount(loaded)
     return loaded
+
+
+def _claim_amount(book: Book) -> np.ndarray:
+    """The claim amount (money) of every book row, refused when the book has none."""
+    if book.claim_amount is None:
+        raise InputError(
+            f"{book.path}: a pure-premium table needs claim amounts; the spec names no columns.claim_amount"
+        )
+    return book.claim_amount
 
 
 def _checked_predictions(run: Run, book: Book, column: str) -> pd.DataFrame:
@@ -169,7 +181,7 @@ def _gbm_bands(run: Run, book: Book, preds: pd.DataFrame, train: np.ndarray) -> 
     return result.pooled.bandings, fit.relativities, fit.two_way, fit.bases, notes
 
 
-def _model_codes(model, name: str, levels: tuple[str, ...]) -> np.ndarray:
+def _model_codes(model: GbmModel, name: str, levels: tuple[str, ...]) -> np.ndarray:
     """The boosted model's code of each level: its stored category position, or the level's position
     for an ordered factor passed as codes."""
     if name not in model.categories:
@@ -243,7 +255,7 @@ def _table_factors(
     exposure: np.ndarray,
     amount: np.ndarray,
     decimals: int | None,
-) -> tuple:
+) -> tuple[Factor, ...]:
     """Rating-table factors in spec order, then the two-way tables; relativities rounded to `decimals`
     (None: unrounded), the unrounded refit kept as `indicated`, exposure of the training rows, and the
     Buhlmann-Straub credibility of each band's or level's own experience (amount per exposure) toward
@@ -254,13 +266,14 @@ def _table_factors(
     def selected(values: np.ndarray) -> np.ndarray:
         return values if decimals is None else round_relativity(values, decimals)
 
-    out, sides = [], {}
+    out: list[Factor] = []
+    sides: dict[str, tuple[Cells, np.ndarray]] = {}
     for f in spec.factors:
-        b, rel = bandings[f.name], relativities[f.name]
-        if b.numeric:
-            lower = np.concatenate([[-np.inf], b.edges])
-            upper = np.concatenate([b.edges, [np.inf]])
-            z = credibility_by_level(amount, exposure, cells[f.name], b.n_bands, numeric=True)["credibility"]
+        banding, rel = bandings[f.name], relativities[f.name]
+        if banding.edges is not None:
+            lower = np.concatenate([[-np.inf], banding.edges])
+            upper = np.concatenate([banding.edges, [np.inf]])
+            z = credibility_by_level(amount, exposure, cells[f.name], banding.n_bands, numeric=True)["credibility"]
             out.append(
                 NumericFactor(
                     f.name,
@@ -268,25 +281,26 @@ def _table_factors(
                     lower,
                     upper,
                     selected(rel),
-                    band_exposure(cells[f.name], b.n_bands, exposure),
+                    band_exposure(cells[f.name], banding.n_bands, exposure),
                     indicated=rel,
                     credibility=z.to_numpy(),
                 )
             )
-            sides[f.name] = (Bands(lower, upper), np.arange(b.n_bands))
+            sides[f.name] = (Bands(lower, upper), np.arange(banding.n_bands))
             continue
-        level_rel = rel[b.band_of_level]
-        level_exposure = np.bincount(cells[f.name], weights=exposure, minlength=len(b.levels))
+        levels, band_of_level = banding.level_bands()
+        level_rel = rel[band_of_level]
+        level_exposure = np.bincount(cells[f.name], weights=exposure, minlength=len(levels))
         base = f.base
         if base is None:
-            in_base = np.flatnonzero(b.band_of_level == bases[f.name])
-            base = b.levels[in_base[np.argmax(level_exposure[in_base])]]
-        z = credibility_by_level(amount, exposure, cells[f.name], len(b.levels))["credibility"]
+            in_base = np.flatnonzero(band_of_level == bases[f.name])
+            base = levels[in_base[np.argmax(level_exposure[in_base])]]
+        z = credibility_by_level(amount, exposure, cells[f.name], len(levels))["credibility"]
         out.append(
             CategoricalFactor(
                 f.name,
                 f.monotone,
-                b.levels,
+                levels,
                 selected(level_rel),
                 level_exposure,
                 fallback=f.fallback,
@@ -295,7 +309,7 @@ def _table_factors(
                 credibility=z.to_numpy(),
             )
         )
-        sides[f.name] = (b.levels, b.band_of_level)
+        sides[f.name] = (levels, band_of_level)
     for (a, b), matrix in two_way.items():
         (a_cells, a_band), (b_cells, b_band) = sides[a], sides[b]
         expanded = matrix[np.ix_(a_band, b_band)]
@@ -335,7 +349,8 @@ def _pure_premium_target(spec: Spec, book: Book, train: np.ndarray) -> dict:
     """The target of the rate level (see the module docstring), as stored in table.json."""
     opts, load = spec.table, spec.loadings
     if opts.target == "experience":
-        return {"basis": "experience", "total_pure_premium": float(book.claim_amount[train].sum())}
+        return {"basis": "experience", "total_pure_premium": float(_claim_amount(book)[train].sum())}
+    assert book.current_premium is not None, "the spec refuses table.target = current_premium without its column"
     current = float(book.current_premium[train].sum())
     premium = current * (1.0 + opts.overall_change)
     pure = (
@@ -356,7 +371,10 @@ def _pure_premium_target(spec: Spec, book: Book, train: np.ndarray) -> dict:
     }
 
 
-def _make_table(spec: Spec, factors: tuple, base_rate: float, target: dict, provenance: dict):
+def _make_table(
+    spec: Spec, factors: tuple[Factor, ...], base_rate: float, target: dict, provenance: dict
+) -> RatingTable:
+    """The rating table of `factors` at `base_rate`, with the spec's loadings, rounding and cautions."""
     from rating_tables import Loadings, RatingTable, Rounding
 
     opts, load = spec.table, spec.loadings
@@ -376,13 +394,13 @@ def _make_table(spec: Spec, factors: tuple, base_rate: float, target: dict, prov
 
 def _rate_level(
     spec: Spec,
-    unrounded: tuple,
-    rounded: tuple,
+    unrounded: tuple[Factor, ...],
+    rounded: tuple[Factor, ...],
     frame: pd.DataFrame,
     target: dict,
     provenance: dict,
     current_total: float | None,
-):
+) -> tuple[RatingTable, dict]:
     """Solve the base rate of the rounded table; state the off-balances (module docstring)."""
     from rating_tables import rate, solve_base_rate
 
@@ -409,7 +427,7 @@ def _rate_level(
 
 
 def _fidelity(
-    table,
+    table: RatingTable,
     frame: pd.DataFrame,
     spec: Spec,
     book: Book,
@@ -423,7 +441,7 @@ def _fidelity(
     from premiumlab.models.deviance import mean_deviance
     from rating_tables import rate
 
-    exposure, amount = book.exposure[rows], book.claim_amount[rows]
+    exposure, amount = book.exposure[rows], _claim_amount(book)[rows]
     predictions = {"table": rate(table, frame, spec.columns.exposure)["pure_premium"].to_numpy() / exposure}
     for name in ("gbm", "glm"):
         if f"{name}_pure_premium" in preds.columns:
@@ -520,7 +538,7 @@ def tabulate(
         bandings, rel, two_way, bases, notes = _glm_bands(run, loaded)
     cells = {n: _row_cells(b, loaded, run, rows) for n, b in bandings.items()}
     exposure = loaded.exposure[rows]
-    amount = loaded.claim_amount[rows]
+    amount = _claim_amount(loaded)[rows]
     unrounded = _table_factors(spec, bandings, rel, two_way, bases, cells, exposure, amount, None)
     rounded = _table_factors(
         spec, bandings, rel, two_way, bases, cells, exposure, amount, spec.table.relativity_decimals
