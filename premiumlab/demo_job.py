@@ -29,8 +29,8 @@ max_settings = 4
 """
 
 
-def scenario_file(name: str) -> Path:
-    """Path of a shipped scenario file, e.g. scenario_file("motor.toml")."""
+def _scenario_file(name: str) -> Path:
+    """Path of a shipped scenario file, e.g. _scenario_file("motor.toml")."""
     return Path(str(resources.files("premiumlab.scenarios").joinpath(name)))
 
 
@@ -81,9 +81,9 @@ def run_demo(
     with atomic_output(out, force=force) as tmp:
         book, spec = tmp / "book.parquet", tmp / "spec.toml"
         spec.write_text(
-            scenario_file(f"{SCENARIO}_spec.toml").read_text(encoding="utf-8") + DEMO_SEARCH, encoding="utf-8"
+            _scenario_file(f"{SCENARIO}_spec.toml").read_text(encoding="utf-8") + DEMO_SEARCH, encoding="utf-8"
         )
-        sim = simulate(scenario_file(f"{SCENARIO}.toml"), book, policies=policies)
+        sim = simulate(_scenario_file(f"{SCENARIO}.toml"), book, policies=policies)
         report.step(f"[1/7] simulated {sim['policies']} policies ({sim['rows']} rows) of an invented motor book")
         run = fit(book, spec, tmp / "run", progress=progress, cluster=cluster)
         report.step("[2/7] fitted GLM baselines and boosted models")

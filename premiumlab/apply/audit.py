@@ -38,11 +38,11 @@ def audit_table(table_dir: str | Path, spec_path: str | Path | None, run_dir: st
         promises = {f.name: f.monotone for f in spec.factors if f.monotone != "none"}
     found = [str(v) for v in rating_tables.audit_path(table_dir, promises=promises)]
     if run_dir is not None:
-        found += certificate_violations(run_dir)
+        found += _certificate_violations(run_dir)
     return AuditResult(table=Path(table_dir), violations=tuple(found), cautions=(DRAFT,))
 
 
-def certificate_violations(run_dir: str | Path) -> list[str]:
+def _certificate_violations(run_dir: str | Path) -> list[str]:
     """Re-certify the run's constrained boosted models from their text files alone."""
     from premiumlab._core.jsonio import read_json
     from premiumlab.models.trees.certificate import certify

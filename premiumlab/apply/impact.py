@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 import pandas as pd
@@ -11,10 +12,13 @@ import pandas as pd
 from premiumlab._core.errors import InputError
 from premiumlab.results import ImpactResult
 
+if TYPE_CHECKING:
+    from rating_tables.table import RatingTable
+
 COLUMN_PREFIX = "column:"
 
 
-def read_frame(path: str | Path) -> pd.DataFrame:
+def _read_frame(path: str | Path) -> pd.DataFrame:
     """A whole book as a DataFrame (CSV values as strings, so "01" stays "01"), for `impact`."""
     from premiumlab.book.reading import iter_book, read_columns
 
@@ -25,7 +29,7 @@ def read_frame(path: str | Path) -> pd.DataFrame:
     return pd.concat(parts, ignore_index=True)
 
 
-def column_premiums(source: str, frame: pd.DataFrame) -> np.ndarray:
+def _column_premiums(source: str, frame: pd.DataFrame) -> np.ndarray:
     """Premiums per policy from the book column named by `source` (`column:NAME`), all > 0."""
     name = source[len(COLUMN_PREFIX) :]
     if name not in frame.columns:
@@ -40,7 +44,7 @@ def column_premiums(source: str, frame: pd.DataFrame) -> np.ndarray:
     return values
 
 
-def gross_premiums(table, frame: pd.DataFrame, exposure: str | None, annual: bool) -> np.ndarray:
+def _gross_premiums(table: RatingTable, frame: pd.DataFrame, exposure: str | None, annual: bool) -> np.ndarray:
     """Gross premiums per policy rated with a loaded table."""
     import rating_tables
 
@@ -85,17 +89,17 @@ def dislocation(
 
     if proposed.startswith(COLUMN_PREFIX):
         raise InputError(f"--proposed {proposed}: the proposed premium must come from a table folder")
-    frame = read_frame(book)
+    frame = _read_frame(book)
     table = rating_tables.load(proposed)
     if current.startswith(COLUMN_PREFIX):
-        tables, now = [table], column_premiums(current, frame)
+        tables, now = [table], _column_premiums(current, frame)
     else:
         current_table = rating_tables.load(current)
-        tables, now = [table, current_table], gross_premiums(current_table, frame, exposure, annual)
-    groups = impact_groups(frame, tables)
+        tables, now = [table, current_table], _gross_premiums(current_table, frame, exposure, annual)
+    groups = _impact_groups(frame, tables)
     result = rating_tables.impact(
         now,
-        gross_premiums(table, frame, exposure, annual),
+        _gross_premiums(table, frame, exposure, annual),
         groups,
         list(groups.columns),
         thresholds=thresholds,
@@ -115,7 +119,7 @@ def dislocation(
     )
 
 
-def impact_groups(frame: pd.DataFrame, tables: list) -> pd.DataFrame:
+def _impact_groups(frame: pd.DataFrame, tables: list[RatingTable]) -> pd.DataFrame:
     """The factor columns the impact is broken down by: every main factor of the tables (the
     proposed first, so a factor the proposed table drops is still shown), a numeric factor cut into
     the bands of the first table that has it, a categorical factor as it is."""
@@ -140,7 +144,26 @@ def write_impact(
     result: ImpactResult, out: Path | None, figure: Path | None, force: bool, inputs: tuple[str | Path, ...]
 ) -> None:
     """Write the impact summary as JSON to `out` and its figure (`figures.plot_impact`) to `figure`,
-    both or neither."""
+    both or neither.
+
+    Parameters
+    ----------
+    result : ImpactResult
+        The summary `dislocation` returned.
+    out : Path or None
+        JSON file for `result.to_dict()` (None: not written).
+    figure : Path or None
+        PNG file for the figure (None: not drawn); its name must differ from `out`'s.
+    force : bool
+        Replace existing files at `out` and `figure`.
+    inputs : tuple of str or Path
+        The command's inputs (tables and book), which neither output may overwrite.
+
+    Raises
+    ------
+    InputError
+        When `figure` is not a .png file, or `out` and `figure` share a name.
+    """
     from premiumlab._core.jsonio import write_json
     from premiumlab._core.outputs import atomic_files
     from premiumlab.evaluation.figures import plot_impact
@@ -161,7 +184,24 @@ def write_impact(
 
 def parse_thresholds(thresholds: str | Sequence[float]) -> tuple[float, ...]:
     """'0.05,0.1' or (0.05, 0.1) -> (0.05, 0.1): the increases whose shares `impact` reports; at
-    least one, every one finite."""
+    least one, every one finite.
+
+    Parameters
+    ----------
+    thresholds : str or sequence of float
+        Premium increases as shares of the current premium (0.1 = 10 %): numbers separated by
+        commas (blank entries skipped), or the numbers themselves.
+
+    Returns
+    -------
+    tuple of float
+        The thresholds in the order given.
+
+    Raises
+    ------
+    InputError
+        When an entry is not a number, no entry is given, or one is not finite.
+    """
     try:
         values = tuple(
             float(t)

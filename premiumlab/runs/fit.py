@@ -33,7 +33,7 @@ from premiumlab.runs.rundir import RunDir
 MODEL_KINDS = ("glm", "gbm")
 
 
-def parse_models(text: str) -> list[str]:
+def _parse_models(text: str) -> list[str]:
     """'glm,gbm' -> ['glm', 'gbm'], refusing unknown or repeated names."""
     names = [t.strip() for t in text.split(",") if t.strip()]
     bad = [n for n in names if n not in MODEL_KINDS]
@@ -76,10 +76,36 @@ def fit(
 ) -> Path:
     """Fit the requested models on the training part of the book and write the run directory.
 
-    `progress`: told the experience step's totals (None: nothing is said). `cluster`: where the
-    boosted-model search runs (premiumlab.cluster: None for this process, local:N or a Dask
-    scheduler address)."""
-    kinds = parse_models(models)
+    Parameters
+    ----------
+    book_path : str or Path
+        The book (.csv, .parquet or a folder of parts).
+    spec_path : str or Path
+        The pricing spec (TOML, docs/spec.md); files it names are resolved against its folder.
+    out : str or Path
+        The run directory to write (docs/run-directory.md), atomically.
+    models : str
+        Model kinds separated by commas: "glm", "gbm" or "glm,gbm".
+    force : bool
+        Replace an existing `out`.
+    progress : Progress or None
+        Told the experience step's totals (None: nothing is said).
+    cluster : str or None
+        Where the boosted-model search runs (premiumlab._core.cluster): None for this process,
+        local:N for N local worker processes, or a Dask scheduler address.
+
+    Returns
+    -------
+    Path
+        The run directory `out`.
+
+    Raises
+    ------
+    InputError
+        On an unknown or repeated model kind, a bad cluster address, spec or book, an existing
+        `out` without `force`, or a split that leaves no training rows.
+    """
+    kinds = _parse_models(models)
     if cluster is not None:
         parse_cluster(cluster)
     spec = load_spec(spec_path)
@@ -108,6 +134,7 @@ def _fit_run(
     if exp.configured or exp.period_control or spec.split.out_of_time:
         periods = read_text_column(book_path, spec.columns.period) if spec.columns.period else None
     if spec.split.out_of_time:
+        assert periods is not None, "the spec refuses split.holdout = 'latest_period' without columns.period"
         book.holdout = latest_period_holdout(periods)
     timings["load_seconds"] = time.perf_counter() - t0
     train = ~book.holdout
@@ -132,7 +159,9 @@ def _fit_run(
             )
     control = None
     if exp.period_control:
-        control = period_control(periods, book.exposure, train, spec.columns.period)
+        period = spec.columns.period
+        assert periods is not None and period is not None, "the spec refuses period_control without columns.period"
+        control = period_control(periods, book.exposure, train, period)
     with atomic_output(out, force=force) as tmp:
         run = RunDir(tmp)
         run.models.mkdir()

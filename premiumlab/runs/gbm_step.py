@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from dataclasses import replace
+from typing import TYPE_CHECKING
 
 import numpy as np
 import pandas as pd
@@ -16,6 +17,9 @@ from premiumlab.models.gbm.features import features_from_spec
 from premiumlab.models.targets import TARGETS
 from premiumlab.runs.rundir import RunDir, model_name
 
+if TYPE_CHECKING:
+    from premiumlab.models.gbm.fit import GbmModel
+
 #: Held-out policies swept per promised factor by the empirical monotonicity check.
 SWEEP_POLICIES = 1000
 #: Policies in the sample for Friedman's H statistic, and factors (top by gain) it pairs.
@@ -23,7 +27,7 @@ H_SAMPLE = 300
 H_FACTORS = 6
 
 
-def gbm_options(spec: Spec, glm_power: float | None) -> GbmOptions:
+def _gbm_options(spec: Spec, glm_power: float | None) -> GbmOptions:
     """The spec's [gbm] options; a Tweedie power not fixed there is the GLM's (`glm_power`, if fitted)."""
     return spec.gbm if spec.gbm.tweedie_power is not None else replace(spec.gbm, tweedie_power=glm_power)
 
@@ -39,7 +43,28 @@ def fit_gbms(
 ) -> None:
     """Fit frequency, severity and pure-premium models on the training rows (the search's fits on
     `runner`); write models, the monotonicity certificate and the interaction ranking; add
-    predictions for every row."""
+    predictions for every row.
+
+    Parameters
+    ----------
+    book : Book
+        The book with the figures the models are fitted to (adjusted when the run adjusts them);
+        without claim amounts only the frequency model is fitted.
+    spec : Spec
+        The pricing spec: factors and their monotone promises, [gbm] options, the split's seed.
+    train : np.ndarray
+        Boolean mask of the training rows.
+    glm_power : float or None
+        The Tweedie power of the GLM's pure-premium fit, used when [gbm] fixes none (None: no GLM).
+    run : RunDir
+        The run directory being written: models/gbm_TARGET.txt and .json, certificate.json and
+        interactions.json go there.
+    preds : pd.DataFrame
+        The predictions frame, one row per book row, changed in place: it gains gbm_TARGET per
+        fitted target (per exposure unit) and, with a severity model, gbm_freq_x_sev.
+    runner : TaskRunner
+        Where the cross-validation search's (setting, fold) fits run (default: this process).
+    """
     from premiumlab.models.gbm.fit import fit_target
     from premiumlab.models.gbm.training import GbmInputs
 
@@ -54,7 +79,7 @@ def fit_gbms(
         claim_amount=None if book.claim_amount is None else book.claim_amount[train],
         groups=groups,
     )
-    options = gbm_options(spec, glm_power)
+    options = _gbm_options(spec, glm_power)
     targets = [name for name, t in TARGETS.items() if book.claim_amount is not None or not t.needs_amount]
     models = {}
     for target in targets:
@@ -66,11 +91,11 @@ def fit_gbms(
     if "severity" in models:
         preds["gbm_freq_x_sev"] = preds["gbm_frequency"] * preds["gbm_severity"]
     main = models.get("pure_premium", models["frequency"])
-    write_json(run.certificate, certify_run(models, features, book.holdout, spec))
-    write_json(run.interactions, rank_interactions(main, features, train, spec))
+    write_json(run.certificate, _certify_run(models, features, book.holdout, spec))
+    write_json(run.interactions, _rank_interactions(main, features, train, spec))
 
 
-def certify_run(models: dict, features: pd.DataFrame, holdout: np.ndarray, spec: Spec) -> dict:
+def _certify_run(models: dict[str, GbmModel], features: pd.DataFrame, holdout: np.ndarray, spec: Spec) -> dict:
     """Structural certificate and empirical sweep for every promised factor of each constrained model."""
     from premiumlab.models.trees.certificate import certify, sweep
 
@@ -94,7 +119,7 @@ def certify_run(models: dict, features: pd.DataFrame, holdout: np.ndarray, spec:
     }
 
 
-def rank_interactions(model, features: pd.DataFrame, train: np.ndarray, spec: Spec) -> dict:
+def _rank_interactions(model: GbmModel, features: pd.DataFrame, train: np.ndarray, spec: Spec) -> dict:
     """Friedman's H for pairs of the top factors by gain, on a seeded sample of training policies."""
     from premiumlab.models.trees.interactions import h_statistics, top_factors_by_gain
 

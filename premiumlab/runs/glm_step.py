@@ -32,14 +32,32 @@ class PeriodControl:
 
 
 def period_control(periods: np.ndarray, exposure: np.ndarray, train: np.ndarray, name: str) -> PeriodControl:
-    """The period column as a control factor, its base the period with the largest training exposure."""
+    """The period column as a control factor, its base the period with the largest training exposure.
+
+    Parameters
+    ----------
+    periods : np.ndarray
+        Period label of every book row.
+    exposure : np.ndarray
+        Exposure of every book row, in the book's exposure unit (e.g. policy-years).
+    train : np.ndarray
+        Boolean mask of the training rows.
+    name : str
+        The period column's name, which the control factor takes.
+
+    Returns
+    -------
+    PeriodControl
+        The periods as an ordered categorical (levels: the training rows' periods in period order),
+        the base, and the training exposure per period.
+    """
     order = period_order(periods[train].tolist())
     values = pd.Categorical(periods, categories=order, ordered=True)
     expo = np.bincount(values.codes[train], weights=exposure[train], minlength=len(order))
     return PeriodControl(name, values, order[int(np.argmax(expo))], expo)
 
 
-def glm_inputs(
+def _glm_inputs(
     book: Book,
     cats: pd.DataFrame,
     levels: dict[str, Levels],
@@ -80,7 +98,39 @@ def fit_glms(
     """Fit the three GLMs on the training rows, write them to the run's models/ and add their
     predictions of every row to `preds`; with a period control, predict at the control's
     training-exposure-weighted mean relativity (the period is never tabled). Returns the pure-premium
-    model's Tweedie power (None without claim amounts)."""
+    model's Tweedie power (None without claim amounts).
+
+    Parameters
+    ----------
+    book : Book
+        The book with the figures the models are fitted to (adjusted when the run adjusts them).
+    cats : pd.DataFrame
+        The factors of every book row as categoricals on the run's levels.
+    levels : dict[str, Levels]
+        Labels, base and band edges of each factor, fixed on the training rows.
+    train : np.ndarray
+        Boolean mask of the training rows.
+    spec : Spec
+        The pricing spec: [glm] engine and Tweedie power.
+    run : RunDir
+        The run directory being written: models/glm_TARGET.json go there.
+    preds : pd.DataFrame
+        The predictions frame, one row per book row, changed in place: it gains glm_frequency and,
+        with amounts, glm_severity, glm_pure_premium and glm_freq_x_sev (per exposure unit).
+    has_amount : bool
+        The book has claim amounts: fit the severity and pure-premium GLMs too.
+    adjustment : Adjustment or None
+        The experience step's result: frequency and severity are fitted on count_base with exposure
+        and amount divided by count_multiplier, the pure premium on the adjusted amounts (None: the
+        book as it is).
+    control : PeriodControl or None
+        The period as a control factor (None: no control).
+
+    Returns
+    -------
+    float or None
+        The Tweedie power of the pure-premium GLM (None without claim amounts).
+    """
     names: list[str] = []
     if control is not None:
         cats = cats.assign(**{control.name: control.values})
@@ -88,8 +138,8 @@ def fit_glms(
         names = [control.name]
     multiplier = None if adjustment is None else adjustment.count_multiplier
     counts = book if adjustment is None else replace(book, claim_count=adjustment.count_base)
-    inputs = glm_inputs(counts, cats, levels, train, multiplier, names)
-    whole = glm_inputs(counts, cats, levels, train, None, names) if multiplier is not None else inputs
+    inputs = _glm_inputs(counts, cats, levels, train, multiplier, names)
+    whole = _glm_inputs(counts, cats, levels, train, None, names) if multiplier is not None else inputs
     engine = spec.glm.engine
     results = {"frequency": fit_frequency(inputs, engine=engine)}
     if has_amount:

@@ -34,7 +34,20 @@ MANIFEST_VERSION = 1
 
 def model_name(kind: str, target: str) -> str:
     """A fitted model's name, e.g. "gbm_pure_premium": its file stem in models/ and its column in
-    predictions.parquet."""
+    predictions.parquet.
+
+    Parameters
+    ----------
+    kind : str
+        The model kind: "glm" or "gbm".
+    target : str
+        The target: "frequency", "severity" or "pure_premium" (`premiumlab.models.targets`).
+
+    Returns
+    -------
+    str
+        "KIND_TARGET".
+    """
     return f"{kind}_{target}"
 
 
@@ -164,12 +177,30 @@ class Run:
                 f"({recorded}, {self.files.manifest} key 'book.sha256')"
             )
         if self.spec.split.out_of_time:
-            book.holdout = latest_period_holdout(read_text_column(p, self.spec.columns.period))
+            period = self.spec.columns.period
+            assert period is not None, "the spec refuses split.holdout = 'latest_period' without columns.period"
+            book.holdout = latest_period_holdout(read_text_column(p, period))
         return book
 
 
 def open_run(path: str | Path) -> Run:
-    """Read a run directory written by `fit`."""
+    """Read a run directory written by `fit`.
+
+    Parameters
+    ----------
+    path : str or Path
+        The run directory.
+
+    Returns
+    -------
+    Run
+        Its paths, run.json, the spec stored in run.json and the factor levels of levels.json.
+
+    Raises
+    ------
+    InputError
+        When `path` has no run.json, or the stored spec is not a valid spec.
+    """
     files = RunDir(Path(path))
     manifest = files.read_manifest()
     spec = parse_spec(manifest["spec"], source=str(files.manifest))

@@ -44,33 +44,41 @@ class Banding:
 
     @property
     def n_bands(self) -> int:
-        return self.edges.size + 1 if self.numeric else int(self.band_of_level.max()) + 1
+        return self.edges.size + 1 if self.edges is not None else int(self.level_bands()[1].max()) + 1
 
     @property
     def direction(self) -> int:
         """The promise's sign: +1 increasing, -1 decreasing, 0 none."""
         return Monotone(self.monotone).sign
 
+    def level_bands(self) -> tuple[tuple[str, ...], np.ndarray]:
+        """`(levels, band_of_level)` of a categorical banding; a numeric banding has neither."""
+        if self.levels is None or self.band_of_level is None:
+            raise TypeError(f"banding of '{self.name}': a numeric banding has no levels")
+        return self.levels, self.band_of_level
+
     def codes(self, values: np.ndarray) -> np.ndarray:
         """Band of each value: numeric values, or level indices into `levels`."""
-        if self.numeric:
+        if self.edges is not None:
             return np.searchsorted(self.edges, np.asarray(values, dtype=float), side="right")
-        return self.band_of_level[values]
+        return self.level_bands()[1][values]
 
     def merged(self, k: int) -> Banding:
         """The banding with bands k and k+1 pooled into one."""
-        if self.numeric:
+        if self.edges is not None:
             return replace(self, edges=np.delete(self.edges, k))
-        return replace(self, band_of_level=np.where(self.band_of_level > k, self.band_of_level - 1, self.band_of_level))
+        band = self.level_bands()[1]
+        return replace(self, band_of_level=np.where(band > k, band - 1, band))
 
     def labels(self) -> list[str]:
         """Band labels: `[lower, upper)` or the levels of the band joined by `+`."""
-        if self.numeric:
+        if self.edges is not None:
             return band_labels(self.edges)
-        return ["+".join(lv for lv, b in zip(self.levels, self.band_of_level) if b == k) for k in range(self.n_bands)]
+        levels, band = self.level_bands()
+        return ["+".join(lv for lv, b in zip(levels, band) if b == k) for k in range(self.n_bands)]
 
 
-def ordered_bands(curve: Curve, direction: int, max_bands: int, min_share: float) -> np.ndarray:
+def _ordered_bands(curve: Curve, direction: int, max_bands: int, min_share: float) -> np.ndarray:
     """Band index of each curve point: isotonic curve when a direction is promised, then the optimal
     segmentation (at most `max_bands` bands, each holding at least `min_share` of the weight)."""
     effect = curve.effect if direction == 0 else isotonic(curve.effect, curve.weight, increasing=direction > 0)
@@ -78,8 +86,27 @@ def ordered_bands(curve: Curve, direction: int, max_bands: int, min_share: float
 
 
 def numeric_banding(curve: Curve, monotone: str, max_bands: int, min_share: float) -> Banding:
-    """Bands of a numeric factor from its curve; edges at the first grid value of each band."""
-    band = ordered_bands(curve, Monotone(monotone).sign, max_bands, min_share)
+    """Bands of a numeric factor from its curve; edges at the first grid value of each band.
+
+    Parameters
+    ----------
+    curve : Curve
+        The factor's effect curve on its exposure-quantile grid (`effects.effect_curve`).
+    monotone : str
+        The spec's promise: "increasing", "decreasing" or "none"; a promised curve is made
+        isotonic before it is segmented.
+    max_bands : int
+        Most bands allowed (>= 1).
+    min_share : float
+        Least share of the curve's total weight (training exposure) per band, in [0, 1].
+
+    Returns
+    -------
+    Banding
+        A numeric banding: edges = the grid values where bands 1, 2, ... start (ascending), so
+        band k is [edges[k-1], edges[k]).
+    """
+    band = _ordered_bands(curve, Monotone(monotone).sign, max_bands, min_share)
     starts = np.flatnonzero(np.diff(band)) + 1
     return Banding(curve.factor, monotone, edges=np.asarray(curve.points, dtype=float)[starts])
 
@@ -87,7 +114,24 @@ def numeric_banding(curve: Curve, monotone: str, max_bands: int, min_share: floa
 def merge_thin_levels(effect: np.ndarray, weight: np.ndarray, min_weight: float) -> np.ndarray:
     """Group of each level: levels sorted by effect, then the thinnest group under `min_weight` joins
     the adjacent group (in effect order) whose exposure-weighted mean effect is nearest (the lower one
-    on a tie), until no group is thin or one group is left. Groups are numbered in effect order."""
+    on a tie), until no group is thin or one group is left. Groups are numbered in effect order.
+
+    A merged group's effect is the weighted mean sum(w_i e_i) / sum(w_i) of its levels.
+
+    Parameters
+    ----------
+    effect : np.ndarray
+        Effect of each level on the log score (up to a constant).
+    weight : np.ndarray
+        Training exposure of each level (> 0).
+    min_weight : float
+        Least exposure a group may hold, in the unit of `weight`.
+
+    Returns
+    -------
+    np.ndarray
+        Group (int64, 0 = lowest effect) of each level, in the order of `effect`.
+    """
     order = np.argsort(effect, kind="stable")
     groups = [[int(i)] for i in order]
     total = [float(weight[i]) for i in order]
@@ -121,10 +165,37 @@ def categorical_banding(
 ) -> Banding:
     """Bands of a categorical factor. `curve.points` index `levels` (levels without training exposure
     are absent from the curve): they join the previous level's band when ordered (the first band when
-    no level precedes), else the band holding the most exposure."""
+    no level precedes), else the band holding the most exposure.
+
+    Ordered: isotonic where promised, then the optimal segmentation, as for a numeric factor.
+    Unordered: `merge_thin_levels` with a least weight of min_share x the curve's total weight.
+
+    Parameters
+    ----------
+    curve : Curve
+        The factor's effect at its levels with training exposure (`effects.effect_curve`).
+    levels : tuple of str
+        Every level of the factor, as the run fixed them.
+    monotone : str
+        The spec's promise on the level order: "increasing", "decreasing" or "none".
+    ordered : bool
+        The spec gives a level order: bands are contiguous runs of levels in that order; else
+        levels are grouped in effect order.
+    max_bands : int
+        Most bands of an ordered factor (>= 1); an unordered one is limited by `min_share` only.
+    min_share : float
+        Least share of the curve's total weight (training exposure) per band, in [0, 1].
+    base_level : str or None
+        The spec's base level, whose band gets relativity 1 (None: the most exposed band).
+
+    Returns
+    -------
+    Banding
+        A categorical banding: the band of every level in `levels`.
+    """
     points = np.asarray(curve.points, dtype=np.int64)
     if ordered:
-        present = ordered_bands(curve, Monotone(monotone).sign, max_bands, min_share)
+        present = _ordered_bands(curve, Monotone(monotone).sign, max_bands, min_share)
     else:
         present = merge_thin_levels(curve.effect, curve.weight, min_share * curve.weight.sum())
     band = np.full(len(levels), -1, dtype=np.int64)
@@ -140,7 +211,21 @@ def categorical_banding(
 
 
 def base_band(banding: Banding, band_exposure: np.ndarray) -> int:
-    """The band whose relativity is 1: the spec's base level's band, else the most exposed band."""
+    """The band whose relativity is 1: the spec's base level's band, else the most exposed band.
+
+    Parameters
+    ----------
+    banding : Banding
+        The factor's banding.
+    band_exposure : np.ndarray
+        Training exposure of each band (`refit.band_exposure`).
+
+    Returns
+    -------
+    int
+        The base band's index (the first of equally exposed bands).
+    """
     if banding.base_level is not None and not banding.numeric:
-        return int(banding.band_of_level[banding.levels.index(banding.base_level)])
+        levels, band = banding.level_bands()
+        return int(band[levels.index(banding.base_level)])
     return int(np.argmax(band_exposure))

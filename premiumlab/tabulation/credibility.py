@@ -50,7 +50,36 @@ class BuhlmannStraub:
 
 
 def buhlmann_straub(x: np.ndarray, w: np.ndarray, group: np.ndarray, n_groups: int) -> BuhlmannStraub:
-    """Fit Buhlmann-Straub to units with values `x`, weights `w` > 0 and level codes `group` (0..n-1)."""
+    """Fit Buhlmann-Straub to units with values `x`, weights `w` > 0 and level codes `group` (0..n-1).
+
+    The estimators of the module docstring: m_i, xbar_i, xbar, the within-level variance
+    v = sum_i sum_j m_ij (x_ij - xbar_i)^2 / sum_i (n_i - 1), the between-level variance
+    a = max(0, (sum_i m_i (xbar_i - xbar)^2 - (r - 1) v) / (m - sum_i m_i^2 / m)) and the credibility
+    Z_i = m_i / (m_i + v / a). v is NaN and a is 0 when no level has two units; a is 0 with fewer
+    than two levels with weight; every Z_i is 0 when a = 0.
+
+    Parameters
+    ----------
+    x : np.ndarray
+        Value of each unit, e.g. pure premium in money per exposure unit; finite.
+    w : np.ndarray
+        Weight of each unit (> 0), e.g. its exposure.
+    group : np.ndarray
+        Level code of each unit, in 0 .. n_groups-1.
+    n_groups : int
+        Number of levels; levels without units get weight 0, mean NaN and credibility 0.
+
+    Returns
+    -------
+    BuhlmannStraub
+        Per level: weight m_i, units n_i, mean xbar_i and credibility Z_i; overall: xbar, v and a.
+
+    Raises
+    ------
+    InputError
+        When `x` or `w` is not finite, `w` is not > 0, their length differs from `group`'s, or a
+        code lies outside 0 .. n_groups-1.
+    """
     group = np.asarray(group, dtype=np.int64)
     x = checked_array("credibility values", x, rows=len(group))
     w = checked_array("credibility weights", w, ABOVE_ZERO, rows=len(group))
@@ -75,7 +104,26 @@ def buhlmann_straub(x: np.ndarray, w: np.ndarray, group: np.ndarray, n_groups: i
 
 def neighbour_complement(mean: np.ndarray, weight: np.ndarray, overall: float) -> np.ndarray:
     """Per band: the weight-averaged mean of the bands just below and above it (one at the ends);
-    `overall` where the neighbours have no weight."""
+    `overall` where the neighbours have no weight.
+
+    C_k = (w_{k-1} xbar_{k-1} + w_{k+1} xbar_{k+1}) / (w_{k-1} + w_{k+1}), a missing or weightless
+    neighbour counting 0.
+
+    Parameters
+    ----------
+    mean : np.ndarray
+        Mean experience xbar_k of each band in ascending band order (NaN allowed where the band has
+        no weight), e.g. money per exposure unit.
+    weight : np.ndarray
+        Weight w_k (exposure) of each band, >= 0.
+    overall : float
+        The complement where neither neighbour has weight, in the unit of `mean`.
+
+    Returns
+    -------
+    np.ndarray
+        The complement C_k of each band, in the unit of `mean`.
+    """
     mean = np.where(weight > 0, mean, 0.0)
     left_w, right_w = np.concatenate([[0.0], weight[:-1]]), np.concatenate([weight[1:], [0.0]])
     left_s, right_s = np.concatenate([[0.0], (mean * weight)[:-1]]), np.concatenate([(mean * weight)[1:], [0.0]])
@@ -89,10 +137,32 @@ def credibility_by_level(
 ) -> pd.DataFrame:
     """Buhlmann-Straub credibility of each level's pure premium toward its complement.
 
-    amount (money) and exposure (> 0) of each row, codes its level or band (0..n_levels-1, bands in
-    ascending order when `numeric`). One row per level: exposure, rows, experience (amount per
-    exposure unit), complement, credibility Z and the credibility-weighted estimate
-    Z x experience + (1 - Z) x complement; the structural figures are in `.attrs`.
+    The units are the rows, x = amount / exposure with weight exposure (`buhlmann_straub`); the
+    complement is the overall mean xbar, or for bands of a numeric factor the mean of the
+    neighbouring bands (`neighbour_complement`).
+
+    Parameters
+    ----------
+    amount : np.ndarray
+        Claim amount of each row (money).
+    exposure : np.ndarray
+        Exposure of each row (> 0), in the book's exposure unit.
+    codes : np.ndarray
+        Level or band of each row, in 0 .. n_levels-1.
+    n_levels : int
+        Number of levels or bands.
+    numeric : bool
+        The codes are bands of a numeric factor in ascending order: the complement is the
+        neighbouring bands' experience instead of the overall experience.
+
+    Returns
+    -------
+    pd.DataFrame
+        One row per level: exposure, rows, experience (amount per exposure unit; NaN without
+        exposure), complement, credibility Z in [0, 1] and the credibility-weighted estimate
+        Z x experience + (1 - Z) x complement (the complement where the level has no exposure).
+        `.attrs` holds the structural figures: within_variance v, between_variance a, k = v / a,
+        overall and the kind of complement.
     """
     exposure = np.asarray(exposure, dtype=float)
     fit = buhlmann_straub(np.asarray(amount, dtype=float) / exposure, exposure, codes, n_levels)

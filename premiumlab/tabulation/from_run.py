@@ -27,6 +27,7 @@ from __future__ import annotations
 import time
 from dataclasses import replace
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 import pandas as pd
@@ -43,6 +44,10 @@ from premiumlab.tabulation.distill import distil
 from premiumlab.tabulation.effects import FactorValues, exposure_sample
 from premiumlab.tabulation.refit import band_exposure, round_relativity
 
+if TYPE_CHECKING:
+    from premiumlab.models.gbm.fit import GbmModel
+    from rating_tables.table import Cells, Factor, RatingTable
+
 MODELS = ("gbm", "glm")
 #: Training rows on which the rebuilt features must reproduce the run's boosted predictions.
 CHECK_ROWS = 2000
@@ -54,15 +59,40 @@ CHECK_TOLERANCE = 1e-9
 
 
 def reread_book(run: Run, book: str | Path | None = None) -> Book:
-    """The run's book (or `book`, e.g. after a move), refused unless its sha256 is the run's."""
+    """The run's book (or `book`, e.g. after a move), refused unless its sha256 is the run's.
+
+    Parameters
+    ----------
+    run : Run
+        The run directory read back (`open_run`).
+    book : str or Path or None
+        Where the book is now (None: the path recorded in run.json, relative to the run).
+
+    Returns
+    -------
+    Book
+        The book, typed and checked, with the run's split.
+
+    Raises
+    ------
+    InputError
+        When the book differs from the run's (sha256), or the spec names no claim amounts.
+    """
     loaded = run.load_book(book)
-    path = loaded.path
-    if loaded.claim_amount is None:
-        raise InputError(f"{path}: a pure-premium table needs claim amounts; the spec names no columns.claim_amount")
+    _claim_amount(loaded)
     return loaded
 
 
-def checked_predictions(run: Run, book: Book, column: str) -> pd.DataFrame:
+def _claim_amount(book: Book) -> np.ndarray:
+    """The claim amount (money) of every book row, refused when the book has none."""
+    if book.claim_amount is None:
+        raise InputError(
+            f"{book.path}: a pure-premium table needs claim amounts; the spec names no columns.claim_amount"
+        )
+    return book.claim_amount
+
+
+def _checked_predictions(run: Run, book: Book, column: str) -> pd.DataFrame:
     """predictions.parquet, checked row by row against the book and for the column needed."""
     preds = run.predictions()
     where = run.files.predictions
@@ -75,7 +105,7 @@ def checked_predictions(run: Run, book: Book, column: str) -> pd.DataFrame:
     return preds
 
 
-def fitted_amounts(book: Book, preds: pd.DataFrame) -> Book:
+def _fitted_amounts(book: Book, preds: pd.DataFrame) -> Book:
     """The book with the claim amounts the models were fitted to: after [experience] adjustments
     (developed, trended, capped plus loads) when the run made them, else as observed."""
     if "claim_amount_adjusted" not in preds.columns:
@@ -83,7 +113,7 @@ def fitted_amounts(book: Book, preds: pd.DataFrame) -> Book:
     return replace(book, claim_amount=preds["claim_amount_adjusted"].to_numpy(dtype=float))
 
 
-def level_indices(book: Book, run: Run, name: str) -> tuple[tuple[str, ...], np.ndarray]:
+def _level_indices(book: Book, run: Run, name: str) -> tuple[tuple[str, ...], np.ndarray]:
     """(levels of a categorical factor as the run fixed them, index of each book row's level)."""
     levels = tuple(run.levels[name].labels)
     codes = pd.Categorical(book.frame[name], categories=list(levels)).codes.astype(np.int64)
@@ -100,7 +130,7 @@ def level_indices(book: Book, run: Run, name: str) -> tuple[tuple[str, ...], np.
 # bands and relativities from either model
 
 
-def gbm_bands(run: Run, book: Book, preds: pd.DataFrame, train: np.ndarray) -> tuple[dict, dict, dict, dict, dict]:
+def _gbm_bands(run: Run, book: Book, preds: pd.DataFrame, train: np.ndarray) -> tuple[dict, dict, dict, dict, dict]:
     """Distil the boosted pure-premium model: (bandings, relativities, two-way tables, base bands, notes)."""
     from premiumlab.models.gbm.features import features_from_spec
     from premiumlab.models.gbm.fit import load_model
@@ -121,7 +151,7 @@ def gbm_bands(run: Run, book: Book, preds: pd.DataFrame, train: np.ndarray) -> t
         if f.type == "numeric":
             factors.append(FactorValues(f.name, f.monotone, book.frame[f.name].to_numpy(dtype=float)[rows]))
             continue
-        levels, codes = level_indices(book, run, f.name)
+        levels, codes = _level_indices(book, run, f.name)
         factors.append(
             FactorValues(
                 f.name,
@@ -151,7 +181,7 @@ def gbm_bands(run: Run, book: Book, preds: pd.DataFrame, train: np.ndarray) -> t
     return result.pooled.bandings, fit.relativities, fit.two_way, fit.bases, notes
 
 
-def _model_codes(model, name: str, levels: tuple[str, ...]) -> np.ndarray:
+def _model_codes(model: GbmModel, name: str, levels: tuple[str, ...]) -> np.ndarray:
     """The boosted model's code of each level: its stored category position, or the level's position
     for an ordered factor passed as codes."""
     if name not in model.categories:
@@ -163,7 +193,7 @@ def _model_codes(model, name: str, levels: tuple[str, ...]) -> np.ndarray:
     return np.array([position[level] for level in levels], dtype=float)
 
 
-def glm_bands(run: Run, book: Book) -> tuple[dict, dict, dict, dict, dict]:
+def _glm_bands(run: Run, book: Book) -> tuple[dict, dict, dict, dict, dict]:
     """The Tweedie GLM's relativities on the run's bands: (bandings, relativities, {}, base bands, notes)."""
     from premiumlab.book.bands import band_labels
 
@@ -212,10 +242,10 @@ def _row_cells(banding: Banding, book: Book, run: Run, rows: np.ndarray) -> np.n
     """Per training row: its band (numeric) or its level index (categorical)."""
     if banding.numeric:
         return banding.codes(book.frame[banding.name].to_numpy(dtype=float)[rows])
-    return level_indices(book, run, banding.name)[1][rows]
+    return _level_indices(book, run, banding.name)[1][rows]
 
 
-def table_factors(
+def _table_factors(
     spec: Spec,
     bandings: dict[str, Banding],
     relativities: dict[str, np.ndarray],
@@ -225,7 +255,7 @@ def table_factors(
     exposure: np.ndarray,
     amount: np.ndarray,
     decimals: int | None,
-) -> tuple:
+) -> tuple[Factor, ...]:
     """Rating-table factors in spec order, then the two-way tables; relativities rounded to `decimals`
     (None: unrounded), the unrounded refit kept as `indicated`, exposure of the training rows, and the
     Buhlmann-Straub credibility of each band's or level's own experience (amount per exposure) toward
@@ -236,13 +266,14 @@ def table_factors(
     def selected(values: np.ndarray) -> np.ndarray:
         return values if decimals is None else round_relativity(values, decimals)
 
-    out, sides = [], {}
+    out: list[Factor] = []
+    sides: dict[str, tuple[Cells, np.ndarray]] = {}
     for f in spec.factors:
-        b, rel = bandings[f.name], relativities[f.name]
-        if b.numeric:
-            lower = np.concatenate([[-np.inf], b.edges])
-            upper = np.concatenate([b.edges, [np.inf]])
-            z = credibility_by_level(amount, exposure, cells[f.name], b.n_bands, numeric=True)["credibility"]
+        banding, rel = bandings[f.name], relativities[f.name]
+        if banding.edges is not None:
+            lower = np.concatenate([[-np.inf], banding.edges])
+            upper = np.concatenate([banding.edges, [np.inf]])
+            z = credibility_by_level(amount, exposure, cells[f.name], banding.n_bands, numeric=True)["credibility"]
             out.append(
                 NumericFactor(
                     f.name,
@@ -250,25 +281,26 @@ def table_factors(
                     lower,
                     upper,
                     selected(rel),
-                    band_exposure(cells[f.name], b.n_bands, exposure),
+                    band_exposure(cells[f.name], banding.n_bands, exposure),
                     indicated=rel,
                     credibility=z.to_numpy(),
                 )
             )
-            sides[f.name] = (Bands(lower, upper), np.arange(b.n_bands))
+            sides[f.name] = (Bands(lower, upper), np.arange(banding.n_bands))
             continue
-        level_rel = rel[b.band_of_level]
-        level_exposure = np.bincount(cells[f.name], weights=exposure, minlength=len(b.levels))
+        levels, band_of_level = banding.level_bands()
+        level_rel = rel[band_of_level]
+        level_exposure = np.bincount(cells[f.name], weights=exposure, minlength=len(levels))
         base = f.base
         if base is None:
-            in_base = np.flatnonzero(b.band_of_level == bases[f.name])
-            base = b.levels[in_base[np.argmax(level_exposure[in_base])]]
-        z = credibility_by_level(amount, exposure, cells[f.name], len(b.levels))["credibility"]
+            in_base = np.flatnonzero(band_of_level == bases[f.name])
+            base = levels[in_base[np.argmax(level_exposure[in_base])]]
+        z = credibility_by_level(amount, exposure, cells[f.name], len(levels))["credibility"]
         out.append(
             CategoricalFactor(
                 f.name,
                 f.monotone,
-                b.levels,
+                levels,
                 selected(level_rel),
                 level_exposure,
                 fallback=f.fallback,
@@ -277,7 +309,7 @@ def table_factors(
                 credibility=z.to_numpy(),
             )
         )
-        sides[f.name] = (b.levels, b.band_of_level)
+        sides[f.name] = (levels, band_of_level)
     for (a, b), matrix in two_way.items():
         (a_cells, a_band), (b_cells, b_band) = sides[a], sides[b]
         expanded = matrix[np.ix_(a_band, b_band)]
@@ -292,17 +324,33 @@ def table_factors(
 
 
 def rating_frame(book: Book, spec: Spec, rows: np.ndarray) -> pd.DataFrame:
-    """The factor columns and the exposure column of the chosen rows, as the rater reads them."""
+    """The factor columns and the exposure column of the chosen rows, as the rater reads them.
+
+    Parameters
+    ----------
+    book : Book
+        The run's book.
+    spec : Spec
+        The run's spec; the exposure column takes its name from columns.exposure.
+    rows : np.ndarray
+        Indices of the book rows to keep, in the order wanted.
+
+    Returns
+    -------
+    pd.DataFrame
+        One row per index in `rows` (index 0 .. len(rows)-1): the spec's factors and the exposure.
+    """
     frame = book.frame.iloc[rows].reset_index(drop=True).copy()
     frame[spec.columns.exposure] = book.exposure[rows]
     return frame
 
 
-def pure_premium_target(spec: Spec, book: Book, train: np.ndarray) -> dict:
+def _pure_premium_target(spec: Spec, book: Book, train: np.ndarray) -> dict:
     """The target of the rate level (see the module docstring), as stored in table.json."""
     opts, load = spec.table, spec.loadings
     if opts.target == "experience":
-        return {"basis": "experience", "total_pure_premium": float(book.claim_amount[train].sum())}
+        return {"basis": "experience", "total_pure_premium": float(_claim_amount(book)[train].sum())}
+    assert book.current_premium is not None, "the spec refuses table.target = current_premium without its column"
     current = float(book.current_premium[train].sum())
     premium = current * (1.0 + opts.overall_change)
     pure = (
@@ -323,7 +371,10 @@ def pure_premium_target(spec: Spec, book: Book, train: np.ndarray) -> dict:
     }
 
 
-def make_table(spec: Spec, factors: tuple, base_rate: float, target: dict, provenance: dict):
+def _make_table(
+    spec: Spec, factors: tuple[Factor, ...], base_rate: float, target: dict, provenance: dict
+) -> RatingTable:
+    """The rating table of `factors` at `base_rate`, with the spec's loadings, rounding and cautions."""
     from rating_tables import Loadings, RatingTable, Rounding
 
     opts, load = spec.table, spec.loadings
@@ -341,22 +392,22 @@ def make_table(spec: Spec, factors: tuple, base_rate: float, target: dict, prove
     )
 
 
-def rate_level(
+def _rate_level(
     spec: Spec,
-    unrounded: tuple,
-    rounded: tuple,
+    unrounded: tuple[Factor, ...],
+    rounded: tuple[Factor, ...],
     frame: pd.DataFrame,
     target: dict,
     provenance: dict,
     current_total: float | None,
-):
+) -> tuple[RatingTable, dict]:
     """Solve the base rate of the rounded table; state the off-balances (module docstring)."""
     from rating_tables import rate, solve_base_rate
 
     total = target["total_pure_premium"]
     expo = spec.columns.exposure
-    _, exact = solve_base_rate(make_table(spec, unrounded, 1.0, target, provenance), frame, expo, total)
-    table, report = solve_base_rate(make_table(spec, rounded, 1.0, target, provenance), frame, expo, total)
+    _, exact = solve_base_rate(_make_table(spec, unrounded, 1.0, target, provenance), frame, expo, total)
+    table, report = solve_base_rate(_make_table(spec, rounded, 1.0, target, provenance), frame, expo, total)
     rounded_at_exact = exact["base_rate"] * report["total_pure_premium_before"]
     gross = float(rate(table, frame, expo)["gross_premium"].sum())
     out = {
@@ -375,8 +426,8 @@ def rate_level(
     return table, out
 
 
-def fidelity(
-    table,
+def _fidelity(
+    table: RatingTable,
     frame: pd.DataFrame,
     spec: Spec,
     book: Book,
@@ -390,7 +441,7 @@ def fidelity(
     from premiumlab.models.deviance import mean_deviance
     from rating_tables import rate
 
-    exposure, amount = book.exposure[rows], book.claim_amount[rows]
+    exposure, amount = book.exposure[rows], _claim_amount(book)[rows]
     predictions = {"table": rate(table, frame, spec.columns.exposure)["pure_premium"].to_numpy() / exposure}
     for name in ("gbm", "glm"):
         if f"{name}_pure_premium" in preds.columns:
@@ -438,7 +489,34 @@ def tabulate(
     run_dir: str | Path, out: str | Path, model: str = "gbm", force: bool = False, book: str | Path | None = None
 ) -> dict:
     """Write the rating table TABLE/ (table.json, factors/*.csv), TABLE/fidelity.json and
-    TABLE/exhibit.xlsx from a run; returns the summary written to fidelity.json."""
+    TABLE/exhibit.xlsx from a run; returns the summary written to fidelity.json.
+
+    Parameters
+    ----------
+    run_dir : str or Path
+        The run directory (`fit`); its pure-premium model of kind `model` is tabulated.
+    out : str or Path
+        The table folder TABLE to write, atomically.
+    model : str
+        "gbm": distil the boosted pure-premium model; "glm": the Tweedie GLM's relativities on the
+        run's bands.
+    force : bool
+        Replace an existing `out`.
+    book : str or Path or None
+        The run's book at another path (None: the path recorded in run.json); its sha256 must match.
+
+    Returns
+    -------
+    dict
+        The fidelity.json summary (format, version, provenance, fidelity, rate_level, distillation,
+        cautions; docs/rating-table.md) with `table` (the folder) and `seconds` (wall time) added.
+
+    Raises
+    ------
+    InputError
+        On an unknown `model`, an existing `out` without `force`, a run or book that does not match
+        (book sha256, predictions, levels, model), or a rate-level target that leaves no pure premium.
+    """
     from rating_tables import save, write_exhibit
 
     if model not in MODELS:
@@ -450,27 +528,27 @@ def tabulate(
     run = open_run(run_dir)
     spec = run.spec
     loaded = reread_book(run, book)
-    preds = checked_predictions(run, loaded, f"{model}_pure_premium")
-    loaded = fitted_amounts(loaded, preds)
+    preds = _checked_predictions(run, loaded, f"{model}_pure_premium")
+    loaded = _fitted_amounts(loaded, preds)
     train = ~loaded.holdout
     rows = np.flatnonzero(train)
     if model == "gbm":
-        bandings, rel, two_way, bases, notes = gbm_bands(run, loaded, preds, train)
+        bandings, rel, two_way, bases, notes = _gbm_bands(run, loaded, preds, train)
     else:
-        bandings, rel, two_way, bases, notes = glm_bands(run, loaded)
+        bandings, rel, two_way, bases, notes = _glm_bands(run, loaded)
     cells = {n: _row_cells(b, loaded, run, rows) for n, b in bandings.items()}
     exposure = loaded.exposure[rows]
-    amount = loaded.claim_amount[rows]
-    unrounded = table_factors(spec, bandings, rel, two_way, bases, cells, exposure, amount, None)
-    rounded = table_factors(
+    amount = _claim_amount(loaded)[rows]
+    unrounded = _table_factors(spec, bandings, rel, two_way, bases, cells, exposure, amount, None)
+    rounded = _table_factors(
         spec, bandings, rel, two_way, bases, cells, exposure, amount, spec.table.relativity_decimals
     )
-    target = pure_premium_target(spec, loaded, train)
+    target = _pure_premium_target(spec, loaded, train)
     provenance = {"run": Path(run_dir).resolve().name, "model": f"{model}_pure_premium", "book_sha256": loaded.sha256}
     current = None if loaded.current_premium is None else float(loaded.current_premium[train].sum())
-    table, level = rate_level(spec, unrounded, rounded, rating_frame(loaded, spec, rows), target, provenance, current)
+    table, level = _rate_level(spec, unrounded, rounded, rating_frame(loaded, spec, rows), target, provenance, current)
     held = np.flatnonzero(loaded.holdout) if loaded.holdout.any() else rows
-    measured = fidelity(
+    measured = _fidelity(
         table,
         rating_frame(loaded, spec, held),
         spec,

@@ -51,7 +51,7 @@ def _pair_cells(sizes: dict[str, int], bases: dict[str, int], a: str, b: str) ->
     )
 
 
-def banded_design(
+def _banded_design(
     codes: dict[str, np.ndarray], sizes: dict[str, int], bases: dict[str, int], pairs: list[tuple[str, str]]
 ) -> OneHotDesign:
     """The one-hot design of the rows: one factor per banded factor (levels "0", "1", ..., base the
@@ -107,7 +107,7 @@ def refit(
     InputError
         When Newton's method does not converge.
     """
-    cells = aggregate_cells(banded_design(codes, sizes, bases, pairs), exposure * response, exposure)
+    cells = aggregate_cells(_banded_design(codes, sizes, bases, pairs), exposure * response, exposure)
     design = cells.design
     kept = choose_columns(design, cells.weight).kept
     fit = poisson_irls(design.sparse(kept), cells.numerator / cells.weight, cells.weight)
@@ -136,7 +136,20 @@ def refit(
 
 
 def round_relativity(values: np.ndarray, decimals: int) -> np.ndarray:
-    """Relativities rounded half to even to `decimals`, never below 10^-decimals (a table needs > 0)."""
+    """Relativities rounded half to even to `decimals`, never below 10^-decimals (a table needs > 0).
+
+    Parameters
+    ----------
+    values : np.ndarray
+        Relativities (> 0), any shape.
+    decimals : int
+        Decimal places kept.
+
+    Returns
+    -------
+    np.ndarray
+        max(round(values, decimals), 10^-decimals), elementwise, in the shape of `values`.
+    """
     return np.maximum(np.round(values, decimals), 10.0**-decimals)
 
 
@@ -144,7 +157,23 @@ def effect_grid(
     name: str, relativities: dict[str, np.ndarray], two_way: dict[tuple[str, str], np.ndarray]
 ) -> np.ndarray:
     """Relativity of factor `name` by band (rows) for every combination of the bands of the factors it
-    shares a two-way table with (columns): main effect x each of its two-way tables."""
+    shares a two-way table with (columns): main effect x each of its two-way tables.
+
+    Parameters
+    ----------
+    name : str
+        The factor.
+    relativities : dict[str, np.ndarray]
+        Relativity of each band, per factor.
+    two_way : dict[tuple[str, str], np.ndarray]
+        Relativity matrix of each two-way table (a, b), rows the bands of a, columns those of b.
+
+    Returns
+    -------
+    np.ndarray
+        Shape (bands of `name`, product of the partners' bands; 1 without partners): element
+        [k, c] = rel_name[k] x prod over tables t of t[k, c_t], partners in the order of `two_way`.
+    """
     out = relativities[name][:, None]
     for (a, b), matrix in two_way.items():
         if name in (a, b):
@@ -165,7 +194,27 @@ class Reversal:
 
 def worst_reversal(bandings: dict[str, Banding], fit: Refit, decimals: int) -> Reversal | None:
     """The largest log-scale breach of a promised direction between adjacent bands, over every band of
-    the partner factors, in the refit's relativities or in their rounded values (ties are allowed)."""
+    the partner factors, in the refit's relativities or in their rounded values (ties are allowed).
+
+    The breach between bands k and k+1 is -s (log g[k+1, c] - log g[k, c]), with s the promise's sign
+    (+1 increasing, -1 decreasing) and g the `effect_grid`; it counts when it exceeds 1e-12 unrounded,
+    or 0 once rounded.
+
+    Parameters
+    ----------
+    bandings : dict[str, Banding]
+        The bandings of the factors, with their promises.
+    fit : Refit
+        The refit to check.
+    decimals : int
+        Decimal places of the relativities in the table (`round_relativity`).
+
+    Returns
+    -------
+    Reversal or None
+        The largest breach (factor, its lower band k, size in log relativity, whether it was
+        measured on the rounded relativities), or None when every promise holds.
+    """
     rounded_rel = {n: round_relativity(v, decimals) for n, v in fit.relativities.items()}
     rounded_two = {k: round_relativity(v, decimals) for k, v in fit.two_way.items()}
     worst: Reversal | None = None
@@ -192,7 +241,22 @@ class PooledRefit:
 
 
 def band_exposure(codes: np.ndarray, n_bands: int, exposure: np.ndarray) -> np.ndarray:
-    """Exposure of each band 0 .. n_bands-1 given the band code of every row."""
+    """Exposure of each band 0 .. n_bands-1 given the band code of every row.
+
+    Parameters
+    ----------
+    codes : np.ndarray
+        Band of each row, in 0 .. n_bands-1.
+    n_bands : int
+        Number of bands.
+    exposure : np.ndarray
+        Exposure of each row, in the book's exposure unit.
+
+    Returns
+    -------
+    np.ndarray
+        Sum of the exposure of each band's rows (0 for an empty band), length n_bands.
+    """
     return np.bincount(codes, weights=exposure, minlength=n_bands)
 
 
@@ -205,7 +269,34 @@ def pooled_refit(
     decimals: int,
 ) -> PooledRefit:
     """Refit, find the worst adjacent reversal of a promised factor, pool those two bands, refit, until
-    no promise is breached (`values`: numeric values or level indices of the training rows)."""
+    no promise is breached (`values`: numeric values or level indices of the training rows).
+
+    Parameters
+    ----------
+    bandings : dict[str, Banding]
+        The initial banding of each factor.
+    values : dict[str, np.ndarray]
+        Per factor: numeric values or level indices of the training rows.
+    pairs : list[tuple[str, str]]
+        The two-way tables.
+    exposure : np.ndarray
+        Exposure of each training row (the refit's weight).
+    response : np.ndarray
+        Boosted pure premium per exposure unit of each training row.
+    decimals : int
+        Decimal places of the relativities in the table; the promises must hold after rounding too.
+
+    Returns
+    -------
+    PooledRefit
+        The final bandings, the refit on them, each row's band codes and the merges made (factor,
+        the two band labels, the reversal in log relativity, whether it showed after rounding).
+
+    Raises
+    ------
+    InputError
+        When a refit's Newton's method does not converge.
+    """
     bandings = dict(bandings)
     codes = {n: b.codes(values[n]) for n, b in bandings.items()}
     merges: list[dict] = []

@@ -29,6 +29,25 @@ def isotonic(values: np.ndarray, weights: np.ndarray, increasing: bool = True) -
 
     Minimises sum_i w_i (y_i - f_i)^2 subject to f_1 <= ... <= f_n (or >= when decreasing);
     each pooled block takes its weighted mean sum(w y) / sum(w).
+
+    Parameters
+    ----------
+    values : np.ndarray
+        The curve y_i at its ordered points (finite).
+    weights : np.ndarray
+        Weight w_i of each point (> 0), e.g. the exposure it stands for.
+    increasing : bool
+        Fit a non-decreasing curve (True) or a non-increasing one (False).
+
+    Returns
+    -------
+    np.ndarray
+        The fitted f_i at each point, in the unit of `values`.
+
+    Raises
+    ------
+    InputError
+        When `values` or `weights` is not finite, a weight is not > 0, or their lengths differ.
     """
     y, w = _curve(values, weights)
     sign = 1.0 if increasing else -1.0
@@ -67,7 +86,7 @@ class Segmentation:
         return np.searchsorted(self.starts, np.arange(points), side="right") - 1
 
 
-def segment_cost_matrix(values: np.ndarray, weights: np.ndarray, min_weight: float) -> np.ndarray:
+def _segment_cost_matrix(values: np.ndarray, weights: np.ndarray, min_weight: float) -> np.ndarray:
     """C[i, j] = within-segment weighted squared error of points i .. j-1 (i < j), +inf where the
     segment is empty or its weight falls below `min_weight`. Shape (n+1, n+1)."""
     y, w = _curve(values, weights)
@@ -94,6 +113,29 @@ def optimal_segmentation(
     best[k][j] = min_i best[k-1][i] + C[i, j] over the first j points in k segments, O(K n^2).
     Among segment counts whose cost ties within COST_TIE_TOLERANCE of the total sum of squares the
     fewest segments win; among equal costs for one count each segment starts as early as it can.
+
+    Parameters
+    ----------
+    values : np.ndarray
+        The curve y_i at its ordered points (finite).
+    weights : np.ndarray
+        Weight w_i of each point (> 0), e.g. the exposure it stands for.
+    max_segments : int
+        Most segments K (>= 1; at most one per point).
+    min_share : float
+        Least share of the total weight per segment, in [0, 1].
+
+    Returns
+    -------
+    Segmentation
+        The first point of each segment (ascending, starting at 0) and the cost
+        sum_i w_i (y_i - mean of its segment)^2.
+
+    Raises
+    ------
+    InputError
+        When `values` or `weights` is not finite, a weight is not > 0, their lengths differ,
+        `max_segments` < 1 or `min_share` lies outside [0, 1].
     """
     y, w = _curve(values, weights)
     if max_segments < 1:
@@ -101,7 +143,7 @@ def optimal_segmentation(
     if not 0.0 <= min_share <= 1.0:
         raise InputError(f"min_share: {min_share} must be between 0 and 1")
     n = y.size
-    cost = segment_cost_matrix(y, w, min_share * w.sum())
+    cost = _segment_cost_matrix(y, w, min_share * w.sum())
     segments = min(max_segments, n)
     best = np.full((segments + 1, n + 1), np.inf)
     best[0, 0] = 0.0
