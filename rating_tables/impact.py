@@ -31,7 +31,7 @@ BAND_LABELS = (
 CHANGE_DECIMALS = 12
 
 
-def premium_change(current: np.ndarray, proposed: np.ndarray) -> np.ndarray:
+def _premium_change(current: np.ndarray, proposed: np.ndarray) -> np.ndarray:
     """proposed / current - 1 per policy, rounded to CHANGE_DECIMALS."""
     return np.round(proposed / current - 1.0, CHANGE_DECIMALS)
 
@@ -40,7 +40,7 @@ def _share(part: float, whole: float) -> float:
     return float(part / whole) if whole else 0.0
 
 
-def change_bands(change: np.ndarray, current: np.ndarray) -> list[dict]:
+def _change_bands(change: np.ndarray, current: np.ndarray) -> list[dict]:
     """Count and current premium of the policies in each change band, with their shares."""
     codes = np.searchsorted(np.array(BAND_EDGES), change, side="right")
     counts = np.bincount(codes, minlength=len(BAND_LABELS))
@@ -96,7 +96,7 @@ class Capping:
                 "total": float(self.corrected.sum()),
                 "capped_up": int((k * proposed > self.high).sum()),
                 "capped_down": int((k * proposed < self.low).sum()),
-                "bands": change_bands(premium_change(current, self.corrected), current),
+                "bands": _change_bands(_premium_change(current, self.corrected), current),
             }
         return out
 
@@ -158,7 +158,7 @@ def _levels(series: pd.Series) -> tuple[np.ndarray, list[str]]:
     return codes, labels
 
 
-def by_level(series: pd.Series, current: np.ndarray, proposed: np.ndarray) -> list[dict]:
+def _by_level(series: pd.Series, current: np.ndarray, proposed: np.ndarray) -> list[dict]:
     """Per level of a factor: policies, current and proposed premium, premium-weighted mean change
     (sum proposed / sum current - 1)."""
     codes, labels = _levels(series)
@@ -222,7 +222,7 @@ def impact(
             raise TableError(f"{name}: {value!r} must be a finite number{' >= 0' if name == 'cap' else ''}", where=name)
     if isinstance(top, bool) or not isinstance(top, int) or top < 0:
         raise TableError(f"top: {top!r} must be an integer >= 0", where="top")
-    change = premium_change(current, proposed)
+    change = _premium_change(current, proposed)
     order = np.argsort(-change, kind="stable")[:top]
     order = order[change[order] > 0]
     total_current = float(current.sum())
@@ -231,7 +231,7 @@ def impact(
         "total_current": total_current,
         "total_proposed": float(proposed.sum()),
         "overall_change": _share(proposed.sum(), total_current) - 1.0 if n else 0.0,
-        "bands": change_bands(change, current),
+        "bands": _change_bands(change, current),
         "above_thresholds": [
             {
                 "threshold": float(t),
@@ -241,7 +241,7 @@ def impact(
             }
             for t in thresholds
         ],
-        "by_factor": {f: by_level(book[f], current, proposed) for f in factors},
+        "by_factor": {f: _by_level(book[f], current, proposed) for f in factors},
         "largest_increases": [
             {"row": int(i), "current": float(current[i]), "proposed": float(proposed[i]), "change": float(change[i])}
             for i in order

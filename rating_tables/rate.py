@@ -29,7 +29,7 @@ from rating_tables.table import (
 )
 
 
-def book_row(i: int) -> str:
+def _book_row(i: int) -> str:
     """The text naming position `i` of a book as a 0-based row."""
     return f"book row {i} (0-based)"
 
@@ -40,7 +40,7 @@ def _column(book: pd.DataFrame, name: str, what: str) -> pd.Series:
     return book[name]
 
 
-def numeric_values(series: pd.Series, what: str, row_offset: int = 0) -> np.ndarray:
+def _numeric_values(series: pd.Series, what: str, row_offset: int = 0) -> np.ndarray:
     """The column as float64; TableError at the first non-numeric or missing value."""
     if isinstance(series.dtype, pd.CategoricalDtype):
         series = pd.Series(np.asarray(series, dtype=object))
@@ -54,17 +54,17 @@ def numeric_values(series: pd.Series, what: str, row_offset: int = 0) -> np.ndar
         except (TypeError, ValueError):
             coerced = pd.to_numeric(series, errors="coerce")
             bad = np.flatnonzero(coerced.isna().to_numpy() & series.notna().to_numpy())
-            where = book_row(row_offset + int(bad[0])) if bad.size else "some row"
+            where = _book_row(row_offset + int(bad[0])) if bad.size else "some row"
             text = series.iloc[int(bad[0])] if bad.size else "?"
             raise TableError(f"{what}: value {text!r} at {where} is not a number", check="book", where=where) from None
     missing = np.flatnonzero(np.isnan(values))
     if missing.size:
-        where = book_row(row_offset + int(missing[0]))
+        where = _book_row(row_offset + int(missing[0]))
         raise TableError(f"{what}: missing value at {where}", check="book", where=where)
     return values
 
 
-def level_index(factor: CategoricalFactor, series: pd.Series, row_offset: int = 0) -> np.ndarray:
+def _level_index(factor: CategoricalFactor, series: pd.Series, row_offset: int = 0) -> np.ndarray:
     """Index into `factor.levels` of each value, compared as strings; unknown values take the
     fallback level when the factor names one."""
     what = f"factor {factor.name!r}"
@@ -76,7 +76,7 @@ def level_index(factor: CategoricalFactor, series: pd.Series, row_offset: int = 
         labels = [str(u) for u in uniques]
     missing = np.flatnonzero(codes < 0)
     if missing.size:
-        where = book_row(row_offset + int(missing[0]))
+        where = _book_row(row_offset + int(missing[0]))
         raise TableError(f"{what}: missing value at {where}", check="book", factor=factor.name, where=where)
     position = {level: i for i, level in enumerate(factor.levels)}
     to_level = np.array([position.get(label, -1) for label in labels], dtype=np.intp)
@@ -84,7 +84,7 @@ def level_index(factor: CategoricalFactor, series: pd.Series, row_offset: int = 
     if unknown.any():
         if factor.fallback is None:
             first = int(np.flatnonzero(unknown[codes])[0])
-            where = book_row(row_offset + first)
+            where = _book_row(row_offset + first)
             raise TableError(
                 f"{what}: level {labels[codes[first]]!r} at {where} is not in the table and the factor has no fallback",
                 check="book",
@@ -103,17 +103,17 @@ def _exposure(book: pd.DataFrame, exposure_column: str | None, annual: bool, row
             "exposure: name the book's exposure column, or rate annual (one full term per row)", check="book"
         )
     what = f"exposure column {exposure_column!r}"
-    values = numeric_values(_column(book, exposure_column, what), what, row_offset)
+    values = _numeric_values(_column(book, exposure_column, what), what, row_offset)
     bad = np.flatnonzero(~(np.isfinite(values) & (values >= 0)))
     if bad.size:
-        where = book_row(row_offset + int(bad[0]))
+        where = _book_row(row_offset + int(bad[0]))
         raise TableError(
             f"{what}: value {float(values[bad[0]])!r} at {where} must be finite and >= 0", check="book", where=where
         )
     return values
 
 
-def relativities(table: RatingTable, book: pd.DataFrame, row_offset: int = 0) -> dict[str, np.ndarray]:
+def _relativities(table: RatingTable, book: pd.DataFrame, row_offset: int = 0) -> dict[str, np.ndarray]:
     """The build-up columns `rel_NAME` (interactions `rel_a__b`), in table order."""
     cells: dict[str, np.ndarray] = {}
     values: dict[str, np.ndarray] = {}
@@ -121,12 +121,12 @@ def relativities(table: RatingTable, book: pd.DataFrame, row_offset: int = 0) ->
     for factor in table.factors:
         if isinstance(factor, NumericFactor):
             what = f"factor {factor.name!r}"
-            values[factor.name] = numeric_values(_column(book, factor.name, what), what, row_offset)
+            values[factor.name] = _numeric_values(_column(book, factor.name, what), what, row_offset)
             cells[factor.name] = band_index(factor.lower, values[factor.name])
             out[f"rel_{factor.name}"] = factor.relativity[cells[factor.name]]
         elif isinstance(factor, CategoricalFactor):
             series = _column(book, factor.name, f"factor {factor.name!r}")
-            cells[factor.name] = level_index(factor, series, row_offset)
+            cells[factor.name] = _level_index(factor, series, row_offset)
             out[f"rel_{factor.name}"] = factor.relativity[cells[factor.name]]
         else:
             i, j = (
@@ -152,7 +152,7 @@ def _side_index(
     return mapping_to_side(main, side_cells)[cells[side]]
 
 
-def pure_premium(base_rate: float, rels: dict[str, np.ndarray], exposure: np.ndarray) -> np.ndarray:
+def _pure_premium(base_rate: float, rels: dict[str, np.ndarray], exposure: np.ndarray) -> np.ndarray:
     """((base_rate x rel_1) x ... x rel_k) x exposure, money per row."""
     pure = np.full(exposure.shape, base_rate)
     for rel in rels.values():
@@ -185,15 +185,15 @@ def rating_columns(
     `row_offset` is added to row numbers in error messages (for books rated in batches).
     """
     exposure = _exposure(book, exposure_column, annual, row_offset)
-    out = relativities(table, book, row_offset)
+    out = _relativities(table, book, row_offset)
     with np.errstate(over="ignore", invalid="ignore"):  # checked below, row by row
-        out["pure_premium"] = pure_premium(table.base_rate, out, exposure)
+        out["pure_premium"] = _pure_premium(table.base_rate, out, exposure)
         out["gross_premium"] = gross_premium(
             out["pure_premium"], exposure, table.loadings, table.rounding.premium_decimals
         )
     bad = np.flatnonzero(~np.isfinite(out["gross_premium"]))
     if bad.size:
-        where = book_row(row_offset + int(bad[0]))
+        where = _book_row(row_offset + int(bad[0]))
         raise TableError(
             f"premium at {where} is too large to represent (exposure {float(exposure[bad[0]])!r}); check the exposure",
             check="book",
@@ -247,8 +247,8 @@ def solve_base_rate(
     ):
         raise TableError(f"target_total: must be a finite number > 0, got {target_total!r}", where="target_total")
     exposure = _exposure(book, exposure_column, annual, 0)
-    rels = relativities(table, book)
-    before = float(pure_premium(table.base_rate, rels, exposure).sum())
+    rels = _relativities(table, book)
+    before = float(_pure_premium(table.base_rate, rels, exposure).sum())
     if not before > 0:
         raise TableError("book: the table rates it to a total pure premium of 0 (no exposure?)", check="book")
     off_balance = float(target_total) / before
@@ -257,7 +257,7 @@ def solve_base_rate(
         base_rate=table.base_rate * off_balance,
         target={**table.target, "total_pure_premium": float(target_total)},
     )
-    pure = pure_premium(solved.base_rate, rels, exposure)
+    pure = _pure_premium(solved.base_rate, rels, exposure)
     report: dict = {
         "base_rate_before": table.base_rate,
         "base_rate": solved.base_rate,

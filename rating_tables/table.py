@@ -90,7 +90,7 @@ _RULES: dict[str, tuple[str, Callable[[np.ndarray], np.ndarray], str]] = {
 }
 
 
-def check_column(values: np.ndarray, column: str, prefix: str, factor: str, row_text: Callable[[int], str]) -> None:
+def _check_column(values: np.ndarray, column: str, prefix: str, factor: str, row_text: Callable[[int], str]) -> None:
     """Refuse the first value of `column` that breaks its rule; `row_text` names a flat index."""
     check, ok, rule = _RULES[column]
     flat = values.ravel()
@@ -106,7 +106,9 @@ def check_column(values: np.ndarray, column: str, prefix: str, factor: str, row_
         )
 
 
-def check_bands(lower: np.ndarray, upper: np.ndarray, prefix: str, factor: str, row_text: Callable[[int], str]) -> None:
+def _check_bands(
+    lower: np.ndarray, upper: np.ndarray, prefix: str, factor: str, row_text: Callable[[int], str]
+) -> None:
     """Bands [lower, upper) must be non-empty, contiguous and cover (-inf, inf)."""
 
     def fail(i: int, what: str, amount: float | None = None) -> None:
@@ -144,7 +146,7 @@ def check_bands(lower: np.ndarray, upper: np.ndarray, prefix: str, factor: str, 
         )
 
 
-def check_levels(levels: Any, prefix: str, factor: str, row_text: Callable[[int], str]) -> tuple[str, ...]:
+def _check_levels(levels: Any, prefix: str, factor: str, row_text: Callable[[int], str]) -> tuple[str, ...]:
     """Levels must be unique non-empty strings; returns them as a tuple."""
     levels = tuple(levels)
     if not levels:
@@ -235,7 +237,7 @@ def _optional_columns(factor: Any, prefix: str, shape: tuple[int, ...], row_text
         arr = _readonly(values, column, prefix, ndim=len(shape))
         if arr.shape != shape:
             raise TableError(f"{prefix}: {column} has shape {arr.shape}, expected {shape}", factor=factor.name)
-        check_column(arr, column, prefix, factor.name, row_text)
+        _check_column(arr, column, prefix, factor.name, row_text)
         _set(factor, column, arr)
 
 
@@ -244,7 +246,7 @@ def _factor_arrays(factor: Any, prefix: str, n: int) -> None:
         arr = _readonly(getattr(factor, column), column, prefix)
         if arr.size != n:
             raise TableError(f"{prefix}: {column} has {arr.size} values for {n} rows", factor=factor.name)
-        check_column(arr, column, prefix, factor.name, data_row)
+        _check_column(arr, column, prefix, factor.name, data_row)
         _set(factor, column, arr)
     _optional_columns(factor, prefix, (n,), data_row)
 
@@ -285,7 +287,7 @@ class NumericFactor(_ComparedByValue):
         prefix = _main_prologue(self)
         lower = _readonly(self.lower, "lower", prefix)
         upper = _readonly(self.upper, "upper", prefix)
-        check_bands(lower, upper, prefix, self.name, data_row)
+        _check_bands(lower, upper, prefix, self.name, data_row)
         _set(self, "lower", lower)
         _set(self, "upper", upper)
         _factor_arrays(self, prefix, lower.size)
@@ -317,7 +319,7 @@ class CategoricalFactor(_ComparedByValue):
 
     def __post_init__(self) -> None:
         prefix = _main_prologue(self)
-        levels = check_levels(self.levels, prefix, self.name, data_row)
+        levels = _check_levels(self.levels, prefix, self.name, data_row)
         _set(self, "levels", levels)
         for key in ("fallback", "base"):
             value = getattr(self, key)
@@ -399,9 +401,9 @@ class InteractionFactor(_ComparedByValue):
             cells = getattr(self, attr)
             side_prefix = f"{prefix}, side {side!r}"
             if isinstance(cells, Bands):
-                check_bands(cells.lower, cells.upper, side_prefix, self.name, lambda i: f"band {i + 1}")
+                _check_bands(cells.lower, cells.upper, side_prefix, self.name, lambda i: f"band {i + 1}")
             else:
-                cells = check_levels(cells, side_prefix, self.name, lambda i: f"level {i + 1}")
+                cells = _check_levels(cells, side_prefix, self.name, lambda i: f"level {i + 1}")
                 _set(self, attr, cells)
         shape = (len(self.a_cells), len(self.b_cells))
         a_labels, b_labels = cell_labels(self.a_cells), cell_labels(self.b_cells)
@@ -413,13 +415,13 @@ class InteractionFactor(_ComparedByValue):
         relativity = _readonly(self.relativity, "relativity", prefix, ndim=2)
         if relativity.shape != shape:
             raise TableError(f"{prefix}: relativity has shape {relativity.shape}, expected {shape}", factor=self.name)
-        check_column(relativity, "relativity", prefix, self.name, cell)
+        _check_column(relativity, "relativity", prefix, self.name, cell)
         _set(self, "relativity", relativity)
         if self.exposure is not None:
             exposure = _readonly(self.exposure, "exposure", prefix, ndim=2)
             if exposure.shape != shape:
                 raise TableError(f"{prefix}: exposure has shape {exposure.shape}, expected {shape}", factor=self.name)
-            check_column(exposure, "exposure", prefix, self.name, cell)
+            _check_column(exposure, "exposure", prefix, self.name, cell)
             _set(self, "exposure", exposure)
         _optional_columns(self, prefix, shape, cell)
 
