@@ -8,9 +8,12 @@ Structural rules (bands covering (-inf, inf) without gap or overlap, finite posi
 from __future__ import annotations
 
 import os
+from collections.abc import Callable
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
+import numpy.typing as npt
 
 from rating_tables.errors import TableError
 from rating_tables.io import load
@@ -18,6 +21,7 @@ from rating_tables.table import (
     MONOTONE,
     Bands,
     CategoricalFactor,
+    Cells,
     Factor,
     InteractionFactor,
     MainFactor,
@@ -85,9 +89,9 @@ def audit(
             )
         else:
             directions[name] = direction
-    for factor in table.main_factors:
-        if directions[factor.name] != "none":
-            found += _direction(table, factor, directions[factor.name])
+    for main in table.main_factors:
+        if directions[main.name] != "none":
+            found += _direction(table, main, directions[main.name])
     tolerance = 0.5 * 10.0**-table.rounding.relativity_decimals
     for factor in table.factors:
         found += _base(factor, tolerance)
@@ -97,7 +101,7 @@ def audit(
 
 
 def audit_path(
-    path: str | os.PathLike,
+    path: str | os.PathLike[str],
     promises: dict[str, str] | None = None,
     bounds: dict[str, tuple[float | None, float | None]] | None = None,
 ) -> list[Violation]:
@@ -109,16 +113,25 @@ def audit_path(
     return audit(table, promises, bounds)
 
 
-def _grid(main: MainFactor, sides: list[Bands | tuple[str, ...]]) -> tuple[list[str], np.ndarray, list[np.ndarray]]:
+def _grid(
+    main: MainFactor, sides: list[Cells]
+) -> tuple[list[str], npt.NDArray[np.integer[Any]], list[npt.NDArray[np.integer[Any]]]]:
     """Cells along a factor fine enough for the main effect and every two-way side: their labels,
-    the main factor's index for each and each side's index for each."""
+    the main factor's index for each and each side's index for each.
+
+    A RatingTable gives a categorical factor's two-way sides levels and a numeric factor's bands.
+    """
     if isinstance(main, CategoricalFactor):
         levels = np.arange(len(main.levels))
-        return list(main.levels), levels, [mapping_to_side(main, side)[levels] for side in sides]
-    lows = np.unique(np.concatenate([main.lower, *(side.lower for side in sides)]))
+        level_sides = [side for side in sides if not isinstance(side, Bands)]
+        assert len(level_sides) == len(sides)  # a categorical factor's sides are levels
+        return list(main.levels), levels, [mapping_to_side(main, side)[levels] for side in level_sides]
+    band_sides = [side for side in sides if isinstance(side, Bands)]
+    assert len(band_sides) == len(sides)  # a numeric factor's sides are bands
+    lows = np.unique(np.concatenate([main.lower, *(side.lower for side in band_sides)]))
     highs = np.append(lows[1:], np.inf)
     labels = band_labels(lows, highs)
-    return labels, band_index(main.lower, lows), [band_index(side.lower, lows) for side in sides]
+    return labels, band_index(main.lower, lows), [band_index(side.lower, lows) for side in band_sides]
 
 
 def _direction(table: RatingTable, main: MainFactor, direction: str) -> list[Violation]:
@@ -219,10 +232,14 @@ def _bounds(table: RatingTable, bounds: dict[str, tuple[float | None, float | No
         low, high = limits
         labels = _cell_names(factor) if isinstance(factor, InteractionFactor) else factor.labels()
         values = factor.relativity.ravel()
-        for limit, beyond, word in (
+        checks: tuple[
+            tuple[float | None, Callable[[npt.NDArray[np.float64], float], npt.NDArray[np.float64]], str], ...
+        ]
+        checks = (
             (low, lambda v, x: x - v, "below the minimum"),
             (high, lambda v, x: v - x, "above the maximum"),
-        ):
+        )
+        for limit, beyond, word in checks:
             if limit is None:
                 continue
             excess = beyond(values, float(limit))

@@ -11,8 +11,10 @@ capped too, the others scaled by k).
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
+import numpy.typing as npt
 import pandas as pd
 
 from rating_tables.errors import TableError
@@ -31,7 +33,7 @@ BAND_LABELS = (
 CHANGE_DECIMALS = 12
 
 
-def _premium_change(current: np.ndarray, proposed: np.ndarray) -> np.ndarray:
+def _premium_change(current: npt.NDArray[np.float64], proposed: npt.NDArray[np.float64]) -> npt.NDArray[np.float64]:
     """proposed / current - 1 per policy, rounded to CHANGE_DECIMALS."""
     return np.round(proposed / current - 1.0, CHANGE_DECIMALS)
 
@@ -40,7 +42,7 @@ def _share(part: float, whole: float) -> float:
     return float(part / whole) if whole else 0.0
 
 
-def _change_bands(change: np.ndarray, current: np.ndarray) -> list[dict]:
+def _change_bands(change: npt.NDArray[np.float64], current: npt.NDArray[np.float64]) -> list[dict[str, Any]]:
     """Count and current premium of the policies in each change band, with their shares."""
     codes = np.searchsorted(np.array(BAND_EDGES), change, side="right")
     counts = np.bincount(codes, minlength=len(BAND_LABELS))
@@ -71,16 +73,16 @@ class Capping:
     """
 
     cap: float
-    low: np.ndarray
-    high: np.ndarray
-    capped: np.ndarray
+    low: npt.NDArray[np.float64]
+    high: npt.NDArray[np.float64]
+    capped: npt.NDArray[np.float64]
     off_balance: float
     correction_factor: float | None
-    corrected: np.ndarray | None
+    corrected: npt.NDArray[np.float64] | None
 
-    def summary(self, current: np.ndarray, proposed: np.ndarray) -> dict:
+    def summary(self, current: npt.NDArray[np.float64], proposed: npt.NDArray[np.float64]) -> dict[str, Any]:
         """The JSON-able figures of the capping."""
-        out: dict = {
+        out: dict[str, Any] = {
             "cap": self.cap,
             "capped_up": int((proposed > self.high).sum()),
             "capped_down": int((proposed < self.low).sum()),
@@ -90,8 +92,8 @@ class Capping:
             "correction_factor": self.correction_factor,
             "after_correction": None,
         }
-        if self.corrected is not None:
-            k = self.correction_factor
+        k = self.correction_factor
+        if self.corrected is not None and k is not None:  # both or neither are None
             out["after_correction"] = {
                 "total": float(self.corrected.sum()),
                 "capped_up": int((k * proposed > self.high).sum()),
@@ -101,7 +103,7 @@ class Capping:
         return out
 
 
-def cap_premiums(current: np.ndarray, proposed: np.ndarray, cap: float) -> Capping:
+def cap_premiums(current: npt.NDArray[np.float64], proposed: npt.NDArray[np.float64], cap: float) -> Capping:
     """Cap each policy's change at +-`cap` (0.15 for 15 %) and solve the correction factor."""
     low = current * max(0.0, 1.0 - cap)
     high = current * (1.0 + cap)
@@ -119,7 +121,9 @@ def cap_premiums(current: np.ndarray, proposed: np.ndarray, cap: float) -> Cappi
     )
 
 
-def _correction(proposed: np.ndarray, low: np.ndarray, high: np.ndarray, target: float) -> float | None:
+def _correction(
+    proposed: npt.NDArray[np.float64], low: npt.NDArray[np.float64], high: npt.NDArray[np.float64], target: float
+) -> float | None:
     """k > 0 with f(k) = sum(clip(k x proposed, low, high)) = target, or None.
 
     f is continuous, non-decreasing and linear between the knots low/proposed and high/proposed,
@@ -143,7 +147,7 @@ def _correction(proposed: np.ndarray, low: np.ndarray, high: np.ndarray, target:
     return float(knots[j - 1] + (target - f[j - 1]) * (knots[j] - knots[j - 1]) / (f[j] - f[j - 1]))
 
 
-def _levels(series: pd.Series) -> tuple[np.ndarray, list[str]]:
+def _levels(series: pd.Series) -> tuple[npt.NDArray[np.intp], list[str]]:
     if isinstance(series.dtype, pd.CategoricalDtype):
         codes, labels = series.cat.codes.to_numpy().astype(np.intp), [str(c) for c in series.cat.categories]
     else:
@@ -158,7 +162,9 @@ def _levels(series: pd.Series) -> tuple[np.ndarray, list[str]]:
     return codes, labels
 
 
-def _by_level(series: pd.Series, current: np.ndarray, proposed: np.ndarray) -> list[dict]:
+def _by_level(
+    series: pd.Series, current: npt.NDArray[np.float64], proposed: npt.NDArray[np.float64]
+) -> list[dict[str, Any]]:
     """Per level of a factor: policies, current and proposed premium, premium-weighted mean change
     (sum proposed / sum current - 1)."""
     codes, labels = _levels(series)
@@ -178,7 +184,7 @@ def _by_level(series: pd.Series, current: np.ndarray, proposed: np.ndarray) -> l
     ]
 
 
-def _premiums(values: np.ndarray, name: str, n: int) -> np.ndarray:
+def _premiums(values: npt.NDArray[np.float64], name: str, n: int) -> npt.NDArray[np.float64]:
     arr = np.asarray(values, dtype=np.float64)
     if arr.shape != (n,):
         raise TableError(f"{name}: expected {n} premiums (one per book row), got shape {arr.shape}", where=name)
@@ -192,14 +198,14 @@ def _premiums(values: np.ndarray, name: str, n: int) -> np.ndarray:
 
 
 def impact(
-    current: np.ndarray,
-    proposed: np.ndarray,
+    current: npt.NDArray[np.float64],
+    proposed: npt.NDArray[np.float64],
     book: pd.DataFrame,
     factors: list[str],
     thresholds: tuple[float, ...] = (0.05, 0.10, 0.25),
     cap: float | None = None,
     top: int = 10,
-) -> dict:
+) -> dict[str, Any]:
     """Dislocation summary of moving every policy of `book` from `current` to `proposed` premium.
 
     Returns a JSON-able dict: totals and overall change; the change bands by count and current

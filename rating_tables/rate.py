@@ -13,8 +13,10 @@ categoricals are mapped once per category, then taken by code). Errors name the 
 from __future__ import annotations
 
 import dataclasses
+from typing import Any
 
 import numpy as np
+import numpy.typing as npt
 import pandas as pd
 
 from rating_tables.errors import TableError
@@ -40,12 +42,13 @@ def _column(book: pd.DataFrame, name: str, what: str) -> pd.Series:
     return book[name]
 
 
-def _numeric_values(series: pd.Series, what: str, row_offset: int = 0) -> np.ndarray:
+def _numeric_values(series: pd.Series, what: str, row_offset: int = 0) -> npt.NDArray[np.float64]:
     """The column as float64; TableError at the first non-numeric or missing value."""
     if isinstance(series.dtype, pd.CategoricalDtype):
         series = pd.Series(np.asarray(series, dtype=object))
     if pd.api.types.is_bool_dtype(series.dtype):
         raise TableError(f"{what}: the column holds true/false values, not numbers", check="book")
+    values: npt.NDArray[np.float64]
     if pd.api.types.is_numeric_dtype(series.dtype):
         values = series.to_numpy(dtype=np.float64, na_value=np.nan)
     else:
@@ -64,10 +67,11 @@ def _numeric_values(series: pd.Series, what: str, row_offset: int = 0) -> np.nda
     return values
 
 
-def _level_index(factor: CategoricalFactor, series: pd.Series, row_offset: int = 0) -> np.ndarray:
+def _level_index(factor: CategoricalFactor, series: pd.Series, row_offset: int = 0) -> npt.NDArray[np.intp]:
     """Index into `factor.levels` of each value, compared as strings; unknown values take the
     fallback level when the factor names one."""
     what = f"factor {factor.name!r}"
+    codes: npt.NDArray[np.integer[Any]]
     if isinstance(series.dtype, pd.CategoricalDtype):
         codes = series.cat.codes.to_numpy()
         labels = [str(c) for c in series.cat.categories]
@@ -92,10 +96,13 @@ def _level_index(factor: CategoricalFactor, series: pd.Series, row_offset: int =
                 where=where,
             )
         to_level[unknown] = position[factor.fallback]
-    return to_level[codes]
+    index: npt.NDArray[np.intp] = to_level[codes]
+    return index
 
 
-def _exposure(book: pd.DataFrame, exposure_column: str | None, annual: bool, row_offset: int) -> np.ndarray:
+def _exposure(
+    book: pd.DataFrame, exposure_column: str | None, annual: bool, row_offset: int
+) -> npt.NDArray[np.float64]:
     if annual:
         return np.ones(len(book))
     if exposure_column is None:
@@ -113,11 +120,11 @@ def _exposure(book: pd.DataFrame, exposure_column: str | None, annual: bool, row
     return values
 
 
-def _relativities(table: RatingTable, book: pd.DataFrame, row_offset: int = 0) -> dict[str, np.ndarray]:
+def _relativities(table: RatingTable, book: pd.DataFrame, row_offset: int = 0) -> dict[str, npt.NDArray[np.float64]]:
     """The build-up columns `rel_NAME` (interactions `rel_a__b`), in table order."""
-    cells: dict[str, np.ndarray] = {}
-    values: dict[str, np.ndarray] = {}
-    out: dict[str, np.ndarray] = {}
+    cells: dict[str, npt.NDArray[np.integer[Any]]] = {}
+    values: dict[str, npt.NDArray[np.float64]] = {}
+    out: dict[str, npt.NDArray[np.float64]] = {}
     for factor in table.factors:
         if isinstance(factor, NumericFactor):
             what = f"factor {factor.name!r}"
@@ -142,17 +149,20 @@ def _side_index(
     table: RatingTable,
     side: str,
     side_cells: Bands | tuple[str, ...],
-    cells: dict[str, np.ndarray],
-    values: dict[str, np.ndarray],
-) -> np.ndarray:
+    cells: dict[str, npt.NDArray[np.integer[Any]]],
+    values: dict[str, npt.NDArray[np.float64]],
+) -> npt.NDArray[np.integer[Any]]:
     if isinstance(side_cells, Bands):
         return band_index(side_cells.lower, values[side])
     main = table.factor(side)
     assert isinstance(main, CategoricalFactor)
-    return mapping_to_side(main, side_cells)[cells[side]]
+    index: npt.NDArray[np.intp] = mapping_to_side(main, side_cells)[cells[side]]
+    return index
 
 
-def _pure_premium(base_rate: float, rels: dict[str, np.ndarray], exposure: np.ndarray) -> np.ndarray:
+def _pure_premium(
+    base_rate: float, rels: dict[str, npt.NDArray[np.float64]], exposure: npt.NDArray[np.float64]
+) -> npt.NDArray[np.float64]:
     """((base_rate x rel_1) x ... x rel_k) x exposure, money per row."""
     pure = np.full(exposure.shape, base_rate)
     for rel in rels.values():
@@ -161,8 +171,12 @@ def _pure_premium(base_rate: float, rels: dict[str, np.ndarray], exposure: np.nd
 
 
 def gross_premium(
-    pure: np.ndarray, exposure: np.ndarray, loadings: Loadings, premium_decimals: int, apply_minimum: bool = True
-) -> np.ndarray:
+    pure: npt.NDArray[np.float64],
+    exposure: npt.NDArray[np.float64],
+    loadings: Loadings,
+    premium_decimals: int,
+    apply_minimum: bool = True,
+) -> npt.NDArray[np.float64]:
     """max(minimum_premium, (pure x (1 + lae_ratio) + fixed_expense x exposure) / (1 - variable_expense
     - profit)), rounded half to even to `premium_decimals` (money per row)."""
     gross = (pure * (1.0 + loadings.lae_ratio) + loadings.fixed_expense * exposure) / (
@@ -179,7 +193,7 @@ def rating_columns(
     exposure_column: str | None = None,
     annual: bool = False,
     row_offset: int = 0,
-) -> dict[str, np.ndarray]:
+) -> dict[str, npt.NDArray[np.float64]]:
     """The columns the rater adds: `rel_*` in table order, then `pure_premium`, `gross_premium`.
 
     `row_offset` is added to row numbers in error messages (for books rated in batches).
@@ -231,7 +245,7 @@ def rate(
 
 def solve_base_rate(
     table: RatingTable, book: pd.DataFrame, exposure_column: str | None, target_total: float, annual: bool = False
-) -> tuple[RatingTable, dict]:
+) -> tuple[RatingTable, dict[str, Any]]:
     """The table with the base rate that makes sum(pure_premium) over `book` equal `target_total`.
 
     Pure premium is linear in the base rate, so the new base rate is base_rate x off-balance factor,
@@ -258,7 +272,7 @@ def solve_base_rate(
         target={**table.target, "total_pure_premium": float(target_total)},
     )
     pure = _pure_premium(solved.base_rate, rels, exposure)
-    report: dict = {
+    report: dict[str, Any] = {
         "base_rate_before": table.base_rate,
         "base_rate": solved.base_rate,
         "off_balance_factor": off_balance,

@@ -31,8 +31,8 @@ ROW_GROUP_ROWS = 262_144
 
 def rate_file(
     table: RatingTable,
-    in_path: str | os.PathLike,
-    out_path: str | os.PathLike,
+    in_path: str | os.PathLike[str],
+    out_path: str | os.PathLike[str],
     exposure_column: str | None = None,
     annual: bool = False,
     batch_rows: int = 500_000,

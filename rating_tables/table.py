@@ -12,13 +12,14 @@ from __future__ import annotations
 
 import json
 import math
-from collections.abc import Callable
-from dataclasses import dataclass, field, fields
+from collections.abc import Callable, Iterable
+from dataclasses import Field, dataclass, field, fields
 from datetime import date
 from pathlib import PurePosixPath
-from typing import Any
+from typing import Any, ClassVar
 
 import numpy as np
+import numpy.typing as npt
 
 from rating_tables.errors import TableError
 
@@ -43,12 +44,12 @@ def band_label(lower: float, upper: float) -> str:
     return f"[{edge_text(lower)}, {edge_text(upper)})"
 
 
-def band_labels(lower: Any, upper: Any) -> list[str]:
+def band_labels(lower: Iterable[float], upper: Iterable[float]) -> list[str]:
     """The label (`band_label`) of each band [lower[i], upper[i])."""
     return [band_label(lo, hi) for lo, hi in zip(lower, upper)]
 
 
-def band_index(lower: np.ndarray, values: np.ndarray) -> np.ndarray:
+def band_index(lower: npt.NDArray[np.float64], values: npt.NDArray[np.float64]) -> npt.NDArray[np.integer[Any]]:
     """Index of the band holding each value, for bands starting at `lower` (first edge -inf).
 
     The index is the number of interior edges at or below the value: counted edge by edge for up
@@ -71,7 +72,7 @@ def _set(obj: object, name: str, value: Any) -> None:
     object.__setattr__(obj, name, value)
 
 
-def _readonly(values: Any, what: str, prefix: str, ndim: int = 1) -> np.ndarray:
+def _readonly(values: Any, what: str, prefix: str, ndim: int = 1) -> npt.NDArray[np.float64]:
     try:
         arr = np.array(values, dtype=np.float64)
     except (TypeError, ValueError):
@@ -82,7 +83,7 @@ def _readonly(values: Any, what: str, prefix: str, ndim: int = 1) -> np.ndarray:
     return arr
 
 
-_RULES: dict[str, tuple[str, Callable[[np.ndarray], np.ndarray], str]] = {
+_RULES: dict[str, tuple[str, Callable[[npt.NDArray[np.float64]], npt.NDArray[np.bool_]], str]] = {
     "relativity": ("relativity", lambda v: np.isfinite(v) & (v > 0), "must be finite and > 0"),
     "exposure": ("format", lambda v: np.isfinite(v) & (v >= 0), "must be finite and >= 0"),
     "indicated": ("format", lambda v: np.isnan(v) | (np.isfinite(v) & (v > 0)), "must be empty or finite and > 0"),
@@ -90,7 +91,9 @@ _RULES: dict[str, tuple[str, Callable[[np.ndarray], np.ndarray], str]] = {
 }
 
 
-def _check_column(values: np.ndarray, column: str, prefix: str, factor: str, row_text: Callable[[int], str]) -> None:
+def _check_column(
+    values: npt.NDArray[np.float64], column: str, prefix: str, factor: str, row_text: Callable[[int], str]
+) -> None:
     """Refuse the first value of `column` that breaks its rule; `row_text` names a flat index."""
     check, ok, rule = _RULES[column]
     flat = values.ravel()
@@ -107,7 +110,11 @@ def _check_column(values: np.ndarray, column: str, prefix: str, factor: str, row
 
 
 def _check_bands(
-    lower: np.ndarray, upper: np.ndarray, prefix: str, factor: str, row_text: Callable[[int], str]
+    lower: npt.NDArray[np.float64],
+    upper: npt.NDArray[np.float64],
+    prefix: str,
+    factor: str,
+    row_text: Callable[[int], str],
 ) -> None:
     """Bands [lower, upper) must be non-empty, contiguous and cover (-inf, inf)."""
 
@@ -146,13 +153,15 @@ def _check_bands(
         )
 
 
-def _check_levels(levels: Any, prefix: str, factor: str, row_text: Callable[[int], str]) -> tuple[str, ...]:
+def _check_levels(
+    levels: Iterable[object], prefix: str, factor: str, row_text: Callable[[int], str]
+) -> tuple[str, ...]:
     """Levels must be unique non-empty strings; returns them as a tuple."""
-    levels = tuple(levels)
-    if not levels:
+    given = tuple(levels)
+    if not given:
         raise TableError(f"{prefix}: has no levels", factor=factor)
     seen: dict[str, int] = {}
-    for i, level in enumerate(levels):
+    for i, level in enumerate(given):
         if not isinstance(level, str) or level == "":
             raise TableError(
                 f"{prefix}, {row_text(i)}: level {level!r} is not a non-empty string", factor=factor, where=row_text(i)
@@ -164,7 +173,7 @@ def _check_levels(levels: Any, prefix: str, factor: str, row_text: Callable[[int
                 where=row_text(i),
             )
         seen[level] = i
-    return levels
+    return tuple(seen)  # the levels in the given order: every one is a new key
 
 
 def check_file(file: Any, prefix: str, factor: str) -> str:
@@ -210,6 +219,8 @@ def _same(a: Any, b: Any) -> bool:
 
 class _ComparedByValue:
     """Equality field by field, numpy arrays compared by value (NaN equal to NaN)."""
+
+    __dataclass_fields__: ClassVar[dict[str, Field[Any]]]  # every subclass is a dataclass
 
     def __eq__(self, other: object) -> bool:
         if type(other) is not type(self):
@@ -491,11 +502,12 @@ class Rounding:
             _set(self, f.name, int(value))
 
 
-def _plain_json(value: Any, key: str) -> dict:
+def _plain_json(value: Any, key: str) -> dict[str, Any]:
     if not isinstance(value, dict):
         raise TableError(f"{TABLE_JSON}: key {key!r} must be an object, got {type(value).__name__}", where=key)
     try:
-        return json.loads(json.dumps(value, allow_nan=False))
+        plain: dict[str, Any] = json.loads(json.dumps(value, allow_nan=False))
+        return plain
     except (TypeError, ValueError) as e:
         raise TableError(f"{TABLE_JSON}: key {key!r} must hold plain JSON values: {e}", where=key) from None
 
@@ -522,19 +534,19 @@ class RatingTable:
     factors: tuple[Factor, ...]
     loadings: Loadings
     rounding: Rounding = Rounding()
-    target: dict = field(default_factory=dict)
-    provenance: dict = field(default_factory=dict)
+    target: dict[str, Any] = field(default_factory=dict)
+    provenance: dict[str, Any] = field(default_factory=dict)
     cautions: tuple[str, ...] = ()
 
     def __post_init__(self) -> None:
         _text(self.table_id, "table_id")
         _text(self.exposure_unit, "exposure_unit")
-        day = self.effective_date
+        given: object = self.effective_date  # a date object is accepted too
         try:
             day = (
-                date(day.year, day.month, day.day)
-                if isinstance(day, date)
-                else date.fromisoformat(_text(day, "effective_date"))
+                date(given.year, given.month, given.day)
+                if isinstance(given, date)
+                else date.fromisoformat(_text(given, "effective_date"))
             )
         except ValueError:
             raise TableError(
@@ -561,7 +573,7 @@ class RatingTable:
 
     def _check_factors(self) -> None:
         names: set[str] = set()
-        files: set[str] = set()
+        files: set[str | None] = set()
         mains: dict[str, MainFactor] = {}
         for i, factor in enumerate(self.factors):
             if not isinstance(factor, (NumericFactor, CategoricalFactor, InteractionFactor)):
@@ -619,7 +631,7 @@ def _check_sides(factor: InteractionFactor, mains: dict[str, MainFactor]) -> Non
             raise TableError(
                 f"{prefix}: side {side!r} must have {kind} like its main factor", factor=factor.name, where=side
             )
-        if isinstance(main, CategoricalFactor) and set(cells) != set(main.levels):
+        if isinstance(main, CategoricalFactor) and not isinstance(cells, Bands) and set(cells) != set(main.levels):
             odd = sorted(set(cells) ^ set(main.levels))
             raise TableError(
                 f"{prefix}: side {side!r} levels differ from the main factor's at {odd[0]!r}",
@@ -628,7 +640,7 @@ def _check_sides(factor: InteractionFactor, mains: dict[str, MainFactor]) -> Non
             )
 
 
-def mapping_to_side(main: CategoricalFactor, cells: tuple[str, ...]) -> np.ndarray:
+def mapping_to_side(main: CategoricalFactor, cells: tuple[str, ...]) -> npt.NDArray[np.intp]:
     """For each main-factor level index, the index of the same level on a two-way table's side."""
     position = {level: j for j, level in enumerate(cells)}
     return np.array([position[level] for level in main.levels], dtype=np.intp)
