@@ -69,6 +69,36 @@ def audit(
     (|r - 1| <= 0.5 x 10**-decimals; a categorical's `base` level when named), a two-way table a
     base row and a base column at 1. `bounds` ({factor or "*": (min, max)}, None for no limit)
     bounds every relativity.
+
+    Parameters
+    ----------
+    table : RatingTable
+        The table to audit.
+    promises : dict of str to str, optional
+        Factor name -> `increasing`, `decreasing` or `none`, replacing that factor's `monotone`
+        (e.g. the spec's promises). A name that is no numeric or categorical factor of the table
+        is a `promise` violation.
+    bounds : dict of str to (float or None, float or None), optional
+        Factor name (a two-way table's too), or `*` for every factor without its own entry ->
+        (least, greatest) relativity allowed, inclusive; None leaves that side open. A name that
+        is no factor of the table is a `bounds` violation.
+
+    Returns
+    -------
+    list of Violation
+        In this order: `promise` findings; `monotone` findings, one per adjacent pair of cells
+        where the relativity moves against the promise by a relative step
+        |r_next / r - 1| > 1e-12 (`MONOTONE_TOLERANCE`), the worst combination of the other
+        factors' cells shown and its step as `amount`; `base_level` findings, with the distance
+        from 1 of the named base level, or else of the closest band, level, row or column, as
+        `amount`; `bounds` findings, one per
+        relativity beyond a bound, with the distance beyond it as `amount`. Along a numeric factor
+        the cells are the bands cut at every lower edge of the factor and of its two-way sides.
+
+    Raises
+    ------
+    TableError
+        When a promised direction is not one of the three words.
     """
     directions = {f.name: f.monotone for f in table.main_factors}
     found: list[Violation] = []
@@ -105,7 +135,24 @@ def audit_path(
     promises: dict[str, str] | None = None,
     bounds: dict[str, tuple[float | None, float | None]] | None = None,
 ) -> list[Violation]:
-    """Audit the table folder at `path`; a folder that fails to load gives one violation saying why."""
+    """Audit the table folder at `path`; a folder that fails to load gives one violation saying why.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The rating-table folder (holding `table.json`).
+    promises : dict of str to str, optional
+        As for `audit`.
+    bounds : dict of str to (float or None, float or None), optional
+        As for `audit`.
+
+    Returns
+    -------
+    list of Violation
+        `audit`'s findings; or, when `rating_tables.load` refuses the folder, one violation
+        carrying the TableError's check (`format`, `bands`, `relativity`, `file_path`, ...),
+        factor, place, one-line message (naming the folder and file) and amount.
+    """
     try:
         table = load(path)
     except TableError as e:

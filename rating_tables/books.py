@@ -25,7 +25,18 @@ def _file_kind(path: Path) -> str | None:
 
 
 def output_kind(path: Path) -> str:
-    """The kind of book file to write at `path`; TableError naming `path` for another suffix."""
+    """The kind of book file to write at `path`; TableError naming `path` for another suffix.
+
+    Parameters
+    ----------
+    path : pathlib.Path
+        The output file; only its suffix is read, in any case.
+
+    Returns
+    -------
+    str
+        `csv` for `.csv`, `parquet` for `.parquet` or `.pq`.
+    """
     kind = _file_kind(path)
     if kind is None:
         raise TableError(f"{path}: the output must end in .csv or .parquet (or .pq, also Parquet)", where=str(path))
@@ -37,16 +48,19 @@ def book_parts(path: Path) -> tuple[str, list[Path]]:
 
     Parameters
     ----------
-    path
+    path : pathlib.Path
         A book file or a folder of parts (rules in the module docstring).
 
     Returns
     -------
-    tuple
-        The kind (`csv` or `parquet`) and the part files, at least one.
+    tuple of (str, list of pathlib.Path)
+        The kind (`csv` or `parquet`) and the part files, at least one, in name order.
 
-    Raises TableError naming `path` when it does not exist, has an unsupported suffix, is a
-    folder without parts, or is a folder mixing CSV and Parquet parts.
+    Raises
+    ------
+    TableError
+        Naming `path` when it does not exist, has an unsupported suffix, is a folder without
+        parts, or is a folder mixing CSV and Parquet parts.
     """
     if not path.exists():
         raise TableError(f"{path}: the book does not exist", where=str(path))

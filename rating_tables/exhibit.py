@@ -36,7 +36,20 @@ _CORE_PART = "docProps/core.xml"
 
 
 def write_exhibit(table: RatingTable, path: str | os.PathLike[str]) -> None:
-    """Write the exhibit workbook of `table` to `path` (.xlsx)."""
+    """Write the exhibit workbook of `table` to `path` (.xlsx).
+
+    Needs openpyxl, imported here. The sheets are listed in the module docstring; relativities are
+    shown with `relativity_decimals` decimals, exposure and credibility with 2; infinite
+    band edges as the text `-inf` and `inf`.
+
+    Parameters
+    ----------
+    table : RatingTable
+        The table to show.
+    path : str or os.PathLike
+        The workbook file to write (a file already there is replaced); its bytes depend only on
+        `table`.
+    """
     from openpyxl import Workbook
     from openpyxl.styles import Font, PatternFill
 

@@ -104,7 +104,28 @@ class Capping:
 
 
 def cap_premiums(current: npt.NDArray[np.float64], proposed: npt.NDArray[np.float64], cap: float) -> Capping:
-    """Cap each policy's change at +-`cap` (0.15 for 15 %) and solve the correction factor."""
+    """Cap each policy's change at +-`cap` (0.15 for 15 %) and solve the correction factor.
+
+    The inputs are not checked here (`impact` checks them).
+
+    Parameters
+    ----------
+    current : numpy.ndarray of float64
+        Current premium per policy, money, finite and > 0.
+    proposed : numpy.ndarray of float64
+        Proposed premium per policy, money, finite and > 0, same shape as `current`.
+    cap : float
+        Largest change allowed either way, a share >= 0 (0.15 = 15 %).
+
+    Returns
+    -------
+    Capping
+        low = current x max(0, 1 - cap) and high = current x (1 + cap), money per policy;
+        capped = clip(proposed, low, high); off_balance = sum(capped) / sum(proposed) - 1; the
+        correction factor k > 0 with sum(clip(k x proposed, low, high)) = sum(proposed) (found
+        exactly on the piecewise-linear sum, not by iteration) and corrected = clip(k x proposed,
+        low, high), or both None when no k reaches the total.
+    """
     low = current * max(0.0, 1.0 - cap)
     high = current * (1.0 + cap)
     capped = np.clip(proposed, low, high)
@@ -212,6 +233,60 @@ def impact(
     premium; the share of policies (and of current premium) whose change exceeds each threshold;
     change by level of each factor in `factors` (book columns); the `top` largest increases
     (0-based row, premiums, change); and with `cap` the capping figures (see `Capping`).
+
+    A policy's change is round(proposed / current - 1, 12), a share (0.05 = +5 %); the change
+    bands are lower-inclusive with edges -20 %, -10 %, -5 %, 0, +5 %, +10 %, +20 % (`BAND_EDGES`).
+
+    Parameters
+    ----------
+    current : numpy.ndarray of float64
+        Current premium per book row, money, finite and > 0 (any 1-D array-like of numbers).
+    proposed : numpy.ndarray of float64
+        Proposed premium per book row, money, finite and > 0.
+    book : pandas.DataFrame
+        The policies, one row per premium, in the premiums' order; only its length and the
+        columns named in `factors` are read.
+    factors : list of str
+        Columns of `book` to break the change down by; each value is a level, shown as text.
+    thresholds : tuple of float
+        Changes, as shares (0.10 = 10 %), for which the policies with a change strictly above
+        are counted.
+    cap : float or None
+        Largest change allowed either way, a share >= 0 (0.15 = 15 %); None for no capping.
+    top : int
+        How many of the largest increases to list, >= 0.
+
+    Returns
+    -------
+    dict
+        `policies` (rows); `total_current`, `total_proposed` (money); `overall_change` =
+        total_proposed / total_current - 1 (0.0 for no rows);
+        `bands`: for each of the 8 change bands, `band` (label), `lower` and `upper` (the edges as
+        shares, None for the open ends), `count`, `count_share` (share of the policies),
+        `current_premium` (money) and `premium_share` (share of the total current premium);
+        `above_thresholds`: for each threshold t, `threshold`, `count` (policies with change > t),
+        `count_share` and `premium_share` (their current premium over the total);
+        `by_factor`: for each factor, a list of levels with rows, each `level` (text; sorted
+        by value, or in order of first appearance when the values cannot be sorted; a
+        categorical column in category order; missing values last as `<missing>`), `count`,
+        `current_premium`, `proposed_premium` (money) and `change` = proposed_premium /
+        current_premium - 1;
+        `largest_increases`: up to `top` policies with a change > 0, largest first (ties in row
+        order), each `row` (0-based), `current`, `proposed` (money) and `change`;
+        `capping`: None without `cap` or without rows, else `cap`; `capped_up` and `capped_down`
+        (policies whose proposed premium is above current x (1 + cap) or below current x
+        max(0, 1 - cap)); `total_proposed`, `total_capped` (money); `off_balance`;
+        `correction_factor` (k, or None); `after_correction`: None when k is None, else `total`
+        (money), `capped_up` and `capped_down` (policies still beyond a limit after scaling by
+        k) and `bands` (the change bands of the corrected premiums), as `cap_premiums` defines
+        them.
+
+    Raises
+    ------
+    TableError
+        When a premium array does not hold one value per book row or holds a value that is not
+        finite and > 0 (naming the 0-based row), a factor is not a column of `book`, a threshold
+        or `cap` is not a finite number (or `cap` is negative), or `top` is not an integer >= 0.
     """
     n = len(book)
     current, proposed = _premiums(current, "current", n), _premiums(proposed, "proposed", n)

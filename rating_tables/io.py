@@ -66,7 +66,28 @@ _MISSING = object()
 
 
 def load(path: str | os.PathLike[str]) -> RatingTable:
-    """Read the rating table in folder `path` (docs/rating-table.md); TableError on any problem."""
+    """Read the rating table in folder `path` (docs/rating-table.md); TableError on any problem.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The table folder, holding `table.json` and the factor files it names.
+
+    Returns
+    -------
+    RatingTable
+        The table, with the defaults of the format filled in: `exposure_unit` `policy-year`,
+        rounding 3 relativity and 2 premium decimals, `target` and `provenance` `{}`, and the
+        draft caution first among the cautions when the file leaves it out. Numbers are read as
+        float64 exactly as written (`inf` and `-inf` included).
+
+    Raises
+    ------
+    TableError
+        For any rule of docs/rating-table.md (Validation rules) the folder breaks; the one-line
+        message starts with the folder and names the file, the factor and the 1-based CSV data
+        row or the JSON key; `check` classifies it (`format`, `bands`, `relativity`, `file_path`).
+    """
     root = Path(path)
     try:
         return _load(root)
@@ -358,6 +379,24 @@ def save(table: RatingTable, path: str | os.PathLike[str]) -> None:
     """Write `table` into folder `path` (created if missing): table.json and one CSV per factor.
 
     The bytes depend only on the table. The caller handles atomic replacement of the folder.
+
+    Parameters
+    ----------
+    table : RatingTable
+        The table to write.
+    path : str or os.PathLike
+        The table folder. Files of the same names are replaced; other files are left alone.
+
+    Notes
+    -----
+    `table.json` is UTF-8 JSON (non-ASCII text kept as is), keys in the order of the format,
+    indented by two spaces, with a final newline; every key is written, `rounding`, `target`,
+    `provenance` and `cautions` included. Each factor's CSV goes to its `file`: UTF-8, lines
+    ending in LF, the columns of docs/rating-table.md (`indicated` and `credibility` only when
+    the factor has them; a two-way table's `exposure` likewise), numbers as Python's shortest
+    exact repr (`25.0`, `1.138`, `-inf`), an empty field for a missing optional value, and a
+    field quoted only when it holds a comma, a double quote, a CR or an LF. A two-way table's rows
+    run a-cell by a-cell, then b-cell by b-cell. Loading the folder gives a table equal to `table`.
     """
     root = Path(path)
     root.mkdir(parents=True, exist_ok=True)

@@ -178,7 +178,33 @@ def gross_premium(
     apply_minimum: bool = True,
 ) -> npt.NDArray[np.float64]:
     """max(minimum_premium, (pure x (1 + lae_ratio) + fixed_expense x exposure) / (1 - variable_expense
-    - profit)), rounded half to even to `premium_decimals` (money per row)."""
+    - profit)), rounded half to even to `premium_decimals` (money per row).
+
+    Computed in this order, in float64, which a rating system must follow to match to the cent:
+    `(pure * (1.0 + lae_ratio) + fixed_expense * exposure) / ((1.0 - variable_expense) - profit)`,
+    then the maximum with the minimum premium, then numpy's round (the value times
+    10**premium_decimals rounded to the nearest integer, ties to even, divided back).
+
+    Parameters
+    ----------
+    pure : numpy.ndarray of float64
+        Pure premium per row, money (not rounded).
+    exposure : numpy.ndarray of float64
+        Exposure per row in the table's exposure unit, same shape as `pure` (1.0 for one full term).
+    loadings : Loadings
+        lae_ratio (share of the pure premium), fixed_expense (money per exposure unit),
+        variable_expense and profit (shares of the gross premium), minimum_premium (money per row).
+    premium_decimals : int
+        Decimals kept, 0 to 12 (`Rounding.premium_decimals`; 2 for cents).
+    apply_minimum : bool
+        False leaves out the minimum premium (used to measure its effect).
+
+    Returns
+    -------
+    numpy.ndarray of float64
+        Gross premium per row, money, rounded to `premium_decimals`. The minimum applies to every
+        row whatever its exposure, including exposure 0.
+    """
     gross = (pure * (1.0 + loadings.lae_ratio) + loadings.fixed_expense * exposure) / (
         1.0 - loadings.variable_expense - loadings.profit
     )
@@ -197,6 +223,37 @@ def rating_columns(
     """The columns the rater adds: `rel_*` in table order, then `pure_premium`, `gross_premium`.
 
     `row_offset` is added to row numbers in error messages (for books rated in batches).
+
+    Parameters
+    ----------
+    table : RatingTable
+        The table to rate with.
+    book : pandas.DataFrame
+        One row per policy and period, with a column named as each numeric and categorical factor
+        of the table, and the exposure column unless `annual`. Other columns are not read, and the
+        columns `rate` adds are not checked for here (`check_no_clash`).
+    exposure_column : str or None
+        The column of earned exposure, in the table's exposure unit, finite and >= 0.
+    annual : bool
+        Rate every row for one full term (exposure 1.0); `exposure_column` is then not read.
+    row_offset : int
+        The 0-based position in the whole book of `book`'s first row.
+
+    Returns
+    -------
+    dict of str to numpy.ndarray of float64
+        `rel_NAME` for each factor entry in table order (`rel_A__B` for a two-way table), the
+        relativity looked up for each row; `pure_premium` = ((base_rate x rel_1) x ... x rel_k) x
+        exposure, money, not rounded; `gross_premium` as `gross_premium` computes it, money rounded
+        to `premium_decimals`. Each array has one value per row of `book`.
+
+    Raises
+    ------
+    TableError
+        (check `book`) for a missing column or a boolean column where numbers are needed; and,
+        naming the 0-based book row, for a missing value, a value of a numeric factor or of the
+        exposure that is not a number, an exposure that is negative or not finite, a level the
+        factor does not list when it has no fallback, or a premium too large to represent.
     """
     exposure = _exposure(book, exposure_column, annual, row_offset)
     out = _relativities(table, book, row_offset)
@@ -217,7 +274,22 @@ def rating_columns(
 
 
 def check_no_clash(existing: list[str], added: list[str], what: str) -> None:
-    """Refuse a book that already has a column the rater would add."""
+    """Refuse a book that already has a column the rater would add.
+
+    Parameters
+    ----------
+    existing : list of str
+        The book's column names.
+    added : list of str
+        The columns rating adds (`added_columns`).
+    what : str
+        Start of the error message, naming the book.
+
+    Raises
+    ------
+    TableError
+        (check `book`) naming the first column of `added` that `existing` already has.
+    """
     clash = [c for c in added if c in set(existing)]
     if clash:
         raise TableError(
@@ -226,7 +298,19 @@ def check_no_clash(existing: list[str], added: list[str], what: str) -> None:
 
 
 def added_columns(table: RatingTable) -> list[str]:
-    """Names of the columns `rate` adds, in order."""
+    """Names of the columns `rate` adds, in order.
+
+    Parameters
+    ----------
+    table : RatingTable
+        The table to rate with.
+
+    Returns
+    -------
+    list of str
+        `rel_NAME` for each factor entry in table order (`rel_A__B` for a two-way table), then
+        `pure_premium` and `gross_premium`.
+    """
     return [f"rel_{f.name}" for f in table.factors] + ["pure_premium", "gross_premium"]
 
 
@@ -237,6 +321,37 @@ def rate(
 
     `exposure_column` is the earned exposure (in the table's exposure unit); with `annual=True`
     every row is rated for one full term and the column is not needed.
+
+    Parameters
+    ----------
+    table : RatingTable
+        The table to rate with.
+    book : pandas.DataFrame
+        One row per policy and period. A numeric factor's column holds numbers (text that reads
+        as a number is accepted, a boolean column is not); its value x takes the band with
+        lower <= x < upper. A categorical factor's values are compared, as text (`str(value)`),
+        with the levels exactly: no trimming, case counts, the integer 2 is `2` and the float 2.0
+        is `2.0`; a value that is no level takes the fallback level. A missing value (NaN, None)
+        in a factor or the exposure column is an error.
+    exposure_column : str or None
+        The column of earned exposure in the table's exposure unit, finite and >= 0; needed
+        unless `annual`.
+    annual : bool
+        Rate every row for one full term: exposure 1.0 for every row.
+
+    Returns
+    -------
+    pandas.DataFrame
+        `book`'s columns, in order and unchanged, then `rel_NAME` per factor entry in table order,
+        `pure_premium` = ((base_rate x rel_1) x ... x rel_k) x exposure (money per row, not
+        rounded) and `gross_premium` (money per row, rounded to `premium_decimals`; formula in
+        `gross_premium`); the added columns are float64 and the index is `book`'s.
+
+    Raises
+    ------
+    TableError
+        When `book` already has one of the added columns, or for a bad row as `rating_columns`
+        says; messages name the 0-based book row.
     """
     check_no_clash(list(book.columns), added_columns(table), "book")
     added = pd.DataFrame(rating_columns(table, book, exposure_column, annual), index=book.index, copy=False)
@@ -252,6 +367,41 @@ def solve_base_rate(
     with off-balance factor = target_total / sum(pure_premium at the current base rate). The table's
     `target.total_pure_premium` is set to `target_total`. When a minimum premium is loaded, the report
     also states its effect on the gross premium: sum(gross) / sum(gross without the minimum) - 1.
+
+    Parameters
+    ----------
+    table : RatingTable
+        The table whose base rate is solved; its relativities are not changed.
+    book : pandas.DataFrame
+        The rows the total refers to (e.g. the training rows), as `rate` reads them.
+    exposure_column : str or None
+        The column of earned exposure, in the table's exposure unit; None with `annual`.
+    target_total : float
+        The total pure premium to reproduce over `book`, money (e.g. the rows' claim amounts),
+        finite and > 0.
+    annual : bool
+        Rate every row for one full term (exposure 1.0).
+
+    Returns
+    -------
+    table : RatingTable
+        `table` with base_rate x target_total / sum(pure_premium) (not rounded) and `target`
+        holding `total_pure_premium` = target_total beside its other keys.
+    report : dict
+        `base_rate_before`, `base_rate` (money per exposure unit); `off_balance_factor` (the
+        ratio above); `total_pure_premium_before`, `total_pure_premium` (at the solved base rate,
+        equal to the target up to floating point), `target_total_pure_premium` (money). With a
+        minimum premium > 0 also `minimum_premium`: `minimum_premium` (money per row),
+        `policies_at_minimum` (rows whose gross premium without the minimum, rounded, is below it),
+        `share_at_minimum` (their share of the rows, in [0, 1]), `gross_without_minimum` and
+        `gross_with_minimum` (money totals, gross premiums rounded per row), and `effect` =
+        gross_with_minimum / gross_without_minimum - 1.
+
+    Raises
+    ------
+    TableError
+        When `target_total` is not a finite number > 0, when the table rates `book` to a total
+        pure premium of 0 (no exposure), or for a bad row as `rating_columns` says.
     """
     if (
         isinstance(target_total, bool)

@@ -33,19 +33,60 @@ DRAFT_CAUTION = (
 
 
 def edge_text(x: float) -> str:
-    """A number as exact text: `-inf`, `inf`, `nan`, or the shortest repr (`25` for 25.0)."""
+    """A number as exact text: `-inf`, `inf`, `nan`, or the shortest repr (`25` for 25.0).
+
+    Parameters
+    ----------
+    x : float
+        The number, typically a band edge in the unit of the factor's book values.
+
+    Returns
+    -------
+    str
+        Python's shortest text that reads back as the same float64, with a trailing `.0` dropped:
+        `25` for 25.0, `0.1`, `1e+20`, `-inf`. Used in band labels and messages; the factor CSVs
+        keep the `.0` (`25.0`, see `rating_tables.io`).
+    """
     text = repr(float(x))
     return text[:-2] if text.endswith(".0") else text
 
 
 def band_label(lower: float, upper: float) -> str:
     """A band as `[lower, upper)` (lower inclusive, upper exclusive), edges as exact text (`edge_text`),
-    so distinct edges always give distinct labels."""
+    so distinct edges always give distinct labels.
+
+    Parameters
+    ----------
+    lower : float
+        The band's lower edge, included in the band (`-inf` for the first band), in the unit of
+        the factor's book values.
+    upper : float
+        The band's upper edge, excluded from the band (`inf` for the last band), same unit.
+
+    Returns
+    -------
+    str
+        The label, e.g. `[-inf, 25)`, `[25, 60)`, `[60, inf)`: the one band label of premiumlab
+        (exhibit sheets, audit and impact messages, book bands).
+    """
     return f"[{edge_text(lower)}, {edge_text(upper)})"
 
 
 def band_labels(lower: Iterable[float], upper: Iterable[float]) -> list[str]:
-    """The label (`band_label`) of each band [lower[i], upper[i])."""
+    """The label (`band_label`) of each band [lower[i], upper[i]).
+
+    Parameters
+    ----------
+    lower : iterable of float
+        Lower edges (inclusive), one per band, in the unit of the factor's book values.
+    upper : iterable of float
+        Upper edges (exclusive), one per band, as many as `lower`.
+
+    Returns
+    -------
+    list of str
+        `band_label(lower[i], upper[i])` for each band, in the given order.
+    """
     return [band_label(lo, hi) for lo, hi in zip(lower, upper)]
 
 
@@ -54,6 +95,23 @@ def band_index(lower: npt.NDArray[np.float64], values: npt.NDArray[np.float64]) 
 
     The index is the number of interior edges at or below the value: counted edge by edge for up
     to 255 bands (about ten times faster than a binary search on a few edges), else np.searchsorted.
+
+    Parameters
+    ----------
+    lower : numpy.ndarray of float64
+        The bands' lower edges in ascending order, `lower[0] = -inf`; with contiguous bands
+        (`upper[i] = lower[i + 1]`, as a valid table has) the band i is [lower[i], lower[i + 1]).
+    values : numpy.ndarray of float64
+        Book values, any shape, in the unit of the edges; none may be NaN (the rater refuses
+        missing values before looking them up; a NaN's index is not meaningful).
+
+    Returns
+    -------
+    numpy.ndarray of integers
+        Same shape as `values`: i such that lower[i] <= x < lower[i + 1] (inf past the last
+        edge), that is, the number of edges in `lower[1:]` that are <= x; `-inf` falls in band 0
+        and `inf` in the last band.
+        The dtype is uint8 for up to 255 bands, else intp.
     """
     if lower.size > 255:
         return np.searchsorted(lower, values, side="right") - 1
@@ -64,7 +122,18 @@ def band_index(lower: npt.NDArray[np.float64], values: npt.NDArray[np.float64]) 
 
 
 def data_row(i: int) -> str:
-    """The text naming the i-th (0-based) band or level as the factor CSV's 1-based data row."""
+    """The text naming the i-th (0-based) band or level as the factor CSV's 1-based data row.
+
+    Parameters
+    ----------
+    i : int
+        0-based position of the band or level in the factor (the header row not counted).
+
+    Returns
+    -------
+    str
+        `data row {i + 1} (1-based)`, as error messages name factor CSV rows.
+    """
     return f"data row {i + 1} (1-based)"
 
 
@@ -177,7 +246,30 @@ def _check_levels(
 
 
 def check_file(file: Any, prefix: str, factor: str) -> str:
-    """A factor's `file`: a relative POSIX path inside the table folder (normalised)."""
+    """A factor's `file`: a relative POSIX path inside the table folder (normalised).
+
+    Parameters
+    ----------
+    file : object
+        The `file` value of a factor entry, any type (as read from table.json).
+    prefix : str
+        Start of the error message, naming where the value was found (e.g. `table.json: factors[2]`).
+    factor : str
+        The factor's name, for the error's `factor`.
+
+    Returns
+    -------
+    str
+        The path in normal form: `factors//age.csv`, `./factors/age.csv` and `factors/age.csv/` all
+        give `factors/age.csv`.
+
+    Raises
+    ------
+    TableError
+        (check `file_path`) when `file` is not a non-empty string, holds a backslash or a NUL, is
+        absolute, has a `..` part, or is `.` or `table.json`. Whether the path resolves inside the
+        folder through symbolic links is checked when the file is read (`rating_tables.load`).
+    """
     if not isinstance(file, str) or file == "":
         raise TableError(f"{prefix}: file must be a non-empty relative path", check="file_path", factor=factor)
     if "\\" in file or "\x00" in file:
@@ -280,8 +372,12 @@ def _main_prologue(factor: Any) -> str:
 class NumericFactor(_ComparedByValue):
     """A banded numeric factor: band i is [lower[i], upper[i]) with `relativity[i]`.
 
-    `exposure` is the exposure the band held when the table was made (same unit as the table);
-    `indicated` and `credibility` are optional exhibit columns (NaN where not given).
+    `lower` and `upper` are in the unit of the book column named `name`; `relativity` is a
+    multiplier on the pure premium, finite and > 0. `exposure` is the exposure the band held when
+    the table was made (same unit as the table), finite and >= 0; `indicated` (the relativity
+    before rounding, > 0) and `credibility` (in [0, 1]) are optional exhibit columns (NaN where
+    not given). The arrays may be given as any 1-D sequences of numbers; they are kept as
+    read-only float64 copies. `file` defaults to `factors/NAME.csv`.
     """
 
     name: str
@@ -314,7 +410,8 @@ class CategoricalFactor(_ComparedByValue):
 
     A book value that is no level takes the `fallback` level's relativity when one is named.
     `base` optionally names the level whose relativity is 1. Level order is the file's order,
-    which is the order a monotone promise refers to.
+    which is the order a monotone promise refers to. The arrays are as for `NumericFactor`, one
+    value per level.
     """
 
     name: str
@@ -368,7 +465,18 @@ Cells = Bands | tuple[str, ...]
 
 
 def cell_labels(cells: Cells) -> list[str]:
-    """Text for each cell of one side of a two-way table: a band or a quoted level."""
+    """Text for each cell of one side of a two-way table: a band or a quoted level.
+
+    Parameters
+    ----------
+    cells : Bands or tuple of str
+        One side of an `InteractionFactor` (`a_cells` or `b_cells`).
+
+    Returns
+    -------
+    list of str
+        In cell order: `band_label` text for bands (`[25, 60)`), Python's repr for levels (`'Coast'`).
+    """
     return cells.labels() if isinstance(cells, Bands) else [repr(level) for level in cells]
 
 
@@ -457,7 +565,11 @@ def _number(value: Any, key: str) -> float:
 class Loadings:
     """Loadings of docs/rating-table.md, all >= 0: lae_ratio (share of pure premium), fixed_expense (money per
     exposure unit), variable_expense and profit (shares of gross premium, sum < 1), minimum_premium
-    (money per policy)."""
+    (money per rated row, whatever its exposure).
+
+    gross premium = max(minimum_premium, (pure x (1 + lae_ratio) + fixed_expense x exposure)
+    / (1 - variable_expense - profit)), rounded to `Rounding.premium_decimals` (`gross_premium`).
+    """
 
     lae_ratio: float = 0.0
     fixed_expense: float = 0.0
@@ -486,7 +598,14 @@ class Loadings:
 
 @dataclass(frozen=True)
 class Rounding:
-    """Decimals kept for relativities and for the gross premium."""
+    """Decimals kept for relativities and for the gross premium.
+
+    Both are integers from 0 to 12. `relativity_decimals` says how the relativities were rounded
+    when the table was made; it sets the audit's tolerance for a relativity of 1 (0.5 x
+    10**-relativity_decimals), and the rater does not round relativities again.
+    `premium_decimals` is the rounding of the gross premium: numpy's round, half to even on the
+    value times 10**premium_decimals.
+    """
 
     relativity_decimals: int = 3
     premium_decimals: int = 2
@@ -522,9 +641,12 @@ def _text(value: Any, key: str) -> str:
 class RatingTable:
     """A filed rating table (docs/rating-table.md).
 
-    `base_rate` is money per exposure unit; `factors` are multiplied in this order; `target`
-    and `provenance` are plain JSON objects; `cautions` always include DRAFT_CAUTION (added first
-    when missing).
+    `base_rate` is the pure premium, in money per exposure unit, of a risk at relativity 1 on
+    every factor; `effective_date` is ISO text `YYYY-MM-DD` (a `datetime.date` is accepted and
+    kept as its ISO text); `exposure_unit` names the unit of exposure, one full term being 1.0
+    unit (premiumlab writes the spec's `table.exposure_unit`, by default `policy-year`);
+    `factors` are multiplied in this order; `target` and `provenance` are plain JSON objects;
+    `cautions` always include DRAFT_CAUTION (added first when missing).
     """
 
     table_id: str
@@ -641,6 +763,25 @@ def _check_sides(factor: InteractionFactor, mains: dict[str, MainFactor]) -> Non
 
 
 def mapping_to_side(main: CategoricalFactor, cells: tuple[str, ...]) -> npt.NDArray[np.intp]:
-    """For each main-factor level index, the index of the same level on a two-way table's side."""
+    """For each main-factor level index, the index of the same level on a two-way table's side.
+
+    Parameters
+    ----------
+    main : CategoricalFactor
+        The main factor of the side.
+    cells : tuple of str
+        The side's levels (`a_cells` or `b_cells` of an `InteractionFactor`): the main factor's
+        levels, possibly in another order.
+
+    Returns
+    -------
+    numpy.ndarray of intp
+        `out[i]` is the position in `cells` of `main.levels[i]`, one entry per main-factor level.
+
+    Raises
+    ------
+    KeyError
+        When a main-factor level is not in `cells` (never for a side of a valid `RatingTable`).
+    """
     position = {level: j for j, level in enumerate(cells)}
     return np.array([position[level] for level in main.levels], dtype=np.intp)
