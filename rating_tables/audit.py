@@ -8,9 +8,12 @@ Structural rules (bands covering (-inf, inf) without gap or overlap, finite posi
 from __future__ import annotations
 
 import os
+from collections.abc import Callable
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
+import numpy.typing as npt
 
 from rating_tables.errors import TableError
 from rating_tables.io import load
@@ -18,6 +21,7 @@ from rating_tables.table import (
     MONOTONE,
     Bands,
     CategoricalFactor,
+    Cells,
     Factor,
     InteractionFactor,
     MainFactor,
@@ -65,6 +69,36 @@ def audit(
     (|r - 1| <= 0.5 x 10**-decimals; a categorical's `base` level when named), a two-way table a
     base row and a base column at 1. `bounds` ({factor or "*": (min, max)}, None for no limit)
     bounds every relativity.
+
+    Parameters
+    ----------
+    table : RatingTable
+        The table to audit.
+    promises : dict of str to str, optional
+        Factor name -> `increasing`, `decreasing` or `none`, replacing that factor's `monotone`
+        (e.g. the spec's promises). A name that is no numeric or categorical factor of the table
+        is a `promise` violation.
+    bounds : dict of str to (float or None, float or None), optional
+        Factor name (a two-way table's too), or `*` for every factor without its own entry ->
+        (least, greatest) relativity allowed, inclusive; None leaves that side open. A name that
+        is no factor of the table is a `bounds` violation.
+
+    Returns
+    -------
+    list of Violation
+        In this order: `promise` findings; `monotone` findings, one per adjacent pair of cells
+        where the relativity moves against the promise by a relative step
+        |r_next / r - 1| > 1e-12 (`MONOTONE_TOLERANCE`), the worst combination of the other
+        factors' cells shown and its step as `amount`; `base_level` findings, with the distance
+        from 1 of the named base level, or else of the closest band, level, row or column, as
+        `amount`; `bounds` findings, one per
+        relativity beyond a bound, with the distance beyond it as `amount`. Along a numeric factor
+        the cells are the bands cut at every lower edge of the factor and of its two-way sides.
+
+    Raises
+    ------
+    TableError
+        When a promised direction is not one of the three words.
     """
     directions = {f.name: f.monotone for f in table.main_factors}
     found: list[Violation] = []
@@ -85,9 +119,9 @@ def audit(
             )
         else:
             directions[name] = direction
-    for factor in table.main_factors:
-        if directions[factor.name] != "none":
-            found += _direction(table, factor, directions[factor.name])
+    for main in table.main_factors:
+        if directions[main.name] != "none":
+            found += _direction(table, main, directions[main.name])
     tolerance = 0.5 * 10.0**-table.rounding.relativity_decimals
     for factor in table.factors:
         found += _base(factor, tolerance)
@@ -97,11 +131,28 @@ def audit(
 
 
 def audit_path(
-    path: str | os.PathLike,
+    path: str | os.PathLike[str],
     promises: dict[str, str] | None = None,
     bounds: dict[str, tuple[float | None, float | None]] | None = None,
 ) -> list[Violation]:
-    """Audit the table folder at `path`; a folder that fails to load gives one violation saying why."""
+    """Audit the table folder at `path`; a folder that fails to load gives one violation saying why.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The rating-table folder (holding `table.json`).
+    promises : dict of str to str, optional
+        As for `audit`.
+    bounds : dict of str to (float or None, float or None), optional
+        As for `audit`.
+
+    Returns
+    -------
+    list of Violation
+        `audit`'s findings; or, when `rating_tables.load` refuses the folder, one violation
+        carrying the TableError's check (`format`, `bands`, `relativity`, `file_path`, ...),
+        factor, place, one-line message (naming the folder and file) and amount.
+    """
     try:
         table = load(path)
     except TableError as e:
@@ -109,16 +160,25 @@ def audit_path(
     return audit(table, promises, bounds)
 
 
-def _grid(main: MainFactor, sides: list[Bands | tuple[str, ...]]) -> tuple[list[str], np.ndarray, list[np.ndarray]]:
+def _grid(
+    main: MainFactor, sides: list[Cells]
+) -> tuple[list[str], npt.NDArray[np.integer[Any]], list[npt.NDArray[np.integer[Any]]]]:
     """Cells along a factor fine enough for the main effect and every two-way side: their labels,
-    the main factor's index for each and each side's index for each."""
+    the main factor's index for each and each side's index for each.
+
+    A RatingTable gives a categorical factor's two-way sides levels and a numeric factor's bands.
+    """
     if isinstance(main, CategoricalFactor):
         levels = np.arange(len(main.levels))
-        return list(main.levels), levels, [mapping_to_side(main, side)[levels] for side in sides]
-    lows = np.unique(np.concatenate([main.lower, *(side.lower for side in sides)]))
+        level_sides = [side for side in sides if not isinstance(side, Bands)]
+        assert len(level_sides) == len(sides)  # a categorical factor's sides are levels
+        return list(main.levels), levels, [mapping_to_side(main, side)[levels] for side in level_sides]
+    band_sides = [side for side in sides if isinstance(side, Bands)]
+    assert len(band_sides) == len(sides)  # a numeric factor's sides are bands
+    lows = np.unique(np.concatenate([main.lower, *(side.lower for side in band_sides)]))
     highs = np.append(lows[1:], np.inf)
     labels = band_labels(lows, highs)
-    return labels, band_index(main.lower, lows), [band_index(side.lower, lows) for side in sides]
+    return labels, band_index(main.lower, lows), [band_index(side.lower, lows) for side in band_sides]
 
 
 def _direction(table: RatingTable, main: MainFactor, direction: str) -> list[Violation]:
@@ -219,10 +279,14 @@ def _bounds(table: RatingTable, bounds: dict[str, tuple[float | None, float | No
         low, high = limits
         labels = _cell_names(factor) if isinstance(factor, InteractionFactor) else factor.labels()
         values = factor.relativity.ravel()
-        for limit, beyond, word in (
+        checks: tuple[
+            tuple[float | None, Callable[[npt.NDArray[np.float64], float], npt.NDArray[np.float64]], str], ...
+        ]
+        checks = (
             (low, lambda v, x: x - v, "below the minimum"),
             (high, lambda v, x: v - x, "above the maximum"),
-        ):
+        )
+        for limit, beyond, word in checks:
             if limit is None:
                 continue
             excess = beyond(values, float(limit))

@@ -19,14 +19,25 @@ KIND_OF_SUFFIX = {".csv": "csv", ".parquet": "parquet", ".pq": "parquet"}
 SKIPPED_PREFIXES = (".", "_")
 
 
-def file_kind(path: Path) -> str | None:
+def _file_kind(path: Path) -> str | None:
     """`csv` or `parquet` from the suffix of `path`, or None for any other suffix."""
     return KIND_OF_SUFFIX.get(path.suffix.lower())
 
 
 def output_kind(path: Path) -> str:
-    """The kind of book file to write at `path`; TableError naming `path` for another suffix."""
-    kind = file_kind(path)
+    """The kind of book file to write at `path`; TableError naming `path` for another suffix.
+
+    Parameters
+    ----------
+    path : pathlib.Path
+        The output file; only its suffix is read, in any case.
+
+    Returns
+    -------
+    str
+        `csv` for `.csv`, `parquet` for `.parquet` or `.pq`.
+    """
+    kind = _file_kind(path)
     if kind is None:
         raise TableError(f"{path}: the output must end in .csv or .parquet (or .pq, also Parquet)", where=str(path))
     return kind
@@ -37,21 +48,24 @@ def book_parts(path: Path) -> tuple[str, list[Path]]:
 
     Parameters
     ----------
-    path
+    path : pathlib.Path
         A book file or a folder of parts (rules in the module docstring).
 
     Returns
     -------
-    tuple
-        The kind (`csv` or `parquet`) and the part files, at least one.
+    tuple of (str, list of pathlib.Path)
+        The kind (`csv` or `parquet`) and the part files, at least one, in name order.
 
-    Raises TableError naming `path` when it does not exist, has an unsupported suffix, is a
-    folder without parts, or is a folder mixing CSV and Parquet parts.
+    Raises
+    ------
+    TableError
+        Naming `path` when it does not exist, has an unsupported suffix, is a folder without
+        parts, or is a folder mixing CSV and Parquet parts.
     """
     if not path.exists():
         raise TableError(f"{path}: the book does not exist", where=str(path))
     if not path.is_dir():
-        kind = file_kind(path)
+        kind = _file_kind(path)
         if kind is None:
             raise TableError(
                 f"{path}: unsupported book format '{path.suffix}'; a book is a .csv, .parquet "
@@ -62,7 +76,7 @@ def book_parts(path: Path) -> tuple[str, list[Path]]:
     parts = sorted(
         p
         for p in path.iterdir()
-        if not p.name.startswith(SKIPPED_PREFIXES) and file_kind(p) is not None and p.is_file()
+        if not p.name.startswith(SKIPPED_PREFIXES) and _file_kind(p) is not None and p.is_file()
     )
     if not parts:
         raise TableError(f"{path}: is a directory with no .csv, .parquet or .pq parts", where=str(path))

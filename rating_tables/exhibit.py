@@ -35,8 +35,21 @@ _ZIP_DATE = (1980, 1, 1, 0, 0, 0)
 _CORE_PART = "docProps/core.xml"
 
 
-def write_exhibit(table: RatingTable, path: str | os.PathLike) -> None:
-    """Write the exhibit workbook of `table` to `path` (.xlsx)."""
+def write_exhibit(table: RatingTable, path: str | os.PathLike[str]) -> None:
+    """Write the exhibit workbook of `table` to `path` (.xlsx).
+
+    Needs openpyxl, imported here. The sheets are listed in the module docstring; relativities are
+    shown with `relativity_decimals` decimals, exposure and credibility with 2; infinite
+    band edges as the text `-inf` and `inf`.
+
+    Parameters
+    ----------
+    table : RatingTable
+        The table to show.
+    path : str or os.PathLike
+        The workbook file to write (a file already there is replaced); its bytes depend only on
+        `table`.
+    """
     from openpyxl import Workbook
     from openpyxl.styles import Font, PatternFill
 
@@ -59,7 +72,7 @@ def write_exhibit(table: RatingTable, path: str | os.PathLike) -> None:
     _save_fixed(book, datetime.combine(date.fromisoformat(table.effective_date), time()), path)
 
 
-def _save_fixed(book: Any, stamp: datetime, path: str | os.PathLike) -> None:
+def _save_fixed(book: Any, stamp: datetime, path: str | os.PathLike[str]) -> None:
     """Save `book` with `stamp` as created and modified time and fixed zip member dates.
 
     openpyxl stamps `modified` with the clock while saving, so the document-properties part is
@@ -163,13 +176,13 @@ def _main(sheet: Any, factor: NumericFactor | CategoricalFactor, style: _Style) 
     else:
         head = ["Level"]
         keys = [[level] for level in factor.levels]
-    columns = [
+    candidates = [
         ("Indicated relativity", factor.indicated, style.relativity_format),
         ("Selected relativity", factor.relativity, style.relativity_format),
         ("Exposure", factor.exposure, "#,##0.00"),
         ("Credibility", factor.credibility, "0.00"),
     ]
-    columns = [c for c in columns if c[1] is not None]
+    columns = [(title, values, number_format) for title, values, number_format in candidates if values is not None]
     style.header(sheet, 1, head + [c[0] for c in columns])
     for i, key in enumerate(keys):
         for j, value in enumerate(key, start=1):

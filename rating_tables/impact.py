@@ -11,8 +11,10 @@ capped too, the others scaled by k).
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
+import numpy.typing as npt
 import pandas as pd
 
 from rating_tables.errors import TableError
@@ -31,7 +33,7 @@ BAND_LABELS = (
 CHANGE_DECIMALS = 12
 
 
-def premium_change(current: np.ndarray, proposed: np.ndarray) -> np.ndarray:
+def _premium_change(current: npt.NDArray[np.float64], proposed: npt.NDArray[np.float64]) -> npt.NDArray[np.float64]:
     """proposed / current - 1 per policy, rounded to CHANGE_DECIMALS."""
     return np.round(proposed / current - 1.0, CHANGE_DECIMALS)
 
@@ -40,7 +42,7 @@ def _share(part: float, whole: float) -> float:
     return float(part / whole) if whole else 0.0
 
 
-def change_bands(change: np.ndarray, current: np.ndarray) -> list[dict]:
+def _change_bands(change: npt.NDArray[np.float64], current: npt.NDArray[np.float64]) -> list[dict[str, Any]]:
     """Count and current premium of the policies in each change band, with their shares."""
     codes = np.searchsorted(np.array(BAND_EDGES), change, side="right")
     counts = np.bincount(codes, minlength=len(BAND_LABELS))
@@ -71,16 +73,16 @@ class Capping:
     """
 
     cap: float
-    low: np.ndarray
-    high: np.ndarray
-    capped: np.ndarray
+    low: npt.NDArray[np.float64]
+    high: npt.NDArray[np.float64]
+    capped: npt.NDArray[np.float64]
     off_balance: float
     correction_factor: float | None
-    corrected: np.ndarray | None
+    corrected: npt.NDArray[np.float64] | None
 
-    def summary(self, current: np.ndarray, proposed: np.ndarray) -> dict:
+    def summary(self, current: npt.NDArray[np.float64], proposed: npt.NDArray[np.float64]) -> dict[str, Any]:
         """The JSON-able figures of the capping."""
-        out: dict = {
+        out: dict[str, Any] = {
             "cap": self.cap,
             "capped_up": int((proposed > self.high).sum()),
             "capped_down": int((proposed < self.low).sum()),
@@ -90,19 +92,40 @@ class Capping:
             "correction_factor": self.correction_factor,
             "after_correction": None,
         }
-        if self.corrected is not None:
-            k = self.correction_factor
+        k = self.correction_factor
+        if self.corrected is not None and k is not None:  # both or neither are None
             out["after_correction"] = {
                 "total": float(self.corrected.sum()),
                 "capped_up": int((k * proposed > self.high).sum()),
                 "capped_down": int((k * proposed < self.low).sum()),
-                "bands": change_bands(premium_change(current, self.corrected), current),
+                "bands": _change_bands(_premium_change(current, self.corrected), current),
             }
         return out
 
 
-def cap_premiums(current: np.ndarray, proposed: np.ndarray, cap: float) -> Capping:
-    """Cap each policy's change at +-`cap` (0.15 for 15 %) and solve the correction factor."""
+def cap_premiums(current: npt.NDArray[np.float64], proposed: npt.NDArray[np.float64], cap: float) -> Capping:
+    """Cap each policy's change at +-`cap` (0.15 for 15 %) and solve the correction factor.
+
+    The inputs are not checked here (`impact` checks them).
+
+    Parameters
+    ----------
+    current : numpy.ndarray of float64
+        Current premium per policy, money, finite and > 0.
+    proposed : numpy.ndarray of float64
+        Proposed premium per policy, money, finite and > 0, same shape as `current`.
+    cap : float
+        Largest change allowed either way, a share >= 0 (0.15 = 15 %).
+
+    Returns
+    -------
+    Capping
+        low = current x max(0, 1 - cap) and high = current x (1 + cap), money per policy;
+        capped = clip(proposed, low, high); off_balance = sum(capped) / sum(proposed) - 1; the
+        correction factor k > 0 with sum(clip(k x proposed, low, high)) = sum(proposed) (found
+        exactly on the piecewise-linear sum, not by iteration) and corrected = clip(k x proposed,
+        low, high), or both None when no k reaches the total.
+    """
     low = current * max(0.0, 1.0 - cap)
     high = current * (1.0 + cap)
     capped = np.clip(proposed, low, high)
@@ -119,7 +142,9 @@ def cap_premiums(current: np.ndarray, proposed: np.ndarray, cap: float) -> Cappi
     )
 
 
-def _correction(proposed: np.ndarray, low: np.ndarray, high: np.ndarray, target: float) -> float | None:
+def _correction(
+    proposed: npt.NDArray[np.float64], low: npt.NDArray[np.float64], high: npt.NDArray[np.float64], target: float
+) -> float | None:
     """k > 0 with f(k) = sum(clip(k x proposed, low, high)) = target, or None.
 
     f is continuous, non-decreasing and linear between the knots low/proposed and high/proposed,
@@ -143,7 +168,7 @@ def _correction(proposed: np.ndarray, low: np.ndarray, high: np.ndarray, target:
     return float(knots[j - 1] + (target - f[j - 1]) * (knots[j] - knots[j - 1]) / (f[j] - f[j - 1]))
 
 
-def _levels(series: pd.Series) -> tuple[np.ndarray, list[str]]:
+def _levels(series: pd.Series) -> tuple[npt.NDArray[np.intp], list[str]]:
     if isinstance(series.dtype, pd.CategoricalDtype):
         codes, labels = series.cat.codes.to_numpy().astype(np.intp), [str(c) for c in series.cat.categories]
     else:
@@ -158,7 +183,9 @@ def _levels(series: pd.Series) -> tuple[np.ndarray, list[str]]:
     return codes, labels
 
 
-def by_level(series: pd.Series, current: np.ndarray, proposed: np.ndarray) -> list[dict]:
+def _by_level(
+    series: pd.Series, current: npt.NDArray[np.float64], proposed: npt.NDArray[np.float64]
+) -> list[dict[str, Any]]:
     """Per level of a factor: policies, current and proposed premium, premium-weighted mean change
     (sum proposed / sum current - 1)."""
     codes, labels = _levels(series)
@@ -178,7 +205,7 @@ def by_level(series: pd.Series, current: np.ndarray, proposed: np.ndarray) -> li
     ]
 
 
-def _premiums(values: np.ndarray, name: str, n: int) -> np.ndarray:
+def _premiums(values: npt.NDArray[np.float64], name: str, n: int) -> npt.NDArray[np.float64]:
     arr = np.asarray(values, dtype=np.float64)
     if arr.shape != (n,):
         raise TableError(f"{name}: expected {n} premiums (one per book row), got shape {arr.shape}", where=name)
@@ -192,20 +219,74 @@ def _premiums(values: np.ndarray, name: str, n: int) -> np.ndarray:
 
 
 def impact(
-    current: np.ndarray,
-    proposed: np.ndarray,
+    current: npt.NDArray[np.float64],
+    proposed: npt.NDArray[np.float64],
     book: pd.DataFrame,
     factors: list[str],
     thresholds: tuple[float, ...] = (0.05, 0.10, 0.25),
     cap: float | None = None,
     top: int = 10,
-) -> dict:
+) -> dict[str, Any]:
     """Dislocation summary of moving every policy of `book` from `current` to `proposed` premium.
 
     Returns a JSON-able dict: totals and overall change; the change bands by count and current
     premium; the share of policies (and of current premium) whose change exceeds each threshold;
     change by level of each factor in `factors` (book columns); the `top` largest increases
     (0-based row, premiums, change); and with `cap` the capping figures (see `Capping`).
+
+    A policy's change is round(proposed / current - 1, 12), a share (0.05 = +5 %); the change
+    bands are lower-inclusive with edges -20 %, -10 %, -5 %, 0, +5 %, +10 %, +20 % (`BAND_EDGES`).
+
+    Parameters
+    ----------
+    current : numpy.ndarray of float64
+        Current premium per book row, money, finite and > 0 (any 1-D array-like of numbers).
+    proposed : numpy.ndarray of float64
+        Proposed premium per book row, money, finite and > 0.
+    book : pandas.DataFrame
+        The policies, one row per premium, in the premiums' order; only its length and the
+        columns named in `factors` are read.
+    factors : list of str
+        Columns of `book` to break the change down by; each value is a level, shown as text.
+    thresholds : tuple of float
+        Changes, as shares (0.10 = 10 %), for which the policies with a change strictly above
+        are counted.
+    cap : float or None
+        Largest change allowed either way, a share >= 0 (0.15 = 15 %); None for no capping.
+    top : int
+        How many of the largest increases to list, >= 0.
+
+    Returns
+    -------
+    dict
+        `policies` (rows); `total_current`, `total_proposed` (money); `overall_change` =
+        total_proposed / total_current - 1 (0.0 for no rows);
+        `bands`: for each of the 8 change bands, `band` (label), `lower` and `upper` (the edges as
+        shares, None for the open ends), `count`, `count_share` (share of the policies),
+        `current_premium` (money) and `premium_share` (share of the total current premium);
+        `above_thresholds`: for each threshold t, `threshold`, `count` (policies with change > t),
+        `count_share` and `premium_share` (their current premium over the total);
+        `by_factor`: for each factor, a list of levels with rows, each `level` (text; sorted
+        by value, or in order of first appearance when the values cannot be sorted; a
+        categorical column in category order; missing values last as `<missing>`), `count`,
+        `current_premium`, `proposed_premium` (money) and `change` = proposed_premium /
+        current_premium - 1;
+        `largest_increases`: up to `top` policies with a change > 0, largest first (ties in row
+        order), each `row` (0-based), `current`, `proposed` (money) and `change`;
+        `capping`: None without `cap` or without rows, else `cap`; `capped_up` and `capped_down`
+        (policies whose proposed premium is above current x (1 + cap) or below current x
+        max(0, 1 - cap)); `total_proposed`, `total_capped` (money); `off_balance`;
+        `correction_factor` (k, or None); `after_correction`: None when k is None, else `total`
+        (money), `capped_up` and `capped_down` (policies still beyond a limit after scaling by
+        k) and `bands` (the change bands of the corrected premiums), as `cap_premiums` defines
+        them.
+
+    Raises
+    ------
+    TableError
+        When a premium array does not hold one value per book row or holds a value that is not
+        finite and > 0 (naming the 0-based row), a factor is not a column of `book`, a threshold
+        or `cap` is not a finite number (or `cap` is negative), or `top` is not an integer >= 0.
     """
     n = len(book)
     current, proposed = _premiums(current, "current", n), _premiums(proposed, "proposed", n)
@@ -222,7 +303,7 @@ def impact(
             raise TableError(f"{name}: {value!r} must be a finite number{' >= 0' if name == 'cap' else ''}", where=name)
     if isinstance(top, bool) or not isinstance(top, int) or top < 0:
         raise TableError(f"top: {top!r} must be an integer >= 0", where="top")
-    change = premium_change(current, proposed)
+    change = _premium_change(current, proposed)
     order = np.argsort(-change, kind="stable")[:top]
     order = order[change[order] > 0]
     total_current = float(current.sum())
@@ -231,7 +312,7 @@ def impact(
         "total_current": total_current,
         "total_proposed": float(proposed.sum()),
         "overall_change": _share(proposed.sum(), total_current) - 1.0 if n else 0.0,
-        "bands": change_bands(change, current),
+        "bands": _change_bands(change, current),
         "above_thresholds": [
             {
                 "threshold": float(t),
@@ -241,7 +322,7 @@ def impact(
             }
             for t in thresholds
         ],
-        "by_factor": {f: by_level(book[f], current, proposed) for f in factors},
+        "by_factor": {f: _by_level(book[f], current, proposed) for f in factors},
         "largest_increases": [
             {"row": int(i), "current": float(current[i]), "proposed": float(proposed[i]), "change": float(change[i])}
             for i in order

@@ -14,9 +14,10 @@ import json
 import os
 import re
 from pathlib import Path
-from typing import Any
+from typing import Any, TypeVar
 
 import numpy as np
+import numpy.typing as npt
 
 from rating_tables.errors import TableError
 from rating_tables.table import (
@@ -24,6 +25,7 @@ from rating_tables.table import (
     TABLE_JSON,
     Bands,
     CategoricalFactor,
+    Cells,
     Factor,
     InteractionFactor,
     Loadings,
@@ -63,8 +65,29 @@ _MISSING = object()
 # ----------------------------------------------------------------------------------------- reading
 
 
-def load(path: str | os.PathLike) -> RatingTable:
-    """Read the rating table in folder `path` (docs/rating-table.md); TableError on any problem."""
+def load(path: str | os.PathLike[str]) -> RatingTable:
+    """Read the rating table in folder `path` (docs/rating-table.md); TableError on any problem.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The table folder, holding `table.json` and the factor files it names.
+
+    Returns
+    -------
+    RatingTable
+        The table, with the defaults of the format filled in: `exposure_unit` `policy-year`,
+        rounding 3 relativity and 2 premium decimals, `target` and `provenance` `{}`, and the
+        draft caution first among the cautions when the file leaves it out. Numbers are read as
+        float64 exactly as written (`inf` and `-inf` included).
+
+    Raises
+    ------
+    TableError
+        For any rule of docs/rating-table.md (Validation rules) the folder breaks; the one-line
+        message starts with the folder and names the file, the factor and the 1-based CSV data
+        row or the JSON key; `check` classifies it (`format`, `bands`, `relativity`, `file_path`).
+    """
     root = Path(path)
     try:
         return _load(root)
@@ -110,7 +133,7 @@ def _load(root: Path) -> RatingTable:
     )
 
 
-def _read_json(path: Path) -> dict:
+def _read_json(path: Path) -> dict[str, Any]:
     try:
         meta = json.loads(path.read_bytes().decode("utf-8-sig"))
     except FileNotFoundError:
@@ -122,7 +145,7 @@ def _read_json(path: Path) -> dict:
     return meta
 
 
-def _typed(obj: dict, key: str, kind: type, where: str, default: Any = _MISSING) -> Any:
+def _typed(obj: dict[str, Any], key: str, kind: type, where: str, default: Any = _MISSING) -> Any:
     if key not in obj:
         if default is _MISSING:
             raise TableError(f"{TABLE_JSON}: missing key {where!r}", where=where)
@@ -133,7 +156,10 @@ def _typed(obj: dict, key: str, kind: type, where: str, default: Any = _MISSING)
     return value
 
 
-def _build(cls: type, values: dict, where: str) -> Any:
+_Settings = TypeVar("_Settings", Loadings, Rounding)
+
+
+def _build(cls: type[_Settings], values: dict[str, Any], where: str) -> _Settings:
     allowed = {name for name in cls.__dataclass_fields__}
     unknown = [k for k in values if k not in allowed]
     if unknown:
@@ -258,7 +284,7 @@ def _columns(
 
 def _numbers(
     rows: list[list[str]], cols: dict[str, int], column: str, file: str, factor: str, optional: bool = False
-) -> np.ndarray:
+) -> npt.NDArray[np.float64]:
     j = cols[column]
     values = np.empty(len(rows))
     for i, row in enumerate(rows):
@@ -276,8 +302,12 @@ def _numbers(
     return values
 
 
-def _value_columns(rows: list[list[str]], cols: dict[str, int], file: str, factor: str) -> dict:
-    values = {c: _numbers(rows, cols, c, file, factor) for c in ("relativity", "exposure") if c in cols}
+def _value_columns(
+    rows: list[list[str]], cols: dict[str, int], file: str, factor: str
+) -> dict[str, npt.NDArray[np.float64]]:
+    values: dict[str, npt.NDArray[np.float64]] = {
+        c: _numbers(rows, cols, c, file, factor) for c in ("relativity", "exposure") if c in cols
+    }
     for column in OPTIONAL_COLUMNS:
         if column in cols:
             values[column] = _numbers(rows, cols, column, file, factor, optional=True)
@@ -293,12 +323,12 @@ def _interaction(
         for c in ((f"{side}_lower", f"{side}_upper") if kind == "numeric" else (f"{side}_level",))
     ]
     cols = _columns(header, (*key_columns, "relativity"), file, name, optional=("exposure", *OPTIONAL_COLUMNS))
-    sides = [_side_keys(rows, cols, side, kind, file, name) for side, kind in zip(of, kinds)]
-    (a_cells, a_pos), (b_cells, b_pos) = (_distinct(keys, kind) for keys, kind in zip(sides, kinds))
+    (a_cells, a_index), (b_cells, b_index) = (
+        _side_cells(rows, cols, side, kind, file, name) for side, kind in zip(of, kinds)
+    )
     shape = (len(a_cells), len(b_cells))
     row_of = np.full(shape, -1)
-    for r, (ka, kb) in enumerate(zip(*sides)):
-        i, j = a_pos[ka], b_pos[kb]
+    for r, (i, j) in enumerate(zip(a_index, b_index)):
         if row_of[i, j] >= 0:
             raise TableError(
                 f"{file}: interaction {name!r}, {data_row(r)}: the cell repeats {data_row(int(row_of[i, j]))}",
@@ -319,40 +349,59 @@ def _interaction(
     return InteractionFactor(name=name, of=of, a_cells=a_cells, b_cells=b_cells, file=file, **matrices)
 
 
-def _side_keys(rows: list[list[str]], cols: dict[str, int], side: str, kind: str, file: str, factor: str) -> list:
+def _side_cells(
+    rows: list[list[str]], cols: dict[str, int], side: str, kind: str, file: str, factor: str
+) -> tuple[Cells, list[int]]:
+    """The distinct cells of one side (bands sorted by edges, levels in order of first appearance)
+    and, for each row, the index of its cell among them."""
     if kind == "categorical":
-        return [row[cols[f"{side}_level"]] for row in rows]
+        levels = [row[cols[f"{side}_level"]] for row in rows]
+        distinct_levels = tuple(dict.fromkeys(levels))
+        level_position = {level: i for i, level in enumerate(distinct_levels)}
+        return distinct_levels, [level_position[level] for level in levels]
     lower = _numbers(rows, cols, f"{side}_lower", file, factor)
     upper = _numbers(rows, cols, f"{side}_upper", file, factor)
-    return list(zip(lower.tolist(), upper.tolist()))
+    bands: list[tuple[float, float]] = list(zip(lower.tolist(), upper.tolist()))
+    distinct_bands = sorted(dict.fromkeys(bands))
+    band_position = {band: i for i, band in enumerate(distinct_bands)}
+    cells = Bands(lower=np.array([lo for lo, _ in distinct_bands]), upper=np.array([hi for _, hi in distinct_bands]))
+    return cells, [band_position[band] for band in bands]
 
 
-def _distinct(keys: list, kind: str) -> tuple[Bands | tuple[str, ...], dict]:
-    """The distinct cells of one side: bands sorted by edges, levels in order of first appearance."""
-    unique = list(dict.fromkeys(keys))
-    if kind == "numeric":
-        unique.sort()
-        cells: Bands | tuple[str, ...] = Bands(lower=[k[0] for k in unique], upper=[k[1] for k in unique])
-    else:
-        cells = tuple(unique)
-    return cells, {k: i for i, k in enumerate(unique)}
-
-
-def _key_text(cells: Bands | tuple[str, ...], i: int) -> str:
+def _key_text(cells: Cells, i: int) -> str:
     return cells.labels()[i] if isinstance(cells, Bands) else repr(cells[i])
 
 
 # ----------------------------------------------------------------------------------------- writing
 
 
-def save(table: RatingTable, path: str | os.PathLike) -> None:
+def save(table: RatingTable, path: str | os.PathLike[str]) -> None:
     """Write `table` into folder `path` (created if missing): table.json and one CSV per factor.
 
     The bytes depend only on the table. The caller handles atomic replacement of the folder.
+
+    Parameters
+    ----------
+    table : RatingTable
+        The table to write.
+    path : str or os.PathLike
+        The table folder. Files of the same names are replaced; other files are left alone.
+
+    Notes
+    -----
+    `table.json` is UTF-8 JSON (non-ASCII text kept as is), keys in the order of the format,
+    indented by two spaces, with a final newline; every key is written, `rounding`, `target`,
+    `provenance` and `cautions` included. Each factor's CSV goes to its `file`: UTF-8, lines
+    ending in LF, the columns of docs/rating-table.md (`indicated` and `credibility` only when
+    the factor has them; a two-way table's `exposure` likewise), numbers as Python's shortest
+    exact repr (`25.0`, `1.138`, `-inf`), an empty field for a missing optional value, and a
+    field quoted only when it holds a comma, a double quote, a CR or an LF. A two-way table's rows
+    run a-cell by a-cell, then b-cell by b-cell. Loading the folder gives a table equal to `table`.
     """
     root = Path(path)
     root.mkdir(parents=True, exist_ok=True)
     for factor in table.factors:
+        assert factor.file is not None  # a factor's __post_init__ sets its default file
         target = root / factor.file
         target.parent.mkdir(parents=True, exist_ok=True)
         target.write_bytes(_factor_csv(factor).encode("utf-8"))
@@ -360,7 +409,7 @@ def save(table: RatingTable, path: str | os.PathLike) -> None:
     (root / TABLE_JSON).write_bytes(text.encode("utf-8"))
 
 
-def _table_json(table: RatingTable) -> dict:
+def _table_json(table: RatingTable) -> dict[str, Any]:
     return {
         "format": FORMAT,
         "version": VERSION,
@@ -377,7 +426,7 @@ def _table_json(table: RatingTable) -> dict:
     }
 
 
-def _entry(factor: Factor) -> dict:
+def _entry(factor: Factor) -> dict[str, Any]:
     if isinstance(factor, InteractionFactor):
         return {"name": factor.name, "type": "interaction", "of": list(factor.of), "file": factor.file}
     kind = "numeric" if isinstance(factor, NumericFactor) else "categorical"
@@ -413,11 +462,11 @@ def _main_rows(factor: NumericFactor | CategoricalFactor) -> list[list[str]]:
     return [header] + [[*key, *(_number_text(col[i]) for col in columns)] for i, key in enumerate(keys)]
 
 
-def _side_header(side: str, cells: Bands | tuple[str, ...]) -> list[str]:
+def _side_header(side: str, cells: Cells) -> list[str]:
     return [f"{side}_lower", f"{side}_upper"] if isinstance(cells, Bands) else [f"{side}_level"]
 
 
-def _side_key(cells: Bands | tuple[str, ...], i: int) -> list[str]:
+def _side_key(cells: Cells, i: int) -> list[str]:
     if isinstance(cells, Bands):
         return [repr(float(cells.lower[i])), repr(float(cells.upper[i]))]
     return [cells[i]]

@@ -31,8 +31,8 @@ ROW_GROUP_ROWS = 262_144
 
 def rate_file(
     table: RatingTable,
-    in_path: str | os.PathLike,
-    out_path: str | os.PathLike,
+    in_path: str | os.PathLike[str],
+    out_path: str | os.PathLike[str],
     exposure_column: str | None = None,
     annual: bool = False,
     batch_rows: int = 500_000,
@@ -43,6 +43,50 @@ def rate_file(
 
     Errors name the input and the 0-based row counted over the whole book; a failed call removes
     what it had written of the output. A book with no rows is refused.
+
+    The output holds the book's columns in order, then the columns `rate` adds, as float64. CSV
+    text columns are passed through unchanged; Parquet columns keep their types (dictionary
+    columns are written decoded).
+
+    Parameters
+    ----------
+    table : RatingTable
+        The table to rate with.
+    in_path : str or os.PathLike
+        The book: a `.csv`, `.parquet` or `.pq` file, or a folder of parts of one kind read in
+        name order (`rating_tables.books.book_parts`). CSV columns are read as text: an empty
+        field is the empty text `""`, not a missing value, so a numeric factor or the exposure
+        refuses it as not a number and a categorical factor looks it up as a level (the fallback
+        then applies). Parquet columns keep their types and are read as `rate` reads a
+        DataFrame's columns (a null is a missing value).
+    out_path : str or os.PathLike
+        The rated book to write, CSV for `.csv`, Parquet for `.parquet` or `.pq`; it must not be
+        the input file. A file already there is replaced.
+    exposure_column : str or None
+        The column of earned exposure, in the table's exposure unit; needed unless `annual`.
+    annual : bool
+        Rate every row for one full term (exposure 1.0).
+    batch_rows : int
+        Rows read and rated at a time, >= 1; the output does not depend on it.
+    row_group_rows : int
+        Rows per row group of a Parquet output (the last may hold fewer), >= 1; not used for CSV.
+
+    Returns
+    -------
+    tuple of str
+        The table's cautions, for the caller to show with a CSV output; a Parquet output also
+        carries them as a JSON list under the schema metadata key `premiumlab.cautions`.
+
+    Raises
+    ------
+    TableError
+        For `batch_rows` or `row_group_rows` not a positive integer, an output suffix other than
+        those above, or an output that is the input; then, with the input path in front of the
+        message, for a book that cannot be read, parts whose columns or types differ, a missing
+        factor or exposure column, a column the rater would add, a bad row (as
+        `rating_tables.rate.rating_columns` says, the row counted over the whole book) or no rows.
+        After an error raised past the checks of the arguments, nothing is left at `out_path`,
+        not even a file that was there before the call.
     """
     source_path, target = Path(in_path), Path(out_path)
     for name, value in (("batch_rows", batch_rows), ("row_group_rows", row_group_rows)):

@@ -12,13 +12,14 @@ from __future__ import annotations
 
 import json
 import math
-from collections.abc import Callable
-from dataclasses import dataclass, field, fields
+from collections.abc import Callable, Iterable
+from dataclasses import Field, dataclass, field, fields
 from datetime import date
 from pathlib import PurePosixPath
-from typing import Any
+from typing import Any, ClassVar
 
 import numpy as np
+import numpy.typing as npt
 
 from rating_tables.errors import TableError
 
@@ -32,27 +33,85 @@ DRAFT_CAUTION = (
 
 
 def edge_text(x: float) -> str:
-    """A number as exact text: `-inf`, `inf`, `nan`, or the shortest repr (`25` for 25.0)."""
+    """A number as exact text: `-inf`, `inf`, `nan`, or the shortest repr (`25` for 25.0).
+
+    Parameters
+    ----------
+    x : float
+        The number, typically a band edge in the unit of the factor's book values.
+
+    Returns
+    -------
+    str
+        Python's shortest text that reads back as the same float64, with a trailing `.0` dropped:
+        `25` for 25.0, `0.1`, `1e+20`, `-inf`. Used in band labels and messages; the factor CSVs
+        keep the `.0` (`25.0`, see `rating_tables.io`).
+    """
     text = repr(float(x))
     return text[:-2] if text.endswith(".0") else text
 
 
 def band_label(lower: float, upper: float) -> str:
     """A band as `[lower, upper)` (lower inclusive, upper exclusive), edges as exact text (`edge_text`),
-    so distinct edges always give distinct labels."""
+    so distinct edges always give distinct labels.
+
+    Parameters
+    ----------
+    lower : float
+        The band's lower edge, included in the band (`-inf` for the first band), in the unit of
+        the factor's book values.
+    upper : float
+        The band's upper edge, excluded from the band (`inf` for the last band), same unit.
+
+    Returns
+    -------
+    str
+        The label, e.g. `[-inf, 25)`, `[25, 60)`, `[60, inf)`: the one band label of premiumlab
+        (exhibit sheets, audit and impact messages, book bands).
+    """
     return f"[{edge_text(lower)}, {edge_text(upper)})"
 
 
-def band_labels(lower: Any, upper: Any) -> list[str]:
-    """The label (`band_label`) of each band [lower[i], upper[i])."""
+def band_labels(lower: Iterable[float], upper: Iterable[float]) -> list[str]:
+    """The label (`band_label`) of each band [lower[i], upper[i]).
+
+    Parameters
+    ----------
+    lower : iterable of float
+        Lower edges (inclusive), one per band, in the unit of the factor's book values.
+    upper : iterable of float
+        Upper edges (exclusive), one per band, as many as `lower`.
+
+    Returns
+    -------
+    list of str
+        `band_label(lower[i], upper[i])` for each band, in the given order.
+    """
     return [band_label(lo, hi) for lo, hi in zip(lower, upper)]
 
 
-def band_index(lower: np.ndarray, values: np.ndarray) -> np.ndarray:
+def band_index(lower: npt.NDArray[np.float64], values: npt.NDArray[np.float64]) -> npt.NDArray[np.integer[Any]]:
     """Index of the band holding each value, for bands starting at `lower` (first edge -inf).
 
     The index is the number of interior edges at or below the value: counted edge by edge for up
     to 255 bands (about ten times faster than a binary search on a few edges), else np.searchsorted.
+
+    Parameters
+    ----------
+    lower : numpy.ndarray of float64
+        The bands' lower edges in ascending order, `lower[0] = -inf`; with contiguous bands
+        (`upper[i] = lower[i + 1]`, as a valid table has) the band i is [lower[i], lower[i + 1]).
+    values : numpy.ndarray of float64
+        Book values, any shape, in the unit of the edges; none may be NaN (the rater refuses
+        missing values before looking them up; a NaN's index is not meaningful).
+
+    Returns
+    -------
+    numpy.ndarray of integers
+        Same shape as `values`: i such that lower[i] <= x < lower[i + 1] (inf past the last
+        edge), that is, the number of edges in `lower[1:]` that are <= x; `-inf` falls in band 0
+        and `inf` in the last band.
+        The dtype is uint8 for up to 255 bands, else intp.
     """
     if lower.size > 255:
         return np.searchsorted(lower, values, side="right") - 1
@@ -63,7 +122,18 @@ def band_index(lower: np.ndarray, values: np.ndarray) -> np.ndarray:
 
 
 def data_row(i: int) -> str:
-    """The text naming the i-th (0-based) band or level as the factor CSV's 1-based data row."""
+    """The text naming the i-th (0-based) band or level as the factor CSV's 1-based data row.
+
+    Parameters
+    ----------
+    i : int
+        0-based position of the band or level in the factor (the header row not counted).
+
+    Returns
+    -------
+    str
+        `data row {i + 1} (1-based)`, as error messages name factor CSV rows.
+    """
     return f"data row {i + 1} (1-based)"
 
 
@@ -71,7 +141,7 @@ def _set(obj: object, name: str, value: Any) -> None:
     object.__setattr__(obj, name, value)
 
 
-def _readonly(values: Any, what: str, prefix: str, ndim: int = 1) -> np.ndarray:
+def _readonly(values: Any, what: str, prefix: str, ndim: int = 1) -> npt.NDArray[np.float64]:
     try:
         arr = np.array(values, dtype=np.float64)
     except (TypeError, ValueError):
@@ -82,7 +152,7 @@ def _readonly(values: Any, what: str, prefix: str, ndim: int = 1) -> np.ndarray:
     return arr
 
 
-_RULES: dict[str, tuple[str, Callable[[np.ndarray], np.ndarray], str]] = {
+_RULES: dict[str, tuple[str, Callable[[npt.NDArray[np.float64]], npt.NDArray[np.bool_]], str]] = {
     "relativity": ("relativity", lambda v: np.isfinite(v) & (v > 0), "must be finite and > 0"),
     "exposure": ("format", lambda v: np.isfinite(v) & (v >= 0), "must be finite and >= 0"),
     "indicated": ("format", lambda v: np.isnan(v) | (np.isfinite(v) & (v > 0)), "must be empty or finite and > 0"),
@@ -90,7 +160,9 @@ _RULES: dict[str, tuple[str, Callable[[np.ndarray], np.ndarray], str]] = {
 }
 
 
-def check_column(values: np.ndarray, column: str, prefix: str, factor: str, row_text: Callable[[int], str]) -> None:
+def _check_column(
+    values: npt.NDArray[np.float64], column: str, prefix: str, factor: str, row_text: Callable[[int], str]
+) -> None:
     """Refuse the first value of `column` that breaks its rule; `row_text` names a flat index."""
     check, ok, rule = _RULES[column]
     flat = values.ravel()
@@ -106,7 +178,13 @@ def check_column(values: np.ndarray, column: str, prefix: str, factor: str, row_
         )
 
 
-def check_bands(lower: np.ndarray, upper: np.ndarray, prefix: str, factor: str, row_text: Callable[[int], str]) -> None:
+def _check_bands(
+    lower: npt.NDArray[np.float64],
+    upper: npt.NDArray[np.float64],
+    prefix: str,
+    factor: str,
+    row_text: Callable[[int], str],
+) -> None:
     """Bands [lower, upper) must be non-empty, contiguous and cover (-inf, inf)."""
 
     def fail(i: int, what: str, amount: float | None = None) -> None:
@@ -144,13 +222,15 @@ def check_bands(lower: np.ndarray, upper: np.ndarray, prefix: str, factor: str, 
         )
 
 
-def check_levels(levels: Any, prefix: str, factor: str, row_text: Callable[[int], str]) -> tuple[str, ...]:
+def _check_levels(
+    levels: Iterable[object], prefix: str, factor: str, row_text: Callable[[int], str]
+) -> tuple[str, ...]:
     """Levels must be unique non-empty strings; returns them as a tuple."""
-    levels = tuple(levels)
-    if not levels:
+    given = tuple(levels)
+    if not given:
         raise TableError(f"{prefix}: has no levels", factor=factor)
     seen: dict[str, int] = {}
-    for i, level in enumerate(levels):
+    for i, level in enumerate(given):
         if not isinstance(level, str) or level == "":
             raise TableError(
                 f"{prefix}, {row_text(i)}: level {level!r} is not a non-empty string", factor=factor, where=row_text(i)
@@ -162,11 +242,34 @@ def check_levels(levels: Any, prefix: str, factor: str, row_text: Callable[[int]
                 where=row_text(i),
             )
         seen[level] = i
-    return levels
+    return tuple(seen)  # the levels in the given order: every one is a new key
 
 
 def check_file(file: Any, prefix: str, factor: str) -> str:
-    """A factor's `file`: a relative POSIX path inside the table folder (normalised)."""
+    """A factor's `file`: a relative POSIX path inside the table folder (normalised).
+
+    Parameters
+    ----------
+    file : object
+        The `file` value of a factor entry, any type (as read from table.json).
+    prefix : str
+        Start of the error message, naming where the value was found (e.g. `table.json: factors[2]`).
+    factor : str
+        The factor's name, for the error's `factor`.
+
+    Returns
+    -------
+    str
+        The path in normal form: `factors//age.csv`, `./factors/age.csv` and `factors/age.csv/` all
+        give `factors/age.csv`.
+
+    Raises
+    ------
+    TableError
+        (check `file_path`) when `file` is not a non-empty string, holds a backslash or a NUL, is
+        absolute, has a `..` part, or is `.` or `table.json`. Whether the path resolves inside the
+        folder through symbolic links is checked when the file is read (`rating_tables.load`).
+    """
     if not isinstance(file, str) or file == "":
         raise TableError(f"{prefix}: file must be a non-empty relative path", check="file_path", factor=factor)
     if "\\" in file or "\x00" in file:
@@ -209,6 +312,8 @@ def _same(a: Any, b: Any) -> bool:
 class _ComparedByValue:
     """Equality field by field, numpy arrays compared by value (NaN equal to NaN)."""
 
+    __dataclass_fields__: ClassVar[dict[str, Field[Any]]]  # every subclass is a dataclass
+
     def __eq__(self, other: object) -> bool:
         if type(other) is not type(self):
             return NotImplemented
@@ -235,7 +340,7 @@ def _optional_columns(factor: Any, prefix: str, shape: tuple[int, ...], row_text
         arr = _readonly(values, column, prefix, ndim=len(shape))
         if arr.shape != shape:
             raise TableError(f"{prefix}: {column} has shape {arr.shape}, expected {shape}", factor=factor.name)
-        check_column(arr, column, prefix, factor.name, row_text)
+        _check_column(arr, column, prefix, factor.name, row_text)
         _set(factor, column, arr)
 
 
@@ -244,7 +349,7 @@ def _factor_arrays(factor: Any, prefix: str, n: int) -> None:
         arr = _readonly(getattr(factor, column), column, prefix)
         if arr.size != n:
             raise TableError(f"{prefix}: {column} has {arr.size} values for {n} rows", factor=factor.name)
-        check_column(arr, column, prefix, factor.name, data_row)
+        _check_column(arr, column, prefix, factor.name, data_row)
         _set(factor, column, arr)
     _optional_columns(factor, prefix, (n,), data_row)
 
@@ -267,8 +372,12 @@ def _main_prologue(factor: Any) -> str:
 class NumericFactor(_ComparedByValue):
     """A banded numeric factor: band i is [lower[i], upper[i]) with `relativity[i]`.
 
-    `exposure` is the exposure the band held when the table was made (same unit as the table);
-    `indicated` and `credibility` are optional exhibit columns (NaN where not given).
+    `lower` and `upper` are in the unit of the book column named `name`; `relativity` is a
+    multiplier on the pure premium, finite and > 0. `exposure` is the exposure the band held when
+    the table was made (same unit as the table), finite and >= 0; `indicated` (the relativity
+    before rounding, > 0) and `credibility` (in [0, 1]) are optional exhibit columns (NaN where
+    not given). The arrays may be given as any 1-D sequences of numbers; they are kept as
+    read-only float64 copies. `file` defaults to `factors/NAME.csv`.
     """
 
     name: str
@@ -285,7 +394,7 @@ class NumericFactor(_ComparedByValue):
         prefix = _main_prologue(self)
         lower = _readonly(self.lower, "lower", prefix)
         upper = _readonly(self.upper, "upper", prefix)
-        check_bands(lower, upper, prefix, self.name, data_row)
+        _check_bands(lower, upper, prefix, self.name, data_row)
         _set(self, "lower", lower)
         _set(self, "upper", upper)
         _factor_arrays(self, prefix, lower.size)
@@ -301,7 +410,8 @@ class CategoricalFactor(_ComparedByValue):
 
     A book value that is no level takes the `fallback` level's relativity when one is named.
     `base` optionally names the level whose relativity is 1. Level order is the file's order,
-    which is the order a monotone promise refers to.
+    which is the order a monotone promise refers to. The arrays are as for `NumericFactor`, one
+    value per level.
     """
 
     name: str
@@ -317,7 +427,7 @@ class CategoricalFactor(_ComparedByValue):
 
     def __post_init__(self) -> None:
         prefix = _main_prologue(self)
-        levels = check_levels(self.levels, prefix, self.name, data_row)
+        levels = _check_levels(self.levels, prefix, self.name, data_row)
         _set(self, "levels", levels)
         for key in ("fallback", "base"):
             value = getattr(self, key)
@@ -355,7 +465,18 @@ Cells = Bands | tuple[str, ...]
 
 
 def cell_labels(cells: Cells) -> list[str]:
-    """Text for each cell of one side of a two-way table: a band or a quoted level."""
+    """Text for each cell of one side of a two-way table: a band or a quoted level.
+
+    Parameters
+    ----------
+    cells : Bands or tuple of str
+        One side of an `InteractionFactor` (`a_cells` or `b_cells`).
+
+    Returns
+    -------
+    list of str
+        In cell order: `band_label` text for bands (`[25, 60)`), Python's repr for levels (`'Coast'`).
+    """
     return cells.labels() if isinstance(cells, Bands) else [repr(level) for level in cells]
 
 
@@ -399,9 +520,9 @@ class InteractionFactor(_ComparedByValue):
             cells = getattr(self, attr)
             side_prefix = f"{prefix}, side {side!r}"
             if isinstance(cells, Bands):
-                check_bands(cells.lower, cells.upper, side_prefix, self.name, lambda i: f"band {i + 1}")
+                _check_bands(cells.lower, cells.upper, side_prefix, self.name, lambda i: f"band {i + 1}")
             else:
-                cells = check_levels(cells, side_prefix, self.name, lambda i: f"level {i + 1}")
+                cells = _check_levels(cells, side_prefix, self.name, lambda i: f"level {i + 1}")
                 _set(self, attr, cells)
         shape = (len(self.a_cells), len(self.b_cells))
         a_labels, b_labels = cell_labels(self.a_cells), cell_labels(self.b_cells)
@@ -413,13 +534,13 @@ class InteractionFactor(_ComparedByValue):
         relativity = _readonly(self.relativity, "relativity", prefix, ndim=2)
         if relativity.shape != shape:
             raise TableError(f"{prefix}: relativity has shape {relativity.shape}, expected {shape}", factor=self.name)
-        check_column(relativity, "relativity", prefix, self.name, cell)
+        _check_column(relativity, "relativity", prefix, self.name, cell)
         _set(self, "relativity", relativity)
         if self.exposure is not None:
             exposure = _readonly(self.exposure, "exposure", prefix, ndim=2)
             if exposure.shape != shape:
                 raise TableError(f"{prefix}: exposure has shape {exposure.shape}, expected {shape}", factor=self.name)
-            check_column(exposure, "exposure", prefix, self.name, cell)
+            _check_column(exposure, "exposure", prefix, self.name, cell)
             _set(self, "exposure", exposure)
         _optional_columns(self, prefix, shape, cell)
 
@@ -444,7 +565,11 @@ def _number(value: Any, key: str) -> float:
 class Loadings:
     """Loadings of docs/rating-table.md, all >= 0: lae_ratio (share of pure premium), fixed_expense (money per
     exposure unit), variable_expense and profit (shares of gross premium, sum < 1), minimum_premium
-    (money per policy)."""
+    (money per rated row, whatever its exposure).
+
+    gross premium = max(minimum_premium, (pure x (1 + lae_ratio) + fixed_expense x exposure)
+    / (1 - variable_expense - profit)), rounded to `Rounding.premium_decimals` (`gross_premium`).
+    """
 
     lae_ratio: float = 0.0
     fixed_expense: float = 0.0
@@ -473,7 +598,14 @@ class Loadings:
 
 @dataclass(frozen=True)
 class Rounding:
-    """Decimals kept for relativities and for the gross premium."""
+    """Decimals kept for relativities and for the gross premium.
+
+    Both are integers from 0 to 12. `relativity_decimals` says how the relativities were rounded
+    when the table was made; it sets the audit's tolerance for a relativity of 1 (0.5 x
+    10**-relativity_decimals), and the rater does not round relativities again.
+    `premium_decimals` is the rounding of the gross premium: numpy's round, half to even on the
+    value times 10**premium_decimals.
+    """
 
     relativity_decimals: int = 3
     premium_decimals: int = 2
@@ -489,11 +621,12 @@ class Rounding:
             _set(self, f.name, int(value))
 
 
-def _plain_json(value: Any, key: str) -> dict:
+def _plain_json(value: Any, key: str) -> dict[str, Any]:
     if not isinstance(value, dict):
         raise TableError(f"{TABLE_JSON}: key {key!r} must be an object, got {type(value).__name__}", where=key)
     try:
-        return json.loads(json.dumps(value, allow_nan=False))
+        plain: dict[str, Any] = json.loads(json.dumps(value, allow_nan=False))
+        return plain
     except (TypeError, ValueError) as e:
         raise TableError(f"{TABLE_JSON}: key {key!r} must hold plain JSON values: {e}", where=key) from None
 
@@ -508,9 +641,12 @@ def _text(value: Any, key: str) -> str:
 class RatingTable:
     """A filed rating table (docs/rating-table.md).
 
-    `base_rate` is money per exposure unit; `factors` are multiplied in this order; `target`
-    and `provenance` are plain JSON objects; `cautions` always include DRAFT_CAUTION (added first
-    when missing).
+    `base_rate` is the pure premium, in money per exposure unit, of a risk at relativity 1 on
+    every factor; `effective_date` is ISO text `YYYY-MM-DD` (a `datetime.date` is accepted and
+    kept as its ISO text); `exposure_unit` names the unit of exposure, one full term being 1.0
+    unit (premiumlab writes the spec's `table.exposure_unit`, by default `policy-year`);
+    `factors` are multiplied in this order; `target` and `provenance` are plain JSON objects;
+    `cautions` always include DRAFT_CAUTION (added first when missing).
     """
 
     table_id: str
@@ -520,19 +656,19 @@ class RatingTable:
     factors: tuple[Factor, ...]
     loadings: Loadings
     rounding: Rounding = Rounding()
-    target: dict = field(default_factory=dict)
-    provenance: dict = field(default_factory=dict)
+    target: dict[str, Any] = field(default_factory=dict)
+    provenance: dict[str, Any] = field(default_factory=dict)
     cautions: tuple[str, ...] = ()
 
     def __post_init__(self) -> None:
         _text(self.table_id, "table_id")
         _text(self.exposure_unit, "exposure_unit")
-        day = self.effective_date
+        given: object = self.effective_date  # a date object is accepted too
         try:
             day = (
-                date(day.year, day.month, day.day)
-                if isinstance(day, date)
-                else date.fromisoformat(_text(day, "effective_date"))
+                date(given.year, given.month, given.day)
+                if isinstance(given, date)
+                else date.fromisoformat(_text(given, "effective_date"))
             )
         except ValueError:
             raise TableError(
@@ -559,7 +695,7 @@ class RatingTable:
 
     def _check_factors(self) -> None:
         names: set[str] = set()
-        files: set[str] = set()
+        files: set[str | None] = set()
         mains: dict[str, MainFactor] = {}
         for i, factor in enumerate(self.factors):
             if not isinstance(factor, (NumericFactor, CategoricalFactor, InteractionFactor)):
@@ -617,7 +753,7 @@ def _check_sides(factor: InteractionFactor, mains: dict[str, MainFactor]) -> Non
             raise TableError(
                 f"{prefix}: side {side!r} must have {kind} like its main factor", factor=factor.name, where=side
             )
-        if isinstance(main, CategoricalFactor) and set(cells) != set(main.levels):
+        if isinstance(main, CategoricalFactor) and not isinstance(cells, Bands) and set(cells) != set(main.levels):
             odd = sorted(set(cells) ^ set(main.levels))
             raise TableError(
                 f"{prefix}: side {side!r} levels differ from the main factor's at {odd[0]!r}",
@@ -626,7 +762,26 @@ def _check_sides(factor: InteractionFactor, mains: dict[str, MainFactor]) -> Non
             )
 
 
-def mapping_to_side(main: CategoricalFactor, cells: tuple[str, ...]) -> np.ndarray:
-    """For each main-factor level index, the index of the same level on a two-way table's side."""
+def mapping_to_side(main: CategoricalFactor, cells: tuple[str, ...]) -> npt.NDArray[np.intp]:
+    """For each main-factor level index, the index of the same level on a two-way table's side.
+
+    Parameters
+    ----------
+    main : CategoricalFactor
+        The main factor of the side.
+    cells : tuple of str
+        The side's levels (`a_cells` or `b_cells` of an `InteractionFactor`): the main factor's
+        levels, possibly in another order.
+
+    Returns
+    -------
+    numpy.ndarray of intp
+        `out[i]` is the position in `cells` of `main.levels[i]`, one entry per main-factor level.
+
+    Raises
+    ------
+    KeyError
+        When a main-factor level is not in `cells` (never for a side of a valid `RatingTable`).
+    """
     position = {level: j for j, level in enumerate(cells)}
     return np.array([position[level] for level in main.levels], dtype=np.intp)
