@@ -20,7 +20,15 @@ import pandas as pd
 
 from premiumlab._core.errors import InputError
 from premiumlab._core.jsonio import write_json
-from premiumlab.simulation.draw import Rows, claim_amounts, draw_factors, draw_missing, exposure_rows, true_effects
+from premiumlab.simulation.draw import (
+    Effects,
+    Rows,
+    claim_amounts,
+    draw_factors,
+    draw_missing,
+    exposure_rows,
+    true_effects,
+)
 from premiumlab.simulation.scenario import PREMIUM_COLUMN, Factor, Scenario
 from premiumlab.simulation.scenario_file import load_scenario
 from premiumlab.simulation.truth import TRUTH_FILE, expected_totals, factor_truths, truth_document
@@ -28,11 +36,13 @@ from premiumlab.simulation.truth import TRUTH_FILE, expected_totals, factor_trut
 
 @dataclass(frozen=True)
 class SimulatedBook:
-    """A simulated book, its truth (the content of truth.json) and the number of large claims."""
+    """A simulated book, its truth (the content of truth.json), the number of large claims and the
+    rows' true effects (not written anywhere; for recovery checks, `premiumlab.simulation.recovery`)."""
 
     book: pd.DataFrame
     truth: dict
     large_claims: int
+    effects: Effects
 
 
 def _current_premium(
@@ -135,7 +145,7 @@ def generate(scenario: Scenario, policies: int | None = None, seed: int | None =
         book[f.name] = _book_column(f, rows.values[f.name], rows.missing.get(f.name))
     book[PREMIUM_COLUMN] = premium
     truth = truth_document(scenario, n, s, rows, effects, factors, at_base, expected_claims, expected_amount, tariff)
-    return SimulatedBook(book, truth, large_claims)
+    return SimulatedBook(book, truth, large_claims, effects)
 
 
 def _book_format(path: Path) -> str:
