@@ -19,10 +19,11 @@ from pathlib import Path
 
 import pytest
 
+import rating_tables
 from premiumlab._core.errors import InputError
 from premiumlab._core.outputs import atomic_files, atomic_output
 
-from _builders import SPEC_TEXT, run_cli, small_book
+from _builders import SPEC_TEXT, example_book, example_table, run_cli, small_book
 
 POLL_SECONDS = 0.02
 START_TIMEOUT = 120.0
@@ -175,3 +176,29 @@ def test_an_interrupted_fit_cleans_up_and_exits_130(book_folder):
     assert _leftovers(base) == []
     assert (_tree(base / "run") if (base / "run").exists() else None) == old
     assert {k: v for k, v in _tree(base).items() if not k.startswith("run/")} == inputs
+
+
+def test_an_output_inside_an_input_folder_is_refused_even_with_force(tmp_path):
+    """Issue 11's cases: `rate TABLE BOOK --out TABLE/factors/x.csv --force` and `impact ... --out
+    TABLE/table.json --force` replaced a file of the table; both now exit 2 and the table still loads."""
+    table_dir = tmp_path / "table"
+    rating_tables.save(example_table(), table_dir)
+    book = tmp_path / "book.csv"
+    example_book().to_csv(book, index=False)
+    before = {p: p.read_bytes() for p in table_dir.rglob("*") if p.is_file()}
+    inside = table_dir / "factors" / "age.csv"
+    r = run_cli("rate", str(table_dir), str(book), "--out", str(inside), "--force")
+    assert r.returncode == 2, r.stderr
+    assert f"{inside}: lies inside the input {table_dir}" in r.stderr and "Traceback" not in r.stderr
+    r = run_cli(
+        "impact", str(book), "--current", str(table_dir), "--proposed", str(table_dir),
+        "--out", str(table_dir / "table.json"), "--force",
+    )  # fmt: skip
+    assert r.returncode == 2 and "lies inside the input" in r.stderr, r.stderr
+    assert {p: p.read_bytes() for p in table_dir.rglob("*") if p.is_file()} == before
+    rating_tables.load(table_dir)
+    with (
+        pytest.raises(InputError, match="lies inside the input"),
+        atomic_output(table_dir / "new", inputs=(table_dir,)),
+    ):
+        pass

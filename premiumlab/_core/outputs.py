@@ -4,8 +4,9 @@ The temporary folder is `.NAME.tmp-PID` beside the target; folders of processes 
 are swept at the next start. With `force`, an existing target is first moved aside to
 `.NAME.old-PID` and removed only after the new output is in place (a process stopped between the
 two moves leaves the old output aside: the sweep puts it back). Without `force`, a target that
-another process created while the command ran is not replaced either. A target that is or holds
-one of the command's inputs is refused, so that `--force` cannot destroy an input.
+another process created while the command ran is not replaced either. A target that is one of the
+command's inputs, holds one, or lies inside an input folder is refused, so that `--force` cannot
+destroy or change an input.
 """
 
 from __future__ import annotations
@@ -58,8 +59,9 @@ def _holds(outer: Path, inner: Path) -> bool:
 
 def check_target(target: Path, force: bool, inputs: tuple[str | Path, ...] = ()) -> None:
     """Sweep the leftovers beside the target, then refuse a target whose folder is missing or not a
-    folder, that is or holds one of the command's `inputs` (replacing it would destroy the input), or
-    that exists without `force`."""
+    folder, that is or holds one of the command's `inputs` (replacing it would destroy the input),
+    that lies inside an input folder (writing it would change the input: a book of parts, a table,
+    a run), or that exists without `force`."""
     parent = target.parent
     if not parent.exists():
         raise InputError(f"{target}: the folder {parent} does not exist")
@@ -69,6 +71,8 @@ def check_target(target: Path, force: bool, inputs: tuple[str | Path, ...] = ())
     for source in inputs:
         if _holds(target, Path(source)):
             raise InputError(f"{target}: is or holds the input {source}; write the output elsewhere")
+        if _holds(Path(source), target):
+            raise InputError(f"{target}: lies inside the input {source}; write the output elsewhere")
     if (target.exists() or target.is_symlink()) and not force:
         raise InputError(f"{target}: already exists; use --force to replace it")
 
