@@ -103,6 +103,11 @@ def _numeric_values(series: pd.Series, what: str, row_offset: int = 0) -> npt.ND
     if pd.api.types.is_numeric_dtype(series.dtype):
         values = series.to_numpy(dtype=np.float64, na_value=np.nan)
         return values
+    try:
+        values = series.astype("float64").to_numpy()
+        return values
+    except (TypeError, ValueError):
+        pass  # empty text, which is missing, or text that is no number: looked for below
     series = series.mask((series == "").to_numpy(dtype=bool, na_value=False))
     try:
         values = series.astype("float64").to_numpy()
@@ -154,11 +159,11 @@ def _level_index(
         codes, uniques = pd.factorize(series, use_na_sentinel=True)
         labels = [str(u) for u in uniques]
     empty_label = np.array([label == "" for label in labels] + [True])  # the last entry is for code -1
-    missing = empty_label[codes]
+    missing = empty_label[codes] if empty_label[:-1].any() or (codes < 0).any() else np.zeros(codes.shape, bool)
     missing_rows = _missing_values_of(factor, missing, row_offset)
     position = {level: i for i, level in enumerate(factor.levels)}
     to_level = np.array([position.get(label, -1) for label in labels] + [0], dtype=np.intp)
-    unknown = (to_level < 0)[codes] & ~missing
+    unknown = (to_level < 0)[codes] & ~missing if (to_level < 0).any() else np.zeros(codes.shape, bool)
     counts = LevelCounts(factor.name, missing_rows=missing_rows)
     if unknown.any():
         stand_in = factor.fallback if factor.fallback is not None else factor.base
