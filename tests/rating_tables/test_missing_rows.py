@@ -13,7 +13,16 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from rating_tables import MISSING_LABEL, CategoricalFactor, MissingRow, NumericFactor, TableError, load, save
+from rating_tables import (
+    MISSING_LABEL,
+    CategoricalFactor,
+    MissingRow,
+    NumericFactor,
+    TableError,
+    load,
+    save,
+    write_exhibit,
+)
 
 from _builders import example_table
 
@@ -219,3 +228,38 @@ def test_factors_refuse_what_load_refuses():
         CategoricalFactor("region", "none", ("A",), [1], [1], missing=MissingRow(1.0, 1.0, indicated=1.1))
     with pytest.raises(TableError, match=r"level '\(missing\)' is the label of the missing row"):
         CategoricalFactor("region", "none", ("A", MISSING_LABEL), [1, 1], [1, 1])
+
+
+def test_the_exhibit_shows_the_missing_row_and_states_the_rules(tmp_path):
+    openpyxl = pytest.importorskip("openpyxl")
+    table = with_missing_rows()
+    age = dataclasses.replace(
+        table.factor("age"), credibility=[0.6, 1.0, 0.85], missing=MissingRow(1.3, 40.0, credibility=0.35)
+    )
+    table = dataclasses.replace(table, factors=(age, *table.factors[1:]))
+    write_exhibit(table, tmp_path / "exhibit.xlsx")
+    book = openpyxl.load_workbook(tmp_path / "exhibit.xlsx")
+    age_rows = list(book["age"].iter_rows(values_only=True))
+    assert age_rows[0] == ("Band", "Lower", "Upper", "Selected relativity", "Exposure", "Credibility")
+    assert age_rows[3] == ("[60, inf)", 60.0, "inf", 1.25, 300.0, 0.85)
+    assert age_rows[4] == (MISSING_LABEL, None, None, 1.3, 40.0, 0.35)
+    assert len(age_rows) == 5
+    region_rows = list(book["region"].iter_rows(values_only=True))
+    assert region_rows[-1] == (MISSING_LABEL, 1.1, 25.5)
+    assert list(book["bonus"].iter_rows(values_only=True))[-1] == ("03", 1.25, 220.0)  # no missing row
+    rows = list(book["Summary"].iter_rows(values_only=True))
+    start = rows.index(("Missing values and unknown levels", None))
+    assert rows[start + 1 : start + 5] == [
+        ("age", "a missing value is rated at the missing row, relativity 1.3"),
+        (
+            "region",
+            "a missing value is rated at the missing row, relativity 1.1; a level not in the table is rated at "
+            "the fallback level 'North', or refused with strict levels",
+        ),
+        (
+            "bonus",
+            "a missing value is refused (no missing row); a level not in the table is refused (no fallback or "
+            "base level)",
+        ),
+        ("two-way tables", "a row whose value is missing on either side takes 1.0 from the two-way table"),
+    ]
