@@ -11,6 +11,7 @@ import math
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 import pytest
 
 from rating_tables import (
@@ -19,6 +20,8 @@ from rating_tables import (
     MissingRow,
     NumericFactor,
     TableError,
+    audit,
+    impact,
     load,
     save,
     write_exhibit,
@@ -263,3 +266,33 @@ def test_the_exhibit_shows_the_missing_row_and_states_the_rules(tmp_path):
         ),
         ("two-way tables", "a row whose value is missing on either side takes 1.0 from the two-way table"),
     ]
+
+
+def test_impact_shows_missing_values_under_the_one_label():
+    """None, NaN and empty text fall in one `(missing)` level, listed last, in a column of text and
+    in a pandas categorical alike; premiums 100 -> 110 (+10 %) and 200 -> 180 (-10 %)."""
+    book = pd.DataFrame({"region": ["North", None, "", "South", np.nan, "North"]})
+    current = np.array([100.0, 100.0, 200.0, 100.0, 100.0, 200.0])
+    proposed = np.array([110.0, 110.0, 180.0, 110.0, 110.0, 180.0])
+    for column in (book["region"], book["region"].astype("category")):
+        levels = impact(current, proposed, pd.DataFrame({"region": column}), ["region"])["by_factor"]["region"]
+        assert [(x["level"], x["count"]) for x in levels] == [("North", 2), ("South", 1), (MISSING_LABEL, 3)]
+        assert levels[2]["current_premium"] == 400.0 and levels[2]["proposed_premium"] == 400.0
+        assert levels[2]["change"] == pytest.approx(0.0, abs=1e-15)
+
+
+def test_the_audit_bounds_the_missing_row_but_leaves_it_out_of_order_and_base():
+    """bonus is promised increasing (0.75, 1.0, 1.25) and its missing row 0.2 breaks neither the promise
+    nor the base at 1; the bounds (0.5, 2) find it, 0.3 below the minimum. A factor whose only
+    relativity at 1 is its missing row has no base level."""
+    table = with_missing_rows(region_row=MissingRow(1.0, 25.5))
+    bonus = dataclasses.replace(table.factor("bonus"), missing=MissingRow(0.2, 10.0))
+    table = dataclasses.replace(table, factors=tuple(bonus if f.name == "bonus" else f for f in table.factors))
+    assert audit(table) == []
+    found = audit(table, bounds={"*": (0.5, 2.0)})
+    assert [(v.check, v.factor, v.where) for v in found] == [("bounds", "bonus", MISSING_LABEL)]
+    assert found[0].amount == pytest.approx(0.3, rel=1e-12)
+    assert found[0].detail == "factor 'bonus', (missing): relativity 0.2 is below the minimum 0.5"
+    no_base = dataclasses.replace(table.factor("age"), relativity=[1.5, 1.1, 1.25], missing=MissingRow(1.0, 1.0))
+    table = dataclasses.replace(table, factors=(no_base, *table.factors[1:]))
+    assert [(v.check, v.factor) for v in audit(table)] == [("base_level", "age")]
