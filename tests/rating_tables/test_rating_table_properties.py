@@ -94,6 +94,7 @@ def tables(draw) -> RatingTable:
                 _values(draw, RELATIVITY, n),
                 _values(draw, EXPOSURE, n),
                 fallback=draw(st.none() | st.sampled_from(levels)),
+                base=draw(st.none() | st.sampled_from(levels)),
                 credibility=credibility,
                 missing=_missing_row(draw, False, credibility is not None),
             )
@@ -139,7 +140,8 @@ def tables_and_books(draw) -> tuple[RatingTable, pd.DataFrame]:
             values = st.sampled_from(edges) | st.floats(-2e6, 2e6)
             book[f.name] = _values(draw, values | st.just(math.nan) if f.missing else values, n)
         else:
-            pool = list(f.levels) + ([UNKNOWN] if f.fallback is not None else [])
+            stand_in = f.fallback is not None or f.base is not None
+            pool = list(f.levels) + ([UNKNOWN] if stand_in else [])
             book[f.name] = _values(draw, st.sampled_from(pool + ([None, ""] if f.missing else [])), n)
     book["exposure"] = _values(draw, st.floats(0, 10), n)
     return table, pd.DataFrame(book)
@@ -156,7 +158,7 @@ def _level(factor: CategoricalFactor, value: str) -> int:
     for i, level in enumerate(factor.levels):
         if level == value:
             return i
-    return factor.levels.index(factor.fallback)
+    return factor.levels.index(factor.fallback if factor.fallback is not None else factor.base)
 
 
 def _is_missing(value) -> bool:
