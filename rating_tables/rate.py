@@ -46,7 +46,8 @@ class LevelCounts:
     `missing_rows` took the factor's missing row (their value was missing: NaN, None or empty
     text); `fallback_rows` held a categorical value that is no level and took `fallback_level`
     (the factor's `fallback`, else its `base`); `unknown_levels` are the first distinct such
-    values in book order, at most `UNKNOWN_SHOWN` (5), as text.
+    values in book order, at most `UNKNOWN_SHOWN` (5), as text. It is false when no row was
+    counted.
     """
 
     factor: str
@@ -162,8 +163,9 @@ def _level_index(
     missing = empty_label[codes] if empty_label[:-1].any() or (codes < 0).any() else np.zeros(codes.shape, bool)
     missing_rows = _missing_values_of(factor, missing, row_offset)
     position = {level: i for i, level in enumerate(factor.levels)}
-    to_level = np.array([position.get(label, -1) for label in labels] + [0], dtype=np.intp)
-    unknown = (to_level < 0)[codes] & ~missing if (to_level < 0).any() else np.zeros(codes.shape, bool)
+    # -1 marks a label that is no level; the missing ones (empty text, code -1) point to level 0
+    to_level = np.array([0 if label == "" else position.get(label, -1) for label in labels] + [0], dtype=np.intp)
+    unknown = (to_level < 0)[codes] if (to_level < 0).any() else np.zeros(codes.shape, bool)
     counts = LevelCounts(factor.name, missing_rows=missing_rows)
     if unknown.any():
         stand_in = factor.fallback if factor.fallback is not None else factor.base
