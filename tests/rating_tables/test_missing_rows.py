@@ -27,7 +27,7 @@ from rating_tables import (
     write_exhibit,
 )
 
-from _builders import example_table
+from _builders import edit_text, example_table
 
 
 def with_missing_rows(age_row: MissingRow | None = None, region_row: MissingRow | None = None):
@@ -106,13 +106,6 @@ def test_round_trip_keeps_the_optional_columns_of_a_missing_row(tmp_path):
     assert (tmp_path / "T/factors/age.csv").read_text().splitlines()[-1] == ",,1.3,40.0,1.27,"
     assert (tmp_path / "T/factors/region.csv").read_text().splitlines()[-1] == ",1.1,2.0,0.25"
     assert load(tmp_path / "T") == table
-
-
-def _edit(folder: Path, name: str, old: str, new: str) -> None:
-    path = folder / name
-    text = path.read_text()
-    assert old in text
-    path.write_text(text.replace(old, new, 1))
 
 
 @pytest.mark.parametrize(
@@ -194,7 +187,7 @@ def _edit(folder: Path, name: str, old: str, new: str) -> None:
     ],
 )
 def test_bad_missing_rows_are_refused_naming_file_factor_and_row(saved, name, old, new, message):
-    _edit(saved, name, old, new)
+    edit_text(saved, name, old, new)
     with pytest.raises(TableError, match=message) as caught:
         load(saved)
     assert str(caught.value).startswith(str(saved))
@@ -202,7 +195,7 @@ def test_bad_missing_rows_are_refused_naming_file_factor_and_row(saved, name, ol
 
 def test_an_interaction_key_stays_required(saved):
     """Two-way tables have no missing cell: an empty key field there is refused as before."""
-    _edit(saved, "factors/age__region.csv", "-inf,30.0,North", ",,North")
+    edit_text(saved, "factors/age__region.csv", "-inf,30.0,North", ",,North")
     with pytest.raises(TableError, match=r"age__region.csv: factor 'age__region', data row 1 \(1-based\): column "):
         load(saved)
 
