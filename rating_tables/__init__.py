@@ -7,14 +7,16 @@ from rating_tables.errors import TableError
 from rating_tables.exhibit import write_exhibit
 from rating_tables.impact import Capping, cap_premiums, impact
 from rating_tables.io import load, save
-from rating_tables.rate import gross_premium, rate, solve_base_rate
-from rating_tables.ratefile import rate_file
+from rating_tables.rate import LevelCounts, gross_premium, rate, solve_base_rate
+from rating_tables.ratefile import RatedFile, rate_file
 from rating_tables.table import (
     DRAFT_CAUTION,
+    MISSING_LABEL,
     Bands,
     CategoricalFactor,
     InteractionFactor,
     Loadings,
+    MissingRow,
     NumericFactor,
     RatingTable,
     Rounding,
@@ -22,12 +24,16 @@ from rating_tables.table import (
 
 __all__ = [
     "DRAFT_CAUTION",
+    "MISSING_LABEL",
     "Bands",
     "Capping",
     "CategoricalFactor",
     "InteractionFactor",
+    "LevelCounts",
     "Loadings",
+    "MissingRow",
     "NumericFactor",
+    "RatedFile",
     "RatingTable",
     "Rounding",
     "TableError",

@@ -18,6 +18,7 @@ import numpy.typing as npt
 from rating_tables.errors import TableError
 from rating_tables.io import load
 from rating_tables.table import (
+    MISSING_LABEL,
     MONOTONE,
     Bands,
     CategoricalFactor,
@@ -68,7 +69,8 @@ def audit(
     Every factor needs a band or level whose relativity rounds to 1 at `relativity_decimals`
     (|r - 1| <= 0.5 x 10**-decimals; a categorical's `base` level when named), a two-way table a
     base row and a base column at 1. `bounds` ({factor or "*": (min, max)}, None for no limit)
-    bounds every relativity.
+    bounds every relativity, a factor's missing row's included. The missing row has no place in
+    the band or level order and is never the base: the direction and base checks leave it out.
 
     Parameters
     ----------
@@ -277,8 +279,7 @@ def _bounds(table: RatingTable, bounds: dict[str, tuple[float | None, float | No
         if limits is None:
             continue
         low, high = limits
-        labels = _cell_names(factor) if isinstance(factor, InteractionFactor) else factor.labels()
-        values = factor.relativity.ravel()
+        labels, values = _bounded(factor)
         checks: tuple[
             tuple[float | None, Callable[[npt.NDArray[np.float64], float], npt.NDArray[np.float64]], str], ...
         ]
@@ -301,6 +302,15 @@ def _bounds(table: RatingTable, bounds: dict[str, tuple[float | None, float | No
                     )
                 )
     return found
+
+
+def _bounded(factor: Factor) -> tuple[list[str], npt.NDArray[np.float64]]:
+    """The labels and relativities the bounds apply to: every cell, band or level, and the missing row."""
+    if isinstance(factor, InteractionFactor):
+        return _cell_names(factor), factor.relativity.ravel()
+    if factor.missing is None:
+        return factor.labels(), factor.relativity
+    return [*factor.labels(), MISSING_LABEL], np.append(factor.relativity, factor.missing.relativity)
 
 
 def _cell_names(factor: InteractionFactor) -> list[str]:

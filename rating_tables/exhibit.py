@@ -1,9 +1,11 @@
 """The rating-table exhibit: an `.xlsx` workbook for reviewers (openpyxl, imported when called).
 
 Sheet "Summary": table id, effective date, exposure unit, base rate, loadings, rounding, target,
-provenance, cautions and the factor list. Then one sheet per factor: band or level, indicated
-relativity (when the table carries it), selected relativity, exposure and credibility; a two-way
-table as grids (rows: first factor's cells, columns: second factor's cells).
+provenance, cautions, the factor list, and how each factor rates a missing value and a level the
+table does not list. Then one sheet per factor: band or level, indicated relativity (when the
+table carries it), selected relativity, exposure and credibility, and the missing row last,
+labelled `MISSING_LABEL`; a two-way table as grids (rows: first factor's cells, columns: second
+factor's cells).
 
 The bytes depend only on the table: the workbook's created and modified properties are the table's
 effective date (midnight), and every zip member carries the zip format's first date, 1980-01-01.
@@ -20,11 +22,13 @@ from datetime import date, datetime, time
 from typing import Any
 
 from rating_tables.table import (
+    MISSING_LABEL,
     Bands,
     CategoricalFactor,
     Cells,
     Factor,
     InteractionFactor,
+    MainFactor,
     NumericFactor,
     RatingTable,
     edge_text,
@@ -140,6 +144,7 @@ def _summary(sheet: Any, table: RatingTable, style: _Style) -> None:
         ("Provenance", list(table.provenance.items())),
         ("Cautions", [(str(i + 1), c) for i, c in enumerate(table.cautions)]),
         ("Factors", [(f.name, _kind(f)) for f in table.factors]),
+        ("Missing values and unknown levels", _stand_in_rules(table)),
     ]
     row = 1
     for title, items in sections:
@@ -152,6 +157,31 @@ def _summary(sheet: Any, table: RatingTable, style: _Style) -> None:
         row += 1
     sheet.column_dimensions["A"].width = 24
     sheet.column_dimensions["B"].width = 100
+
+
+def _stand_in_rules(table: RatingTable) -> list[tuple[str, str]]:
+    """Per main factor, how the rater treats a missing value and a level the table does not list
+    (docs/rating-table.md, Rating algorithm); then the rule of the two-way tables."""
+    rules = [(f.name, _stand_in_rule(f)) for f in table.main_factors]
+    if table.interactions:
+        rules.append(("two-way tables", "a row whose value is missing on either side takes 1.0 from the two-way table"))
+    return rules
+
+
+def _stand_in_rule(factor: MainFactor) -> str:
+    if factor.missing is None:
+        missing = "a missing value is refused (no missing row)"
+    else:
+        missing = f"a missing value is rated at the missing row, relativity {edge_text(factor.missing.relativity)}"
+    if isinstance(factor, NumericFactor):
+        return missing
+    if factor.fallback is not None:
+        unknown = f"rated at the fallback level {factor.fallback!r}"
+    elif factor.base is not None:
+        unknown = f"rated at the base level {factor.base!r} (no fallback named)"
+    else:
+        return f"{missing}; a level not in the table is refused (no fallback or base level)"
+    return f"{missing}; a level not in the table is {unknown}, or refused with strict levels"
 
 
 def _kind(factor: Factor) -> str:
@@ -177,18 +207,24 @@ def _main(sheet: Any, factor: NumericFactor | CategoricalFactor, style: _Style) 
         head = ["Level"]
         keys = [[level] for level in factor.levels]
     candidates = [
-        ("Indicated relativity", factor.indicated, style.relativity_format),
-        ("Selected relativity", factor.relativity, style.relativity_format),
-        ("Exposure", factor.exposure, "#,##0.00"),
-        ("Credibility", factor.credibility, "0.00"),
+        ("Indicated relativity", "indicated", style.relativity_format),
+        ("Selected relativity", "relativity", style.relativity_format),
+        ("Exposure", "exposure", "#,##0.00"),
+        ("Credibility", "credibility", "0.00"),
     ]
-    columns = [(title, values, number_format) for title, values, number_format in candidates if values is not None]
-    style.header(sheet, 1, head + [c[0] for c in columns])
-    for i, key in enumerate(keys):
+    columns = [
+        (title, name, number_format) for title, name, number_format in candidates if getattr(factor, name) is not None
+    ]
+    rows = [(key, [getattr(factor, name)[i] for _, name, _ in columns]) for i, key in enumerate(keys)]
+    if factor.missing is not None:
+        label: list[Any] = [MISSING_LABEL] + [None] * (len(head) - 1)
+        rows.append((label, [getattr(factor.missing, name) for _, name, _ in columns]))
+    style.header(sheet, 1, head + [title for title, _, _ in columns])
+    for i, (key, values) in enumerate(rows):
         for j, value in enumerate(key, start=1):
             sheet.cell(row=i + 2, column=j, value=value)
-        for j, (_, values, number_format) in enumerate(columns, start=len(key) + 1):
-            cell = sheet.cell(row=i + 2, column=j, value=_number(values[i]))
+        for j, ((_, _, number_format), value) in enumerate(zip(columns, values), start=len(key) + 1):
+            cell = sheet.cell(row=i + 2, column=j, value=_number(value))
             cell.number_format = number_format
     for j in range(1, len(head) + len(columns) + 1):
         sheet.column_dimensions[sheet.cell(row=1, column=j).column_letter].width = 20

@@ -18,6 +18,7 @@ import numpy.typing as npt
 import pandas as pd
 
 from rating_tables.errors import TableError
+from rating_tables.table import MISSING_LABEL
 
 BAND_EDGES = (-0.20, -0.10, -0.05, 0.0, 0.05, 0.10, 0.20)
 BAND_LABELS = (
@@ -169,6 +170,8 @@ def _correction(
 
 
 def _levels(series: pd.Series) -> tuple[npt.NDArray[np.intp], list[str]]:
+    """Each value's level code and the level labels; missing values (None, NaN, empty text) take
+    the last label, `MISSING_LABEL`, as the rater takes them to the missing row."""
     if isinstance(series.dtype, pd.CategoricalDtype):
         codes, labels = series.cat.codes.to_numpy().astype(np.intp), [str(c) for c in series.cat.categories]
     else:
@@ -177,10 +180,12 @@ def _levels(series: pd.Series) -> tuple[npt.NDArray[np.intp], list[str]]:
         except TypeError:  # values of mixed types cannot be sorted
             codes, uniques = pd.factorize(series)
         labels = [str(u) for u in uniques]
-    if (codes < 0).any():
-        codes = np.where(codes < 0, len(labels), codes)
-        labels.append("<missing>")
-    return codes, labels
+    kept = np.array([label != "" for label in labels], dtype=bool)
+    if kept.all() and not (codes < 0).any():
+        return codes, labels
+    missing = int(kept.sum())  # the code of the missing label, after the kept labels
+    lookup = np.append(np.where(kept, np.cumsum(kept) - 1, missing), missing)  # code -1 takes the last entry
+    return lookup[codes], [label for label in labels if label != ""] + [MISSING_LABEL]
 
 
 def _by_level(
@@ -268,7 +273,8 @@ def impact(
         `count_share` and `premium_share` (their current premium over the total);
         `by_factor`: for each factor, a list of levels with rows, each `level` (text; sorted
         by value, or in order of first appearance when the values cannot be sorted; a
-        categorical column in category order; missing values last as `<missing>`), `count`,
+        categorical column in category order; missing values, None, NaN or empty text, last as
+        `MISSING_LABEL`, `(missing)`), `count`,
         `current_premium`, `proposed_premium` (money) and `change` = proposed_premium /
         current_premium - 1;
         `largest_increases`: up to `top` policies with a change > 0, largest first (ties in row

@@ -125,6 +125,14 @@ def example_table(minimum_premium: float = 120.0) -> RatingTable:
     )
 
 
+def edit_text(folder: Path, name: str, old: str, new: str) -> None:
+    """Replace the first `old` by `new` in the text file `folder / name` (which must hold `old`)."""
+    path = folder / name
+    text = path.read_text()
+    assert old in text, old
+    path.write_text(text.replace(old, new, 1))
+
+
 def example_book() -> pd.DataFrame:
     return pd.DataFrame(
         {

@@ -503,11 +503,18 @@ CASES: list[tuple[str, str, int, str, Prepare | None]] = [
         policies(lambda d: d.assign(bonus=["03", "01", "02", "04", "01"])),
     ),
     (
-        "table-value-outside-every-band",
+        "rate-missing-value-without-missing-row",
         RATE,
         2,
-        "factor 'age': value '' at book row 1 (0-based) is not a number",
+        "factor 'age': missing value at book row 1 (0-based) and the table has no missing row for it",
         policies(lambda d: d.assign(age=[22.0, None, 70.0, 27.0, 35.0])),
+    ),
+    (
+        "rate-strict-levels-unknown-level",
+        RATE + " --strict-levels",
+        2,
+        "factor 'region': level 'Atlantis' at book row 3 (0-based) is not in the table and strict levels refuse it",
+        None,
     ),
     (
         "rate-book-missing-column",

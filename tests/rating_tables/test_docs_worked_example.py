@@ -58,12 +58,30 @@ def test_the_example_files_are_in_canonical_form(example, tmp_path):
 def test_the_rater_gives_the_hand_figures(example):
     """P1: pure ((300 x 1.4) x 1.25) x 0.5 = 262.5, gross (262.5 x 1.1 + 40 x 0.5) / 0.8 = 385.9375
     -> 385.94; P2: fallback North, 115.625 on paper, 115.62500000000001 in double precision (the
-    divisor 1 - 0.15 - 0.05 is 0.7999999999999999) -> 115.63; P3: 95.3875 -> minimum 100."""
+    divisor 1 - 0.15 - 0.05 is 0.7999999999999999) -> 115.63; P3: 95.3875 -> minimum 100; P4: region
+    missing, the missing row 1.1: pure 330 x 0.8 = 264, gross (290.4 + 32) / 0.8 = 403."""
     rated = rating_tables.rate(example["table"], example["book"], exposure_column="exposure")
-    assert rated["pure_premium"].tolist() == pytest.approx([262.5, 75.0, 62.1], rel=1e-12)
-    assert rated["gross_premium"].tolist() == [385.94, 115.63, 100.0]
-    assert rated["rel_driver_age"].tolist() == [1.4, 1.0, 1.15]
-    assert rated["rel_region"].tolist() == [1.25, 1.0, 0.9]
+    assert rated["pure_premium"].tolist() == pytest.approx([262.5, 75.0, 62.1, 264.0], rel=1e-12)
+    assert rated["gross_premium"].tolist() == [385.94, 115.63, 100.0, 403.0]
+    assert rated["rel_driver_age"].tolist() == [1.4, 1.0, 1.15, 1.0]
+    assert rated["rel_region"].tolist() == [1.25, 1.0, 0.9, 1.1]
+    for figure in ("**385.94**", "**115.63**", "**100.00**", "264.00", "**403.00**"):
+        assert figure in example["body"], figure
+
+
+def test_the_missing_row_and_the_counts_on_the_page(example, tmp_path):
+    """region.csv's last row is the missing row (1.1, 35 policy-years); `premiumlab rate` states the
+    rows at the fallback and at the missing row as the page shows."""
+    from premiumlab.cli.format import level_count_lines
+
+    region = example["table"].factor("region")
+    assert region.levels == ("North", "South", "Coast")
+    assert region.missing == rating_tables.MissingRow(1.1, 35.0)
+    (tmp_path / "book.csv").write_text(example["files"]["book.csv"], encoding="utf-8")
+    rated = rating_tables.rate_file(example["table"], tmp_path / "book.csv", tmp_path / "rated.csv", "exposure")
+    assert rated.counts == (rating_tables.LevelCounts("region", 1, 1, "North", ("Islands",)),)
+    (line,) = level_count_lines(rated.counts)
+    assert f"```\n{line}\n```" in example["body"]
 
 
 def test_the_rated_book_on_the_page_is_the_raters(example):

@@ -13,7 +13,7 @@ import pytest
 
 from rating_tables import CategoricalFactor, NumericFactor, TableError, load, rate, save, write_exhibit
 
-from _builders import example_book, example_table
+from _builders import edit_text, example_book, example_table
 
 INF = np.inf
 
@@ -153,13 +153,6 @@ def test_files_follow_the_contract(saved):
     ]
 
 
-def _edit(folder: Path, name: str, old: str, new: str) -> None:
-    path = folder / name
-    text = path.read_text()
-    assert old in text
-    path.write_text(text.replace(old, new, 1))
-
-
 @pytest.mark.parametrize(
     "name, old, new, message",
     [
@@ -193,7 +186,12 @@ def _edit(folder: Path, name: str, old: str, new: str) -> None:
         ),
         ("factors/age.csv", "lower,upper", "low,upper", r"factor 'age': unknown column 'low'"),
         ("factors/region.csv", "Coast,1.5", "South,1.5", r"data row 3 \(1-based\): level 'South' repeats data row 2"),
-        ("factors/region.csv", "Coast,1.5", ",1.5", r"data row 3 \(1-based\): level '' is not a non-empty string"),
+        (
+            "factors/region.csv",
+            "South,0.875",
+            ",0.875",
+            r"data row 2 \(1-based\): the missing row \(empty level\) must be the last data row",
+        ),
         ("factors/age__region.csv", "30.0,inf,Coast,1.0\n", "", r"no row for cell \(age=\[30, inf\), region='Coast'\)"),
         ("table.json", '"fallback": "North"', '"fallback": "West"', "fallback level 'West' is not one of"),
         ("table.json", '"version": 1', '"version": 2', "this reader knows version 1"),
@@ -212,7 +210,7 @@ def _edit(folder: Path, name: str, old: str, new: str) -> None:
     ],
 )
 def test_bad_folders_are_refused_naming_file_factor_and_row(saved, name, old, new, message):
-    _edit(saved, name, old, new)
+    edit_text(saved, name, old, new)
     with pytest.raises(TableError, match=message) as caught:
         load(saved)
     assert str(caught.value).startswith(str(saved))

@@ -1,7 +1,7 @@
 """Properties of the table format and rater on random tables (hypothesis).
 
-Random valid tables and books rate to the product formula, computed independently here with plain
-Python loops; every valid table survives write and read unchanged; mutated files are refused with
+Random valid tables and books (missing values where a factor has a missing row) rate to the
+product formula, computed independently here with plain Python loops; every valid table survives write and read unchanged; mutated files are refused with
 TableError and never with another exception.
 """
 
@@ -24,6 +24,7 @@ from rating_tables import (
     CategoricalFactor,
     InteractionFactor,
     Loadings,
+    MissingRow,
     NumericFactor,
     RatingTable,
     Rounding,
@@ -50,12 +51,25 @@ def _values(draw, strategy, n):
     return draw(st.lists(strategy, min_size=n, max_size=n))
 
 
+def _missing_row(draw, indicated: bool, credibility: bool) -> MissingRow | None:
+    """No missing row, or one with the optional values the factor has columns for (NaN allowed)."""
+    if not draw(st.booleans()):
+        return None
+    return MissingRow(
+        draw(RELATIVITY),
+        draw(EXPOSURE),
+        draw(RELATIVITY | st.just(math.nan)) if indicated else math.nan,
+        draw(st.floats(0, 1) | st.just(math.nan)) if credibility else math.nan,
+    )
+
+
 @st.composite
 def tables(draw) -> RatingTable:
     factors: list = []
     for k in range(draw(st.integers(1, 2))):
         edges = _edges(draw)
         n = len(edges) + 1
+        indicated = draw(st.none() | st.just(_values(draw, RELATIVITY, n)))
         factors.append(
             NumericFactor(
                 f"x{k}",
@@ -64,12 +78,14 @@ def tables(draw) -> RatingTable:
                 [*edges, INF],
                 _values(draw, RELATIVITY, n),
                 _values(draw, EXPOSURE, n),
-                indicated=draw(st.none() | st.just(_values(draw, RELATIVITY, n))),
+                indicated=indicated,
+                missing=_missing_row(draw, indicated is not None, False),
             )
         )
     for k in range(draw(st.integers(1, 2))):
         levels = draw(st.lists(LEVEL, min_size=1, max_size=5, unique=True).filter(lambda ls: UNKNOWN not in ls))
         n = len(levels)
+        credibility = draw(st.none() | st.just(_values(draw, st.floats(0, 1), n)))
         factors.append(
             CategoricalFactor(
                 f"c{k}",
@@ -78,7 +94,9 @@ def tables(draw) -> RatingTable:
                 _values(draw, RELATIVITY, n),
                 _values(draw, EXPOSURE, n),
                 fallback=draw(st.none() | st.sampled_from(levels)),
-                credibility=draw(st.none() | st.just(_values(draw, st.floats(0, 1), n))),
+                base=draw(st.none() | st.sampled_from(levels)),
+                credibility=credibility,
+                missing=_missing_row(draw, False, credibility is not None),
             )
         )
     if draw(st.booleans()):
@@ -119,10 +137,12 @@ def tables_and_books(draw) -> tuple[RatingTable, pd.DataFrame]:
     for f in table.main_factors:
         if isinstance(f, NumericFactor):
             edges = [x for x in f.lower if math.isfinite(x)] or [0.0]
-            book[f.name] = _values(draw, st.sampled_from(edges) | st.floats(-2e6, 2e6), n)
+            values = st.sampled_from(edges) | st.floats(-2e6, 2e6)
+            book[f.name] = _values(draw, values | st.just(math.nan) if f.missing else values, n)
         else:
-            pool = list(f.levels) + ([UNKNOWN] if f.fallback is not None else [])
-            book[f.name] = _values(draw, st.sampled_from(pool), n)
+            stand_in = f.fallback is not None or f.base is not None
+            pool = list(f.levels) + ([UNKNOWN] if stand_in else [])
+            book[f.name] = _values(draw, st.sampled_from(pool + ([None, ""] if f.missing else [])), n)
     book["exposure"] = _values(draw, st.floats(0, 10), n)
     return table, pd.DataFrame(book)
 
@@ -138,7 +158,11 @@ def _level(factor: CategoricalFactor, value: str) -> int:
     for i, level in enumerate(factor.levels):
         if level == value:
             return i
-    return factor.levels.index(factor.fallback)
+    return factor.levels.index(factor.fallback if factor.fallback is not None else factor.base)
+
+
+def _is_missing(value) -> bool:
+    return value is None or value == "" or (isinstance(value, float) and math.isnan(value))
 
 
 def _pure_by_loops(table: RatingTable, book: pd.DataFrame) -> list[float]:
@@ -146,12 +170,17 @@ def _pure_by_loops(table: RatingTable, book: pd.DataFrame) -> list[float]:
     for r in range(len(book)):
         cells, product = {}, table.base_rate
         for f in table.factors:
-            if isinstance(f, NumericFactor):
+            if not isinstance(f, InteractionFactor) and _is_missing(book[f.name][r]):
+                cells[f.name] = None
+                product *= f.missing.relativity
+            elif isinstance(f, NumericFactor):
                 cells[f.name] = book[f.name][r]
                 product *= f.relativity[_band(f.lower, f.upper, book[f.name][r])]
             elif isinstance(f, CategoricalFactor):
                 cells[f.name] = f.levels[_level(f, book[f.name][r])]
                 product *= f.relativity[_level(f, book[f.name][r])]
+            elif cells[f.of[0]] is None or cells[f.of[1]] is None:
+                continue  # a two-way table gives 1.0 to a row missing on either side
             else:
                 a, b = f.of
                 i = _band(f.a_cells.lower, f.a_cells.upper, cells[a])
