@@ -177,3 +177,23 @@ def categorise(book_frame: pd.DataFrame, levels: dict[str, Levels]) -> pd.DataFr
         for name, lv in levels.items()
     }
     return pd.DataFrame(cols)
+
+
+def unseen_at_base(cats: pd.DataFrame, levels: dict[str, Levels]) -> pd.DataFrame:
+    """The categorised factors with every value unseen in the training rows (NaN in `categorise`'s
+    output) set to its factor's base: the complement, relativity 1, at which a model without that
+    level prices it.
+
+    Parameters
+    ----------
+    cats : pandas.DataFrame
+        The factors as `categorise` gives them.
+    levels : dict of str to Levels
+        The cut of each factor, with its base.
+
+    Returns
+    -------
+    pandas.DataFrame
+        A copy of `cats` without NaN, the categories unchanged.
+    """
+    return cats.assign(**{name: cats[name].fillna(lv.base) for name, lv in levels.items() if name in cats})

@@ -267,7 +267,13 @@ def _check_factor(values: pd.Series, f: Factor, offset: int, out: FindingCollect
         num, bad = to_number(values)
         out.add("error", f.name, "with a non-numeric value in a numeric factor", bad, offset)
         if refuse:
-            out.add("error", f.name, "with a missing value (the spec refuses them: missing = 'refuse')", np.isnan(num) & ~bad, offset)
+            out.add(
+                "error",
+                f.name,
+                "with a missing value (the spec refuses them: missing = 'refuse')",
+                np.isnan(num) & ~bad,
+                offset,
+            )
         out.add("error", f.name, "with an infinite value", np.isinf(num), offset)
         return num
     text = as_text(values)

@@ -51,7 +51,7 @@ def frequency_ratio(
         or without exposure in either group; the upper end is inf when every claim is in the
         missing group, the ratio and lower end 0 when none is.
     """
-    n1, n0 = int(round(claims_missing)), int(round(claims_others))
+    n1, n0 = round(float(claims_missing)), round(float(claims_others))
     if n1 + n0 == 0 or not (exposure_missing > 0 and exposure_others > 0):
         return np.nan, np.nan, np.nan
     scale = exposure_others / exposure_missing
@@ -159,9 +159,7 @@ class ValidationReport:
                 "rows": self.rows,
                 "findings": self.findings,
                 "profile": profile,
-                "missing": None
-                if self.missing is None
-                else self.missing.reset_index().to_dict(orient="records"),
+                "missing": None if self.missing is None else self.missing.reset_index().to_dict(orient="records"),
                 "cautions": self.cautions,
             }
         )

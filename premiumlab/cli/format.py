@@ -117,6 +117,25 @@ def missing_value_lines(missing: Any) -> list[str]:
     return lines
 
 
+def diagnostic_lines(diagnostics: Iterable[dict[str, Any]]) -> list[str]:
+    """One `warning: ...` line per diagnostic (`premiumlab._core.diagnostics.Diagnostic`), e.g. the
+    `diagnostics` of run.json that `fit` prints on stderr.
+
+    Parameters
+    ----------
+    diagnostics : iterable of dict
+        Diagnostics as `Diagnostic.to_dict` writes them.
+
+    Returns
+    -------
+    list[str]
+        The lines, in the order given: kind, then model, factor, level and message.
+    """
+    from premiumlab._core.diagnostics import Diagnostic
+
+    return [f"warning: {d['kind']}: {Diagnostic.from_dict(d)}" for d in diagnostics]
+
+
 def comparison_lines(result: Comparison) -> list[str]:
     """`compare`: a compact table of the holdout metrics and the differences with their intervals.
 
