@@ -11,10 +11,12 @@ from rating_tables.rate import gross_premium, rate, solve_base_rate
 from rating_tables.ratefile import rate_file
 from rating_tables.table import (
     DRAFT_CAUTION,
+    MISSING_LABEL,
     Bands,
     CategoricalFactor,
     InteractionFactor,
     Loadings,
+    MissingRow,
     NumericFactor,
     RatingTable,
     Rounding,
@@ -22,11 +24,13 @@ from rating_tables.table import (
 
 __all__ = [
     "DRAFT_CAUTION",
+    "MISSING_LABEL",
     "Bands",
     "Capping",
     "CategoricalFactor",
     "InteractionFactor",
     "Loadings",
+    "MissingRow",
     "NumericFactor",
     "RatingTable",
     "Rounding",

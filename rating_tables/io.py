@@ -29,11 +29,13 @@ from rating_tables.table import (
     Factor,
     InteractionFactor,
     Loadings,
+    MissingRow,
     NumericFactor,
     RatingTable,
     Rounding,
     check_file,
     data_row,
+    missing_row,
 )
 
 FORMAT = "premiumlab.rating-table"
@@ -79,7 +81,8 @@ def load(path: str | os.PathLike[str]) -> RatingTable:
         The table, with the defaults of the format filled in: `exposure_unit` `policy-year`,
         rounding 3 relativity and 2 premium decimals, `target` and `provenance` `{}`, and the
         draft caution first among the cautions when the file leaves it out. Numbers are read as
-        float64 exactly as written (`inf` and `-inf` included).
+        float64 exactly as written (`inf` and `-inf` included). A factor file's last row with
+        empty key fields (`lower` and `upper`, or `level`) is the factor's `missing` row.
 
     Raises
     ------
@@ -197,19 +200,22 @@ def _read_factor(root: Path, entry: Any, where: str, kinds: dict[str, str]) -> F
     monotone = _typed(entry, "monotone", str, f"{where}.monotone", default="none")
     if kind == "numeric":
         cols = _columns(header, ("lower", "upper", "relativity", "exposure"), file, name)
+        rows, values, missing = _split_missing(rows, cols, ("lower", "upper"), file, name)
         return NumericFactor(
             name=name,
             monotone=monotone,
             lower=_numbers(rows, cols, "lower", file, name),
             upper=_numbers(rows, cols, "upper", file, name),
             file=file,
-            **_value_columns(rows, cols, file, name),
+            missing=missing,
+            **values,
         )
     fallback, base = (entry.get(k) for k in ("fallback", "base"))
     for key, value in (("fallback", fallback), ("base", base)):
         if value is not None and not isinstance(value, str):
             raise TableError(f"{TABLE_JSON}: key '{where}.{key}' must be a string", factor=name, where=f"{where}.{key}")
     cols = _columns(header, ("level", "relativity", "exposure"), file, name)
+    rows, values, missing = _split_missing(rows, cols, ("level",), file, name)
     return CategoricalFactor(
         name=name,
         monotone=monotone,
@@ -217,8 +223,40 @@ def _read_factor(root: Path, entry: Any, where: str, kinds: dict[str, str]) -> F
         file=file,
         fallback=fallback,
         base=base,
-        **_value_columns(rows, cols, file, name),
+        missing=missing,
+        **values,
     )
+
+
+def _split_missing(
+    rows: list[list[str]], cols: dict[str, int], keys: tuple[str, ...], file: str, factor: str
+) -> tuple[list[list[str]], dict[str, npt.NDArray[np.float64]], MissingRow | None]:
+    """The band or level rows, their value columns, and the missing row: the one row whose key
+    fields (`keys`) are all empty, which must be the last data row."""
+    empty = [i for i, row in enumerate(rows) if all(row[cols[k]] == "" for k in keys)]
+    values = _value_columns(rows, cols, file, factor)
+    if not empty:
+        return rows, values, None
+    fields = " and ".join(keys)
+    prefix = f"{file}: factor {factor!r}"
+    if len(empty) > 1:
+        raise TableError(
+            f"{prefix}, {data_row(empty[1])}: a second row with empty {fields} ({data_row(empty[0])} is the "
+            "first); only the missing row leaves them empty, and a factor has at most one",
+            factor=factor,
+            where=data_row(empty[1]),
+        )
+    i = empty[0]
+    if i != len(rows) - 1:
+        raise TableError(
+            f"{prefix}, {data_row(i)}: the missing row (empty {fields}) must be the last data row",
+            factor=factor,
+            where=data_row(i),
+        )
+    row = missing_row(
+        {column: float(v[i]) for column, v in values.items()}, prefix, factor, f"{data_row(i)}, the missing row"
+    )
+    return rows[:i], {column: v[:i] for column, v in values.items()}, row
 
 
 def _inside(root: Path, file: str, factor: str) -> Path:
@@ -395,8 +433,10 @@ def save(table: RatingTable, path: str | os.PathLike[str]) -> None:
     ending in LF, the columns of docs/rating-table.md (`indicated` and `credibility` only when
     the factor has them; a two-way table's `exposure` likewise), numbers as Python's shortest
     exact repr (`25.0`, `1.138`, `-inf`), an empty field for a missing optional value, and a
-    field quoted only when it holds a comma, a double quote, a CR or an LF. A two-way table's rows
-    run a-cell by a-cell, then b-cell by b-cell. Loading the folder gives a table equal to `table`.
+    field quoted only when it holds a comma, a double quote, a CR or an LF. A main factor's
+    missing row comes last, its key fields (`lower` and `upper`, or `level`) empty. A two-way
+    table's rows run a-cell by a-cell, then b-cell by b-cell. Loading the folder gives a table
+    equal to `table`.
     """
     root = Path(path)
     root.mkdir(parents=True, exist_ok=True)
@@ -451,6 +491,7 @@ def _factor_csv(factor: Factor) -> str:
 
 
 def _main_rows(factor: NumericFactor | CategoricalFactor) -> list[list[str]]:
+    """Header, one row per band or level, then the missing row (empty key fields) when there is one."""
     optional = [c for c in OPTIONAL_COLUMNS if getattr(factor, c) is not None]
     if isinstance(factor, NumericFactor):
         header = ["lower", "upper", "relativity", "exposure", *optional]
@@ -458,8 +499,13 @@ def _main_rows(factor: NumericFactor | CategoricalFactor) -> list[list[str]]:
     else:
         header = ["level", "relativity", "exposure", *optional]
         keys = [[level] for level in factor.levels]
-    columns = [factor.relativity, factor.exposure, *(getattr(factor, c) for c in optional)]
-    return [header] + [[*key, *(_number_text(col[i]) for col in columns)] for i, key in enumerate(keys)]
+    value_columns = ["relativity", "exposure", *optional]
+    columns = [getattr(factor, c) for c in value_columns]
+    rows = [header] + [[*key, *(_number_text(col[i]) for col in columns)] for i, key in enumerate(keys)]
+    if factor.missing is not None:
+        empty_keys = [""] * (len(header) - len(value_columns))
+        rows.append([*empty_keys, *(_number_text(getattr(factor.missing, c)) for c in value_columns)])
+    return rows
 
 
 def _side_header(side: str, cells: Cells) -> list[str]:

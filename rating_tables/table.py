@@ -5,14 +5,15 @@ premium adds LAE, expenses and profit (docs/rating-table.md). Every object here 
 are read-only float64 copies. A table that exists is well-formed: numeric bands cover
 (-inf, inf) without gap or overlap, relativities are finite and > 0, categorical levels are
 unique non-empty strings, fallback and base levels exist, a two-way table refers to main factors
-listed before it, and `file` paths stay inside the table folder.
+listed before it, and `file` paths stay inside the table folder. A main factor may carry a
+`MissingRow`: the relativity of a missing book value, outside the bands and levels.
 """
 
 from __future__ import annotations
 
 import json
 import math
-from collections.abc import Callable, Iterable
+from collections.abc import Callable, Iterable, Mapping
 from dataclasses import Field, dataclass, field, fields
 from datetime import date
 from pathlib import PurePosixPath
@@ -26,6 +27,7 @@ from rating_tables.errors import TableError
 MONOTONE = ("increasing", "decreasing", "none")
 TABLE_JSON = "table.json"
 OPTIONAL_COLUMNS = ("indicated", "credibility")
+MISSING_LABEL = "(missing)"
 DRAFT_CAUTION = (
     "Draft for review by a qualified actuary: these rates must be filed and approved under "
     "local rate regulation before use, and factors prohibited by local law must not be used."
@@ -161,19 +163,25 @@ _RULES: dict[str, tuple[str, Callable[[npt.NDArray[np.float64]], npt.NDArray[np.
 
 
 def _check_column(
-    values: npt.NDArray[np.float64], column: str, prefix: str, factor: str, row_text: Callable[[int], str]
+    values: npt.NDArray[np.float64],
+    column: str,
+    prefix: str,
+    factor: str | None,
+    row_text: Callable[[int], str] | None,
 ) -> None:
-    """Refuse the first value of `column` that breaks its rule; `row_text` names a flat index."""
+    """Refuse the first value of `column` that breaks its rule; `row_text` names a flat index
+    (None: the prefix alone names the place)."""
     check, ok, rule = _RULES[column]
     flat = values.ravel()
     bad = np.flatnonzero(~ok(flat))
     if bad.size:
         i = int(bad[0])
+        where = None if row_text is None else row_text(i)
         raise TableError(
-            f"{prefix}, {row_text(i)}: {column} {edge_text(flat[i])} {rule}",
+            f"{prefix}{'' if where is None else ', ' + where}: {column} {edge_text(flat[i])} {rule}",
             check=check,
             factor=factor,
-            where=row_text(i),
+            where=where,
             amount=float(flat[i]),
         )
 
@@ -299,6 +307,8 @@ def check_file(file: Any, prefix: str, factor: str) -> str:
 
 
 def _same(a: Any, b: Any) -> bool:
+    if isinstance(a, float) and isinstance(b, float):
+        return a == b or (math.isnan(a) and math.isnan(b))
     if isinstance(a, np.ndarray) or isinstance(b, np.ndarray):
         return (
             isinstance(a, np.ndarray)
@@ -320,6 +330,86 @@ class _ComparedByValue:
         return all(_same(getattr(self, f.name), getattr(other, f.name)) for f in fields(self))
 
     __hash__ = None  # type: ignore[assignment]
+
+
+def _missing_values(values: Mapping[str, Any], prefix: str, factor: str | None, where: str | None) -> dict[str, float]:
+    """The values of a missing row as floats, each checked by the rule of its factor-file column."""
+    checked: dict[str, float] = {}
+    for name, value in values.items():
+        if isinstance(value, bool) or not isinstance(value, (int, float, np.integer, np.floating)):
+            place = prefix if where is None else f"{prefix}, {where}"
+            raise TableError(f"{place}: {name} {value!r} is not a number", factor=factor, where=where)
+        number = float(value)
+        _check_column(np.array([number]), name, prefix, factor, None if where is None else lambda _: where)
+        checked[name] = number
+    return checked
+
+
+@dataclass(frozen=True, eq=False)
+class MissingRow(_ComparedByValue):
+    """The row of a main factor that rates a missing book value (docs/rating-table.md, Factor files).
+
+    It stands outside the bands and levels: `labels()`, `relativity` and `exposure` of its factor
+    never include it, and it has no place in a monotone order. Its values follow the rules of a
+    factor-file row: `relativity` (a multiplier on the pure premium) finite and > 0, `exposure`
+    (the exposure of the rows with a missing value when the table was made, in the table's unit)
+    finite and >= 0, `indicated` NaN or finite and > 0, `credibility` NaN or in [0, 1]. Shown as
+    `MISSING_LABEL`. Two NaN values compare equal.
+    """
+
+    relativity: float
+    exposure: float
+    indicated: float = math.nan
+    credibility: float = math.nan
+
+    def __post_init__(self) -> None:
+        values = {f.name: getattr(self, f.name) for f in fields(self)}
+        for name, value in _missing_values(values, "missing row", None, None).items():
+            _set(self, name, value)
+
+
+def missing_row(values: Mapping[str, Any], prefix: str, factor: str, where: str) -> MissingRow:
+    """A `MissingRow` from its column values, a bad value refused with a message naming the place.
+
+    Parameters
+    ----------
+    values : mapping of str to number
+        `relativity` and `exposure`, optionally `indicated` and `credibility` (NaN when empty).
+    prefix : str
+        Start of an error message, naming the file and factor (e.g. `factors/region.csv: factor 'region'`).
+    factor : str
+        The factor's name, for the error's `factor`.
+    where : str
+        The row, for the message and the error's `where` (e.g. `data row 4 (1-based), the missing row`).
+
+    Returns
+    -------
+    MissingRow
+        The row, its values as floats.
+
+    Raises
+    ------
+    TableError
+        (check `relativity` or `format`) naming `prefix` and `where` for the first value that
+        breaks its rule, or that is not a number.
+    """
+    return MissingRow(**_missing_values(values, prefix, factor, where))
+
+
+def _check_missing(factor: Any, prefix: str) -> None:
+    """A main factor's `missing` is None or a MissingRow with no optional value the factor lacks."""
+    row = factor.missing
+    if row is None:
+        return
+    if not isinstance(row, MissingRow):
+        raise TableError(f"{prefix}: missing must be a MissingRow or None, got {row!r}", factor=factor.name)
+    for column in OPTIONAL_COLUMNS:
+        if getattr(factor, column) is None and not math.isnan(getattr(row, column)):
+            raise TableError(
+                f"{prefix}, the missing row: {column} is given but the factor has no {column} column",
+                factor=factor.name,
+                where=MISSING_LABEL,
+            )
 
 
 def _check_name(name: Any, what: str) -> None:
@@ -377,7 +467,9 @@ class NumericFactor(_ComparedByValue):
     the table was made (same unit as the table), finite and >= 0; `indicated` (the relativity
     before rounding, > 0) and `credibility` (in [0, 1]) are optional exhibit columns (NaN where
     not given). The arrays may be given as any 1-D sequences of numbers; they are kept as
-    read-only float64 copies. `file` defaults to `factors/NAME.csv`.
+    read-only float64 copies. `file` defaults to `factors/NAME.csv`. `missing`, when given, rates
+    a missing book value (NaN); it may carry `indicated` or `credibility` only when the factor
+    has that column.
     """
 
     name: str
@@ -389,6 +481,7 @@ class NumericFactor(_ComparedByValue):
     file: str | None = None
     indicated: np.ndarray | None = None
     credibility: np.ndarray | None = None
+    missing: MissingRow | None = None
 
     def __post_init__(self) -> None:
         prefix = _main_prologue(self)
@@ -398,6 +491,7 @@ class NumericFactor(_ComparedByValue):
         _set(self, "lower", lower)
         _set(self, "upper", upper)
         _factor_arrays(self, prefix, lower.size)
+        _check_missing(self, prefix)
 
     def labels(self) -> list[str]:
         """The bands as `[lower, upper)` text."""
@@ -408,10 +502,11 @@ class NumericFactor(_ComparedByValue):
 class CategoricalFactor(_ComparedByValue):
     """A categorical factor: `relativity[i]` for `levels[i]` (levels compared as strings).
 
-    A book value that is no level takes the `fallback` level's relativity when one is named.
-    `base` optionally names the level whose relativity is 1. Level order is the file's order,
-    which is the order a monotone promise refers to. The arrays are as for `NumericFactor`, one
-    value per level.
+    A book value that is no level takes the `fallback` level's relativity when one is named, else
+    the `base` level's. `base` optionally names the level whose relativity is 1. Level order is
+    the file's order, which is the order a monotone promise refers to. The arrays are as for
+    `NumericFactor`, one value per level. No level may be `MISSING_LABEL`: a missing book value
+    (None, NaN, empty text) takes `missing`, when given, as for `NumericFactor`.
     """
 
     name: str
@@ -424,10 +519,19 @@ class CategoricalFactor(_ComparedByValue):
     base: str | None = None
     indicated: np.ndarray | None = None
     credibility: np.ndarray | None = None
+    missing: MissingRow | None = None
 
     def __post_init__(self) -> None:
         prefix = _main_prologue(self)
         levels = _check_levels(self.levels, prefix, self.name, data_row)
+        if MISSING_LABEL in levels:
+            i = levels.index(MISSING_LABEL)
+            raise TableError(
+                f"{prefix}, {data_row(i)}: level {MISSING_LABEL!r} is the label of the missing row; "
+                "write the missing row with an empty level",
+                factor=self.name,
+                where=data_row(i),
+            )
         _set(self, "levels", levels)
         for key in ("fallback", "base"):
             value = getattr(self, key)
@@ -436,6 +540,7 @@ class CategoricalFactor(_ComparedByValue):
                     f"{prefix}: {key} level {value!r} is not one of the factor's levels", factor=self.name, where=key
                 )
         _factor_arrays(self, prefix, len(levels))
+        _check_missing(self, prefix)
 
     def labels(self) -> list[str]:
         """The levels."""

@@ -193,7 +193,12 @@ def _edit(folder: Path, name: str, old: str, new: str) -> None:
         ),
         ("factors/age.csv", "lower,upper", "low,upper", r"factor 'age': unknown column 'low'"),
         ("factors/region.csv", "Coast,1.5", "South,1.5", r"data row 3 \(1-based\): level 'South' repeats data row 2"),
-        ("factors/region.csv", "Coast,1.5", ",1.5", r"data row 3 \(1-based\): level '' is not a non-empty string"),
+        (
+            "factors/region.csv",
+            "South,0.875",
+            ",0.875",
+            r"data row 2 \(1-based\): the missing row \(empty level\) must be the last data row",
+        ),
         ("factors/age__region.csv", "30.0,inf,Coast,1.0\n", "", r"no row for cell \(age=\[30, inf\), region='Coast'\)"),
         ("table.json", '"fallback": "North"', '"fallback": "West"', "fallback level 'West' is not one of"),
         ("table.json", '"version": 1', '"version": 2', "this reader knows version 1"),

@@ -24,6 +24,7 @@ from rating_tables import (
     CategoricalFactor,
     InteractionFactor,
     Loadings,
+    MissingRow,
     NumericFactor,
     RatingTable,
     Rounding,
@@ -50,12 +51,25 @@ def _values(draw, strategy, n):
     return draw(st.lists(strategy, min_size=n, max_size=n))
 
 
+def _missing_row(draw, indicated: bool, credibility: bool) -> MissingRow | None:
+    """No missing row, or one with the optional values the factor has columns for (NaN allowed)."""
+    if not draw(st.booleans()):
+        return None
+    return MissingRow(
+        draw(RELATIVITY),
+        draw(EXPOSURE),
+        draw(RELATIVITY | st.just(math.nan)) if indicated else math.nan,
+        draw(st.floats(0, 1) | st.just(math.nan)) if credibility else math.nan,
+    )
+
+
 @st.composite
 def tables(draw) -> RatingTable:
     factors: list = []
     for k in range(draw(st.integers(1, 2))):
         edges = _edges(draw)
         n = len(edges) + 1
+        indicated = draw(st.none() | st.just(_values(draw, RELATIVITY, n)))
         factors.append(
             NumericFactor(
                 f"x{k}",
@@ -64,12 +78,14 @@ def tables(draw) -> RatingTable:
                 [*edges, INF],
                 _values(draw, RELATIVITY, n),
                 _values(draw, EXPOSURE, n),
-                indicated=draw(st.none() | st.just(_values(draw, RELATIVITY, n))),
+                indicated=indicated,
+                missing=_missing_row(draw, indicated is not None, False),
             )
         )
     for k in range(draw(st.integers(1, 2))):
         levels = draw(st.lists(LEVEL, min_size=1, max_size=5, unique=True).filter(lambda ls: UNKNOWN not in ls))
         n = len(levels)
+        credibility = draw(st.none() | st.just(_values(draw, st.floats(0, 1), n)))
         factors.append(
             CategoricalFactor(
                 f"c{k}",
@@ -78,7 +94,8 @@ def tables(draw) -> RatingTable:
                 _values(draw, RELATIVITY, n),
                 _values(draw, EXPOSURE, n),
                 fallback=draw(st.none() | st.sampled_from(levels)),
-                credibility=draw(st.none() | st.just(_values(draw, st.floats(0, 1), n))),
+                credibility=credibility,
+                missing=_missing_row(draw, False, credibility is not None),
             )
         )
     if draw(st.booleans()):
