@@ -10,7 +10,8 @@ import pandas as pd
 from premiumlab._core.errors import InputError
 from premiumlab.book.bands import assign_bands, band_labels, quantile_edges
 from premiumlab.book.rows import Book
-from premiumlab.book.spec import MISSING_LABEL, Factor, Spec
+from premiumlab.book.spec import Factor, Spec
+from rating_tables import MISSING_LABEL
 
 
 def is_missing(values: np.ndarray) -> np.ndarray:

@@ -11,7 +11,8 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from premiumlab.book.spec import MISSING_LABEL, Factor, Spec
+from premiumlab.book.spec import Factor, Spec
+from rating_tables import MISSING_LABEL
 
 #: Rows whose exposure exceeds this many terms are reported (exposure is usually at most one term).
 TERM = 1.0

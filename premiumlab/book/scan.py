@@ -25,8 +25,9 @@ from premiumlab.book.levels import cut_levels
 from premiumlab.book.quantiles import book_quantile_edges
 from premiumlab.book.reading import CHUNK_ROWS, book_parts, book_sha256, iter_book, read_columns, unreadable_parquet
 from premiumlab.book.rows import Book, Finding, FindingCollector, TypedChunk, as_text, check_chunk, to_number
-from premiumlab.book.spec import MISSING_LABEL, Factor, Spec
+from premiumlab.book.spec import Factor, Spec
 from premiumlab.book.split import holdout_flags
+from rating_tables import MISSING_LABEL
 
 #: A level or band holding less than this share of the exposure is reported as thin.
 THIN_LEVEL_SHARE = 0.005

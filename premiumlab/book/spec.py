@@ -17,15 +17,13 @@ from typing import Any
 from premiumlab._core.defaults import SEED
 from premiumlab._core.toml_schema import TomlTable, read_toml
 from premiumlab.book.gbm_options import MONOTONE_METHODS, GbmOptions
-from rating_tables import Loadings
+from rating_tables import MISSING_LABEL, Loadings
 from rating_tables.monotone import Monotone
 
 MONOTONE = tuple(m.value for m in Monotone)
 FACTOR_TYPES = ("numeric", "categorical")
 #: What a missing value of a factor is: its own level or band ("level"), or an error ("refuse").
 MISSING_RULES = ("level", "refuse")
-#: The label of the missing level or band (levels.json, the GLMs, the rating table's missing row).
-MISSING_LABEL = "(missing)"
 
 #: Factor names refused by default: characteristics that rating law in many places forbids.
 #: A jurisdiction sets its own list in `[compliance] prohibited`.

@@ -16,7 +16,8 @@ from premiumlab.book.levels import is_missing
 from premiumlab.book.reading import read_columns
 from premiumlab.book.rows import Finding
 from premiumlab.book.scan import BookSummary, parquet_slices, profile, scan_book, with_quantile_bands
-from premiumlab.book.spec import MISSING_LABEL, Spec, load_spec
+from premiumlab.book.spec import Spec, load_spec
+from rating_tables import MISSING_LABEL
 
 #: Coverage of the interval of the frequency ratio of rows with a missing value to the others.
 RATIO_COVERAGE = 0.95

@@ -14,7 +14,7 @@ import pandas as pd
 
 from premiumlab._core.diagnostics import Diagnostic
 from premiumlab.book.levels import Levels, is_missing
-from premiumlab.book.spec import MISSING_LABEL
+from rating_tables import MISSING_LABEL
 
 #: Unseen levels named in a diagnostic's message (the count covers all of them).
 SHOW_LEVELS = 5

@@ -6,7 +6,8 @@ import numpy as np
 import pandas as pd
 
 from premiumlab.book.levels import is_missing
-from premiumlab.book.spec import MISSING_LABEL, Spec
+from premiumlab.book.spec import Spec
+from rating_tables import MISSING_LABEL
 
 
 def features_from_spec(frame: pd.DataFrame, spec: Spec) -> pd.DataFrame:
