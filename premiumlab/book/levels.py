@@ -71,7 +71,8 @@ class Levels:
         if self.edges is not None:
             codes = assign_bands(np.where(missing, 0.0, np.asarray(values, dtype=float)), self.edges)
         else:
-            codes = pd.Categorical(values, categories=[lv for lv in self.labels if lv != MISSING_LABEL]).codes
+            ordinary = self.labels[: len(self.labels) - int(self.missing)]
+            codes = pd.Index(ordinary, dtype=object).get_indexer(np.asarray(values, dtype=object))
         codes = np.asarray(codes, dtype=np.int64)
         codes[missing] = len(self.labels) - 1 if self.missing else -1
         return codes

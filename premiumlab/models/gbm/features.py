@@ -43,8 +43,8 @@ def features_from_spec(frame: pd.DataFrame, spec: Spec) -> pd.DataFrame:
         missing = is_missing(text)
         if f.direction != 0:
             assert f.levels is not None  # the spec refuses a promise on a categorical without `levels`
-            codes = pd.Categorical(text, categories=list(f.levels)).codes.astype(float)
-            cols[f.name] = np.where(codes < 0, np.nan, codes)
+            codes = pd.Index(f.levels, dtype=object).get_indexer(text)
+            cols[f.name] = np.where(codes < 0, np.nan, codes.astype(float))
             continue
         levels = list(f.levels) if f.levels is not None else sorted(set(text[~missing]))
         if missing.any():
