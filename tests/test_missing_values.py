@@ -10,6 +10,7 @@ arithmetic, not estimates of a truth.
 
 from __future__ import annotations
 
+import json
 import math
 import re
 import tomllib
@@ -360,3 +361,15 @@ def test_tabulate_distils_the_missing_band_apart(gapped_run, gapped_tables):
     bonus = next(f for f in table.factors if f.name == "bonus")
     assert (np.diff(bonus.relativity) >= 0).all()
     assert tables["gbm"]["fidelity"]["policies"] > 0
+
+
+def test_compare_leaves_the_new_level_out_of_its_actual_against_expected(gapped_run):
+    """`compare` runs on a holdout with a new level: the region's actual-to-expected table shows the
+    run's levels with the missing one, and its exposure is the holdout's less the new level's rows."""
+    base, frame, held, _ = gapped_run
+    result = premiumlab.compare(base / "run")
+    ave = json.loads((base / "run" / "comparison.json").read_text())["actual_vs_expected"]["region"]["glm_pure_premium"]
+    assert ave["level"] == ["Eastvale", "Northmoor", "Southby", MISSING_LABEL]
+    new = (frame["region"] == NEW_REGION).to_numpy()
+    assert sum(ave["exposure"]) == pytest.approx(frame.loc[held & ~new, "exposure"].sum(), rel=1e-9)
+    assert result.holdout_rows == held.sum()
