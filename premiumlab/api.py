@@ -230,9 +230,13 @@ def rate(
     out: str | Path,
     exposure: str = "exposure",
     annual: bool = False,
+    strict_levels: bool = False,
     force: bool = False,
 ) -> RateResult:
     """Rate policies with a table: pure and gross premium and the build-up columns.
+
+    A missing value takes the factor's missing row; a level the table does not list takes the
+    factor's fallback level, else its base level (docs/rating-table.md, Rating algorithm).
 
     Parameters
     ----------
@@ -246,17 +250,20 @@ def rate(
         The book's exposure column (years); the premium is the annual premium x exposure.
     annual : bool
         Price one full term per policy.
+    strict_levels : bool
+        Refuse a level the table does not list, even where a fallback or base level exists.
     force : bool
         Replace an existing priced file.
 
     Returns
     -------
     RateResult
-        The priced file and the table's cautions.
+        The priced file, the rows priced, the per-factor counts of rows rated at a missing row or
+        at a fallback level, and the table's cautions.
     """
     from premiumlab.apply.rate import rate_book
 
-    return rate_book(table, book, out, exposure, annual, force=force)
+    return rate_book(table, book, out, exposure, annual, force=force, strict_levels=strict_levels)
 
 
 def impact(

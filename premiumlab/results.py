@@ -10,9 +10,12 @@ from __future__ import annotations
 from collections.abc import Mapping
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from premiumlab._core.jsonio import plain
+
+if TYPE_CHECKING:
+    from rating_tables import LevelCounts
 
 
 class Result:
@@ -126,9 +129,17 @@ class AuditResult(Result):
 
 @dataclass(frozen=True)
 class RateResult(Result):
-    """`rate`: the priced file written and the table's cautions."""
+    """`rate`: the priced file written, the rows priced, the rows not priced at a band or level of
+    their own, and the table's cautions.
+
+    `counts` holds a `rating_tables.LevelCounts` for each factor where some rows were rated at its
+    missing row (`missing_rows`) or, holding a level the table does not list, at its fallback or
+    base level (`fallback_rows`, `fallback_level`, the first `unknown_levels`), in table order.
+    """
 
     priced: Path
+    rows: int
+    counts: tuple[LevelCounts, ...]
     cautions: tuple[str, ...]
 
 

@@ -7,8 +7,8 @@ from rating_tables.errors import TableError
 from rating_tables.exhibit import write_exhibit
 from rating_tables.impact import Capping, cap_premiums, impact
 from rating_tables.io import load, save
-from rating_tables.rate import gross_premium, rate, solve_base_rate
-from rating_tables.ratefile import rate_file
+from rating_tables.rate import LevelCounts, gross_premium, rate, solve_base_rate
+from rating_tables.ratefile import RatedFile, rate_file
 from rating_tables.table import (
     DRAFT_CAUTION,
     MISSING_LABEL,
@@ -29,9 +29,11 @@ __all__ = [
     "Capping",
     "CategoricalFactor",
     "InteractionFactor",
+    "LevelCounts",
     "Loadings",
     "MissingRow",
     "NumericFactor",
+    "RatedFile",
     "RatingTable",
     "Rounding",
     "TableError",

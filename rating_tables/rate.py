@@ -6,13 +6,18 @@ gross_premium = max(minimum_premium, (pure x (1 + lae_ratio) + fixed_expense x e
                 to `premium_decimals`.
 Exposure is the book's earned exposure, or one full term (1.0) per row with `annual=True`.
 Numeric values go to the band [lower, upper) that holds them (`table.band_index`: the count of
-interior edges at or below the value; -inf and inf fall in the end bands); categorical values are compared as strings (pandas
-categoricals are mapped once per category, then taken by code). Errors name the 0-based book row.
+interior edges at or below the value; -inf and inf fall in the end bands); categorical values are
+compared as strings (pandas categoricals are mapped once per category, then taken by code). A
+missing value (NaN, None, empty text) takes the factor's missing row; a categorical value that is
+no level takes the fallback level, else the base level (unless `strict_levels`); a two-way table
+gives 1.0 to a row missing on either side. `LevelCounts` counts, per factor, the rows rated so.
+Errors name the 0-based book row.
 """
 
 from __future__ import annotations
 
 import dataclasses
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
@@ -24,11 +29,56 @@ from rating_tables.table import (
     Bands,
     CategoricalFactor,
     Loadings,
+    MainFactor,
     NumericFactor,
     RatingTable,
     band_index,
     mapping_to_side,
 )
+
+UNKNOWN_SHOWN = 5  # distinct unknown levels a LevelCounts keeps, the first in book order
+
+
+@dataclass(frozen=True)
+class LevelCounts:
+    """Rows of one factor that were not rated at a band or level of their own.
+
+    `missing_rows` took the factor's missing row (their value was missing: NaN, None or empty
+    text); `fallback_rows` held a categorical value that is no level and took `fallback_level`
+    (the factor's `fallback`, else its `base`); `unknown_levels` are the first distinct such
+    values in book order, at most `UNKNOWN_SHOWN` (5), as text.
+    """
+
+    factor: str
+    missing_rows: int = 0
+    fallback_rows: int = 0
+    fallback_level: str | None = None
+    unknown_levels: tuple[str, ...] = ()
+
+    def __bool__(self) -> bool:
+        return bool(self.missing_rows or self.fallback_rows)
+
+    def merged(self, later: LevelCounts) -> LevelCounts:
+        """These counts followed by those of the rows after them (`later`, same factor).
+
+        Parameters
+        ----------
+        later : LevelCounts
+            The counts of the next rows of the same book.
+
+        Returns
+        -------
+        LevelCounts
+            Rows summed; the unknown levels of both in book order, without repeats, the first
+            `UNKNOWN_SHOWN` kept; so the counts of a book do not depend on how it was cut in batches.
+        """
+        return LevelCounts(
+            self.factor,
+            self.missing_rows + later.missing_rows,
+            self.fallback_rows + later.fallback_rows,
+            self.fallback_level if self.fallback_level is not None else later.fallback_level,
+            tuple(dict.fromkeys(self.unknown_levels + later.unknown_levels))[:UNKNOWN_SHOWN],
+        )
 
 
 def _book_row(i: int) -> str:
@@ -43,7 +93,8 @@ def _column(book: pd.DataFrame, name: str, what: str) -> pd.Series:
 
 
 def _numeric_values(series: pd.Series, what: str, row_offset: int = 0) -> npt.NDArray[np.float64]:
-    """The column as float64; TableError at the first non-numeric or missing value."""
+    """The column as float64, NaN where a value is missing (NaN, None or empty text); TableError at
+    the first value that is not a number."""
     if isinstance(series.dtype, pd.CategoricalDtype):
         series = pd.Series(np.asarray(series, dtype=object))
     if pd.api.types.is_bool_dtype(series.dtype):
@@ -51,25 +102,49 @@ def _numeric_values(series: pd.Series, what: str, row_offset: int = 0) -> npt.ND
     values: npt.NDArray[np.float64]
     if pd.api.types.is_numeric_dtype(series.dtype):
         values = series.to_numpy(dtype=np.float64, na_value=np.nan)
-    else:
-        try:
-            values = series.astype("float64").to_numpy()
-        except (TypeError, ValueError):
-            coerced = pd.to_numeric(series, errors="coerce")
-            bad = np.flatnonzero(coerced.isna().to_numpy() & series.notna().to_numpy())
-            where = _book_row(row_offset + int(bad[0])) if bad.size else "some row"
-            text = series.iloc[int(bad[0])] if bad.size else "?"
-            raise TableError(f"{what}: value {text!r} at {where} is not a number", check="book", where=where) from None
-    missing = np.flatnonzero(np.isnan(values))
-    if missing.size:
-        where = _book_row(row_offset + int(missing[0]))
-        raise TableError(f"{what}: missing value at {where}", check="book", where=where)
+        return values
+    series = series.mask((series == "").to_numpy(dtype=bool, na_value=False))
+    try:
+        values = series.astype("float64").to_numpy()
+    except (TypeError, ValueError):
+        coerced = pd.to_numeric(series, errors="coerce")
+        bad = np.flatnonzero(coerced.isna().to_numpy() & series.notna().to_numpy())
+        where = _book_row(row_offset + int(bad[0])) if bad.size else "some row"
+        text = series.iloc[int(bad[0])] if bad.size else "?"
+        raise TableError(f"{what}: value {text!r} at {where} is not a number", check="book", where=where) from None
     return values
 
 
-def _level_index(factor: CategoricalFactor, series: pd.Series, row_offset: int = 0) -> npt.NDArray[np.intp]:
-    """Index into `factor.levels` of each value, compared as strings; unknown values take the
-    fallback level when the factor names one."""
+def _refuse_missing(missing: npt.NDArray[np.bool_], what: str, row_offset: int, factor: str | None = None) -> None:
+    """TableError naming the first row where `missing` is true, if any."""
+    if missing.any():
+        where = _book_row(row_offset + int(np.flatnonzero(missing)[0]))
+        no_row = "" if factor is None else " and the table has no missing row for it"
+        raise TableError(f"{what}: missing value at {where}{no_row}", check="book", factor=factor, where=where)
+
+
+def _missing_values_of(factor: MainFactor, missing: npt.NDArray[np.bool_], row_offset: int) -> int:
+    """The number of missing values, refused when the factor has no missing row."""
+    if factor.missing is None:
+        _refuse_missing(missing, f"factor {factor.name!r}", row_offset, factor.name)
+    return int(missing.sum())
+
+
+def _first_distinct(codes: npt.NDArray[np.integer[Any]], labels: list[str]) -> tuple[str, ...]:
+    """The labels of the first `UNKNOWN_SHOWN` distinct codes in row order."""
+    distinct, first = np.unique(codes, return_index=True)
+    return tuple(labels[int(c)] for c in distinct[np.argsort(first)][:UNKNOWN_SHOWN])
+
+
+def _level_index(
+    factor: CategoricalFactor, series: pd.Series, row_offset: int = 0, strict_levels: bool = False
+) -> tuple[npt.NDArray[np.intp], npt.NDArray[np.bool_], LevelCounts]:
+    """Index into `factor.levels` of each value, compared as strings, and which values are missing.
+
+    Unknown values take the fallback level, else the base level (refused with `strict_levels` or
+    when the factor names neither); missing values (None, NaN, empty text) get index 0 and are
+    flagged, refused when the factor has no missing row.
+    """
     what = f"factor {factor.name!r}"
     codes: npt.NDArray[np.integer[Any]]
     if isinstance(series.dtype, pd.CategoricalDtype):
@@ -78,26 +153,38 @@ def _level_index(factor: CategoricalFactor, series: pd.Series, row_offset: int =
     else:
         codes, uniques = pd.factorize(series, use_na_sentinel=True)
         labels = [str(u) for u in uniques]
-    missing = np.flatnonzero(codes < 0)
-    if missing.size:
-        where = _book_row(row_offset + int(missing[0]))
-        raise TableError(f"{what}: missing value at {where}", check="book", factor=factor.name, where=where)
+    empty_label = np.array([label == "" for label in labels] + [True])  # the last entry is for code -1
+    missing = empty_label[codes]
+    missing_rows = _missing_values_of(factor, missing, row_offset)
     position = {level: i for i, level in enumerate(factor.levels)}
-    to_level = np.array([position.get(label, -1) for label in labels], dtype=np.intp)
-    unknown = to_level < 0
+    to_level = np.array([position.get(label, -1) for label in labels] + [0], dtype=np.intp)
+    unknown = (to_level < 0)[codes] & ~missing
+    counts = LevelCounts(factor.name, missing_rows=missing_rows)
     if unknown.any():
-        if factor.fallback is None:
-            first = int(np.flatnonzero(unknown[codes])[0])
+        stand_in = factor.fallback if factor.fallback is not None else factor.base
+        if stand_in is None or strict_levels:
+            first = int(np.flatnonzero(unknown)[0])
             where = _book_row(row_offset + first)
+            why = (
+                "the factor has no fallback or base level"
+                if stand_in is None
+                else f"strict levels refuse it (the fallback would be {stand_in!r})"
+            )
             raise TableError(
-                f"{what}: level {labels[codes[first]]!r} at {where} is not in the table and the factor has no fallback",
+                f"{what}: level {labels[codes[first]]!r} at {where} is not in the table and {why}",
                 check="book",
                 factor=factor.name,
                 where=where,
             )
-        to_level[unknown] = position[factor.fallback]
+        counts = dataclasses.replace(
+            counts,
+            fallback_rows=int(unknown.sum()),
+            fallback_level=stand_in,
+            unknown_levels=_first_distinct(codes[unknown], labels),
+        )
+        to_level[to_level < 0] = position[stand_in]
     index: npt.NDArray[np.intp] = to_level[codes]
-    return index
+    return index, missing, counts
 
 
 def _exposure(
@@ -111,6 +198,7 @@ def _exposure(
         )
     what = f"exposure column {exposure_column!r}"
     values = _numeric_values(_column(book, exposure_column, what), what, row_offset)
+    _refuse_missing(np.isnan(values), what, row_offset)
     bad = np.flatnonzero(~(np.isfinite(values) & (values >= 0)))
     if bad.size:
         where = _book_row(row_offset + int(bad[0]))
@@ -120,29 +208,48 @@ def _exposure(
     return values
 
 
-def _relativities(table: RatingTable, book: pd.DataFrame, row_offset: int = 0) -> dict[str, npt.NDArray[np.float64]]:
-    """The build-up columns `rel_NAME` (interactions `rel_a__b`), in table order."""
+def _relativities(
+    table: RatingTable, book: pd.DataFrame, row_offset: int = 0, strict_levels: bool = False
+) -> tuple[dict[str, npt.NDArray[np.float64]], dict[str, LevelCounts]]:
+    """The build-up columns `rel_NAME` (interactions `rel_a__b`), in table order, and the counts
+    of each main factor."""
     cells: dict[str, npt.NDArray[np.integer[Any]]] = {}
     values: dict[str, npt.NDArray[np.float64]] = {}
+    missing: dict[str, npt.NDArray[np.bool_]] = {}
+    counts: dict[str, LevelCounts] = {}
     out: dict[str, npt.NDArray[np.float64]] = {}
     for factor in table.factors:
         if isinstance(factor, NumericFactor):
             what = f"factor {factor.name!r}"
             values[factor.name] = _numeric_values(_column(book, factor.name, what), what, row_offset)
+            missing[factor.name] = np.isnan(values[factor.name])
+            counts[factor.name] = LevelCounts(
+                factor.name, missing_rows=_missing_values_of(factor, missing[factor.name], row_offset)
+            )
             cells[factor.name] = band_index(factor.lower, values[factor.name])
-            out[f"rel_{factor.name}"] = factor.relativity[cells[factor.name]]
         elif isinstance(factor, CategoricalFactor):
             series = _column(book, factor.name, f"factor {factor.name!r}")
-            cells[factor.name] = _level_index(factor, series, row_offset)
-            out[f"rel_{factor.name}"] = factor.relativity[cells[factor.name]]
+            cells[factor.name], missing[factor.name], counts[factor.name] = _level_index(
+                factor, series, row_offset, strict_levels
+            )
         else:
             i, j = (
                 _side_index(table, side, side_cells, cells, values)
                 for side, side_cells in zip(factor.of, (factor.a_cells, factor.b_cells))
             )
             flat = i.astype(np.intp) * factor.relativity.shape[1] + j  # one flat take: 2-D fancy indexing is slower
-            out[f"rel_{factor.name}"] = factor.relativity.ravel()[flat]
-    return out
+            rel = factor.relativity.ravel()[flat]
+            a, b = factor.of
+            if counts[a].missing_rows or counts[b].missing_rows:
+                rel[missing[a] | missing[b]] = 1.0  # two-way tables have no missing cell
+            out[f"rel_{factor.name}"] = rel
+            continue
+        rel = factor.relativity[cells[factor.name]]
+        if counts[factor.name].missing_rows:
+            assert factor.missing is not None  # else _missing_values_of refused the rows
+            rel[missing[factor.name]] = factor.missing.relativity
+        out[f"rel_{factor.name}"] = rel
+    return out, counts
 
 
 def _side_index(
@@ -152,6 +259,7 @@ def _side_index(
     cells: dict[str, npt.NDArray[np.integer[Any]]],
     values: dict[str, npt.NDArray[np.float64]],
 ) -> npt.NDArray[np.integer[Any]]:
+    """Each row's cell on one side of a two-way table (any cell for a missing value, given 1.0 later)."""
     if isinstance(side_cells, Bands):
         return band_index(side_cells.lower, values[side])
     main = table.factor(side)
@@ -219,8 +327,10 @@ def rating_columns(
     exposure_column: str | None = None,
     annual: bool = False,
     row_offset: int = 0,
-) -> dict[str, npt.NDArray[np.float64]]:
-    """The columns the rater adds: `rel_*` in table order, then `pure_premium`, `gross_premium`.
+    strict_levels: bool = False,
+) -> tuple[dict[str, npt.NDArray[np.float64]], dict[str, LevelCounts]]:
+    """The columns the rater adds: `rel_*` in table order, then `pure_premium`, `gross_premium`;
+    and the counts of the rows rated at a missing row or a stand-in level.
 
     `row_offset` is added to row numbers in error messages (for books rated in batches).
 
@@ -238,25 +348,32 @@ def rating_columns(
         Rate every row for one full term (exposure 1.0); `exposure_column` is then not read.
     row_offset : int
         The 0-based position in the whole book of `book`'s first row.
+    strict_levels : bool
+        Refuse a categorical value that is no level even when the factor has a fallback or base.
 
     Returns
     -------
-    dict of str to numpy.ndarray of float64
+    columns : dict of str to numpy.ndarray of float64
         `rel_NAME` for each factor entry in table order (`rel_A__B` for a two-way table), the
-        relativity looked up for each row; `pure_premium` = ((base_rate x rel_1) x ... x rel_k) x
-        exposure, money, not rounded; `gross_premium` as `gross_premium` computes it, money rounded
-        to `premium_decimals`. Each array has one value per row of `book`.
+        relativity looked up for each row (the missing row's for a missing value; 1.0 from a
+        two-way table for a row missing on either side); `pure_premium` = ((base_rate x rel_1) x
+        ... x rel_k) x exposure, money, not rounded; `gross_premium` as `gross_premium` computes
+        it, money rounded to `premium_decimals`. Each array has one value per row of `book`.
+    counts : dict of str to LevelCounts
+        For each numeric and categorical factor, in table order, the rows of `book` rated at its
+        missing row or at its fallback (or base) level.
 
     Raises
     ------
     TableError
         (check `book`) for a missing column or a boolean column where numbers are needed; and,
-        naming the 0-based book row, for a missing value, a value of a numeric factor or of the
-        exposure that is not a number, an exposure that is negative or not finite, a level the
-        factor does not list when it has no fallback, or a premium too large to represent.
+        naming the 0-based book row, for a missing value of a factor without a missing row or of
+        the exposure, a value of a numeric factor or of the exposure that is not a number, an
+        exposure that is negative or not finite, a level the factor does not list when it has no
+        fallback or base level (or with `strict_levels`), or a premium too large to represent.
     """
     exposure = _exposure(book, exposure_column, annual, row_offset)
-    out = _relativities(table, book, row_offset)
+    out, counts = _relativities(table, book, row_offset, strict_levels)
     with np.errstate(over="ignore", invalid="ignore"):  # checked below, row by row
         out["pure_premium"] = _pure_premium(table.base_rate, out, exposure)
         out["gross_premium"] = gross_premium(
@@ -270,7 +387,7 @@ def rating_columns(
             check="book",
             where=where,
         )
-    return out
+    return out, counts
 
 
 def check_no_clash(existing: list[str], added: list[str], what: str) -> None:
@@ -315,7 +432,12 @@ def added_columns(table: RatingTable) -> list[str]:
 
 
 def rate(
-    table: RatingTable, book: pd.DataFrame, exposure_column: str | None = None, annual: bool = False
+    table: RatingTable,
+    book: pd.DataFrame,
+    exposure_column: str | None = None,
+    annual: bool = False,
+    *,
+    strict_levels: bool = False,
 ) -> pd.DataFrame:
     """Rate every row of `book`: its columns plus `rel_*`, `pure_premium` and `gross_premium`.
 
@@ -331,13 +453,17 @@ def rate(
         as a number is accepted, a boolean column is not); its value x takes the band with
         lower <= x < upper. A categorical factor's values are compared, as text (`str(value)`),
         with the levels exactly: no trimming, case counts, the integer 2 is `2` and the float 2.0
-        is `2.0`; a value that is no level takes the fallback level. A missing value (NaN, None)
-        in a factor or the exposure column is an error.
+        is `2.0`; a value that is no level takes the fallback level, else the base level. A
+        missing value of a factor (NaN, None, empty text) takes the factor's missing row, and
+        1.0 from every two-way table on the factor; without a missing row it is an error, as is
+        a missing exposure.
     exposure_column : str or None
         The column of earned exposure in the table's exposure unit, finite and >= 0; needed
         unless `annual`.
     annual : bool
         Rate every row for one full term: exposure 1.0 for every row.
+    strict_levels : bool
+        Refuse a categorical value that is no level even when the factor has a fallback or base.
 
     Returns
     -------
@@ -354,7 +480,8 @@ def rate(
         says; messages name the 0-based book row.
     """
     check_no_clash(list(book.columns), added_columns(table), "book")
-    added = pd.DataFrame(rating_columns(table, book, exposure_column, annual), index=book.index, copy=False)
+    columns, _ = rating_columns(table, book, exposure_column, annual, strict_levels=strict_levels)
+    added = pd.DataFrame(columns, index=book.index, copy=False)
     return pd.concat([book, added], axis=1)
 
 
@@ -411,7 +538,7 @@ def solve_base_rate(
     ):
         raise TableError(f"target_total: must be a finite number > 0, got {target_total!r}", where="target_total")
     exposure = _exposure(book, exposure_column, annual, 0)
-    rels = _relativities(table, book)
+    rels, _ = _relativities(table, book)
     before = float(_pure_premium(table.base_rate, rels, exposure).sum())
     if not before > 0:
         raise TableError("book: the table rates it to a total pure premium of 0 (no exposure?)", check="book")

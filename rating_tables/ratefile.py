@@ -4,8 +4,10 @@ The input is a book as `rating_tables.books` defines it (a `.csv`, `.parquet` or
 folder of parts of one kind, read in name order); the output format follows `out_path`'s extension.
 The rated file is the same, byte for byte, whatever `batch_rows` is: CSV columns are read as text
 and passed through unchanged; Parquet columns keep their types (dictionary-encoded columns are
-written decoded), and the output's Parquet row groups hold a fixed `row_group_rows` rows. A Parquet output carries the table's cautions as JSON under
-the schema metadata key `premiumlab.cautions`; for CSV the caller prints the returned cautions.
+written decoded), and the output's Parquet row groups hold a fixed `row_group_rows` rows. A
+Parquet output carries the table's cautions as JSON under the schema metadata key
+`premiumlab.cautions`; for CSV the caller prints the returned cautions. The counts of rows rated
+at a missing row or a fallback level (`RatedFile.counts`) do not depend on `batch_rows` either.
 """
 
 from __future__ import annotations
@@ -13,6 +15,7 @@ from __future__ import annotations
 import json
 import os
 from collections.abc import Iterator
+from dataclasses import dataclass
 from pathlib import Path
 
 import pandas as pd
@@ -22,11 +25,22 @@ import pyarrow.parquet as pq
 
 from rating_tables.books import book_parts, output_kind
 from rating_tables.errors import TableError
-from rating_tables.rate import added_columns, check_no_clash, rating_columns
+from rating_tables.rate import LevelCounts, added_columns, check_no_clash, rating_columns
 from rating_tables.table import RatingTable
 
 CAUTIONS_KEY = b"premiumlab.cautions"
 ROW_GROUP_ROWS = 262_144
+
+
+@dataclass(frozen=True)
+class RatedFile:
+    """What `rate_file` did: the rows rated, the table's cautions, and the counts of the factors
+    where some rows were rated at the missing row or at the fallback (or base) level, in table
+    order (factors without such rows left out)."""
+
+    rows: int
+    cautions: tuple[str, ...]
+    counts: tuple[LevelCounts, ...]
 
 
 def rate_file(
@@ -38,8 +52,10 @@ def rate_file(
     batch_rows: int = 500_000,
     *,
     row_group_rows: int = ROW_GROUP_ROWS,
-) -> tuple[str, ...]:
-    """Rate the book at `in_path` into `out_path` (columns as `rate` adds them); returns the cautions.
+    strict_levels: bool = False,
+) -> RatedFile:
+    """Rate the book at `in_path` into `out_path` (columns as `rate` adds them); returns the rows
+    rated, the cautions and the counts of rows rated at a missing row or a fallback level.
 
     Errors name the input and the 0-based row counted over the whole book; a failed call removes
     what it had written of the output. A book with no rows is refused.
@@ -55,10 +71,11 @@ def rate_file(
     in_path : str or os.PathLike
         The book: a `.csv`, `.parquet` or `.pq` file, or a folder of parts of one kind read in
         name order (`rating_tables.books.book_parts`). CSV columns are read as text: an empty
-        field is the empty text `""`, not a missing value, so a numeric factor or the exposure
-        refuses it as not a number and a categorical factor looks it up as a level (the fallback
-        then applies). Parquet columns keep their types and are read as `rate` reads a
-        DataFrame's columns (a null is a missing value).
+        field is a missing value (the factor's missing row applies; a missing exposure is
+        refused), and so is `nan` where a number is read; no other text is (`NA` is a level, or
+        not a number). Parquet columns keep
+        their types and are read as `rate` reads a DataFrame's columns (a null, a NaN or an
+        empty text is a missing value).
     out_path : str or os.PathLike
         The rated book to write, CSV for `.csv`, Parquet for `.parquet` or `.pq`; it must not be
         the input file. A file already there is replaced.
@@ -70,12 +87,16 @@ def rate_file(
         Rows read and rated at a time, >= 1; the output does not depend on it.
     row_group_rows : int
         Rows per row group of a Parquet output (the last may hold fewer), >= 1; not used for CSV.
+    strict_levels : bool
+        Refuse a categorical value that is no level even when the factor has a fallback or base.
 
     Returns
     -------
-    tuple of str
-        The table's cautions, for the caller to show with a CSV output; a Parquet output also
-        carries them as a JSON list under the schema metadata key `premiumlab.cautions`.
+    RatedFile
+        `rows`, the rows rated; `cautions`, the table's, for the caller to show with a CSV
+        output (a Parquet output also carries them as a JSON list under the schema metadata key
+        `premiumlab.cautions`); `counts`, a `LevelCounts` for each factor with rows rated at its
+        missing row or at its fallback (or base) level, in table order, whatever `batch_rows`.
 
     Raises
     ------
@@ -106,12 +127,16 @@ def rate_file(
         check_no_clash(source.schema.names, added_columns(table), "book")
         schema = _output_schema(source.schema, table)
         rows = 0
+        counts = {f.name: LevelCounts(f.name) for f in table.main_factors}
         with (
             _ParquetSink(target, schema, row_group_rows) if out_kind == "parquet" else _CsvSink(target, schema)
         ) as sink:
             for chunk in source.tables():
                 frame = chunk.select(list(dict.fromkeys(needed))).to_pandas()
-                added = rating_columns(table, frame, exposure_column, annual, row_offset=rows)
+                added, chunk_counts = rating_columns(
+                    table, frame, exposure_column, annual, row_offset=rows, strict_levels=strict_levels
+                )
+                counts = {name: counts[name].merged(chunk_counts[name]) for name in counts}
                 out = source.plain(chunk)
                 for name, values in added.items():
                     out = out.append_column(name, pa.array(values, type=pa.float64()))
@@ -122,7 +147,7 @@ def rate_file(
     except TableError as e:
         target.unlink(missing_ok=True)  # a failed call leaves no partly written output
         raise e.prefixed(str(source_path)) from None
-    return table.cautions
+    return RatedFile(rows, table.cautions, tuple(c for c in counts.values() if c))
 
 
 def _output_schema(schema: pa.Schema, table: RatingTable) -> pa.Schema:

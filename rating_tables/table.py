@@ -104,8 +104,8 @@ def band_index(lower: npt.NDArray[np.float64], values: npt.NDArray[np.float64]) 
         The bands' lower edges in ascending order, `lower[0] = -inf`; with contiguous bands
         (`upper[i] = lower[i + 1]`, as a valid table has) the band i is [lower[i], lower[i + 1]).
     values : numpy.ndarray of float64
-        Book values, any shape, in the unit of the edges; none may be NaN (the rater refuses
-        missing values before looking them up; a NaN's index is not meaningful).
+        Book values, any shape, in the unit of the edges. A NaN gets an index that is valid but
+        not meaningful (the rater rates the rows of missing values at the missing row instead).
 
     Returns
     -------

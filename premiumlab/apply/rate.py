@@ -8,7 +8,13 @@ from premiumlab.results import RateResult
 
 
 def rate_book(
-    table_dir: str | Path, book: str | Path, out: str | Path, exposure: str | None, annual: bool, force: bool = False
+    table_dir: str | Path,
+    book: str | Path,
+    out: str | Path,
+    exposure: str | None,
+    annual: bool,
+    force: bool = False,
+    strict_levels: bool = False,
 ) -> RateResult:
     """Rate `book` with the table into `out` (CSV or Parquet by extension), atomically.
 
@@ -26,11 +32,14 @@ def rate_book(
         Price one full term per policy instead of the exposure's share of it.
     force : bool
         Replace an existing `out`.
+    strict_levels : bool
+        Refuse a level the table does not list even when the factor has a fallback or base level.
 
     Returns
     -------
     RateResult
-        The priced file and the table's cautions.
+        The priced file, the rows priced, the per-factor counts of rows rated at a missing row or
+        a fallback level, and the table's cautions.
     """
     import rating_tables
     from premiumlab._core.outputs import atomic_files
@@ -38,7 +47,12 @@ def rate_book(
     table = rating_tables.load(table_dir)
     out = Path(out)
     with atomic_files([out], force=force, inputs=(book, table_dir)) as tmp:
-        cautions = rating_tables.rate_file(
-            table, book, tmp / out.name, exposure_column=None if annual else exposure, annual=annual
+        rated = rating_tables.rate_file(
+            table,
+            book,
+            tmp / out.name,
+            exposure_column=None if annual else exposure,
+            annual=annual,
+            strict_levels=strict_levels,
         )
-    return RateResult(priced=out, cautions=tuple(cautions))
+    return RateResult(priced=out, rows=rated.rows, counts=rated.counts, cautions=tuple(rated.cautions))

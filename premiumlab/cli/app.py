@@ -252,13 +252,20 @@ def rate(
     out: Annotated[Path, typer.Option("--out", help="Priced file to write (.csv or .parquet).")],
     exposure: Annotated[str, typer.Option(help="The book's exposure column.")] = "exposure",
     annual: Annotated[bool, typer.Option("--annual", help="Price one full term per policy.")] = False,
+    strict_levels: Annotated[
+        bool,
+        typer.Option("--strict-levels", help="Refuse a level the table does not list, even with a fallback."),
+    ] = False,
     force: Force = False,
 ) -> None:
     """Rate policies with a table: pure and gross premium and the build-up columns."""
     from premiumlab import api
+    from premiumlab.cli.format import level_count_lines
 
-    result = api.rate(table, book, out=out, exposure=exposure, annual=annual, force=force)
-    typer.echo(f"wrote {result.priced}")
+    result = api.rate(table, book, out=out, exposure=exposure, annual=annual, strict_levels=strict_levels, force=force)
+    typer.echo(f"wrote {result.priced} ({result.rows} rows)")
+    for line in level_count_lines(result.counts):
+        typer.echo(line, err=True)
     _echo_cautions(result.cautions)
 
 

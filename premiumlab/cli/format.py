@@ -18,6 +18,7 @@ from premiumlab.results import (
 
 if TYPE_CHECKING:
     from premiumlab.book.validate import ValidationReport
+    from rating_tables import LevelCounts
 
 
 def caution_lines(cautions: Iterable[str]) -> list[str]:
@@ -34,6 +35,45 @@ def caution_lines(cautions: Iterable[str]) -> list[str]:
         The lines, in the order given.
     """
     return [f"caution: {c}" for c in cautions]
+
+
+def _rows(n: int) -> str:
+    return f"{n} row" if n == 1 else f"{n} rows"
+
+
+def level_count_lines(counts: Iterable[LevelCounts]) -> list[str]:
+    """`rate`: per factor, the rows rated at the fallback level and at the missing row.
+
+    Parameters
+    ----------
+    counts : iterable of rating_tables.LevelCounts
+        The counts of `RateResult.counts` (factors where some rows took the fallback level or the
+        missing row).
+
+    Returns
+    -------
+    list[str]
+        One sentence per factor, e.g. `factor 'territory': 12 rows with a level the table does not
+        list ('T301', 'T302') rated at the fallback level 'T001'; 3 rows with a missing value rated
+        at the missing row`. With 5 unknown levels shown, they are the first 5 met.
+    """
+    from rating_tables.rate import UNKNOWN_SHOWN
+
+    lines = []
+    for c in counts:
+        parts = []
+        if c.fallback_rows:
+            shown = ", ".join(repr(level) for level in c.unknown_levels)
+            first = "first met: " if len(c.unknown_levels) >= UNKNOWN_SHOWN else ""
+            parts.append(
+                f"{_rows(c.fallback_rows)} with a level the table does not list ({first}{shown}) rated at the "
+                f"fallback level {c.fallback_level!r}"
+            )
+        if c.missing_rows:
+            parts.append(f"{_rows(c.missing_rows)} with a missing value rated at the missing row")
+        if parts:
+            lines.append(f"factor {c.factor!r}: " + "; ".join(parts))
+    return lines
 
 
 def simulation_line(result: SimulationResult) -> str:

@@ -17,6 +17,7 @@ import pyarrow.parquet as pq
 import pytest
 
 from rating_tables import (
+    LevelCounts,
     NumericFactor,
     TableError,
     rate,
@@ -191,13 +192,19 @@ def big_books(tmp_path_factory) -> tuple[pd.DataFrame, Path, Path]:
 @pytest.mark.parametrize("source", ["csv", "parquet"])
 @pytest.mark.parametrize("suffix", [".csv", ".parquet"])
 def test_batches_give_the_same_bytes_as_one_piece(big_books, tmp_path, source, suffix):
-    """200,000 rows rated in batches of 65,537 rows equal, byte for byte, the file rated in one piece."""
+    """200,000 rows rated in batches of 65,537 rows equal, byte for byte, the file rated in one piece,
+    and give the same counts (the rows of the unknown region Islands at the fallback North)."""
     book, csv_path, parts = big_books
     src = csv_path if source == "csv" else parts
     one, batched = tmp_path / f"one{suffix}", tmp_path / f"batched{suffix}"
-    cautions = rate_file(example_table(), src, one, "exposure", batch_rows=1_000_000, row_group_rows=50_000)
-    rate_file(example_table(), src, batched, "exposure", batch_rows=65_537, row_group_rows=50_000)
+    result = rate_file(example_table(), src, one, "exposure", batch_rows=1_000_000, row_group_rows=50_000)
+    in_batches = rate_file(example_table(), src, batched, "exposure", batch_rows=65_537, row_group_rows=50_000)
     assert _digest(one) == _digest(batched)
+    assert result == in_batches
+    islands = int((book["region"] == "Islands").sum())
+    assert result.rows == 200_000 and islands > 0
+    assert result.counts == (LevelCounts("region", 0, islands, "North", ("Islands",)),)
+    cautions = result.cautions
     rated = pd.read_csv(one, dtype={"bonus": str}) if suffix == ".csv" else pd.read_parquet(one)
     expected = rate(example_table(), book.assign(region=book["region"].astype(str)), "exposure")
     assert len(rated) == 200_000

@@ -1,7 +1,7 @@
 """Properties of the table format and rater on random tables (hypothesis).
 
-Random valid tables and books rate to the product formula, computed independently here with plain
-Python loops; every valid table survives write and read unchanged; mutated files are refused with
+Random valid tables and books (missing values where a factor has a missing row) rate to the
+product formula, computed independently here with plain Python loops; every valid table survives write and read unchanged; mutated files are refused with
 TableError and never with another exception.
 """
 
@@ -136,10 +136,11 @@ def tables_and_books(draw) -> tuple[RatingTable, pd.DataFrame]:
     for f in table.main_factors:
         if isinstance(f, NumericFactor):
             edges = [x for x in f.lower if math.isfinite(x)] or [0.0]
-            book[f.name] = _values(draw, st.sampled_from(edges) | st.floats(-2e6, 2e6), n)
+            values = st.sampled_from(edges) | st.floats(-2e6, 2e6)
+            book[f.name] = _values(draw, values | st.just(math.nan) if f.missing else values, n)
         else:
             pool = list(f.levels) + ([UNKNOWN] if f.fallback is not None else [])
-            book[f.name] = _values(draw, st.sampled_from(pool), n)
+            book[f.name] = _values(draw, st.sampled_from(pool + ([None, ""] if f.missing else [])), n)
     book["exposure"] = _values(draw, st.floats(0, 10), n)
     return table, pd.DataFrame(book)
 
@@ -158,17 +159,26 @@ def _level(factor: CategoricalFactor, value: str) -> int:
     return factor.levels.index(factor.fallback)
 
 
+def _is_missing(value) -> bool:
+    return value is None or value == "" or (isinstance(value, float) and math.isnan(value))
+
+
 def _pure_by_loops(table: RatingTable, book: pd.DataFrame) -> list[float]:
     out = []
     for r in range(len(book)):
         cells, product = {}, table.base_rate
         for f in table.factors:
-            if isinstance(f, NumericFactor):
+            if not isinstance(f, InteractionFactor) and _is_missing(book[f.name][r]):
+                cells[f.name] = None
+                product *= f.missing.relativity
+            elif isinstance(f, NumericFactor):
                 cells[f.name] = book[f.name][r]
                 product *= f.relativity[_band(f.lower, f.upper, book[f.name][r])]
             elif isinstance(f, CategoricalFactor):
                 cells[f.name] = f.levels[_level(f, book[f.name][r])]
                 product *= f.relativity[_level(f, book[f.name][r])]
+            elif cells[f.of[0]] is None or cells[f.of[1]] is None:
+                continue  # a two-way table gives 1.0 to a row missing on either side
             else:
                 a, b = f.of
                 i = _band(f.a_cells.lower, f.a_cells.upper, cells[a])
