@@ -31,6 +31,8 @@ from premiumlab.book.spec import load_spec, parse_spec
 from premiumlab.book.split import holdout_flags
 from premiumlab.book.validate import frequency_ratio, validate_book
 from premiumlab.models.glm.fit import GlmResult
+from premiumlab.tabulation.banding import Banding
+from premiumlab.tabulation.refit import pooled_refit
 from rating_tables import MISSING_LABEL
 
 from _builders import SPEC_TEXT, run_cli, small_book
@@ -354,13 +356,44 @@ def test_rating_the_book_with_missing_values_and_a_new_level(gapped_run, gapped_
 
 
 def test_tabulate_distils_the_missing_band_apart(gapped_run, gapped_tables):
-    """The distilled table's missing rows come from the refit of their own cells: the promised bonus
-    keeps its order over its levels while its missing row stands outside it."""
-    base, tables = gapped_run[0], gapped_tables
+    """The distilled table: the promised bonus keeps its order over its levels while its missing row
+    stands outside it; the bands counted in fidelity.json include each missing band; the holdout
+    (with its new level) is rated for the fidelity figures."""
+    base, result = gapped_run[0], gapped_tables["gbm"]
     table = rating_tables.load(base / "table_gbm")
-    bonus = next(f for f in table.factors if f.name == "bonus")
-    assert (np.diff(bonus.relativity) >= 0).all()
-    assert tables["gbm"]["fidelity"]["policies"] > 0
+    factors = {f.name: f for f in table.factors}
+    assert (np.diff(factors["bonus"].relativity) >= 0).all()
+    assert result.distillation["bands"]["age"] == len(factors["age"].relativity) + 1
+    assert all(MISSING_LABEL not in m["bands"] for m in result.distillation["merges"])
+    assert result.fidelity["rows"] == "holdout" and result.fidelity["policies"] == gapped_run[2].sum()
+
+
+def test_missing_band_is_its_own_cell_outside_the_promise_and_the_two_way_table():
+    """Pooled refit on an exactly multiplicative response (invented): x promised increasing over its
+    bands (1, 1.2, 1.5) with its missing band at 0.7, below every band; z (1, 1.3); a two-way table
+    (x, z). No merge is made (the missing band is no reversal), the relativities come back to 1e-6
+    and the two-way table is 1 in the missing row."""
+    rng = np.random.default_rng(1)
+    n = 3000
+    x = rng.uniform(0.0, 3.0, n)
+    x[::7] = np.nan
+    z = rng.integers(0, 2, n).astype(float)
+    exposure = rng.uniform(0.2, 1.0, n)
+    band = np.where(np.isnan(x), 3, np.searchsorted([1.0, 2.0], np.nan_to_num(x), side="right"))
+    true_x = np.array([1.0, 1.2, 1.5, 0.7])
+    response = 100.0 * true_x[band] * np.where(z > 0.5, 1.3, 1.0)
+    bandings = {
+        "x": Banding("x", "increasing", edges=np.array([1.0, 2.0]), missing=True),
+        "z": Banding("z", "none", edges=np.array([0.5])),
+    }
+    pooled = pooled_refit(bandings, {"x": x, "z": z}, [("x", "z")], exposure, response, 3)
+    assert pooled.merges == []
+    base = pooled.fit.bases["x"]
+    assert base != 3
+    np.testing.assert_allclose(pooled.fit.relativities["x"], true_x / true_x[base], rtol=1e-6)
+    assert pooled.fit.two_way[("x", "z")].shape == (4, 2)
+    np.testing.assert_array_equal(pooled.fit.two_way[("x", "z")][3], [1.0, 1.0])
+    assert pooled.bandings["x"].labels()[-1] == MISSING_LABEL
 
 
 def test_compare_leaves_the_new_level_out_of_its_actual_against_expected(gapped_run):
