@@ -35,7 +35,7 @@ from premiumlab.tabulation.banding import Banding
 from premiumlab.tabulation.refit import pooled_refit
 from rating_tables import MISSING_LABEL
 
-from _builders import SPEC_TEXT, run_cli, small_book
+from _builders import SPEC_TEXT, run_cli, small_book, write_book
 
 #: The small runs here: two folds, one setting, few rounds, one thread.
 TINY_GBM = "\n[gbm]\nfolds = 2\nmax_settings = 1\nmax_rounds = 60\nthreads = 1\n"
@@ -52,14 +52,6 @@ def gapped_book(n: int = 3000, seed: int = 5) -> pd.DataFrame:
     book.loc[3::9, "region"] = None
     book.loc[1::25, "bonus"] = None
     return book
-
-
-def write(book: pd.DataFrame, path: Path) -> Path:
-    if path.suffix == ".csv":
-        book.to_csv(path, index=False)
-    else:
-        book.to_parquet(path, index=False)
-    return path
 
 
 def spec_with(tmp_path: Path, extra: str = "", text: str = SPEC_TEXT) -> Path:
@@ -103,7 +95,7 @@ def test_missing_values_are_read_as_data(tmp_path, suffix):
     levels end with the missing label, which the rows without a value take; the base is a level."""
     frame = gapped_book(400)
     spec = load_spec(spec_with(tmp_path))
-    book = load_book(write(frame, tmp_path / f"book{suffix}"), spec)
+    book = load_book(write_book(frame, tmp_path / f"book{suffix}"), spec)
     assert np.isnan(book.frame["age"]).sum() == frame["age"].isna().sum() == 40
     assert (book.frame["region"] == "").sum() == frame["region"].isna().sum() == 45
     assert (book.frame["bonus"] == "").sum() == 16
@@ -121,7 +113,7 @@ def test_missing_is_never_the_base_even_with_the_most_exposure(tmp_path):
     frame = small_book(400)
     frame.loc[frame.index[:300], "region"] = None
     spec = load_spec(spec_with(tmp_path))
-    book = load_book(write(frame, tmp_path / "book.csv"), spec)
+    book = load_book(write_book(frame, tmp_path / "book.csv"), spec)
     levels = factor_levels(book, spec, np.ones(book.n_rows, dtype=bool))
     assert levels["region"].labels[-1] == MISSING_LABEL and levels["region"].base != MISSING_LABEL
 
@@ -134,7 +126,7 @@ def test_refuse_makes_a_missing_value_an_error_naming_column_and_rows(tmp_path, 
             '[factors.region]\ntype = "categorical"', '[factors.region]\ntype = "categorical"\nmissing = "refuse"'
         ).replace("bands = [25, 40, 60]", 'bands = [25, 40, 60]\nmissing = "refuse"'),
     )
-    path = write(gapped_book(400), tmp_path / f"book{suffix}")
+    path = write_book(gapped_book(400), tmp_path / f"book{suffix}")
     _, _, findings = scan_book(path, load_spec(spec))
     errors = [str(f) for f in findings if f.level == "error"]
     assert any(
@@ -156,9 +148,9 @@ def test_quantile_bands_are_cut_on_the_values_present(tmp_path):
     frame = gapped_book(2000)
     text = SPEC_TEXT.replace("bands = [25, 40, 60]", "n_bands = 4")
     spec = spec_with(tmp_path, text=text)
-    gapped = validate_book(write(frame, tmp_path / "book.csv"), spec)
+    gapped = validate_book(write_book(frame, tmp_path / "book.csv"), spec)
     present = frame[frame["age"].notna()]
-    whole = validate_book(write(present, tmp_path / "present.csv"), spec)
+    whole = validate_book(write_book(present, tmp_path / "present.csv"), spec)
     age = gapped.profile["age"]
     assert list(age.index[:-1]) == list(whole.profile["age"].index)
     assert age.index[-1] == MISSING_LABEL
@@ -191,7 +183,7 @@ def test_validate_frequency_ratio_matches_a_poisson_glm_with_an_indicator(tmp_pa
     (scipy.stats.binom, the defining property of the Clopper-Pearson interval); the warning names the
     factor."""
     frame = _riskier_when_missing()
-    report = validate_book(write(frame, tmp_path / "book.parquet"), spec_with(tmp_path))
+    report = validate_book(write_book(frame, tmp_path / "book.parquet"), spec_with(tmp_path))
     row = report.missing.loc["region"]
     lost = frame["region"].isna().to_numpy()
     assert row.rows_missing == lost.sum() == 1200 and row.share_of_rows == pytest.approx(0.2, rel=1e-12)
@@ -244,7 +236,7 @@ def test_frequency_ratio_at_the_edges():
 
 def test_validate_text_shows_the_missing_values(tmp_path):
     frame = _riskier_when_missing(1500)
-    path = write(frame, tmp_path / "book.csv")
+    path = write_book(frame, tmp_path / "book.csv")
     result = run_cli("validate", str(path), "--spec", str(spec_with(tmp_path)))
     assert result.returncode == 0, result.stderr
     assert "(missing)" in result.stdout
@@ -262,7 +254,7 @@ def gapped_run(tmp_path_factory):
     frame = gapped_book()
     held = holdout_flags(frame["policy_id"].to_numpy(object), seed=7, holdout=0.2)
     frame.loc[np.flatnonzero(held)[:4], "region"] = NEW_REGION
-    book = write(frame, base / "book.csv")
+    book = write_book(frame, base / "book.csv")
     spec = spec_with(base, TINY_GBM)
     fitted = run_cli("fit", str(book), "--spec", str(spec), "--out", str(base / "run"))
     assert fitted.returncode == 0, fitted.stderr
