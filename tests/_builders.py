@@ -62,6 +62,15 @@ def small_book(n: int = 400, seed: int = 3) -> pd.DataFrame:
     )
 
 
+def write_book(frame: pd.DataFrame, path: Path) -> Path:
+    """Write a book as CSV or Parquet, by the suffix of `path`; returns `path`."""
+    if path.suffix == ".csv":
+        frame.to_csv(path, index=False)
+    else:
+        frame.to_parquet(path, index=False)
+    return path
+
+
 def run_cli(*args: str, cwd: Path | None = None, timeout: float = 600) -> subprocess.CompletedProcess:
     """Run `premiumlab ARGS` in a subprocess and capture its output."""
     env = dict(os.environ, PYTHONHASHSEED="0")

@@ -21,7 +21,7 @@ from premiumlab.book.spec import load_spec
 from premiumlab.book.validate import validate_book
 from rating_tables import TableError, rate_file
 
-from _builders import SPEC_TEXT, example_table, small_book
+from _builders import SPEC_TEXT, example_table, small_book, write_book
 
 BOOK = small_book(90)
 SPLITS = ((0, 40), (40, 70), (70, 90))
@@ -59,15 +59,8 @@ def _parts(folder: Path, suffixes: tuple[str, ...]) -> Path:
     """The book written as a folder of parts, part k with suffix suffixes[k]."""
     folder.mkdir()
     for k, ((start, stop), suffix) in enumerate(zip(SPLITS, suffixes)):
-        _write(BOOK.iloc[start:stop], folder / f"part-{k}{suffix}")
+        write_book(BOOK.iloc[start:stop], folder / f"part-{k}{suffix}")
     return folder
-
-
-def _write(frame: pd.DataFrame, path: Path) -> None:
-    if path.suffix == ".csv":
-        frame.to_csv(path, index=False)
-    else:
-        frame.to_parquet(path, index=False)
 
 
 @pytest.fixture(params=list(READERS))
@@ -86,7 +79,7 @@ def whole(tmp_path, reader) -> object:
 
 
 def test_a_pq_file_is_a_parquet_book(tmp_path, reader, whole):
-    _write(BOOK, tmp_path / "book.pq")
+    write_book(BOOK, tmp_path / "book.pq")
     assert reader(tmp_path / "book.pq") == whole
 
 
@@ -153,7 +146,7 @@ def test_a_part_without_a_needed_column_is_refused_by_name(tmp_path, reader, suf
     the part's columns differ from the first part's (after the book folder's name)."""
     folder = _parts(tmp_path / "book", (suffix,) * 3)
     part = folder / f"part-1{suffix}"
-    _write(BOOK.iloc[40:70].drop(columns="bonus"), part)
+    write_book(BOOK.iloc[40:70].drop(columns="bonus"), part)
     with pytest.raises(
         ERRORS,
         match=rf"{re.escape(str(part))}: (missing column 'bonus'|its columns or types "

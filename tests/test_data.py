@@ -48,7 +48,7 @@ EDITS = [
     (_set("claim_count", [2], ""), "missing or non-finite claim count (rows 2)"),
     (_set("claim_amount", [11], -5.0), "negative claim amount (rows 11)"),
     (_set("age", [12], "old"), "column 'age': 1 row with a non-numeric value in a numeric factor (rows 12)"),
-    (_set("region", [13], ""), "column 'region': 1 row with a missing value (rows 13)"),
+    (_set("region", [13], "(missing)"), "column 'region': 1 row with the level '(missing)'"),
     (_set("bonus", [14], "09"), "not in the spec's levels"),
     (lambda df: df.assign(region="Northmoor"), "factor 'region' has one level only"),
     (lambda df: df.assign(claim_count=0, claim_amount=0.0), "the book has no claims"),

@@ -12,6 +12,7 @@ import numpy as np
 import pandas as pd
 
 from premiumlab.book.spec import Factor, Spec
+from rating_tables import MISSING_LABEL
 
 #: Rows whose exposure exceeds this many terms are reported (exposure is usually at most one term).
 TERM = 1.0
@@ -260,15 +261,33 @@ def check_chunk(chunk: pd.DataFrame, offset: int, spec: Spec, out: FindingCollec
 
 
 def _check_factor(values: pd.Series, f: Factor, offset: int, out: FindingCollector) -> np.ndarray:
+    """A factor's values typed (numeric: float64, NaN where missing; categorical: text, "" where
+    missing) and its findings: a missing value is an error only when the spec refuses it."""
+    refuse = f.missing == "refuse"
     if f.type == "numeric":
         num, bad = to_number(values)
         out.add("error", f.name, "with a non-numeric value in a numeric factor", bad, offset)
-        out.add("error", f.name, "with a missing value", np.isnan(num) & ~bad, offset)
+        if refuse:
+            out.add(
+                "error",
+                f.name,
+                "with a missing value (the spec refuses them: missing = 'refuse')",
+                np.isnan(num) & ~bad,
+                offset,
+            )
         out.add("error", f.name, "with an infinite value", np.isinf(num), offset)
         return num
     text = as_text(values)
-    out.add("error", f.name, "with a missing value", text == "", offset)
+    if refuse:
+        out.add("error", f.name, "with a missing value (the spec refuses them: missing = 'refuse')", text == "", offset)
+    out.add(
+        "error",
+        f.name,
+        f"with the level '{MISSING_LABEL}', the label premiumlab gives missing values; rename it",
+        text == MISSING_LABEL,
+        offset,
+    )
     if f.levels is not None:
-        unknown = ~pd.Series(text).isin(f.levels).to_numpy() & (text != "")
+        unknown = ~pd.Series(text).isin(f.levels).to_numpy() & (text != "") & (text != MISSING_LABEL)
         out.add("error", f.name, f"with a level not in the spec's levels ({', '.join(f.levels)})", unknown, offset)
     return text

@@ -20,13 +20,14 @@ import pandas as pd
 from premiumlab._core.cluster import TaskRunner
 from premiumlab._core.errors import InputError
 from premiumlab._core.progress import progress_bar
-from premiumlab.book.bands import assign_bands, banded
+from premiumlab.book.bands import assign_bands
 from premiumlab.book.levels import cut_levels
 from premiumlab.book.quantiles import book_quantile_edges
 from premiumlab.book.reading import CHUNK_ROWS, book_parts, book_sha256, iter_book, read_columns, unreadable_parquet
 from premiumlab.book.rows import Book, Finding, FindingCollector, TypedChunk, as_text, check_chunk, to_number
 from premiumlab.book.spec import Factor, Spec
 from premiumlab.book.split import holdout_flags
+from rating_tables import MISSING_LABEL
 
 #: A level or band holding less than this share of the exposure is reported as thin.
 THIN_LEVEL_SHARE = 0.005
@@ -130,7 +131,7 @@ class _Tally:
             if f.type == "categorical":
                 tally.levels[f.name] = LevelSums(uniq, _sums_by(inv, weights, len(uniq)))
             elif f.bands is not None:
-                tally.levels[f.name].sums = _sums_by(assign_bands(values, f.bands), weights, len(f.bands) + 1)
+                tally.levels[f.name].sums = _band_sums(values, f.bands, weights)
             if f.type == "numeric":
                 finite = uniq[np.isfinite(uniq)]
                 if finite.size:
@@ -181,12 +182,21 @@ def _key_hashes(policy: np.ndarray, period: np.ndarray) -> np.ndarray:
 
 
 def _no_sums(f: Factor) -> LevelSums:
-    """Empty sums for factor `f`: no values, or one zero row per band for a numeric factor with `bands`."""
+    """Empty sums for factor `f`: no values, or for a numeric factor with `bands` one zero row per band
+    (keyed by its lower edge) and one for the missing values (keyed by NaN)."""
     if f.type == "numeric" and f.bands is not None:
         return LevelSums(
-            np.concatenate([[-np.inf], np.asarray(f.bands, dtype=float)]), np.zeros((len(f.bands) + 1, len(SUMS)))
+            np.concatenate([[-np.inf], np.asarray(f.bands, dtype=float), [np.nan]]),
+            np.zeros((len(f.bands) + 2, len(SUMS))),
         )
     return LevelSums(np.array([], dtype=float if f.type == "numeric" else object), np.zeros((0, len(SUMS))))
+
+
+def _band_sums(values: np.ndarray, edges: tuple[float, ...], weights: np.ndarray) -> np.ndarray:
+    """The SUMS per band of numeric `values` (`assign_bands`), then of the missing (NaN) values."""
+    missing = np.isnan(values)
+    codes = np.where(missing, len(edges) + 1, assign_bands(np.where(missing, 0.0, values), edges))
+    return _sums_by(codes, weights, len(edges) + 2)
 
 
 def _chunk_pairs(ua: np.ndarray, ka: np.ndarray, ub: np.ndarray, kb: np.ndarray) -> pd.DataFrame | None:
@@ -238,8 +248,10 @@ def _book_checks(tally: _Tally, path: Path, out: FindingCollector) -> None:
         if f.type == "numeric":
             low, high = tally.spread[f.name]
             single = format(low, "g") if low == high else None
+            if low > high:
+                out.note("error", f.name, f"factor '{f.name}': every value is missing; it cannot be rated")
         else:
-            single = str(lv.values[0]) if k == 1 else None
+            single = _shown(lv.values[0]) if k == 1 else None
         if single is not None:
             out.note("error", f.name, f"factor '{f.name}' has one level only ({single}); it cannot be rated")
         if f.type == "categorical":
@@ -250,7 +262,7 @@ def _book_checks(tally: _Tally, path: Path, out: FindingCollector) -> None:
             total = lv.sums[:, 1].sum()
             if total > 0:
                 share = lv.sums[:, 1] / total
-                thin = [str(u) for u, s in zip(lv.values, share) if s < THIN_LEVEL_SHARE]
+                thin = [_shown(u) for u, s in zip(lv.values, share) if s < THIN_LEVEL_SHARE]
                 if thin:
                     out.note(
                         "warning",
@@ -261,6 +273,11 @@ def _book_checks(tally: _Tally, path: Path, out: FindingCollector) -> None:
     for (a, b), pairs in tally.pairs.items():  # still one to one: as many levels of a as of b as pairs
         if pairs is not None and len(pairs) >= 2:
             out.note("error", b, f"factors '{a}' and '{b}' are identical up to relabelling; keep one of them")
+
+
+def _shown(level: str) -> str:
+    """A categorical level as messages name it: the missing label for a missing value ("")."""
+    return MISSING_LABEL if level == "" else str(level)
 
 
 def _concat(parts: list[TypedChunk]) -> TypedChunk:
@@ -487,7 +504,9 @@ def with_quantile_bands(
 
     def values_and_exposure(name: str) -> Iterator[tuple[np.ndarray, np.ndarray]]:
         for _, chunk in iter_book(path, [name, c.exposure], chunk_rows):
-            yield to_number(chunk[name])[0], _usable_exposure(to_number(chunk[c.exposure])[0])
+            values, exposure = to_number(chunk[name])[0], _usable_exposure(to_number(chunk[c.exposure])[0])
+            present = ~np.isnan(values)
+            yield values[present], exposure[present]
 
     edges: dict[str, tuple[float, ...]] = {}
     banded_factors = {}
@@ -502,9 +521,7 @@ def with_quantile_bands(
         amount = to_number(chunk[c.claim_amount])[0] if c.claim_amount else None
         weights = _row_weights(to_number(chunk[c.exposure])[0], to_number(chunk[c.claim_count])[0], amount)
         for name, factor_edges in edges.items():
-            sums[name].sums += _sums_by(
-                assign_bands(to_number(chunk[name])[0], factor_edges), weights, len(factor_edges) + 1
-            )
+            sums[name].sums += _band_sums(to_number(chunk[name])[0], factor_edges, weights)
     levels.update(sums)
     return banded, replace(summary, levels=levels)
 
@@ -537,12 +554,9 @@ def profile(summary: BookSummary, spec: Spec) -> dict[str, pd.DataFrame]:
     out = {"(overall)": _profile_table(summary.totals[None, :], pd.Index(["all"]), has_amount)}
     for f in spec.factors:
         lv = summary.levels[f.name]
-        cut = cut_levels(f, lv.values, lv.sums[:, 1], spec.source)
-        if cut.edges is not None:
-            codes = banded(lv.values, cut.edges).codes
-        else:
-            codes = pd.Categorical(lv.values, categories=list(cut.labels)).codes
-        sums = _sums_by(codes, lv.sums, len(cut.labels))
+        seen = lv.sums[:, 0] > 0
+        cut = cut_levels(f, lv.values[seen], lv.sums[seen, 1], spec.source)
+        sums = _sums_by(cut.codes(lv.values[seen]), lv.sums[seen], len(cut.labels))
         index = pd.CategoricalIndex(cut.labels, categories=cut.labels, ordered=True, name=f.name)
         out[f.name] = _profile_table(sums, index, has_amount)
     return out

@@ -17,11 +17,13 @@ from typing import Any
 from premiumlab._core.defaults import SEED
 from premiumlab._core.toml_schema import TomlTable, read_toml
 from premiumlab.book.gbm_options import MONOTONE_METHODS, GbmOptions
-from rating_tables import Loadings
+from rating_tables import MISSING_LABEL, Loadings
 from rating_tables.monotone import Monotone
 
 MONOTONE = tuple(m.value for m in Monotone)
 FACTOR_TYPES = ("numeric", "categorical")
+#: What a missing value of a factor is: its own level or band ("level"), or an error ("refuse").
+MISSING_RULES = ("level", "refuse")
 
 #: Factor names refused by default: characteristics that rating law in many places forbids.
 #: A jurisdiction sets its own list in `[compliance] prohibited`.
@@ -63,7 +65,9 @@ class Columns:
 @dataclass(frozen=True)
 class Factor:
     """A rating factor: `numeric` (banded by `bands` edges, or by `n_bands` exposure quantiles) or
-    `categorical` (levels read as strings; `levels` gives an order, which a monotone promise needs)."""
+    `categorical` (levels read as strings; `levels` gives an order, which a monotone promise needs).
+    `missing`: "level" makes a missing value its own level or band (`MISSING_LABEL`), "refuse" an
+    error."""
 
     name: str
     type: str
@@ -73,6 +77,7 @@ class Factor:
     levels: tuple[str, ...] | None = None
     base: str | None = None
     fallback: str | None = None
+    missing: str = "level"
 
     @property
     def direction(self) -> int:
@@ -205,7 +210,7 @@ class Spec:
 # parsing
 
 SECTIONS = ("columns", "factors", "split", "glm", "gbm", "table", "loadings", "compliance", "experience")
-FACTOR_KEYS = ("type", "monotone", "bands", "n_bands", "levels", "base", "fallback")
+FACTOR_KEYS = ("type", "monotone", "bands", "n_bands", "levels", "base", "fallback", "missing")
 
 #: How one key of a section is read: (its table, the key) -> the value.
 Read = Callable[[TomlTable, str], Any]
@@ -266,9 +271,11 @@ def _parse_factor(factors: TomlTable, name: str) -> Factor:
         if t.has("bands") or t.has("n_bands"):
             raise t.error("bands", "applies only to numeric factors")
         if t.has("levels"):
-            levels = t.strings("levels", what="a list of level names", distinct="level")
+            levels = t.strings("levels", what="a list of level names", nonempty=True, distinct="level")
             if len(levels) < 2:
                 raise t.error("levels", "needs at least two levels")
+            if MISSING_LABEL in levels:
+                raise t.error("levels", f"lists '{MISSING_LABEL}', the label of missing values; rename that level")
         if monotone != Monotone.NONE and levels is None:
             raise t.error(
                 "monotone",
@@ -278,9 +285,21 @@ def _parse_factor(factors: TomlTable, name: str) -> Factor:
     named = {}
     for key in ("base", "fallback"):
         named[key] = None if t.value(key, None) is None else t.string(key)
+        if named[key] == MISSING_LABEL:
+            raise t.error(key, f"is '{MISSING_LABEL}', the missing values' level: choose a level with a value")
         if named[key] is not None and levels is not None and named[key] not in levels:
             raise t.error(key, f"'{named[key]}' is not one of its levels")
-    return Factor(name=name, type=ftype, monotone=monotone, bands=bands, n_bands=n_bands, levels=levels, **named)
+    missing = t.string("missing", "level", choices=MISSING_RULES)
+    return Factor(
+        name=name,
+        type=ftype,
+        monotone=monotone,
+        bands=bands,
+        n_bands=n_bands,
+        levels=levels,
+        missing=missing,
+        **named,
+    )
 
 
 def _power(t: TomlTable, key: str, word: str) -> float | str:

@@ -1,29 +1,139 @@
-"""`validate`: every finding in a book, and its profile per level or band."""
+"""`validate`: every finding in a book, its profile per level or band, and its missing values."""
 
 from __future__ import annotations
 
 from dataclasses import dataclass
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
+from scipy import stats
 
 from premiumlab._core.cautions import VALIDATION
 from premiumlab._core.cluster import parse_cluster, tasks_on
 from premiumlab._core.jsonio import plain
+from premiumlab.book.levels import is_missing
 from premiumlab.book.reading import read_columns
 from premiumlab.book.rows import Finding
-from premiumlab.book.scan import parquet_slices, profile, scan_book, with_quantile_bands
+from premiumlab.book.scan import BookSummary, parquet_slices, profile, scan_book, with_quantile_bands
 from premiumlab.book.spec import Spec, load_spec
+from rating_tables import MISSING_LABEL
+
+#: Coverage of the interval of the frequency ratio of rows with a missing value to the others.
+RATIO_COVERAGE = 0.95
+
+
+def frequency_ratio(
+    claims_missing: float, exposure_missing: float, claims_others: float, exposure_others: float
+) -> tuple[float, float, float]:
+    """The claim frequency of rows with a missing value over that of the others, with its exact
+    conditional 95 % interval (Poisson).
+
+    With N1 claims on exposure E1 (missing) and N0 on E0 (the others), independent Poisson with
+    rates l1 and l0, the ratio is r = (N1 / E1) / (N0 / E0). Given N = N1 + N0, N1 is binomial
+    (N, p) with p = r E1 / (r E1 + E0); the Clopper-Pearson interval (p_lo, p_hi) of p (central,
+    each tail 2.5 %) gives the interval r = p / (1 - p) x E0 / E1 at its ends. It holds its
+    coverage at any claim count (0 claims in a group included), at the price of being wider than
+    the Wald interval exp(log r +- 1.96 sqrt(1 / N1 + 1 / N0)) of a Poisson GLM with an indicator,
+    which it approaches when both counts are large.
+
+    Parameters
+    ----------
+    claims_missing, exposure_missing : float
+        Claims (whole numbers >= 0) and exposure (exposure units, > 0) of the rows with the value
+        missing.
+    claims_others, exposure_others : float
+        The same for the rows with a value.
+
+    Returns
+    -------
+    tuple of (float, float, float)
+        The ratio, the lower and the upper end of its interval; NaN for all three without claims
+        or without exposure in either group; the upper end is inf when every claim is in the
+        missing group, the ratio and lower end 0 when none is.
+    """
+    n1, n0 = round(float(claims_missing)), round(float(claims_others))
+    if n1 + n0 == 0 or not (exposure_missing > 0 and exposure_others > 0):
+        return np.nan, np.nan, np.nan
+    scale = exposure_others / exposure_missing
+    ratio = np.inf if n0 == 0 else n1 / n0 * scale
+    low, high = stats.binomtest(n1, n1 + n0).proportion_ci(RATIO_COVERAGE, method="exact")
+    upper = np.inf if high >= 1.0 else high / (1.0 - high) * scale
+    return float(ratio), float(low / (1.0 - low) * scale), float(upper)
+
+
+def missing_experience(summary: BookSummary, spec: Spec) -> pd.DataFrame:
+    """Per factor: the rows and exposure with the value missing, and whether their claim frequency
+    differs from that of the other rows (`frequency_ratio`).
+
+    Parameters
+    ----------
+    summary : BookSummary
+        The book's sums per distinct value or band, the missing values apart (`scan_book`, then
+        `with_quantile_bands`, so that every numeric factor has its sums).
+    spec : Spec
+        The pricing spec with every numeric factor banded (`with_quantile_bands`).
+
+    Returns
+    -------
+    pandas.DataFrame
+        Indexed by factor, in spec order: rows_missing, share_of_rows, exposure_missing (exposure
+        units), share_of_exposure, claims_missing, frequency_missing and frequency_others (claims
+        per exposure unit), frequency_ratio with ratio_lower and ratio_upper (its 95 % interval;
+        NaN without missing values) and differs (the interval excludes 1).
+    """
+    records = []
+    for f in spec.factors:
+        lv = summary.levels[f.name]
+        missing = is_missing(lv.values)
+        lost, kept = lv.sums[missing].sum(axis=0), lv.sums[~missing].sum(axis=0)
+        rows, exposure, claims = lost[0], lost[1], lost[2]
+        ratio, low, high = frequency_ratio(claims, exposure, kept[2], kept[1]) if rows else (np.nan,) * 3
+        records.append(
+            {
+                "factor": f.name,
+                "rows_missing": int(rows),
+                "share_of_rows": rows / summary.totals[0],
+                "exposure_missing": exposure,
+                "share_of_exposure": exposure / summary.totals[1] if summary.totals[1] > 0 else np.nan,
+                "claims_missing": claims,
+                "frequency_missing": claims / exposure if exposure > 0 else np.nan,
+                "frequency_others": kept[2] / kept[1] if kept[1] > 0 else np.nan,
+                "frequency_ratio": ratio,
+                "ratio_lower": low,
+                "ratio_upper": high,
+                "differs": bool(low > 1.0 or high < 1.0),
+            }
+        )
+    return pd.DataFrame.from_records(records, index="factor")
+
+
+def _missing_findings(table: pd.DataFrame, source: str) -> list[Finding]:
+    """A warning for each factor whose rows with a missing value claim differently from the others."""
+    return [
+        Finding(
+            "warning",
+            name,
+            f"{source}: factor '{name}': the {int(row.rows_missing)} rows with a missing value "
+            f"({row.share_of_exposure:.1%} of exposure, priced as '{MISSING_LABEL}') claim "
+            f"{row.frequency_ratio:.3g} times as often as the others "
+            f"({RATIO_COVERAGE:.0%} interval {row.ratio_lower:.3g} to {row.ratio_upper:.3g})",
+        )
+        for name, row in table.iterrows()
+        if row.differs
+    ]
 
 
 @dataclass(frozen=True)
 class ValidationReport:
-    """Findings (errors and warnings) and, when the book is usable, its profile."""
+    """Findings (errors and warnings) and, when the book is usable, its profile and its missing
+    values per factor (`missing_experience`)."""
 
     path: str
     rows: int
     findings: list[Finding]
     profile: dict[str, pd.DataFrame] | None
+    missing: pd.DataFrame | None = None
 
     @property
     def errors(self) -> list[Finding]:
@@ -50,6 +160,7 @@ class ValidationReport:
                 "rows": self.rows,
                 "findings": self.findings,
                 "profile": profile,
+                "missing": None if self.missing is None else self.missing.reset_index().to_dict(orient="records"),
                 "cautions": self.cautions,
             }
         )
@@ -73,8 +184,9 @@ def validate_book(book_path: str | Path, spec_path: str | Path, cluster: str | N
     Returns
     -------
     ValidationReport
-        Every finding; the rows read; the profile (`scan.profile`) when no finding is an error,
-        else None. A missing column gives one error finding per column, and no rows.
+        Every finding (with a warning for each factor whose missing values claim differently,
+        `missing_experience`); the rows read; the profile (`scan.profile`) and the missing values
+        per factor when no finding is an error, else None. A missing column gives one error finding per column, and no rows.
 
     Raises
     ------
@@ -99,4 +211,6 @@ def validate_book(book_path: str | Path, spec_path: str | Path, cluster: str | N
     if any(f.level == "error" for f in findings):
         return ValidationReport(str(book_path), summary.rows, findings, None)
     banded, summary = with_quantile_bands(book_path, spec, summary)
-    return ValidationReport(str(book_path), summary.rows, findings, profile(summary, banded))
+    missing = missing_experience(summary, banded)
+    findings = findings + _missing_findings(missing, str(book_path))
+    return ValidationReport(str(book_path), summary.rows, findings, profile(summary, banded), missing)

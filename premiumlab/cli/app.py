@@ -187,6 +187,10 @@ def fit(
         force=force,
         progress=_Echo(err=True) if sys.stderr.isatty() else None,
     )
+    from premiumlab.cli.format import diagnostic_lines
+
+    for line in diagnostic_lines(run.manifest.get("diagnostics", [])):
+        typer.echo(line, err=True)
     typer.echo(f"wrote {run.path}")
 
 

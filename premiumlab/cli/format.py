@@ -119,8 +119,61 @@ def validation_text(report: ValidationReport) -> str:
         ):
             for name, table in report.profile.items():
                 lines += ["", f"profile: {name}", table.to_string()]
+    if report.missing is not None:
+        lines += ["", *missing_value_lines(report.missing)]
     lines += ["", *caution_lines(report.cautions)]
     return "\n".join(lines)
+
+
+def missing_value_lines(missing: Any) -> list[str]:
+    """`validate`: per factor with missing values, their share of rows and exposure and the claim
+    frequency ratio of those rows to the others with its 95 % interval, flagged when it excludes 1.
+
+    Parameters
+    ----------
+    missing : pandas.DataFrame
+        `premiumlab.book.validate.missing_experience`: one row per factor.
+
+    Returns
+    -------
+    list[str]
+        A header and one line per factor with missing values, or one line saying there are none.
+    """
+    lost = missing[missing["rows_missing"] > 0]
+    if lost.empty:
+        return ["missing values: none"]
+    lines = [
+        "missing values (claim frequency of the rows with the value missing over the others, "
+        "exact conditional Poisson 95 % interval):",
+        f"  {'factor':<20} {'rows':>8} {'% rows':>7} {'% expo':>7} {'ratio':>7} {'95 % interval':>17}",
+    ]
+    for name, row in lost.iterrows():
+        flag = "  differs" if row["differs"] else ""
+        lines.append(
+            f"  {name:<20} {int(row['rows_missing']):>8} {row['share_of_rows']:>7.2%} "
+            f"{row['share_of_exposure']:>7.2%} {row['frequency_ratio']:>7.3g} "
+            f"{'[' + format(row['ratio_lower'], '.3g') + ', ' + format(row['ratio_upper'], '.3g') + ']':>17}{flag}"
+        )
+    return lines
+
+
+def diagnostic_lines(diagnostics: Iterable[dict[str, Any]]) -> list[str]:
+    """One `warning: ...` line per diagnostic (`premiumlab._core.diagnostics.Diagnostic`), e.g. the
+    `diagnostics` of run.json that `fit` prints on stderr.
+
+    Parameters
+    ----------
+    diagnostics : iterable of dict
+        Diagnostics as `Diagnostic.to_dict` writes them.
+
+    Returns
+    -------
+    list[str]
+        The lines, in the order given: kind, then model, factor, level and message.
+    """
+    from premiumlab._core.diagnostics import Diagnostic
+
+    return [f"warning: {d['kind']}: {Diagnostic.from_dict(d)}" for d in diagnostics]
 
 
 def comparison_lines(result: Comparison) -> list[str]:

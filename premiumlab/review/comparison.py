@@ -128,7 +128,8 @@ def _actual_vs_expected(run, hold: pd.DataFrame, result: dict, fig_dir: Path, av
     _mask, actual, weight, _ = target_view(hold, "pure_premium")
     cols = [c for c in ("glm_pure_premium", "gbm_pure_premium") if c in hold]
     for factor in run.levels:
-        tables = {c: ave(actual, hold[c].to_numpy(float), weight, cats[factor]) for c in cols}
+        seen = cats[factor].notna().to_numpy()  # a level met only outside the training rows has no label
+        tables = {c: ave(actual[seen], hold[c].to_numpy(float)[seen], weight[seen], cats[factor][seen]) for c in cols}
         result["actual_vs_expected"][factor] = {
             c: t.astype({"level": str}).to_dict(orient="list") for c, t in tables.items()
         }

@@ -21,11 +21,12 @@ from premiumlab._core.errors import InputError
 from premiumlab._core.jsonio import write_json
 from premiumlab._core.outputs import atomic_output, check_target
 from premiumlab._core.progress import Progress
-from premiumlab.book.levels import categorise, factor_levels
+from premiumlab.book.levels import categorise, factor_levels, unseen_at_base
 from premiumlab.book.scan import load_book
 from premiumlab.book.spec import Spec, load_spec
 from premiumlab.experience.adjustments import latest_period_holdout, read_text_column
 from premiumlab.experience.cautions import cautions_for
+from premiumlab.runs.book_diagnostics import book_diagnostics
 from premiumlab.runs.experience_step import add_adjusted_columns, adjust_book, adjusted_book, fitted_basis
 from premiumlab.runs.glm_step import fit_glms, period_control
 from premiumlab.runs.rundir import RunDir
@@ -141,7 +142,8 @@ def _fit_run(
     if train.sum() == 0:
         raise InputError(f"{book_path}: every row fell in the holdout; lower split.holdout")
     levels = factor_levels(book, spec, train)
-    cats = categorise(book.frame, levels)
+    diagnostics = book_diagnostics(book.frame, levels, train, book.exposure)
+    cats = unseen_at_base(categorise(book.frame, levels), levels)
     has_amount = book.claim_amount is not None
     observed = book
     adjustment = None
@@ -209,6 +211,7 @@ def _fit_run(
                 "models": kinds,
                 **({"gbm_search_ran_on": runner.description} if "gbm" in kinds else {}),
                 "warnings": [str(w) for w in book.warnings],
+                "diagnostics": [d.to_dict() for d in diagnostics],
                 "versions": _versions(),
                 "timings": timings,
                 "cautions": cautions_for(spec),

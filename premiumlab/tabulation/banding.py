@@ -6,6 +6,11 @@ exposure each (`premiumlab.tabulation.segment`). A numeric band starts at its fi
 band edges are the upper grid values of the cells they follow. Unordered categoricals: levels
 ordered by effect, then thin levels merged into their nearest neighbour in that order
 (`merge_thin_levels`).
+
+The missing value, when the training rows hold one, is a band of its own after the others (the
+missing label's band of a categorical factor, a band after the last edge of a numeric one): it takes
+no part in the ordering, the segmentation, the merging of thin levels or a promise, and it is never
+the base band.
 """
 
 from __future__ import annotations
@@ -17,6 +22,7 @@ import numpy as np
 from premiumlab.book.bands import band_labels
 from premiumlab.tabulation.effects import Curve
 from premiumlab.tabulation.segment import isotonic, optimal_segmentation
+from rating_tables import MISSING_LABEL
 from rating_tables.monotone import Monotone
 
 
@@ -28,6 +34,8 @@ class Banding:
     Categorical: `band_of_level[i]` is the band of `levels[i]`; `ordered` bands follow the level
     order (a promise refers to it), unordered bands are numbered in effect order.
     `base_level` is the spec's base level (categorical), whose band gets relativity 1.
+    `missing`: the last band is the missing values' (numeric: after the band above the last edge;
+    categorical: the band of the last level, `MISSING_LABEL`, alone).
     """
 
     name: str
@@ -37,6 +45,7 @@ class Banding:
     band_of_level: np.ndarray | None = None
     ordered: bool = True
     base_level: str | None = None
+    missing: bool = False
 
     @property
     def numeric(self) -> bool:
@@ -44,7 +53,15 @@ class Banding:
 
     @property
     def n_bands(self) -> int:
-        return self.edges.size + 1 if self.edges is not None else int(self.level_bands()[1].max()) + 1
+        """Every band, the missing band included."""
+        if self.edges is not None:
+            return self.edges.size + 1 + int(self.missing)
+        return int(self.level_bands()[1].max()) + 1
+
+    @property
+    def ordinary_bands(self) -> int:
+        """The bands of values present: every band but the missing one, which is the last."""
+        return self.n_bands - int(self.missing)
 
     @property
     def direction(self) -> int:
@@ -58,22 +75,27 @@ class Banding:
         return self.levels, self.band_of_level
 
     def codes(self, values: np.ndarray) -> np.ndarray:
-        """Band of each value: numeric values, or level indices into `levels`."""
+        """Band of each value: numeric values (NaN: the missing band), or level indices into `levels`."""
         if self.edges is not None:
-            return np.searchsorted(self.edges, np.asarray(values, dtype=float), side="right")
+            values = np.asarray(values, dtype=float)
+            missing = np.isnan(values)
+            assert self.missing or not missing.any(), f"'{self.name}': a missing value but no missing band"
+            return np.where(missing, self.n_bands - 1, np.searchsorted(self.edges, values, side="right"))
         return self.level_bands()[1][values]
 
     def merged(self, k: int) -> Banding:
-        """The banding with bands k and k+1 pooled into one."""
+        """The banding with bands k and k+1 pooled into one (neither the missing band)."""
+        assert k + 1 < self.ordinary_bands, "the missing band is never pooled"
         if self.edges is not None:
             return replace(self, edges=np.delete(self.edges, k))
         band = self.level_bands()[1]
         return replace(self, band_of_level=np.where(band > k, band - 1, band))
 
     def labels(self) -> list[str]:
-        """Band labels: `[lower, upper)` or the levels of the band joined by `+`."""
+        """Band labels: `[lower, upper)` or the levels of the band joined by `+`; the missing band's
+        is `MISSING_LABEL`."""
         if self.edges is not None:
-            return band_labels(self.edges)
+            return band_labels(self.edges) + ([MISSING_LABEL] if self.missing else [])
         levels, band = self.level_bands()
         return ["+".join(lv for lv, b in zip(levels, band) if b == k) for k in range(self.n_bands)]
 
@@ -104,11 +126,16 @@ def numeric_banding(curve: Curve, monotone: str, max_bands: int, min_share: floa
     -------
     Banding
         A numeric banding: edges = the grid values where bands 1, 2, ... start (ascending), so
-        band k is [edges[k-1], edges[k]).
+        band k is [edges[k-1], edges[k]); then the missing band when the curve has a missing effect.
     """
     band = _ordered_bands(curve, Monotone(monotone).sign, max_bands, min_share)
     starts = np.flatnonzero(np.diff(band)) + 1
-    return Banding(curve.factor, monotone, edges=np.asarray(curve.points, dtype=float)[starts])
+    return Banding(
+        curve.factor,
+        monotone,
+        edges=np.asarray(curve.points, dtype=float)[starts],
+        missing=curve.missing_effect is not None,
+    )
 
 
 def merge_thin_levels(effect: np.ndarray, weight: np.ndarray, min_weight: float) -> np.ndarray:
@@ -165,7 +192,8 @@ def categorical_banding(
 ) -> Banding:
     """Bands of a categorical factor. `curve.points` index `levels` (levels without training exposure
     are absent from the curve): they join the previous level's band when ordered (the first band when
-    no level precedes), else the band holding the most exposure.
+    no level precedes), else the band holding the most exposure. The missing level (`MISSING_LABEL`,
+    last in `levels` when the curve has a missing effect) is a band of its own, the last.
 
     Ordered: isotonic where promised, then the optimal segmentation, as for a numeric factor.
     Unordered: `merge_thin_levels` with a least weight of min_share x the curve's total weight.
@@ -194,19 +222,28 @@ def categorical_banding(
         A categorical banding: the band of every level in `levels`.
     """
     points = np.asarray(curve.points, dtype=np.int64)
+    missing = curve.missing_effect is not None
     if ordered:
         present = _ordered_bands(curve, Monotone(monotone).sign, max_bands, min_share)
     else:
         present = merge_thin_levels(curve.effect, curve.weight, min_share * curve.weight.sum())
-    band = np.full(len(levels), -1, dtype=np.int64)
+    band = np.full(len(levels) - int(missing), -1, dtype=np.int64)
     band[points] = present
     if ordered:
         band = np.maximum.accumulate(band)
         band[band < 0] = 0
     else:
         band[band < 0] = np.argmax(np.bincount(present, weights=curve.weight))
+    if missing:
+        band = np.append(band, band.max() + 1)
     return Banding(
-        curve.factor, monotone, levels=tuple(levels), band_of_level=band, ordered=ordered, base_level=base_level
+        curve.factor,
+        monotone,
+        levels=tuple(levels),
+        band_of_level=band,
+        ordered=ordered,
+        base_level=base_level,
+        missing=missing,
     )
 
 
@@ -223,9 +260,9 @@ def base_band(banding: Banding, band_exposure: np.ndarray) -> int:
     Returns
     -------
     int
-        The base band's index (the first of equally exposed bands).
+        The base band's index (the first of equally exposed bands; never the missing band).
     """
     if banding.base_level is not None and not banding.numeric:
         levels, band = banding.level_bands()
         return int(band[levels.index(banding.base_level)])
-    return int(np.argmax(band_exposure))
+    return int(np.argmax(band_exposure[: banding.ordinary_bands]))

@@ -8,6 +8,9 @@
   last to inf); its weight is the training exposure in that cell.
 - Curve (`effect_curve`): the exact partial dependence of the raw (log) score on one factor over
   the sample (`premiumlab.models.trees.partial_dependence`), known up to an additive constant.
+  A factor whose training rows hold missing values has its effect at the missing value beside the
+  curve (numeric: the partial dependence with the factor NaN, which the trees route their default
+  way; categorical: at the model's code of the missing level), outside the grid and the level order.
 """
 
 from __future__ import annotations
@@ -18,6 +21,7 @@ import numpy as np
 
 from premiumlab.models.trees.parser import Trees
 from premiumlab.models.trees.partial_dependence import partial_dependence
+from rating_tables import MISSING_LABEL
 
 
 def exposure_sample(exposure: np.ndarray, size: int, seed: int) -> np.ndarray:
@@ -91,8 +95,11 @@ def cell_exposure(grid: np.ndarray, values: np.ndarray, weights: np.ndarray) -> 
 class Curve:
     """A factor's effect on the log score at ordered points, with the exposure each point stands for.
 
-    points: grid values (numeric) or indices into `labels` (categorical); effect: log score up to a
-    constant; weight: training exposure (> 0) of each point's cell or level.
+    points: grid values (numeric) or indices into `labels` (categorical), never the missing value;
+    effect: log score up to a constant (the same constant as `missing_effect`); weight: training
+    exposure (> 0) of each point's cell or level. missing_effect and missing_weight: the effect at
+    the missing value and the training exposure of the rows without a value (None and 0 when the
+    training rows have none).
     """
 
     factor: str
@@ -100,14 +107,19 @@ class Curve:
     effect: np.ndarray
     weight: np.ndarray
     labels: tuple[str, ...] = ()
+    missing_effect: float | None = None
+    missing_weight: float = 0.0
 
 
 @dataclass(frozen=True)
 class FactorValues:
-    """One factor on the training rows: numeric values, or indices into `levels` (categorical).
+    """One factor on the training rows: numeric values (NaN where missing), or indices into
+    `levels` (categorical; `MISSING_LABEL`, when the training rows hold missing values, is the last
+    level).
 
-    model_codes: the boosted model's encoding of each level (categorical); ordered: bands follow
-    the level order (numeric factors always); base_level: the spec's base level, if any.
+    model_codes: the boosted model's encoding of each level (categorical; NaN for a missing level
+    that the model reads as a missing number); ordered: bands follow the level order (numeric
+    factors always); base_level: the spec's base level, if any.
     """
 
     name: str
@@ -123,10 +135,11 @@ def effect_curve(
     trees: Trees, sample: np.ndarray, feature: int, factor: FactorValues, exposure: np.ndarray, grid_points: int
 ) -> Curve:
     """The factor's partial dependence on the log score over its grid (numeric) or its levels with
-    training exposure (categorical), with the exposure each point stands for.
+    training exposure (categorical), with the exposure each point stands for, and at the missing
+    value when the training rows hold one.
 
     PD(v) = mean over the sample of the raw score with the factor set to v, computed exactly from
-    the trees.
+    the trees; v = NaN (numeric) or the missing level's code (categorical) gives the missing effect.
 
     Parameters
     ----------
@@ -142,24 +155,42 @@ def effect_curve(
     exposure : np.ndarray
         Exposure of each training row, in the book's exposure unit.
     grid_points : int
-        Most grid points of a numeric factor (`quantile_grid`).
+        Most grid points of a numeric factor (`quantile_grid`, on the values present).
 
     Returns
     -------
     Curve
-        The points (grid values, or indices of the levels with exposure), their effect on the log
-        score (up to a constant) and the training exposure each stands for.
+        The points (grid values, or indices of the levels with exposure, the missing level apart),
+        their effect on the log score (up to a constant), the training exposure each stands for,
+        and the effect and exposure of the missing value (None and 0 without one).
     """
     if factor.levels is None:
-        grid = quantile_grid(factor.values, exposure, grid_points)
+        missing = np.isnan(factor.values)
+        values, weights = factor.values[~missing], exposure[~missing]
+        grid = quantile_grid(values, weights, grid_points)
+        at = np.append(grid, np.nan) if missing.any() else grid
+        effect = partial_dependence(trees, sample, feature, at)
         return Curve(
             factor.name,
             grid,
-            partial_dependence(trees, sample, feature, grid),
-            cell_exposure(grid, factor.values, exposure),
+            effect[: grid.size],
+            cell_exposure(grid, values, weights),
+            missing_effect=float(effect[-1]) if missing.any() else None,
+            missing_weight=float(exposure[missing].sum()),
         )
     weight = np.bincount(factor.values, weights=exposure, minlength=len(factor.levels))
-    present = np.flatnonzero(weight > 0)
+    has_missing = factor.levels[-1] == MISSING_LABEL
+    ordinary = len(factor.levels) - int(has_missing)
+    present = np.flatnonzero(weight[:ordinary] > 0)
     assert factor.model_codes is not None, "a categorical factor carries the boosted model's code of each level"
-    effect = partial_dependence(trees, sample, feature, factor.model_codes[present].astype(float))
-    return Curve(factor.name, present, effect, weight[present], factor.levels)
+    at = np.append(present, ordinary) if has_missing else present
+    effect = partial_dependence(trees, sample, feature, factor.model_codes[at].astype(float))
+    return Curve(
+        factor.name,
+        present,
+        effect[: present.size],
+        weight[present],
+        factor.levels,
+        missing_effect=float(effect[-1]) if has_missing else None,
+        missing_weight=float(weight[ordinary]) if has_missing else 0.0,
+    )

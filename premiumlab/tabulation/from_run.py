@@ -43,6 +43,7 @@ from premiumlab.tabulation.banding import Banding
 from premiumlab.tabulation.distill import distil
 from premiumlab.tabulation.effects import FactorValues, exposure_sample
 from premiumlab.tabulation.refit import band_exposure, round_relativity
+from rating_tables import MISSING_LABEL
 
 if TYPE_CHECKING:
     from premiumlab.models.gbm.fit import GbmModel
@@ -113,17 +114,18 @@ def _fitted_amounts(book: Book, preds: pd.DataFrame) -> Book:
     return replace(book, claim_amount=preds["claim_amount_adjusted"].to_numpy(dtype=float))
 
 
-def _level_indices(book: Book, run: Run, name: str) -> tuple[tuple[str, ...], np.ndarray]:
-    """(levels of a categorical factor as the run fixed them, index of each book row's level)."""
-    levels = tuple(run.levels[name].labels)
-    codes = pd.Categorical(book.frame[name], categories=list(levels)).codes.astype(np.int64)
+def _level_indices(book: Book, run: Run, name: str, rows: np.ndarray) -> tuple[tuple[str, ...], np.ndarray]:
+    """(levels of a categorical factor as the run fixed them, the missing label last when it has one;
+    index of the level of each of the book `rows`, training rows, which hold no other level)."""
+    levels = run.levels[name]
+    codes = levels.codes(book.frame[name].to_numpy()[rows])
     if (codes < 0).any():
-        row = int(np.flatnonzero(codes < 0)[0])
+        row = int(rows[np.flatnonzero(codes < 0)[0]])
         raise InputError(
             f"{book.path}: column '{name}', row {row}: level {book.frame[name].iloc[row]!r} is not "
             f"one of the run's levels ({run.files.levels})"
         )
-    return levels, codes
+    return levels.labels, codes
 
 
 # ---------------------------------------------------------------------------------------------
@@ -151,12 +153,12 @@ def _gbm_bands(run: Run, book: Book, preds: pd.DataFrame, train: np.ndarray) -> 
         if f.type == "numeric":
             factors.append(FactorValues(f.name, f.monotone, book.frame[f.name].to_numpy(dtype=float)[rows]))
             continue
-        levels, codes = _level_indices(book, run, f.name)
+        levels, codes = _level_indices(book, run, f.name, rows)
         factors.append(
             FactorValues(
                 f.name,
                 f.monotone,
-                codes[rows],
+                codes,
                 levels=levels,
                 model_codes=_model_codes(model, f.name, levels),
                 ordered=f.levels is not None,
@@ -183,9 +185,9 @@ def _gbm_bands(run: Run, book: Book, preds: pd.DataFrame, train: np.ndarray) -> 
 
 def _model_codes(model: GbmModel, name: str, levels: tuple[str, ...]) -> np.ndarray:
     """The boosted model's code of each level: its stored category position, or the level's position
-    for an ordered factor passed as codes."""
+    for an ordered factor passed as codes (there the missing level, a missing number, is NaN)."""
     if name not in model.categories:
-        return np.arange(len(levels), dtype=float)
+        return np.array([np.nan if level == MISSING_LABEL else i for i, level in enumerate(levels)], dtype=float)
     position = {level: i for i, level in enumerate(model.categories[name])}
     absent = [level for level in levels if level not in position]
     if absent:
@@ -195,8 +197,6 @@ def _model_codes(model: GbmModel, name: str, levels: tuple[str, ...]) -> np.ndar
 
 def _glm_bands(run: Run, book: Book) -> tuple[dict, dict, dict, dict, dict]:
     """The Tweedie GLM's relativities on the run's bands: (bandings, relativities, {}, base bands, notes)."""
-    from premiumlab.book.bands import band_labels
-
     glm = run.model_json("glm", "pure_premium")
     where = run.files.model_json("glm", "pure_premium")
     bandings, relativities, bases, defaulted = {}, {}, {}, []
@@ -206,18 +206,18 @@ def _glm_bands(run: Run, book: Book) -> tuple[dict, dict, dict, dict, dict]:
         if fitted is None:
             raise InputError(f"{where}: key 'relativities.{f.name}' is missing")
         if levels.edges is not None:
-            banding = Banding(f.name, f.monotone, edges=np.array(levels.edges, dtype=float))
-            labels = band_labels(levels.edges)
+            banding = Banding(f.name, f.monotone, edges=np.array(levels.edges, dtype=float), missing=levels.missing)
         else:
-            labels = list(levels.labels)
             banding = Banding(
                 f.name,
                 f.monotone,
-                levels=tuple(labels),
-                band_of_level=np.arange(len(labels)),
+                levels=levels.labels,
+                band_of_level=np.arange(len(levels.labels)),
                 ordered=f.levels is not None,
                 base_level=levels.base,
+                missing=levels.missing,
             )
+        labels = banding.labels()
         values = []
         for label in labels:
             value = fitted.get(label)
@@ -242,7 +242,7 @@ def _row_cells(banding: Banding, book: Book, run: Run, rows: np.ndarray) -> np.n
     """Per training row: its band (numeric) or its level index (categorical)."""
     if banding.numeric:
         return banding.codes(book.frame[banding.name].to_numpy(dtype=float)[rows])
-    return _level_indices(book, run, banding.name)[1][rows]
+    return _level_indices(book, run, banding.name, rows)[1]
 
 
 def _table_factors(
@@ -259,62 +259,74 @@ def _table_factors(
     """Rating-table factors in spec order, then the two-way tables; relativities rounded to `decimals`
     (None: unrounded), the unrounded refit kept as `indicated`, exposure of the training rows, and the
     Buhlmann-Straub credibility of each band's or level's own experience (amount per exposure) toward
-    its complement (neighbouring bands, or the overall level for categoricals) for the reviewer."""
+    its complement (neighbouring bands, or the overall level for categoricals) for the reviewer. A
+    factor's missing band or level (the last) becomes its `MissingRow`; a categorical factor's
+    `fallback` is the spec's, else its base level."""
     from premiumlab.tabulation.credibility import credibility_by_level
-    from rating_tables import Bands, CategoricalFactor, InteractionFactor, NumericFactor
+    from rating_tables import Bands, CategoricalFactor, InteractionFactor, MissingRow, NumericFactor
 
     def selected(values: np.ndarray) -> np.ndarray:
         return values if decimals is None else round_relativity(values, decimals)
+
+    def missing_row(rel: float, exposure: float, z: float) -> MissingRow:
+        return MissingRow(float(selected(np.array([rel]))[0]), exposure, indicated=rel, credibility=z)
 
     out: list[Factor] = []
     sides: dict[str, tuple[Cells, np.ndarray]] = {}
     for f in spec.factors:
         banding, rel = bandings[f.name], relativities[f.name]
         if banding.edges is not None:
+            k = banding.ordinary_bands
             lower = np.concatenate([[-np.inf], banding.edges])
             upper = np.concatenate([banding.edges, [np.inf]])
             z = credibility_by_level(amount, exposure, cells[f.name], banding.n_bands, numeric=True)["credibility"]
+            z = z.to_numpy()
+            expo = band_exposure(cells[f.name], banding.n_bands, exposure)
             out.append(
                 NumericFactor(
                     f.name,
                     f.monotone,
                     lower,
                     upper,
-                    selected(rel),
-                    band_exposure(cells[f.name], banding.n_bands, exposure),
-                    indicated=rel,
-                    credibility=z.to_numpy(),
+                    selected(rel[:k]),
+                    expo[:k],
+                    indicated=rel[:k],
+                    credibility=z[:k],
+                    missing=missing_row(rel[k], expo[k], z[k]) if banding.missing else None,
                 )
             )
-            sides[f.name] = (Bands(lower, upper), np.arange(banding.n_bands))
+            sides[f.name] = (Bands(lower, upper), np.arange(k))
             continue
         levels, band_of_level = banding.level_bands()
+        k = len(levels) - int(banding.missing)
         level_rel = rel[band_of_level]
         level_exposure = np.bincount(cells[f.name], weights=exposure, minlength=len(levels))
         base = f.base
         if base is None:
             in_base = np.flatnonzero(band_of_level == bases[f.name])
             base = levels[in_base[np.argmax(level_exposure[in_base])]]
-        z = credibility_by_level(amount, exposure, cells[f.name], len(levels))["credibility"]
+        z = credibility_by_level(amount, exposure, cells[f.name], len(levels))["credibility"].to_numpy()
         out.append(
             CategoricalFactor(
                 f.name,
                 f.monotone,
-                levels,
-                selected(level_rel),
-                level_exposure,
-                fallback=f.fallback,
+                levels[:k],
+                selected(level_rel[:k]),
+                level_exposure[:k],
+                fallback=f.fallback if f.fallback is not None else base,
                 base=base,
-                indicated=level_rel,
-                credibility=z.to_numpy(),
+                indicated=level_rel[:k],
+                credibility=z[:k],
+                missing=missing_row(level_rel[k], level_exposure[k], z[k]) if banding.missing else None,
             )
         )
-        sides[f.name] = (levels, band_of_level)
+        sides[f.name] = (levels[:k], band_of_level[:k])
     for (a, b), matrix in two_way.items():
         (a_cells, a_band), (b_cells, b_band) = sides[a], sides[b]
         expanded = matrix[np.ix_(a_band, b_band)]
         cell_exposure = np.zeros(expanded.shape)
-        np.add.at(cell_exposure, (cells[a], cells[b]), exposure)
+        valued = (cells[a] < a_band.size) & (cells[b] < b_band.size)  # the missing band or level is last
+        np.add.at(cell_exposure, (cells[a][valued], cells[b][valued]), exposure[valued])
         out.append(
             InteractionFactor(
                 f"{a}__{b}", (a, b), a_cells, b_cells, selected(expanded), exposure=cell_exposure, indicated=expanded

@@ -6,7 +6,9 @@ unit, weight = exposure; treatment coding against each factor's base band, plus 
 non-base pair of bands for each two-way table, so that table's base row and column are 1. The
 design, cells, aliasing and Newton iterations are the GLM engines' (`premiumlab.models.glm.engines`):
 a two-way table (a, b) is one more one-hot factor "a:b" whose levels are the non-base pairs of
-bands, every pair with a base band sharing its base level.
+bands, every pair with a base band sharing its base level. A factor's missing band (the last, when
+its training rows hold missing values) is its own cell of the main effect; a two-way table has no
+missing cell, so a pair with a missing band shares the base level too (its relativity there is 1).
 
 Pooling (`pooled_refit`): merges the adjacent bands of a promised factor with the worst reversal
 and refits, until main effect x every two-way table is monotone, before and after rounding.
@@ -44,19 +46,29 @@ class Refit:
     intercept: float
 
 
-def _pair_cells(sizes: dict[str, int], bases: dict[str, int], a: str, b: str) -> list[tuple[int, int]]:
-    """The non-base pairs of bands of a two-way table (a, b), in row-major order."""
-    return list(
-        itertools.product([i for i in range(sizes[a]) if i != bases[a]], [j for j in range(sizes[b]) if j != bases[b]])
-    )
+def _pair_cells(
+    sizes: dict[str, int], bases: dict[str, int], a: str, b: str, missing: dict[str, int] | None = None
+) -> list[tuple[int, int]]:
+    """The pairs of bands of a two-way table (a, b) with a term, in row-major order: neither band a
+    base band nor a missing band (`missing`: factor -> its missing band)."""
+    missing = missing or {}
+
+    def kept(name: str) -> list[int]:
+        return [i for i in range(sizes[name]) if i not in (bases[name], missing.get(name))]
+
+    return list(itertools.product(kept(a), kept(b)))
 
 
 def _banded_design(
-    codes: dict[str, np.ndarray], sizes: dict[str, int], bases: dict[str, int], pairs: list[tuple[str, str]]
+    codes: dict[str, np.ndarray],
+    sizes: dict[str, int],
+    bases: dict[str, int],
+    pairs: list[tuple[str, str]],
+    missing: dict[str, int],
 ) -> OneHotDesign:
     """The one-hot design of the rows: one factor per banded factor (levels "0", "1", ..., base the
     base band), then one per two-way table (a, b) named "a:b" with level 0 for every pair of bands
-    that includes a base band and one level "i, j" per non-base pair (i, j)."""
+    that includes a base or missing band and one level "i, j" per other pair (i, j)."""
     names, levels, base_codes, columns = [], [], [], []
     for name, code in codes.items():
         names.append(name)
@@ -64,7 +76,7 @@ def _banded_design(
         base_codes.append(bases[name])
         columns.append(code)
     for a, b in pairs:
-        cells = _pair_cells(sizes, bases, a, b)
+        cells = _pair_cells(sizes, bases, a, b, missing)
         level_of_pair = np.zeros((sizes[a], sizes[b]), dtype=np.int64)
         for level, (i, j) in enumerate(cells, start=1):
             level_of_pair[i, j] = level
@@ -83,6 +95,7 @@ def refit(
     pairs: list[tuple[str, str]],
     exposure: np.ndarray,
     response: np.ndarray,
+    missing: dict[str, int] | None = None,
 ) -> Refit:
     """Fit the banded multiplicative model to `response` (per exposure unit) with weights `exposure`.
 
@@ -96,18 +109,23 @@ def refit(
         The two-way tables.
     exposure, response : np.ndarray
         Exposure and boosted pure premium per exposure unit of every training row.
+    missing : dict[str, int] or None
+        The missing band of each factor that has one (None: none has): its own main-effect cell,
+        no cell of a two-way table.
 
     Returns
     -------
     Refit
-        exp(coefficient) of each band and non-base pair of bands (1 for base and dropped terms).
+        exp(coefficient) of each band and non-base pair of bands (1 for base and dropped terms, and
+        for a two-way table's pairs with a missing band).
 
     Raises
     ------
     InputError
         When Newton's method does not converge.
     """
-    cells = aggregate_cells(_banded_design(codes, sizes, bases, pairs), exposure * response, exposure)
+    missing = missing or {}
+    cells = aggregate_cells(_banded_design(codes, sizes, bases, pairs, missing), exposure * response, exposure)
     design = cells.design
     kept = choose_columns(design, cells.weight).kept
     fit = poisson_irls(design.sparse(kept), cells.numerator / cells.weight, cells.weight)
@@ -125,7 +143,7 @@ def refit(
     two = {}
     for (a, b), pair_relativity in zip(pairs, relativity[len(codes) :]):
         matrix = np.ones((sizes[a], sizes[b]))
-        for (i, j), value in zip(_pair_cells(sizes, bases, a, b), pair_relativity[1:]):
+        for (i, j), value in zip(_pair_cells(sizes, bases, a, b, missing), pair_relativity[1:]):
             matrix[i, j] = value
         two[(a, b)] = matrix
     return Refit(rel, two, dict(bases), aliased, fit.iterations, float(beta[0]))
@@ -193,8 +211,9 @@ class Reversal:
 
 
 def worst_reversal(bandings: dict[str, Banding], fit: Refit, decimals: int) -> Reversal | None:
-    """The largest log-scale breach of a promised direction between adjacent bands, over every band of
-    the partner factors, in the refit's relativities or in their rounded values (ties are allowed).
+    """The largest log-scale breach of a promised direction between adjacent bands (the missing band
+    apart: it has no place in the order), over every band of the partner factors, in the refit's
+    relativities or in their rounded values (ties are allowed).
 
     The breach between bands k and k+1 is -s (log g[k+1, c] - log g[k, c]), with s the promise's sign
     (+1 increasing, -1 decreasing) and g the `effect_grid`; it counts when it exceeds 1e-12 unrounded,
@@ -219,10 +238,11 @@ def worst_reversal(bandings: dict[str, Banding], fit: Refit, decimals: int) -> R
     rounded_two = {k: round_relativity(v, decimals) for k, v in fit.two_way.items()}
     worst: Reversal | None = None
     for name, banding in bandings.items():
-        if banding.direction == 0 or banding.n_bands < 2:
+        if banding.direction == 0 or banding.ordinary_bands < 2:
             continue
         for rel, two, is_rounded in ((fit.relativities, fit.two_way, False), (rounded_rel, rounded_two, True)):
-            steps = -banding.direction * np.diff(np.log(effect_grid(name, rel, two)), axis=0)
+            grid = effect_grid(name, rel, two)[: banding.ordinary_bands]
+            steps = -banding.direction * np.diff(np.log(grid), axis=0)
             k, _ = np.unravel_index(np.argmax(steps), steps.shape)
             amount = float(steps.max())
             if amount > (1e-12 if not is_rounded else 0.0) and (worst is None or amount > worst.amount):
@@ -303,7 +323,8 @@ def pooled_refit(
     while True:
         sizes = {n: b.n_bands for n, b in bandings.items()}
         bases = {n: base_band(b, band_exposure(codes[n], sizes[n], exposure)) for n, b in bandings.items()}
-        fit = refit(codes, sizes, bases, pairs, exposure, response)
+        missing = {n: b.n_bands - 1 for n, b in bandings.items() if b.missing}
+        fit = refit(codes, sizes, bases, pairs, exposure, response, missing)
         reversal = worst_reversal(bandings, fit, decimals)
         if reversal is None:
             return PooledRefit(bandings, fit, codes, merges)

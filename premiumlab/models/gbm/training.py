@@ -42,8 +42,10 @@ class GbmInputs:
     """The training part of a book, one row per policy and period.
 
     features: one column per factor; numeric (cast to float64; NaN allowed, LightGBM's missing
-    handling) or pandas Categorical for an unordered factor (handled natively by LightGBM); an
-    ordered categorical with a monotone promise comes as float integer codes 0..k-1.
+    handling) or pandas Categorical for an unordered factor (handled natively by LightGBM; a missing
+    value is a category of its own, `MISSING_LABEL`, and a category without training rows takes
+    LightGBM's way for unseen categories); an ordered categorical with a monotone promise comes as
+    float integer codes 0..k-1 (NaN where missing).
     monotone: factor -> +1 (increasing) or -1 (decreasing), promised factors only.
     exposure (> 0, exposure units), claim_count (>= 0), claim_amount (>= 0, money; None: frequency
     only), groups: policy codes for the grouped folds.
