@@ -28,7 +28,7 @@ from premiumlab._core.diagnostics import Diagnostic
 from premiumlab._core.errors import InputError
 from premiumlab.cli.app import app
 from premiumlab.cli.format import diagnostic_lines
-from premiumlab.evaluation.diagnostics import metric_diagnostics, relativity_diagnostics
+from premiumlab.evaluation.diagnostics import figure_text, metric_diagnostics, relativity_diagnostics
 from premiumlab.runs.diagnostics import merge_diagnostics, model_warnings
 from premiumlab.runs.rundir import RunDir
 from rating_tables import CategoricalFactor
@@ -308,3 +308,10 @@ def test_every_kind_is_documented_with_its_meaning():
 
     page = (Path(__file__).resolve().parents[1] / "docs" / "run-directory.md").read_text(encoding="utf-8")
     assert [kind for kind, meaning in KINDS.items() if f"| `{kind}` | {meaning} |" not in page] == []
+
+
+def test_figures_that_are_no_numbers_or_absurd_are_not_printed_digit_by_digit():
+    assert figure_text(0.0105, ">8.4f") == "  0.0105"
+    assert figure_text(-2.871e22, ">8.4f") == "-2.87e+22"  # not -28710000000000000000000.0000
+    assert figure_text(None, ">8.4f") == "     n/a"
+    assert figure_text(float("inf"), ".5g") == "n/a"

@@ -64,12 +64,16 @@ def figure_text(value: object, spec: str) -> str:
     Returns
     -------
     str
-        `format(value, spec)`, or "n/a" right-aligned as the spec says.
+        `format(value, spec)`; with a fixed-point spec ("f") and |value| >= 1e6, 3 significant
+        digits in the same width instead (an absurd figure is not printed digit by digit); "n/a"
+        right-aligned in the spec's width when the value is missing or not finite.
     """
-    if _finite(value):
-        return format(value, spec)
     width = "".join(c for c in spec.split(".")[0] if c.isdigit())
-    return format("n/a", f">{width}" if width else "")
+    if not _finite(value):
+        return format("n/a", f">{width}" if width else "")
+    if spec.endswith("f") and abs(value) >= 1e6:  # type: ignore[arg-type]
+        spec = f"{spec.split('.')[0]}.3g"
+    return format(value, spec)
 
 
 def metric_diagnostics(metrics: Mapping[str, Mapping]) -> list[Diagnostic]:
