@@ -14,6 +14,7 @@ from collections.abc import Sequence
 from pathlib import Path
 from typing import TYPE_CHECKING
 
+from premiumlab._core.defaults import PLAUSIBLE_RELATIVITY
 from premiumlab.results import (
     AuditResult,
     Certificate,
@@ -155,22 +156,27 @@ def fit(
     return open_run(fit_run(book, spec, out, models=models, force=force, progress=progress, cluster=cluster))
 
 
-def compare(run: str | Path) -> Comparison:
+def compare(run: str | Path, *, bounds: tuple[float, float] = PLAUSIBLE_RELATIVITY) -> Comparison:
     """Compare GLM and GBM on the holdout; write RUN/comparison.json and RUN/figures/.
 
     Parameters
     ----------
     run : str or Path
         Run directory written by `fit`.
+    bounds : (float, float)
+        Plausibility bounds of the GLM relativities, (least, greatest); default (0.2, 5), a
+        common-practice default.
 
     Returns
     -------
     Comparison
-        Holdout metrics, paired bootstrap differences, lift, double lift and actual vs expected.
+        Holdout metrics against the null model, paired bootstrap differences, lift, double lift,
+        actual vs expected, and the diagnostics (models worse than the null model or with absurd
+        figures, GLM relativities outside the bounds, and the run's own).
     """
     from premiumlab.review.comparison import compare as compare_run
 
-    return Comparison.from_summary(compare_run(run))
+    return Comparison.from_summary(compare_run(run, bounds=bounds))
 
 
 def tabulate(
@@ -201,8 +207,15 @@ def tabulate(
     return TableResult.from_summary(tabulate_run(run, out, model=model, force=force, book=book))
 
 
-def audit(table: str | Path, *, spec: str | Path | None = None, run: str | Path | None = None) -> AuditResult:
-    """Check promised directions, bands, relativities and base levels.
+def audit(
+    table: str | Path,
+    *,
+    spec: str | Path | None = None,
+    run: str | Path | None = None,
+    bounds: tuple[float, float] = PLAUSIBLE_RELATIVITY,
+    no_bounds: bool = False,
+) -> AuditResult:
+    """Check promised directions, bands, relativities within plausibility bounds and base levels.
 
     Parameters
     ----------
@@ -212,15 +225,20 @@ def audit(table: str | Path, *, spec: str | Path | None = None, run: str | Path 
         Spec whose monotone promises to check.
     run : str or Path or None
         Run whose boosted models to re-certify.
+    bounds : (float, float)
+        Least and greatest plausible relativity (default (0.2, 5), a common-practice default).
+    no_bounds : bool
+        Check no bounds.
 
     Returns
     -------
     AuditResult
-        Every violation as one line (none: the checks passed, which is not an approval).
+        Every violation as one line (none: the checks passed, which is not an approval), and the
+        promises kept by flattening as diagnostics (warnings, not violations).
     """
     from premiumlab.apply.audit import audit_table
 
-    return audit_table(table, spec, run)
+    return audit_table(table, spec, run, bounds=bounds, no_bounds=no_bounds)
 
 
 def rate(
@@ -380,13 +398,15 @@ def tails(
     return threshold_aid(book, spec, threshold, figure=figure, force=force)
 
 
-def report(run: str | Path) -> ReportResult:
-    """Write RUN/report.html: one file with the comparison, figures, GLM tables and cautions.
+def report(run: str | Path, *, table: str | Path | None = None) -> ReportResult:
+    """Write RUN/report.html: one file with the warnings, comparison, figures, GLM tables and cautions.
 
     Parameters
     ----------
     run : str or Path
         Run directory written by `fit` (run `compare` first for the figures and intervals).
+    table : str or Path or None
+        A rating table made from the run, whose fidelity.json diagnostics the report lists too.
 
     Returns
     -------
@@ -395,7 +415,7 @@ def report(run: str | Path) -> ReportResult:
     """
     from premiumlab.review.report import write_report
 
-    return ReportResult(report=write_report(run))
+    return ReportResult(report=write_report(run, table=table))
 
 
 def demo(

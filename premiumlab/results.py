@@ -12,6 +12,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
+from premiumlab._core.diagnostics import Diagnostic
 from premiumlab._core.jsonio import plain
 
 if TYPE_CHECKING:
@@ -55,14 +56,16 @@ class SimulationResult(Result):
 class Comparison(Result):
     """`compare`: the holdout comparison of a run's models, as written to RUN/comparison.json.
 
-    Attributes: holdout_rows; tweedie_power (the deviance power of the pure premium); metrics
-    (target -> model -> mean deviance, D^2, Gini, balance); differences (pair -> deviance reduction
-    and Gini gain with paired bootstrap 95 % intervals); lift, double_lift, actual_vs_expected
-    (tables as column -> list); cautions.
+    Attributes: holdout_rows; tweedie_power (the deviance power of the pure premium); diagnostics
+    (warnings that a result is unreliable: the run's, its GLMs' and the comparison's own); metrics
+    (target -> the null model and, per model, mean deviance, D^2, Gini, balance, deviance to the
+    null's); differences (pair -> deviance reduction and Gini gain with paired bootstrap 95 %
+    intervals); lift, double_lift, actual_vs_expected (tables as column -> list); cautions.
     """
 
     holdout_rows: int
     tweedie_power: float
+    diagnostics: tuple[Diagnostic, ...]
     metrics: dict
     differences: dict
     lift: dict
@@ -76,6 +79,9 @@ class Comparison(Result):
         return cls(
             holdout_rows=summary["holdout_rows"],
             tweedie_power=summary["tweedie_power"],
+            diagnostics=tuple(
+                d if isinstance(d, Diagnostic) else Diagnostic.from_dict(d) for d in summary["diagnostics"]
+            ),
             metrics=summary["metrics"],
             differences=summary["differences"],
             lift=summary["lift"],
@@ -119,11 +125,15 @@ class TableResult(Result):
 
 @dataclass(frozen=True)
 class AuditResult(Result):
-    """`audit`: every violation found in a table (its own checks, the spec's promises, the run's
-    certificate), one line each; no violation is not an approval (see cautions)."""
+    """`audit`: every violation found in a table (its own checks, the spec's promises, the
+    plausibility bounds, the run's certificate), one line each; diagnostics: warnings that are no
+    violation (a promise kept by flattening); bounds: the (least, greatest) relativity checked, None
+    when none were; no violation is not an approval (see cautions)."""
 
     table: Path
     violations: tuple[str, ...]
+    diagnostics: tuple[Diagnostic, ...]
+    bounds: tuple[float, float] | None
     cautions: tuple[str, ...]
 
 

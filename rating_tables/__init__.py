@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from rating_tables.audit import Violation, audit, audit_path
+from rating_tables.audit import Flattening, Violation, audit, audit_path, flattened
 from rating_tables.errors import TableError
 from rating_tables.exhibit import write_exhibit
 from rating_tables.impact import Capping, cap_premiums, impact
@@ -28,6 +28,7 @@ __all__ = [
     "Bands",
     "Capping",
     "CategoricalFactor",
+    "Flattening",
     "InteractionFactor",
     "LevelCounts",
     "Loadings",
@@ -41,6 +42,7 @@ __all__ = [
     "audit",
     "audit_path",
     "cap_premiums",
+    "flattened",
     "gross_premium",
     "impact",
     "load",

@@ -1,4 +1,5 @@
-"""Audit of a rating table: promised directions, base levels at 1, optional relativity bounds.
+"""Audit of a rating table: promised directions, base levels at 1, optional relativity bounds; and
+promises kept only by flattening (adjacent bands or levels given one relativity), a remark.
 
 Structural rules (bands covering (-inf, inf) without gap or overlap, finite positive relativities,
 `file` paths inside the table folder) are enforced whenever a table is built or loaded, so a
@@ -55,6 +56,36 @@ class Violation:
         return f"{self.check}: {self.detail}{size}"
 
 
+@dataclass(frozen=True)
+class Flattening:
+    """A promise kept by flattening: adjacent bands or levels of a promised factor that share one
+    relativity after rounding (main effect x two-way relativities, in every combination of the
+    other factors' cells). A remark, not a violation: the promise holds, but only by pooling.
+
+    `levels` are the factor's bands (`kind` "bands") or levels (`kind` "levels") in the run, in
+    order; `relativity` is the shared value, or None when it varies with the other factors' cells.
+    """
+
+    factor: str
+    direction: str
+    kind: str
+    levels: tuple[str, ...]
+    relativity: float | None
+
+    @property
+    def remark(self) -> str:
+        """What was found, without the factor and the levels: the promise and the shared value."""
+        value = (
+            "one relativity in each combination of the other factors' cells"
+            if self.relativity is None
+            else f"one relativity, {self.relativity:.6g}"
+        )
+        return f"promised {self.direction}, kept by giving {len(self.levels)} adjacent {self.kind} {value}"
+
+    def __str__(self) -> str:
+        return f"factor {self.factor!r}, {'; '.join(self.levels)}: {self.remark}"
+
+
 def audit(
     table: RatingTable,
     promises: dict[str, str] | None = None,
@@ -102,25 +133,7 @@ def audit(
     TableError
         When a promised direction is not one of the three words.
     """
-    directions = {f.name: f.monotone for f in table.main_factors}
-    found: list[Violation] = []
-    for name, direction in (promises or {}).items():
-        if direction not in MONOTONE:
-            raise TableError(
-                f"promises: direction {direction!r} for {name!r} must be one of {', '.join(MONOTONE)}", where=name
-            )
-        if name not in directions:
-            found.append(
-                Violation(
-                    "promise",
-                    name,
-                    None,
-                    f"factor {name!r}: a direction ({direction}) is "
-                    "promised but the table has no such numeric or categorical factor",
-                )
-            )
-        else:
-            directions[name] = direction
+    directions, found = _directions(table, promises)
     for main in table.main_factors:
         if directions[main.name] != "none":
             found += _direction(table, main, directions[main.name])
@@ -129,6 +142,63 @@ def audit(
         found += _base(factor, tolerance)
     if bounds:
         found += _bounds(table, bounds)
+    return found
+
+
+def flattened(table: RatingTable, promises: dict[str, str] | None = None) -> list[Flattening]:
+    """Promises kept by flattening: runs of two or more adjacent bands or levels of a promised
+    factor whose relativities are equal after rounding.
+
+    Directions are as for `audit` (each factor's `monotone`, overridden or added by `promises`).
+    Along a factor the cells are those of `audit`'s direction check: bands cut at every lower edge
+    of the factor and of its two-way sides, or levels in file order, each with the main effect x
+    two-way relativities for every combination of the other factors' cells; a run is flat when
+    every combination, rounded to `relativity_decimals`, is equal from cell to cell. A run inside one
+    band of the factor (cut only by a two-way side) is not counted.
+
+    Parameters
+    ----------
+    table : RatingTable
+        The table.
+    promises : dict of str to str, optional
+        As for `audit` (a name that is no factor of the table is ignored here; `audit` reports it).
+
+    Returns
+    -------
+    list of Flattening
+        One per maximal run, in factor order then along the factor, naming the factor's bands or
+        levels in the run.
+
+    Raises
+    ------
+    TableError
+        When a promised direction is not one of the three words.
+    """
+    directions, _ = _directions(table, promises)
+    decimals = table.rounding.relativity_decimals
+    found = []
+    for main in table.main_factors:
+        if directions[main.name] == "none":
+            continue
+        labels, main_index, combined, _others = _along(table, main)
+        if len(labels) < 2:
+            continue
+        rounded = np.round(combined, decimals)
+        flat = (rounded[1:] == rounded[:-1]).reshape(len(labels) - 1, -1).all(axis=1)
+        start = 0
+        for i in range(len(flat) + 1):
+            if i < len(flat) and flat[i]:
+                continue
+            members = list(dict.fromkeys(int(k) for k in main_index[start : i + 1]))
+            if len(members) > 1:
+                shared = rounded[start].ravel()
+                value = float(shared[0]) if np.all(shared == shared[0]) else None
+                names = main.labels()
+                kind = "bands" if isinstance(main, NumericFactor) else "levels"
+                found.append(
+                    Flattening(main.name, directions[main.name], kind, tuple(names[k] for k in members), value)
+                )
+            start = i + 1
     return found
 
 
@@ -183,12 +253,40 @@ def _grid(
     return labels, band_index(main.lower, lows), [band_index(side.lower, lows) for side in band_sides]
 
 
-def _direction(table: RatingTable, main: MainFactor, direction: str) -> list[Violation]:
+def _directions(table: RatingTable, promises: dict[str, str] | None) -> tuple[dict[str, str], list[Violation]]:
+    """Each main factor's direction (its `monotone`, overridden or added by `promises`) and a
+    `promise` violation for each promise on a factor the table lacks."""
+    directions = {f.name: f.monotone for f in table.main_factors}
+    found: list[Violation] = []
+    for name, direction in (promises or {}).items():
+        if direction not in MONOTONE:
+            raise TableError(
+                f"promises: direction {direction!r} for {name!r} must be one of {', '.join(MONOTONE)}", where=name
+            )
+        if name not in directions:
+            found.append(
+                Violation(
+                    "promise",
+                    name,
+                    None,
+                    f"factor {name!r}: a direction ({direction}) is "
+                    "promised but the table has no such numeric or categorical factor",
+                )
+            )
+        else:
+            directions[name] = direction
+    return directions, found
+
+
+def _along(
+    table: RatingTable, main: MainFactor
+) -> tuple[list[str], npt.NDArray[np.integer[Any]], npt.NDArray[np.float64], list[tuple[str, list[str]]]]:
+    """The relativity along a factor's cells (`_grid`): their labels, the main factor's index of
+    each, the main effect x two-way relativities (axis 0 the cells, then one axis per two-way table
+    holding the factor: the other factor's cells) and each such other factor's name and cell labels."""
     tables = [(f, f.of.index(main.name)) for f in table.interactions if main.name in f.of]
     sides = [f.a_cells if k == 0 else f.b_cells for f, k in tables]
     labels, main_index, side_index = _grid(main, sides)
-    if len(labels) < 2:
-        return []
     combined = main.relativity[main_index].reshape((-1,) + (1,) * len(tables))
     others: list[tuple[str, list[str]]] = []
     for n, ((inter, k), index) in enumerate(zip(tables, side_index)):
@@ -198,6 +296,13 @@ def _direction(table: RatingTable, main: MainFactor, direction: str) -> list[Vio
         combined = combined * matrix[index].reshape(shape)
         other = inter.of[1 - k]
         others.append((other, cell_labels(inter.b_cells if k == 0 else inter.a_cells)))
+    return labels, main_index, combined, others
+
+
+def _direction(table: RatingTable, main: MainFactor, direction: str) -> list[Violation]:
+    labels, _main_index, combined, others = _along(table, main)
+    if len(labels) < 2:
+        return []
     step = combined[1:] / combined[:-1] - 1.0
     wrong = -step if direction == "increasing" else step
     found = []

@@ -605,6 +605,20 @@ CASES: list[tuple[str, str, int, str, Prepare | None]] = [
         lambda f: (f / "scenario.toml").write_text("[portfolio\n"),
     ),
     ("compare-not-a-run", "compare table", 2, "table: not a run directory (no run.json)", None),
+    (
+        "audit-bounds-reversed",
+        "audit table --bounds 5 0.2",
+        2,
+        "--bounds: 5 0.2 must be finite with 0 < LOW < HIGH",
+        None,
+    ),
+    (
+        "compare-bounds-negative",
+        "compare table --bounds -1 5",
+        2,
+        "--bounds: -1 5 must be finite with 0 < LOW < HIGH",
+        None,
+    ),
     ("tabulate-unknown-model", "tabulate table --out out --model tree", 2, "--model: unknown model 'tree'", None),
     (
         "certify-not-a-model",

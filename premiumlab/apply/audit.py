@@ -5,13 +5,23 @@ from __future__ import annotations
 
 from pathlib import Path
 
+from premiumlab._core.defaults import PLAUSIBLE_RELATIVITY
+from premiumlab._core.diagnostics import Diagnostic
 from premiumlab._core.errors import InputError
+from premiumlab.evaluation.diagnostics import check_bounds
 from premiumlab.results import AuditResult, Certificate
 from rating_tables.monotone import Monotone
 
 
-def audit_table(table_dir: str | Path, spec_path: str | Path | None, run_dir: str | Path | None) -> AuditResult:
-    """Every violation as one line: the table's own checks, the spec's promises, the run's certificate.
+def audit_table(
+    table_dir: str | Path,
+    spec_path: str | Path | None,
+    run_dir: str | Path | None,
+    bounds: tuple[float, float] = PLAUSIBLE_RELATIVITY,
+    no_bounds: bool = False,
+) -> AuditResult:
+    """Every violation as one line: the table's own checks, the spec's promises, the plausibility
+    bounds, the run's certificate; and promises kept by flattening, as diagnostics.
 
     Parameters
     ----------
@@ -21,25 +31,56 @@ def audit_table(table_dir: str | Path, spec_path: str | Path | None, run_dir: st
         Spec whose monotone promises the table must keep.
     run_dir : str or Path or None
         Run whose constrained boosted models are re-certified.
+    bounds : (float, float)
+        Least and greatest plausible relativity, inclusive, for every factor and two-way table
+        (default [0.2, 5], `PLAUSIBLE_RELATIVITY`: a common-practice default, not a rule).
+    no_bounds : bool
+        Check no bounds.
 
     Returns
     -------
     AuditResult
-        The violations, in the order found, and the draft caution (a clean audit is not an approval).
+        The violations, in the order found; the `flattened_promise` diagnostics
+        (`rating_tables.flattened`: adjacent bands or levels of a promised factor with one
+        relativity after rounding), which are no violation; the bounds checked (None with
+        `no_bounds`); and the draft caution (a clean audit is not an approval).
+
+    Raises
+    ------
+    InputError
+        Bounds that are not 0 < least < greatest, a bad spec, or a folder that is no run.
     """
     import rating_tables
     from premiumlab._core.cautions import DRAFT
+    from rating_tables.errors import TableError
 
+    checked = None if no_bounds else check_bounds(bounds)
+    limits: dict[str, tuple[float | None, float | None]] | None = None if checked is None else {"*": checked}
     promises = None
     if spec_path is not None:
         from premiumlab.book.spec import load_spec
 
         spec = load_spec(spec_path)
         promises = {f.name: f.monotone for f in spec.factors if f.monotone != "none"}
-    found = [str(v) for v in rating_tables.audit_path(table_dir, promises=promises)]
+    try:
+        table = rating_tables.load(table_dir)
+    except TableError:  # audit_path reports why, as a violation
+        found = [str(v) for v in rating_tables.audit_path(table_dir, promises=promises, bounds=limits)]
+        flat = []
+    else:
+        found = [str(v) for v in rating_tables.audit(table, promises=promises, bounds=limits)]
+        flat = rating_tables.flattened(table, promises=promises)
     if run_dir is not None:
         found += _certificate_violations(run_dir)
-    return AuditResult(table=Path(table_dir), violations=tuple(found), cautions=(DRAFT,))
+    return AuditResult(
+        table=Path(table_dir),
+        violations=tuple(found),
+        diagnostics=tuple(
+            Diagnostic("flattened_promise", "table", f.remark, f.factor, "; ".join(f.levels)) for f in flat
+        ),
+        bounds=checked,
+        cautions=(DRAFT,),
+    )
 
 
 def _certificate_violations(run_dir: str | Path) -> list[str]:

@@ -17,6 +17,8 @@ from typing import Annotated
 import typer
 from typer.core import TyperGroup
 
+from premiumlab._core.defaults import PLAUSIBLE_RELATIVITY
+
 
 class _OneLineUsage(TyperGroup):
     """Usage errors (a missing or unknown option, a value of the wrong type, an unknown command) as
@@ -73,6 +75,16 @@ Cluster = Annotated[
 ]
 
 
+Bounds = Annotated[
+    tuple[float, float],
+    typer.Option(
+        "--bounds",
+        metavar="LOW HIGH",
+        help="Plausibility bounds of a relativity (default 0.2 5, a common-practice default, not a rule).",
+    ),
+]
+
+
 def _fail(message: str, code: int = 2) -> None:
     typer.echo(f"premiumlab: {' '.join(message.split())}", err=True)
     raise typer.Exit(code)
@@ -110,11 +122,15 @@ def handled(fn: Callable) -> Callable:
     return wrapper
 
 
+def _echo_lines(lines: Iterable[str]) -> None:
+    for line in lines:
+        typer.echo(line, err=True)
+
+
 def _echo_cautions(cautions: Iterable[str]) -> None:
     from premiumlab.cli.format import caution_lines
 
-    for line in caution_lines(cautions):
-        typer.echo(line, err=True)
+    _echo_lines(caution_lines(cautions))
 
 
 class _Echo:
@@ -177,6 +193,7 @@ def fit(
 ) -> None:
     """Fit GLM baselines and boosted models on the training part; write the run directory."""
     from premiumlab import api
+    from premiumlab.cli.format import diagnostic_lines
 
     run = api.fit(
         book,
@@ -187,22 +204,23 @@ def fit(
         force=force,
         progress=_Echo(err=True) if sys.stderr.isatty() else None,
     )
-    from premiumlab.cli.format import diagnostic_lines
-
-    for line in diagnostic_lines(run.manifest.get("diagnostics", [])):
-        typer.echo(line, err=True)
     typer.echo(f"wrote {run.path}")
+    _echo_lines(diagnostic_lines(run.manifest.get("diagnostics", []), source=run.files.manifest))
 
 
 @app.command()
 @handled
-def compare(run: Annotated[Path, typer.Argument(help="Run directory written by `fit`.")]) -> None:
-    """Compare GLM and GBM on the holdout; write comparison.json and figures/."""
+def compare(
+    run: Annotated[Path, typer.Argument(help="Run directory written by `fit`.")],
+    bounds: Bounds = PLAUSIBLE_RELATIVITY,
+) -> None:
+    """Compare GLM and GBM on the holdout; write comparison.json and figures/; warn of broken models."""
     from premiumlab import api
-    from premiumlab.cli.format import comparison_lines
+    from premiumlab.cli.format import comparison_lines, diagnostic_lines
 
-    result = api.compare(run)
+    result = api.compare(run, bounds=bounds)
     typer.echo("\n".join(comparison_lines(result)))
+    _echo_lines(diagnostic_lines(result.diagnostics, source=run / "comparison.json"))
     _echo_cautions(result.cautions)
 
 
@@ -232,13 +250,16 @@ def audit(
     table: Annotated[Path, typer.Argument(help="Rating table folder.")],
     spec: Annotated[Path | None, typer.Option("--spec", help="Spec whose promises to check.")] = None,
     run: Annotated[Path | None, typer.Option("--run", help="Run whose boosted models to re-certify.")] = None,
+    bounds: Bounds = PLAUSIBLE_RELATIVITY,
+    no_bounds: Annotated[bool, typer.Option("--no-bounds", help="Check no plausibility bounds.")] = False,
 ) -> None:
-    """Check promised directions, bands, relativities and base levels (exit 1 on any violation)."""
+    """Check promised directions, bands, relativity bounds and base levels (exit 1 on any violation)."""
     from premiumlab import api
-    from premiumlab.cli.format import audit_lines
+    from premiumlab.cli.format import audit_lines, diagnostic_lines
 
-    result = api.audit(table, spec=spec, run=run)
+    result = api.audit(table, spec=spec, run=run, bounds=bounds, no_bounds=no_bounds)
     typer.echo("\n".join(audit_lines(result)))
+    _echo_lines(diagnostic_lines(result.diagnostics))  # warnings, not violations
     _echo_cautions(result.cautions)  # a clean audit is not an approval
     if result.violations:
         raise typer.Exit(1)
@@ -350,11 +371,16 @@ def tails(
 
 @app.command()
 @handled
-def report(run: Annotated[Path, typer.Argument(help="Run directory written by `fit`.")]) -> None:
-    """Write RUN/report.html: one file with the comparison, figures, GLM tables and cautions."""
+def report(
+    run: Annotated[Path, typer.Argument(help="Run directory written by `fit`.")],
+    table: Annotated[
+        Path | None, typer.Option("--table", help="A rating table of the run: list its diagnostics too.")
+    ] = None,
+) -> None:
+    """Write RUN/report.html: one file with the warnings, comparison, figures, GLM tables and cautions."""
     from premiumlab import api
 
-    typer.echo(f"wrote {api.report(run).report}")
+    typer.echo(f"wrote {api.report(run, table=table).report}")
 
 
 @app.command()

@@ -3,9 +3,13 @@
 from __future__ import annotations
 
 import json
-from collections.abc import Callable, Iterable
+from collections.abc import Callable, Iterable, Mapping
+from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
+from premiumlab._core.defaults import PLAUSIBLE_RELATIVITY
+from premiumlab._core.diagnostics import Diagnostic
+from premiumlab.evaluation.diagnostics import figure_text
 from premiumlab.results import (
     AuditResult,
     Certificate,
@@ -73,6 +77,48 @@ def level_count_lines(counts: Iterable[LevelCounts]) -> list[str]:
             parts.append(f"{_rows(c.missing_rows)} with a missing value rated at the missing row")
         if parts:
             lines.append(f"factor {c.factor!r}: " + "; ".join(parts))
+    return lines
+
+
+#: Diagnostics of one kind and model printed in full before "and N more".
+DIAGNOSTICS_SHOWN = 3
+
+
+def diagnostic_lines(
+    diagnostics: Iterable[Diagnostic | Mapping[str, Any]],
+    source: str | Path | None = None,
+    shown: int = DIAGNOSTICS_SHOWN,
+) -> list[str]:
+    """One `warning: KIND: ...` line per diagnostic, grouped by kind then model; past `shown` of one
+    kind and model, one line saying how many more.
+
+    Parameters
+    ----------
+    diagnostics : iterable of Diagnostic or of its dict
+        The diagnostics, e.g. run.json's `diagnostics` or a result's.
+    source : str or Path or None
+        The file that lists them all, named on an "and N more" line.
+    shown : int
+        Diagnostics of one kind and model shown in full.
+
+    Returns
+    -------
+    list[str]
+        Kinds in the order first met, models within a kind likewise; "warning: KIND: MODEL, factor
+        'F', level 'L': message" for each shown, and "warning: KIND: MODEL: and N more (all in
+        SOURCE)" for the rest of a group.
+    """
+    groups: dict[str, dict[str, list[Diagnostic]]] = {}
+    for item in diagnostics:
+        d = item if isinstance(item, Diagnostic) else Diagnostic.from_dict(dict(item))
+        groups.setdefault(d.kind, {}).setdefault(d.model, []).append(d)
+    where = "" if source is None else f" (all in {source})"
+    lines = []
+    for kind, models in groups.items():
+        for model, found in models.items():
+            lines += [f"warning: {kind}: {d}" for d in found[:shown]]
+            if len(found) > shown:
+                lines.append(f"warning: {kind}: {model}: and {len(found) - shown} more{where}")
     return lines
 
 
@@ -157,25 +203,6 @@ def missing_value_lines(missing: Any) -> list[str]:
     return lines
 
 
-def diagnostic_lines(diagnostics: Iterable[dict[str, Any]]) -> list[str]:
-    """One `warning: ...` line per diagnostic (`premiumlab._core.diagnostics.Diagnostic`), e.g. the
-    `diagnostics` of run.json that `fit` prints on stderr.
-
-    Parameters
-    ----------
-    diagnostics : iterable of dict
-        Diagnostics as `Diagnostic.to_dict` writes them.
-
-    Returns
-    -------
-    list[str]
-        The lines, in the order given: kind, then model, factor, level and message.
-    """
-    from premiumlab._core.diagnostics import Diagnostic
-
-    return [f"warning: {d['kind']}: {Diagnostic.from_dict(d)}" for d in diagnostics]
-
-
 def comparison_lines(result: Comparison) -> list[str]:
     """`compare`: a compact table of the holdout metrics and the differences with their intervals.
 
@@ -187,26 +214,35 @@ def comparison_lines(result: Comparison) -> list[str]:
     Returns
     -------
     list[str]
-        A header, one line per target and model (mean deviance, D^2, Gini, balance), then one per
-        difference with its 95 % interval.
+        A header, per target the null model (the training rows' constant rate) and one line per
+        model (mean deviance, D^2, Gini, balance, mean deviance / the null's), a model with a
+        `worse_than_null` diagnostic marked "!" (its warning goes to stderr), figures that are not
+        finite shown as n/a; then one line per difference with its 95 % interval.
     """
+    broken = {d.model for d in result.diagnostics if d.kind == "worse_than_null"}
     lines = [
         f"holdout rows: {result.holdout_rows}   Tweedie power: {result.tweedie_power:.2f}",
-        f"{'target':<13} {'model':<18} {'mean dev':>11} {'D^2':>8} {'Gini':>8} {'balance':>8}",
+        f"{'target':<13} {'model':<18} {'mean dev':>11} {'D^2':>8} {'Gini':>8} {'balance':>8} {'/ null':>8}",
     ]
     for target, block in result.metrics.items():
+        null = block.get("null")
+        if null is not None:
+            lines.append(f"{target:<13} {'null (constant)':<18} {figure_text(null['mean_deviance'], '>11.5g')}")
         for name, m in block["models"].items():
             lines.append(
-                f"{target:<13} {name:<18} {m['mean_deviance']:>11.5g} {m['d2']:>8.4f} "
-                f"{m['gini']:>8.4f} {m['balance']:>8.4f}"
+                f"{target:<13} {name:<18} {figure_text(m['mean_deviance'], '>11.5g')} {figure_text(m['d2'], '>8.4f')} "
+                f"{figure_text(m['gini'], '>8.4f')} {figure_text(m['balance'], '>8.4f')} "
+                f"{figure_text(m.get('deviance_to_null'), '>8.4g')}" + (" !" if name in broken else "")
             )
+    if broken:
+        lines.append("! worse than the null model or absurd figures: see the warnings")
     lines.append("differences (paired bootstrap 95 % interval):")
     for name, d in result.differences.items():
         dev, gin = d["deviance_reduction"], d["gini_gain"]
         lines.append(
-            f"  {name}: deviance reduction {dev['estimate']:.5g} [{dev['lower']:.5g}, "
-            f"{dev['upper']:.5g}]; Gini gain {gin['estimate']:.4f} [{gin['lower']:.4f}, "
-            f"{gin['upper']:.4f}]"
+            f"  {name}: deviance reduction {figure_text(dev['estimate'], '.5g')} [{figure_text(dev['lower'], '.5g')}, "
+            f"{figure_text(dev['upper'], '.5g')}]; Gini gain {figure_text(gin['estimate'], '.4f')} "
+            f"[{figure_text(gin['lower'], '.4f')}, {figure_text(gin['upper'], '.4f')}]"
         )
     return lines
 
@@ -246,7 +282,7 @@ def fidelity_lines(result: TableResult) -> list[str]:
 
 
 def audit_lines(result: AuditResult) -> list[str]:
-    """`audit`: every violation, then their count.
+    """`audit`: every violation, then their count and the bounds checked.
 
     Parameters
     ----------
@@ -256,9 +292,16 @@ def audit_lines(result: AuditResult) -> list[str]:
     Returns
     -------
     list[str]
-        One line per violation, then the count.
+        One line per violation, then the count with the plausibility bounds checked (or "no
+        bounds"). The flattened promises are warnings: `diagnostic_lines` prints them.
     """
-    return [*result.violations, f"audit: {len(result.violations)} violation(s) in {result.table}"]
+    if result.bounds is None:
+        bounds = "no relativity bounds checked"
+    else:
+        low, high = result.bounds
+        default = ", a common-practice default" if result.bounds == PLAUSIBLE_RELATIVITY else ""
+        bounds = f"relativity bounds [{low:g}, {high:g}]{default}"
+    return [*result.violations, f"audit: {len(result.violations)} violation(s) in {result.table} ({bounds})"]
 
 
 def impact_lines(result: ImpactResult) -> list[str]:
@@ -381,9 +424,13 @@ def tail_json(result: TailFit) -> str:
     return json.dumps(fields, allow_nan=False)
 
 
+def _comparison_and_warning_lines(result: Comparison) -> list[str]:
+    return comparison_lines(result) + diagnostic_lines(result.diagnostics)
+
+
 #: The text of the results a long job (`demo`) reports as it goes.
 _RESULT_LINES: dict[type, Callable[[Any], list[str]]] = {
-    Comparison: comparison_lines,
+    Comparison: _comparison_and_warning_lines,
     TableResult: fidelity_lines,
     ImpactResult: impact_lines,
 }
@@ -400,6 +447,7 @@ def result_lines(value: object) -> list[str]:
     Returns
     -------
     list[str]
-        Its lines, as `comparison_lines`, `fidelity_lines` or `impact_lines` give them.
+        Its lines, as `comparison_lines` (then the comparison's warnings, `diagnostic_lines`),
+        `fidelity_lines` or `impact_lines` give them.
     """
     return _RESULT_LINES[type(value)](value)

@@ -58,13 +58,41 @@ def model_columns(preds: pd.DataFrame, target: str) -> list[str]:
     return [n for n in names if n in preds.columns]
 
 
+def null_rate(preds: pd.DataFrame, target: str) -> float:
+    """The null model of a target: one constant rate, fitted on the training rows.
+
+    The maximum-likelihood intercept-only log-link GLM of the target's family with its weight:
+    c = sum(numerator) / sum(weight) over the training rows (claims per exposure unit, money per
+    claim, money per exposure unit).
+
+    Parameters
+    ----------
+    preds : pandas.DataFrame
+        Rows of `predictions.parquet`: the bool `holdout` column, exposure, claim count and (for
+        severity and pure premium) claim amount.
+    target : str
+        The target's name: "frequency", "severity" or "pure_premium".
+
+    Returns
+    -------
+    float
+        The rate c; NaN when the training rows of the target have no weight.
+    """
+    _mask, actual, weight, _y = target_view(preds[~preds["holdout"].to_numpy(bool)], target)
+    total = float(weight.sum())
+    return float(actual.sum()) / total if total > 0 else float("nan")
+
+
 def holdout_metrics(preds: pd.DataFrame, tweedie_power: float) -> dict:
-    """Mean deviance, D^2, Gini and balance of every model column on the holdout rows.
+    """Mean deviance, D^2, Gini and balance of every model column on the holdout rows, against the
+    null model.
 
     Per target and model column, on the target's holdout rows with label y = numerator / weight,
     weight w and prediction mu: mean deviance sum(w d(y, mu)) / sum(w) with the target's Tweedie
     power; D^2 = 1 - D(y, mu) / D(y, ybar), ybar = sum(w y) / sum(w); the Gini of the numerator
-    ordered by mu (`metrics.gini`); balance sum(mu w) / sum(numerator).
+    ordered by mu (`metrics.gini`); balance sum(mu w) / sum(numerator); and the ratio of the mean
+    deviance to the null model's, the null model being the constant rate c of the training rows
+    (`null_rate`), whose holdout mean deviance is sum(w d(y, c)) / sum(w).
 
     Parameters
     ----------
@@ -78,8 +106,10 @@ def holdout_metrics(preds: pd.DataFrame, tweedie_power: float) -> dict:
     -------
     dict
         Per target name (severity and pure premium only with a claim amount column): `power`,
-        `rows` (holdout rows of the target) and `models`, per model column `mean_deviance`, `d2`,
-        `gini` and `balance`.
+        `rows` (holdout rows of the target), `null` (`rate`: c per weight unit, `mean_deviance`: its
+        holdout mean deviance) and `models`, per model column `mean_deviance`, `d2`, `gini`,
+        `balance` and `deviance_to_null` (mean deviance / the null's; above 1: worse than the
+        constant rate).
     """
     from premiumlab.evaluation.metrics import balance, gini
     from premiumlab.models.deviance import d2, mean_deviance
@@ -91,13 +121,22 @@ def holdout_metrics(preds: pd.DataFrame, tweedie_power: float) -> dict:
             continue
         mask, actual, weight, y = target_view(hold, target.name)
         power = target.deviance_power(tweedie_power)
-        out[target.name] = {"power": power, "rows": int(mask.sum()), "models": {}}
+        rate = null_rate(preds, target.name)
+        null = mean_deviance(y, np.full_like(y, rate), weight, power) if np.isfinite(rate) and rate > 0 else np.nan
+        out[target.name] = {
+            "power": power,
+            "rows": int(mask.sum()),
+            "null": {"rate": rate, "mean_deviance": null},
+            "models": {},
+        }
         for col in model_columns(hold, target.name):
             mu = hold.loc[mask, col].to_numpy(float)
+            deviance = mean_deviance(y, mu, weight, power)
             out[target.name]["models"][col] = {
-                "mean_deviance": mean_deviance(y, mu, weight, power),
+                "mean_deviance": deviance,
                 "d2": d2(y, mu, weight, power),
                 "gini": gini(actual, mu, weight),
                 "balance": balance(actual, mu, weight),
+                "deviance_to_null": deviance / null if null > 0 else np.nan,
             }
     return out

@@ -13,20 +13,24 @@ from pathlib import Path
 
 import pandas as pd
 
-from premiumlab._core.defaults import FALLBACK_TWEEDIE_POWER
+from premiumlab._core.defaults import FALLBACK_TWEEDIE_POWER, PLAUSIBLE_RELATIVITY
+from premiumlab._core.diagnostics import Diagnostic
 from premiumlab._core.errors import InputError
 from premiumlab._core.jsonio import write_json
+from premiumlab.evaluation.diagnostics import check_bounds, metric_diagnostics, relativity_diagnostics
 from premiumlab.evaluation.holdout import (
     holdout_metrics,
     model_columns,
     target_view,
 )
 from premiumlab.models.targets import TARGETS
+from premiumlab.runs.diagnostics import merge_diagnostics, model_warnings
+from premiumlab.runs.rundir import model_name
 
 N_BOOT = 200
 
 
-def compare(run_dir: str | Path, n_boot: int = N_BOOT) -> dict:
+def compare(run_dir: str | Path, n_boot: int = N_BOOT, bounds: tuple[float, float] = PLAUSIBLE_RELATIVITY) -> dict:
     """Write RUN/comparison.json and RUN/figures/*.png; return the comparison.
 
     Parameters
@@ -36,18 +40,23 @@ def compare(run_dir: str | Path, n_boot: int = N_BOOT) -> dict:
     n_boot : int
         Paired bootstrap resamples (of policies, when the run has policy groups) for the intervals
         of the deviance reduction and the Gini gain.
+    bounds : (float, float)
+        Plausibility bounds of the GLM relativities (default [0.2, 5], a common-practice default).
 
     Returns
     -------
     dict
         The content of comparison.json (docs/run-directory.md): `holdout_rows`, `tweedie_power`,
-        `metrics` per target and model, `differences` with their intervals, `lift`,
+        `diagnostics` (run.json's, the GLM models' `warnings` and the comparison's own: models worse
+        than the null model or with absurd figures, GLM relativities outside `bounds`; each once, as
+        Diagnostic), `metrics` per target and model, `differences` with their intervals, `lift`,
         `double_lift`, `actual_vs_expected` per factor and `cautions`.
 
     Raises
     ------
     InputError
-        Not a run directory, a run without a holdout, or without both GLM and GBM predictions.
+        Not a run directory, a run without a holdout, without both GLM and GBM predictions, or
+        bounds that are not 0 < least < greatest.
     """
     from premiumlab.evaluation import figures
     from premiumlab.evaluation.metrics import (
@@ -61,6 +70,7 @@ def compare(run_dir: str | Path, n_boot: int = N_BOOT) -> dict:
     from premiumlab.runs.experience_step import fitted_basis
     from premiumlab.runs.rundir import open_run
 
+    bounds = check_bounds(bounds)
     run = open_run(run_dir)
     preds = fitted_basis(run.predictions())
     if not preds["holdout"].any():
@@ -72,10 +82,12 @@ def compare(run_dir: str | Path, n_boot: int = N_BOOT) -> dict:
         raise InputError(f"{run.path}: compare needs both GLM and GBM predictions; fit with --models glm,gbm")
     power = run.model_json("glm", "pure_premium")["power"] if "glm_pure_premium" in preds else FALLBACK_TWEEDIE_POWER
     seed = run.spec.split.seed
+    metrics = holdout_metrics(preds, power)
     result = {
         "holdout_rows": int(preds["holdout"].sum()),
         "tweedie_power": power,
-        "metrics": holdout_metrics(preds, power),
+        "diagnostics": _diagnostics(run, metrics, bounds),
+        "metrics": metrics,
         "differences": {},
         "lift": {},
         "double_lift": {},
@@ -116,6 +128,17 @@ def compare(run_dir: str | Path, n_boot: int = N_BOOT) -> dict:
     _cv_figures(run, fig_dir, figures)
     write_json(run.files.comparison, result)
     return result
+
+
+def _diagnostics(run, metrics: dict, bounds: tuple[float, float]) -> list[Diagnostic]:
+    """run.json's diagnostics, the GLM models' warnings and the comparison's own, each once."""
+    own = metric_diagnostics(metrics)
+    for target in run.files.model_targets("glm"):
+        model = run.model_json("glm", target)
+        own += relativity_diagnostics(
+            model_name("glm", target), model["relativities"], bounds, model.get("control", [])
+        )
+    return merge_diagnostics(run.manifest.get("diagnostics", []), model_warnings(run.files), own)
 
 
 def _actual_vs_expected(run, hold: pd.DataFrame, result: dict, fig_dir: Path, ave, figures) -> None:

@@ -27,6 +27,7 @@ from premiumlab.book.spec import Spec, load_spec
 from premiumlab.experience.adjustments import latest_period_holdout, read_text_column
 from premiumlab.experience.cautions import cautions_for
 from premiumlab.runs.book_diagnostics import book_diagnostics
+from premiumlab.runs.diagnostics import merge_diagnostics, model_warnings
 from premiumlab.runs.experience_step import add_adjusted_columns, adjust_book, adjusted_book, fitted_basis
 from premiumlab.runs.glm_step import fit_glms, period_control
 from premiumlab.runs.rundir import RunDir
@@ -211,7 +212,7 @@ def _fit_run(
                 "models": kinds,
                 **({"gbm_search_ran_on": runner.description} if "gbm" in kinds else {}),
                 "warnings": [str(w) for w in book.warnings],
-                "diagnostics": [d.to_dict() for d in diagnostics],
+                "diagnostics": merge_diagnostics(diagnostics, model_warnings(run)),
                 "versions": _versions(),
                 "timings": timings,
                 "cautions": cautions_for(spec),

@@ -9,7 +9,17 @@ import shutil
 import numpy as np
 import pytest
 
-from rating_tables import CategoricalFactor, InteractionFactor, NumericFactor, TableError, audit, audit_path, save
+from rating_tables import (
+    Bands,
+    CategoricalFactor,
+    InteractionFactor,
+    NumericFactor,
+    TableError,
+    audit,
+    audit_path,
+    flattened,
+    save,
+)
 
 from _builders import example_table
 
@@ -139,3 +149,35 @@ def test_symlink_out_of_the_folder_is_reported(tmp_path):
     found = audit_path(folder)
     assert [(v.check, v.factor) for v in found] == [("file_path", "bonus")]
     assert "resolves outside the table folder" in str(found[0])
+
+
+def test_flattening_looks_through_the_two_way_tables():
+    """age promised decreasing; main effect x the age x region table (cut at age 30 or 60) along the
+    cells [-inf, 25), [25, 30 or 60), ...: a run is flat only when every region is."""
+    table = example_table()
+
+    def flat(main: list[float], lower: float, rows: list[list[float]]):
+        age = NumericFactor("age", "decreasing", [-np.inf, 25, 60], [25, 60, np.inf], main, [1.0] * 3)
+        two_way = InteractionFactor(
+            "age__region",
+            ("age", "region"),
+            Bands([-np.inf, lower], [lower, np.inf]),
+            ("North", "South", "Coast"),
+            rows,
+        )
+        return flattened(dataclasses.replace(table, factors=(age, *table.factors[1:3], two_way)))
+
+    same = [[1.0, 1.0, 1.0], [1.0, 1.0, 1.0]]
+    # [25, 30) and [30, 60) are one band cut by the two-way side: no remark on their own
+    assert flat([1.5, 1.0, 0.8], 30, same) == []
+    # [25, 60) and [60, inf) are equal for every region: flagged, with their one value
+    found = flat([1.5, 1.0, 1.0], 60, same)
+    assert [(f.factor, f.kind, f.levels, f.relativity) for f in found] == [
+        ("age", "bands", ("[25, 60)", "[60, inf)"), 1.0)
+    ]
+    # Coast at 1.1 from age 60 separates them
+    assert flat([1.5, 1.0, 1.0], 60, [[1.0, 1.0, 1.0], [1.0, 1.0, 1.1]]) == []
+    # equal along age for every region, but South differs from the others: flat, with no one value
+    found = flat([1.5, 1.0, 1.0], 60, [[1.0, 1.2, 1.0], [1.0, 1.2, 1.0]])
+    assert [(f.levels, f.relativity) for f in found] == [(("[25, 60)", "[60, inf)"), None)]
+    assert "one relativity in each combination of the other factors' cells" in str(found[0])
