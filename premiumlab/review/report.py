@@ -24,13 +24,18 @@ def _figure(path: Path) -> str:
     )
 
 
+def _or_dash(value: float | None, spec: str) -> str:
+    """A figure in `spec`, or a dash where the model JSON has none (null: not meaningful)."""
+    return "-" if value is None else format(value, spec)
+
+
 def _glm_section(files: RunDir) -> str:
     parts = []
     for target in files.model_targets("glm"):
         name = model_name("glm", target)
         m = read_json(files.model_json("glm", target))
         rows = [
-            [c["term"], f"{c['estimate']:.4f}", f"{c['std_error']:.4f}", f"{c['p_value']:.3g}"]
+            [c["term"], f"{c['estimate']:.4f}", _or_dash(c["std_error"], ".4f"), _or_dash(c["p_value"], ".3g")]
             for c in m["coefficients"]
         ]
         power = "" if m.get("power") is None else f", power {m['power']:.2f}"
