@@ -27,6 +27,7 @@ GROUP_LEVELS = 256
 COEFFICIENT_TOLERANCE = 1e-10
 MAX_ITERATIONS = 100
 PENALTY_FREEZE_TOLERANCE = 1e-6
+MAX_PENALTY_STEPS = 50
 ALIAS_TOLERANCE = 1e-9
 STEP_HALVINGS = 30
 CELLS_MIN_LIMIT = 1_000
@@ -517,6 +518,8 @@ class EngineFit:
 
     ``unit_covariance`` is (X'WX + diag(ridge))^-1 at unit dispersion: times the dispersion it is
     the covariance of the estimates (unpenalised, ridge 0) or their posterior covariance (penalised).
+    ``penalty_change`` is the largest relative change of the ridge at its last re-choice (0 when
+    it is fixed).
     """
 
     beta: np.ndarray
@@ -524,6 +527,7 @@ class EngineFit:
     converged: bool
     iterations: int
     ridge: np.ndarray
+    penalty_change: float = 0.0
 
     @property
     def effective_parameters(self) -> float:
@@ -586,7 +590,8 @@ def newton_fit(
     w mu^(2-p) for Poisson, and converges quadratically also where Fisher scoring does not), halved
     (at most STEP_HALVINGS times) while Q rises by more than a 1e-12 share. With `choose_ridge`,
     the ridge is re-chosen at every step from that step's `WorkingModel` until the step falls below
-    PENALTY_FREEZE_TOLERANCE; then it is held and the fit continues. Starts at the intercept
+    PENALTY_FREEZE_TOLERANCE, or for at most MAX_PENALTY_STEPS steps (where one large residual
+    dominates the dispersion, the two settle together slowly); then it is held and the fit continues. Starts at the intercept
     log(sum a / sum w) (or at `start`); converged when every coefficient's step is below
     COEFFICIENT_TOLERANCE within MAX_ITERATIONS steps. The covariance is taken from Fisher's
     information X' diag(w mu^(2-p)) X + R at the last step's start, as statsmodels reports it.
@@ -623,8 +628,8 @@ def newton_fit(
         ridge = start.ridge.copy()
     mu = np.exp(columns.linear_predictor(beta))
     deviance = mean_dependent_deviance(data, mu, power)
-    adapting, converged, iteration = choose_ridge is not None, False, 0
-    for iteration in range(1, MAX_ITERATIONS + 1):  # noqa: B007 - the count of steps is returned
+    adapting, converged, iteration, penalty_change = choose_ridge is not None, False, 0, 0.0
+    for iteration in range(1, MAX_ITERATIONS + 1):
         start_mu = mu
         scale = mu ** (1.0 - power)
         gram = columns.gram(scale * ((2.0 - power) * mu * data.weight + (power - 1.0) * data.numerator))
@@ -632,7 +637,9 @@ def newton_fit(
         if adapting:
             assert choose_ridge is not None
             chi2 = None if family.name == "poisson" else pearson_chi2(data, mu, power)
-            ridge = choose_ridge(WorkingModel(gram, right, beta, chi2, data.n_rows), ridge)
+            chosen = choose_ridge(WorkingModel(gram, right, beta, chi2, data.n_rows), ridge)
+            penalty_change = _relative_change(ridge, chosen)
+            ridge = chosen
         newton_step = scipy.linalg.cho_solve(scipy.linalg.cho_factor(gram + np.diag(ridge)), right) - beta
         objective = deviance + beta @ (ridge * beta)
         step = newton_step
@@ -645,14 +652,24 @@ def newton_fit(
             step = step / 2
         beta, mu, deviance = trial, mu_trial, deviance_trial
         size = float(np.max(np.abs(newton_step)))
-        if adapting and size < PENALTY_FREEZE_TOLERANCE:
+        if adapting and (size < PENALTY_FREEZE_TOLERANCE or iteration >= MAX_PENALTY_STEPS):
             adapting = False
         elif not adapting and size < COEFFICIENT_TOLERANCE:
             converged = True
             break
     fisher = gram if power == 1.0 else columns.gram(data.weight * start_mu ** (2.0 - power))
     unit_covariance = scipy.linalg.cho_solve(scipy.linalg.cho_factor(fisher + np.diag(ridge)), np.eye(len(beta)))
-    return EngineFit(beta, unit_covariance, converged, iteration, ridge)
+    return EngineFit(beta, unit_covariance, converged, iteration, ridge, penalty_change)
+
+
+def _relative_change(old: np.ndarray, new: np.ndarray) -> float:
+    """max |new / old - 1| over the penalised columns (inf where a penalty appears or vanishes)."""
+    moved = (old > 0) | (new > 0)
+    if not moved.any():
+        return 0.0
+    if not np.all(old[moved] > 0):
+        return float("inf")
+    return float(np.max(np.abs(new[moved] / old[moved] - 1.0)))
 
 
 def fit_on_cells(

@@ -30,6 +30,7 @@ from premiumlab.models.glm.credibility import (
     penalty_groups,
 )
 from premiumlab.models.glm.engines import (
+    MAX_PENALTY_STEPS,
     Cells,
     ColumnChoice,
     EngineFit,
@@ -48,6 +49,7 @@ from premiumlab.models.targets import FREQUENCY, PURE_PREMIUM, SEVERITY, Target
 
 ENGINES = ("auto", "cells", "rows")
 SHOWN_LEVELS = 5
+PENALTY_SETTLED = 1e-3
 
 
 @dataclass(frozen=True)
@@ -460,6 +462,15 @@ def _diagnostics(
     """The model's warnings: non-convergence, levels without claims, and terms not estimated."""
     model, label = problem.model, problem.label
     found = []
+    if penalised and fit.penalty_change > PENALTY_SETTLED:
+        found.append(
+            Diagnostic(
+                "non_convergence",
+                model,
+                f"the credibility penalty of the {label} GLM still moved by {fit.penalty_change:.1%} at its "
+                f"last step when it was held after {MAX_PENALTY_STEPS} steps; the shrinkage is approximate",
+            )
+        )
     if not fit.converged:
         hint = "" if penalised else ' (levels without claims run to zero; [glm] penalty = "credibility" holds them)'
         found.append(
