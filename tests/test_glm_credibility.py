@@ -21,6 +21,8 @@ import pytest
 from sklearn.linear_model import GammaRegressor, PoissonRegressor, TweedieRegressor
 
 import premiumlab
+import premiumlab.models.glm.fit as glm
+from premiumlab._core.errors import InputError
 from premiumlab.models.glm.credibility import MIN_LEVELS, credibility_rule, penalty_groups
 from premiumlab.models.glm.engines import (
     GAMMA,
@@ -246,3 +248,23 @@ def test_property_unseen_territories_are_counted(property_run):
         found = [w for w in model["warnings"] if w["kind"] == "unseen_levels"]
         assert [(w["factor"], w["model"]) for w in found] == [("territory", f"glm_{target}")]
         assert found[0]["message"].startswith(f"{unseen} rows with a value that is not a level")
+
+
+def test_a_failed_unpenalised_profile_names_the_model_and_the_cure(inputs, monkeypatch):
+    """A numerical failure while profiling the Tweedie power (a mean that ran to zero) reaches the
+    user as one input error naming the model, and for an unpenalised fit with a level without
+    losses, the credibility penalty (the profile is replaced by one that fails as scipy does)."""
+
+    def failing(*_args, **_kwargs):
+        raise ValueError("Optimization bounds must be finite scalars.")
+
+    monkeypatch.setattr(glm, "profile_power", failing)
+    amount = inputs.claim_amount.copy()
+    count = inputs.claim_count.copy()
+    thin = inputs.factors["zone"].to_numpy() == "zone11"
+    count[thin], amount[thin] = 0.0, 0.0
+    changed = GlmInputs(inputs.factors, inputs.base_levels, inputs.exposure, count, amount)
+    with pytest.raises(
+        InputError, match=r"the pure premium GLM could not be fitted \(Optimization bounds.*credibility"
+    ):
+        fit_pure_premium(changed, penalty="none")

@@ -11,6 +11,8 @@ shrunk towards its base by the credibility penalty that the data choose
 
 from __future__ import annotations
 
+from collections.abc import Iterator
+from contextlib import contextmanager
 from dataclasses import asdict, dataclass, field
 from typing import Any
 
@@ -340,10 +342,9 @@ def _engine_name(engine: str, problem: _Problem) -> str:
 def _estimate(
     problem: _Problem, family: Family, engine: str, penalty: str, start: EngineFit | None = None
 ) -> EngineFit:
-    """The engine's fit, penalised as asked (warm-started at `start`); a numerical failure inside it
-    (the linear algebra) becomes an InputError naming the model, since it comes from the data."""
+    """The engine's fit, penalised as asked (warm-started at `start`)."""
     rule = credibility_rule(problem.groups) if penalty == "credibility" and problem.groups.names else None
-    try:
+    with _failures_named(problem, penalty):
         if engine == "cells":
             return fit_on_cells(problem.cells, problem.columns.kept, family, choose_ridge=rule, start=start)
         return fit_on_rows(
@@ -355,13 +356,21 @@ def _estimate(
             choose_ridge=rule,
             start=start,
         )
+
+
+@contextmanager
+def _failures_named(problem: _Problem, penalty: str) -> Iterator[None]:
+    """A numerical failure in a fit (the linear algebra, or a mean that ran to zero) becomes an
+    InputError naming the model, since it comes from the data."""
+    try:
+        yield
     except InputError:
         raise
     except (ValueError, FloatingPointError, np.linalg.LinAlgError) as e:
-        raise InputError(
-            f"the {problem.label} GLM could not be fitted ({' '.join(str(e).split())}); "
-            "check the book for extreme or degenerate values"
-        ) from None
+        hint = "check the book for extreme or degenerate values"
+        if penalty == "none" and len(_levels_without_claims(problem)):
+            hint = 'it has levels without claims, whose unpenalised estimates run to zero; use the credibility penalty ([glm] penalty = "credibility")'
+        raise InputError(f"the {problem.label} GLM could not be fitted ({' '.join(str(e).split())}); {hint}") from None
 
 
 def _full_beta(problem: _Problem, fit: EngineFit) -> np.ndarray:
@@ -668,7 +677,8 @@ def fit_pure_premium(
             fits[candidate] = _estimate(problem, _family(PURE_PREMIUM, candidate), engine, penalty, start=last)
             return np.exp(problem.design.linear_predictor(_full_beta(problem, fits[candidate])))
 
-        chosen, profile = profile_power(row_means, problem.numerator / problem.weight, problem.weight)
+        with _failures_named(problem, penalty):
+            chosen, profile = profile_power(row_means, problem.numerator / problem.weight, problem.weight)
         notes = [f"power {chosen:g} chosen by profile likelihood over {POWER_GRID[0]:g}..{POWER_GRID[-1]:g}"]
         if chosen in (POWER_GRID[0], POWER_GRID[-1]):
             notes.append(f"power {chosen:g} is at the edge of the searched range; the likelihood may peak outside it")
