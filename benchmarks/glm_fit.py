@@ -6,7 +6,7 @@ Run by hand: ``python benchmarks/glm_fit.py [--rows N]``. Invented books, seeded
     Tweedie pure premium (power 1.5);
 (b) ten factors, cells close to rows (rows engine); Poisson frequency;
 (c) where the engines cross: both engines timed on books with a growing number of cells, the
-    evidence for the ``auto`` rule (cells when at most max(1,000, 5 % of rows)).
+    evidence for the ``auto`` rule (cells when at most max(1,000, 50 % of rows)).
 
 statsmodels is timed on ``GLM(...).fit()`` alone (dense one-hot exog built beforehand, var_weights,
 offset log exposure for Poisson); premiumlab on the whole public function, input checks, cell

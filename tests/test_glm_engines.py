@@ -156,11 +156,11 @@ def test_row_order_does_not_change_the_model(book):
 
 
 def test_engine_choice_rule():
-    """Cells when they are at most max(1000, 5 % of rows)."""
-    assert choose_engine(10_000, 1_000) == "cells"
-    assert choose_engine(10_000, 1_001) == "rows"
-    assert choose_engine(1_000_000, 50_000) == "cells"
-    assert choose_engine(1_000_000, 50_001) == "rows"
+    """Cells when they are at most max(1000, 50 % of rows)."""
+    assert choose_engine(1_000, 1_000) == "cells"
+    assert choose_engine(1_500, 1_001) == "rows"
+    assert choose_engine(1_000_000, 500_000) == "cells"
+    assert choose_engine(1_000_000, 500_001) == "rows"
 
 
 @pytest.mark.parametrize(
