@@ -292,7 +292,7 @@ def test_no_experience_or_a_cap_above_every_loss_leaves_the_models_unchanged(tmp
 
 def test_period_control_matches_statsmodels_and_frequency_trend_enters_the_counts(tmp_path):
     """The period as a control factor, with counts developed and trended by a multiplier m per period:
-    the Poisson GLM equals statsmodels' GLM on the rows with C(year) added and offset log(exposure / m)
+    the unpenalised Poisson GLM equals statsmodels' GLM on the rows with C(year) added and offset log(exposure / m)
     (to 1e-6), and differs by sampling error only (0.02) from the fit on fractional counts count x m."""
     import statsmodels.formula.api as smf
 
@@ -302,6 +302,7 @@ def test_period_control_matches_statsmodels_and_frequency_trend_enters_the_count
         + (
             "\n[experience]\ntrend = { frequency = 0.03 }\ndevelopment = { 2024 = 1.0, 2025 = 1.2 }\n"
             "development_applies_to_counts = true\nperiod_control = true\n"
+            '\n[glm]\npenalty = "none"\n'
         )
     )
     run = fit(tmp_path / "book.csv", tmp_path / "spec.toml", tmp_path / "run", models="glm")

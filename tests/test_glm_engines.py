@@ -80,7 +80,7 @@ def test_aliased_factor_is_dropped_and_named(book, engine):
         "cover": labelled(book["cover"], "c"),
         "area_copy": pd.Categorical.from_codes(3 - book["area"].to_numpy(), ["z0", "z1", "z2", "z3"]),
     }
-    result = fit_frequency(inputs_of(book, factors), engine=engine)
+    result = fit_frequency(inputs_of(book, factors), engine=engine, penalty="none")
     assert result.aliased == ["area_copy[z1]", "area_copy[z2]", "area_copy[z3]"]
     assert sum("aliased" in note for note in result.notes) == 3
     assert all(value == 1.0 for value in result.relativities["area_copy"].values())
@@ -93,10 +93,13 @@ def test_aliased_factor_is_dropped_and_named(book, engine):
 
 @pytest.mark.parametrize("engine", ENGINES)
 def test_level_without_exposure_is_reported(book, engine):
-    """A level with no rows is named in `aliased` and the notes; estimates equal statsmodels to 1e-8."""
+    """A level with no rows is named in `no_rows` (not `aliased`), the notes and the warnings;
+    estimates equal statsmodels to 1e-8."""
     factors = {"area": labelled(book["area"], "a", extra=("a_unused",)), "cover": labelled(book["cover"], "c")}
-    result = fit_frequency(inputs_of(book, factors), engine=engine)
-    assert result.aliased == ["area[a_unused]"]
+    result = fit_frequency(inputs_of(book, factors), engine=engine, penalty="none")
+    assert result.no_rows == ["area[a_unused]"] and result.aliased == []
+    assert [(w["kind"], w["factor"], w["level"]) for w in result.warnings] == [("aliased", "area", "a_unused")]
+    assert "no rows in the frequency fit" in result.warnings[0]["message"]
     assert any(note.startswith("area[a_unused]: no rows") for note in result.notes)
     assert result.relativities["area"]["a_unused"] == 1.0
     assert list(result.relativities["area"]) == ["a0", "a1", "a2", "a3", "a_unused"]
@@ -111,9 +114,9 @@ def test_level_without_claims_is_dropped_from_severity_only(book):
     cover[book["count"].to_numpy() == 0] = np.where(book["area"] == 0, 3, cover)[book["count"].to_numpy() == 0]
     factors = {"area": labelled(book["area"], "a"), "cover": pd.Categorical.from_codes(cover, ["c0", "c1", "c2", "c3"])}
     inputs = inputs_of(book, factors)
-    assert "cover[c3]" not in fit_frequency(inputs).aliased
+    assert "cover[c3]" not in fit_frequency(inputs).no_rows
     severity = fit_severity(inputs)
-    assert severity.aliased == ["cover[c3]"]
+    assert severity.no_rows == ["cover[c3]"] and severity.aliased == []
     with_claims = (book["count"] > 0) & (book["amount"] > 0)
     assert severity.n_rows == int(with_claims.sum())
     nil = int(((book["count"] > 0) & (book["amount"] == 0)).sum())
@@ -153,11 +156,11 @@ def test_row_order_does_not_change_the_model(book):
 
 
 def test_engine_choice_rule():
-    """Cells when they are at most max(1000, 5 % of rows)."""
-    assert choose_engine(10_000, 1_000) == "cells"
-    assert choose_engine(10_000, 1_001) == "rows"
-    assert choose_engine(1_000_000, 50_000) == "cells"
-    assert choose_engine(1_000_000, 50_001) == "rows"
+    """Cells when they are at most max(1000, 50 % of rows)."""
+    assert choose_engine(1_000, 1_000) == "cells"
+    assert choose_engine(1_500, 1_001) == "rows"
+    assert choose_engine(1_000_000, 500_000) == "cells"
+    assert choose_engine(1_000_000, 500_001) == "rows"
 
 
 @pytest.mark.parametrize(
@@ -197,13 +200,10 @@ def test_bad_calls_are_refused_by_name(book):
         fit_pure_premium(inputs, power=2.0)
     with pytest.raises(InputError, match="claim_amount: required for the severity model"):
         fit_severity(inputs_of(book, factors, claim_amount=None))
-    frame = pd.DataFrame(factors).astype(str)
-    frame.loc[5, "cover"] = "c7"
-    with pytest.raises(InputError, match="factor 'cover': level 'c7' at row position 5"):
-        fit_frequency(inputs).predict(frame)
-    frame.loc[5, "cover"], frame.loc[3, "area"] = frame.loc[4, "cover"], None
-    with pytest.raises(InputError, match="factor 'area': level '<NA>' at row position 3 is missing"):
-        fit_frequency(inputs).predict(frame)
+    with pytest.raises(InputError, match="penalty: expected one of credibility, none, got 'lasso'"):
+        fit_frequency(inputs, penalty="lasso")
+    with pytest.raises(InputError, match="factors: column 'cover' is missing"):
+        fit_frequency(inputs).predict(pd.DataFrame(factors).drop(columns="cover"))
 
 
 def test_a_numerical_failure_inside_an_engine_names_the_model(book, monkeypatch):

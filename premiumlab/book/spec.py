@@ -105,10 +105,12 @@ class Split:
 
 @dataclass(frozen=True)
 class GlmOptions:
-    """GLM baseline options. engine: auto | cells | rows; tweedie_power: "auto" or a number in (1, 2)."""
+    """GLM baseline options. engine: auto | cells | rows; tweedie_power: "auto" or a number in (1, 2);
+    penalty: credibility | none (docs/spec.md, [glm])."""
 
     engine: str = "auto"
     tweedie_power: float | str = "auto"
+    penalty: str = "credibility"
 
 
 @dataclass(frozen=True)
@@ -514,6 +516,7 @@ def parse_spec(doc: dict, source: str = "spec") -> Spec:
             {
                 "engine": lambda t, k: t.string(k, choices=("auto", "cells", "rows")),
                 "tweedie_power": lambda t, k: _power(t, k, "auto"),
+                "penalty": lambda t, k: t.string(k, choices=("credibility", "none")),
             },
         )
     )

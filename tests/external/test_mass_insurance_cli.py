@@ -36,6 +36,9 @@ base = "<25"
 
 [split]
 holdout = 0.0
+
+[glm]
+penalty = "none"
 """
 
 

@@ -1,14 +1,19 @@
 """GLM baselines: Poisson frequency, Gamma severity and Tweedie pure premium, log link.
 
-Estimates come from the cells engine (statsmodels on the distinct combinations of levels, exact)
-or the rows engine (IRLS on the sparse one-hot rows); every statistic is the row-level one that
-statsmodels reports for the fit on the rows with ``var_weights`` (and offset log exposure for
-Poisson). Terms are ``Intercept`` and ``factor[level]`` with treatment coding against the base level.
+Estimates come from the cells engine (Newton's method on the distinct combinations of levels,
+exact) or the rows engine (the same loop on the sparse one-hot rows); every statistic is the
+row-level one that statsmodels reports for the fit on the rows with ``var_weights`` (and offset log
+exposure for Poisson). Terms are ``Intercept`` and ``factor[level]`` with treatment coding against
+the base level. With ``penalty="credibility"`` (the default) each factor's level coefficients are
+shrunk towards its base by the credibility penalty that the data choose
+(`premiumlab.models.glm.credibility`); ``penalty="none"`` is the maximum-likelihood fit.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from collections.abc import Iterator
+from contextlib import contextmanager
+from dataclasses import asdict, dataclass, field
 from typing import Any
 
 import numpy as np
@@ -16,9 +21,18 @@ import pandas as pd
 import scipy.stats
 
 from premiumlab._core.cautions import DRAFT
+from premiumlab._core.diagnostics import Diagnostic
 from premiumlab._core.errors import InputError
 from premiumlab._core.validators import ABOVE_ZERO, AT_LEAST_ZERO, COUNT, Rule, checked_array
+from premiumlab.models.glm.credibility import (
+    PENALTIES,
+    PenaltyGroups,
+    credibility_rule,
+    factor_credibility,
+    penalty_groups,
+)
 from premiumlab.models.glm.engines import (
+    MAX_PENALTY_STEPS,
     Cells,
     ColumnChoice,
     EngineFit,
@@ -36,6 +50,8 @@ from premiumlab.models.glm.tweedie import POWER_GRID, profile_power
 from premiumlab.models.targets import FREQUENCY, PURE_PREMIUM, SEVERITY, Target
 
 ENGINES = ("auto", "cells", "rows")
+SHOWN_LEVELS = 5
+PENALTY_SETTLED = 1e-3
 
 
 @dataclass(frozen=True)
@@ -115,18 +131,25 @@ class GlmResult:
     n_cells: int
     deviance: float
     null_deviance: float
-    df_resid: int
+    df_resid: float
     dispersion: float
     pearson_chi2: float
     aic: float
     llf: float
+    penalty: str
+    converged: bool
+    iterations: int
+    effective_parameters: float
     coefficients: list[dict[str, Any]]
     relativities: dict[str, dict[str, float]]
     base_levels: dict[str, str]
     control: list[str] = field(default_factory=list)
+    credibility: dict[str, dict[str, float]] = field(default_factory=dict)
     aliased: list[str] = field(default_factory=list)
+    no_rows: list[str] = field(default_factory=list)
     power_profile: list[dict[str, float]] = field(default_factory=list)
     notes: list[str] = field(default_factory=list)
+    warnings: list[dict[str, Any]] = field(default_factory=list)
 
     def to_json_dict(self) -> dict[str, Any]:
         """Plain JSON-able dict in a fixed key order; non-finite floats become null."""
@@ -139,11 +162,15 @@ class GlmResult:
             "n_cells": int(self.n_cells),
             "deviance": _json_float(self.deviance),
             "null_deviance": _json_float(self.null_deviance),
-            "df_resid": int(self.df_resid),
+            "df_resid": _json_number(self.df_resid),
             "dispersion": _json_float(self.dispersion),
             "pearson_chi2": _json_float(self.pearson_chi2),
             "aic": _json_float(self.aic),
             "llf": _json_float(self.llf),
+            "penalty": self.penalty,
+            "converged": bool(self.converged),
+            "iterations": int(self.iterations),
+            "effective_parameters": _json_number(self.effective_parameters),
             "coefficients": [
                 {
                     key: (row[key] if key == "term" else _json_float(row[key]))
@@ -157,11 +184,17 @@ class GlmResult:
             },
             "base_levels": dict(self.base_levels),
             "control": list(self.control),
+            "credibility": {
+                name: {key: _json_number(value) for key, value in entry.items()}
+                for name, entry in self.credibility.items()
+            },
             "aliased": list(self.aliased),
+            "no_rows": list(self.no_rows),
             "power_profile": [
                 {key: _json_float(value) for key, value in entry.items()} for entry in self.power_profile
             ],
             "notes": list(self.notes),
+            "warnings": [dict(entry) for entry in self.warnings],
             "caution": DRAFT,
         }
 
@@ -176,13 +209,44 @@ class GlmResult:
 
     def predict(self, factors: pd.DataFrame) -> np.ndarray:
         """Mean per exposure unit (frequency, pure premium) or per claim (severity):
-        exp(Intercept) x product of the relativities of each row's levels."""
+        exp(Intercept) x product of the relativities of each row's levels.
+
+        A value that is not a fitted level (a level unseen in the training rows, a missing value)
+        takes the complement, relativity 1 (the base level); `unseen_rows` finds those rows.
+
+        Parameters
+        ----------
+        factors : pandas.DataFrame
+            One column per fitted factor; values compared as text with the fitted levels.
+
+        Returns
+        -------
+        np.ndarray
+            The mean of every row (money or claims per exposure unit, or money per claim).
+        """
         intercept = next(row["estimate"] for row in self.coefficients if row["term"] == "Intercept")
         log_mean = np.full(len(factors), float(intercept))
         for name, levels in self.relativities.items():
             codes = _level_codes(factors, name, list(levels))
-            log_mean += np.log(np.array(list(levels.values()), dtype=float))[codes]
+            log_relativity = np.append(np.log(np.array(list(levels.values()), dtype=float)), 0.0)
+            log_mean += log_relativity[codes]  # code -1, not a fitted level: the appended 0
         return np.exp(log_mean)
+
+    def unseen_rows(self, factors: pd.DataFrame) -> dict[str, np.ndarray]:
+        """Per factor with any, the rows whose value is not a fitted level (priced at the base by `predict`).
+
+        Parameters
+        ----------
+        factors : pandas.DataFrame
+            One column per fitted factor, as for `predict`.
+
+        Returns
+        -------
+        dict[str, np.ndarray]
+            Factor name -> boolean mask of its rows with a value that is not a fitted level.
+        """
+        masks = {name: _level_codes(factors, name, list(levels)) < 0 for name, levels in self.relativities.items()}
+        return {name: mask for name, mask in masks.items() if mask.any()}
 
 
 def _json_float(value: float | None) -> float | None:
@@ -191,37 +255,50 @@ def _json_float(value: float | None) -> float | None:
     return float(value)
 
 
+def _json_number(value: float) -> float | int | None:
+    """A whole number as an integer (the unpenalised degrees of freedom), otherwise as `_json_float`."""
+    if np.isfinite(value) and float(value).is_integer():
+        return int(value)
+    return _json_float(value)
+
+
 def _level_codes(factors: pd.DataFrame, name: str, levels: list[str]) -> np.ndarray:
-    """Position of each row's value (as text) among `levels`; matched once per distinct value."""
+    """Position of each row's value (as text) among `levels`, -1 for a missing value or another level;
+    matched once per distinct value."""
     if name not in factors.columns:
         raise InputError(f"factors: column '{name}' is missing")
-    column = factors[name]
-    row_codes, uniques = pd.factorize(column, use_na_sentinel=True)
+    row_codes, uniques = pd.factorize(factors[name], use_na_sentinel=True)
     text = pd.Series(np.asarray(uniques, dtype=object), dtype=object).astype("string")
     level_of = pd.Index(levels, dtype=object).get_indexer(text.to_numpy(dtype=object, na_value=None))
-    codes = np.append(level_of, -1)[row_codes]  # a missing value (code -1) matches no level
-    unknown = np.flatnonzero(codes < 0)
-    if unknown.size:
-        value = column.iloc[[unknown[0]]].astype("string").iloc[0]
-        raise InputError(
-            f"factor '{name}': level '{value}' at row position {unknown[0]} is missing or not a fitted level"
-        )
-    return codes.astype(np.int64)
+    return np.append(level_of, -1)[row_codes].astype(np.int64)  # a missing value (code -1) matches no level
 
 
 @dataclass(frozen=True)
 class _Problem:
     """One model's rows: design, numerator (count or amount), weight (exposure or count)."""
 
-    label: str
+    target: Target
     design: OneHotDesign
     numerator: np.ndarray
     weight: np.ndarray
     cells: Cells
     columns: ColumnChoice
+    groups: PenaltyGroups
+
+    @property
+    def label(self) -> str:
+        return self.target.title
+
+    @property
+    def model(self) -> str:
+        """The model's name in the run (docs/run-directory.md): glm_TARGET."""
+        return f"glm_{self.target.name}"
 
 
-def _problem(label: str, inputs: GlmInputs, rows: np.ndarray, numerator: np.ndarray, weight: np.ndarray) -> _Problem:
+def _problem(
+    target: Target, inputs: GlmInputs, rows: np.ndarray, numerator: np.ndarray, weight: np.ndarray
+) -> _Problem:
+    label = target.title
     design = _design(inputs)
     if not rows.all():
         design = design.take(rows)
@@ -237,7 +314,8 @@ def _problem(label: str, inputs: GlmInputs, rows: np.ndarray, numerator: np.ndar
         raise InputError(
             f"{label}: {design.n_rows} rows for {len(columns.kept)} parameters; the fit needs more rows than parameters"
         )
-    return _Problem(label, design, numerator[rows], weight[rows], cells, columns)
+    groups = penalty_groups(design, columns.kept)
+    return _Problem(target, design, numerator[rows], weight[rows], cells, columns, groups)
 
 
 def _design(inputs: GlmInputs) -> OneHotDesign:
@@ -248,9 +326,11 @@ def _design(inputs: GlmInputs) -> OneHotDesign:
     return OneHotDesign(names, levels, base_codes, codes)
 
 
-def _check_engine(engine: str) -> None:
+def _check_options(engine: str, penalty: str) -> None:
     if engine not in ENGINES:
         raise InputError(f"engine: expected one of {', '.join(ENGINES)}, got '{engine}'")
+    if penalty not in PENALTIES:
+        raise InputError(f"penalty: expected one of {', '.join(PENALTIES)}, got '{penalty}'")
 
 
 def _engine_name(engine: str, problem: _Problem) -> str:
@@ -259,20 +339,38 @@ def _engine_name(engine: str, problem: _Problem) -> str:
     return engine
 
 
-def _estimate(problem: _Problem, family: Family, engine: str) -> EngineFit:
-    """The engine's fit; a numerical failure inside it (statsmodels or the linear algebra) becomes an
+def _estimate(
+    problem: _Problem, family: Family, engine: str, penalty: str, start: EngineFit | None = None
+) -> EngineFit:
+    """The engine's fit, penalised as asked (warm-started at `start`)."""
+    rule = credibility_rule(problem.groups) if penalty == "credibility" and problem.groups.names else None
+    with _failures_named(problem, penalty):
+        if engine == "cells":
+            return fit_on_cells(problem.cells, problem.columns.kept, family, choose_ridge=rule, start=start)
+        return fit_on_rows(
+            problem.design,
+            problem.numerator,
+            problem.weight,
+            problem.columns.kept,
+            family,
+            choose_ridge=rule,
+            start=start,
+        )
+
+
+@contextmanager
+def _failures_named(problem: _Problem, penalty: str) -> Iterator[None]:
+    """A numerical failure in a fit (the linear algebra, or a mean that ran to zero) becomes an
     InputError naming the model, since it comes from the data."""
     try:
-        if engine == "cells":
-            return fit_on_cells(problem.cells, problem.columns.kept, family)
-        return fit_on_rows(problem.design, problem.numerator, problem.weight, problem.columns.kept, family)
+        yield
     except InputError:
         raise
     except (ValueError, FloatingPointError, np.linalg.LinAlgError) as e:
-        raise InputError(
-            f"the {problem.label} GLM could not be fitted ({' '.join(str(e).split())}); "
-            "check the book for extreme or degenerate values"
-        ) from None
+        hint = "check the book for extreme or degenerate values"
+        if penalty == "none" and len(_levels_without_claims(problem)):
+            hint = 'it has levels without claims, whose unpenalised estimates run to zero; use the credibility penalty ([glm] penalty = "credibility")'
+        raise InputError(f"the {problem.label} GLM could not be fitted ({' '.join(str(e).split())}); {hint}") from None
 
 
 def _full_beta(problem: _Problem, fit: EngineFit) -> np.ndarray:
@@ -281,20 +379,34 @@ def _full_beta(problem: _Problem, fit: EngineFit) -> np.ndarray:
     return beta_full
 
 
-def _fit(problem: _Problem, family: Family, engine: str, inputs: GlmInputs, notes: list[str]) -> GlmResult:
-    fit = _estimate(problem, family, engine)
+def _fit(
+    problem: _Problem,
+    family: Family,
+    engine: str,
+    penalty: str,
+    inputs: GlmInputs,
+    notes: list[str],
+    fit: EngineFit | None = None,
+) -> GlmResult:
+    """The GlmResult of `problem` at `family` (from `fit` when it is already estimated)."""
+    if fit is None:
+        fit = _estimate(problem, family, engine, penalty)
     beta_full = _full_beta(problem, fit)
     kept = problem.columns.kept
-    stats = row_statistics(problem.design, beta_full, problem.numerator, problem.weight, family, len(kept))
+    penalised = bool(np.any(fit.ridge > 0))
+    parameters = fit.effective_parameters if penalised else len(kept)
+    stats = row_statistics(problem.design, beta_full, problem.numerator, problem.weight, family, parameters)
     std_error = np.sqrt(np.diag(fit.unit_covariance) * stats.dispersion)
-    p_value = 2.0 * scipy.stats.norm.sf(np.abs(fit.beta / std_error))
     terms = problem.design.full_terms()
+    without = _levels_without_claims(problem)
+    if not penalised:
+        std_error[np.isin(kept, without)] = np.nan  # the estimate runs to -infinity: no standard error
+    p_value = 2.0 * scipy.stats.norm.sf(np.abs(fit.beta / std_error))
     design = problem.design
     relativities = {
         name: {level: float(np.exp(beta_full[offset + k])) for k, level in enumerate(levels)}
         for name, levels, offset in zip(design.factor_names, design.levels, design.offsets)
     }
-    dropped = set(problem.columns.no_data) | set(problem.columns.collinear)
     notes = list(notes)
     notes += [
         f"{term}: no rows in the {problem.label} fit; not estimated, relativity 1.0" for term in problem.columns.no_data
@@ -305,6 +417,7 @@ def _fit(problem: _Problem, family: Family, engine: str, inputs: GlmInputs, note
     ]
     if not fit.converged:
         notes.append(f"{engine} engine did not converge in {fit.iterations} iterations")
+    credibility = factor_credibility(problem.groups, fit, stats.dispersion) if penalised else {}
     return GlmResult(
         family=family.name,
         power=family.power if family.name == "tweedie" else None,
@@ -319,6 +432,10 @@ def _fit(problem: _Problem, family: Family, engine: str, inputs: GlmInputs, note
         pearson_chi2=stats.pearson_chi2,
         aic=stats.aic,
         llf=stats.llf,
+        penalty=penalty,
+        converged=fit.converged,
+        iterations=fit.iterations,
+        effective_parameters=parameters,
         coefficients=[
             {"term": terms[column], "estimate": float(b), "std_error": float(se), "p_value": float(p)}
             for column, b, se, p in zip(kept, fit.beta, std_error, p_value)
@@ -326,9 +443,103 @@ def _fit(problem: _Problem, family: Family, engine: str, inputs: GlmInputs, note
         relativities=relativities,
         base_levels=dict(inputs.base_levels),
         control=list(inputs.control),
-        aliased=[term for term in terms if term in dropped],
+        credibility={name: asdict(entry) for name, entry in credibility.items()},
+        aliased=list(problem.columns.collinear),
+        no_rows=list(problem.columns.no_data),
         notes=notes,
+        warnings=[d.to_dict() for d in _diagnostics(problem, fit, penalised, relativities, without)],
     )
+
+
+def _levels_without_claims(problem: _Problem) -> np.ndarray:
+    """Full-space columns of levels (base included) with rows but a numerator summing to 0."""
+    cells = problem.cells
+    rows = cells.design.transpose_times(cells.row_count)
+    numerator = cells.design.transpose_times(cells.numerator)
+    without = (rows > 0) & (numerator == 0)
+    without[0] = False
+    return np.flatnonzero(without)
+
+
+def _diagnostics(
+    problem: _Problem,
+    fit: EngineFit,
+    penalised: bool,
+    relativities: dict[str, dict[str, float]],
+    without: np.ndarray,
+) -> list[Diagnostic]:
+    """The model's warnings: non-convergence, levels without claims, and terms not estimated."""
+    model, label = problem.model, problem.label
+    found = []
+    if penalised and fit.penalty_change > PENALTY_SETTLED:
+        found.append(
+            Diagnostic(
+                "non_convergence",
+                model,
+                f"the credibility penalty of the {label} GLM still moved by {fit.penalty_change:.1%} at its "
+                f"last step when it was held after {MAX_PENALTY_STEPS} steps; the shrinkage is approximate",
+            )
+        )
+    if not fit.converged:
+        hint = "" if penalised else ' (levels without claims run to zero; [glm] penalty = "credibility" holds them)'
+        found.append(
+            Diagnostic(
+                "non_convergence",
+                model,
+                f"the {label} GLM did not converge in {fit.iterations} Newton steps; its estimates are unreliable{hint}",
+            )
+        )
+    losses = "claims" if problem.target.name == "frequency" else "losses"
+    for name, levels in _by_factor(problem.design, without).items():
+        lowest = min(relativities[name][level] for level in levels)
+        effect = (
+            f"the credibility penalty holds them near the base (lowest relativity {lowest:.3g})"
+            if penalised
+            else f"their estimates run to zero (lowest relativity {lowest:.3g})"
+        )
+        found.append(_per_factor("separation", model, name, levels, f"without {losses} in the {label} fit; {effect}"))
+    terms = problem.design.full_terms()
+    no_rows = np.flatnonzero(np.isin(terms, problem.columns.no_data))
+    for name, levels in _by_factor(problem.design, no_rows).items():
+        found.append(
+            _per_factor(
+                "aliased",
+                model,
+                name,
+                levels,
+                f"with no rows in the {label} fit: not estimated, relativity 1 (the base)",
+            )
+        )
+    collinear = np.flatnonzero(np.isin(terms, problem.columns.collinear))
+    for name, levels in _by_factor(problem.design, collinear).items():
+        found.append(
+            _per_factor(
+                "aliased",
+                model,
+                name,
+                levels,
+                "aliased (a linear combination of earlier terms): relativity 1 (the base)",
+            )
+        )
+    return found
+
+
+def _by_factor(design: OneHotDesign, columns: np.ndarray) -> dict[str, list[str]]:
+    """Full-space columns grouped as {factor: [level, ...]} in design order."""
+    grouped: dict[str, list[str]] = {}
+    for j, name in enumerate(design.factor_names):
+        positions = columns[np.isin(columns, design.columns_of(j))] - design.offsets[j]
+        if len(positions):
+            grouped[name] = [design.levels[j][k] for k in positions]
+    return grouped
+
+
+def _per_factor(kind: str, model: str, factor: str, levels: list[str], what: str) -> Diagnostic:
+    """One diagnostic for a factor's levels: '3 levels (first: a, b, c) WHAT', the level named when one."""
+    shown = ", ".join(f"'{level}'" for level in levels[:SHOWN_LEVELS])
+    more = f" and {len(levels) - SHOWN_LEVELS} more" if len(levels) > SHOWN_LEVELS else ""
+    counted = f"level {shown}" if len(levels) == 1 else f"{len(levels)} levels ({shown}{more})"
+    return Diagnostic(kind, model, f"{counted} {what}", factor, levels[0] if len(levels) == 1 else None)
 
 
 def _require_amount(inputs: GlmInputs, target: Target) -> None:
@@ -340,7 +551,7 @@ def _target_problem(target: Target, inputs: GlmInputs) -> _Problem:
     """The target's rows, response (its numerator) and var_weights (its weight), `premiumlab.models.targets`."""
     rows = target.rows(inputs.claim_count, inputs.claim_amount)
     numerator, weight = target.columns(inputs.exposure, inputs.claim_count, inputs.claim_amount)
-    return _problem(target.title, inputs, rows, numerator, weight)
+    return _problem(target, inputs, rows, numerator, weight)
 
 
 def _family(target: Target, tweedie_power: float | None = None) -> Family:
@@ -348,7 +559,7 @@ def _family(target: Target, tweedie_power: float | None = None) -> Family:
     return Family(target.family, float(target.deviance_power(tweedie_power)))
 
 
-def fit_frequency(inputs: GlmInputs, engine: str = "auto") -> GlmResult:
+def fit_frequency(inputs: GlmInputs, engine: str = "auto", penalty: str = "credibility") -> GlmResult:
     """Poisson GLM of claim counts, log link, offset log(exposure); relativities per claim frequency.
 
     log E[count] = log(exposure) + x'beta, so exp(x'beta) is the claim frequency (claims per
@@ -360,24 +571,28 @@ def fit_frequency(inputs: GlmInputs, engine: str = "auto") -> GlmResult:
         The rows: factors, base levels, exposure and claim counts.
     engine : str
         "auto" (cells when they are few, `choose_engine`), "cells" or "rows".
+    penalty : str
+        "credibility": each factor's level coefficients shrunk towards the base with the penalty
+        lambda_f = phi / tau_f^2 the data choose (`premiumlab.models.glm.credibility`); standard
+        errors are posterior ones. "none": maximum likelihood.
 
     Returns
     -------
     GlmResult
-        Coefficients, relativities and row-level statistics (dispersion 1).
+        Coefficients, relativities, row-level statistics (dispersion 1) and warnings.
 
     Raises
     ------
     InputError
-        An unknown engine, a base level without rows, no more rows than parameters, or a fit that
-        fails on the data.
+        An unknown engine or penalty, a base level without rows, no more rows than parameters, or
+        a fit that fails on the data.
     """
-    _check_engine(engine)
+    _check_options(engine, penalty)
     problem = _target_problem(FREQUENCY, inputs)
-    return _fit(problem, _family(FREQUENCY), _engine_name(engine, problem), inputs, [])
+    return _fit(problem, _family(FREQUENCY), _engine_name(engine, problem), penalty, inputs, [])
 
 
-def fit_severity(inputs: GlmInputs, engine: str = "auto") -> GlmResult:
+def fit_severity(inputs: GlmInputs, engine: str = "auto", penalty: str = "credibility") -> GlmResult:
     """Gamma GLM of amount / count with var_weights count, on rows with count > 0 and amount > 0.
 
     Nil claims (count > 0, amount 0) are excluded and counted in the notes.
@@ -390,33 +605,39 @@ def fit_severity(inputs: GlmInputs, engine: str = "auto") -> GlmResult:
         The rows, with claim amounts (money).
     engine : str
         "auto" (cells when they are few, `choose_engine`), "cells" or "rows".
+    penalty : str
+        "credibility" or "none", as `fit_frequency`; phi is the Pearson dispersion.
 
     Returns
     -------
     GlmResult
         Coefficients, relativities and row-level statistics on the rows with claims, dispersion
-        Pearson chi2 / df_resid.
+        Pearson chi2 / df_resid, and warnings.
 
     Raises
     ------
     InputError
         No claim amounts, no row with count > 0 and amount > 0, or as `fit_frequency`.
     """
-    _check_engine(engine)
+    _check_options(engine, penalty)
     _require_amount(inputs, SEVERITY)
     if not SEVERITY.rows(inputs.claim_count, inputs.claim_amount).any():
         raise InputError("claim_amount: no row has claim_count > 0 and claim_amount > 0; severity cannot be fitted")
     nil_claims = int(np.count_nonzero((inputs.claim_count > 0) & (inputs.claim_amount == 0)))
     notes = [f"{nil_claims} nil-claim rows (claim_count > 0, claim_amount 0) excluded from severity"]
     problem = _target_problem(SEVERITY, inputs)
-    return _fit(problem, _family(SEVERITY), _engine_name(engine, problem), inputs, notes)
+    return _fit(problem, _family(SEVERITY), _engine_name(engine, problem), penalty, inputs, notes)
 
 
-def fit_pure_premium(inputs: GlmInputs, power: str | float = "auto", engine: str = "auto") -> GlmResult:
+def fit_pure_premium(
+    inputs: GlmInputs, power: str | float = "auto", engine: str = "auto", penalty: str = "credibility"
+) -> GlmResult:
     """Tweedie GLM of amount / exposure with var_weights exposure, log link.
 
     ``power="auto"``: profile likelihood over 1.1..1.9 on the rows with the true Tweedie density
-    and the dispersion at its maximum likelihood for each power (see `premiumlab.models.glm.tweedie`).
+    and the dispersion at its maximum likelihood for each power (see `premiumlab.models.glm.tweedie`);
+    with the credibility penalty the GLM is refitted, penalty included, at each power tried (each
+    fit starting from the last).
 
     log E[amount / exposure] = x'beta, so exp(x'beta) is the pure premium (money per exposure
     unit); Var = phi mu^p / exposure.
@@ -429,6 +650,8 @@ def fit_pure_premium(inputs: GlmInputs, power: str | float = "auto", engine: str
         "auto", or a fixed variance power p with 1 < p < 2.
     engine : str
         "auto" (cells when they are few, `choose_engine`), "cells" or "rows".
+    penalty : str
+        "credibility" or "none", as `fit_frequency`; phi is the Pearson dispersion.
 
     Returns
     -------
@@ -441,24 +664,27 @@ def fit_pure_premium(inputs: GlmInputs, power: str | float = "auto", engine: str
     InputError
         A power that is neither "auto" nor in (1, 2), no claim amounts, or as `fit_frequency`.
     """
-    _check_engine(engine)
+    _check_options(engine, penalty)
     fixed_power = None if power == "auto" else _fixed_power(power)
     _require_amount(inputs, PURE_PREMIUM)
     problem = _target_problem(PURE_PREMIUM, inputs)
     engine = _engine_name(engine, problem)
+    fits: dict[float, EngineFit] = {}
     if fixed_power is None:
 
         def row_means(candidate: float) -> np.ndarray:
-            fit = _estimate(problem, _family(PURE_PREMIUM, candidate), engine)
-            return np.exp(problem.design.linear_predictor(_full_beta(problem, fit)))
+            last = fits[next(reversed(fits))] if fits else None
+            fits[candidate] = _estimate(problem, _family(PURE_PREMIUM, candidate), engine, penalty, start=last)
+            return np.exp(problem.design.linear_predictor(_full_beta(problem, fits[candidate])))
 
-        chosen, profile = profile_power(row_means, problem.numerator / problem.weight, problem.weight)
+        with _failures_named(problem, penalty):
+            chosen, profile = profile_power(row_means, problem.numerator / problem.weight, problem.weight)
         notes = [f"power {chosen:g} chosen by profile likelihood over {POWER_GRID[0]:g}..{POWER_GRID[-1]:g}"]
         if chosen in (POWER_GRID[0], POWER_GRID[-1]):
             notes.append(f"power {chosen:g} is at the edge of the searched range; the likelihood may peak outside it")
     else:
         chosen, profile, notes = fixed_power, [], []
-    result = _fit(problem, _family(PURE_PREMIUM, chosen), engine, inputs, notes)
+    result = _fit(problem, _family(PURE_PREMIUM, chosen), engine, penalty, inputs, notes, fits.get(chosen))
     result.power_profile = profile
     return result
 
