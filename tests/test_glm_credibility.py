@@ -235,7 +235,8 @@ def test_property_glms_converge_hold_thin_territories_and_beat_the_null_model(pr
 
 
 def test_property_unseen_territories_are_counted(property_run):
-    """Holdout rows whose territory has no training row are priced, and counted in each model's warnings."""
+    """Holdout rows whose territory has no training row are priced at the base (the fit step maps them
+    there before the GLMs see them), and counted once, in run.json's diagnostics."""
     run, book = property_run
     predictions = pd.read_parquet(run / "predictions.parquet")
     holdout = predictions["holdout"].to_numpy()
@@ -243,11 +244,10 @@ def test_property_unseen_territories_are_counted(property_run):
     unseen = int((holdout & ~book["territory"].isin(seen).to_numpy()).sum())
     assert unseen > 0, "the scenario at this size has holdout-only territories"
     assert np.all(np.isfinite(predictions["glm_pure_premium"]))
-    for target in ("frequency", "severity", "pure_premium"):
-        model = json.loads((run / "models" / f"glm_{target}.json").read_text())
-        found = [w for w in model["warnings"] if w["kind"] == "unseen_levels"]
-        assert [(w["factor"], w["model"]) for w in found] == [("territory", f"glm_{target}")]
-        assert found[0]["message"].startswith(f"{unseen} rows with a value that is not a level")
+    diagnostics = json.loads((run / "run.json").read_text())["diagnostics"]
+    found = [d for d in diagnostics if d["kind"] == "unseen_levels"]
+    assert [(d["factor"], d["model"]) for d in found] == [("territory", "book")]
+    assert f"on {unseen} rows" in found[0]["message"]
 
 
 def test_a_failed_unpenalised_profile_names_the_model_and_the_cure(inputs, monkeypatch):
