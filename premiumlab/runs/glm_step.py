@@ -14,7 +14,7 @@ import pandas as pd
 
 from premiumlab._core.diagnostics import Diagnostic
 from premiumlab._core.jsonio import write_json
-from premiumlab.book.levels import Levels
+from premiumlab.book.levels import Levels, is_missing
 from premiumlab.book.rows import Book
 from premiumlab.book.spec import Spec
 from premiumlab.experience.adjustments import Adjustment, period_order
@@ -135,6 +135,7 @@ def fit_glms(
     float or None
         The Tweedie power of the pure-premium GLM (None without claim amounts).
     """
+    unseen = _unseen_rows(book.frame, levels)
     names: list[str] = []
     if control is not None:
         cats = cats.assign(**{control.name: control.values})
@@ -152,7 +153,6 @@ def fit_glms(
     for target, res in results.items():
         name = model_name("glm", target)
         preds[name] = res.predict(cats) if control is None else _at_mean_control(res, cats, control)
-        unseen = {factor: rows for factor, rows in res.unseen_rows(cats).items() if factor not in res.control}
         res.warnings += [d.to_dict() for d in unseen_level_diagnostics(name, unseen, book.frame)]
         write_json(run.model_json("glm", target), res.to_json_dict())
     if has_amount:
@@ -169,8 +169,8 @@ def unseen_level_diagnostics(model: str, unseen: dict[str, np.ndarray], values: 
     model : str
         The model's name in the run, e.g. "glm_frequency".
     unseen : dict[str, np.ndarray]
-        Factor -> boolean mask over the book rows of those priced at the complement
-        (`GlmResult.unseen_rows`).
+        Factor -> boolean mask over the book rows whose value is not a level of the training rows
+        (priced at the complement, as `GlmResult.predict` prices any value that is not a fitted level).
     values : pandas.DataFrame
         The book's factor columns as read (`Book.frame`): the values named in the message.
 
@@ -182,7 +182,7 @@ def unseen_level_diagnostics(model: str, unseen: dict[str, np.ndarray], values: 
     found = []
     for factor, mask in unseen.items():
         first = pd.unique(values[factor].to_numpy()[mask])[:SHOWN_VALUES]
-        shown = ", ".join("missing" if pd.isna(value) else f"'{value}'" for value in first)
+        shown = ", ".join("missing" if is_missing(np.array([value]))[0] else f"'{value}'" for value in first)
         found.append(
             Diagnostic(
                 "unseen_levels",
@@ -193,6 +193,12 @@ def unseen_level_diagnostics(model: str, unseen: dict[str, np.ndarray], values: 
             )
         )
     return found
+
+
+def _unseen_rows(frame: pd.DataFrame, levels: dict[str, Levels]) -> dict[str, np.ndarray]:
+    """Per factor with any, the book rows whose value is not one of its levels (fixed on the training rows)."""
+    masks = {name: lv.codes(frame[name].to_numpy()) < 0 for name, lv in levels.items()}
+    return {name: mask for name, mask in masks.items() if mask.any()}
 
 
 def _at_mean_control(res: GlmResult, cats: pd.DataFrame, control: PeriodControl) -> np.ndarray:
