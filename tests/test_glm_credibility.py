@@ -23,6 +23,7 @@ from sklearn.linear_model import GammaRegressor, PoissonRegressor, TweedieRegres
 import premiumlab
 import premiumlab.models.glm.fit as glm
 from premiumlab._core.errors import InputError
+from premiumlab.book.levels import categorise
 from premiumlab.models.glm.credibility import MIN_LEVELS, credibility_rule, penalty_groups
 from premiumlab.models.glm.engines import (
     GAMMA,
@@ -228,20 +229,26 @@ def test_property_glms_converge_hold_thin_territories_and_beat_the_null_model(pr
     assert np.isfinite(entry["mean_deviance"]) and entry["d2"] > 0.0
 
 
-def test_property_unseen_territories_are_counted(property_run):
-    """Holdout rows whose territory has no training row are priced, and counted in each model's warnings."""
+def test_property_unseen_territories_are_priced_at_the_base_and_counted(property_run):
+    """Holdout rows whose territory has no training row do not stop the fit: the GLMs price them at
+    the base territory (exp(Intercept) x the other relativities), and the run counts them once, in
+    run.json's book diagnostic, not again in each GLM's warnings."""
     run, book = property_run
     predictions = pd.read_parquet(run / "predictions.parquet")
     holdout = predictions["holdout"].to_numpy()
     seen = set(book.loc[~holdout, "territory"])
-    unseen = int((holdout & ~book["territory"].isin(seen).to_numpy()).sum())
-    assert unseen > 0, "the scenario at this size has holdout-only territories"
-    assert np.all(np.isfinite(predictions["glm_pure_premium"]))
-    for target in ("frequency", "severity", "pure_premium"):
-        model = json.loads((run / "models" / f"glm_{target}.json").read_text())
-        found = [w for w in model["warnings"] if w["kind"] == "unseen_levels"]
-        assert [(w["factor"], w["model"]) for w in found] == [("territory", f"glm_{target}")]
-        assert found[0]["message"].startswith(f"{unseen} rows with a value that is not a level")
+    unseen = holdout & ~book["territory"].isin(seen).to_numpy()
+    assert unseen.sum() > 0, "the scenario at this size has holdout-only territories"
+    frequency = glm.GlmResult.from_json_dict(json.loads((run / "models" / "glm_frequency.json").read_text()))
+    levels = premiumlab.open_run(run).levels
+    typed = book.assign(alarm=book["alarm"].fillna(""))  # the typed book holds "" for a missing category
+    factors = categorise(typed, levels)  # an unseen territory is missing here
+    unseen_rows = frequency.unseen_rows(factors)
+    assert sorted(unseen_rows) == ["territory"] and np.array_equal(unseen_rows["territory"], unseen)
+    np.testing.assert_allclose(frequency.predict(factors), predictions["glm_frequency"], rtol=1e-12)
+    found = [d for d in json.loads((run / "run.json").read_text())["diagnostics"] if d["kind"] == "unseen_levels"]
+    assert [(d["model"], d["factor"]) for d in found] == [("book", "territory")]
+    assert f"on {int(unseen.sum())} rows" in found[0]["message"]
 
 
 def test_a_failed_unpenalised_profile_names_the_model_and_the_cure(inputs, monkeypatch):
