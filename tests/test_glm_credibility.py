@@ -23,6 +23,7 @@ from sklearn.linear_model import GammaRegressor, PoissonRegressor, TweedieRegres
 import premiumlab
 import premiumlab.models.glm.fit as glm
 from premiumlab._core.errors import InputError
+from premiumlab.book.levels import categorise
 from premiumlab.models.glm.credibility import MIN_LEVELS, credibility_rule, penalty_groups
 from premiumlab.models.glm.engines import (
     GAMMA,
@@ -199,20 +200,14 @@ def thin_territories(book: pd.DataFrame, limit: int = 50) -> list[str]:
 
 @pytest.fixture(scope="module")
 def property_run(tmp_path_factory):
-    """The property scenario at 50,000 policies, fitted with the GLMs only.
-
-    The alarm factor's missing values are filled with "none": until missing values are priced as
-    their own level (issue 14, item 1, another branch), `fit` refuses them.
-    """
+    """The property scenario at 50,000 policies as simulated (alarm missing on about 5 % of the
+    policies: its own level), fitted with the GLMs only."""
     base = tmp_path_factory.mktemp("property")
-    premiumlab.simulate(ROOT / "scenarios" / "property.toml", out=base / "raw.parquet", policies=50_000)
-    book = pd.read_parquet(base / "raw.parquet")
-    book["alarm"] = book["alarm"].fillna("none")
-    book.to_parquet(base / "book.parquet")
+    premiumlab.simulate(ROOT / "scenarios" / "property.toml", out=base / "book.parquet", policies=50_000)
     premiumlab.fit(
         base / "book.parquet", spec=ROOT / "scenarios" / "property_spec.toml", out=base / "run", models="glm"
     )
-    return base / "run", book
+    return base / "run", pd.read_parquet(base / "book.parquet")
 
 
 @pytest.mark.parametrize("target", ["frequency", "severity", "pure_premium"])
@@ -234,20 +229,26 @@ def test_property_glms_converge_hold_thin_territories_and_beat_the_null_model(pr
     assert np.isfinite(entry["mean_deviance"]) and entry["d2"] > 0.0
 
 
-def test_property_unseen_territories_are_counted(property_run):
-    """Holdout rows whose territory has no training row are priced at the base (the fit step maps them
-    there before the GLMs see them), and counted once, in run.json's diagnostics."""
+def test_property_unseen_territories_are_priced_at_the_base_and_counted(property_run):
+    """Holdout rows whose territory has no training row do not stop the fit: the GLMs price them at
+    the base territory (exp(Intercept) x the other relativities), and the run counts them once, in
+    run.json's book diagnostic, not again in each GLM's warnings."""
     run, book = property_run
     predictions = pd.read_parquet(run / "predictions.parquet")
     holdout = predictions["holdout"].to_numpy()
     seen = set(book.loc[~holdout, "territory"])
-    unseen = int((holdout & ~book["territory"].isin(seen).to_numpy()).sum())
-    assert unseen > 0, "the scenario at this size has holdout-only territories"
-    assert np.all(np.isfinite(predictions["glm_pure_premium"]))
-    diagnostics = json.loads((run / "run.json").read_text())["diagnostics"]
-    found = [d for d in diagnostics if d["kind"] == "unseen_levels"]
-    assert [(d["factor"], d["model"]) for d in found] == [("territory", "book")]
-    assert f"on {unseen} rows" in found[0]["message"]
+    unseen = holdout & ~book["territory"].isin(seen).to_numpy()
+    assert unseen.sum() > 0, "the scenario at this size has holdout-only territories"
+    frequency = glm.GlmResult.from_json_dict(json.loads((run / "models" / "glm_frequency.json").read_text()))
+    levels = premiumlab.open_run(run).levels
+    typed = book.assign(alarm=book["alarm"].fillna(""))  # the typed book holds "" for a missing category
+    factors = categorise(typed, levels)  # an unseen territory is missing here
+    unseen_rows = frequency.unseen_rows(factors)
+    assert sorted(unseen_rows) == ["territory"] and np.array_equal(unseen_rows["territory"], unseen)
+    np.testing.assert_allclose(frequency.predict(factors), predictions["glm_frequency"], rtol=1e-12)
+    found = [d for d in json.loads((run / "run.json").read_text())["diagnostics"] if d["kind"] == "unseen_levels"]
+    assert [(d["model"], d["factor"]) for d in found] == [("book", "territory")]
+    assert f"on {int(unseen.sum())} rows" in found[0]["message"]
 
 
 def test_a_failed_unpenalised_profile_names_the_model_and_the_cure(inputs, monkeypatch):

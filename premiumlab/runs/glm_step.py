@@ -12,7 +12,6 @@ from dataclasses import dataclass, replace
 import numpy as np
 import pandas as pd
 
-from premiumlab._core.diagnostics import Diagnostic
 from premiumlab._core.jsonio import write_json
 from premiumlab.book.levels import Levels
 from premiumlab.book.rows import Book
@@ -20,8 +19,6 @@ from premiumlab.book.spec import Spec
 from premiumlab.experience.adjustments import Adjustment, period_order
 from premiumlab.models.glm.fit import GlmInputs, GlmResult, fit_frequency, fit_pure_premium, fit_severity
 from premiumlab.runs.rundir import RunDir, model_name
-
-SHOWN_VALUES = 3
 
 
 @dataclass(frozen=True)
@@ -116,8 +113,7 @@ def fit_glms(
     spec : Spec
         The pricing spec: [glm] engine, Tweedie power and penalty.
     run : RunDir
-        The run directory being written: models/glm_TARGET.json go there, each with the
-        `unseen_levels` diagnostics of the rows it priced at the complement.
+        The run directory being written: models/glm_TARGET.json go there.
     preds : pd.DataFrame
         The predictions frame, one row per book row, changed in place: it gains glm_frequency and,
         with amounts, glm_severity, glm_pure_premium and glm_freq_x_sev (per exposure unit).
@@ -152,47 +148,11 @@ def fit_glms(
     for target, res in results.items():
         name = model_name("glm", target)
         preds[name] = res.predict(cats) if control is None else _at_mean_control(res, cats, control)
-        unseen = {factor: rows for factor, rows in res.unseen_rows(cats).items() if factor not in res.control}
-        res.warnings += [d.to_dict() for d in unseen_level_diagnostics(name, unseen, book.frame)]
         write_json(run.model_json("glm", target), res.to_json_dict())
     if has_amount:
         preds["glm_freq_x_sev"] = preds["glm_frequency"] * preds["glm_severity"]
         return results["pure_premium"].power
     return None
-
-
-def unseen_level_diagnostics(model: str, unseen: dict[str, np.ndarray], values: pd.DataFrame) -> list[Diagnostic]:
-    """One `unseen_levels` diagnostic per factor with rows whose value is not a level of the fit.
-
-    Parameters
-    ----------
-    model : str
-        The model's name in the run, e.g. "glm_frequency".
-    unseen : dict[str, np.ndarray]
-        Factor -> boolean mask over the book rows of those priced at the complement
-        (`GlmResult.unseen_rows`).
-    values : pandas.DataFrame
-        The book's factor columns as read (`Book.frame`): the values named in the message.
-
-    Returns
-    -------
-    list[Diagnostic]
-        Per factor: the rows, and the first distinct values (up to SHOWN_VALUES) met there.
-    """
-    found = []
-    for factor, mask in unseen.items():
-        first = pd.unique(values[factor].to_numpy()[mask])[:SHOWN_VALUES]
-        shown = ", ".join("missing" if pd.isna(value) else f"'{value}'" for value in first)
-        found.append(
-            Diagnostic(
-                "unseen_levels",
-                model,
-                f"{int(mask.sum())} rows with a value that is not a level of the training rows (first: {shown}); "
-                "priced at the complement, relativity 1 (the base level)",
-                factor,
-            )
-        )
-    return found
 
 
 def _at_mean_control(res: GlmResult, cats: pd.DataFrame, control: PeriodControl) -> np.ndarray:
