@@ -96,7 +96,8 @@ def _findings_and_sums(result):
     _, summary, findings = result
     return (
         [str(f) for f in findings],
-        {name: (lv.values.tolist(), lv.sums.tolist()) for name, lv in summary.levels.items()},
+        # repr: a numeric factor's values end with NaN (its missing band), and NaN != NaN in a list
+        {name: (repr(lv.values.tolist()), lv.sums.tolist()) for name, lv in summary.levels.items()},
         summary.totals.tolist(),
     )
 
