@@ -98,7 +98,7 @@ def test_level_without_exposure_is_reported(book, engine):
     factors = {"area": labelled(book["area"], "a", extra=("a_unused",)), "cover": labelled(book["cover"], "c")}
     result = fit_frequency(inputs_of(book, factors), engine=engine, penalty="none")
     assert result.no_rows == ["area[a_unused]"] and result.aliased == []
-    assert [(w["kind"], w["factor"], w["level"]) for w in result.warnings] == [("aliased", "area", "a_unused")]
+    assert [(w["kind"], w["factor"], w["level"]) for w in result.warnings] == [("no_rows", "area", "a_unused")]
     assert "no rows in the frequency fit" in result.warnings[0]["message"]
     assert any(note.startswith("area[a_unused]: no rows") for note in result.notes)
     assert result.relativities["area"]["a_unused"] == 1.0

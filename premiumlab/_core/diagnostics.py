@@ -15,7 +15,8 @@ from typing import Any
 KINDS: dict[str, str] = {
     "non_convergence": "an iterative fit stopped before it converged; its estimates are unreliable",
     "separation": "a level or band without claims (or without losses): its unpenalised estimate runs to zero",
-    "aliased": "a term that the data cannot estimate (no rows, or a copy of other terms)",
+    "no_rows": "a level or band without rows in a fit: not estimated, priced at the base",
+    "aliased": "a term that is a linear combination of earlier terms: not estimated, priced at the base",
     "relativity_bounds": "a relativity outside the plausibility bounds",
     "worse_than_null": "a model's holdout deviance is worse than the null model's (a constant rate)",
     "retention_undefined": "the retention ratio has a denominator <= 0: the boosted model is not better than the GLM",

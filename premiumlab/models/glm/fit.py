@@ -503,7 +503,7 @@ def _diagnostics(
     for name, levels in _by_factor(problem.design, no_rows).items():
         found.append(
             _per_factor(
-                "aliased",
+                "no_rows",
                 model,
                 name,
                 levels,
