@@ -65,11 +65,16 @@ def banded(values: np.ndarray, edges: np.ndarray | tuple[float, ...]) -> pd.Cate
     return pd.Categorical.from_codes(assign_bands(values, edges), categories=labels, ordered=True)
 
 
+#: A cumulative weight share within this of k / n_bands counts as reaching it, so that the order in
+#: which weights were summed (rows, distinct values, chunks of a book) cannot move an edge at a tie.
+SHARE_TOLERANCE = 1e-9
+
+
 def quantile_edges(values: np.ndarray, weights: np.ndarray, n_bands: int) -> np.ndarray:
     """Interior edges just above the weighted quantiles k/n_bands (k = 1..n_bands-1) of `values`.
 
     With u_1 < ... < u_m the distinct values and W_i the share of the weight on values <= u_i, the
-    k-th edge is u_(j+1) for the first j with W_j >= k/n_bands, so the bands below it hold at least
+    k-th edge is u_(j+1) for the first j with W_j >= k/n_bands - `SHARE_TOLERANCE`, so the bands below it hold at least
     k/n_bands of the weight. Weights are summed per distinct value first, so rows or their distinct
     values with summed weights give the same edges, whatever their order. Coinciding edges (heavy
     ties) collapse, giving fewer bands; no band is empty.
@@ -92,6 +97,6 @@ def quantile_edges(values: np.ndarray, weights: np.ndarray, n_bands: int) -> np.
     uniq, inv = np.unique(np.asarray(values, dtype=float), return_inverse=True)
     w = np.bincount(inv.ravel(), weights=np.asarray(weights, dtype=float), minlength=len(uniq))
     cum = np.cumsum(w) / w.sum()
-    idx = np.searchsorted(cum, np.arange(1, n_bands) / n_bands, side="left")
+    idx = np.searchsorted(cum, np.arange(1, n_bands) / n_bands - SHARE_TOLERANCE, side="left")
     edges = np.unique(uniq[np.clip(idx + 1, 0, len(uniq) - 1)])
     return edges[edges > uniq[0]]

@@ -3,7 +3,7 @@ with the number of distinct values: the same edges as `bands.quantile_edges`, fo
 
 Each value is mapped to a 64-bit key that sorts as the values do. Passes 1 to 4 each settle 16 more
 bits of the key of u_j, the smallest distinct value whose cumulative weight share W(<= u_j) reaches
-k / n_bands: every pass sums the weights of the rows under the bits settled so far in 65,536 bins of
+k / n_bands (within `bands.SHARE_TOLERANCE`, as there): every pass sums the weights of the rows under the bits settled so far in 65,536 bins of
 the next 16 bits (one histogram per distinct prefix, so at most n_bands - 1 of them). Pass 5 finds
 the next distinct value above each u_j, which is the edge. `chunks()` must give the same
 (values, weights) chunks at every call: the book's values and exposures, read again each pass.
@@ -14,6 +14,8 @@ from __future__ import annotations
 from collections.abc import Callable, Iterable
 
 import numpy as np
+
+from premiumlab.book.bands import SHARE_TOLERANCE
 
 BITS = 16
 BINS = 1 << BITS
@@ -86,7 +88,7 @@ def book_quantile_edges(chunks: Chunks, n_bands: int) -> np.ndarray:
         for k, q in enumerate(targets):
             h = hists[prefix[k]]
             share = (below[k] + np.cumsum(h)) / total
-            digit = int(np.searchsorted(share, q, side="left"))
+            digit = int(np.searchsorted(share, q - SHARE_TOLERANCE, side="left"))
             digit = min(digit, int(np.flatnonzero(h)[-1]))  # rounding cannot push past the last value
             below[k] += float(h[:digit].sum())
             prefix[k] = (prefix[k] << BITS) | digit
