@@ -178,6 +178,27 @@ def test_credibility_pulls_a_thin_level_to_the_mean_and_out_of_the_extreme_group
     assert after[7] not in (after[0], after[6])
 
 
+def test_a_thin_two_way_cell_keeps_little_of_its_interaction() -> None:
+    """Two-way cells weighted towards 1: each cell's relativity r becomes r^Z with Z the
+    Buhlmann-Straub credibility of the cell's pure premium (`buhlmann_straub` on the rows grouped by
+    cell, 1e-12); base row and column stay exactly 1; the thin cell (3 rows) keeps less than a tenth
+    of its log relativity, the thick one more than half."""
+    from premiumlab.tabulation.refit import Refit, credible_two_way
+
+    rng = np.random.default_rng(2)
+    a = np.repeat([0, 0, 1, 1], [500, 500, 500, 3])
+    b = np.repeat([0, 1, 0, 1], [500, 500, 500, 3])
+    w = rng.uniform(0.5, 1.0, a.size)
+    amount = rng.poisson(0.3 * w * np.where(a + b == 2, 2.0, 1.0)) * rng.gamma(2.0, 500.0, a.size)
+    fit = Refit({}, {("a", "b"): np.array([[1.0, 1.3], [0.8, 2.0]])}, {"a": 0, "b": 0}, [], 1, 0.0)
+    shrunk = credible_two_way(fit, {"a": a, "b": b}, w, amount)
+    z = buhlmann_straub(amount / w, w, a * 2 + b, 4).credibility.reshape(2, 2)
+    matrix = shrunk.two_way[("a", "b")]
+    np.testing.assert_allclose(matrix, np.array([[1.0, 1.3], [0.8, 2.0]]) ** z, rtol=1e-12)
+    assert matrix[0, 0] == 1.0 and shrunk.two_way_credibility[("a", "b")] is not None
+    assert np.log(matrix[1, 1]) < 0.1 * np.log(2.0) and np.log(matrix[0, 1]) > 0.5 * np.log(1.3)
+
+
 # ---------------------------------------------------------------------------------------------
 # the source, on the session's small motor run
 
