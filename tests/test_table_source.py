@@ -18,6 +18,9 @@ import numpy as np
 import pandas as pd
 import pytest
 
+import rating_tables
+from rating_tables import InteractionFactor
+
 from premiumlab.book.spec import TableOptions
 from premiumlab.models.gbm.training import encode_features
 from premiumlab.models.trees.parser import Trees
@@ -223,7 +226,8 @@ def test_auto_takes_the_lowest_holdout_deviance_of_metrics_json(demo_run) -> Non
     assert source["model"] == source["best"] == best and source["requested"] == "auto"
     assert fid["provenance"]["model"] == columns[best]
     assert all(d["kind"] != "weak_source" for d in fid["diagnostics"])
-    assert set(fid["attenuation"]["factors"]) == {"driver_age", "bonus_class", "vehicle_age", "vehicle_power", "region"}
+    mains = {f.name for f in rating_tables.load(demo_run["table"]).factors if not isinstance(f, InteractionFactor)}
+    assert set(fid["attenuation"]["factors"]) == mains
     table_levels = pd.read_csv(demo_run["table"] / "factors" / "region.csv", dtype=str)["level"]
     assert set(fid["groups"]["region"]) == set(table_levels)
 
@@ -251,3 +255,21 @@ def test_choose_source_breaks_ties_in_candidate_order_and_refuses_unknown_models
         choose_source(scores, "gbm", "holdout", 1.5, "p")
     with pytest.raises(InputError, match="unknown model 'tree'"):
         choose_source(scores, "tree", "holdout", 1.5, "p")
+
+
+def test_groups_csv_lists_the_levels_of_pooled_factors_only() -> None:
+    """groups.csv rows: every level (the missing level apart) of a factor with a group of two levels
+    or more, ordered by group; a factor whose levels each have their own group is left out."""
+    from premiumlab.tabulation.from_run import pooled_groups
+
+    groups = {
+        "territory": {"T1": 1, "T2": 0, "T3": 1, "(missing)": 2},
+        "region": {"North": 0, "South": 1},
+    }
+    rows = pooled_groups(groups)
+    assert rows.to_dict("list") == {
+        "factor": ["territory"] * 3,
+        "level": ["T2", "T1", "T3"],
+        "group": [0, 1, 1],
+    }
+    assert pooled_groups({"region": groups["region"]}).empty

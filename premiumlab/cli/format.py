@@ -266,7 +266,8 @@ def fidelity_lines(result: TableResult) -> list[str]:
     """
     level, fid, src, att = result.rate_level, result.fidelity, result.source, result.attenuation
     chosen = "chosen" if src["requested"] == "auto" else "requested with --model"
-    lines = [f"source: {src['model']} ({chosen}; auto takes the {src['criterion']})"]
+    deviances = ", ".join(f"{name} {s['mean_deviance']:.6g}" for name, s in src["candidates"].items())
+    lines = [f"source: {src['model']} ({chosen}; auto takes the {src['criterion']}: {deviances})"]
     lines.append(
         f"wrote {result.table}: base rate {level['base_rate']:.4f}, total pure premium "
         f"{level['total_pure_premium']:,.2f} ({level['target']['basis']}), rounding off-balance "

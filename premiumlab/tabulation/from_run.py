@@ -224,6 +224,13 @@ def _gbm_bands(run: Run, book: Book, preds: pd.DataFrame, train: np.ndarray, sou
         "Poisson quasi-likelihood refit on the source's predictions with monotone pooling and credible "
         "two-way cells",
         "boosters": [model_name("gbm", model.target) for model in models],
+        "credibility": {
+            "levels": "each level's effect e of an unordered categorical factor, before grouping: "
+            "e' = ebar + Z (e - ebar), complement ebar the factor's exposure-weighted mean effect (the overall level)",
+            "levels_of": sorted(result.credibility),
+            "two_way_cells": "each cell's relativity r: r' = r^Z, complement 1 (no interaction)",
+            "z": "Buhlmann-Straub credibility of the level's or cell's own pure premium (the tables' credibility column)",
+        },
         "sample_policies": int(opts.sample),
         "seed": spec.split.seed,
         "grid_points": {n: int(c.points.size) for n, c in result.curves.items()},
@@ -644,6 +651,33 @@ def _groups(bandings: dict[str, Banding]) -> dict[str, dict[str, int]]:
     return out
 
 
+#: The file beside the format that maps each level of a pooled factor to its group (docs/rating-table.md).
+GROUPS_CSV = "groups.csv"
+
+
+def pooled_groups(groups: dict[str, dict[str, int]]) -> pd.DataFrame:
+    """The rows of groups.csv: `factor`, `level`, `group` for every level (the missing level apart)
+    of each categorical factor with at least one group of two levels or more.
+
+    Parameters
+    ----------
+    groups : dict
+        Per categorical factor, level -> group (the band index, 0-based, as in fidelity.json).
+
+    Returns
+    -------
+    pd.DataFrame
+        One row per level, in factor order then group then level order; empty when no factor
+        pooled levels.
+    """
+    rows = []
+    for name, of_level in groups.items():
+        valued = {level: g for level, g in of_level.items() if level != MISSING_LABEL}
+        if len(set(valued.values())) < len(valued):
+            rows += [(name, level, g) for level, g in sorted(valued.items(), key=lambda item: item[1])]
+    return pd.DataFrame(rows, columns=["factor", "level", "group"])
+
+
 # ---------------------------------------------------------------------------------------------
 # the command
 
@@ -651,8 +685,9 @@ def _groups(bandings: dict[str, Banding]) -> dict[str, dict[str, int]]:
 def tabulate(
     run_dir: str | Path, out: str | Path, model: str = AUTO, force: bool = False, book: str | Path | None = None
 ) -> dict:
-    """Write the rating table TABLE/ (table.json, factors/*.csv), TABLE/fidelity.json and
-    TABLE/exhibit.xlsx from a run; returns the summary written to fidelity.json.
+    """Write the rating table TABLE/ (table.json, factors/*.csv), TABLE/fidelity.json,
+    TABLE/exhibit.xlsx and, when a categorical factor's levels were pooled into groups,
+    TABLE/groups.csv from a run; returns the summary written to fidelity.json.
 
     Parameters
     ----------
@@ -744,5 +779,8 @@ def tabulate(
     with atomic_output(out, force=force, inputs=inputs) as tmp:
         save(table, tmp)
         write_json(tmp / "fidelity.json", summary)
+        pooled = pooled_groups(summary["groups"])
+        if len(pooled):
+            pooled.to_csv(tmp / GROUPS_CSV, index=False, lineterminator="\n")
         write_exhibit(table, tmp / "exhibit.xlsx")
     return {**summary, "table": str(out), "seconds": time.perf_counter() - started}
