@@ -51,7 +51,13 @@ def test_fidelity_reports_retention(demo_run):
     g = {k: v["gini"] for k, v in fid["models"].items()}
     src = r["source"]
     assert r["gini_table_over_source"] == pytest.approx(g["table"] / g[src], rel=1e-12)
-    assert r["source_lift_over_glm_kept"] == pytest.approx((g["table"] - g["glm"]) / (g[src] - g["glm"]), rel=1e-12)
+    gap = g[src] - g["glm"]
+    if gap > 0:
+        assert r["source_lift_over_glm_kept"] == pytest.approx((g["table"] - g["glm"]) / gap, rel=1e-12)
+    else:  # no lift over the GLM to keep: no ratio, a diagnostic instead
+        assert r["source_lift_over_glm_kept"] is None
+        kinds = [d["kind"] for d in json.loads((demo_run["table"] / "fidelity.json").read_text())["diagnostics"]]
+        assert "retention_undefined" in kinds
 
 
 def test_impact_summary_adds_up(demo_run):

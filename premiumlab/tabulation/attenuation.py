@@ -12,7 +12,8 @@ table's own partial dependence). The attenuation is the weighted least-squares s
 1 when the table keeps the model's effect, below 1 when it flattens it (credibility, pooling,
 banding), above 1 when it steepens it. Overall: the same slope of the log of the table's pure
 premium per exposure unit on the log of the source's prediction. A factor on which the source has
-no effect (sum_r w_r (x_r - xbar)^2 = 0) has no slope (None).
+no effect (its x spans less than NO_EFFECT_BELOW = 1e-6 on the log scale, relativities equal to six
+decimals, e.g. a GLM factor its credibility penalty held at the base) has no slope (None).
 """
 
 from __future__ import annotations
@@ -21,9 +22,12 @@ import numpy as np
 
 from premiumlab._core.validators import AT_LEAST_ZERO, checked_array
 from premiumlab.tabulation.effects import Curve
+from rating_tables import MISSING_LABEL
 
 #: Slopes below this are reported as a flattened effect (a common-practice threshold, not a law).
 FLATTENED_BELOW = 0.8
+#: A source effect spanning less than this on the log scale is no effect: it has no slope.
+NO_EFFECT_BELOW = 1e-6
 
 
 def attenuation_slope(table_effect: np.ndarray, source_effect: np.ndarray, weight: np.ndarray) -> float | None:
@@ -41,14 +45,14 @@ def attenuation_slope(table_effect: np.ndarray, source_effect: np.ndarray, weigh
     Returns
     -------
     float or None
-        b = sum w (x - xbar)(y - ybar) / sum w (x - xbar)^2 (unitless); None when x is constant on
-        the rows with weight (or no row has weight).
+        b = sum w (x - xbar)(y - ybar) / sum w (x - xbar)^2 (unitless); None when x spans less
+        than NO_EFFECT_BELOW on the rows with weight (or no row has weight).
     """
     x = checked_array("source effect", source_effect)
     y = checked_array("table effect", table_effect, rows=x.size)
     w = checked_array("attenuation weights", weight, AT_LEAST_ZERO, rows=x.size)
     weighted = x[w > 0]
-    if weighted.size == 0 or weighted.min() == weighted.max():
+    if weighted.size == 0 or weighted.max() - weighted.min() < NO_EFFECT_BELOW:
         return None
     dx = x - np.average(x, weights=w)
     return float(np.sum(w * dx * (y - np.average(y, weights=w))) / np.sum(w * dx * dx))
@@ -68,15 +72,20 @@ def curve_at_rows(curve: Curve, values: np.ndarray) -> np.ndarray:
     Returns
     -------
     np.ndarray
-        The curve's effect at each row (log score, up to the curve's constant); NaN for a numeric
-        value that is missing and for a level the curve has no point for.
+        The curve's effect at each row (log score, up to the curve's constant): at the missing
+        value (a missing number, or the last level when it is `MISSING_LABEL`) the curve's
+        `missing_effect`; NaN where the curve has no effect (a level without a point, a missing
+        value the training rows did not hold).
     """
+    missing = np.nan if curve.missing_effect is None else curve.missing_effect
     if not curve.labels:
         v = np.asarray(values, dtype=float)
         cell = np.maximum(np.searchsorted(curve.points, v, side="right") - 1, 0)
-        return np.where(np.isnan(v), np.nan, curve.effect[cell])
+        return np.where(np.isnan(v), missing, curve.effect[cell])
     at_level = np.full(len(curve.labels), np.nan)
     at_level[np.asarray(curve.points, dtype=np.int64)] = curve.effect
+    if curve.labels[-1] == MISSING_LABEL:
+        at_level[-1] = missing
     return at_level[np.asarray(values, dtype=np.int64)]
 
 
@@ -96,18 +105,22 @@ def table_partial_dependence(
     name : str
         The factor.
     main : np.ndarray
-        Log relativity of each of the factor's cells (bands, or levels of a categorical factor).
+        Log relativity of each of the factor's cells (bands, or levels of a categorical factor),
+        the missing row's last when the factor has one.
     two_way : dict
-        Per two-way table (a, b): log relativity matrix, rows the cells of a, columns those of b.
+        Per two-way table (a, b): log relativity matrix, rows the cells of a, columns those of b
+        (no missing cell: a missing value takes relativity 1 there, log 0).
     cells : dict[str, np.ndarray]
-        Per factor: the cell (band or level index) of each row, indexing `main` and the matrices.
+        Per factor: the cell (band or level index) of each row, indexing `main` and the matrices;
+        a cell past a matrix's last row or column is the missing value's.
     exposure : np.ndarray
         Exposure of each row (the partners' weights).
 
     Returns
     -------
     np.ndarray
-        y_r = main[cell_r] + sum over tables of sum_j P(partner cell j) log T[cell_r, j], one per row.
+        y_r = main[cell_r] + sum over tables of sum_j P(partner cell j) log T[cell_r, j], one per
+        row, with P the partner's exposure shares (its missing value's share adding log 1 = 0).
     """
     own = cells[name]
     out = np.asarray(main, dtype=float)[own]
@@ -115,8 +128,11 @@ def table_partial_dependence(
         if name not in (a, b):
             continue
         side, partner = (matrix, b) if name == a else (matrix.T, a)
-        share = np.bincount(cells[partner], weights=exposure, minlength=side.shape[1])
-        out = out + (side @ (share / share.sum()))[own]
+        valued = cells[partner] < side.shape[1]
+        share = np.bincount(cells[partner][valued], weights=exposure[valued], minlength=side.shape[1])
+        mean_cell = side @ (share / exposure.sum())
+        inside = own < side.shape[0]
+        out = out + np.where(inside, mean_cell[np.where(inside, own, 0)], 0.0)
     return out
 
 

@@ -9,8 +9,10 @@
 2. Credibility of unordered categorical levels (`premiumlab.tabulation.credibility`): each level's
    effect e_i is weighted towards its complement, the exposure-weighted mean effect of the factor
    ebar = sum_i w_i e_i / sum_i w_i (the overall level), e_i' = ebar + Z_i (e_i - ebar), with Z_i
-   the Buhlmann-Straub credibility of the level's own pure premium, so that a thin level does not
-   land in an extreme group.
+   the Buhlmann-Straub credibility of the level's own claim frequency, so that a thin level does
+   not land in an extreme group. Frequency rather than pure premium: a few large losses make the
+   within-level variance of the pure premium swamp the between-level variance, and its Z is then 0
+   for every level (all 293 territories of the property scenario at 60,000 policies).
 3. Banding (`premiumlab.tabulation.banding`): isotonic where a direction is promised, optimal
    segmentation of ordered factors, thin-level merging of unordered categoricals (on the
    credibility-weighted effects).
@@ -76,7 +78,7 @@ def distil(
     factors: list[FactorValues],
     exposure: np.ndarray,
     response: np.ndarray,
-    amount: np.ndarray,
+    claim_count: np.ndarray,
     options: TableOptions,
 ) -> Distillation:
     """Curves -> credibility of unordered levels -> bands -> pooled refit (module docstring).
@@ -90,9 +92,10 @@ def distil(
         The spec's factors on the training rows.
     exposure, response : np.ndarray
         Exposure and the model's pure premium per exposure unit of the training rows.
-    amount : np.ndarray
-        Claim amount (money) of the training rows, whose Buhlmann-Straub credibility by level
-        weights the levels of unordered categoricals and the two-way cells.
+    claim_count : np.ndarray
+        Claim count of the training rows, whose Buhlmann-Straub credibility by level (of the
+        claim frequency, count per exposure unit) weights the levels of unordered categoricals and
+        the two-way cells.
     options : TableOptions
         The spec's [table] section: grid_points, max_bands, min_band_exposure (share of training
         exposure per band), interactions (two-way tables) and relativity_decimals (for the
@@ -108,7 +111,7 @@ def distil(
         curve = _summed_curve(boosters, factor, exposure, options.grid_points)
         curves[factor.name] = curve
         if factor.levels is not None and not factor.ordered:
-            z = credibility_by_level(amount, exposure, factor.values, len(factor.levels))["credibility"].to_numpy()
+            z = credibility_by_level(claim_count, exposure, factor.values, len(factor.levels))["credibility"].to_numpy()
             credibility[factor.name] = z
             points = np.asarray(curve.points, dtype=np.int64)
             curve = replace(curve, effect=credibility_weighted(curve.effect, curve.weight, z[points]))
@@ -133,6 +136,6 @@ def distil(
         exposure,
         response,
         options.relativity_decimals,
-        amount=amount,
+        claims=claim_count,
     )
     return Distillation(curves, credibility, bandings, pooled)

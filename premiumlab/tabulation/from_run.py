@@ -216,7 +216,7 @@ def _gbm_bands(run: Run, book: Book, preds: pd.DataFrame, train: np.ndarray, sou
         )
         for model in models
     ]
-    result = distil(boosters, factors, book.exposure[rows], stored[rows], _claim_amount(book)[rows], opts)
+    result = distil(boosters, factors, book.exposure[rows], stored[rows], book.claim_count[rows], opts)
     fit = result.pooled.fit
     notes = {
         "method": "partial dependence on the raw score (summed over the boosters of a product), credibility "
@@ -229,7 +229,7 @@ def _gbm_bands(run: Run, book: Book, preds: pd.DataFrame, train: np.ndarray, sou
             "e' = ebar + Z (e - ebar), complement ebar the factor's exposure-weighted mean effect (the overall level)",
             "levels_of": sorted(result.credibility),
             "two_way_cells": "each cell's relativity r: r' = r^Z, complement 1 (no interaction)",
-            "z": "Buhlmann-Straub credibility of the level's or cell's own pure premium (the tables' credibility column)",
+            "z": "Buhlmann-Straub credibility of the level's or cell's own claim frequency (the tables' credibility column)",
         },
         "sample_policies": int(opts.sample),
         "seed": spec.split.seed,
@@ -614,7 +614,11 @@ def _attenuation(
     from rating_tables import InteractionFactor, rate
 
     exposure = book.exposure[rows]
-    mains = {f.name: np.log(f.relativity) for f in table.factors if not isinstance(f, InteractionFactor)}
+    mains = {
+        f.name: np.log(np.append(f.relativity, [] if f.missing is None else [f.missing.relativity]))
+        for f in table.factors
+        if not isinstance(f, InteractionFactor)
+    }
     pairs = {f.of: np.log(f.relativity) for f in table.factors if isinstance(f, InteractionFactor)}
 
     def slope(y: np.ndarray, x: np.ndarray) -> float | None:

@@ -152,11 +152,11 @@ def refit(
     return Refit(rel, two, dict(bases), aliased, fit.iterations, float(beta[0]))
 
 
-def credible_two_way(fit: Refit, codes: dict[str, np.ndarray], exposure: np.ndarray, amount: np.ndarray) -> Refit:
+def credible_two_way(fit: Refit, codes: dict[str, np.ndarray], exposure: np.ndarray, claims: np.ndarray) -> Refit:
     """The refit with each two-way cell's relativity weighted by credibility towards 1.
 
     Per two-way table (a, b), the cells are the pairs of bands; Z_ij is the Buhlmann-Straub
-    credibility of the cell's own pure premium (`credibility.credibility_by_level` on the rows
+    credibility of the cell's own experience, claims per exposure unit (`credibility.credibility_by_level` on the rows
     grouped by cell) and the cell's relativity becomes r_ij^Z_ij = exp(Z_ij log r_ij), so that a
     thin cell keeps little of its interaction. Base rows and columns stay exactly 1.
 
@@ -168,8 +168,8 @@ def credible_two_way(fit: Refit, codes: dict[str, np.ndarray], exposure: np.ndar
         Band of every training row, per factor.
     exposure : np.ndarray
         Exposure of each training row (> 0).
-    amount : np.ndarray
-        Claim amount (money) of each training row.
+    claims : np.ndarray
+        Claims of each training row: the claim count (`distil`: Z of the claim frequency) or amount.
 
     Returns
     -------
@@ -181,7 +181,7 @@ def credible_two_way(fit: Refit, codes: dict[str, np.ndarray], exposure: np.ndar
     two_way, applied = {}, {}
     for (a, b), matrix in fit.two_way.items():
         cell = codes[a] * matrix.shape[1] + codes[b]
-        z = credibility_by_level(amount, exposure, cell, matrix.size)["credibility"].to_numpy().reshape(matrix.shape)
+        z = credibility_by_level(claims, exposure, cell, matrix.size)["credibility"].to_numpy().reshape(matrix.shape)
         two_way[(a, b)], applied[(a, b)] = np.exp(z * np.log(matrix)), z
     return replace(fit, two_way=two_way, two_way_credibility=applied)
 
@@ -324,9 +324,9 @@ def pooled_refit(
     exposure: np.ndarray,
     response: np.ndarray,
     decimals: int,
-    amount: np.ndarray | None = None,
+    claims: np.ndarray | None = None,
 ) -> PooledRefit:
-    """Refit (with credible two-way cells when `amount` is given), find the worst adjacent reversal of
+    """Refit (with credible two-way cells when `claims` is given), find the worst adjacent reversal of
     a promised factor, pool those two bands, refit, until no promise is breached (`values`: numeric
     values or level indices of the training rows).
 
@@ -344,9 +344,10 @@ def pooled_refit(
         Boosted pure premium per exposure unit of each training row.
     decimals : int
         Decimal places of the relativities in the table; the promises must hold after rounding too.
-    amount : np.ndarray or None
-        Claim amount (money) of each training row: each two-way cell is weighted by its
-        credibility towards 1 (`credible_two_way`) before the promises are checked. None: not.
+    claims : np.ndarray or None
+        Claims (count, or amount) of each training row: each two-way cell is weighted by the
+        credibility of its claims per exposure unit towards 1 (`credible_two_way`) before the
+        promises are checked. None: not.
 
     Returns
     -------
@@ -367,8 +368,8 @@ def pooled_refit(
         bases = {n: base_band(b, band_exposure(codes[n], sizes[n], exposure)) for n, b in bandings.items()}
         missing = {n: b.n_bands - 1 for n, b in bandings.items() if b.missing}
         fit = refit(codes, sizes, bases, pairs, exposure, response, missing)
-        if amount is not None and pairs:
-            fit = credible_two_way(fit, codes, exposure, amount)
+        if claims is not None and pairs:
+            fit = credible_two_way(fit, codes, exposure, claims)
         reversal = worst_reversal(bandings, fit, decimals)
         if reversal is None:
             return PooledRefit(bandings, fit, codes, merges)
