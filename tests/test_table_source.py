@@ -19,8 +19,6 @@ import pandas as pd
 import pytest
 
 import rating_tables
-from rating_tables import InteractionFactor
-
 from premiumlab.book.spec import TableOptions
 from premiumlab.models.gbm.training import encode_features
 from premiumlab.models.trees.parser import Trees
@@ -30,6 +28,7 @@ from premiumlab.tabulation.credibility import buhlmann_straub, credibility_weigh
 from premiumlab.tabulation.distill import ScoreBooster, distil
 from premiumlab.tabulation.effects import FactorValues
 from premiumlab.tabulation.source import choose_source
+from rating_tables import InteractionFactor
 
 # ---------------------------------------------------------------------------------------------
 # frequency x severity: the summed effect curves

@@ -48,8 +48,8 @@ from premiumlab.tabulation.banding import Banding
 from premiumlab.tabulation.distill import distil
 from premiumlab.tabulation.effects import Curve, FactorValues, exposure_sample
 from premiumlab.tabulation.refit import band_exposure, round_relativity
-from rating_tables import MISSING_LABEL
 from premiumlab.tabulation.source import AUTO, MODEL_CHOICES, SourceChoice, candidate_scores, choose_source
+from rating_tables import MISSING_LABEL
 
 if TYPE_CHECKING:
     from premiumlab.models.gbm.fit import GbmModel
@@ -767,6 +767,7 @@ def tabulate(
     table, level = _rate_level(spec, unrounded, rounded, rating_frame(loaded, spec, rows), target, provenance, current)
     held = np.flatnonzero(loaded.holdout) if loaded.holdout.any() else rows
     measured, diagnostics = _fidelity(table, rating_frame(loaded, spec, held), spec, loaded, held, source)
+    groups = _groups(made.bandings)
     summary = {
         "format": "premiumlab.fidelity",
         "version": FIDELITY_VERSION,
@@ -774,7 +775,7 @@ def tabulate(
         "source": source.to_dict(),
         "fidelity": measured,
         "attenuation": _attenuation(made, table, spec, loaded, preds, rows, cells, source),
-        "groups": _groups(made.bandings),
+        "groups": groups,
         "diagnostics": [d.to_dict() for d in (*source.diagnostics, *diagnostics)],
         "rate_level": level,
         "distillation": made.notes,
@@ -783,7 +784,7 @@ def tabulate(
     with atomic_output(out, force=force, inputs=inputs) as tmp:
         save(table, tmp)
         write_json(tmp / "fidelity.json", summary)
-        pooled = pooled_groups(summary["groups"])
+        pooled = pooled_groups(groups)
         if len(pooled):
             pooled.to_csv(tmp / GROUPS_CSV, index=False, lineterminator="\n")
         write_exhibit(table, tmp / "exhibit.xlsx")
