@@ -86,16 +86,23 @@ def test_the_table_states_its_source_groups_and_attenuation(property_table):
     _, result, table, _ = property_table
     assert result.source["model"] == result.source["best"]
     assert set(result.source["candidates"]) == {"gbm", "gbm_freq_sev", "glm"}
-    groups = result.groups["territory"]
-    territory = table.factor("territory")
-    assert set(groups) - {"(missing)"} == set(territory.levels)
-    written = pd.read_csv(result.table / "groups.csv", dtype={"level": str})
-    territories = written[written["factor"] == "territory"]
-    assert dict(zip(territories["level"], territories["group"])) == {
-        k: v for k, v in groups.items() if k != "(missing)"
-    }
-    relativity = dict(zip(territory.levels, territory.relativity))
-    assert territories.assign(r=territories["level"].map(relativity)).groupby("group")["r"].nunique().max() == 1
     assert set(result.attenuation["factors"]) == {f.name for f in table.main_factors}
+    territory = table.factor("territory")
+    assert set(result.groups["territory"]) - {"(missing)"} == set(territory.levels)
     z = dict(zip(territory.levels, territory.credibility))
     assert all(0.0 <= value <= 1.0 for value in z.values())
+
+
+def test_a_distilled_table_writes_its_territory_groups(property_table, tmp_path):
+    """The boosted source pools the territories into groups: groups.csv maps every territory to the
+    group of fidelity.json, and the territories of a group share one relativity."""
+    base = property_table[1].table.parent
+    result = premiumlab.tabulate(base / "run", out=tmp_path / "table", model="gbm")
+    groups = {k: v for k, v in result.groups["territory"].items() if k != "(missing)"}
+    assert 1 < len(set(groups.values())) < len(groups)
+    written = pd.read_csv(result.table / "groups.csv", dtype={"level": str})
+    territories = written[written["factor"] == "territory"]
+    assert dict(zip(territories["level"], territories["group"])) == groups
+    territory = rating_tables.load(result.table).factor("territory")
+    relativity = dict(zip(territory.levels, territory.relativity))
+    assert territories.assign(r=territories["level"].map(relativity)).groupby("group")["r"].nunique().max() == 1
