@@ -180,7 +180,7 @@ def compare(run: str | Path, *, bounds: tuple[float, float] = PLAUSIBLE_RELATIVI
 
 
 def tabulate(
-    run: str | Path, *, out: str | Path, model: str = "gbm", book: str | Path | None = None, force: bool = False
+    run: str | Path, *, out: str | Path, model: str = "auto", book: str | Path | None = None, force: bool = False
 ) -> TableResult:
     """Distil a run's model into a banded multiplicative rating table, with its fidelity.
 
@@ -191,7 +191,9 @@ def tabulate(
     out : str or Path
         Rating table folder to write.
     model : str
-        gbm (distil the boosted model) or glm (export the Tweedie GLM's relativities).
+        The source: auto (the candidate with the lowest holdout mean Tweedie deviance), gbm (the
+        boosted Tweedie model), gbm_freq_sev (boosted frequency x severity) or glm (the Tweedie
+        GLM's relativities).
     book : str or Path or None
         The run's book, if it has moved.
     force : bool
@@ -200,7 +202,8 @@ def tabulate(
     Returns
     -------
     TableResult
-        The folder, the rate level, the fidelity (deviance, Gini, retention) and the cautions.
+        The folder, the source and why, the fidelity (deviance, Gini, retention), the attenuation,
+        the level -> group map, the diagnostics, the rate level and the cautions.
     """
     from premiumlab.tabulation.from_run import tabulate as tabulate_run
 

@@ -95,15 +95,22 @@ class Comparison(Result):
 class TableResult(Result):
     """`tabulate`: the rating table folder written and its TABLE/fidelity.json figures.
 
-    Attributes: table (the folder); provenance (run, model, book sha256); fidelity (deviance and
-    Gini of the table, the boosted model and the GLM, and the retention); rate_level (base rate,
-    totals in money, off-balances); distillation (how the factors were banded); cautions;
-    seconds (wall time).
+    Attributes: table (the folder); provenance (run, model, book sha256); source (the model the
+    table was made from, the criterion, each candidate's holdout deviance and Gini); fidelity
+    (deviance and Gini of the table and every candidate, and the retention); attenuation (slope of
+    the table's log relativities on the source's effect, per factor and overall); groups (level ->
+    group of every categorical factor); diagnostics (warnings that a figure is unreliable);
+    rate_level (base rate, totals in money, off-balances); distillation (how the factors were
+    banded); cautions; seconds (wall time).
     """
 
     table: Path
     provenance: dict
+    source: dict
     fidelity: dict
+    attenuation: dict
+    groups: dict
+    diagnostics: tuple[Diagnostic, ...]
     rate_level: dict
     distillation: dict
     cautions: tuple[str, ...]
@@ -115,7 +122,11 @@ class TableResult(Result):
         return cls(
             table=Path(summary["table"]),
             provenance=summary["provenance"],
+            source=summary["source"],
             fidelity=summary["fidelity"],
+            attenuation=summary["attenuation"],
+            groups=summary["groups"],
+            diagnostics=tuple(Diagnostic.from_dict(d) for d in summary["diagnostics"]),
             rate_level=summary["rate_level"],
             distillation=summary["distillation"],
             cautions=tuple(summary["cautions"]),

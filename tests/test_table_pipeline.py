@@ -46,11 +46,18 @@ def test_rated_file_reproduces_the_table_total_and_keeps_inputs(demo_run):
 
 def test_fidelity_reports_retention(demo_run):
     fid = json.loads((demo_run["table"] / "fidelity.json").read_text())["fidelity"]
-    assert set(fid["models"]) == {"table", "gbm", "glm"}
+    assert set(fid["models"]) == {"table", "gbm", "gbm_freq_sev", "glm"}
     r = fid["retention"]
     g = {k: v["gini"] for k, v in fid["models"].items()}
-    assert r["gini_table_over_gbm"] == pytest.approx(g["table"] / g["gbm"], rel=1e-12)
-    assert r["gbm_lift_over_glm_kept"] == pytest.approx((g["table"] - g["glm"]) / (g["gbm"] - g["glm"]), rel=1e-12)
+    src = r["source"]
+    assert r["gini_table_over_source"] == pytest.approx(g["table"] / g[src], rel=1e-12)
+    gap = g[src] - g["glm"]
+    if gap > 0:
+        assert r["source_lift_over_glm_kept"] == pytest.approx((g["table"] - g["glm"]) / gap, rel=1e-12)
+    else:  # no lift over the GLM to keep: no ratio, a diagnostic instead
+        assert r["source_lift_over_glm_kept"] is None
+        kinds = [d["kind"] for d in json.loads((demo_run["table"] / "fidelity.json").read_text())["diagnostics"]]
+        assert "retention_undefined" in kinds
 
 
 def test_impact_summary_adds_up(demo_run):

@@ -230,8 +230,12 @@ def tabulate(
     run: Annotated[Path, typer.Argument(help="Run directory written by `fit`.")],
     out: Annotated[Path, typer.Option("--out", help="Rating table folder to write.")],
     model: Annotated[
-        str, typer.Option(help="gbm (distil the boosted model) or glm (export the Tweedie GLM's relativities).")
-    ] = "gbm",
+        str,
+        typer.Option(
+            help="auto (the best on the holdout), gbm (boosted Tweedie), gbm_freq_sev (boosted frequency x "
+            "severity) or glm (export the Tweedie GLM's relativities)."
+        ),
+    ] = "auto",
     book: Annotated[Path | None, typer.Option(help="The run's book, if it has moved.")] = None,
     force: Force = False,
 ) -> None:

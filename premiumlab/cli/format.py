@@ -248,7 +248,7 @@ def comparison_lines(result: Comparison) -> list[str]:
 
 
 def fidelity_lines(result: TableResult) -> list[str]:
-    """`tabulate`: rate level, fidelity and retention.
+    """`tabulate`: source, rate level, fidelity, retention, attenuation and warnings.
 
     Parameters
     ----------
@@ -258,26 +258,42 @@ def fidelity_lines(result: TableResult) -> list[str]:
     Returns
     -------
     list[str]
-        The table written with its base rate, total pure premium (money) and rounding off-balance,
-        the indicated change when there is one, the mean deviance and Gini of each model, and the
-        retention ratios that are defined.
+        The source and why with every candidate's figures; the table written with its base rate,
+        total pure premium (money) and rounding off-balance; the indicated change when there is
+        one; the mean deviance and Gini of the table and of each candidate; the retention ratios
+        that are defined; the attenuation per factor; then one `warning:` line per diagnostic and
+        per factor flattened below the threshold.
     """
-    level, fid = result.rate_level, result.fidelity
-    lines = [
+    level, fid, src, att = result.rate_level, result.fidelity, result.source, result.attenuation
+    chosen = "chosen" if src["requested"] == "auto" else "requested with --model"
+    deviances = ", ".join(f"{name} {s['mean_deviance']:.6g}" for name, s in src["candidates"].items())
+    lines = [f"source: {src['model']} ({chosen}; auto takes the {src['criterion']}: {deviances})"]
+    lines.append(
         f"wrote {result.table}: base rate {level['base_rate']:.4f}, total pure premium "
         f"{level['total_pure_premium']:,.2f} ({level['target']['basis']}), rounding off-balance "
         f"{level['rounding_off_balance']:+.4%}"
-    ]
+    )
     if "indicated_overall_change" in level:
         lines.append(f"indicated overall change against the current premium: {level['indicated_overall_change']:+.2%}")
     lines.append(f"fidelity on the {fid['rows']} ({fid['policies']} rows, Tweedie power {fid['tweedie_power']:.2f}):")
     for name, s in fid["models"].items():
-        lines.append(f"  {name:<6} mean deviance {s['mean_deviance']:.6g}  Gini {s['gini']:.4f}")
+        mark = "  <- source" if name == src["model"] else ""
+        lines.append(f"  {name:<12} mean deviance {s['mean_deviance']:.6g}  Gini {s['gini']:.4f}{mark}")
     r = fid["retention"]
-    if r.get("gini_table_over_gbm") is not None:
-        lines.append(f"  retention G_table/G_gbm = {r['gini_table_over_gbm']:.3f}")
-    if r.get("gbm_lift_over_glm_kept") is not None:
-        lines.append(f"  retention (G_table - G_glm)/(G_gbm - G_glm) = {r['gbm_lift_over_glm_kept']:.3f}")
+    if r.get("gini_table_over_source") is not None:
+        lines.append(f"  retention G_table/G_{r['source']} = {r['gini_table_over_source']:.3f}")
+    if r.get("source_lift_over_glm_kept") is not None:
+        lines.append(f"  retention (G_table - G_glm)/(G_{r['source']} - G_glm) = {r['source_lift_over_glm_kept']:.3f}")
+    slopes = ", ".join(f"{n} {'-' if b is None else f'{b:.2f}'}" for n, b in att["factors"].items())
+    overall = "-" if att["overall"] is None else f"{att['overall']:.2f}"
+    lines.append(f"attenuation (slope of the table's log relativities on the source's effect, 1 = kept): {slopes}")
+    lines.append(f"  overall {overall}")
+    lines += [f"warning: {d}" for d in result.diagnostics]
+    lines += [
+        f"warning: table, factor '{n}': attenuation {att['factors'][n]:.2f} is below {att['flattened_below']} "
+        "(a common-practice threshold): the table flattens the source's effect"
+        for n in att["flattened"]
+    ]
     return lines
 
 

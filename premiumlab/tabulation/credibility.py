@@ -191,3 +191,28 @@ def credibility_by_level(
         }
     )
     return table
+
+
+def credibility_weighted(effect: np.ndarray, weight: np.ndarray, z: np.ndarray) -> np.ndarray:
+    """Effects weighted by credibility towards their complement, the weighted mean effect.
+
+    e_i' = Z_i e_i + (1 - Z_i) ebar with ebar = sum_i w_i e_i / sum_i w_i: on the log scale the
+    complement is the relativity of the overall level of the factor.
+
+    Parameters
+    ----------
+    effect : np.ndarray
+        Effect e_i of each level on the log score (finite).
+    weight : np.ndarray
+        Weight w_i of each level (exposure, >= 0 with a positive total).
+    z : np.ndarray
+        Credibility Z_i of each level, in [0, 1].
+
+    Returns
+    -------
+    np.ndarray
+        The credibility-weighted effects e_i', in the unit of `effect`.
+    """
+    e = checked_array("effects", effect, unit="level")
+    complement = np.average(e, weights=checked_array("effect weights", weight, rows=e.size, unit="level"))
+    return complement + checked_array("credibility", z, rows=e.size, unit="level") * (e - complement)

@@ -1,7 +1,10 @@
 """`tabulate`: a run directory -> a banded multiplicative rating table (docs/rating-table.md, docs/commands.md).
 
-`model="gbm"` distils the boosted pure-premium model (`premiumlab.tabulation.distill`); `model="glm"` exports
-the Tweedie GLM's own relativities on the run's bands. Either way:
+Source (`premiumlab.tabulation.source`): `model="auto"` takes the candidate with the lowest holdout
+mean Tweedie deviance of the pure premium (the figure of metrics.json and `compare`); "gbm" and
+"gbm_freq_sev" distil the direct boosted model or the product of the boosted frequency and severity
+(`premiumlab.tabulation.distill`; the boosters must reproduce their predictions columns); "glm"
+exports the Tweedie GLM's own relativities on the run's bands. Either way:
 
 Rate level. Relativities are rounded half to even to `relativity_decimals` (base bands stay at
 exactly 1); the base rate is then solved so that the table's total pure premium on the training
@@ -17,39 +20,43 @@ the minimum over gross total without it, minus 1. With a current premium the ind
 (table gross total / current total - 1, training rows) is reported.
 
 Fidelity on the holdout rows (the training rows when the run has no holdout): mean Tweedie deviance
-with the GLM's power (the boosted model's when there is no GLM) and the Gini of the table's pure
-premium per exposure unit, beside the boosted model's and the GLM's predictions from
-predictions.parquet; retention G_table / G_GBM and (G_table - G_GLM) / (G_GBM - G_GLM).
+at the run's power (`run_power`) and the Gini of the table's pure premium per exposure unit, beside
+every candidate's; retention G_table / G_source and, when G_source - G_GLM > 0,
+(G_table - G_GLM) / (G_source - G_GLM), else a `retention_undefined` diagnostic. Attenuation on the
+training rows (`premiumlab.tabulation.attenuation`); the level -> group map of every categorical.
 """
 
 from __future__ import annotations
 
 import time
-from dataclasses import replace
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import TYPE_CHECKING
 
 import numpy as np
 import pandas as pd
 
+from premiumlab._core.diagnostics import Diagnostic
 from premiumlab._core.errors import InputError
 from premiumlab._core.jsonio import write_json
 from premiumlab._core.outputs import atomic_output, check_target
 from premiumlab.book.rows import Book
 from premiumlab.book.spec import Spec
 from premiumlab.experience.cautions import cautions_for
-from premiumlab.runs.rundir import Run, open_run
+from premiumlab.runs.rundir import Run, model_name, open_run
 from premiumlab.tabulation.banding import Banding
 from premiumlab.tabulation.distill import distil
-from premiumlab.tabulation.effects import FactorValues, exposure_sample
+from premiumlab.tabulation.effects import Curve, FactorValues, exposure_sample
 from premiumlab.tabulation.refit import band_exposure, round_relativity
+from premiumlab.tabulation.source import AUTO, MODEL_CHOICES, SourceChoice, candidate_scores, choose_source
 from rating_tables import MISSING_LABEL
 
 if TYPE_CHECKING:
     from premiumlab.models.gbm.fit import GbmModel
     from rating_tables.table import Cells, Factor, RatingTable
 
-MODELS = ("gbm", "glm")
+#: fidelity.json's version (docs/rating-table.md, Files beside the format).
+FIDELITY_VERSION = 2
 #: Training rows on which the rebuilt features must reproduce the run's boosted predictions.
 CHECK_ROWS = 2000
 CHECK_TOLERANCE = 1e-9
@@ -93,16 +100,14 @@ def _claim_amount(book: Book) -> np.ndarray:
     return book.claim_amount
 
 
-def _checked_predictions(run: Run, book: Book, column: str) -> pd.DataFrame:
-    """predictions.parquet, checked row by row against the book and for the column needed."""
+def _checked_predictions(run: Run, book: Book) -> pd.DataFrame:
+    """predictions.parquet, checked row by row against the book."""
     preds = run.predictions()
     where = run.files.predictions
     if len(preds) != book.n_rows or not np.array_equal(preds["row"].to_numpy(), np.arange(book.n_rows)):
         raise InputError(f"{where}: its rows do not match the book's {book.n_rows} rows (column 'row')")
     if not np.array_equal(preds["holdout"].to_numpy(dtype=bool), book.holdout):
         raise InputError(f"{where}: column 'holdout' differs from the book's split")
-    if column not in preds.columns:
-        raise InputError(f"{where}: no column '{column}'; fit the run with that model first")
     return preds
 
 
@@ -132,22 +137,60 @@ def _level_indices(book: Book, run: Run, name: str, rows: np.ndarray) -> tuple[t
 # bands and relativities from either model
 
 
-def _gbm_bands(run: Run, book: Book, preds: pd.DataFrame, train: np.ndarray) -> tuple[dict, dict, dict, dict, dict]:
-    """Distil the boosted pure-premium model: (bandings, relativities, two-way tables, base bands, notes)."""
-    from premiumlab.models.gbm.features import features_from_spec
+#: The boosters whose raw scores add up to the log score of each boosted source, by target.
+BOOSTERS = {"gbm": ("pure_premium",), "gbm_freq_sev": ("frequency", "severity")}
+
+
+@dataclass(frozen=True)
+class Made:
+    """The table's bands and relativities from its source, with what tabulate reports about them.
+
+    bandings, relativities (per band), two_way (per table, bands x bands), bases (base band) and
+    notes (fidelity.json's `distillation`); curves: the source's effect curves (boosted sources);
+    credibility: the Z applied to each level of a factor (unordered categoricals of a distilled
+    table); two_way_credibility: the Z applied to each cell of a two-way table.
+    """
+
+    bandings: dict[str, Banding]
+    relativities: dict[str, np.ndarray]
+    two_way: dict[tuple[str, str], np.ndarray]
+    bases: dict[str, int]
+    notes: dict
+    curves: dict[str, Curve] = field(default_factory=dict)
+    credibility: dict[str, np.ndarray] = field(default_factory=dict)
+    two_way_credibility: dict[tuple[str, str], np.ndarray] = field(default_factory=dict)
+
+
+def _checked_booster(run: Run, target: str, features: pd.DataFrame, preds: pd.DataFrame, check: np.ndarray) -> GbmModel:
+    """The run's boosted model of `target`, refused unless it reproduces its predictions column on the
+    `check` rows (relative tolerance CHECK_TOLERANCE)."""
     from premiumlab.models.gbm.fit import load_model
 
-    spec, opts = run.spec, run.spec.table
-    model_text = run.files.model_text("gbm", "pure_premium")
-    model = load_model(model_text, run.files.model_json("gbm", "pure_premium"))
-    features = features_from_spec(book.frame, spec)
-    rows = np.flatnonzero(train)
-    check = rows[:CHECK_ROWS]
-    stored = preds["gbm_pure_premium"].to_numpy()
+    model_text = run.files.model_text("gbm", target)
+    model = load_model(model_text, run.files.model_json("gbm", target))
+    column = model_name("gbm", target)
+    if column not in preds.columns:
+        raise InputError(f"{run.files.predictions}: no column '{column}'; fit the run with that model first")
+    stored = preds[column].to_numpy()
     if not np.allclose(model.predict(features.iloc[check]), stored[check], rtol=CHECK_TOLERANCE, atol=0):
         raise InputError(
-            f"{model_text}: the model does not reproduce column 'gbm_pure_premium' of predictions.parquet on the book"
+            f"{model_text}: the model does not reproduce column '{column}' of predictions.parquet on the book"
         )
+    return model
+
+
+def _gbm_bands(run: Run, book: Book, preds: pd.DataFrame, train: np.ndarray, source: SourceChoice) -> Made:
+    """Distil a boosted source (`gbm`, or `gbm_freq_sev` whose log score is the sum of the frequency and
+    severity boosters' raw scores) into bands, relativities and two-way tables."""
+    from premiumlab.models.gbm.features import features_from_spec
+    from premiumlab.models.trees.parser import Trees
+    from premiumlab.tabulation.distill import ScoreBooster
+
+    spec, opts = run.spec, run.spec.table
+    features = features_from_spec(book.frame, spec)
+    rows = np.flatnonzero(train)
+    models = [_checked_booster(run, target, features, preds, rows[:CHECK_ROWS]) for target in BOOSTERS[source.model]]
+    stored = preds[source.column].to_numpy()
     factors = []
     for f in spec.factors:
         if f.type == "numeric":
@@ -160,17 +203,34 @@ def _gbm_bands(run: Run, book: Book, preds: pd.DataFrame, train: np.ndarray) -> 
                 f.monotone,
                 codes,
                 levels=levels,
-                model_codes=_model_codes(model, f.name, levels),
                 ordered=f.levels is not None,
                 base_level=f.base,
             )
         )
-    sample = model.encode(features.iloc[rows[exposure_sample(book.exposure[rows], opts.sample, spec.split.seed)]])
-    result = distil(model.model_text(), sample, factors, book.exposure[rows], stored[rows], opts)
+    sampled = features.iloc[rows[exposure_sample(book.exposure[rows], opts.sample, spec.split.seed)]]
+    boosters = [
+        ScoreBooster(
+            Trees.from_text(model.model_text()),
+            model.encode(sampled),
+            {f.name: _model_codes(model, f.name, f.levels) for f in factors if f.levels is not None},
+        )
+        for model in models
+    ]
+    result = distil(boosters, factors, book.exposure[rows], stored[rows], book.claim_count[rows], opts)
     fit = result.pooled.fit
     notes = {
-        "method": "partial dependence on the raw score, isotonic where promised, optimal segmentation, "
-        "Poisson quasi-likelihood refit on the boosted predictions with monotone pooling",
+        "method": "partial dependence on the raw score (summed over the boosters of a product), credibility "
+        "of unordered levels towards the factor's mean effect, isotonic where promised, optimal segmentation, "
+        "Poisson quasi-likelihood refit on the source's predictions with monotone pooling and credible "
+        "two-way cells",
+        "boosters": [model_name("gbm", model.target) for model in models],
+        "credibility": {
+            "levels": "each level's effect e of an unordered categorical factor, before grouping: "
+            "e' = ebar + Z (e - ebar), complement ebar the factor's exposure-weighted mean effect (the overall level)",
+            "levels_of": sorted(result.credibility),
+            "two_way_cells": "each cell's relativity r: r' = r^Z, complement 1 (no interaction)",
+            "z": "Buhlmann-Straub credibility of the level's or cell's own claim frequency (the tables' credibility column)",
+        },
         "sample_policies": int(opts.sample),
         "seed": spec.split.seed,
         "grid_points": {n: int(c.points.size) for n, c in result.curves.items()},
@@ -180,7 +240,16 @@ def _gbm_bands(run: Run, book: Book, preds: pd.DataFrame, train: np.ndarray) -> 
         "aliased_terms": fit.aliased,
         "refit_iterations": fit.iterations,
     }
-    return result.pooled.bandings, fit.relativities, fit.two_way, fit.bases, notes
+    return Made(
+        result.pooled.bandings,
+        fit.relativities,
+        fit.two_way,
+        fit.bases,
+        notes,
+        result.curves,
+        result.credibility,
+        fit.two_way_credibility,
+    )
 
 
 def _model_codes(model: GbmModel, name: str, levels: tuple[str, ...]) -> np.ndarray:
@@ -195,8 +264,8 @@ def _model_codes(model: GbmModel, name: str, levels: tuple[str, ...]) -> np.ndar
     return np.array([position[level] for level in levels], dtype=float)
 
 
-def _glm_bands(run: Run, book: Book) -> tuple[dict, dict, dict, dict, dict]:
-    """The Tweedie GLM's relativities on the run's bands: (bandings, relativities, {}, base bands, notes)."""
+def _glm_bands(run: Run) -> Made:
+    """The Tweedie GLM's relativities on the run's bands (no two-way tables, no credibility applied)."""
     glm = run.model_json("glm", "pure_premium")
     where = run.files.model_json("glm", "pure_premium")
     bandings, relativities, bases, defaulted = {}, {}, {}, []
@@ -231,7 +300,7 @@ def _glm_bands(run: Run, book: Book) -> tuple[dict, dict, dict, dict, dict]:
         "power": glm.get("power"),
         "levels_without_estimate_set_to_1": defaulted,
     }
-    return bandings, relativities, {}, bases, notes
+    return Made(bandings, relativities, {}, bases, notes)
 
 
 # ---------------------------------------------------------------------------------------------
@@ -255,13 +324,17 @@ def _table_factors(
     exposure: np.ndarray,
     amount: np.ndarray,
     decimals: int | None,
+    applied: dict[str, np.ndarray] | None = None,
+    applied_cells: dict[tuple[str, str], np.ndarray] | None = None,
 ) -> tuple[Factor, ...]:
     """Rating-table factors in spec order, then the two-way tables; relativities rounded to `decimals`
     (None: unrounded), the unrounded refit kept as `indicated`, exposure of the training rows, and the
-    Buhlmann-Straub credibility of each band's or level's own experience (amount per exposure) toward
-    its complement (neighbouring bands, or the overall level for categoricals) for the reviewer. A
-    factor's missing band or level (the last) becomes its `MissingRow`; a categorical factor's
-    `fallback` is the spec's, else its base level."""
+    credibility: the Z applied to each level (`applied`, per factor) or two-way cell (`applied_cells`)
+    where the distillation applied one; elsewhere the Buhlmann-Straub credibility of each band's or
+    level's own experience (amount per exposure) toward its complement (neighbouring bands, or the
+    overall level for categoricals), shown for the reviewer. A factor's missing band or level (the
+    last) becomes its `MissingRow`; a categorical factor's `fallback` is the spec's, else its base
+    level."""
     from premiumlab.tabulation.credibility import credibility_by_level
     from rating_tables import Bands, CategoricalFactor, InteractionFactor, MissingRow, NumericFactor
 
@@ -305,7 +378,9 @@ def _table_factors(
         if base is None:
             in_base = np.flatnonzero(band_of_level == bases[f.name])
             base = levels[in_base[np.argmax(level_exposure[in_base])]]
-        z = credibility_by_level(amount, exposure, cells[f.name], len(levels))["credibility"].to_numpy()
+        z = (applied or {}).get(f.name)
+        if z is None:
+            z = credibility_by_level(amount, exposure, cells[f.name], len(levels))["credibility"].to_numpy()
         out.append(
             CategoricalFactor(
                 f.name,
@@ -327,9 +402,17 @@ def _table_factors(
         cell_exposure = np.zeros(expanded.shape)
         valued = (cells[a] < a_band.size) & (cells[b] < b_band.size)  # the missing band or level is last
         np.add.at(cell_exposure, (cells[a][valued], cells[b][valued]), exposure[valued])
+        z_cells = (applied_cells or {}).get((a, b))
         out.append(
             InteractionFactor(
-                f"{a}__{b}", (a, b), a_cells, b_cells, selected(expanded), exposure=cell_exposure, indicated=expanded
+                f"{a}__{b}",
+                (a, b),
+                a_cells,
+                b_cells,
+                selected(expanded),
+                exposure=cell_exposure,
+                indicated=expanded,
+                credibility=None if z_cells is None else z_cells[np.ix_(a_band, b_band)],
             )
         )
     return tuple(out)
@@ -439,58 +522,164 @@ def _rate_level(
 
 
 def _fidelity(
-    table: RatingTable,
-    frame: pd.DataFrame,
-    spec: Spec,
-    book: Book,
-    preds: pd.DataFrame,
-    rows: np.ndarray,
-    power: float,
-    rows_name: str,
-) -> dict:
-    """Deviance and Gini of the table, the boosted model and the GLM on `rows`, and the retention."""
+    table: RatingTable, frame: pd.DataFrame, spec: Spec, book: Book, rows: np.ndarray, source: SourceChoice
+) -> tuple[dict, list[Diagnostic]]:
+    """Deviance and Gini of the table on `rows` beside every candidate's, and the retention of the
+    source's Gini: G_table / G_source and (G_table - G_glm) / (G_source - G_glm), the latter only
+    when its denominator is > 0 (else a `retention_undefined` diagnostic)."""
     from premiumlab.evaluation.metrics import gini
     from premiumlab.models.deviance import mean_deviance
     from rating_tables import rate
 
     exposure, amount = book.exposure[rows], _claim_amount(book)[rows]
-    predictions = {"table": rate(table, frame, spec.columns.exposure)["pure_premium"].to_numpy() / exposure}
-    for name in ("gbm", "glm"):
-        if f"{name}_pure_premium" in preds.columns:
-            predictions[name] = preds[f"{name}_pure_premium"].to_numpy()[rows]
+    mu = rate(table, frame, spec.columns.exposure)["pure_premium"].to_numpy() / exposure
     scores = {
-        name: {
-            "mean_deviance": mean_deviance(amount / exposure, mu, exposure, power),
+        "table": {
+            "mean_deviance": mean_deviance(amount / exposure, mu, exposure, source.power),
             "gini": gini(amount, mu, exposure),
-        }
-        for name, mu in predictions.items()
+        },
+        **source.candidates,
     }
     g = {name: s["gini"] for name, s in scores.items()}
-    retention = {}
-    if "gbm" in g:
-        retention["gini_table_over_gbm"] = g["table"] / g["gbm"] if g["gbm"] else None
-        if "glm" in g:
-            gap = g["gbm"] - g["glm"]
-            retention["gbm_lift_over_glm_kept"] = (g["table"] - g["glm"]) / gap if gap else None
-            retention["gini_gbm_minus_glm"] = gap
-    return {
-        "rows": rows_name,
+    src = source.model
+    retention: dict = {"source": src, "gini_table_over_source": g["table"] / g[src] if g[src] else None}
+    diagnostics = []
+    if "glm" in g:
+        gap = g[src] - g["glm"]
+        retention["gini_source_minus_glm"] = gap
+        retention["source_lift_over_glm_kept"] = (g["table"] - g["glm"]) / gap if gap > 0 else None
+        if not gap > 0:
+            why = "the source is the GLM itself" if src == "glm" else f"{src} is not better than the GLM"
+            diagnostics.append(
+                Diagnostic(
+                    kind="retention_undefined",
+                    model="table",
+                    message=(
+                        f"(G_table - G_glm) / (G_{src} - G_glm) is not defined: G_{src} - G_glm = {gap:.4f} "
+                        f"on the {source.rows} rows ({why}); no share of a lift over the GLM to keep"
+                    ),
+                )
+            )
+    measured = {
+        "rows": source.rows,
         "policies": int(rows.size),
-        "tweedie_power": power,
+        "tweedie_power": source.power,
         "models": scores,
         "retention": retention,
     }
+    return measured, diagnostics
 
 
-def _power(run: Run, model: str) -> float:
-    """The Tweedie power of the comparison: the GLM's, else the boosted model's."""
+def run_power(run: Run) -> float:
+    """The run's Tweedie power, as `fit` (metrics.json) and `compare` use it: the GLM's, else
+    `FALLBACK_TWEEDIE_POWER`.
+
+    Parameters
+    ----------
+    run : Run
+        The run directory read back.
+
+    Returns
+    -------
+    float
+        The variance power of the pure-premium deviance, in (1, 2).
+    """
+    from premiumlab._core.defaults import FALLBACK_TWEEDIE_POWER
+
     if run.files.model_json("glm", "pure_premium").is_file():
         power = run.model_json("glm", "pure_premium").get("power")
         if power is not None:
             return float(power)
-    if run.files.model_json("gbm", "pure_premium").is_file():
-        return float(run.model_json("gbm", "pure_premium")["params"]["tweedie_variance_power"])
-    raise InputError(f"{run.files.models}: no pure-premium model to take the Tweedie power from ({model})")
+    return FALLBACK_TWEEDIE_POWER
+
+
+def _attenuation(
+    made: Made,
+    table: RatingTable,
+    spec: Spec,
+    book: Book,
+    preds: pd.DataFrame,
+    rows: np.ndarray,
+    cells: dict[str, np.ndarray],
+    source: SourceChoice,
+) -> dict:
+    """Attenuation per factor and overall on the training rows (`premiumlab.tabulation.attenuation`)."""
+    from premiumlab.tabulation.attenuation import (
+        FLATTENED_BELOW,
+        attenuation_slope,
+        curve_at_rows,
+        flattened,
+        table_partial_dependence,
+    )
+    from rating_tables import InteractionFactor, rate
+
+    exposure = book.exposure[rows]
+    mains = {
+        f.name: np.log(np.append(f.relativity, [] if f.missing is None else [f.missing.relativity]))
+        for f in table.factors
+        if not isinstance(f, InteractionFactor)
+    }
+    pairs = {f.of: np.log(f.relativity) for f in table.factors if isinstance(f, InteractionFactor)}
+
+    def slope(y: np.ndarray, x: np.ndarray) -> float | None:
+        keep = np.isfinite(x) & np.isfinite(y)
+        return attenuation_slope(y[keep], x[keep], exposure[keep]) if keep.any() else None
+
+    factors = {}
+    for name, banding in made.bandings.items():
+        if name in made.curves:
+            values = book.frame[name].to_numpy(dtype=float)[rows] if banding.numeric else cells[name]
+            x = curve_at_rows(made.curves[name], values)
+        else:
+            x = np.log(made.relativities[name])[cells[name] if banding.numeric else banding.codes(cells[name])]
+        factors[name] = slope(table_partial_dependence(name, mains[name], pairs, cells, exposure), x)
+    frame = rating_frame(book, spec, rows)
+    table_rate = rate(table, frame, spec.columns.exposure)["pure_premium"].to_numpy() / exposure
+    source_rate = preds[source.column].to_numpy()[rows]
+    return {
+        "rows": "training",
+        "factors": factors,
+        "overall": slope(np.log(table_rate), np.log(source_rate)),
+        "flattened_below": FLATTENED_BELOW,
+        "flattened": flattened(factors),
+    }
+
+
+def _groups(bandings: dict[str, Banding]) -> dict[str, dict[str, int]]:
+    """Level -> group (band index) of every categorical factor of the table."""
+    out = {}
+    for name, banding in bandings.items():
+        if not banding.numeric:
+            levels, band = banding.level_bands()
+            out[name] = {level: int(b) for level, b in zip(levels, band)}
+    return out
+
+
+#: The file beside the format that maps each level of a pooled factor to its group (docs/rating-table.md).
+GROUPS_CSV = "groups.csv"
+
+
+def pooled_groups(groups: dict[str, dict[str, int]]) -> pd.DataFrame:
+    """The rows of groups.csv: `factor`, `level`, `group` for every level (the missing level apart)
+    of each categorical factor with at least one group of two levels or more.
+
+    Parameters
+    ----------
+    groups : dict
+        Per categorical factor, level -> group (the band index, 0-based, as in fidelity.json).
+
+    Returns
+    -------
+    pd.DataFrame
+        One row per level, in factor order then group then level order; empty when no factor
+        pooled levels.
+    """
+    rows = []
+    for name, of_level in groups.items():
+        valued = {level: g for level, g in of_level.items() if level != MISSING_LABEL}
+        if len(set(valued.values())) < len(valued):
+            rows += [(name, level, g) for level, g in sorted(valued.items(), key=lambda item: item[1])]
+    return pd.DataFrame(rows, columns=["factor", "level", "group"])
 
 
 # ---------------------------------------------------------------------------------------------
@@ -498,20 +687,23 @@ def _power(run: Run, model: str) -> float:
 
 
 def tabulate(
-    run_dir: str | Path, out: str | Path, model: str = "gbm", force: bool = False, book: str | Path | None = None
+    run_dir: str | Path, out: str | Path, model: str = AUTO, force: bool = False, book: str | Path | None = None
 ) -> dict:
-    """Write the rating table TABLE/ (table.json, factors/*.csv), TABLE/fidelity.json and
-    TABLE/exhibit.xlsx from a run; returns the summary written to fidelity.json.
+    """Write the rating table TABLE/ (table.json, factors/*.csv), TABLE/fidelity.json,
+    TABLE/exhibit.xlsx and, when a categorical factor's levels were pooled into groups,
+    TABLE/groups.csv from a run; returns the summary written to fidelity.json.
 
     Parameters
     ----------
     run_dir : str or Path
-        The run directory (`fit`); its pure-premium model of kind `model` is tabulated.
+        The run directory (`fit`).
     out : str or Path
         The table folder TABLE to write, atomically.
     model : str
-        "gbm": distil the boosted pure-premium model; "glm": the Tweedie GLM's relativities on the
-        run's bands.
+        The source: "auto" (the candidate with the lowest holdout mean Tweedie deviance of the pure
+        premium, `premiumlab.tabulation.source`); "gbm" or "gbm_freq_sev": distil the direct
+        boosted model or the boosted frequency x severity; "glm": the Tweedie GLM's relativities
+        on the run's bands.
     force : bool
         Replace an existing `out`.
     book : str or Path or None
@@ -520,8 +712,9 @@ def tabulate(
     Returns
     -------
     dict
-        The fidelity.json summary (format, version, provenance, fidelity, rate_level, distillation,
-        cautions; docs/rating-table.md) with `table` (the folder) and `seconds` (wall time) added.
+        The fidelity.json summary (format, version, provenance, source, fidelity, attenuation,
+        groups, diagnostics, rate_level, distillation, cautions; docs/rating-table.md) with `table`
+        (the folder) and `seconds` (wall time) added.
 
     Raises
     ------
@@ -529,10 +722,11 @@ def tabulate(
         On an unknown `model`, an existing `out` without `force`, a run or book that does not match
         (book sha256, predictions, levels, model), or a rate-level target that leaves no pure premium.
     """
+    from premiumlab.runs.experience_step import fitted_basis
     from rating_tables import save, write_exhibit
 
-    if model not in MODELS:
-        raise InputError(f"--model: unknown model '{model}'; use gbm or glm")
+    if model not in MODEL_CHOICES:
+        raise InputError(f"--model: unknown model '{model}'; use {', '.join(MODEL_CHOICES)}")
     started = time.perf_counter()
     out = Path(out)
     inputs = (run_dir,) if book is None else (run_dir, book)
@@ -540,47 +734,58 @@ def tabulate(
     run = open_run(run_dir)
     spec = run.spec
     loaded = reread_book(run, book)
-    preds = _checked_predictions(run, loaded, f"{model}_pure_premium")
+    preds = _checked_predictions(run, loaded)
     loaded = _fitted_amounts(loaded, preds)
+    power = run_power(run)
+    scores, rows_name = candidate_scores(fitted_basis(preds), power)
+    source = choose_source(scores, model, rows_name, power, str(run.files.predictions))
     train = ~loaded.holdout
     rows = np.flatnonzero(train)
-    if model == "gbm":
-        bandings, rel, two_way, bases, notes = _gbm_bands(run, loaded, preds, train)
-    else:
-        bandings, rel, two_way, bases, notes = _glm_bands(run, loaded)
-    cells = {n: _row_cells(b, loaded, run, rows) for n, b in bandings.items()}
+    made = _glm_bands(run) if source.model == "glm" else _gbm_bands(run, loaded, preds, train, source)
+    cells = {n: _row_cells(b, loaded, run, rows) for n, b in made.bandings.items()}
     exposure = loaded.exposure[rows]
     amount = _claim_amount(loaded)[rows]
-    unrounded = _table_factors(spec, bandings, rel, two_way, bases, cells, exposure, amount, None)
-    rounded = _table_factors(
-        spec, bandings, rel, two_way, bases, cells, exposure, amount, spec.table.relativity_decimals
+    unrounded, rounded = (
+        _table_factors(
+            spec,
+            made.bandings,
+            made.relativities,
+            made.two_way,
+            made.bases,
+            cells,
+            exposure,
+            amount,
+            decimals,
+            made.credibility,
+            made.two_way_credibility,
+        )
+        for decimals in (None, spec.table.relativity_decimals)
     )
     target = _pure_premium_target(spec, loaded, train)
-    provenance = {"run": Path(run_dir).resolve().name, "model": f"{model}_pure_premium", "book_sha256": loaded.sha256}
+    provenance = {"run": Path(run_dir).resolve().name, "model": source.column, "book_sha256": loaded.sha256}
     current = None if loaded.current_premium is None else float(loaded.current_premium[train].sum())
     table, level = _rate_level(spec, unrounded, rounded, rating_frame(loaded, spec, rows), target, provenance, current)
     held = np.flatnonzero(loaded.holdout) if loaded.holdout.any() else rows
-    measured = _fidelity(
-        table,
-        rating_frame(loaded, spec, held),
-        spec,
-        loaded,
-        preds,
-        held,
-        _power(run, model),
-        "holdout" if loaded.holdout.any() else "training (the run has no holdout)",
-    )
+    measured, diagnostics = _fidelity(table, rating_frame(loaded, spec, held), spec, loaded, held, source)
+    groups = _groups(made.bandings)
     summary = {
         "format": "premiumlab.fidelity",
-        "version": 1,
+        "version": FIDELITY_VERSION,
         "provenance": provenance,
+        "source": source.to_dict(),
         "fidelity": measured,
+        "attenuation": _attenuation(made, table, spec, loaded, preds, rows, cells, source),
+        "groups": groups,
+        "diagnostics": [d.to_dict() for d in (*source.diagnostics, *diagnostics)],
         "rate_level": level,
-        "distillation": notes,
+        "distillation": made.notes,
         "cautions": list(table.cautions),
     }
     with atomic_output(out, force=force, inputs=inputs) as tmp:
         save(table, tmp)
         write_json(tmp / "fidelity.json", summary)
+        pooled = pooled_groups(groups)
+        if len(pooled):
+            pooled.to_csv(tmp / GROUPS_CSV, index=False, lineterminator="\n")
         write_exhibit(table, tmp / "exhibit.xlsx")
     return {**summary, "table": str(out), "seconds": time.perf_counter() - started}

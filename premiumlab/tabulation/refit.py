@@ -17,7 +17,7 @@ and refits, until main effect x every two-way table is monotone, before and afte
 from __future__ import annotations
 
 import itertools
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
@@ -35,7 +35,9 @@ class Refit:
     a matrix of relativities with base row and base column exactly 1.
 
     aliased: terms dropped as exactly collinear with earlier ones or without exposure (relativity 1),
-    as "factor[band]" or "a:b[band_a, band_b]"; iterations: Newton steps taken.
+    as "factor[band]" or "a:b[band_a, band_b]"; iterations: Newton steps taken; two_way_credibility:
+    per two-way table, the credibility Z of each cell applied to it (`credible_two_way`; empty
+    when none was applied).
     """
 
     relativities: dict[str, np.ndarray]
@@ -44,6 +46,7 @@ class Refit:
     aliased: list[str]
     iterations: int
     intercept: float
+    two_way_credibility: dict[tuple[str, str], np.ndarray] = field(default_factory=dict)
 
 
 def _pair_cells(
@@ -147,6 +150,40 @@ def refit(
             matrix[i, j] = value
         two[(a, b)] = matrix
     return Refit(rel, two, dict(bases), aliased, fit.iterations, float(beta[0]))
+
+
+def credible_two_way(fit: Refit, codes: dict[str, np.ndarray], exposure: np.ndarray, claims: np.ndarray) -> Refit:
+    """The refit with each two-way cell's relativity weighted by credibility towards 1.
+
+    Per two-way table (a, b), the cells are the pairs of bands; Z_ij is the Buhlmann-Straub
+    credibility of the cell's own experience, claims per exposure unit (`credibility.credibility_by_level` on the rows
+    grouped by cell) and the cell's relativity becomes r_ij^Z_ij = exp(Z_ij log r_ij), so that a
+    thin cell keeps little of its interaction. Base rows and columns stay exactly 1.
+
+    Parameters
+    ----------
+    fit : Refit
+        The refit of the banded model.
+    codes : dict[str, np.ndarray]
+        Band of every training row, per factor.
+    exposure : np.ndarray
+        Exposure of each training row (> 0).
+    claims : np.ndarray
+        Claims of each training row: the claim count (`distil`: Z of the claim frequency) or amount.
+
+    Returns
+    -------
+    Refit
+        `fit` with the weighted two-way tables and their Z in `two_way_credibility`.
+    """
+    from premiumlab.tabulation.credibility import credibility_by_level
+
+    two_way, applied = {}, {}
+    for (a, b), matrix in fit.two_way.items():
+        cell = codes[a] * matrix.shape[1] + codes[b]
+        z = credibility_by_level(claims, exposure, cell, matrix.size)["credibility"].to_numpy().reshape(matrix.shape)
+        two_way[(a, b)], applied[(a, b)] = np.exp(z * np.log(matrix)), z
+    return replace(fit, two_way=two_way, two_way_credibility=applied)
 
 
 # ---------------------------------------------------------------------------------------------
@@ -287,9 +324,11 @@ def pooled_refit(
     exposure: np.ndarray,
     response: np.ndarray,
     decimals: int,
+    claims: np.ndarray | None = None,
 ) -> PooledRefit:
-    """Refit, find the worst adjacent reversal of a promised factor, pool those two bands, refit, until
-    no promise is breached (`values`: numeric values or level indices of the training rows).
+    """Refit (with credible two-way cells when `claims` is given), find the worst adjacent reversal of
+    a promised factor, pool those two bands, refit, until no promise is breached (`values`: numeric
+    values or level indices of the training rows).
 
     Parameters
     ----------
@@ -305,6 +344,10 @@ def pooled_refit(
         Boosted pure premium per exposure unit of each training row.
     decimals : int
         Decimal places of the relativities in the table; the promises must hold after rounding too.
+    claims : np.ndarray or None
+        Claims (count, or amount) of each training row: each two-way cell is weighted by the
+        credibility of its claims per exposure unit towards 1 (`credible_two_way`) before the
+        promises are checked. None: not.
 
     Returns
     -------
@@ -325,6 +368,8 @@ def pooled_refit(
         bases = {n: base_band(b, band_exposure(codes[n], sizes[n], exposure)) for n, b in bandings.items()}
         missing = {n: b.n_bands - 1 for n, b in bandings.items() if b.missing}
         fit = refit(codes, sizes, bases, pairs, exposure, response, missing)
+        if claims is not None and pairs:
+            fit = credible_two_way(fit, codes, exposure, claims)
         reversal = worst_reversal(bandings, fit, decimals)
         if reversal is None:
             return PooledRefit(bandings, fit, codes, merges)
