@@ -315,3 +315,19 @@ def test_figures_that_are_no_numbers_or_absurd_are_not_printed_digit_by_digit():
     assert figure_text(-2.871e22, ">8.4f") == "-2.87e+22"  # not -28710000000000000000000.0000
     assert figure_text(None, ">8.4f") == "     n/a"
     assert figure_text(float("inf"), ".5g") == "n/a"
+
+
+def test_a_factor_held_at_base_by_the_pure_premium_glm_only_is_flagged() -> None:
+    """held_at_base: a pure-premium tau below 0.01 is flagged only where the frequency GLM's tau is
+    above 0.05; the uncapped 60,000-policy property book gave territory taus 1e-4 and 0.244
+    (measured when written), which is the first case here."""
+    from premiumlab.runs.diagnostics import held_at_base
+
+    credibility = {
+        "frequency": {"territory": {"tau": 0.244}, "alarm": {"tau": 0.03}, "age": {"tau": 0.2}},
+        "pure_premium": {"territory": {"tau": 1e-4}, "alarm": {"tau": 1e-4}, "age": {"tau": 0.02}},
+    }
+    found = held_at_base(credibility)
+    assert [(d.kind, d.model, d.factor) for d in found] == [("held_at_base", "glm_pure_premium", "territory")]
+    assert "tau 0.0001" in found[0].message and "tau 0.24" in found[0].message
+    assert held_at_base({"pure_premium": credibility["pure_premium"]}) == []

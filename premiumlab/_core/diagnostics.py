@@ -17,6 +17,7 @@ KINDS: dict[str, str] = {
     "separation": "a level or band without claims (or without losses): its unpenalised estimate runs to zero",
     "no_rows": "a level or band without rows in a fit: not estimated, priced at the base",
     "aliased": "a term that is a linear combination of earlier terms: not estimated, priced at the base",
+    "held_at_base": "a GLM's credibility penalty holds a factor at the base although another GLM of the run finds it",
     "relativity_bounds": "a relativity outside the plausibility bounds",
     "worse_than_null": "a model's holdout deviance is worse than the null model's (a constant rate)",
     "retention_undefined": "the retention ratio has a denominator <= 0: the boosted model is not better than the GLM",
