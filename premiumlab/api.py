@@ -192,8 +192,8 @@ def tabulate(
         Rating table folder to write.
     model : str
         The source: auto (the candidate with the lowest holdout mean Tweedie deviance), gbm (the
-        boosted Tweedie model), gbm_freq_sev (boosted frequency x severity) or glm (the Tweedie
-        GLM's relativities).
+        boosted Tweedie model), gbm_freq_sev (boosted frequency x severity), glm (the Tweedie
+        GLM's relativities) or glm_freq_sev (the frequency x severity GLMs' relativities).
     book : str or Path or None
         The run's book, if it has moved.
     force : bool

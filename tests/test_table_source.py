@@ -233,14 +233,45 @@ def test_auto_takes_the_lowest_holdout_deviance_of_metrics_json(demo_run) -> Non
 
 def test_a_requested_source_that_is_not_the_best_is_flagged(demo_run) -> None:
     """`--model glm` (the session's GLM table) names its source, and warns `weak_source` when the GLM
-    is not the best candidate; the lift over the GLM is then undefined (`retention_undefined`, no
-    ratio)."""
+    is not the best candidate; a GLM source has no lift over the GLM to keep (no ratio, and no
+    `retention_undefined` warning: nothing is unreliable). The spec's two-way table
+    (driver_age x vehicle_power) is in the GLM table, with its base row and column at 1."""
     fid = _fidelity(demo_run["glm_table"])
     kinds = [d["kind"] for d in fid["diagnostics"]]
     assert fid["source"]["model"] == "glm" and fid["source"]["requested"] == "glm"
     assert ("weak_source" in kinds) == (fid["source"]["best"] != "glm")
-    assert "retention_undefined" in kinds
+    assert "retention_undefined" not in kinds
     assert fid["fidelity"]["retention"]["source_lift_over_glm_kept"] is None
+    table = rating_tables.load(demo_run["glm_table"])
+    (pair,) = [f for f in table.factors if isinstance(f, rating_tables.InteractionFactor)]
+    assert tuple(pair.of) == ("driver_age", "vehicle_power")
+    assert np.ptp(np.log(pair.relativity)) > 0 and "two_way" in fid["distillation"]
+
+
+def test_offset_refit_equals_a_poisson_glm_with_offset_in_statsmodels() -> None:
+    """The GLM table's two-way fit (`_glm_two_way`): `refit` with response y / mu and weight
+    exposure x mu is the Poisson quasi-likelihood GLM of y with offset log(mu) and weights exposure.
+    Reference: statsmodels GLM (Poisson, offset, var_weights), the same design; 1e-8 on the
+    relativities."""
+    import statsmodels.api as sm
+
+    from premiumlab.tabulation.refit import refit
+
+    rng = np.random.default_rng(5)
+    n = 4000
+    a, b = rng.integers(0, 3, n), rng.integers(0, 2, n)
+    exposure = rng.uniform(0.2, 1.0, n)
+    mu = np.exp(rng.normal(0.0, 0.3, n)) * 0.1
+    y = rng.poisson(exposure * mu * np.where((a == 2) & (b == 1), 1.8, 1.0) * (1 + 0.2 * a)) / exposure
+    fit = refit({"a": a, "b": b}, {"a": 3, "b": 2}, {"a": 0, "b": 0}, [("a", "b")], exposure * mu, y / mu)
+    design = np.column_stack([np.ones(n), a == 1, a == 2, b == 1, (a == 1) & (b == 1), (a == 2) & (b == 1)])
+    reference = sm.GLM(y, design.astype(float), family=sm.families.Poisson(), offset=np.log(mu), var_weights=exposure)
+    params = reference.fit(tol=1e-12).params
+    np.testing.assert_allclose(fit.relativities["a"], np.exp([0.0, params[1], params[2]]), rtol=1e-8)
+    np.testing.assert_allclose(fit.relativities["b"], np.exp([0.0, params[3]]), rtol=1e-8)
+    np.testing.assert_allclose(
+        fit.two_way[("a", "b")], np.exp([[0.0, 0.0], [0.0, params[4]], [0.0, params[5]]]), rtol=1e-8
+    )
 
 
 def test_choose_source_breaks_ties_in_candidate_order_and_refuses_unknown_models() -> None:

@@ -233,7 +233,7 @@ def tabulate(
         str,
         typer.Option(
             help="auto (the best on the holdout), gbm (boosted Tweedie), gbm_freq_sev (boosted frequency x "
-            "severity) or glm (export the Tweedie GLM's relativities)."
+            "severity), glm (the Tweedie GLM's relativities) or glm_freq_sev (frequency x severity GLMs')."
         ),
     ] = "auto",
     book: Annotated[Path | None, typer.Option(help="The run's book, if it has moved.")] = None,

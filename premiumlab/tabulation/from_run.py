@@ -4,7 +4,9 @@ Source (`premiumlab.tabulation.source`): `model="auto"` takes the candidate with
 mean Tweedie deviance of the pure premium (the figure of metrics.json and `compare`); "gbm" and
 "gbm_freq_sev" distil the direct boosted model or the product of the boosted frequency and severity
 (`premiumlab.tabulation.distill`; the boosters must reproduce their predictions columns); "glm"
-exports the Tweedie GLM's own relativities on the run's bands. Either way:
+and "glm_freq_sev" export the Tweedie GLM's own relativities, or the product of the frequency and
+severity GLMs', on the run's bands, with the spec's two-way tables fitted on the observed losses
+with the GLM as offset (`_glm_two_way`). Either way:
 
 Rate level. Relativities are rounded half to even to `relativity_decimals` (base bands stay at
 exactly 1); the base rate is then solved so that the table's total pure premium on the training
@@ -22,7 +24,7 @@ the minimum over gross total without it, minus 1. With a current premium the ind
 Fidelity on the holdout rows (the training rows when the run has no holdout): mean Tweedie deviance
 at the run's power (`run_power`) and the Gini of the table's pure premium per exposure unit, beside
 every candidate's; retention G_table / G_source and, when G_source - G_GLM > 0,
-(G_table - G_GLM) / (G_source - G_GLM), else a `retention_undefined` diagnostic. Attenuation on the
+(G_table - G_GLM) / (G_source - G_GLM), else for a boosted source a `retention_undefined` diagnostic. Attenuation on the
 training rows (`premiumlab.tabulation.attenuation`); the level -> group map of every categorical.
 """
 
@@ -47,8 +49,8 @@ from premiumlab.runs.rundir import Run, model_name, open_run
 from premiumlab.tabulation.banding import Banding
 from premiumlab.tabulation.distill import distil
 from premiumlab.tabulation.effects import Curve, FactorValues, exposure_sample
-from premiumlab.tabulation.refit import band_exposure, round_relativity
-from premiumlab.tabulation.source import AUTO, MODEL_CHOICES, SourceChoice, candidate_scores, choose_source
+from premiumlab.tabulation.refit import band_exposure, credible_two_way, refit, round_relativity
+from premiumlab.tabulation.source import AUTO, GLM_SOURCES, MODEL_CHOICES, SourceChoice, candidate_scores, choose_source
 from rating_tables import MISSING_LABEL
 
 if TYPE_CHECKING:
@@ -264,16 +266,21 @@ def _model_codes(model: GbmModel, name: str, levels: tuple[str, ...]) -> np.ndar
     return np.array([position[level] for level in levels], dtype=float)
 
 
-def _glm_bands(run: Run) -> Made:
-    """The Tweedie GLM's relativities on the run's bands (no two-way tables, no credibility applied)."""
-    glm = run.model_json("glm", "pure_premium")
-    where = run.files.model_json("glm", "pure_premium")
+def _glm_bands(run: Run, source: SourceChoice) -> Made:
+    """A GLM source's relativities on the run's bands: the Tweedie GLM's (`glm`), or per level the
+    product of the frequency and severity GLMs' (`glm_freq_sev`); their credibility penalty is
+    already applied, and two-way tables are added by `_glm_two_way`."""
+    targets = GLM_SOURCES[source.model]
+    models = {t: run.model_json("glm", t) for t in targets}
     bandings, relativities, bases, defaulted = {}, {}, {}, []
     for f in run.spec.factors:
         levels = run.levels[f.name]
-        fitted = glm.get("relativities", {}).get(f.name)
-        if fitted is None:
-            raise InputError(f"{where}: key 'relativities.{f.name}' is missing")
+        fitted = []
+        for target, glm in models.items():
+            rel = glm.get("relativities", {}).get(f.name)
+            if rel is None:
+                raise InputError(f"{run.files.model_json('glm', target)}: key 'relativities.{f.name}' is missing")
+            fitted.append(rel)
         if levels.edges is not None:
             banding = Banding(f.name, f.monotone, edges=np.array(levels.edges, dtype=float), missing=levels.missing)
         else:
@@ -287,20 +294,67 @@ def _glm_bands(run: Run) -> Made:
                 missing=levels.missing,
             )
         labels = banding.labels()
-        values = []
-        for label in labels:
-            value = fitted.get(label)
-            if value is None:
-                defaulted.append(f"{f.name}[{label}]")
-            values.append(1.0 if value is None else float(value))
-        bandings[f.name], relativities[f.name] = banding, np.array(values)
+        values = np.ones(len(labels))
+        for target, rel in zip(models, fitted):
+            for k, label in enumerate(labels):
+                value = rel.get(label)
+                if value is None:
+                    defaulted.append(f"{model_name('glm', target)}: {f.name}[{label}]")
+                else:
+                    values[k] *= float(value)
+        bandings[f.name], relativities[f.name] = banding, values
         bases[f.name] = labels.index(levels.base)
     notes = {
-        "method": "relativities of the run's Tweedie GLM (models/glm_pure_premium.json) on its bands",
-        "power": glm.get("power"),
+        "method": "relativities of the run's GLM ("
+        + " x ".join(f"models/{model_name('glm', t)}.json" for t in targets)
+        + ") on its bands",
+        "power": models["pure_premium"].get("power") if "pure_premium" in models else None,
         "levels_without_estimate_set_to_1": defaulted,
     }
     return Made(bandings, relativities, {}, bases, notes)
+
+
+def _glm_two_way(made: Made, run: Run, book: Book, preds: pd.DataFrame, rows: np.ndarray, source: SourceChoice) -> Made:
+    """The GLM table with the spec's two-way tables ([table] interactions), which the GLM has not.
+
+    Per pair (a, b), a Poisson quasi-likelihood refit (`refit.refit`) of the observed pure premium y
+    (money per exposure unit, on the fitted basis) on the bands of a and b and their non-base pairs,
+    with the GLM's prediction mu as offset: response y / mu, weight exposure x mu, which is the
+    offset model log E[y] = log mu + a_i + b_j + ab_ij. The main effects of a and b are multiplied
+    by the refit's (they change where the GLM's mains had absorbed the interaction); each cell's
+    relativity r becomes r^Z, Z the Buhlmann-Straub credibility of the cell's claim frequency
+    (`refit.credible_two_way`, complement 1). Every other factor keeps the GLM's relativities.
+    """
+    pairs = list(run.spec.table.interactions)
+    if not pairs:
+        return made
+    names = [n for n in made.bandings if any(n in pair for pair in pairs)]
+    bandings = {n: made.bandings[n] for n in names}
+    cells = {n: _row_cells(b, book, run, rows) for n, b in bandings.items()}
+    codes = {n: cells[n] if b.numeric else b.codes(cells[n]) for n, b in bandings.items()}
+    mu = preds[source.column].to_numpy(dtype=float)[rows]
+    exposure = book.exposure[rows]
+    observed = _claim_amount(book)[rows] / exposure
+    fit = refit(
+        codes,
+        {n: b.n_bands for n, b in bandings.items()},
+        {n: made.bases[n] for n in names},
+        pairs,
+        exposure * mu,
+        observed / mu,
+        {n: b.n_bands - 1 for n, b in bandings.items() if b.missing},
+    )
+    fit = credible_two_way(fit, codes, exposure, book.claim_count[rows])
+    relativities = {**made.relativities, **{n: made.relativities[n] * fit.relativities[n] for n in names}}
+    notes = {
+        **made.notes,
+        "two_way": "Poisson quasi-likelihood refit of the observed pure premium on the paired factors' bands "
+        "and their cells, the GLM's prediction as offset; cells weighted towards 1 by credibility (r' = r^Z)",
+        "two_way_aliased_terms": fit.aliased,
+    }
+    return replace(
+        made, relativities=relativities, two_way=fit.two_way, notes=notes, two_way_credibility=fit.two_way_credibility
+    )
 
 
 # ---------------------------------------------------------------------------------------------
@@ -526,7 +580,7 @@ def _fidelity(
 ) -> tuple[dict, list[Diagnostic]]:
     """Deviance and Gini of the table on `rows` beside every candidate's, and the retention of the
     source's Gini: G_table / G_source and (G_table - G_glm) / (G_source - G_glm), the latter only
-    when its denominator is > 0 (else a `retention_undefined` diagnostic)."""
+    when its denominator is > 0 (else, for a boosted source, a `retention_undefined` diagnostic)."""
     from premiumlab.evaluation.metrics import gini
     from premiumlab.models.deviance import mean_deviance
     from rating_tables import rate
@@ -547,16 +601,17 @@ def _fidelity(
     if "glm" in g:
         gap = g[src] - g["glm"]
         retention["gini_source_minus_glm"] = gap
-        retention["source_lift_over_glm_kept"] = (g["table"] - g["glm"]) / gap if gap > 0 else None
-        if not gap > 0:
-            why = "the source is the GLM itself" if src == "glm" else f"{src} is not better than the GLM"
+        kept = (g["table"] - g["glm"]) / gap if gap > 0 and src not in GLM_SOURCES else None
+        retention["source_lift_over_glm_kept"] = kept
+        if not gap > 0 and src not in GLM_SOURCES:
             diagnostics.append(
                 Diagnostic(
                     kind="retention_undefined",
                     model="table",
                     message=(
                         f"(G_table - G_glm) / (G_{src} - G_glm) is not defined: G_{src} - G_glm = {gap:.4f} "
-                        f"on the {source.rows} rows ({why}); no share of a lift over the GLM to keep"
+                        f"on the {source.rows} rows ({src} is not better than the GLM); no share of a lift "
+                        "over the GLM to keep"
                     ),
                 )
             )
@@ -741,7 +796,10 @@ def tabulate(
     source = choose_source(scores, model, rows_name, power, str(run.files.predictions))
     train = ~loaded.holdout
     rows = np.flatnonzero(train)
-    made = _glm_bands(run) if source.model == "glm" else _gbm_bands(run, loaded, preds, train, source)
+    if source.model in GLM_SOURCES:
+        made = _glm_two_way(_glm_bands(run, source), run, loaded, preds, rows, source)
+    else:
+        made = _gbm_bands(run, loaded, preds, train, source)
     cells = {n: _row_cells(b, loaded, run, rows) for n, b in made.bandings.items()}
     exposure = loaded.exposure[rows]
     amount = _claim_amount(loaded)[rows]

@@ -2,7 +2,8 @@
 
 Candidates (docs/commands.md, `tabulate --model`), each a prediction column of predictions.parquet:
 `gbm` (the direct boosted Tweedie model, gbm_pure_premium), `gbm_freq_sev` (the boosted frequency
-times the boosted severity, gbm_freq_x_sev) and `glm` (the Tweedie GLM, glm_pure_premium).
+times the boosted severity, gbm_freq_x_sev), `glm` (the Tweedie GLM, glm_pure_premium) and
+`glm_freq_sev` (the Poisson frequency GLM times the gamma severity GLM, glm_freq_x_sev).
 
 Criterion: the mean Tweedie deviance of the pure premium per exposure unit on the holdout rows,
 sum_i w_i d(y_i, mu_i) / sum_i w_i with y = claim amount / exposure and w = exposure, at the run's
@@ -22,7 +23,14 @@ from premiumlab._core.diagnostics import Diagnostic
 from premiumlab._core.errors import InputError
 
 #: Candidate -> its prediction column in predictions.parquet, in the order ties are broken.
-SOURCES: dict[str, str] = {"gbm": "gbm_pure_premium", "gbm_freq_sev": "gbm_freq_x_sev", "glm": "glm_pure_premium"}
+SOURCES: dict[str, str] = {
+    "gbm": "gbm_pure_premium",
+    "gbm_freq_sev": "gbm_freq_x_sev",
+    "glm": "glm_pure_premium",
+    "glm_freq_sev": "glm_freq_x_sev",
+}
+#: The GLM candidates and the GLM targets whose relativities multiply into the table's.
+GLM_SOURCES: dict[str, tuple[str, ...]] = {"glm": ("pure_premium",), "glm_freq_sev": ("frequency", "severity")}
 AUTO = "auto"
 #: `--model` values: the automatic choice, then the candidates.
 MODEL_CHOICES = (AUTO, *SOURCES)
