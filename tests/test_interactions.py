@@ -8,6 +8,7 @@ import lightgbm as lgb
 import numpy as np
 import pandas as pd
 import pytest
+from premiumlab.scenarios import __file__ as scenarios_init
 from scipy import stats
 
 from premiumlab._core.errors import InputError
@@ -24,7 +25,6 @@ from premiumlab.models.trees.interactions import (
     top_factors_by_gain,
 )
 from premiumlab.models.trees.parser import Tree, Trees
-from premiumlab.scenarios import __file__ as scenarios_init
 from premiumlab.simulation.scenario_file import load_scenario
 from premiumlab.simulation.simulator import generate
 
@@ -74,8 +74,8 @@ def _brute_force(booster: lgb.Booster, sample: np.ndarray) -> dict[tuple[str, st
 
 def test_tree_computation_matches_brute_force_partial_dependence(booster_and_sample):
     """The exact computation from the parsed trees equals the definition (Friedman and Popescu,
-    2008, section 8.1) computed by brute force with LightGBM's own predictions on n^2 rows, to 1e-9
-    relative, for numeric, categorical and missing values; and a bootstrap replicate equals the
+    2008, Ann. Appl. Stat., eq. 44 for H^2; recalled from memory) computed by brute force with
+    LightGBM's own predictions on n^2 rows, to 1e-9 relative, for numeric, categorical and missing values; and a bootstrap replicate equals the
     brute force on the resampled sample (its rows repeated as drawn)."""
     booster, x = booster_and_sample
     trees = Trees.from_text(booster.model_to_string())
@@ -201,7 +201,7 @@ def test_null_books_keep_the_surrogate_mean_and_the_claim_count():
     books = np.array(list(null_books(label, weight, claims, mean, 1.6, 400, rng)))
     total = (books * weight).sum(axis=1)
     assert abs(total.mean() - (mean * weight).sum()) < 4 * total.std() / np.sqrt(400)
-    frequency = list(null_books(claims / weight, weight, claims, mean / 2000.0, 1.0, 1, rng))[0]
+    frequency = next(null_books(claims / weight, weight, claims, mean / 2000.0, 1.0, 1, rng))
     assert np.allclose(frequency * weight, np.round(frequency * weight))
 
 
