@@ -18,6 +18,7 @@ from premiumlab.models.gbm.fit import fit_target
 from premiumlab.models.gbm.training import GbmInputs, prepare_training
 from premiumlab.models.trees.interactions import (
     NEGLIGIBLE_STRENGTH,
+    NOISE_MARGIN,
     noise_test,
     null_books,
     pair_statistics,
@@ -175,6 +176,15 @@ def test_noise_test_by_hand():
     t = (np.log(observed) - centre) / (sd * np.sqrt(4 / 3))
     assert result.degrees_of_freedom == 4 and result.log_sd == pytest.approx(sd, rel=1e-12)
     assert result.p_value == pytest.approx(stats.t.sf(t, 4), rel=1e-12)
+    assert result.stands_out.tolist() == [True, False]
+
+
+def test_noise_test_needs_the_margin_over_the_pairs_own_noise():
+    """A pair far beyond its null mean in t (p 8e-6 < 0.05 / 2) but under NOISE_MARGIN (2) times its
+    own largest null strength (0.1 < 2 x 0.06) does not stand out; one at 0.2 against nulls of at most
+    0.052 does. The margin is the pair's own: pair 2's nulls do not hold pair 1 back."""
+    result = noise_test(np.array([0.2, 0.1]), np.array([[0.05, 0.058], [0.051, 0.06], [0.052, 0.059]]))
+    assert result.p_value[1] < 0.05 / 2 and NOISE_MARGIN == 2.0
     assert result.stands_out.tolist() == [True, False]
 
 
