@@ -262,7 +262,7 @@ def pair_statistics(
     totals = weights.sum(axis=0, dtype=np.float64)
     index = {f: names.index(f) for f in factors}
     value_of = {f: np.unique(sample[:, index[f]], return_inverse=True)[1].ravel() for f in factors}
-    cells = {f: _Cells.of(value_of[f], weights) for f in factors}
+    cells: dict[str | tuple[str, str], _Cells] = {f: _Cells.of(value_of[f], weights) for f in factors}
     pairs = list(combinations(factors, 2))
     for a, b in pairs:
         cells[(a, b)] = _Cells.of(value_of[a] * n + value_of[b], weights)
