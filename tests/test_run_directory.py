@@ -98,4 +98,7 @@ def test_certificate_and_interactions_in_the_run(demo_run):
         assert c["certificate"]["violation_count"] == 0 and c["certificate"]["leaf_pairs_checked"] > 0
         assert c["sweep"]["violation_count"] == 0 and c["sweep"]["policies"] == 1000
     inter = json.loads((demo_run["run"] / "interactions.json").read_text())
-    assert inter["pairs"][0]["h_unnormalised"] >= inter["pairs"][-1]["h_unnormalised"]
+    strengths = [p["strength"] for p in inter["pairs"]]
+    assert strengths == sorted(strengths, reverse=True) and inter["rounds"]
+    assert all(0 <= p["p_value"] <= 1 and len(p["null_strength"]) == inter["refits"] for p in inter["pairs"])
+    assert inter["candidates"] == [p["pair"] for p in inter["pairs"] if p["stands_out"]]

@@ -205,6 +205,11 @@ def fit(
         progress=_Echo(err=True) if sys.stderr.isatty() else None,
     )
     typer.echo(f"wrote {run.path}")
+    if run.files.interactions.is_file():
+        from premiumlab._core.jsonio import read_json
+        from premiumlab.cli.format import interaction_line
+
+        typer.echo(interaction_line(read_json(run.files.interactions)), err=True)
     _echo_lines(diagnostic_lines(run.manifest.get("diagnostics", []), source=run.files.manifest))
 
 

@@ -361,6 +361,38 @@ def impact_lines(result: ImpactResult) -> list[str]:
     return lines
 
 
+def interaction_line(ranking: dict) -> str:
+    """`fit`: the interaction pairs that stand out from noise, offered for the spec's
+    `[table] interactions` (RUN/interactions.json, docs/run-directory.md).
+
+    Parameters
+    ----------
+    ranking : dict
+        interactions.json as written by `fit`.
+
+    Returns
+    -------
+    str
+        One line: the candidate pairs with their strength and p-value and the spec line that would
+        tabulate them, or that no pair of the factors measured stands out.
+    """
+    tested = len(ranking["pairs"])
+    if not ranking["candidates"]:
+        return (
+            f"interactions: no pair of the {len(ranking['factors'])} top factors of the {ranking['model']} model "
+            f"stands out from noise ({tested} pairs tested; interactions.json)"
+        )
+    found = [p for p in ranking["pairs"] if p["stands_out"]]
+    listed = ", ".join(
+        f"{a} x {b} (strength {p['strength']:.3f}, p {p['p_value']:.2g})" for p in found for a, b in [p["pair"]]
+    )
+    spec_line = "[" + ", ".join(f'["{a}", "{b}"]' for a, b in ranking["candidates"]) + "]"
+    return (
+        f"interactions: {listed} stand out from noise among {tested} pairs; "
+        f"to tabulate them, set [table] interactions = {spec_line}"
+    )
+
+
 def certificate_lines(result: Certificate) -> list[str]:
     """`certify`: what was checked and each listed violation.
 

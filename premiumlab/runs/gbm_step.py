@@ -19,12 +19,10 @@ from premiumlab.runs.rundir import RunDir, model_name
 
 if TYPE_CHECKING:
     from premiumlab.models.gbm.fit import GbmModel
+    from premiumlab.models.gbm.training import GbmInputs
 
 #: Held-out policies swept per promised factor by the empirical monotonicity check.
 SWEEP_POLICIES = 1000
-#: Policies in the sample for Friedman's H statistic, and factors (top by gain) it pairs.
-H_SAMPLE = 300
-H_FACTORS = 6
 
 
 def _gbm_options(spec: Spec, glm_power: float | None) -> GbmOptions:
@@ -92,7 +90,7 @@ def fit_gbms(
         preds["gbm_freq_x_sev"] = preds["gbm_frequency"] * preds["gbm_severity"]
     main = models.get("pure_premium", models["frequency"])
     write_json(run.certificate, _certify_run(models, features, book.holdout, spec))
-    write_json(run.interactions, _rank_interactions(main, features, train, spec))
+    write_json(run.interactions, _rank_interactions(main, inputs, options, spec))
 
 
 def _certify_run(models: dict[str, GbmModel], features: pd.DataFrame, holdout: np.ndarray, spec: Spec) -> dict:
@@ -119,19 +117,13 @@ def _certify_run(models: dict[str, GbmModel], features: pd.DataFrame, holdout: n
     }
 
 
-def _rank_interactions(model: GbmModel, features: pd.DataFrame, train: np.ndarray, spec: Spec) -> dict:
-    """Friedman's H for pairs of the top factors by gain, on a seeded sample of training policies."""
-    from premiumlab.models.trees.interactions import h_statistics, top_factors_by_gain
+def _rank_interactions(model: GbmModel, inputs: GbmInputs, options: GbmOptions, spec: Spec) -> dict:
+    """interactions.json: the main model's pairs of factors ranked by interaction strength, each with
+    its bootstrap interval and its test against refits to books without interaction, seeded by the
+    split's seed (`premiumlab.models.trees.interactions.rank_interactions`)."""
+    from premiumlab.models.gbm.training import prepare_training
+    from premiumlab.models.trees.interactions import rank_interactions
 
-    top = top_factors_by_gain(model.booster, H_FACTORS)
-    if len(top) < 2:
-        return {
-            "model": model.target,
-            "sample": 0,
-            "factors": top,
-            "pairs": [],
-            "note": "the boosted model splits on fewer than two factors, so it has no interactions",
-        }
-    sample = features.loc[train].reset_index(drop=True)
-    pairs = h_statistics(model.predict_raw, sample, top, seed=spec.split.seed, sample_size=H_SAMPLE)
-    return {"model": model.target, "sample": min(H_SAMPLE, len(sample)), "factors": top, "pairs": pairs}
+    rows = TARGETS[model.target].rows(inputs.claim_count, inputs.claim_amount)
+    data = prepare_training(inputs, model.target, options)
+    return rank_interactions(model, data, inputs.claim_count[rows], seed=spec.split.seed)

@@ -7,7 +7,7 @@ RUN/
     metrics.json          holdout metrics (when the run has a holdout)
     experience.json       what the experience step used (with [experience] adjustments)
     certificate.json      monotonicity certificate of the boosted models
-    interactions.json     Friedman's H of the boosted pure-premium model
+    interactions.json     two-factor interactions of the main boosted model, tested against noise
     models/KIND_TARGET.json (and .txt, the LightGBM text of a boosted model)
     comparison.json, figures/*.png   written by `compare`
     report.html           written by `report`
