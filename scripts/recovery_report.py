@@ -21,7 +21,7 @@ import numpy as np
 import pandas as pd
 
 import rating_tables
-from premiumlab.simulation.recovery import explained_share, policy_error, true_log_relativity, true_pure_premium
+from premiumlab.simulation.recovery import policy_error, table_recovery, true_pure_premium
 from premiumlab.simulation.scenario_file import load_scenario
 from premiumlab.simulation.simulator import generate
 
@@ -47,29 +47,20 @@ def main() -> None:
     rows = preds["holdout"].to_numpy(bool) if "holdout" in preds else np.ones(len(book), bool)
     weight = book["exposure"].to_numpy()[rows]
     truth = true_pure_premium(scenario, drawn.effects)[rows]
-    factors = [f.name for f in scenario.factors]
 
     rated = {}
     for table_dir in args.tables:
         table = rating_tables.load(table_dir)
         rated[table_dir.name] = rating_tables.rate(table, book.iloc[np.flatnonzero(rows)], "exposure")
     print(f"holdout rows {int(rows.sum())}, exposure {weight.sum():.0f}")
+    shares, errors = {}, {}
+    for name, frame in rated.items():
+        shares[name], errors[name] = table_recovery(scenario, drawn.effects, frame, np.flatnonzero(rows), weight)
     print("share of true variance explained, per factor:")
     print(f"  {'factor':20s}" + "".join(f"{name:>14s}" for name in rated))
-    shares: dict[str, dict[str, float]] = {name: {} for name in rated}
-    for factor in factors:
-        true_log = true_log_relativity(drawn.effects, factor)[rows]
-        line = f"  {factor:20s}"
-        for name, frame in rated.items():
-            column = f"rel_{factor}"
-            share = explained_share(true_log, np.log(frame[column].to_numpy()), weight) if column in frame else np.nan
-            shares[name][factor] = share
-            line += f"{share:14.3f}"
-        print(line)
+    for factor in (f.name for f in scenario.factors):
+        print(f"  {factor:20s}" + "".join(f"{shares[name][factor]:14.3f}" for name in rated))
     print("policy-level error (RMS of centred log fitted/true pure premium):")
-    errors = {}
-    for name, frame in rated.items():
-        errors[name] = policy_error(truth, frame["pure_premium"].to_numpy() / weight, weight)
     for model in MODELS:
         if model in preds:
             errors[model] = policy_error(truth, preds[model].to_numpy()[rows], weight)

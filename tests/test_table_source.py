@@ -27,7 +27,7 @@ from premiumlab.tabulation.banding import merge_thin_levels
 from premiumlab.tabulation.credibility import buhlmann_straub, credibility_weighted
 from premiumlab.tabulation.distill import ScoreBooster, distil
 from premiumlab.tabulation.effects import FactorValues
-from premiumlab.tabulation.source import choose_source
+from premiumlab.tabulation.source import SOURCES, choose_source
 from rating_tables import InteractionFactor
 
 # ---------------------------------------------------------------------------------------------
@@ -215,7 +215,7 @@ def test_auto_takes_the_lowest_holdout_deviance_of_metrics_json(demo_run) -> Non
     `holdout_metrics`), to 1e-12."""
     fid = _fidelity(demo_run["table"])
     metrics = json.loads((demo_run["run"] / "metrics.json").read_text())["pure_premium"]["models"]
-    columns = {"gbm": "gbm_pure_premium", "gbm_freq_sev": "gbm_freq_x_sev", "glm": "glm_pure_premium"}
+    columns = SOURCES
     source = fid["source"]
     assert set(source["candidates"]) == set(columns)
     for name, scores in source["candidates"].items():

@@ -18,6 +18,7 @@ The truth comes from the simulator's draw (`SimulatedBook.effects`), never from 
 from __future__ import annotations
 
 import numpy as np
+import pandas as pd
 
 from premiumlab._core.errors import InputError
 from premiumlab.simulation.draw import Effects
@@ -111,3 +112,41 @@ def policy_error(true_premium: np.ndarray, fitted_premium: np.ndarray, weight: n
         raise InputError("recovery: premiums must be finite and > 0")
     r = _centred(np.log(fitted_premium / true_premium), weight)
     return float(np.sqrt(np.sum(weight * r**2) / np.sum(weight)))
+
+
+def table_recovery(
+    scenario: Scenario, effects: Effects, rated: pd.DataFrame, rows: np.ndarray, weight: np.ndarray
+) -> tuple[dict[str, float], float]:
+    """A rated table's recovery of the truth: per factor the explained share, and the policy error.
+
+    Parameters
+    ----------
+    scenario : Scenario
+        The scenario the book was drawn from.
+    effects : Effects
+        The book's true effects (all rows).
+    rated : pd.DataFrame
+        `rating_tables.rate` of the table on the book's `rows`, in that order: its `rel_NAME`
+        columns (the factor's main-effect relativity) and `pure_premium` (money per row).
+    rows : numpy.ndarray
+        Positions of the rated rows in the book.
+    weight : numpy.ndarray
+        Exposure of the rated rows (exposure units).
+
+    Returns
+    -------
+    tuple of (dict, float)
+        `explained_share` of every scenario factor that the table rates (NaN for one it does not),
+        and `policy_error` of pure_premium / exposure against `true_pure_premium`.
+    """
+    shares = {}
+    for factor in (f.name for f in scenario.factors):
+        column = f"rel_{factor}"
+        true_log = true_log_relativity(effects, factor)[rows]
+        shares[factor] = (
+            explained_share(true_log, np.log(rated[column].to_numpy(dtype=float)), weight)
+            if column in rated
+            else float("nan")
+        )
+    fitted = rated["pure_premium"].to_numpy(dtype=float) / weight
+    return shares, policy_error(true_pure_premium(scenario, effects)[rows], fitted, weight)
