@@ -79,4 +79,4 @@ def test_no_glm_relativity_of_a_thin_territory_is_outside_0_3_to_3(recovered):
     for target in ("frequency", "severity", "pure_premium"):
         model = json.loads((run / "models" / f"glm_{target}.json").read_text())
         values = [v for level, v in model["relativities"]["territory"].items() if level in thin]
-        assert values and 0.3 <= min(values) and max(values) <= 3.0, (target, min(values), max(values))
+        assert values and min(values) >= 0.3 and max(values) <= 3.0, (target, min(values), max(values))
