@@ -218,7 +218,15 @@ def categorical_smoothing(
         if levels > MAX_CAT_TO_ONEHOT:
             candidates.append(level_credibility(name, g / scale, h / scale, level_codes))
     if not candidates:
-        return {"value": MIN_CAT_SMOOTH, "factor": None, "levels": 0, "within": None, "between": None, "k": None, "limited": None}
+        return {
+            "value": MIN_CAT_SMOOTH,
+            "factor": None,
+            "levels": 0,
+            "within": None,
+            "between": None,
+            "k": None,
+            "limited": None,
+        }
     chosen = max(candidates, key=lambda c: (c.levels, c.k))
     upper = len(label) / chosen.levels
     value = min(max(chosen.k, MIN_CAT_SMOOTH), upper)

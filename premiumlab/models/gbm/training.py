@@ -126,7 +126,9 @@ def _check_options(options: GbmOptions) -> None:
         raise InputError(f"gbm option tweedie_power: {options.tweedie_power!r} must be in [1, 2)")
     for name in ("cat_smooth", "cat_l2"):
         value = getattr(options, name)
-        if value is not None and (isinstance(value, bool) or not isinstance(value, (int, float)) or not 0 <= value < math.inf):
+        if value is not None and (
+            isinstance(value, bool) or not isinstance(value, (int, float)) or not 0 <= value < math.inf
+        ):
             raise InputError(f"gbm option {name}: {value!r} must be None (automatic) or a number >= 0 (rows)")
     if not options.grid:
         raise InputError("gbm option grid: no settings")
