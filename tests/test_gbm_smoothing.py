@@ -239,14 +239,15 @@ def _lightgbm_defaults_before(inputs: GbmInputs, target: str):
 def test_thin_territories_no_longer_dominate_the_pure_premium_model(property_inputs):
     """Simulator recovery (invented book with known truth, 300 territories of which many thin): with
     hessian sums in rows and the credibility cat_smooth, the direct Tweedie model's cross-validated
-    deviance is no worse than with LightGBM's cat_smooth = cat_l2 = 10 on the objective's hessians
-    (relative 0.2 %), it puts a smaller share of its gain on the territory, and it grows more trees
-    before early stopping (LightGBM's parameter docs: cat_smooth, cat_l2 "Parameters" page)."""
+    deviance is at least 1 % lower than with LightGBM's cat_smooth = cat_l2 = 10 on the objective's
+    hessians (measured: 85.3 against 88.7, seed of the scenario), it puts less than half the share
+    of its gain on the territory (measured 0.15 against 0.47) and it grows more trees before early
+    stopping (38 against 15). cat_smooth and cat_l2: LightGBM's "Parameters" page of its docs."""
     before = _lightgbm_defaults_before(property_inputs, "pure_premium")
     data = prepare_training(property_inputs, "pure_premium", QUICK)
     table = cross_validate(data, list(QUICK.grid), QUICK)
     after = fit_final(data, QUICK.grid[0], table[0]["rounds"], table, 0)
     assert data.smoothing is not None and data.smoothing["factor"] == "territory"
-    assert after.cv_table[0]["mean_deviance"] <= before.cv_table[0]["mean_deviance"] * 1.002
-    assert _gain_shares(after)["territory"] < _gain_shares(before)["territory"]
+    assert after.cv_table[0]["mean_deviance"] <= before.cv_table[0]["mean_deviance"] * 0.99
+    assert _gain_shares(after)["territory"] < 0.5 * _gain_shares(before)["territory"]
     assert after.best_rounds > before.best_rounds

@@ -350,7 +350,9 @@ def prepare_training(inputs: GbmInputs, target: str, options: GbmOptions) -> Tra
     if options.cat_smooth is None:
         codes = {name: matrix[:, names.index(name)].astype(np.int64) for name in categories}
         smoothing = categorical_smoothing(label, weight, objective, power, codes)
-    cat_smooth = smoothing["value"] if smoothing is not None else float(options.cat_smooth)
+        cat_smooth = float(smoothing["value"])
+    else:
+        cat_smooth = float(options.cat_smooth)
     return TrainingData(
         target=target,
         matrix=matrix,
