@@ -13,6 +13,18 @@ from premiumlab._core.defaults import FALLBACK_TWEEDIE_POWER, SEED
 #: LightGBM's monotone_constraints_method values, simplest first.
 MONOTONE_METHODS = ("basic", "intermediate", "advanced")
 
+#: LightGBM splits a categorical with at most this many levels one level against the rest, and
+#: orders the levels of a larger one by their gradients (its `max_cat_to_onehot`, fixed here).
+MAX_CAT_TO_ONEHOT = 4
+#: The least automatic cat_smooth and cat_l2, in rows: LightGBM's default of both, made for
+#: hessians of about 1 per row.
+MIN_CAT_SMOOTH = 10.0
+#: The credibility estimate of the automatic cat_smooth caps the labels at this quantile of the
+#: non-zero labels, so that single large losses do not swamp it.
+LARGE_LABEL_QUANTILE = 0.999
+#: LightGBM's `poisson_max_delta_step` (its default): the Poisson hessian is w mu e^0.7.
+POISSON_MAX_DELTA_STEP = 0.7
+
 # Half of the 2^4 factorial in leaves, minimum policies per leaf, learning rate and L2 penalty
 # (the fourth factor aliased with the three-way interaction): every level of every factor appears
 # four times, every pair of levels of two factors twice.
@@ -44,6 +56,13 @@ class GbmOptions:
     model; tweedie_power (None; the spec's word "glm"): variance power of the pure-premium model,
     a number in (1, 2), or None for the run's GLM estimate (`FALLBACK_TWEEDIE_POWER` where there is
     none, as in a direct call of `premiumlab.models.gbm.fit.fit_target`).
+
+    Categorical levels (`premiumlab.models.gbm.smoothing`; hessian sums count rows, a row's LightGBM
+    weight being its weight over the mean hessian per row at the start): cat_smooth (None; the
+    spec's word "auto"): LightGBM's cat_smooth in rows, None for the credibility constant of the
+    target's most-levelled categorical; cat_l2 (None; "auto"): LightGBM's cat_l2 in rows, None for
+    the cat_smooth used; min_data_per_group (100) and max_cat_threshold (32): LightGBM's, in rows
+    and levels.
     """
 
     folds: int = 5
@@ -56,6 +75,10 @@ class GbmOptions:
     monotone_method: str = "advanced"
     constrain_severity: bool = False
     tweedie_power: float | None = None
+    cat_smooth: float | None = None
+    cat_l2: float | None = None
+    min_data_per_group: int = 100
+    max_cat_threshold: int = 32
 
     @property
     def variance_power(self) -> float:

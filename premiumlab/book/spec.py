@@ -407,8 +407,17 @@ def _parse_experience(doc: TomlTable, columns: Columns) -> Experience:
     return e
 
 
+def _rows_or_auto(t: TomlTable, key: str) -> float | None:
+    """A number of rows >= 0, or the word "auto" (None)."""
+    if isinstance(t.value(key), str):
+        t.string(key, choices=("auto",))
+        return None
+    return t.number(key, low=0.0)
+
+
 def _parse_gbm(doc: TomlTable, seed: int) -> GbmOptions:
-    """The [gbm] section; the seed is the split's, the word "glm" for tweedie_power is None."""
+    """The [gbm] section; the seed is the split's, the word "glm" for tweedie_power is None, the
+    word "auto" for cat_smooth and cat_l2 is None."""
     given = _section(
         doc,
         "gbm",
@@ -421,6 +430,10 @@ def _parse_gbm(doc: TomlTable, seed: int) -> GbmOptions:
             "monotone_method": lambda t, k: t.string(k, choices=MONOTONE_METHODS),
             "constrain_severity": _boolean,
             "tweedie_power": lambda t, k: _power(t, k, "glm"),
+            "cat_smooth": _rows_or_auto,
+            "cat_l2": _rows_or_auto,
+            "min_data_per_group": lambda t, k: t.integer(k, low=1),
+            "max_cat_threshold": lambda t, k: t.integer(k, low=1),
         },
     )
     if "threads" in given:

@@ -9,7 +9,8 @@ of a policy stay together) with early stopping on the weighted mean deviance of 
 (`premiumlab.models.deviance.mean_deviance`, the family's deviance; LightGBM's built-in metrics for
 these objectives are negative log-likelihoods, so they are switched off). The setting with the lowest
 mean fold deviance is refitted on the whole training part with the mean of its folds' best round
-counts.
+counts. Thin categorical levels: LightGBM's hessian-sum settings count rows and cat_smooth is the
+credibility constant of the levels (`premiumlab.models.gbm.smoothing`).
 
 Balance: sum(weight x prediction) / sum(weight x label) on the training part, i.e. predicted over
 observed claims (frequency) or amounts (severity, pure premium). Outside 1 +- 1 % every prediction
@@ -67,6 +68,8 @@ class GbmModel:
     monotone: dict[str, int]  # factor -> direction the model is constrained to ({} if none)
     training_rows: int
     constraint_notes: list[str] = field(default_factory=list)
+    hessian_scale: float = 1.0  # LightGBM weight = weight / hessian_scale (row units)
+    categorical_smoothing: dict | None = None  # how cat_smooth was estimated; None if the options gave it
 
     def encode(self, features: pd.DataFrame) -> np.ndarray:
         """Features -> the float64 matrix the booster reads (categoricals as fixed level codes)."""
@@ -106,6 +109,8 @@ class GbmModel:
             "categories": self.categories,
             "monotone": self.monotone,
             "constraint_notes": self.constraint_notes,
+            "hessian_scale": self.hessian_scale,
+            "categorical_smoothing": self.categorical_smoothing,
             "caution": DRAFT,
         }
 
@@ -180,6 +185,8 @@ def fit_final(
         categories=dict(data.categories),
         monotone=dict(data.monotone),
         training_rows=len(data.label),
+        hessian_scale=data.hessian_scale,
+        categorical_smoothing=data.smoothing,
     )
 
 
@@ -315,4 +322,6 @@ def load_model(text_path: str | Path, json_path: str | Path) -> GbmModel:
         monotone=meta["monotone"],
         training_rows=meta["training_rows"],
         constraint_notes=meta["constraint_notes"],
+        hessian_scale=meta.get("hessian_scale", 1.0),
+        categorical_smoothing=meta.get("categorical_smoothing"),
     )

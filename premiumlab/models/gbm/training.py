@@ -2,11 +2,14 @@
 
 A target's rows, label and weight come from `premiumlab.models.targets`; categoricals are encoded as
 level codes in the order of the training part, and the fixed LightGBM parameters (objective,
-monotone constraints, threads, seed) are set once here for the search and the final fit.
+monotone constraints, threads, seed, categorical smoothing) are set once here for the search and the
+final fit. LightGBM sees each row's weight divided by the target's mean hessian per row at the
+start, so that its hessian-sum settings count rows (`premiumlab.models.gbm.smoothing`).
 """
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import lightgbm as lgb
@@ -15,7 +18,8 @@ import pandas as pd
 
 from premiumlab._core.errors import InputError
 from premiumlab._core.validators import ABOVE_ZERO, AT_LEAST_ZERO, checked_array
-from premiumlab.book.gbm_options import MONOTONE_METHODS, GbmOptions
+from premiumlab.book.gbm_options import MAX_CAT_TO_ONEHOT, MONOTONE_METHODS, GbmOptions
+from premiumlab.models.gbm.smoothing import categorical_smoothing, hessian_scale
 from premiumlab.models.targets import TARGETS
 
 SIMPLER_METHOD = {"advanced": "intermediate", "intermediate": "basic"}
@@ -29,6 +33,10 @@ GRID_KEYS = frozenset(
         "lambda_l1",
         "max_depth",
         "min_gain_to_split",
+        "cat_smooth",
+        "cat_l2",
+        "min_data_per_group",
+        "max_cat_threshold",
     }
 )
 BALANCE_TOLERANCE = 0.01
@@ -72,6 +80,8 @@ class TrainingData:
     categories: dict[str, list[str]]
     monotone: dict[str, int]  # the promises this model is constrained to keep ({} if none)
     base_params: dict
+    hessian_scale: float = 1.0  # mean LightGBM hessian per row at the start; LightGBM weight = weight / it
+    smoothing: dict | None = None  # how cat_smooth was chosen (`categorical_smoothing`), None if given
 
     @property
     def categorical_indices(self) -> list[int]:
@@ -83,10 +93,11 @@ class TrainingData:
         return TARGETS[self.target].deviance_power(self.base_params.get("tweedie_variance_power"))
 
     def dataset(self) -> lgb.Dataset:
+        """The LightGBM Dataset: the matrix, the label and the weight in row units (weight / hessian_scale)."""
         return lgb.Dataset(
             self.matrix,
             label=self.label,
-            weight=self.weight,
+            weight=self.weight / self.hessian_scale,
             feature_name=self.feature_names,
             categorical_feature=self.categorical_indices,
             params=_dataset_params(self.base_params),
@@ -94,7 +105,15 @@ class TrainingData:
 
 
 def _check_options(options: GbmOptions) -> None:
-    for name in ("folds", "max_settings", "num_threads", "max_rounds", "early_stopping_rounds"):
+    for name in (
+        "folds",
+        "max_settings",
+        "num_threads",
+        "max_rounds",
+        "early_stopping_rounds",
+        "min_data_per_group",
+        "max_cat_threshold",
+    ):
         value = getattr(options, name)
         low = 2 if name == "folds" else 1
         if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < low:
@@ -105,6 +124,12 @@ def _check_options(options: GbmOptions) -> None:
         )
     if options.tweedie_power is not None and not 1.0 <= options.tweedie_power < 2.0:
         raise InputError(f"gbm option tweedie_power: {options.tweedie_power!r} must be in [1, 2)")
+    for name in ("cat_smooth", "cat_l2"):
+        value = getattr(options, name)
+        if value is not None and (
+            isinstance(value, bool) or not isinstance(value, (int, float)) or not 0 <= value < math.inf
+        ):
+            raise InputError(f"gbm option {name}: {value!r} must be None (automatic) or a number >= 0 (rows)")
     if not options.grid:
         raise InputError("gbm option grid: no settings")
     for i, setting in enumerate(options.grid):
@@ -232,8 +257,12 @@ def _constrained(target: str, monotone: dict[str, int], options: GbmOptions) -> 
     return dict(monotone) if target != "severity" or options.constrain_severity else {}
 
 
-def _base_params(target: str, names: list[str], monotone: dict[str, int], options: GbmOptions) -> dict:
-    """The fixed (non-searched) LightGBM parameters: objective, determinism, threads, constraints."""
+def _base_params(
+    target: str, names: list[str], monotone: dict[str, int], options: GbmOptions, cat_smooth: float
+) -> dict:
+    """The fixed (non-searched) LightGBM parameters: objective, determinism, threads, constraints and
+    the categorical settings (cat_smooth and cat_l2 in rows: `cat_smooth`, and options.cat_l2 or the
+    same)."""
     params = {
         "objective": TARGETS[target].objective,
         "metric": "None",
@@ -248,6 +277,11 @@ def _base_params(target: str, names: list[str], monotone: dict[str, int], option
         "max_bin": 255,
         "feature_pre_filter": False,
         "zero_as_missing": False,
+        "max_cat_to_onehot": MAX_CAT_TO_ONEHOT,
+        "cat_smooth": cat_smooth,
+        "cat_l2": cat_smooth if options.cat_l2 is None else float(options.cat_l2),
+        "min_data_per_group": options.min_data_per_group,
+        "max_cat_threshold": options.max_cat_threshold,
     }
     if TARGETS[target].power is None:
         params["tweedie_variance_power"] = options.variance_power
@@ -287,8 +321,10 @@ def prepare_training(inputs: GbmInputs, target: str, options: GbmOptions) -> Tra
     -------
     TrainingData
         On the target's rows only: the encoded matrix, label (claims per exposure unit, money per
-        claim or money per exposure unit), weight (exposure units or claims), policy groups, and
-        the fixed LightGBM parameters with the monotone constraints the target keeps.
+        claim or money per exposure unit), weight (exposure units or claims), policy groups, the
+        fixed LightGBM parameters with the monotone constraints the target keeps, the hessian scale
+        of the row units and, with options.cat_smooth None, how cat_smooth was estimated
+        (`premiumlab.models.gbm.smoothing.categorical_smoothing`).
 
     Raises
     ------
@@ -309,6 +345,14 @@ def prepare_training(inputs: GbmInputs, target: str, options: GbmOptions) -> Tra
     mask, label, weight = _target_rows(inputs, target, rows)
     monotone = _constrained(target, inputs.monotone, options)
     matrix = encode_features(inputs.features, names, categories)[mask]
+    objective, power = TARGETS[target].objective, TARGETS[target].deviance_power(options.variance_power)
+    smoothing = None
+    if options.cat_smooth is None:
+        codes = {name: matrix[:, names.index(name)].astype(np.int64) for name in categories}
+        smoothing = categorical_smoothing(label, weight, objective, power, codes)
+        cat_smooth = float(smoothing["value"])
+    else:
+        cat_smooth = float(options.cat_smooth)
     return TrainingData(
         target=target,
         matrix=matrix,
@@ -318,7 +362,9 @@ def prepare_training(inputs: GbmInputs, target: str, options: GbmOptions) -> Tra
         feature_names=names,
         categories=categories,
         monotone=monotone,
-        base_params=_base_params(target, names, monotone, options),
+        base_params=_base_params(target, names, monotone, options, cat_smooth),
+        hessian_scale=hessian_scale(label, weight, objective, power),
+        smoothing=smoothing,
     )
 
 
