@@ -406,8 +406,11 @@ def test_tabulate_is_deterministic_and_fast(demo_run, gbm_table, tmp_path) -> No
 
 
 def test_glm_export_keeps_the_glm_relativities(demo_run, tmp_path) -> None:
-    """`model="glm"`: every factor's indicated relativity is the run's GLM relativity (1e-12) and the
-    selected one is it rounded to 3 decimals; the table's holdout Gini is within 0.005 of the GLM's."""
+    """`model="glm"`: every factor outside the spec's two-way table (driver_age x vehicle_power) has
+    the run's GLM relativity as its indicated one (1e-12), and the selected one is it rounded to 3
+    decimals; the two paired factors' are the GLM's times the offset refit's (not equal); the table
+    carries the two-way table, which lowers the holdout deviance below the GLM's (161.85 against 163.56
+    when written, 7,561 holdout rows) with a Gini within 0.01 of it (0.452 against 0.460)."""
     import json
 
     import rating_tables
@@ -416,13 +419,19 @@ def test_glm_export_keeps_the_glm_relativities(demo_run, tmp_path) -> None:
     summary = tabulate(demo_run["run"], tmp_path / "glm", model="glm")
     table = rating_tables.load(tmp_path / "glm")
     glm = json.loads((demo_run["run"] / "models" / "glm_pure_premium.json").read_text())["relativities"]
+    paired = {"driver_age", "vehicle_power"}
     for factor in table.main_factors:
         expected = np.array(list(glm[factor.name].values()))
+        if factor.name in paired:
+            assert not np.allclose(factor.indicated, expected, rtol=1e-3)
+            continue
         np.testing.assert_allclose(factor.indicated, expected, rtol=1e-12)
         np.testing.assert_array_equal(factor.relativity, np.round(expected, 3))
     g = summary["fidelity"]["models"]
-    assert abs(g["table"]["gini"] - g["glm"]["gini"]) < 0.005
-    assert table.provenance["model"] == "glm_pure_premium" and table.interactions == ()
+    assert g["table"]["mean_deviance"] < g["glm"]["mean_deviance"]
+    assert abs(g["table"]["gini"] - g["glm"]["gini"]) < 0.01
+    assert table.provenance["model"] == "glm_pure_premium"
+    assert [tuple(f.of) for f in table.interactions] == [("driver_age", "vehicle_power")]
 
 
 def test_current_premium_target_follows_the_fundamental_insurance_equation(demo_run, tmp_path) -> None:

@@ -46,13 +46,15 @@ def test_rated_file_reproduces_the_table_total_and_keeps_inputs(demo_run):
 
 def test_fidelity_reports_retention(demo_run):
     fid = json.loads((demo_run["table"] / "fidelity.json").read_text())["fidelity"]
-    assert set(fid["models"]) == {"table", "gbm", "gbm_freq_sev", "glm"}
+    assert set(fid["models"]) == {"table", "gbm", "gbm_freq_sev", "glm", "glm_freq_sev"}
     r = fid["retention"]
     g = {k: v["gini"] for k, v in fid["models"].items()}
     src = r["source"]
     assert r["gini_table_over_source"] == pytest.approx(g["table"] / g[src], rel=1e-12)
     gap = g[src] - g["glm"]
-    if gap > 0:
+    if src.startswith("glm"):  # a GLM source has no lift over the GLM to keep, and nothing to warn of
+        assert r["source_lift_over_glm_kept"] is None
+    elif gap > 0:
         assert r["source_lift_over_glm_kept"] == pytest.approx((g["table"] - g["glm"]) / gap, rel=1e-12)
     else:  # no lift over the GLM to keep: no ratio, a diagnostic instead
         assert r["source_lift_over_glm_kept"] is None

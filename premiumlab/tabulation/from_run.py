@@ -321,9 +321,11 @@ def _glm_two_way(made: Made, run: Run, book: Book, preds: pd.DataFrame, rows: np
     (money per exposure unit, on the fitted basis) on the bands of a and b and their non-base pairs,
     with the GLM's prediction mu as offset: response y / mu, weight exposure x mu, which is the
     offset model log E[y] = log mu + a_i + b_j + ab_ij. The main effects of a and b are multiplied
-    by the refit's (they change where the GLM's mains had absorbed the interaction); each cell's
+    by a refit's (they change where the GLM's mains had absorbed the interaction); each cell's
     relativity r becomes r^Z, Z the Buhlmann-Straub credibility of the cell's claim frequency
-    (`refit.credible_two_way`, complement 1). Every other factor keeps the GLM's relativities.
+    (`refit.credible_two_way`, complement 1), and the two mains are then refitted with the weighted
+    cells in the offset, so that what a thin cell gives up returns to its factors' mains. Every other
+    factor keeps the GLM's relativities.
     """
     pairs = list(run.spec.table.interactions)
     if not pairs:
@@ -335,17 +337,16 @@ def _glm_two_way(made: Made, run: Run, book: Book, preds: pd.DataFrame, rows: np
     mu = preds[source.column].to_numpy(dtype=float)[rows]
     exposure = book.exposure[rows]
     observed = _claim_amount(book)[rows] / exposure
-    fit = refit(
-        codes,
-        {n: b.n_bands for n, b in bandings.items()},
-        {n: made.bases[n] for n in names},
-        pairs,
-        exposure * mu,
-        observed / mu,
-        {n: b.n_bands - 1 for n, b in bandings.items() if b.missing},
-    )
+    sizes = {n: b.n_bands for n, b in bandings.items()}
+    bases = {n: made.bases[n] for n in names}
+    missing = {n: b.n_bands - 1 for n, b in bandings.items() if b.missing}
+    fit = refit(codes, sizes, bases, pairs, exposure * mu, observed / mu, missing)
     fit = credible_two_way(fit, codes, exposure, book.claim_count[rows])
-    relativities = {**made.relativities, **{n: made.relativities[n] * fit.relativities[n] for n in names}}
+    cell = np.ones(rows.size)
+    for (a, b), matrix in fit.two_way.items():
+        cell *= matrix[codes[a], codes[b]]
+    mains = refit(codes, sizes, bases, [], exposure * mu * cell, observed / (mu * cell), missing)
+    relativities = {**made.relativities, **{n: made.relativities[n] * mains.relativities[n] for n in names}}
     notes = {
         **made.notes,
         "two_way": "Poisson quasi-likelihood refit of the observed pure premium on the paired factors' bands "
