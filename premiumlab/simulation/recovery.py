@@ -119,6 +119,12 @@ def table_recovery(
 ) -> tuple[dict[str, float], float]:
     """A rated table's recovery of the truth: per factor the explained share, and the policy error.
 
+    A factor of a two-way table (a, b) is measured on the pair's joint log relativity, the same for
+    a and b: fitted, log rel_a + log rel_b + log rel_a__b; true, t_a + t_b plus the scenario's
+    interaction (log of its frequency and severity multipliers) when it concerns the same pair.
+    The split of a joint effect into mains and cells depends on each side's base levels, so the
+    mains alone cannot be compared with the truth's.
+
     Parameters
     ----------
     scenario : Scenario
@@ -127,7 +133,7 @@ def table_recovery(
         The book's true effects (all rows).
     rated : pd.DataFrame
         `rating_tables.rate` of the table on the book's `rows`, in that order: its `rel_NAME`
-        columns (the factor's main-effect relativity) and `pure_premium` (money per row).
+        columns (main effects), `rel_A__B` (two-way tables) and `pure_premium` (money per row).
     rows : numpy.ndarray
         Positions of the rated rows in the book.
     weight : numpy.ndarray
@@ -136,17 +142,21 @@ def table_recovery(
     Returns
     -------
     tuple of (dict, float)
-        `explained_share` of every scenario factor that the table rates (NaN for one it does not),
-        and `policy_error` of pure_premium / exposure against `true_pure_premium`.
+        `explained_share` of every scenario factor (NaN for one the table does not rate), and
+        `policy_error` of pure_premium / exposure against `true_pure_premium`.
     """
-    shares = {}
-    for factor in (f.name for f in scenario.factors):
-        column = f"rel_{factor}"
-        true_log = true_log_relativity(effects, factor)[rows]
-        shares[factor] = (
-            explained_share(true_log, np.log(rated[column].to_numpy(dtype=float)), weight)
-            if column in rated
-            else float("nan")
-        )
-    fitted = rated["pure_premium"].to_numpy(dtype=float) / weight
-    return shares, policy_error(true_pure_premium(scenario, effects)[rows], fitted, weight)
+    true = {f.name: true_log_relativity(effects, f.name)[rows] for f in scenario.factors}
+    fitted = {name: np.log(rated[f"rel_{name}"].to_numpy(dtype=float)) for name in true if f"rel_{name}" in rated}
+    shares = {
+        name: explained_share(true[name], fitted[name], weight) if name in fitted else float("nan") for name in true
+    }
+    interacting = set(scenario.interaction.factors) if scenario.interaction is not None else set()
+    for column in (c for c in rated.columns if c.startswith("rel_") and "__" in c):
+        a, b = column[len("rel_") :].split("__")
+        joint_true = true[a] + true[b]
+        if {a, b} == interacting:
+            joint_true = joint_true + np.log(effects.interaction_frequency * effects.interaction_severity)[rows]
+        joint_fitted = fitted[a] + fitted[b] + np.log(rated[column].to_numpy(dtype=float))
+        shares[a] = shares[b] = explained_share(joint_true, joint_fitted, weight)
+    premium = rated["pure_premium"].to_numpy(dtype=float) / weight
+    return shares, policy_error(true_pure_premium(scenario, effects)[rows], premium, weight)
