@@ -50,7 +50,15 @@ from premiumlab.tabulation.banding import Banding
 from premiumlab.tabulation.distill import distil
 from premiumlab.tabulation.effects import Curve, FactorValues, exposure_sample
 from premiumlab.tabulation.refit import band_exposure, credible_two_way, refit, round_relativity
-from premiumlab.tabulation.source import AUTO, GLM_SOURCES, MODEL_CHOICES, SourceChoice, candidate_scores, choose_source
+from premiumlab.tabulation.source import (
+    AUTO,
+    BOOSTED_SOURCES,
+    GLM_SOURCES,
+    MODEL_CHOICES,
+    SourceChoice,
+    candidate_scores,
+    choose_source,
+)
 from rating_tables import MISSING_LABEL
 
 if TYPE_CHECKING:
@@ -139,10 +147,6 @@ def _level_indices(book: Book, run: Run, name: str, rows: np.ndarray) -> tuple[t
 # bands and relativities from either model
 
 
-#: The boosters whose raw scores add up to the log score of each boosted source, by target.
-BOOSTERS = {"gbm": ("pure_premium",), "gbm_freq_sev": ("frequency", "severity")}
-
-
 @dataclass(frozen=True)
 class Made:
     """The table's bands and relativities from its source, with what tabulate reports about them.
@@ -191,7 +195,9 @@ def _gbm_bands(run: Run, book: Book, preds: pd.DataFrame, train: np.ndarray, sou
     spec, opts = run.spec, run.spec.table
     features = features_from_spec(book.frame, spec)
     rows = np.flatnonzero(train)
-    models = [_checked_booster(run, target, features, preds, rows[:CHECK_ROWS]) for target in BOOSTERS[source.model]]
+    models = [
+        _checked_booster(run, target, features, preds, rows[:CHECK_ROWS]) for target in BOOSTED_SOURCES[source.model]
+    ]
     stored = preds[source.column].to_numpy()
     factors = []
     for f in spec.factors:

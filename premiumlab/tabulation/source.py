@@ -29,6 +29,8 @@ SOURCES: dict[str, str] = {
     "glm": "glm_pure_premium",
     "glm_freq_sev": "glm_freq_x_sev",
 }
+#: The boosted candidates and the boosters whose raw scores add up to the source's log score.
+BOOSTED_SOURCES: dict[str, tuple[str, ...]] = {"gbm": ("pure_premium",), "gbm_freq_sev": ("frequency", "severity")}
 #: The GLM candidates and the GLM targets whose relativities multiply into the table's.
 GLM_SOURCES: dict[str, tuple[str, ...]] = {"glm": ("pure_premium",), "glm_freq_sev": ("frequency", "severity")}
 AUTO = "auto"
