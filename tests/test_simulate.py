@@ -419,7 +419,7 @@ def test_current_premium_follows_the_tariff_and_loss_ratio(motor) -> None:
 # --------------------------------------------------------------------------------------------
 # the shipped scenarios and their specs
 
-SPEC_KEYS = {"columns", "factors", "split", "table", "loadings"}
+SPEC_KEYS = {"columns", "factors", "split", "table", "loadings", "experience"}
 SPEC_FACTOR_KEYS = {"type", "monotone", "bands", "levels", "base"}
 
 
