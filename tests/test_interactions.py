@@ -263,7 +263,8 @@ def test_reference_flags_the_simulated_interaction_and_no_additive_pair(simulate
     assert ranking["candidates"] == [first["pair"]]
     assert not any(p["stands_out"] for p in ranking["pairs"][1:])
     assert first["strength_interval"][0] <= first["strength"] <= first["strength_interval"][1]
-    assert "stand out from noise" in interaction_line(ranking)
+    line = interaction_line(ranking)
+    assert "stands out from noise" in line and "to tabulate it," in line
 
 
 def test_candidates_line_names_the_spec_setting():

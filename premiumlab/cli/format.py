@@ -387,9 +387,10 @@ def interaction_line(ranking: dict) -> str:
         f"{a} x {b} (strength {p['strength']:.3f}, p {p['p_value']:.2g})" for p in found for a, b in [p["pair"]]
     )
     spec_line = "[" + ", ".join(f'["{a}", "{b}"]' for a, b in ranking["candidates"]) + "]"
+    verb, them = ("stands", "it") if len(found) == 1 else ("stand", "them")
     return (
-        f"interactions: {listed} stand out from noise among {tested} pairs; "
-        f"to tabulate them, set [table] interactions = {spec_line}"
+        f"interactions: {listed} {verb} out from noise among {tested} pairs; "
+        f"to tabulate {them}, set [table] interactions = {spec_line}"
     )
 
 
