@@ -303,3 +303,32 @@ def test_groups_csv_lists_the_levels_of_pooled_factors_only() -> None:
         "group": [0, 1, 1],
     }
     assert pooled_groups({"region": groups["region"]}).empty
+
+
+def test_level_effects_from_another_model_replace_the_boosted_ones() -> None:
+    """`distil(level_effects=)`: the zone's curve becomes the given log relativities g (up to one
+    constant, 1e-12), no credibility is applied to it, and the refit's response moves by g - e, so
+    that the table's zone relativities follow exp(g) and the other factors keep the boosted effect.
+    Boosters of depth 1 (additive log score), so the refit is near exact: 0.02 on the log scale
+    against exp(g - g_base) for the zone and against the table without level_effects for age."""
+    frequency, severity, x, exposure = _frequency_and_severity(max_depth=1)
+    plain, factors, raw, sample = _distil_two(frequency, severity, x, exposure)
+    categories = {"zone": list(x.zone.cat.categories)}
+    codes = {"zone": np.arange(4, dtype=float)}
+    boosters = [ScoreBooster(Trees.from_text(b.model_to_string()), sample, codes) for b in (frequency, severity)]
+    g = np.log([1.5, 0.7, 1.0, 1.2])
+    amount = np.random.default_rng(1).gamma(0.5, 2 * np.exp(raw) * exposure)
+    options = TableOptions(grid_points=400, max_bands=8)
+    moved = distil(boosters, factors, exposure, np.exp(raw), amount, options, {"zone": g})
+    assert categories["zone"] == ["a", "b", "c", "d"]
+    curve = moved.curves["zone"]
+    difference = curve.effect - g[curve.points.astype(int)]
+    np.testing.assert_allclose(difference, difference[0], atol=1e-12)
+    assert "zone" not in moved.credibility and "zone" in plain.credibility
+    band = moved.pooled.bandings["zone"].band_of_level
+    assert len(set(band)) == 4  # every zone its own band
+    zone = np.log(moved.pooled.fit.relativities["zone"])[band]
+    np.testing.assert_allclose(zone - zone.mean(), g - g.mean(), atol=0.02)
+    np.testing.assert_allclose(
+        np.log(moved.pooled.fit.relativities["age"]), np.log(plain.pooled.fit.relativities["age"]), atol=0.02
+    )

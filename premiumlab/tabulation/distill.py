@@ -16,6 +16,14 @@
 3. Banding (`premiumlab.tabulation.banding`): isotonic where a direction is promised, optimal
    segmentation of ordered factors, thin-level merging of unordered categoricals (on the
    credibility-weighted effects).
+   An unordered categorical with more levels than `max_bands` (a territory) can take its level
+   effects from the run's credibility GLMs instead (`level_effects`): its curve becomes the GLM's
+   log relativities g_i (shifted by the exposure-weighted mean of g_i - e_i, so that the missing
+   value's effect keeps its constant), no further credibility is applied (the GLM's penalty is
+   one), and the refit's response of a row at level i is multiplied by exp(g_i - e_i - that mean),
+   so that the refit sees the GLM's effect for that factor and the boosted model's for the others.
+   Measured on the property scenario (200,000 policies): the boosted models' territory effect
+   explains 0.720 of the true variance, the GLMs' 0.769.
 4. Refit (`premiumlab.tabulation.refit`): Poisson quasi-likelihood GLM on the banded cells with the
    two-way tables of the spec (each cell credibility-weighted towards 1), bands of a promised
    factor pooled until every promise holds.
@@ -38,8 +46,9 @@ from premiumlab.tabulation.refit import PooledRefit, pooled_refit
 
 @dataclass
 class Distillation:
-    """Effect curves (the model's, before credibility), the credibility Z applied to each level of
-    an unordered categorical factor, the bandings they gave, and the pooled refit."""
+    """Effect curves (the model's before credibility, or the other model's where `level_effects`
+    gave them), the credibility Z applied to each level of an unordered categorical factor, the
+    bandings they gave, and the pooled refit."""
 
     curves: dict[str, Curve]
     credibility: dict[str, np.ndarray]
@@ -80,6 +89,7 @@ def distil(
     response: np.ndarray,
     claim_count: np.ndarray,
     options: TableOptions,
+    level_effects: dict[str, np.ndarray] | None = None,
 ) -> Distillation:
     """Curves -> credibility of unordered levels -> bands -> pooled refit (module docstring).
 
@@ -100,6 +110,9 @@ def distil(
         The spec's [table] section: grid_points, max_bands, min_band_exposure (share of training
         exposure per band), interactions (two-way tables) and relativity_decimals (for the
         monotone check after rounding).
+    level_effects : dict[str, np.ndarray] or None
+        Per unordered categorical whose level effects come from another model (module docstring,
+        step 2): the log relativity of each of its levels, indexed as `levels`.
 
     Returns
     -------
@@ -107,10 +120,20 @@ def distil(
         The curves, the credibility applied, the bandings before pooling and the pooled refit.
     """
     curves, bandings, credibility = {}, {}, {}
+    shift = np.zeros(len(response))
     for factor in factors:
         curve = _summed_curve(boosters, factor, exposure, options.grid_points)
+        replaced = (level_effects or {}).get(factor.name)
+        if replaced is not None:
+            points = np.asarray(curve.points, dtype=np.int64)
+            gap = replaced[points] - curve.effect
+            gap = gap - np.average(gap, weights=curve.weight)
+            per_level = np.zeros(len(replaced))
+            per_level[points] = gap
+            shift += per_level[factor.values]
+            curve = replace(curve, effect=curve.effect + gap)
         curves[factor.name] = curve
-        if factor.levels is not None and not factor.ordered:
+        if replaced is None and factor.levels is not None and not factor.ordered:
             z = credibility_by_level(claim_count, exposure, factor.values, len(factor.levels))["credibility"].to_numpy()
             credibility[factor.name] = z
             points = np.asarray(curve.points, dtype=np.int64)
@@ -134,7 +157,7 @@ def distil(
         {f.name: f.values for f in factors},
         list(options.interactions),
         exposure,
-        response,
+        response * np.exp(shift),
         options.relativity_decimals,
         claims=claim_count,
     )

@@ -224,7 +224,8 @@ def _gbm_bands(run: Run, book: Book, preds: pd.DataFrame, train: np.ndarray, sou
         )
         for model in models
     ]
-    result = distil(boosters, factors, book.exposure[rows], stored[rows], book.claim_count[rows], opts)
+    glm_levels = _glm_level_effects(run, factors)
+    result = distil(boosters, factors, book.exposure[rows], stored[rows], book.claim_count[rows], opts, glm_levels)
     fit = result.pooled.fit
     notes = {
         "method": "partial dependence on the raw score (summed over the boosters of a product), credibility "
@@ -238,6 +239,11 @@ def _gbm_bands(run: Run, book: Book, preds: pd.DataFrame, train: np.ndarray, sou
             "levels_of": sorted(result.credibility),
             "two_way_cells": "each cell's relativity r: r' = r^Z, complement 1 (no interaction)",
             "z": "Buhlmann-Straub credibility of the level's or cell's own claim frequency (the tables' credibility column)",
+        },
+        "level_effects_from_glm": {
+            name: "log relativities of glm_frequency x glm_severity (credibility-penalised) instead of the "
+            "boosted partial dependence; the refit's response moved by their difference"
+            for name in glm_levels
         },
         "sample_policies": int(opts.sample),
         "seed": spec.split.seed,
@@ -258,6 +264,26 @@ def _gbm_bands(run: Run, book: Book, preds: pd.DataFrame, train: np.ndarray, sou
         result.credibility,
         fit.two_way_credibility,
     )
+
+
+def _glm_level_effects(run: Run, factors: list[FactorValues]) -> dict[str, np.ndarray]:
+    """Per unordered categorical with more levels than `[table] max_bands` (one the table groups,
+    such as a territory), the log relativity of each level in the run's frequency x severity GLMs,
+    whose credibility penalty estimates thin levels better than a boosted model's splits
+    (`distill`, step 2); none when the run has no GLMs. A level the GLMs did not estimate is 0."""
+    targets = GLM_SOURCES["glm_freq_sev"]
+    if not all(run.files.model_json("glm", t).is_file() for t in targets):
+        return {}
+    relativities = [run.model_json("glm", t).get("relativities", {}) for t in targets]
+    out = {}
+    for f in factors:
+        if f.levels is None or f.ordered or len(f.levels) <= run.spec.table.max_bands:
+            continue
+        fitted = [r.get(f.name) for r in relativities]
+        if any(r is None for r in fitted):
+            continue
+        out[f.name] = np.array([sum(np.log(r.get(level, 1.0)) for r in fitted) for level in f.levels])
+    return out
 
 
 def _model_codes(model: GbmModel, name: str, levels: tuple[str, ...]) -> np.ndarray:
