@@ -499,28 +499,21 @@ def _diagnostics(
         )
         found.append(_per_factor("separation", model, name, levels, f"without {losses} in the {label} fit; {effect}"))
     terms = problem.design.full_terms()
-    no_rows = np.flatnonzero(np.isin(terms, problem.columns.no_data))
-    for name, levels in _by_factor(problem.design, no_rows).items():
-        found.append(
-            _per_factor(
-                "no_rows",
-                model,
-                name,
-                levels,
-                f"with no rows in the {label} fit: not estimated, relativity 1 (the base)",
-            )
-        )
-    collinear = np.flatnonzero(np.isin(terms, problem.columns.collinear))
-    for name, levels in _by_factor(problem.design, collinear).items():
-        found.append(
-            _per_factor(
-                "aliased",
-                model,
-                name,
-                levels,
-                "aliased (a linear combination of earlier terms): relativity 1 (the base)",
-            )
-        )
+    not_estimated = (
+        (
+            "no_rows",
+            problem.columns.no_data,
+            f"with no rows in the {label} fit: not estimated, relativity 1 (the base)",
+        ),
+        (
+            "aliased",
+            problem.columns.collinear,
+            "aliased (a linear combination of earlier terms): relativity 1 (the base)",
+        ),
+    )
+    for kind, dropped, message in not_estimated:
+        for name, levels in _by_factor(problem.design, np.flatnonzero(np.isin(terms, dropped))).items():
+            found.append(_per_factor(kind, model, name, levels, message))
     return found
 
 
