@@ -266,6 +266,37 @@ def _gbm_bands(run: Run, book: Book, preds: pd.DataFrame, train: np.ndarray, sou
     )
 
 
+def _glm_models(run: Run, targets: tuple[str, ...]) -> dict[str, dict]:
+    """The run's GLM model JSONs of `targets`, each read once."""
+    return {t: run.model_json("glm", t) for t in targets}
+
+
+def _glm_relativities(
+    run: Run, models: dict[str, dict], name: str, labels: tuple[str, ...]
+) -> tuple[np.ndarray, list[str]]:
+    """Per label of factor `name`, the product over the GLM `models` (target -> model JSON,
+    `_glm_models`) of its relativity (a GLM without an estimate for the label counts 1), and those
+    labels as "glm_TARGET: name[label]".
+
+    Raises
+    ------
+    InputError
+        When a GLM's model JSON has no relativities for the factor.
+    """
+    values, defaulted = np.ones(len(labels)), []
+    for target, model in models.items():
+        rel = model.get("relativities", {}).get(name)
+        if rel is None:
+            raise InputError(f"{run.files.model_json('glm', target)}: key 'relativities.{name}' is missing")
+        for k, label in enumerate(labels):
+            value = rel.get(label)
+            if value is None:
+                defaulted.append(f"{model_name('glm', target)}: {name}[{label}]")
+            else:
+                values[k] *= float(value)
+    return values, defaulted
+
+
 def _glm_level_effects(run: Run, factors: list[FactorValues]) -> dict[str, np.ndarray]:
     """Per unordered categorical with more levels than `[table] max_bands` (one the table groups,
     such as a territory), the log relativity of each level in the run's frequency x severity GLMs,
@@ -274,16 +305,12 @@ def _glm_level_effects(run: Run, factors: list[FactorValues]) -> dict[str, np.nd
     targets = GLM_SOURCES["glm_freq_sev"]
     if not all(run.files.model_json("glm", t).is_file() for t in targets):
         return {}
-    relativities = [run.model_json("glm", t).get("relativities", {}) for t in targets]
-    out = {}
-    for f in factors:
-        if f.levels is None or f.ordered or len(f.levels) <= run.spec.table.max_bands:
-            continue
-        fitted = [r.get(f.name) for r in relativities]
-        if any(r is None for r in fitted):
-            continue
-        out[f.name] = np.array([sum(np.log(r.get(level, 1.0)) for r in fitted) for level in f.levels])
-    return out
+    models = _glm_models(run, targets)
+    return {
+        f.name: np.log(_glm_relativities(run, models, f.name, f.levels)[0])
+        for f in factors
+        if f.levels is not None and not f.ordered and len(f.levels) > run.spec.table.max_bands
+    }
 
 
 def _model_codes(model: GbmModel, name: str, levels: tuple[str, ...]) -> np.ndarray:
@@ -303,16 +330,10 @@ def _glm_bands(run: Run, source: SourceChoice) -> Made:
     product of the frequency and severity GLMs' (`glm_freq_sev`); their credibility penalty is
     already applied, and two-way tables are added by `_glm_two_way`."""
     targets = GLM_SOURCES[source.model]
-    models = {t: run.model_json("glm", t) for t in targets}
+    models = _glm_models(run, targets)
     bandings, relativities, bases, defaulted = {}, {}, {}, []
     for f in run.spec.factors:
         levels = run.levels[f.name]
-        fitted = []
-        for target, glm in models.items():
-            rel = glm.get("relativities", {}).get(f.name)
-            if rel is None:
-                raise InputError(f"{run.files.model_json('glm', target)}: key 'relativities.{f.name}' is missing")
-            fitted.append(rel)
         if levels.edges is not None:
             banding = Banding(f.name, f.monotone, edges=np.array(levels.edges, dtype=float), missing=levels.missing)
         else:
@@ -326,14 +347,8 @@ def _glm_bands(run: Run, source: SourceChoice) -> Made:
                 missing=levels.missing,
             )
         labels = banding.labels()
-        values = np.ones(len(labels))
-        for target, rel in zip(models, fitted):
-            for k, label in enumerate(labels):
-                value = rel.get(label)
-                if value is None:
-                    defaulted.append(f"{model_name('glm', target)}: {f.name}[{label}]")
-                else:
-                    values[k] *= float(value)
+        values, missing_estimates = _glm_relativities(run, models, f.name, tuple(labels))
+        defaulted += missing_estimates
         bandings[f.name], relativities[f.name] = banding, values
         bases[f.name] = labels.index(levels.base)
     notes = {
@@ -346,7 +361,15 @@ def _glm_bands(run: Run, source: SourceChoice) -> Made:
     return Made(bandings, relativities, {}, bases, notes)
 
 
-def _glm_two_way(made: Made, run: Run, book: Book, preds: pd.DataFrame, rows: np.ndarray, source: SourceChoice) -> Made:
+def _glm_two_way(
+    made: Made,
+    run: Run,
+    book: Book,
+    preds: pd.DataFrame,
+    rows: np.ndarray,
+    cells: dict[str, np.ndarray],
+    source: SourceChoice,
+) -> Made:
     """The GLM table with the spec's two-way tables ([table] interactions), which the GLM has not.
 
     Per pair (a, b), a Poisson quasi-likelihood refit (`refit.refit`) of the observed pure premium y
@@ -364,8 +387,7 @@ def _glm_two_way(made: Made, run: Run, book: Book, preds: pd.DataFrame, rows: np
         return made
     names = [n for n in made.bandings if any(n in pair for pair in pairs)]
     bandings = {n: made.bandings[n] for n in names}
-    cells = {n: _row_cells(b, book, run, rows) for n, b in bandings.items()}
-    codes = {n: cells[n] if b.numeric else b.codes(cells[n]) for n, b in bandings.items()}
+    codes = {n: _row_bands(b, cells[n]) for n, b in bandings.items()}
     mu = preds[source.column].to_numpy(dtype=float)[rows]
     exposure = book.exposure[rows]
     observed = _claim_amount(book)[rows] / exposure
@@ -392,6 +414,11 @@ def _glm_two_way(made: Made, run: Run, book: Book, preds: pd.DataFrame, rows: np
 
 # ---------------------------------------------------------------------------------------------
 # the table
+
+
+def _row_bands(banding: Banding, cells: np.ndarray) -> np.ndarray:
+    """The band of each row from its `_row_cells` (a numeric factor's cells are its bands)."""
+    return cells if banding.numeric else banding.codes(cells)
 
 
 def _row_cells(banding: Banding, book: Book, run: Run, rows: np.ndarray) -> np.ndarray:
@@ -719,7 +746,7 @@ def _attenuation(
             values = book.frame[name].to_numpy(dtype=float)[rows] if banding.numeric else cells[name]
             x = curve_at_rows(made.curves[name], values)
         else:
-            x = np.log(made.relativities[name])[cells[name] if banding.numeric else banding.codes(cells[name])]
+            x = np.log(made.relativities[name])[_row_bands(banding, cells[name])]
         factors[name] = slope(table_partial_dependence(name, mains[name], pairs, cells, exposure), x)
     frame = rating_frame(book, spec, rows)
     table_rate = rate(table, frame, spec.columns.exposure)["pure_premium"].to_numpy() / exposure
@@ -829,11 +856,10 @@ def tabulate(
     source = choose_source(scores, model, rows_name, power, str(run.files.predictions))
     train = ~loaded.holdout
     rows = np.flatnonzero(train)
-    if source.model in GLM_SOURCES:
-        made = _glm_two_way(_glm_bands(run, source), run, loaded, preds, rows, source)
-    else:
-        made = _gbm_bands(run, loaded, preds, train, source)
+    made = _glm_bands(run, source) if source.model in GLM_SOURCES else _gbm_bands(run, loaded, preds, train, source)
     cells = {n: _row_cells(b, loaded, run, rows) for n, b in made.bandings.items()}
+    if source.model in GLM_SOURCES:
+        made = _glm_two_way(made, run, loaded, preds, rows, cells, source)
     exposure = loaded.exposure[rows]
     amount = _claim_amount(loaded)[rows]
     unrounded, rounded = (
