@@ -23,6 +23,7 @@ from premiumlab.results import (
     ImpactResult,
     RateResult,
     ReportResult,
+    SelectResult,
     SimulationResult,
     TableResult,
     TailFit,
@@ -210,6 +211,47 @@ def tabulate(
     return TableResult.from_summary(tabulate_run(run, out, model=model, force=force, book=book))
 
 
+def select(
+    table: str | Path,
+    *,
+    selections: str | Path,
+    run: str | Path,
+    out: str | Path,
+    current: str | Path | None = None,
+    book: str | Path | None = None,
+    force: bool = False,
+) -> SelectResult:
+    """Apply an actuary's selections to an indicated table: rebanded, credibility-weighted, smoothed,
+    capped or overridden factors, each with its reason and off-balance, the base rate rebalanced.
+
+    Parameters
+    ----------
+    table : str or Path
+        The indicated table folder (`tabulate`).
+    selections : str or Path
+        The selections file (TOML, docs/commands.md).
+    run : str or Path
+        The run the table was made from (training rows for the off-balances, holdout for fidelity).
+    out : str or Path
+        The selected table folder to write.
+    current : str or Path or None
+        The table in force: needed to cap changes, keep current relativities or weight towards them.
+    book : str or Path or None
+        The run's book, if it has moved.
+    force : bool
+        Replace an existing table folder.
+
+    Returns
+    -------
+    SelectResult
+        The folder, its id, every selection with its off-balance, the base-rate correction, the
+        audit of the spec's promises, the fidelity beside the indicated table's and the cautions.
+    """
+    from premiumlab.tabulation.select import select as select_table
+
+    return SelectResult.from_summary(select_table(table, selections, run, out, current=current, force=force, book=book))
+
+
 def audit(
     table: str | Path,
     *,
@@ -249,7 +291,7 @@ def rate(
     book: str | Path,
     *,
     out: str | Path,
-    exposure: str = "exposure",
+    exposure: str | None = None,
     annual: bool = False,
     strict_levels: bool = False,
     force: bool = False,
@@ -267,8 +309,9 @@ def rate(
         Book to rate (.csv, .parquet or a folder of parts).
     out : str or Path
         Priced file to write (.csv or .parquet).
-    exposure : str
-        The book's exposure column (years); the premium is the annual premium x exposure.
+    exposure : str or None
+        The book's exposure column (years); the premium is the full-term premium x exposure.
+        None: the column the table remembers (`book_columns`), else `exposure`.
     annual : bool
         Price one full term per policy.
     strict_levels : bool
@@ -293,7 +336,9 @@ def impact(
     current: str | Path,
     proposed: str | Path,
     cap: float | None = None,
-    exposure: str = "exposure",
+    exposure: str | None = None,
+    policy_id: str | None = None,
+    period: str | None = None,
     annual: bool = False,
     thresholds: str | Sequence[float] = "0.05,0.10,0.25",
     out: str | Path | None = None,
@@ -312,10 +357,17 @@ def impact(
         Proposed table folder.
     cap : float or None
         Cap each policy's change at +-cap (0.15 = 15 %).
-    exposure : str
-        The book's exposure column (years).
+    exposure : str or None
+        The book's exposure column (years). None: the proposed table's remembered column, else
+        `exposure`.
+    policy_id : str or None
+        The book's policy id column, which identifies the rows listed and counts the policies.
+        None: the proposed table's remembered column, if any.
+    period : str or None
+        The book's period column, shown beside the policy id. None: the table's, if any.
     annual : bool
-        Compare one full term per policy.
+        Compare one full term per policy (both sides rated by tables; refused with a current
+        premium column).
     thresholds : str or sequence of float
         Increases to count, comma separated or as numbers (0.1 = 10 %).
     out : str or Path or None
@@ -333,7 +385,17 @@ def impact(
     """
     from premiumlab.apply.impact import dislocation, parse_thresholds, write_impact
 
-    result = dislocation(str(current), str(proposed), book, exposure, annual, cap, parse_thresholds(thresholds))
+    result = dislocation(
+        str(current),
+        str(proposed),
+        book,
+        exposure,
+        annual,
+        cap,
+        parse_thresholds(thresholds),
+        policy_id=policy_id,
+        period=period,
+    )
     write_impact(
         result,
         None if out is None else Path(out),

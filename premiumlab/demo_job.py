@@ -95,11 +95,9 @@ def run_demo(
         report.step("[4/7] made table/ from the model best on the holdout and exported the GLM as glm_table/")
         audit = audit_table(tmp / "table", spec, run)
         report.step("\n".join(audit.violations) if audit.violations else "[5/7] audit: no violations in table/")
-        rate_book(tmp / "table", book, tmp / "priced.parquet", "exposure", annual=False)
+        rate_book(tmp / "table", book, tmp / "priced.parquet", None, annual=False)  # the table's exposure column
         report.step("[6/7] rated the book into priced.parquet")
-        impact = dislocation(
-            str(tmp / "glm_table"), str(tmp / "table"), book, "exposure", False, 0.15, (0.05, 0.10, 0.25)
-        )
+        impact = dislocation(str(tmp / "glm_table"), str(tmp / "table"), book, None, False, 0.15, (0.05, 0.10, 0.25))
         write_json(tmp / "impact.json", impact.to_dict())
         plot_impact(impact.to_dict(), tmp / "impact.png")
         report.result(impact)

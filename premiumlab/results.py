@@ -135,6 +135,48 @@ class TableResult(Result):
 
 
 @dataclass(frozen=True)
+class SelectResult(Result):
+    """`select`: the selected table written from an indicated table and a selections file.
+
+    Attributes: table (the folder); table_id, indicated_table_id, current_table_id (None without a
+    current table); selections (each rule applied: factor, rule, detail, reason, applies_to,
+    off_balance); notes (what the current table could not give); rate_level (the off-balance of the
+    selections at the indicated base rate and the base rate that corrects it); audit (the spec's
+    promises and every violation with the selections on its factor); fidelity (holdout deviance
+    and Gini of the selected and the indicated table); cautions; seconds (wall time).
+    """
+
+    table: Path
+    table_id: str
+    indicated_table_id: str
+    current_table_id: str | None
+    selections: tuple[dict, ...]
+    notes: tuple[str, ...]
+    rate_level: dict
+    audit: dict
+    fidelity: dict
+    cautions: tuple[str, ...]
+    seconds: float
+
+    @classmethod
+    def from_summary(cls, summary: dict) -> SelectResult:
+        """The result of `premiumlab.tabulation.select.select`'s summary dict."""
+        return cls(
+            table=Path(summary["table"]),
+            table_id=summary["table_id"],
+            indicated_table_id=summary["indicated_table_id"],
+            current_table_id=summary["current_table_id"],
+            selections=tuple(summary["selections"]),
+            notes=tuple(summary["notes"]),
+            rate_level=summary["rate_level"],
+            audit=summary["audit"],
+            fidelity=summary["fidelity"],
+            cautions=tuple(summary["cautions"]),
+            seconds=summary["seconds"],
+        )
+
+
+@dataclass(frozen=True)
 class AuditResult(Result):
     """`audit`: every violation found in a table (its own checks, the spec's promises, the
     plausibility bounds, the run's certificate), one line each; diagnostics: warnings that are no
@@ -168,13 +210,16 @@ class RateResult(Result):
 class ImpactResult(Result):
     """`impact`: the dislocation from the current to the proposed premiums.
 
-    Attributes as `rating_tables.impact` returns them: policies; total_current and total_proposed
-    (money); overall_change (total_proposed / total_current - 1); bands (change bands by count and
-    current premium); above_thresholds (share of policies and current premium above each increase);
-    by_factor (change by level); largest_increases; capping (None without a cap); cautions.
+    Attributes as `rating_tables.impact` returns them: rows (policy-period rows) and policies
+    (distinct policy ids, else the rows); total_current and total_proposed (money); overall_change
+    (total_proposed / total_current - 1); bands (change bands by rows and current premium);
+    above_thresholds (share of rows and current premium above each increase); by_factor (change by
+    level); largest_increases (each with its row, policy id and period); capping (None without a
+    cap); cautions.
     `to_dict()` is what `--out` writes.
     """
 
+    rows: int
     policies: int
     total_current: float
     total_proposed: float

@@ -7,7 +7,7 @@ from rating_tables.errors import TableError
 from rating_tables.exhibit import write_exhibit
 from rating_tables.impact import Capping, cap_premiums, impact
 from rating_tables.io import load, save
-from rating_tables.rate import LevelCounts, gross_premium, rate, solve_base_rate
+from rating_tables.rate import LevelCounts, premium_build_up, pure_premium, rate, solve_base_rate
 from rating_tables.ratefile import RatedFile, rate_file
 from rating_tables.table import (
     DRAFT_CAUTION,
@@ -43,9 +43,10 @@ __all__ = [
     "audit_path",
     "cap_premiums",
     "flattened",
-    "gross_premium",
     "impact",
     "load",
+    "premium_build_up",
+    "pure_premium",
     "rate",
     "rate_file",
     "save",

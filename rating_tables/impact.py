@@ -44,7 +44,7 @@ def _share(part: float, whole: float) -> float:
 
 
 def _change_bands(change: npt.NDArray[np.float64], current: npt.NDArray[np.float64]) -> list[dict[str, Any]]:
-    """Count and current premium of the policies in each change band, with their shares."""
+    """Count and current premium of the rows in each change band, with their shares."""
     codes = np.searchsorted(np.array(BAND_EDGES), change, side="right")
     counts = np.bincount(codes, minlength=len(BAND_LABELS))
     premium = np.bincount(codes, weights=current, minlength=len(BAND_LABELS))
@@ -191,7 +191,7 @@ def _levels(series: pd.Series) -> tuple[npt.NDArray[np.intp], list[str]]:
 def _by_level(
     series: pd.Series, current: npt.NDArray[np.float64], proposed: npt.NDArray[np.float64]
 ) -> list[dict[str, Any]]:
-    """Per level of a factor: policies, current and proposed premium, premium-weighted mean change
+    """Per level of a factor: rows, current and proposed premium, premium-weighted mean change
     (sum proposed / sum current - 1)."""
     codes, labels = _levels(series)
     counts = np.bincount(codes, minlength=len(labels))
@@ -231,15 +231,18 @@ def impact(
     thresholds: tuple[float, ...] = (0.05, 0.10, 0.25),
     cap: float | None = None,
     top: int = 10,
+    id_columns: tuple[str, ...] = (),
 ) -> dict[str, Any]:
-    """Dislocation summary of moving every policy of `book` from `current` to `proposed` premium.
+    """Dislocation summary of moving every row of `book` from `current` to `proposed` premium.
 
     Returns a JSON-able dict: totals and overall change; the change bands by count and current
-    premium; the share of policies (and of current premium) whose change exceeds each threshold;
+    premium; the share of rows (and of current premium) whose change exceeds each threshold;
     change by level of each factor in `factors` (book columns); the `top` largest increases
-    (0-based row, premiums, change); and with `cap` the capping figures (see `Capping`).
+    (0-based row, the row's policy id and period, premiums, change); and with `cap` the capping
+    figures (see `Capping`). A row is one policy in one period; `rows` counts them and `policies`
+    counts the distinct policies (by the first of `id_columns`).
 
-    A policy's change is round(proposed / current - 1, 12), a share (0.05 = +5 %); the change
+    A row's change is round(proposed / current - 1, 12), a share (0.05 = +5 %); the change
     bands are lower-inclusive with edges -20 %, -10 %, -5 %, 0, +5 %, +10 %, +20 % (`BAND_EDGES`).
 
     Parameters
@@ -249,27 +252,31 @@ def impact(
     proposed : numpy.ndarray of float64
         Proposed premium per book row, money, finite and > 0.
     book : pandas.DataFrame
-        The policies, one row per premium, in the premiums' order; only its length and the
+        The policy-period rows, one per premium, in the premiums' order; only its length and the
         columns named in `factors` are read.
     factors : list of str
         Columns of `book` to break the change down by; each value is a level, shown as text.
     thresholds : tuple of float
-        Changes, as shares (0.10 = 10 %), for which the policies with a change strictly above
+        Changes, as shares (0.10 = 10 %), for which the rows with a change strictly above
         are counted.
     cap : float or None
         Largest change allowed either way, a share >= 0 (0.15 = 15 %); None for no capping.
     top : int
         How many of the largest increases to list, >= 0.
+    id_columns : tuple of str
+        Columns of `book` that identify a row, the policy id first, then the period (either may be
+        left out); their values are shown as text.
 
     Returns
     -------
     dict
-        `policies` (rows); `total_current`, `total_proposed` (money); `overall_change` =
+        `rows` (policy-period rows), `policies` (distinct values of the first id column, else the
+        rows); `total_current`, `total_proposed` (money); `overall_change` =
         total_proposed / total_current - 1 (0.0 for no rows);
         `bands`: for each of the 8 change bands, `band` (label), `lower` and `upper` (the edges as
-        shares, None for the open ends), `count`, `count_share` (share of the policies),
+        shares, None for the open ends), `count`, `count_share` (share of the rows),
         `current_premium` (money) and `premium_share` (share of the total current premium);
-        `above_thresholds`: for each threshold t, `threshold`, `count` (policies with change > t),
+        `above_thresholds`: for each threshold t, `threshold`, `count` (rows with change > t),
         `count_share` and `premium_share` (their current premium over the total);
         `by_factor`: for each factor, a list of levels with rows, each `level` (text; sorted
         by value, or in order of first appearance when the values cannot be sorted; a
@@ -277,13 +284,14 @@ def impact(
         `MISSING_LABEL`, `(missing)`), `count`,
         `current_premium`, `proposed_premium` (money) and `change` = proposed_premium /
         current_premium - 1;
-        `largest_increases`: up to `top` policies with a change > 0, largest first (ties in row
-        order), each `row` (0-based), `current`, `proposed` (money) and `change`;
+        `largest_increases`: up to `top` rows with a change > 0, largest first (ties in row
+        order), each `row` (0-based), `id` (`{column: value as text}` for `id_columns`), `current`,
+        `proposed` (money) and `change`;
         `capping`: None without `cap` or without rows, else `cap`; `capped_up` and `capped_down`
-        (policies whose proposed premium is above current x (1 + cap) or below current x
+        (rows whose proposed premium is above current x (1 + cap) or below current x
         max(0, 1 - cap)); `total_proposed`, `total_capped` (money); `off_balance`;
         `correction_factor` (k, or None); `after_correction`: None when k is None, else `total`
-        (money), `capped_up` and `capped_down` (policies still beyond a limit after scaling by
+        (money), `capped_up` and `capped_down` (rows still beyond a limit after scaling by
         k) and `bands` (the change bands of the corrected premiums), as `cap_premiums` defines
         them.
 
@@ -291,12 +299,12 @@ def impact(
     ------
     TableError
         When a premium array does not hold one value per book row or holds a value that is not
-        finite and > 0 (naming the 0-based row), a factor is not a column of `book`, a threshold
+        finite and > 0 (naming the 0-based row), a factor or id column is not a column of `book`, a threshold
         or `cap` is not a finite number (or `cap` is negative), or `top` is not an integer >= 0.
     """
     n = len(book)
     current, proposed = _premiums(current, "current", n), _premiums(proposed, "proposed", n)
-    missing = [f for f in factors if f not in book.columns]
+    missing = [f for f in (*factors, *id_columns) if f not in book.columns]
     if missing:
         raise TableError(f"factors: the book has no column {missing[0]!r}", where=missing[0])
     for value, name in [(t, "thresholds") for t in thresholds] + ([(cap, "cap")] if cap is not None else []):
@@ -313,8 +321,10 @@ def impact(
     order = np.argsort(-change, kind="stable")[:top]
     order = order[change[order] > 0]
     total_current = float(current.sum())
+    ids = {c: book[c].to_numpy() for c in id_columns}
     return {
-        "policies": n,
+        "rows": n,
+        "policies": int(pd.unique(ids[id_columns[0]]).size) if id_columns else n,
         "total_current": total_current,
         "total_proposed": float(proposed.sum()),
         "overall_change": _share(proposed.sum(), total_current) - 1.0 if n else 0.0,
@@ -330,7 +340,13 @@ def impact(
         ],
         "by_factor": {f: _by_level(book[f], current, proposed) for f in factors},
         "largest_increases": [
-            {"row": int(i), "current": float(current[i]), "proposed": float(proposed[i]), "change": float(change[i])}
+            {
+                "row": int(i),
+                "id": {c: str(values[i]) for c, values in ids.items()},
+                "current": float(current[i]),
+                "proposed": float(proposed[i]),
+                "change": float(change[i]),
+            }
             for i in order
         ],
         "capping": None

@@ -39,19 +39,22 @@ from rating_tables.table import (
 )
 
 FORMAT = "premiumlab.rating-table"
-VERSION = 1
+VERSION = 2
 _TOP_KEYS = (
     "format",
     "version",
     "table_id",
+    "stage",
     "effective_date",
     "base_rate",
     "exposure_unit",
+    "book_columns",
     "factors",
     "loadings",
     "rounding",
     "target",
     "provenance",
+    "selections",
     "cautions",
 )
 _REQUIRED_TOP = {"format", "version", "table_id", "effective_date", "base_rate", "factors", "loadings"}
@@ -109,8 +112,14 @@ def _load(root: Path) -> RatingTable:
     if meta["format"] != FORMAT:
         raise TableError(f"{TABLE_JSON}: key 'format' is {meta['format']!r}, expected {FORMAT!r}", where="format")
     if meta["version"] != VERSION or isinstance(meta["version"], bool):
+        hint = (
+            " (version 1 charged the minimum premium per row; make the table again with this release)"
+            if meta["version"] == 1 and not isinstance(meta["version"], bool)
+            else ""
+        )
         raise TableError(
-            f"{TABLE_JSON}: key 'version' is {meta['version']!r}; this reader knows version {VERSION}", where="version"
+            f"{TABLE_JSON}: key 'version' is {meta['version']!r}; this reader knows version {VERSION}{hint}",
+            where="version",
         )
     entries = _typed(meta, "factors", list, "factors")
     factors: list[Factor] = []
@@ -133,6 +142,9 @@ def _load(root: Path) -> RatingTable:
         target=meta.get("target", {}),
         provenance=meta.get("provenance", {}),
         cautions=tuple(_typed(meta, "cautions", list, "cautions", default=[])),
+        stage=meta.get("stage", "indicated"),
+        book_columns=meta.get("book_columns", {}),
+        selections=_typed(meta, "selections", list, "selections", default=[]),
     )
 
 
@@ -454,14 +466,17 @@ def _table_json(table: RatingTable) -> dict[str, Any]:
         "format": FORMAT,
         "version": VERSION,
         "table_id": table.table_id,
+        "stage": table.stage,
         "effective_date": table.effective_date,
         "base_rate": table.base_rate,
         "exposure_unit": table.exposure_unit,
+        "book_columns": table.book_columns,
         "factors": [_entry(f) for f in table.factors],
         "loadings": {k: getattr(table.loadings, k) for k in Loadings.__dataclass_fields__},
         "rounding": {k: getattr(table.rounding, k) for k in Rounding.__dataclass_fields__},
         "target": table.target,
         "provenance": table.provenance,
+        "selections": list(table.selections),
         "cautions": list(table.cautions),
     }
 

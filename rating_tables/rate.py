@@ -1,9 +1,11 @@
 """The rater (docs/rating-table.md, Rating algorithm): pure and gross premium of every book row, vectorised.
 
-pure_premium  = ((base_rate x rel_1) x rel_2 ... x rel_k) x exposure   (factors in table order)
-gross_premium = max(minimum_premium, (pure x (1 + lae_ratio) + fixed_expense x exposure)
-                                     / (1 - variable_expense - profit)), rounded half to even
-                to `premium_decimals`.
+rate          = (base_rate x rel_1) x rel_2 ... x rel_k        (per exposure unit, factors in table order)
+pure_premium  = rate x exposure
+term premium  = (rate x (1 + lae_ratio) + fixed_expense) / ((1 - variable_expense) - profit)
+gross_premium = max(minimum_premium, term premium) x exposure, rounded half to even to
+                `premium_decimals` (the minimum premium is an amount per full term, earned with the
+                exposure), with its build-up (`premium_build_up`).
 Exposure is the book's earned exposure, or one full term (1.0) per row with `annual=True`.
 Numeric values go to the band [lower, upper) that holds them (`table.band_index`: the count of
 interior edges at or below the value; -inf and inf fall in the end bands); categorical values are
@@ -194,6 +196,37 @@ def _level_index(
     return index, missing, counts
 
 
+def row_cells(factor: MainFactor, values: pd.Series) -> npt.NDArray[np.intp]:
+    """The band or level of `factor` that rates each book value, as the rater finds it.
+
+    Parameters
+    ----------
+    factor : NumericFactor or CategoricalFactor
+        The factor.
+    values : pandas.Series
+        The book's column of the factor.
+
+    Returns
+    -------
+    numpy.ndarray of intp
+        For each value, the index of its band (numeric) or level (categorical, an unknown level at
+        its fallback or base level), or len(factor.labels()) for a missing value (the missing
+        row's place).
+
+    Raises
+    ------
+    TableError
+        As `rate` does for a value it cannot rate.
+    """
+    if isinstance(factor, NumericFactor):
+        numbers = _numeric_values(values, f"factor {factor.name!r}")
+        missing = np.isnan(numbers)
+        cells: npt.NDArray[np.intp] = band_index(factor.lower, numbers).astype(np.intp)
+    else:
+        cells, missing, _ = _level_index(factor, values)
+    return np.where(missing, len(factor.labels()), cells)
+
+
 def _exposure(
     book: pd.DataFrame, exposure_column: str | None, annual: bool, row_offset: int
 ) -> npt.NDArray[np.float64]:
@@ -275,40 +308,70 @@ def _side_index(
     return index
 
 
+def _rate_per_unit(base_rate: float, rels: dict[str, npt.NDArray[np.float64]], n: int) -> npt.NDArray[np.float64]:
+    """(base_rate x rel_1) x ... x rel_k: pure premium per exposure unit (one full term), money per row."""
+    rate = np.full(n, base_rate)
+    for rel in rels.values():
+        rate *= rel
+    return rate
+
+
 def _pure_premium(
     base_rate: float, rels: dict[str, npt.NDArray[np.float64]], exposure: npt.NDArray[np.float64]
 ) -> npt.NDArray[np.float64]:
     """((base_rate x rel_1) x ... x rel_k) x exposure, money per row."""
-    pure = np.full(exposure.shape, base_rate)
-    for rel in rels.values():
-        pure *= rel
-    return pure * exposure
+    return _rate_per_unit(base_rate, rels, exposure.size) * exposure
 
 
-def gross_premium(
-    pure: npt.NDArray[np.float64],
+#: The money columns of the premium build-up, in the order the rater adds them (docs/rating-table.md).
+BUILD_UP_COLUMNS = (
+    "pure_premium",
+    "lae_load",
+    "fixed_expense_load",
+    "variable_expense_load",
+    "profit_load",
+    "minimum_premium_adjustment",
+    "gross_premium",
+)
+#: The flag the rater adds after the build-up: the row was charged the minimum premium.
+AT_MINIMUM = "at_minimum"
+
+
+def premium_build_up(
+    rate: npt.NDArray[np.float64],
     exposure: npt.NDArray[np.float64],
     loadings: Loadings,
     premium_decimals: int,
     apply_minimum: bool = True,
-) -> npt.NDArray[np.float64]:
-    """max(minimum_premium, (pure x (1 + lae_ratio) + fixed_expense x exposure) / (1 - variable_expense
-    - profit)), rounded half to even to `premium_decimals` (money per row).
+) -> dict[str, npt.NDArray[Any]]:
+    """The gross premium of every row and its build-up, the minimum premium applied to one full term.
 
-    Computed in this order, in float64, which a rating system must follow to match to the cent:
-    `(pure * (1.0 + lae_ratio) + fixed_expense * exposure) / ((1.0 - variable_expense) - profit)`,
-    then the maximum with the minimum premium, then numpy's round (the value times
-    10**premium_decimals rounded to the nearest integer, ties to even, divided back).
+    With P = `rate` (pure premium per exposure unit), e = exposure, and the loadings:
+
+    - term premium T = (P x (1 + lae_ratio) + fixed_expense) / ((1 - variable_expense) - profit),
+      the gross premium of one full term, computed in this order in float64;
+    - at_minimum = T < minimum_premium (the minimum premium is an amount per full term);
+    - gross premium = max(minimum_premium, T) x e, the term premium earned with the exposure;
+    - build-up: pure_premium = P x e, lae_load = P x e x lae_ratio, fixed_expense_load =
+      fixed_expense x e, variable_expense_load = T x e x variable_expense, profit_load = T x e x
+      profit, minimum_premium_adjustment = (max(minimum_premium, T) - T) x e. Before rounding they
+      add up to the gross premium exactly.
+
+    Every money column is rounded on its own, half to even, to `premium_decimals` (numpy's round:
+    the value times 10**premium_decimals rounded to the nearest integer, ties to even, divided
+    back), so the rounded build-up may differ from the rounded gross premium by at most half a
+    unit of the last decimal per column.
 
     Parameters
     ----------
-    pure : numpy.ndarray of float64
-        Pure premium per row, money (not rounded).
+    rate : numpy.ndarray of float64
+        Pure premium per exposure unit of each row, ((base_rate x rel_1) x ... x rel_k), money.
     exposure : numpy.ndarray of float64
-        Exposure per row in the table's exposure unit, same shape as `pure` (1.0 for one full term).
+        Exposure per row in the table's exposure unit, same shape (1.0 for one full term).
     loadings : Loadings
         lae_ratio (share of the pure premium), fixed_expense (money per exposure unit),
-        variable_expense and profit (shares of the gross premium), minimum_premium (money per row).
+        variable_expense and profit (shares of the gross premium), minimum_premium (money per
+        full term).
     premium_decimals : int
         Decimals kept, 0 to 12 (`Rounding.premium_decimals`; 2 for cents).
     apply_minimum : bool
@@ -316,16 +379,27 @@ def gross_premium(
 
     Returns
     -------
-    numpy.ndarray of float64
-        Gross premium per row, money, rounded to `premium_decimals`. The minimum applies to every
-        row whatever its exposure, including exposure 0.
+    dict of str to numpy.ndarray
+        `BUILD_UP_COLUMNS` (money per row, float64, rounded), then `at_minimum` (bool).
     """
-    gross = (pure * (1.0 + loadings.lae_ratio) + loadings.fixed_expense * exposure) / (
-        1.0 - loadings.variable_expense - loadings.profit
+    term = (rate * (1.0 + loadings.lae_ratio) + loadings.fixed_expense) / (
+        (1.0 - loadings.variable_expense) - loadings.profit
     )
-    if apply_minimum:
-        gross = np.maximum(gross, loadings.minimum_premium)
-    return np.round(gross, premium_decimals)
+    at_minimum = term < loadings.minimum_premium if apply_minimum else np.zeros(term.shape, dtype=bool)
+    charged = np.where(at_minimum, loadings.minimum_premium, term)
+    pure = rate * exposure
+    unrounded = {
+        "pure_premium": pure,
+        "lae_load": pure * loadings.lae_ratio,
+        "fixed_expense_load": loadings.fixed_expense * exposure,
+        "variable_expense_load": term * exposure * loadings.variable_expense,
+        "profit_load": term * exposure * loadings.profit,
+        "minimum_premium_adjustment": (charged - term) * exposure,
+        "gross_premium": charged * exposure,
+    }
+    out: dict[str, npt.NDArray[Any]] = {k: np.round(v, premium_decimals) for k, v in unrounded.items()}
+    out[AT_MINIMUM] = at_minimum
+    return out
 
 
 def rating_columns(
@@ -335,9 +409,9 @@ def rating_columns(
     annual: bool = False,
     row_offset: int = 0,
     strict_levels: bool = False,
-) -> tuple[dict[str, npt.NDArray[np.float64]], dict[str, LevelCounts]]:
-    """The columns the rater adds: `rel_*` in table order, then `pure_premium`, `gross_premium`;
-    and the counts of the rows rated at a missing row or a stand-in level.
+) -> tuple[dict[str, npt.NDArray[Any]], dict[str, LevelCounts]]:
+    """The columns the rater adds: `rel_*` in table order, then the premium build-up and
+    `at_minimum`; and the counts of the rows rated at a missing row or a stand-in level.
 
     `row_offset` is added to row numbers in error messages (for books rated in batches).
 
@@ -360,12 +434,12 @@ def rating_columns(
 
     Returns
     -------
-    columns : dict of str to numpy.ndarray of float64
-        `rel_NAME` for each factor entry in table order (`rel_A__B` for a two-way table), the
+    columns : dict of str to numpy.ndarray
+        `rel_NAME` (float64) for each factor entry in table order (`rel_A__B` for a two-way table), the
         relativity looked up for each row (the missing row's for a missing value; 1.0 from a
-        two-way table for a row missing on either side); `pure_premium` = ((base_rate x rel_1) x
-        ... x rel_k) x exposure, money, not rounded; `gross_premium` as `gross_premium` computes
-        it, money rounded to `premium_decimals`. Each array has one value per row of `book`.
+        two-way table for a row missing on either side); then `premium_build_up`'s columns
+        (money rounded to `premium_decimals`, and the boolean `at_minimum`). Each array has one
+        value per row of `book`.
     counts : dict of str to LevelCounts
         For each numeric and categorical factor, in table order, the rows of `book` rated at its
         missing row or at its fallback (or base) level.
@@ -382,11 +456,9 @@ def rating_columns(
     exposure = _exposure(book, exposure_column, annual, row_offset)
     out, counts = _relativities(table, book, row_offset, strict_levels)
     with np.errstate(over="ignore", invalid="ignore"):  # checked below, row by row
-        out["pure_premium"] = _pure_premium(table.base_rate, out, exposure)
-        out["gross_premium"] = gross_premium(
-            out["pure_premium"], exposure, table.loadings, table.rounding.premium_decimals
-        )
-    bad = np.flatnonzero(~np.isfinite(out["gross_premium"]))
+        rate = _rate_per_unit(table.base_rate, out, len(book))
+        build_up = premium_build_up(rate, exposure, table.loadings, table.rounding.premium_decimals)
+    bad = np.flatnonzero(~np.isfinite(build_up["gross_premium"]) | ~np.isfinite(build_up["pure_premium"]))
     if bad.size:
         where = _book_row(row_offset + int(bad[0]))
         raise TableError(
@@ -394,7 +466,40 @@ def rating_columns(
             check="book",
             where=where,
         )
+    out.update(build_up)
     return out, counts
+
+
+def pure_premium(
+    table: RatingTable, book: pd.DataFrame, exposure_column: str | None = None, annual: bool = False
+) -> npt.NDArray[np.float64]:
+    """The pure premium of every row, not rounded: for measuring a table (deviance, totals), not
+    for charging.
+
+    Parameters
+    ----------
+    table : RatingTable
+        The table to rate with.
+    book : pandas.DataFrame
+        As for `rate`.
+    exposure_column : str or None
+        The column of earned exposure in the table's exposure unit; needed unless `annual`.
+    annual : bool
+        Rate every row for one full term (exposure 1.0).
+
+    Returns
+    -------
+    numpy.ndarray of float64
+        ((base_rate x rel_1) x ... x rel_k) x exposure per row of `book`, money, full precision.
+
+    Raises
+    ------
+    TableError
+        For a bad row, as `rating_columns` says.
+    """
+    exposure = _exposure(book, exposure_column, annual, 0)
+    rels, _ = _relativities(table, book)
+    return _pure_premium(table.base_rate, rels, exposure)
 
 
 def check_no_clash(existing: list[str], added: list[str], what: str) -> None:
@@ -433,9 +538,10 @@ def added_columns(table: RatingTable) -> list[str]:
     -------
     list of str
         `rel_NAME` for each factor entry in table order (`rel_A__B` for a two-way table), then
-        `pure_premium` and `gross_premium`.
+        `BUILD_UP_COLUMNS` (pure premium, the loads, the minimum-premium adjustment, gross premium)
+        and `at_minimum`.
     """
-    return [f"rel_{f.name}" for f in table.factors] + ["pure_premium", "gross_premium"]
+    return [f"rel_{f.name}" for f in table.factors] + [*BUILD_UP_COLUMNS, AT_MINIMUM]
 
 
 def rate(
@@ -446,7 +552,7 @@ def rate(
     *,
     strict_levels: bool = False,
 ) -> pd.DataFrame:
-    """Rate every row of `book`: its columns plus `rel_*`, `pure_premium` and `gross_premium`.
+    """Rate every row of `book`: its columns plus `rel_*`, the premium build-up and `at_minimum`.
 
     `exposure_column` is the earned exposure (in the table's exposure unit); with `annual=True`
     every row is rated for one full term and the column is not needed.
@@ -475,10 +581,9 @@ def rate(
     Returns
     -------
     pandas.DataFrame
-        `book`'s columns, in order and unchanged, then `rel_NAME` per factor entry in table order,
-        `pure_premium` = ((base_rate x rel_1) x ... x rel_k) x exposure (money per row, not
-        rounded) and `gross_premium` (money per row, rounded to `premium_decimals`; formula in
-        `gross_premium`); the added columns are float64 and the index is `book`'s.
+        `book`'s columns, in order and unchanged, then `rel_NAME` per factor entry in table order
+        (float64), the money columns of `premium_build_up` (float64, each rounded to
+        `premium_decimals`) and `at_minimum` (bool); the index is `book`'s.
 
     Raises
     ------
@@ -525,8 +630,8 @@ def solve_base_rate(
         `base_rate_before`, `base_rate` (money per exposure unit); `off_balance_factor` (the
         ratio above); `total_pure_premium_before`, `total_pure_premium` (at the solved base rate,
         equal to the target up to floating point), `target_total_pure_premium` (money). With a
-        minimum premium > 0 also `minimum_premium`: `minimum_premium` (money per row),
-        `policies_at_minimum` (rows whose gross premium without the minimum, rounded, is below it),
+        minimum premium > 0 also `minimum_premium`: `minimum_premium` (money per full term),
+        `rows_at_minimum` (rows whose term premium is below it, `at_minimum`),
         `share_at_minimum` (their share of the rows, in [0, 1]), `gross_without_minimum` and
         `gross_with_minimum` (money totals, gross premiums rounded per row), and `effect` =
         gross_with_minimum / gross_without_minimum - 1.
@@ -555,26 +660,26 @@ def solve_base_rate(
         base_rate=table.base_rate * off_balance,
         target={**table.target, "total_pure_premium": float(target_total)},
     )
-    pure = _pure_premium(solved.base_rate, rels, exposure)
+    rate = _rate_per_unit(solved.base_rate, rels, exposure.size)
     report: dict[str, Any] = {
         "base_rate_before": table.base_rate,
         "base_rate": solved.base_rate,
         "off_balance_factor": off_balance,
         "total_pure_premium_before": before,
-        "total_pure_premium": float(pure.sum()),
+        "total_pure_premium": float((rate * exposure).sum()),
         "target_total_pure_premium": float(target_total),
     }
     minimum = table.loadings.minimum_premium
     if minimum > 0:
         decimals = table.rounding.premium_decimals
-        without = gross_premium(pure, exposure, table.loadings, decimals, apply_minimum=False)
-        with_minimum = gross_premium(pure, exposure, table.loadings, decimals)
+        without = premium_build_up(rate, exposure, table.loadings, decimals, apply_minimum=False)["gross_premium"]
+        with_minimum = premium_build_up(rate, exposure, table.loadings, decimals)
         report["minimum_premium"] = {
             "minimum_premium": minimum,
-            "policies_at_minimum": int((without < minimum).sum()),
-            "share_at_minimum": float((without < minimum).mean()),
+            "rows_at_minimum": int(with_minimum[AT_MINIMUM].sum()),
+            "share_at_minimum": float(with_minimum[AT_MINIMUM].mean()),
             "gross_without_minimum": float(without.sum()),
-            "gross_with_minimum": float(with_minimum.sum()),
-            "effect": float(with_minimum.sum() / without.sum() - 1.0),
+            "gross_with_minimum": float(with_minimum["gross_premium"].sum()),
+            "effect": float(with_minimum["gross_premium"].sum() / without.sum() - 1.0),
         }
     return solved, report

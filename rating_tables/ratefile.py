@@ -25,7 +25,7 @@ import pyarrow.parquet as pq
 
 from rating_tables.books import book_parts, output_kind
 from rating_tables.errors import TableError
-from rating_tables.rate import LevelCounts, added_columns, check_no_clash, rating_columns
+from rating_tables.rate import AT_MINIMUM, LevelCounts, added_columns, check_no_clash, rating_columns
 from rating_tables.table import RatingTable
 
 CAUTIONS_KEY = b"premiumlab.cautions"
@@ -139,7 +139,7 @@ def rate_file(
                 counts = {name: counts[name].merged(chunk_counts[name]) for name in counts}
                 out = source.plain(chunk)
                 for name, values in added.items():
-                    out = out.append_column(name, pa.array(values, type=pa.float64()))
+                    out = out.append_column(name, pa.array(values, type=schema.field(name).type))
                 sink.write(out.replace_schema_metadata(schema.metadata))
                 rows += chunk.num_rows
         if rows == 0:
@@ -151,7 +151,10 @@ def rate_file(
 
 
 def _output_schema(schema: pa.Schema, table: RatingTable) -> pa.Schema:
-    fields = [*schema, *(pa.field(name, pa.float64()) for name in added_columns(table))]
+    fields = [
+        *schema,
+        *(pa.field(name, pa.bool_() if name == AT_MINIMUM else pa.float64()) for name in added_columns(table)),
+    ]
     return pa.schema(fields, metadata={CAUTIONS_KEY: json.dumps(list(table.cautions)).encode("utf-8")})
 
 

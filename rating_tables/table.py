@@ -26,7 +26,7 @@ from rating_tables.errors import TableError
 
 MONOTONE = ("increasing", "decreasing", "none")
 TABLE_JSON = "table.json"
-OPTIONAL_COLUMNS = ("indicated", "credibility")
+OPTIONAL_COLUMNS = ("indicated", "credibility", "current")
 MISSING_LABEL = "(missing)"
 DRAFT_CAUTION = (
     "Draft for review by a qualified actuary: these rates must be filed and approved under "
@@ -159,6 +159,7 @@ _RULES: dict[str, tuple[str, Callable[[npt.NDArray[np.float64]], npt.NDArray[np.
     "exposure": ("format", lambda v: np.isfinite(v) & (v >= 0), "must be finite and >= 0"),
     "indicated": ("format", lambda v: np.isnan(v) | (np.isfinite(v) & (v > 0)), "must be empty or finite and > 0"),
     "credibility": ("format", lambda v: np.isnan(v) | ((v >= 0) & (v <= 1)), "must be empty or between 0 and 1"),
+    "current": ("format", lambda v: np.isnan(v) | (np.isfinite(v) & (v > 0)), "must be empty or finite and > 0"),
 }
 
 
@@ -353,7 +354,8 @@ class MissingRow(_ComparedByValue):
     never include it, and it has no place in a monotone order. Its values follow the rules of a
     factor-file row: `relativity` (a multiplier on the pure premium) finite and > 0, `exposure`
     (the exposure of the rows with a missing value when the table was made, in the table's unit)
-    finite and >= 0, `indicated` NaN or finite and > 0, `credibility` NaN or in [0, 1]. Shown as
+    finite and >= 0, `indicated` and `current` NaN or finite and > 0, `credibility` NaN or in
+    [0, 1]. Shown as
     `MISSING_LABEL`. Two NaN values compare equal.
     """
 
@@ -361,6 +363,7 @@ class MissingRow(_ComparedByValue):
     exposure: float
     indicated: float = math.nan
     credibility: float = math.nan
+    current: float = math.nan
 
     def __post_init__(self) -> None:
         values = {f.name: getattr(self, f.name) for f in fields(self)}
@@ -374,7 +377,8 @@ def missing_row(values: Mapping[str, Any], prefix: str, factor: str, where: str)
     Parameters
     ----------
     values : mapping of str to number
-        `relativity` and `exposure`, optionally `indicated` and `credibility` (NaN when empty).
+        `relativity` and `exposure`, optionally `indicated`, `credibility` and `current` (NaN when
+        empty).
     prefix : str
         Start of an error message, naming the file and factor (e.g. `factors/region.csv: factor 'region'`).
     factor : str
@@ -464,12 +468,13 @@ class NumericFactor(_ComparedByValue):
 
     `lower` and `upper` are in the unit of the book column named `name`; `relativity` is a
     multiplier on the pure premium, finite and > 0. `exposure` is the exposure the band held when
-    the table was made (same unit as the table), finite and >= 0; `indicated` (the relativity
-    before rounding, > 0) and `credibility` (in [0, 1]) are optional exhibit columns (NaN where
-    not given). The arrays may be given as any 1-D sequences of numbers; they are kept as
+    the table was made (same unit as the table), finite and >= 0; `indicated` (the model's
+    relativity before selection and rounding, > 0), `credibility` (in [0, 1]) and `current` (the
+    relativity of the table in force that a selection was compared with, > 0) are optional exhibit
+    columns (NaN where not given). The arrays may be given as any 1-D sequences of numbers; they are kept as
     read-only float64 copies. `file` defaults to `factors/NAME.csv`. `missing`, when given, rates
-    a missing book value (NaN); it may carry `indicated` or `credibility` only when the factor
-    has that column.
+    a missing book value (NaN); it may carry `indicated`, `credibility` or `current` only when the
+    factor has that column.
     """
 
     name: str
@@ -481,6 +486,7 @@ class NumericFactor(_ComparedByValue):
     file: str | None = None
     indicated: np.ndarray | None = None
     credibility: np.ndarray | None = None
+    current: np.ndarray | None = None
     missing: MissingRow | None = None
 
     def __post_init__(self) -> None:
@@ -519,6 +525,7 @@ class CategoricalFactor(_ComparedByValue):
     base: str | None = None
     indicated: np.ndarray | None = None
     credibility: np.ndarray | None = None
+    current: np.ndarray | None = None
     missing: MissingRow | None = None
 
     def __post_init__(self) -> None:
@@ -604,6 +611,7 @@ class InteractionFactor(_ComparedByValue):
     exposure: np.ndarray | None = None
     indicated: np.ndarray | None = None
     credibility: np.ndarray | None = None
+    current: np.ndarray | None = None
 
     def __post_init__(self) -> None:
         _check_name(self.name, "interaction")
@@ -670,10 +678,11 @@ def _number(value: Any, key: str) -> float:
 class Loadings:
     """Loadings of docs/rating-table.md, all >= 0: lae_ratio (share of pure premium), fixed_expense (money per
     exposure unit), variable_expense and profit (shares of gross premium, sum < 1), minimum_premium
-    (money per rated row, whatever its exposure).
+    (money per full term: the least gross premium of one exposure unit, earned with the exposure).
 
-    gross premium = max(minimum_premium, (pure x (1 + lae_ratio) + fixed_expense x exposure)
-    / (1 - variable_expense - profit)), rounded to `Rounding.premium_decimals` (`gross_premium`).
+    term premium = (rate x (1 + lae_ratio) + fixed_expense) / ((1 - variable_expense) - profit) for
+    the pure premium per exposure unit `rate`; gross premium = max(minimum_premium, term premium) x
+    exposure, rounded to `Rounding.premium_decimals` (`rating_tables.premium_build_up`).
     """
 
     lae_ratio: float = 0.0
@@ -742,6 +751,41 @@ def _text(value: Any, key: str) -> str:
     return value
 
 
+#: The stages of a table: made from a model (`indicated`) or with an actuary's selections on top (`selected`).
+STAGES = ("indicated", "selected")
+#: The book columns a table may remember: the names of the book it was made for.
+BOOK_COLUMN_KEYS = ("exposure", "policy_id", "period")
+
+
+def _book_columns(value: Any) -> dict[str, str]:
+    columns = _plain_json(value, "book_columns")
+    for key, name in columns.items():
+        if key not in BOOK_COLUMN_KEYS:
+            raise TableError(
+                f"{TABLE_JSON}: key 'book_columns.{key}' is unknown; use {', '.join(BOOK_COLUMN_KEYS)}",
+                where=f"book_columns.{key}",
+            )
+        _text(name, f"book_columns.{key}")
+    return columns
+
+
+def _selections(value: Any) -> tuple[dict[str, Any], ...]:
+    if not isinstance(value, (list, tuple)):
+        raise TableError(
+            f"{TABLE_JSON}: key 'selections' must be a list, got {type(value).__name__}", where="selections"
+        )
+    out = []
+    for i, entry in enumerate(value):
+        record = _plain_json(entry, f"selections[{i}]")
+        for key in ("factor", "rule", "reason"):
+            if not isinstance(record.get(key), str):
+                raise TableError(
+                    f"{TABLE_JSON}: key 'selections[{i}].{key}' must be a string", where=f"selections[{i}].{key}"
+                )
+        out.append(record)
+    return tuple(out)
+
+
 @dataclass(frozen=True)
 class RatingTable:
     """A filed rating table (docs/rating-table.md).
@@ -751,7 +795,11 @@ class RatingTable:
     kept as its ISO text); `exposure_unit` names the unit of exposure, one full term being 1.0
     unit (premiumlab writes the spec's `table.exposure_unit`, by default `policy-year`);
     `factors` are multiplied in this order; `target` and `provenance` are plain JSON objects;
-    `cautions` always include DRAFT_CAUTION (added first when missing).
+    `cautions` always include DRAFT_CAUTION (added first when missing). `stage` is `indicated`
+    (relativities as a model indicated them) or `selected` (an actuary's selections applied);
+    `book_columns` remembers the column names of the book the table was made for (`exposure`,
+    `policy_id`, `period`; the rater's defaults); `selections` lists each selection applied, a
+    plain JSON object with at least `factor`, `rule` and `reason` (not used when rating).
     """
 
     table_id: str
@@ -764,10 +812,19 @@ class RatingTable:
     target: dict[str, Any] = field(default_factory=dict)
     provenance: dict[str, Any] = field(default_factory=dict)
     cautions: tuple[str, ...] = ()
+    stage: str = "indicated"
+    book_columns: dict[str, str] = field(default_factory=dict)
+    selections: tuple[dict[str, Any], ...] = ()
 
     def __post_init__(self) -> None:
         _text(self.table_id, "table_id")
         _text(self.exposure_unit, "exposure_unit")
+        if self.stage not in STAGES:
+            raise TableError(
+                f"{TABLE_JSON}: key 'stage' is {self.stage!r}; use one of {', '.join(STAGES)}", where="stage"
+            )
+        _set(self, "book_columns", _book_columns(self.book_columns))
+        _set(self, "selections", _selections(self.selections))
         given: object = self.effective_date  # a date object is accepted too
         try:
             day = (

@@ -29,6 +29,7 @@ COMMANDS = (
     "fit",
     "compare",
     "tabulate",
+    "select",
     "audit",
     "rate",
     "impact",
@@ -103,6 +104,7 @@ def test_the_package_lists_its_api():
         "Run",
         "Comparison",
         "TableResult",
+        "SelectResult",
         "AuditResult",
         "RateResult",
         "ImpactResult",
@@ -221,8 +223,8 @@ def test_a_chain_of_calls_on_a_small_simulated_book(tmp_path):
     assert rated.priced == priced_path and rated.cautions
     priced = pd.read_parquet(priced_path)
     by_hand = rate_by_hand(table_dir, book)
-    assert priced["pure_premium"].sum() == pytest.approx(by_hand.sum(), rel=1e-9)
-    np.testing.assert_allclose(priced["pure_premium"].to_numpy(), by_hand, rtol=1e-9)
+    assert priced["pure_premium"].sum() == pytest.approx(by_hand.sum(), rel=1e-9, abs=0.005 * len(priced))
+    np.testing.assert_allclose(priced["pure_premium"].to_numpy(), by_hand, rtol=1e-9, atol=0.005 + 1e-9)  # cents
 
     impact_path = tmp_path / "impact.json"
     impact = premiumlab.impact(
@@ -233,7 +235,7 @@ def test_a_chain_of_calls_on_a_small_simulated_book(tmp_path):
         thresholds=(0.05, 0.1),
         out=impact_path,
     )
-    assert impact.policies == len(book)
+    assert impact.rows == len(book) and impact.policies == book["policy_id"].nunique() < len(book)
     assert impact.total_current == pytest.approx(book["current_premium"].sum(), rel=1e-9)
     assert impact.total_proposed == pytest.approx(priced["gross_premium"].sum(), rel=1e-9)
     assert impact.overall_change == pytest.approx(impact.total_proposed / impact.total_current - 1, rel=1e-9)

@@ -315,8 +315,8 @@ def test_table_total_on_the_training_book_equals_the_experience(demo_run, gbm_ta
 
     table = rating_tables.load(gbm_table["path"])
     run, book, rows, frame = _training_frame(demo_run)
-    rated = rating_tables.rate(table, frame, run.spec.columns.exposure)
-    assert rated["pure_premium"].sum() == pytest.approx(book.claim_amount[rows].sum(), rel=1e-9)
+    pure = rating_tables.pure_premium(table, frame, run.spec.columns.exposure)
+    assert pure.sum() == pytest.approx(book.claim_amount[rows].sum(), rel=1e-9)
     for factor in table.main_factors:
         assert (factor.relativity == 1.0).any(), factor.name
     bonus = table.factor("bonus_class")
@@ -341,10 +341,11 @@ def test_table_fidelity_equals_sklearn_tweedie_deviance(demo_run, gbm_table) -> 
     held = np.flatnonzero(book.holdout)
     table = rating_tables.load(gbm_table["path"])
     frame = rating_frame(book, run.spec, held)
-    mu = rating_tables.rate(table, frame, run.spec.columns.exposure)["pure_premium"].to_numpy() / book.exposure[held]
+    mu = rating_tables.pure_premium(table, frame, run.spec.columns.exposure) / book.exposure[held]
     y, w = book.claim_amount[held] / book.exposure[held], book.exposure[held]
     power = fid["tweedie_power"]
-    assert fid["rows"] == "holdout" and fid["policies"] == held.size
+    assert fid["subset"] == "holdout" and fid["rows"] == held.size
+    assert fid["policies"] == np.unique(book.policy[held]).size < held.size
     assert fid["models"]["table"]["mean_deviance"] == pytest.approx(
         mean_tweedie_deviance(y, mu, sample_weight=w, power=power), rel=1e-9
     )
@@ -380,16 +381,14 @@ def test_rate_level_statements(demo_run, gbm_table) -> None:
     table = rating_tables.load(gbm_table["path"])
     _, _, _, frame = _training_frame(demo_run)
     rated = rating_tables.rate(table, frame, "exposure")
-    without = rating_tables.gross_premium(
-        rated["pure_premium"].to_numpy(),
-        frame["exposure"].to_numpy(float),
-        table.loadings,
-        table.rounding.premium_decimals,
-        apply_minimum=False,
-    )
+    exposure = frame["exposure"].to_numpy(float)
+    lo = table.loadings
+    rate = rating_tables.pure_premium(table, frame, "exposure") / exposure  # per full term
+    term = (rate * (1 + lo.lae_ratio) + lo.fixed_expense) / (1 - lo.variable_expense - lo.profit)
+    without = np.round(term * exposure, table.rounding.premium_decimals)
     expected = rated["gross_premium"].sum() / without.sum() - 1.0
     assert level["minimum_premium_off_balance"] == pytest.approx(expected, abs=1e-9)
-    assert level["policies_at_minimum"] == int((without < table.loadings.minimum_premium).sum())
+    assert level["rows_at_minimum"] == int((term < lo.minimum_premium).sum()) == int(rated["at_minimum"].sum())
 
 
 def test_tabulate_is_deterministic_and_fast(demo_run, gbm_table, tmp_path) -> None:

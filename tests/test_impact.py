@@ -26,7 +26,7 @@ def test_bands_thresholds_levels_and_largest_increases_by_hand():
     in '-5% to 0%' and exactly +5 % in '+5% to +10%')."""
     out = impact(CURRENT, PROPOSED, BOOK, ["region", "age"], thresholds=(0.05, 0.25, 0.5), top=3)
     json.dumps(out)  # plain JSON
-    assert out["policies"] == 7
+    assert out["rows"] == out["policies"] == 7
     assert out["total_current"] == 750.0 and out["total_proposed"] == 752.0
     assert out["overall_change"] == pytest.approx(2 / 750, rel=1e-12)
     counts = {b["band"]: b["count"] for b in out["bands"]}
@@ -53,7 +53,18 @@ def test_bands_thresholds_levels_and_largest_increases_by_hand():
     assert region["Ridge"]["change"] == pytest.approx(447 / 500 - 1, rel=1e-12)
     assert [r["level"] for r in out["by_factor"]["age"]] == ["30", "41", "52"]
     assert [r["row"] for r in out["largest_increases"]] == [4, 0, 5]
-    assert out["largest_increases"][0] == {"row": 4, "current": 50.0, "proposed": 80.0, "change": 0.6}
+    assert out["largest_increases"][0] == {"row": 4, "id": {}, "current": 50.0, "proposed": 80.0, "change": 0.6}
+
+
+def test_rows_and_policies_are_counted_apart_and_increases_name_the_policy():
+    """The seven rows above as three policies over periods: 'rows' counts 7, 'policies' 3, and the
+    largest increase (row 4, +60 %) is named by its policy id and period."""
+    ids = BOOK.assign(policy=["A", "A", "B", "B", "C", "C", "C"], period=[2025, 2026, 2025, 2026, 2024, 2025, 2026])
+    out = impact(CURRENT, PROPOSED, ids, ["region"], top=1, id_columns=("policy", "period"))
+    assert (out["rows"], out["policies"]) == (7, 3)
+    assert out["largest_increases"] == [
+        {"row": 4, "id": {"policy": "C", "period": "2024"}, "current": 50.0, "proposed": 80.0, "change": 0.6}
+    ]
     assert out["capping"] is None
 
 

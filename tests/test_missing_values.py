@@ -357,7 +357,7 @@ def test_tabulate_distils_the_missing_band_apart(gapped_run, gapped_tables):
     assert (np.diff(factors["bonus"].relativity) >= 0).all()
     assert result.distillation["bands"]["age"] == len(factors["age"].relativity) + 1
     assert all(MISSING_LABEL not in m["bands"] for m in result.distillation["merges"])
-    assert result.fidelity["rows"] == "holdout" and result.fidelity["policies"] == gapped_run[2].sum()
+    assert result.fidelity["subset"] == "holdout" and result.fidelity["rows"] == gapped_run[2].sum()
 
 
 def test_missing_band_is_its_own_cell_outside_the_promise_and_the_two_way_table():

@@ -29,6 +29,29 @@ def _read_frame(path: str | Path) -> pd.DataFrame:
     return pd.concat(parts, ignore_index=True)
 
 
+def book_column(table: RatingTable, key: str, given: str | None) -> str | None:
+    """The book column for `key` (`exposure`, `policy_id` or `period`): the one the user named,
+    else the one the table remembers (`table.book_columns`), else `exposure` for the exposure.
+
+    Parameters
+    ----------
+    table : RatingTable
+        The table rating the book (for `impact`, the proposed one).
+    key : str
+        One of `rating_tables.table.BOOK_COLUMN_KEYS`.
+    given : str or None
+        The column named by an option (`--exposure`, `--policy-id`, `--period`), None if not.
+
+    Returns
+    -------
+    str or None
+        The column name; None for a policy id or period neither named nor remembered.
+    """
+    if given is not None:
+        return given
+    return table.book_columns.get(key, "exposure" if key == "exposure" else None)
+
+
 def _column_premiums(source: str, frame: pd.DataFrame) -> np.ndarray:
     """Premiums per policy from the book column named by `source` (`column:NAME`), all > 0."""
     name = source[len(COLUMN_PREFIX) :]
@@ -59,6 +82,8 @@ def dislocation(
     annual: bool,
     cap: float | None,
     thresholds: tuple[float, ...],
+    policy_id: str | None = None,
+    period: str | None = None,
 ) -> ImpactResult:
     """Per-policy change from `current` to `proposed` premiums (tables or `column:NAME`); each
     table is loaded once.
@@ -72,13 +97,20 @@ def dislocation(
     book : str or Path
         Book of policies.
     exposure : str or None
-        The book's exposure column (years); ignored with `annual`.
+        The book's exposure column (years); ignored with `annual`. None: the proposed table's
+        remembered column (`book_column`).
     annual : bool
-        Compare one full term per policy.
+        Compare one full term per policy: both sides rated by tables for exposure 1. Refused with
+        a current premium column, which holds each row's premium for its own period.
     cap : float or None
         Cap each policy's change at +-cap (0.15 = 15 %).
     thresholds : tuple of float
         Increases whose shares are counted (0.1 = 10 %).
+    policy_id : str or None
+        The book's policy id column, which identifies the rows listed (the largest increases) and
+        counts the policies. None: the proposed table's remembered column, if any.
+    period : str or None
+        The book's period column, shown beside the policy id. None: the table's, if any.
 
     Returns
     -------
@@ -89,8 +121,21 @@ def dislocation(
 
     if proposed.startswith(COLUMN_PREFIX):
         raise InputError(f"--proposed {proposed}: the proposed premium must come from a table folder")
-    frame = _read_frame(book)
+    if annual and current.startswith(COLUMN_PREFIX):
+        raise InputError(
+            f"--annual with --current {current}: a premium column holds each row's premium for its own "
+            "period and cannot be put on a full-term basis by the rater; compare two tables with --annual, "
+            "or drop --annual"
+        )
     table = rating_tables.load(proposed)
+    frame = _read_frame(book)
+    exposure = book_column(table, "exposure", exposure)
+    id_columns = tuple(
+        c for c in (book_column(table, k, v) for k, v in (("policy_id", policy_id), ("period", period))) if c
+    )
+    absent = [c for c in id_columns if c not in frame.columns]
+    if absent:
+        raise InputError(f"{book}: the book has no column '{absent[0]}' (the policy id or period column)")
     if current.startswith(COLUMN_PREFIX):
         tables, now = [table], _column_premiums(current, frame)
     else:
@@ -100,12 +145,14 @@ def dislocation(
     result = rating_tables.impact(
         now,
         _gross_premiums(table, frame, exposure, annual),
-        groups,
+        pd.concat([groups, frame[list(id_columns)].reset_index(drop=True)], axis=1),
         list(groups.columns),
         thresholds=thresholds,
         cap=cap,
+        id_columns=id_columns,
     )
     return ImpactResult(
+        rows=result["rows"],
         policies=result["policies"],
         total_current=result["total_current"],
         total_proposed=result["total_proposed"],

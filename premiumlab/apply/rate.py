@@ -27,7 +27,8 @@ def rate_book(
     out : str or Path
         Priced file to write; it gets the book's columns and `rating_tables.rate`'s.
     exposure : str or None
-        The book's exposure column (years); ignored with `annual`.
+        The book's exposure column (years); ignored with `annual`. None: the column the table
+        remembers, else `exposure`.
     annual : bool
         Price one full term per policy instead of the exposure's share of it.
     force : bool
@@ -43,8 +44,10 @@ def rate_book(
     """
     import rating_tables
     from premiumlab._core.outputs import atomic_files
+    from premiumlab.apply.impact import book_column
 
     table = rating_tables.load(table_dir)
+    exposure = book_column(table, "exposure", exposure)
     out = Path(out)
     with atomic_files([out], force=force, inputs=(book, table_dir)) as tmp:
         rated = rating_tables.rate_file(

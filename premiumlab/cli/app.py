@@ -255,6 +255,28 @@ def tabulate(
 
 @app.command()
 @handled
+def select(
+    table: Annotated[Path, typer.Argument(help="The indicated table folder (written by `tabulate`).")],
+    selections: Annotated[Path, typer.Option("--selections", help="The selections file (TOML).")],
+    run: Annotated[Path, typer.Option("--run", help="The run the table was made from.")],
+    out: Annotated[Path, typer.Option("--out", help="Selected table folder to write.")],
+    current: Annotated[
+        Path | None, typer.Option("--current", help="The table in force, to cap against or keep.")
+    ] = None,
+    book: Annotated[Path | None, typer.Option(help="The run's book, if it has moved.")] = None,
+    force: Force = False,
+) -> None:
+    """Apply an actuary's selections to an indicated table, each with its reason and off-balance."""
+    from premiumlab import api
+    from premiumlab.cli.format import selection_lines
+
+    result = api.select(table, selections=selections, run=run, out=out, current=current, book=book, force=force)
+    typer.echo("\n".join(selection_lines(result)))
+    _echo_cautions(result.cautions)
+
+
+@app.command()
+@handled
 def audit(
     table: Annotated[Path, typer.Argument(help="Rating table folder.")],
     spec: Annotated[Path | None, typer.Option("--spec", help="Spec whose promises to check.")] = None,
@@ -280,7 +302,9 @@ def rate(
     table: Annotated[Path, typer.Argument(help="Rating table folder.")],
     book: Annotated[Path, typer.Argument(help="Book to rate (.csv, .parquet or a folder of parts).")],
     out: Annotated[Path, typer.Option("--out", help="Priced file to write (.csv or .parquet).")],
-    exposure: Annotated[str, typer.Option(help="The book's exposure column.")] = "exposure",
+    exposure: Annotated[
+        str | None, typer.Option(help="The book's exposure column [default: the table's, else exposure].")
+    ] = None,
     annual: Annotated[bool, typer.Option("--annual", help="Price one full term per policy.")] = False,
     strict_levels: Annotated[
         bool,
@@ -306,7 +330,13 @@ def impact(
     current: Annotated[str, typer.Option("--current", help="Current table folder, or column:NAME.")],
     proposed: Annotated[Path, typer.Option("--proposed", help="Proposed table folder.")],
     cap: Annotated[float | None, typer.Option(help="Cap each policy's change at +-CAP (0.15 = 15 %).")] = None,
-    exposure: Annotated[str, typer.Option(help="The book's exposure column.")] = "exposure",
+    exposure: Annotated[
+        str | None, typer.Option(help="The book's exposure column [default: the table's, else exposure].")
+    ] = None,
+    policy_id: Annotated[
+        str | None, typer.Option("--policy-id", help="The book's policy id column [default: the table's].")
+    ] = None,
+    period: Annotated[str | None, typer.Option(help="The book's period column [default: the table's].")] = None,
     annual: Annotated[bool, typer.Option("--annual", help="Compare one full term per policy.")] = False,
     thresholds: Annotated[
         str, typer.Option(help="Increases to count, comma separated (0.1 = 10 %).")
@@ -325,6 +355,8 @@ def impact(
         proposed=proposed,
         cap=cap,
         exposure=exposure,
+        policy_id=policy_id,
+        period=period,
         annual=annual,
         thresholds=thresholds,
         out=out,

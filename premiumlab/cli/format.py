@@ -15,6 +15,7 @@ from premiumlab.results import (
     Certificate,
     Comparison,
     ImpactResult,
+    SelectResult,
     SimulationResult,
     TableResult,
     TailFit,
@@ -247,6 +248,54 @@ def comparison_lines(result: Comparison) -> list[str]:
     return lines
 
 
+def selection_lines(result: SelectResult) -> list[str]:
+    """`select`: each selection with its off-balance, the base-rate correction, the audit and the
+    fidelity of the selected table beside the indicated one.
+
+    Parameters
+    ----------
+    result : SelectResult
+        What `select` returned.
+
+    Returns
+    -------
+    list[str]
+        One line per selection (factor, rule, bands or levels changed, off-balance, reason); the
+        total off-balance at the indicated base rate and the corrected base rate; one line per
+        audit violation with the selections on its factor, or that the promises hold; the holdout
+        deviance and Gini of both tables; the notes.
+    """
+    level, fid = result.rate_level, result.fidelity
+    lines = [f"wrote {result.table} ({result.table_id}) from {result.indicated_table_id}"]
+    for r in result.selections:
+        changed = len(r["applies_to"])
+        lines.append(
+            f"  {r['factor']}: {r['rule']} ({changed} band{'s' if changed != 1 else ''} or level{'s' if changed != 1 else ''} "
+            f"changed) off-balance {r['off_balance']:+.3%}; reason: {r['reason']}"
+        )
+    lines.append(
+        f"off-balance of the selections at the indicated base rate: {level['off_balance']:+.3%} (rounding "
+        f"{level['rounding_off_balance']:+.3%}); base rate {level['indicated_base_rate']:.4f} -> "
+        f"{level['base_rate']:.4f} (x {level['base_rate_correction']:.5f}) to meet the target total pure premium "
+        f"{level['target_total_pure_premium']:,.2f}"
+    )
+    promised = ", ".join(f"{k} {v}" for k, v in result.audit["promises"].items()) or "none"
+    if result.audit["violations"]:
+        for v in result.audit["violations"]:
+            lines.append(
+                f"audit: {v['violation']}; selections on '{v['factor']}': {', '.join(v['selections']) or 'none'}"
+            )
+    else:
+        lines.append(f"audit: the selected table keeps every promise of the spec ({promised}) and has its bases at 1")
+    s, i = fid["selected"], fid["indicated"]
+    lines.append(
+        f"holdout fidelity: selected mean deviance {s['mean_deviance']:.6g}, Gini {s['gini']:.4f}; "
+        f"indicated {i['mean_deviance']:.6g}, Gini {i['gini']:.4f}"
+    )
+    lines += [f"note: {n}" for n in result.notes]
+    return lines
+
+
 def fidelity_lines(result: TableResult) -> list[str]:
     """`tabulate`: source, rate level, fidelity, retention, attenuation and warnings.
 
@@ -275,7 +324,10 @@ def fidelity_lines(result: TableResult) -> list[str]:
     )
     if "indicated_overall_change" in level:
         lines.append(f"indicated overall change against the current premium: {level['indicated_overall_change']:+.2%}")
-    lines.append(f"fidelity on the {fid['rows']} ({fid['policies']} rows, Tweedie power {fid['tweedie_power']:.2f}):")
+    lines.append(
+        f"fidelity on the {fid['subset']} rows ({fid['rows']:,} rows, {fid['policies']:,} policies, "
+        f"Tweedie power {fid['tweedie_power']:.2f}):"
+    )
     for name, s in fid["models"].items():
         mark = "  <- source" if name == src["model"] else ""
         lines.append(f"  {name:<12} mean deviance {s['mean_deviance']:.6g}  Gini {s['gini']:.4f}{mark}")
@@ -331,24 +383,22 @@ def impact_lines(result: ImpactResult) -> list[str]:
     Returns
     -------
     list[str]
-        Totals (money) and the overall change, the policies per change band, the shares above each
+        Totals (money) and the overall change, the rows per change band, the shares above each
         threshold, the largest increase and the capping figures, when there are any.
     """
     lines = [
-        f"policies {result.policies}: current total {result.total_current:,.2f}, proposed "
-        f"{result.total_proposed:,.2f}, overall change {result.overall_change:+.2%}",
-        "change band          policies   share",
+        f"{result.rows:,} rows ({result.policies:,} policies): current total {result.total_current:,.2f}, "
+        f"proposed {result.total_proposed:,.2f}, overall change {result.overall_change:+.2%}",
+        "change band              rows   share",
     ]
     for b in result.bands:
-        lines.append(f"  {b['band']:<18} {b['count']:>8}  {b['count_share']:>6.1%}")
+        lines.append(f"  {b['band']:<18} {b['count']:>8,}  {b['count_share']:>6.1%}")
     for t in result.above_thresholds:
-        lines.append(f"increase above {t['threshold']:.0%}: {t['count']} policies ({t['count_share']:.1%})")
+        lines.append(f"increase above {t['threshold']:.0%}: {t['count']:,} rows ({t['count_share']:.1%})")
     if result.largest_increases:
         top = result.largest_increases[0]
-        lines.append(
-            f"largest increase: row {top['row']}, {top['current']:,.2f} -> {top['proposed']:,.2f} "
-            f"({top['change']:+.1%})"
-        )
+        who = ", ".join(f"{k} {v}" for k, v in top["id"].items()) or f"row {top['row']} (0-based)"
+        lines.append(f"largest increase: {who}, {top['current']:,.2f} -> {top['proposed']:,.2f} ({top['change']:+.1%})")
     if result.capping:
         lines.append(
             "capping: "

@@ -66,7 +66,7 @@ if TYPE_CHECKING:
     from rating_tables.table import Cells, Factor, RatingTable
 
 #: fidelity.json's version (docs/rating-table.md, Files beside the format).
-FIDELITY_VERSION = 2
+FIDELITY_VERSION = 3
 #: Training rows on which the rebuilt features must reproduce the run's boosted predictions.
 CHECK_ROWS = 2000
 CHECK_TOLERANCE = 1e-9
@@ -580,15 +580,55 @@ def _pure_premium_target(spec: Spec, book: Book, train: np.ndarray) -> dict:
     }
 
 
+def table_id(spec_id: str, source: str, stage: str) -> str:
+    """A table's id, saying what it is: `SPEC_ID.SOURCE.STAGE` (docs/rating-table.md, `table_id`).
+
+    Parameters
+    ----------
+    spec_id : str
+        The spec's `table.table_id`.
+    source : str
+        The model the table was made from (`gbm`, `gbm_freq_sev`, `glm` or `glm_freq_sev`).
+    stage : str
+        `indicated` or `selected`.
+
+    Returns
+    -------
+    str
+        E.g. `motor-2027.gbm_freq_sev.indicated`: two tables of one run never share an id.
+    """
+    return f"{spec_id}.{source}.{stage}"
+
+
+def book_columns(spec: Spec) -> dict[str, str]:
+    """The spec's exposure, policy id and period column names, which the table remembers.
+
+    Parameters
+    ----------
+    spec : Spec
+        The spec the table is made from.
+
+    Returns
+    -------
+    dict of str to str
+        `exposure`, and `policy_id` and `period` when the spec names them.
+    """
+    named = {"exposure": spec.columns.exposure, "policy_id": spec.columns.policy_id, "period": spec.columns.period}
+    return {key: name for key, name in named.items() if name is not None}
+
+
 def _make_table(
     spec: Spec, factors: tuple[Factor, ...], base_rate: float, target: dict, provenance: dict
 ) -> RatingTable:
-    """The rating table of `factors` at `base_rate`, with the spec's loadings, rounding and cautions."""
+    """The indicated rating table of `factors` at `base_rate`, with the spec's loadings, rounding,
+    book columns and cautions; its id names the source (`provenance["source"]`)."""
     from rating_tables import Loadings, RatingTable, Rounding
 
     opts, load = spec.table, spec.loadings
     return RatingTable(
-        table_id=opts.table_id,
+        table_id=table_id(opts.table_id, provenance["source"], "indicated"),
+        stage="indicated",
+        book_columns=book_columns(spec),
         effective_date=opts.effective_date,
         base_rate=base_rate,
         exposure_unit=opts.exposure_unit,
@@ -626,7 +666,7 @@ def _rate_level(
         "total_pure_premium": report["total_pure_premium"],
         "rounding_off_balance": rounded_at_exact / total - 1.0,
         "minimum_premium_off_balance": report.get("minimum_premium", {}).get("effect", 0.0),
-        "policies_at_minimum": report.get("minimum_premium", {}).get("policies_at_minimum", 0),
+        "rows_at_minimum": report.get("minimum_premium", {}).get("rows_at_minimum", 0),
         "gross_premium_total": gross,
     }
     if current_total is not None:
@@ -635,25 +675,49 @@ def _rate_level(
     return table, out
 
 
+def table_scores(
+    table: RatingTable, frame: pd.DataFrame, spec: Spec, book: Book, rows: np.ndarray, power: float
+) -> dict[str, float]:
+    """The table's mean Tweedie deviance and Gini on `rows`, as metrics.json scores a model.
+
+    Parameters
+    ----------
+    table : RatingTable
+        The table to measure.
+    frame : pandas.DataFrame
+        `rating_frame` of `rows`.
+    spec : Spec
+        The run's spec (its exposure column).
+    book : Book
+        The run's book.
+    rows : numpy.ndarray
+        The rows measured (positions in the book).
+    power : float
+        The Tweedie power of the deviance, in (1, 2).
+
+    Returns
+    -------
+    dict
+        `mean_deviance` = sum e d(y, mu) / sum e with y = loss / e and mu = the table's pure
+        premium per exposure unit, unrounded (`models.deviance.mean_deviance`); `gini` of the losses
+        ordered by mu, exposure-weighted (`evaluation.metrics.gini`).
+    """
+    from premiumlab.evaluation.metrics import gini
+    from premiumlab.models.deviance import mean_deviance
+    from rating_tables import pure_premium
+
+    exposure, amount = book.exposure[rows], _claim_amount(book)[rows]
+    mu = pure_premium(table, frame, spec.columns.exposure) / exposure
+    return {"mean_deviance": mean_deviance(amount / exposure, mu, exposure, power), "gini": gini(amount, mu, exposure)}
+
+
 def _fidelity(
     table: RatingTable, frame: pd.DataFrame, spec: Spec, book: Book, rows: np.ndarray, source: SourceChoice
 ) -> tuple[dict, list[Diagnostic]]:
     """Deviance and Gini of the table on `rows` beside every candidate's, and the retention of the
     source's Gini: G_table / G_source and (G_table - G_glm) / (G_source - G_glm), the latter only
     when its denominator is > 0 (else, for a boosted source, a `retention_undefined` diagnostic)."""
-    from premiumlab.evaluation.metrics import gini
-    from premiumlab.models.deviance import mean_deviance
-    from rating_tables import rate
-
-    exposure, amount = book.exposure[rows], _claim_amount(book)[rows]
-    mu = rate(table, frame, spec.columns.exposure)["pure_premium"].to_numpy() / exposure
-    scores = {
-        "table": {
-            "mean_deviance": mean_deviance(amount / exposure, mu, exposure, source.power),
-            "gini": gini(amount, mu, exposure),
-        },
-        **source.candidates,
-    }
+    scores = {"table": table_scores(table, frame, spec, book, rows, source.power), **source.candidates}
     g = {name: s["gini"] for name, s in scores.items()}
     src = source.model
     retention: dict = {"source": src, "gini_table_over_source": g["table"] / g[src] if g[src] else None}
@@ -676,8 +740,9 @@ def _fidelity(
                 )
             )
     measured = {
-        "rows": source.rows,
-        "policies": int(rows.size),
+        "subset": source.rows,
+        "rows": int(rows.size),
+        "policies": int(np.unique(book.policy[rows]).size),
         "tweedie_power": source.power,
         "models": scores,
         "retention": retention,
@@ -726,7 +791,7 @@ def _attenuation(
         flattened,
         table_partial_dependence,
     )
-    from rating_tables import InteractionFactor, rate
+    from rating_tables import InteractionFactor, pure_premium
 
     exposure = book.exposure[rows]
     mains = {
@@ -749,10 +814,10 @@ def _attenuation(
             x = np.log(made.relativities[name])[_row_bands(banding, cells[name])]
         factors[name] = slope(table_partial_dependence(name, mains[name], pairs, cells, exposure), x)
     frame = rating_frame(book, spec, rows)
-    table_rate = rate(table, frame, spec.columns.exposure)["pure_premium"].to_numpy() / exposure
+    table_rate = pure_premium(table, frame, spec.columns.exposure) / exposure
     source_rate = preds[source.column].to_numpy()[rows]
     return {
-        "rows": "training",
+        "subset": "training",
         "factors": factors,
         "overall": slope(np.log(table_rate), np.log(source_rate)),
         "flattened_below": FLATTENED_BELOW,
@@ -879,7 +944,12 @@ def tabulate(
         for decimals in (None, spec.table.relativity_decimals)
     )
     target = _pure_premium_target(spec, loaded, train)
-    provenance = {"run": Path(run_dir).resolve().name, "model": source.column, "book_sha256": loaded.sha256}
+    provenance = {
+        "run": Path(run_dir).resolve().name,
+        "source": source.model,
+        "model": source.column,
+        "book_sha256": loaded.sha256,
+    }
     current = None if loaded.current_premium is None else float(loaded.current_premium[train].sum())
     table, level = _rate_level(spec, unrounded, rounded, rating_frame(loaded, spec, rows), target, provenance, current)
     held = np.flatnonzero(loaded.holdout) if loaded.holdout.any() else rows

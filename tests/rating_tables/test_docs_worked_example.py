@@ -56,17 +56,38 @@ def test_the_example_files_are_in_canonical_form(example, tmp_path):
 
 
 def test_the_rater_gives_the_hand_figures(example):
-    """P1: pure ((300 x 1.4) x 1.25) x 0.5 = 262.5, gross (262.5 x 1.1 + 40 x 0.5) / 0.8 = 385.9375
-    -> 385.94; P2: fallback North, 115.625 on paper, 115.62500000000001 in double precision (the
-    divisor 1 - 0.15 - 0.05 is 0.7999999999999999) -> 115.63; P3: 95.3875 -> minimum 100; P4: region
-    missing, the missing row 1.1: pure 330 x 0.8 = 264, gross (290.4 + 32) / 0.8 = 403."""
+    """P1: rate (300 x 1.4) x 1.25 = 525, term (525 x 1.1 + 40) / 0.8 = 771.875, gross x 0.5 =
+    385.9375 -> 385.94; P2: fallback North, 115.625 on paper, 115.62500000000001 in double precision
+    (the divisor 1 - 0.15 - 0.05 is 0.7999999999999999) -> 115.63; P3: term 421.25 below the
+    minimum 450 per full term, charged 450 x 0.2 = 90.00 with an adjustment of 5.75; P4: region
+    missing, the missing row 1.1: pure 330 x 0.8 = 264, gross 503.75 x 0.8 = 403. Figures computed
+    by hand on the page."""
     rated = rating_tables.rate(example["table"], example["book"], exposure_column="exposure")
-    assert rated["pure_premium"].tolist() == pytest.approx([262.5, 75.0, 62.1, 264.0], rel=1e-12)
-    assert rated["gross_premium"].tolist() == [385.94, 115.63, 100.0, 403.0]
-    assert rated["rel_driver_age"].tolist() == [1.4, 1.0, 1.15, 1.0]
+    assert rated["pure_premium"].tolist() == [262.5, 75.0, 54.0, 264.0]
+    assert rated["gross_premium"].tolist() == [385.94, 115.63, 90.0, 403.0]
+    assert rated["minimum_premium_adjustment"].tolist() == [0.0, 0.0, 5.75, 0.0]
+    assert rated["at_minimum"].tolist() == [False, False, True, False]
+    assert rated["rel_driver_age"].tolist() == [1.4, 1.0, 1.0, 1.0]
     assert rated["rel_region"].tolist() == [1.25, 1.0, 0.9, 1.1]
-    for figure in ("**385.94**", "**115.63**", "**100.00**", "264.00", "**403.00**"):
+    for figure in ("**385.94**", "**115.63**", "**90.00**", "264.00", "**403.00**", "5.75"):
         assert figure in example["body"], figure
+
+
+def test_the_build_up_adds_up_to_the_gross_premium(example):
+    """Before rounding the loads and the adjustment add up to the gross premium; after rounding each
+    column on its own, within one cent per column (the page's P2 is a cent short)."""
+    rated = rating_tables.rate(example["table"], example["book"], exposure_column="exposure")
+    parts = [
+        "pure_premium",
+        "lae_load",
+        "fixed_expense_load",
+        "variable_expense_load",
+        "profit_load",
+        "minimum_premium_adjustment",
+    ]
+    gap = (rated[parts].sum(axis=1) - rated["gross_premium"]).abs()
+    assert gap.max() <= 0.005 * len(parts) + 1e-9
+    assert gap.tolist() == pytest.approx([0.0, 0.01, 0.0, 0.0], abs=1e-9)
 
 
 def test_the_missing_row_and_the_counts_on_the_page(example, tmp_path):
@@ -92,12 +113,22 @@ def test_the_rated_book_on_the_page_is_the_raters(example):
     columns = [c.strip() for c in header.strip("|").split("|")]
     assert columns == list(rated.columns)
     assert len(lines) == len(rated)
+    money = [
+        "pure_premium",
+        "lae_load",
+        "fixed_expense_load",
+        "variable_expense_load",
+        "profit_load",
+        "minimum_premium_adjustment",
+        "gross_premium",
+    ]
     for line, (_, row) in zip(lines, rated.iterrows()):
         cells = dict(zip(columns, (c.strip() for c in line.strip("|").split("|"))))
-        for name in ("pure_premium", "gross_premium"):
+        for name in money:
             assert cells[name] == f"{row[name]:.2f}", (row["policy_id"], name)
         for name in ("rel_driver_age", "rel_region", "exposure"):
             assert float(cells[name]) == row[name], (row["policy_id"], name)
+        assert cells["at_minimum"] == str(row["at_minimum"]), row["policy_id"]
 
 
 def test_annual_rating_of_the_first_policy(example):

@@ -20,6 +20,7 @@ from rating_tables import (
     LevelCounts,
     NumericFactor,
     TableError,
+    pure_premium,
     rate,
     rate_file,
     solve_base_rate,
@@ -30,21 +31,25 @@ from _builders import INF, example_book, example_table
 
 
 def test_rater_matches_hand_calculation():
-    """pure = 200 x rel_age x rel_region x rel_bonus x rel_age__region x exposure;
-    gross = max(120, (pure x 1.10 + 30 x exposure) / (1 - 0.15 - 0.05)), rounded to cents."""
+    """rate = 200 x rel_age x rel_region x rel_bonus x rel_age__region (per exposure unit);
+    term = (rate x 1.10 + 30) / (1 - 0.15 - 0.05); gross = max(minimum, term) x exposure, rounded to
+    cents; every money column rounded to cents. Hand figures below (docs/rating-table.md's rule)."""
     rated = rate(example_table(), example_book(), "exposure")
     # P1: age 22 -> [-inf, 25) 1.5; Coast 1.5; bonus 03 1.25; age < 30 and Coast 1.125; exposure 1
-    #     pure = 200 x 1.5 x 1.5 x 1.25 x 1.125 = 632.8125
-    #     gross = (632.8125 x 1.1 + 30) / 0.8 = 726.09375 / 0.8 = 907.6171875 -> 907.62
+    #     rate = 200 x 1.5 x 1.5 x 1.25 x 1.125 = 632.8125 -> pure 632.81
+    #     term = (632.8125 x 1.1 + 30) / 0.8 = 726.09375 / 0.8 = 907.6171875 -> 907.62
     # P2: age 45 -> 1.0; South 0.875; 01 0.75; age >= 30 -> 1.0; exposure 0.5
-    #     pure = 200 x 0.875 x 0.75 x 0.5 = 65.625; gross = (72.1875 + 15) / 0.8 = 108.984375 -> minimum 120
+    #     rate = 131.25, pure 65.625 -> 65.62 (half to even); term (144.375 + 30) / 0.8 = 217.96875
+    #     >= 120, gross 217.96875 x 0.5 = 108.984375 -> 108.98
     # P3: age 70 -> 1.25; North 1.0; 02 1.0; 1.0; pure = 250; gross = (275 + 30) / 0.8 = 381.25
     # P4: age 27 -> 1.0; 'Atlantis' is no level: fallback North 1.0; 02; age < 30, North 1.0; exposure 0.25
-    #     pure = 200 x 0.25 = 50; gross = (55 + 7.5) / 0.8 = 78.125 -> minimum 120
+    #     rate 200, pure 50; term (220 + 30) / 0.8 = 312.5 (312.50000000000006 in double precision,
+    #     the divisor being 0.7999999999999999), gross x 0.25 = 78.12500000000001 -> 78.13
     # P5: age 35 -> 1.0; Coast 1.5; 01 0.75; age >= 30 -> 1.0; exposure 0.1
-    #     pure = 200 x 1.5 x 0.75 x 0.1 = 22.5; gross = (24.75 + 3) / 0.8 = 34.6875 -> minimum 120
-    assert rated["pure_premium"].tolist() == pytest.approx([632.8125, 65.625, 250.0, 50.0, 22.5], rel=1e-12)
-    assert rated["gross_premium"].tolist() == [907.62, 120.0, 381.25, 120.0, 120.0]
+    #     rate 225, pure 22.5; term (247.5 + 30) / 0.8 = 346.875, gross x 0.1 = 34.6875 -> 34.69
+    assert rated["pure_premium"].tolist() == [632.81, 65.62, 250.0, 50.0, 22.5]
+    assert rated["gross_premium"].tolist() == [907.62, 108.98, 381.25, 78.13, 34.69]
+    assert not rated["at_minimum"].any()
     assert rated["rel_age"].tolist() == [1.5, 1.0, 1.25, 1.0, 1.0]
     assert rated["rel_region"].tolist() == [1.5, 0.875, 1.0, 1.0, 1.5]
     assert rated["rel_age__region"].tolist() == [1.125, 1.0, 1.0, 1.0, 1.0]
@@ -59,8 +64,26 @@ def test_rater_matches_hand_calculation():
         "rel_bonus",
         "rel_age__region",
         "pure_premium",
+        "lae_load",
+        "fixed_expense_load",
+        "variable_expense_load",
+        "profit_load",
+        "minimum_premium_adjustment",
         "gross_premium",
+        "at_minimum",
     ]
+
+
+def test_the_minimum_premium_is_per_full_term_and_earned():
+    """With a minimum of 250 per full term, P2's term premium 217.96875 is raised to 250 and earned
+    with its exposure 0.5: gross 125.00, adjustment (250 - 217.96875) x 0.5 = 16.015625 -> 16.02.
+    P5 (term 346.875, exposure 0.1) is above the minimum and keeps 34.69, where the old per-row rule
+    charged it 250 in full."""
+    rated = rate(example_table(minimum_premium=250.0), example_book(), "exposure")
+    assert rated["gross_premium"].tolist() == [907.62, 125.0, 381.25, 78.13, 34.69]
+    assert rated["at_minimum"].tolist() == [False, True, False, False, False]
+    assert rated["minimum_premium_adjustment"].tolist() == [0.0, 16.02, 0.0, 0.0, 0.0]
+    assert (rated["gross_premium"] <= np.maximum(250.0 * rated["exposure"], 1e9 * ~rated["at_minimum"])).all()
 
 
 def test_annual_rates_one_full_term():
@@ -69,7 +92,7 @@ def test_annual_rates_one_full_term():
     # P2: 200 x 0.875 x 0.75 = 131.25; gross (131.25 x 1.1 + 30) / 0.8 = 217.96875 -> 217.97
     # P4: 200; gross (220 + 30) / 0.8 = 312.5.  P5: 200 x 1.5 x 0.75 = 225; its gross 346.875 lies on a
     # half cent, where the rounding depends on the binary value, so only its pure premium is checked.
-    assert rated["pure_premium"].tolist() == pytest.approx([632.8125, 131.25, 250.0, 200.0, 225.0], rel=1e-12)
+    assert rated["pure_premium"].tolist() == [632.81, 131.25, 250.0, 200.0, 225.0]
     assert rated["gross_premium"].tolist()[:4] == [907.62, 217.97, 381.25, 312.5]
 
 
@@ -139,22 +162,24 @@ def test_missing_columns_and_clashes_are_refused():
 
 def test_solve_base_rate_meets_the_target_and_states_the_minimum_premium_effect():
     """The example book's pure premiums sum to 1,020.9375 at base 200; a target of 2,041.875 needs an
-    off-balance factor of exactly 2 (base 400). At base 400 the gross premiums without the minimum are
-    (1265.625 x 1.1 + 30) / 0.8 = 1777.734375, (131.25 x 1.1 + 15) / 0.8 = 199.21875, (500 x 1.1 + 30) / 0.8
-    = 725, (100 x 1.1 + 7.5) / 0.8 = 146.875 and (45 x 1.1 + 3) / 0.8 = 65.625: with a minimum of 150 two
-    policies (P4, P5) are lifted, by 3.125 + 84.375 = 87.5 on about 2,914.45 (effect about +3.0 %)."""
-    table = example_table(minimum_premium=150.0)
+    off-balance factor of exactly 2 (base 400). At base 400 the term premiums (one full term) are
+    (1265.625 x 1.1 + 30) / 0.8 = 1777.734375, (262.5 x 1.1 + 30) / 0.8 = 398.4375, (500 x 1.1 + 30)
+    / 0.8 = 725, (400 x 1.1 + 30) / 0.8 = 587.5 and (450 x 1.1 + 30) / 0.8 = 656.25; earned with the
+    exposures 1, 0.5, 1, 0.25, 0.1 they total 2,914.453125. With a minimum of 600 per full term two
+    rows (P2, P4) are lifted, by (600 - 398.4375) x 0.5 + (600 - 587.5) x 0.25 = 100.78125 + 3.125
+    = 103.90625 (effect about +3.6 %). Hand figures."""
+    table = example_table(minimum_premium=600.0)
     solved, report = solve_base_rate(table, example_book(), "exposure", 2041.875)
     assert report["total_pure_premium_before"] == pytest.approx(1020.9375, rel=1e-12)
     assert report["off_balance_factor"] == pytest.approx(2.0, rel=1e-12)
     assert solved.base_rate == pytest.approx(400.0, rel=1e-12)
-    assert rate(solved, example_book(), "exposure")["pure_premium"].sum() == pytest.approx(2041.875, rel=1e-12)
+    assert pure_premium(solved, example_book(), "exposure").sum() == pytest.approx(2041.875, rel=1e-12)
     assert solved.target == {"basis": "experience", "total_pure_premium": 2041.875}
     minimum = report["minimum_premium"]
-    assert minimum["policies_at_minimum"] == 2
-    assert minimum["gross_without_minimum"] == pytest.approx(2914.45, abs=0.02)
-    assert minimum["gross_with_minimum"] - minimum["gross_without_minimum"] == pytest.approx(87.5, abs=0.02)
-    assert minimum["effect"] == pytest.approx(87.5 / 2914.45, abs=1e-5)
+    assert minimum["rows_at_minimum"] == 2
+    assert minimum["gross_without_minimum"] == pytest.approx(2914.453125, abs=0.02)
+    assert minimum["gross_with_minimum"] - minimum["gross_without_minimum"] == pytest.approx(103.90625, abs=0.02)
+    assert minimum["effect"] == pytest.approx(103.90625 / 2914.453125, abs=1e-5)
     assert "minimum_premium" not in solve_base_rate(example_table(0.0), example_book(), "exposure", 2041.875)[1]
 
 

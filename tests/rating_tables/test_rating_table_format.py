@@ -101,17 +101,20 @@ def test_files_follow_the_contract(saved):
         "format",
         "version",
         "table_id",
+        "stage",
         "effective_date",
         "base_rate",
         "exposure_unit",
+        "book_columns",
         "factors",
         "loadings",
         "rounding",
         "target",
         "provenance",
+        "selections",
         "cautions",
     ]
-    assert meta["format"] == "premiumlab.rating-table" and meta["version"] == 1
+    assert meta["format"] == "premiumlab.rating-table" and meta["version"] == 2
     assert meta["factors"][1] == {
         "name": "region",
         "type": "categorical",
@@ -194,7 +197,8 @@ def test_files_follow_the_contract(saved):
         ),
         ("factors/age__region.csv", "30.0,inf,Coast,1.0\n", "", r"no row for cell \(age=\[30, inf\), region='Coast'\)"),
         ("table.json", '"fallback": "North"', '"fallback": "West"', "fallback level 'West' is not one of"),
-        ("table.json", '"version": 1', '"version": 2', "this reader knows version 1"),
+        ("table.json", '"version": 2', '"version": 3', "this reader knows version 2"),
+        ("table.json", '"version": 2', '"version": 1', "version 1 charged the minimum premium per row"),
         ("table.json", '"format": "premiumlab.rating-table"', '"format": "other"', "key 'format' is 'other'"),
         ("table.json", '"base_rate": 200.0', '"base_rate": "200"', "key 'base_rate' must be a number"),
         ("table.json", '"profit": 0.05', '"profit": 0.9', r"'loadings.variable_expense' \+ 'loadings.profit' = 1.05"),
