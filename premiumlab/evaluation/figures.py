@@ -49,7 +49,7 @@ COMPLEXITY_WORDS = {
 }
 
 
-def target_of(name: str) -> str | None:
+def _target_of(name: str) -> str | None:
     """The target of a model column (`glm_frequency` -> frequency, `gbm_freq_x_sev` -> pure_premium),
     None when the name is not a model column."""
     if name.endswith("_freq_x_sev"):
@@ -58,10 +58,10 @@ def target_of(name: str) -> str | None:
     return target if kind in ("glm", "gbm") and target in TARGET_AXIS else None
 
 
-def model_label(name: str) -> str:
+def _model_label(name: str) -> str:
     """A model column in words: `gbm_pure_premium` -> "boosted model, pure premium"; other names
     as they are."""
-    target = target_of(name)
+    target = _target_of(name)
     if target is None:
         return name
     words = SERIES_WORDS[series_kind(name)]
@@ -69,7 +69,7 @@ def model_label(name: str) -> str:
 
 
 def _common_target(names: Sequence[str]) -> str | None:
-    targets = {target_of(n) for n in names}
+    targets = {_target_of(n) for n in names}
     return targets.pop() if len(targets) == 1 else None
 
 
@@ -118,7 +118,7 @@ def plot_lift(
     for ax, (name, table) in zip(axes, tables.items()):
         ax.plot(table["bin"], table["mean_actual"], "o-", color=ACTUAL_COLOUR, label="actual")
         ax.plot(table["bin"], table["mean_predicted"], "s--", color=series_colour(name), label="predicted")
-        ax.set_title(model_label(name), fontsize=10)
+        ax.set_title(_model_label(name), fontsize=10)
         ax.set_xlabel("bin of the model's prediction (1 = lowest)")
         ax.set_xticks(table["bin"])
         ax.set_ylabel(TARGET_AXIS.get(target or "", "actual and predicted per weight unit"), fontsize=9)
@@ -156,7 +156,7 @@ def plot_double_lift(table: pd.DataFrame, path: str | Path, *, name_a: str, name
     ax = fig.subplots()
     ax.axhline(1.0, color="#999999", linewidth=0.8)
     ax.plot(table["bin"], table["actual_index"], "o-", color=ACTUAL_COLOUR, label="actual")
-    label_a, label_b = model_label(name_a), model_label(name_b)
+    label_a, label_b = _model_label(name_a), _model_label(name_b)
     ax.plot(table["bin"], table["a_index"], "s--", color=series_colour(name_a), label=label_a)
     ax.plot(table["bin"], table["b_index"], "^--", color=series_colour(name_b), label=label_b)
     ax.set_xticks(table["bin"])
@@ -201,7 +201,7 @@ def plot_lorenz(
     ax = fig.subplots()
     ax.plot([0, 1], [0, 1], color="#999999", linewidth=0.8, linestyle=":", label="no ranking")
     for name, curve in curves.items():
-        label = model_label(name)
+        label = _model_label(name)
         label = label if ginis is None or name not in ginis else f"{label} (Gini {ginis[name]:.3f})"
         ax.plot(curve["exposure_share"], curve["loss_share"], color=series_colour(name), label=label)
     target = _common_target(list(curves))
@@ -260,7 +260,7 @@ def plot_actual_vs_expected(
     ax.patch.set_visible(False)
     ax.axhline(1.0, color="#999999", linewidth=0.8)
     for name, table in tables.items():
-        ax.plot(positions, table["actual_to_expected"], "o-", color=series_colour(name), label=model_label(name))
+        ax.plot(positions, table["actual_to_expected"], "o-", color=series_colour(name), label=_model_label(name))
     level_ticks(ax, positions, labels)
     ax.set_xlabel(factor)
     ax.set_ylabel("actual / expected (A/E, 1 = on target)")
@@ -419,8 +419,8 @@ FACTOR_SERIES = {
 
 def plot_factor_chart(
     labels: Sequence[str],
-    exposure: Sequence[float],
-    series: Mapping[str, Sequence[float]],
+    exposure: Sequence[float] | np.ndarray,
+    series: Mapping[str, Sequence[float] | np.ndarray],
     path: str | Path,
     *,
     factor: str,
@@ -433,9 +433,9 @@ def plot_factor_chart(
     ----------
     labels : sequence of str
         The factor's levels or bands, in order.
-    exposure : sequence of float
+    exposure : sequence of float or np.ndarray
         Training exposure per level, in exposure years.
-    series : mapping of str to sequence of float
+    series : mapping of str to sequence of float or np.ndarray
         Per series key of FACTOR_SERIES (`actual`, `glm`, `gbm`, `table`, `current`), one relativity
         per level (NaN where the series has none); drawn in FACTOR_SERIES order in the fixed palette.
     path : str or Path
@@ -472,7 +472,7 @@ def plot_factor_chart(
     level_ticks(ax, positions, [str(label) for label in labels])
     ax.set_xlabel(factor)
     ax.set_ylabel("relativity to the base level (1 = base)")
-    ax.set_title(f"{factor}: observed, models and table, relative to the base level", fontsize=11, pad=26)
-    ax.legend(frameon=False, fontsize=8, loc="lower left", bbox_to_anchor=(0, 1), ncol=min(len(series), 3))
+    ax.legend(frameon=False, fontsize=8, loc="lower left", bbox_to_anchor=(0, 1.01), ncol=min(len(series), 3))
+    fig.suptitle(f"{factor}: observed, models and table, relative to the base level", fontsize=11)
     plain_axes(ax)
     return save_figure(fig, path, caution=caution)

@@ -40,7 +40,7 @@ METRIC_COLUMNS = (
 )
 
 
-def number(value: Any, fmt: str = ".4g") -> str:
+def _number(value: Any, fmt: str = ".4g") -> str:
     """A figure as text in `fmt`; "n/a" for None, NaN or infinity (a figure never shown as nan)."""
     if value is None:
         return "n/a"
@@ -97,7 +97,7 @@ def one_way(
     return sums[0], sums[1], lost
 
 
-def observed_relativity(
+def _observed_relativity(
     exposure: np.ndarray, claims: np.ndarray, losses: np.ndarray | None, labels: list[str], base: str
 ) -> np.ndarray:
     """The observed one-way relativity per level: its loss cost (losses / exposure; claim frequency,
@@ -156,13 +156,13 @@ def glm_rows(model: dict, exposure: dict[str, np.ndarray], labels: dict[str, lis
     return rows
 
 
-def spec_hash(spec: dict) -> str:
+def _spec_hash(spec: dict) -> str:
     """sha256 of the run's spec as canonical JSON (keys sorted, no spaces): the same spec, the same hash."""
     text = json.dumps(spec, sort_keys=True, separators=(",", ":"), ensure_ascii=True)
     return hashlib.sha256(text.encode("utf-8")).hexdigest()
 
 
-def diagnostics_rows(
+def _diagnostics_rows(
     run: Run, comparison: dict | None, fidelity: dict | None, table_name: str | None
 ) -> tuple[list[dict], list[str]]:
     """Every diagnostic of the run, its GLMs, its comparison and the table, once each with the file
@@ -187,7 +187,7 @@ def diagnostics_rows(
     return rows, [name for name, _ in sources]
 
 
-def table_rows(frame: pd.DataFrame) -> dict:
+def _table_rows(frame: pd.DataFrame) -> dict:
     """A factor file as a table to show: its columns as written (an added column shows up as it is)
     and its rows as text; numbers of the relativity columns to three decimals."""
     shown = frame.copy()
@@ -196,7 +196,7 @@ def table_rows(frame: pd.DataFrame) -> dict:
             digits = ".3f" if column in ("relativity", "indicated", "current", "credibility") else ".6g"
             digits = {"exposure": ",.1f", "change": "+.1%", "lower": "g", "upper": "g"}.get(column, digits)
             shown[column] = [
-                "" if pd.isna(v) else "open" if column in ("lower", "upper") and math.isinf(v) else number(v, digits)
+                "" if pd.isna(v) else "open" if column in ("lower", "upper") and math.isinf(v) else _number(v, digits)
                 for v in shown[column]
             ]
         else:
@@ -204,29 +204,29 @@ def table_rows(frame: pd.DataFrame) -> dict:
     return {"columns": list(shown.columns), "rows": shown.to_numpy(dtype=object).tolist()}
 
 
-def lift_words(differences: dict, name: str) -> dict | None:
+def _lift_words(differences: dict, name: str) -> dict | None:
     """One comparison of comparison.json's `differences` in numbers: the deviance reduction and
-    the Gini gain with their bootstrap 95 % intervals, and whether the interval excludes 0."""
+    the Gini gain with their bootstrap 95 % intervals, and whether the deviance interval lies above 0 (`beats_glm`)."""
     d = differences.get(name)
     if d is None:
         return None
     dev, gin = d["deviance_reduction"], d["gini_gain"]
     return {
         "name": name,
-        "deviance": number(dev["estimate"], ".5g"),
-        "deviance_interval": f"[{number(dev['lower'], '.5g')}, {number(dev['upper'], '.5g')}]",
-        "gini": number(gin["estimate"], ".4f"),
-        "gini_interval": f"[{number(gin['lower'], '.4f')}, {number(gin['upper'], '.4f')}]",
-        "clear": dev["lower"] is not None and dev["lower"] > 0,
+        "deviance": _number(dev["estimate"], ".5g"),
+        "deviance_interval": f"[{_number(dev['lower'], '.5g')}, {_number(dev['upper'], '.5g')}]",
+        "gini": _number(gin["estimate"], ".4f"),
+        "gini_interval": f"[{_number(gin['lower'], '.4f')}, {_number(gin['upper'], '.4f')}]",
+        "beats_glm": dev["lower"] is not None and dev["lower"] > 0,
     }
 
 
-def read_fidelity(table: Path | None) -> dict | None:
+def _read_fidelity(table: Path | None) -> dict | None:
     """TABLE/fidelity.json, or None without a table."""
     return None if table is None else read_json(table / FIDELITY_FILE)
 
 
-def model_title(kind: str, target: str) -> str:
+def _model_title(kind: str, target: str) -> str:
     """A model in words: ("gbm", "pure_premium") -> "boosted model, pure premium"."""
     words = {"glm": "GLM", "gbm": "boosted model"}[kind]
     return f"{words}, {TARGET_WORDS.get(target, target)} ({model_name(kind, target)})"
@@ -328,7 +328,7 @@ def factor_views(run: Run, table: Any | None, current: Any | None) -> list[Facto
         code = np.where(train, level_codes, -1)
         e, c, loss = one_way(code, len(labels), exposure, claims, losses)
         view = FactorView(name, labels, lv.base, e, c, loss)
-        view.series["actual"] = observed_relativity(e, c, loss, labels, lv.base)
+        view.series["actual"] = _observed_relativity(e, c, loss, labels, lv.base)
         if glm is not None and name in glm["relativities"]:
             view.series["glm"] = np.array([float(glm["relativities"][name].get(label, 1.0)) for label in labels])
         views.append(view)
@@ -372,10 +372,10 @@ def _holdout_section(run: Run, comparison: dict | None) -> dict:
     for target, block in comparison["metrics"].items():
         if "null" in block:
             rows.append(
-                [TARGET_WORDS[target], "null model (constant rate)", number(block["null"]["mean_deviance"], ".6g")]
+                [TARGET_WORDS[target], "null model (constant rate)", _number(block["null"]["mean_deviance"], ".6g")]
             )
         for name, m in block["models"].items():
-            rows.append([TARGET_WORDS[target], name] + [number(m.get(k), f) for k, _, f in METRIC_COLUMNS])
+            rows.append([TARGET_WORDS[target], name] + [_number(m.get(k), f) for k, _, f in METRIC_COLUMNS])
     preds = fitted_basis(run.predictions())
     hold = preds[preds["holdout"]].reset_index(drop=True)
     lorenz = {}
@@ -388,7 +388,7 @@ def _holdout_section(run: Run, comparison: dict | None) -> dict:
         "absent": None,
         "header": ["target", "model"] + [h for _, h, _ in METRIC_COLUMNS],
         "rows": rows,
-        "differences": [lift_words(comparison["differences"], n) for n in comparison["differences"]],
+        "differences": [_lift_words(comparison["differences"], n) for n in comparison["differences"]],
         "lorenz": lorenz,
         "ginis": {t: {c: m["gini"] for c, m in b["models"].items()} for t, b in comparison["metrics"].items()},
         "holdout_rows": comparison["holdout_rows"],
@@ -410,13 +410,13 @@ def _boosted_section(run: Run) -> list[dict]:
         out.append(
             {
                 "target": target,
-                "title": model_title("gbm", target),
+                "title": _model_title("gbm", target),
                 "cv": cv,
                 "chosen": chosen,
                 "setting": json.dumps(cv["setting"].iloc[chosen], sort_keys=True) if not cv.empty else "n/a",
                 "rounds": meta["best_rounds"],
                 "importance": sorted(
-                    zip(meta["feature_names"], (number(s, ".3f") for s in share), strict=True),
+                    zip(meta["feature_names"], (_number(s, ".3f") for s in share), strict=True),
                     key=lambda pair: -float(pair[1]),
                 ),
             }
@@ -453,8 +453,8 @@ def report_context(
     comparison = read_json(run.files.comparison) if run.files.comparison.exists() else None
     table = None if table_dir is None else rating_tables.load(table_dir)
     current = None if current_dir is None else rating_tables.load(current_dir)
-    fidelity = read_fidelity(table_dir)
-    diagnostics, looked = diagnostics_rows(run, comparison, fidelity, None if table_dir is None else table_dir.name)
+    fidelity = _read_fidelity(table_dir)
+    diagnostics, looked = _diagnostics_rows(run, comparison, fidelity, None if table_dir is None else table_dir.name)
     views = factor_views(run, table, current)
     glm_sections = []
     exposure = {v.name: v.exposure for v in views}
@@ -463,11 +463,11 @@ def report_context(
         m = run.model_json("glm", target)
         glm_sections.append(
             {
-                "title": model_title("glm", target),
+                "title": _model_title("glm", target),
                 "family": m["family"],
                 "power": m.get("power"),
-                "fit": f"deviance {number(m['deviance'], '.6g')} on {m['df_resid']} residual degrees of freedom; "
-                f"null deviance {number(m['null_deviance'], '.6g')}; AIC {number(m['aic'], '.6g')}",
+                "fit": f"deviance {_number(m['deviance'], '.6g')} on {m['df_resid']} residual degrees of freedom; "
+                f"null deviance {_number(m['null_deviance'], '.6g')}; AIC {_number(m['aic'], '.6g')}",
                 "rows": glm_rows(m, exposure, labels),
                 "power_profile": m.get("power_profile") or [],
                 "notes": m.get("notes", []),
@@ -478,7 +478,7 @@ def report_context(
     headline = (
         None
         if comparison is None or main is None
-        else lift_words(comparison["differences"], f"gbm_{main} vs glm_{main}")
+        else _lift_words(comparison["differences"], f"gbm_{main} vs glm_{main}")
     )
     interactions = read_json(run.files.interactions) if run.files.interactions.is_file() else None
     total_exposure = float(sum(v.exposure.sum() for v in views[:1]))
@@ -494,7 +494,7 @@ def report_context(
             "models": manifest["models"],
             "targets": [TARGET_WORDS[t] for t in run.files.model_targets(manifest["models"][0])],
             "factors": [v.name for v in views],
-            "exposure": number(total_exposure, ",.1f"),
+            "exposure": _number(total_exposure, ",.1f"),
             "headline": headline,
             "main_target": None if main is None else TARGET_WORDS[main],
             "table_id": None if table is None else table.table_id,
@@ -503,9 +503,9 @@ def report_context(
             "table_models": None if fidelity is None else fidelity.get("fidelity", {}).get("models"),
         },
         "book": {
-            "exposure": number(total_exposure, ",.1f"),
-            "claims": number(float(views[0].claims.sum()), ",.0f") if views else "n/a",
-            "losses": number(float(views[0].losses.sum()), ",.0f") if views and views[0].losses is not None else None,
+            "exposure": _number(total_exposure, ",.1f"),
+            "claims": _number(float(views[0].claims.sum()), ",.0f") if views else "n/a",
+            "losses": _number(float(views[0].losses.sum()), ",.0f") if views and views[0].losses is not None else None,
             "sha256": manifest["book"]["sha256"],
             "warnings": manifest["warnings"],
             "factors": [_one_way_rows(v) for v in views],
@@ -526,7 +526,7 @@ def report_context(
         "selections": {"absent": "No selections are recorded in the table: selected equals indicated, rounded."},
         "provenance": {
             "versions": manifest["versions"],
-            "spec_sha256": spec_hash(spec),
+            "spec_sha256": _spec_hash(spec),
             "book_sha256": manifest["book"]["sha256"],
             "seed": manifest["seed"],
             "table_id": None if table is None else table.table_id,
@@ -544,11 +544,11 @@ def _one_way_rows(view: FactorView) -> dict:
         rows.append(
             [
                 label + (" (base)" if label == view.base else ""),
-                number(e, ",.1f"),
-                number(view.claims[k], ",.0f"),
-                number(view.claims[k] / e if e > 0 else None, ".4f"),
-                "" if view.losses is None else number(view.losses[k] / e if e > 0 else None, ",.2f"),
-                number(view.series["actual"][k], ".3f"),
+                _number(e, ",.1f"),
+                _number(view.claims[k], ",.0f"),
+                _number(view.claims[k] / e if e > 0 else None, ".4f"),
+                "" if view.losses is None else _number(view.losses[k] / e if e > 0 else None, ",.2f"),
+                _number(view.series["actual"][k], ".3f"),
             ]
         )
     return {"name": view.name, "rows": rows}
@@ -567,7 +567,7 @@ def _table_section(table_dir: Path | None, table: Any, current: Any, fidelity: d
             if old is not None:
                 if "level" in frame.columns:
                     keys = [None if pd.isna(v) else str(v) for v in frame["level"]]
-                    reps = [None] * len(keys)
+                    reps: list[float | None] = [None] * len(keys)
                 else:
                     keys = ["(missing)" if pd.isna(lo) else "" for lo in frame["lower"]]
                     reps = [_inside(lo, up) for lo, up in zip(frame["lower"], frame["upper"], strict=True)]
@@ -575,16 +575,16 @@ def _table_section(table_dir: Path | None, table: Any, current: Any, fidelity: d
                     _table_value(old, k if k is not None else "(missing)", r) for k, r in zip(keys, reps, strict=True)
                 ]
                 frame["change"] = frame["relativity"] / frame["current"] - 1
-        factors.append({"name": factor.name} | table_rows(frame))
+        factors.append({"name": factor.name} | _table_rows(frame))
     return {
         "absent": None,
         "table_id": table.table_id,
         "effective_date": table.effective_date,
-        "base_rate": number(table.base_rate, ",.2f"),
+        "base_rate": _number(table.base_rate, ",.2f"),
         "exposure_unit": table.exposure_unit,
-        "loadings": {k: number(v, ".4g") for k, v in vars(table.loadings).items()},
+        "loadings": {k: _number(v, ".4g") for k, v in vars(table.loadings).items()},
         "current_id": None if current is None else current.table_id,
-        "current_base_rate": None if current is None else number(current.base_rate, ",.2f"),
+        "current_base_rate": None if current is None else _number(current.base_rate, ",.2f"),
         "factors": factors,
         "rate_level": None if fidelity is None else fidelity.get("rate_level"),
     }
