@@ -463,15 +463,31 @@ def tails(
     return threshold_aid(book, spec, threshold, figure=figure, force=force)
 
 
-def report(run: str | Path, *, table: str | Path | None = None) -> ReportResult:
-    """Write RUN/report.html: one file with the warnings, comparison, figures, GLM tables and cautions.
+def report(
+    run: str | Path,
+    *,
+    table: str | Path | None = None,
+    current: str | Path | None = None,
+    book: str | Path | None = None,
+    out: str | Path | None = None,
+    force: bool = False,
+) -> ReportResult:
+    """Write one self-contained HTML report reviewing a run and its rating table.
 
     Parameters
     ----------
     run : str or Path
-        Run directory written by `fit` (run `compare` first for the figures and intervals).
+        Run directory written by `fit` (run `compare` first for the holdout section).
     table : str or Path or None
-        A rating table made from the run, whose fidelity.json diagnostics the report lists too.
+        A rating table made from the run: its factors, fidelity, audit and bands in the charts.
+    current : str or Path or None
+        The current rating table: current relativities and the change per band or level.
+    book : str or Path or None
+        A book for the impact section (named in it; the impact is not computed yet).
+    out : str or Path or None
+        HTML file to write; None for RUN/report.html.
+    force : bool
+        Replace an existing file.
 
     Returns
     -------
@@ -480,7 +496,7 @@ def report(run: str | Path, *, table: str | Path | None = None) -> ReportResult:
     """
     from premiumlab.review.report import write_report
 
-    return ReportResult(report=write_report(run, table=table))
+    return ReportResult(report=write_report(run, table, current=current, book=book, out=out, force=force))
 
 
 def demo(

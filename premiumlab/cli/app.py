@@ -414,14 +414,16 @@ def tails(
 @handled
 def report(
     run: Annotated[Path, typer.Argument(help="Run directory written by `fit`.")],
-    table: Annotated[
-        Path | None, typer.Option("--table", help="A rating table of the run: list its diagnostics too.")
-    ] = None,
+    table: Annotated[Path | None, typer.Option("--table", help="A rating table made from the run.")] = None,
+    current: Annotated[Path | None, typer.Option("--current", help="The current rating table.")] = None,
+    book: Annotated[Path | None, typer.Option("--book", help="A book for the impact section.")] = None,
+    out: Annotated[Path | None, typer.Option("--out", help="HTML file to write (default RUN/report.html).")] = None,
+    force: Force = False,
 ) -> None:
-    """Write RUN/report.html: one file with the warnings, comparison, figures, GLM tables and cautions."""
+    """Write one self-contained HTML report reviewing a run and its rating table."""
     from premiumlab import api
 
-    typer.echo(f"wrote {api.report(run, table=table).report}")
+    typer.echo(f"wrote {api.report(run, table=table, current=current, book=book, out=out, force=force).report}")
 
 
 @app.command()

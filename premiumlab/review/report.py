@@ -1,190 +1,190 @@
-"""`report`: one self-contained HTML file (figures embedded) summarising a run and its comparison,
-its warnings first."""
+"""`report`: one self-contained HTML file reviewing a run (and its rating table), rendered from
+Jinja2 templates (premiumlab/review/templates/, autoescaped) with figures drawn for it.
+
+The numbers come from `premiumlab.review.report_context`; this module draws the report's own
+figures into a temporary folder of its own (PNG, no caution footer: the report states the cautions
+once at its top), embeds them as base64 data, renders the template and writes the file through
+`atomic_output`, refusing a target that is or lies inside one of the inputs it read.
+"""
 
 from __future__ import annotations
 
 import base64
-import html
+import os
+import stat
+import tempfile
 from pathlib import Path
+from typing import Any
 
-from premiumlab._core.diagnostics import Diagnostic
-from premiumlab._core.jsonio import read_json
-from premiumlab.evaluation.diagnostics import figure_text
-from premiumlab.runs.diagnostics import merge_diagnostics, model_warnings
-from premiumlab.runs.rundir import Run, RunDir, model_name, open_run
+import pandas as pd
 
-#: The figures of each model in the holdout comparison, in column order.
-_METRICS = ("mean_deviance", "d2", "gini", "balance", "deviance_to_null")
-#: The file of a table folder where `tabulate` writes its fidelity and diagnostics.
-FIDELITY_FILE = "fidelity.json"
+from premiumlab._core.errors import InputError
+from premiumlab._core.outputs import atomic_output
+from premiumlab._core.plotting import SERIES_COLOURS, SERIES_WORDS
+from premiumlab.review.report_context import FactorView, report_context
+from premiumlab.runs.rundir import Run, open_run
+
+#: The sections of the report in order: anchor and heading (the table of contents).
+SECTIONS = (
+    ("summary", "Summary"),
+    ("warnings", "Warnings"),
+    ("book", "The book"),
+    ("glms", "GLM baselines"),
+    ("boosted", "Boosted models"),
+    ("holdout", "Holdout comparison"),
+    ("interactions", "Interactions"),
+    ("factors", "Rating factors, one chart each"),
+    ("table", "The rating table"),
+    ("selections", "Selections"),
+    ("audit", "Audit and certificate"),
+    ("impact", "Impact"),
+    ("provenance", "Provenance"),
+)
 
 
-def _table(header: list[str], rows: list[list[str]]) -> str:
-    head = "".join(f"<th>{html.escape(h)}</th>" for h in header)
-    body = "".join("<tr>" + "".join(f"<td>{html.escape(c)}</td>" for c in r) + "</tr>" for r in rows)
-    return f"<table><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>"
+def _embedded(path: Path) -> str:
+    """A PNG this report wrote into its own folder, as a data URI; refused unless a regular file."""
+    info = os.lstat(path)
+    if not stat.S_ISREG(info.st_mode):
+        raise InputError(f"{path}: a report figure is not a regular file")
+    return "data:image/png;base64," + base64.b64encode(path.read_bytes()).decode("ascii")
 
 
-def _figure(path: Path) -> str:
-    data = base64.b64encode(path.read_bytes()).decode("ascii")
-    return (
-        f'<figure><img alt="{html.escape(path.stem)}" src="data:image/png;base64,{data}">'
-        f"<figcaption>{html.escape(path.stem.replace('_', ' '))}</figcaption></figure>"
-    )
+def _draw(context: dict, folder: Path) -> dict[str, Any]:
+    """Draw every figure of the report into `folder`; return their data URIs by key."""
+    from premiumlab.evaluation import figures
 
-
-def _glm_section(files: RunDir) -> str:
-    parts = []
-    for target in files.model_targets("glm"):
-        name = model_name("glm", target)
-        m = read_json(files.model_json("glm", target))
-        rows = [
-            [
-                c["term"],
-                figure_text(c["estimate"], ".4f"),
-                figure_text(c["std_error"], ".4f"),
-                figure_text(c["p_value"], ".3g"),
-            ]
-            for c in m["coefficients"]
-        ]
-        power = "" if m.get("power") is None else f", power {m['power']:.2f}"
-        parts.append(
-            f"<h3>{html.escape(name)} ({html.escape(m['family'])}{power})</h3>"
-            f"<p>deviance {figure_text(m['deviance'], '.6g')} on {m['df_resid']} df; null deviance "
-            f"{figure_text(m['null_deviance'], '.6g')}; AIC {figure_text(m['aic'], '.6g')}</p>"
-            + _table(["term", "estimate", "std. error", "p-value"], rows)
+    out: dict[str, Any] = {"factors": {}, "cv": {}, "lift": {}, "lorenz": {}, "double_lift": {}, "ave": {}}
+    view: FactorView
+    for k, view in enumerate(context["factors"]):
+        path = figures.plot_factor_chart(
+            view.labels, view.exposure, view.series, folder / f"factor_{k}.png", factor=view.name, caution=False
         )
-    return "".join(parts)
+        out["factors"][view.name] = _embedded(path)
+    for k, model in enumerate(context["boosted"]):
+        if model["cv"].empty:
+            continue
+        table = model["cv"].copy()
+        table["leaves_x_rounds"] = table["setting"].map(lambda s: s.get("num_leaves", 31)) * table["rounds"]
+        path = figures.plot_cv_curve(
+            table,
+            folder / f"cv_{k}.png",
+            complexity="leaves_x_rounds",
+            chosen=model["chosen"],
+            target=model["target"],
+            caution=False,
+        )
+        out["cv"][model["target"]] = _embedded(path)
+    comparison, holdout = context["comparison"], context["holdout"]
+    if comparison is None:
+        return out
+    for k, (target, curves) in enumerate(holdout["lorenz"].items()):
+        lifts = {name: pd.DataFrame(t) for name, t in comparison["lift"].get(target, {}).items()}
+        if lifts:
+            out["lift"][target] = _embedded(figures.plot_lift(lifts, folder / f"lift_{k}.png", caution=False))
+        out["lorenz"][target] = _embedded(
+            figures.plot_lorenz(curves, folder / f"lorenz_{k}.png", ginis=holdout["ginis"][target], caution=False)
+        )
+        if target in comparison["double_lift"]:
+            path = figures.plot_double_lift(
+                pd.DataFrame(comparison["double_lift"][target]),
+                folder / f"double_lift_{k}.png",
+                name_a=f"gbm_{target}",
+                name_b=f"glm_{target}",
+                caution=False,
+            )
+            out["double_lift"][target] = _embedded(path)
+    for k, (factor, tables) in enumerate(comparison["actual_vs_expected"].items()):
+        frames = {name: pd.DataFrame(t) for name, t in tables.items()}
+        out["ave"][factor] = _embedded(
+            figures.plot_actual_vs_expected(frames, folder / f"ave_{k}.png", factor=factor, caution=False)
+        )
+    return out
 
 
-def _warnings_section(run: Run, comparison: dict | None, table: Path | None) -> str:
-    """Every diagnostic of the run, its GLMs, its comparison and the table, once each with the file
-    that first lists it; or "None" said explicitly, with what was looked at."""
-    sources: list[tuple[str, list]] = [
-        ("run.json", run.manifest.get("diagnostics", [])),
-        ("models/glm_*.json", model_warnings(run.files)),
-    ]
-    if comparison is not None:
-        sources.append(("comparison.json", comparison.get("diagnostics", [])))
-    if table is not None:
-        sources.append((f"{table.name}/{FIDELITY_FILE}", read_json(table / FIDELITY_FILE).get("diagnostics", [])))
-    first: dict[Diagnostic, str] = {}
-    for name, found in sources:
-        for d in merge_diagnostics(found):
-            first.setdefault(d, name)
-    looked = ", ".join(name for name, _ in sources)
-    missing = "" if comparison is not None else " Run <code>premiumlab compare</code> for the holdout checks."
-    if not first:
-        return f"<h2>Warnings</h2><p><strong>None</strong> in {html.escape(looked)}.{missing}</p>"
-    rows = [[d.kind, d.model, d.factor or "", d.level or "", d.message, where] for d, where in first.items()]
-    return (
-        f'<h2>Warnings</h2><div class="warnings"><p><strong>{len(rows)} warning(s)</strong> that a result '
-        f"is unreliable, from {html.escape(looked)}.{missing}</p>"
-        + _table(["kind", "model", "factor", "level", "message", "file"], rows)
-        + "</div>"
+def render(context: dict, images: dict[str, Any]) -> str:
+    """The report's HTML from the context and the figures' data URIs (Jinja2, autoescaped).
+
+    Parameters
+    ----------
+    context : dict
+        `report_context`'s sections.
+    images : dict
+        Data URIs of the figures by section and key (`_draw`).
+
+    Returns
+    -------
+    str
+        One self-contained HTML page.
+    """
+    from jinja2 import Environment, PackageLoader, StrictUndefined
+
+    env = Environment(
+        loader=PackageLoader("premiumlab.review", "templates"),
+        autoescape=True,
+        undefined=StrictUndefined,
+        trim_blocks=True,
+        lstrip_blocks=True,
     )
+    legend = [(SERIES_WORDS.get(key, key), colour) for key, colour in SERIES_COLOURS.items() if key in SERIES_WORDS]
+    return env.get_template("report.html.j2").render(c=context, images=images, sections=SECTIONS, legend=legend)
 
 
-def write_report(run_dir: str | Path, table: str | Path | None = None) -> Path:
-    """Write RUN/report.html from run.json, metrics and comparison.json (run `compare` first for
-    figures and intervals); returns the path.
+def _inputs(run: Run, table: Path | None, current: Path | None, book: Path | None) -> tuple[Path, ...]:
+    """The files and folders the report reads: the run's own files, its book, the tables."""
+    files = run.files
+    read = [files.manifest, files.levels, files.predictions, files.metrics, files.comparison, files.interactions]
+    read += [files.models, files.certificate]
+    return tuple(p for p in (*read, table, current, book) if p is not None)
 
-    The first section lists every warning that a result is unreliable (`Diagnostic`): run.json's
-    `diagnostics`, the GLM models' `warnings`, comparison.json's `diagnostics` and, with `table`,
-    TABLE/fidelity.json's; each once; or says there is none.
+
+def write_report(
+    run_dir: str | Path,
+    table: str | Path | None = None,
+    *,
+    current: str | Path | None = None,
+    book: str | Path | None = None,
+    out: str | Path | None = None,
+    force: bool = False,
+) -> Path:
+    """Write the review report of a run (docs/commands.md, report); returns its path.
 
     Parameters
     ----------
     run_dir : str or Path
-        A run directory written by `fit`.
+        A run directory written by `fit` (run `compare` first for the holdout section).
     table : str or Path or None
-        A rating table folder made from the run (its fidelity.json is read).
+        A rating table made from the run: its factors, fidelity, audit and bands in the charts.
+    current : str or Path or None
+        The current rating table: current relativities and the change per row of the table.
+    book : str or Path or None
+        A book for the impact section (named; the impact itself is not computed yet).
+    out : str or Path or None
+        The HTML file to write; None for RUN/report.html.
+    force : bool
+        Replace an existing file.
 
     Returns
     -------
     Path
-        RUN/report.html, one self-contained HTML file (figures embedded as base64 PNG).
+        The report written.
 
     Raises
     ------
     InputError
-        Not a run directory, or a table folder without a readable fidelity.json.
+        Not a run directory, an unreadable table, a target that exists without `force`, or a target
+        that is or lies inside an input.
     """
     run = open_run(run_dir)
-    manifest = run.manifest
-    comparison = read_json(run.files.comparison) if run.files.comparison.exists() else None
-    cautions = "".join(f"<li>{html.escape(c)}</li>" for c in manifest["cautions"])
-    sections = [
-        f"<h1>premiumlab run: {html.escape(run.path.name)}</h1>",
-        _warnings_section(run, comparison, None if table is None else Path(table)),
-        f'<div class="caution"><strong>Cautions</strong><ul>{cautions}</ul></div>',
-        "<h2>Book</h2>"
-        + _table(
-            ["rows", "training", "holdout", "book sha256"],
-            [
-                [
-                    str(manifest["rows"]["total"]),
-                    str(manifest["rows"]["train"]),
-                    str(manifest["rows"]["holdout"]),
-                    manifest["book"]["sha256"][:16] + "...",
-                ]
-            ],
-        ),
-    ]
-    if manifest["warnings"]:
-        sections.append(
-            "<h2>Data warnings</h2><ul>" + "".join(f"<li>{html.escape(w)}</li>" for w in manifest["warnings"]) + "</ul>"
-        )
-    if comparison is not None:
-        rows = []
-        for t, block in comparison["metrics"].items():
-            if "null" in block:
-                rows.append([t, "null (constant rate)", figure_text(block["null"]["mean_deviance"], ".6g"), *[""] * 4])
-            rows += [
-                [t, name] + [figure_text(m.get(k), f) for k, f in zip(_METRICS, (".6g", ".4f", ".4f", ".4f", ".4g"))]
-                for name, m in block["models"].items()
-            ]
-        sections.append(
-            "<h2>Holdout comparison</h2><p>The null model is the training rows' constant rate; "
-            "a model above 1 in the last column is worse than it.</p>"
-            + _table(["target", "model", "mean deviance", "D^2", "Gini", "balance", "mean deviance / null"], rows)
-        )
-        diff_rows = [
-            [
-                name,
-                figure_text(d["deviance_reduction"]["estimate"], ".5g"),
-                f"[{figure_text(d['deviance_reduction']['lower'], '.5g')}, "
-                f"{figure_text(d['deviance_reduction']['upper'], '.5g')}]",
-                figure_text(d["gini_gain"]["estimate"], ".4f"),
-                f"[{figure_text(d['gini_gain']['lower'], '.4f')}, {figure_text(d['gini_gain']['upper'], '.4f')}]",
-            ]
-            for name, d in comparison["differences"].items()
-        ]
-        sections.append(
-            "<h3>Differences, paired bootstrap 95 % intervals</h3>"
-            + _table(["comparison", "deviance reduction", "interval", "Gini gain", "interval"], diff_rows)
-        )
-        figs = sorted(run.files.figures.glob("*.png"))
-        sections.append("<h2>Figures</h2>" + "".join(_figure(f) for f in figs))
-    else:
-        sections.append(
-            "<p>Run <code>premiumlab compare</code> on this run for the holdout comparison and its figures.</p>"
-        )
-    sections.append("<h2>GLM baselines</h2>" + _glm_section(run.files))
-    style = (
-        "body{font-family:Georgia,serif;max-width:1000px;margin:2em auto;color:#222}"
-        "table{border-collapse:collapse;margin:0.5em 0 1.5em}td,th{border-bottom:1px solid #ccc;"
-        "padding:3px 10px;text-align:right}th{background:#f1efe8}.caution{border:2px solid #a33;"
-        "padding:0.5em 1em;background:#fbf3f1}figure{display:inline-block;margin:0.5em;width:470px}"
-        "img{width:100%}.warnings{border:2px solid #b60;padding:0.5em 1em;background:#fdf6ec}"
-        ".warnings td{text-align:left}"
-    )
-    page = (
-        f'<!DOCTYPE html><html lang="en"><head><meta charset="utf-8"><title>premiumlab run '
-        f"{html.escape(run.path.name)}</title><style>{style}</style></head><body>"
-        + "".join(sections)
-        + "</body></html>\n"
-    )
-    out = run.files.report
-    out.write_text(page, encoding="utf-8")
-    return out
+    tables = [None if p is None else Path(p) for p in (table, current, book)]
+    target = run.files.report if out is None else Path(out)
+    inputs = _inputs(run, *tables)
+    if target.suffix.lower() not in (".html", ".htm"):
+        raise InputError(f"{target}: the report is an HTML file; name it NAME.html")
+    context = report_context(run, tables[0], tables[1], tables[2])
+    with tempfile.TemporaryDirectory(prefix="premiumlab-report-") as folder:
+        images = _draw(context, Path(folder))
+    page = render(context, images)
+    with atomic_output(target, force=force, kind="file", inputs=inputs) as tmp:
+        tmp.write_text(page, encoding="utf-8")
+    return target
