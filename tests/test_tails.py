@@ -16,7 +16,20 @@ import pytest
 from scipy.stats import genpareto
 
 from premiumlab._core.errors import InputError
-from premiumlab.experience.tails import MIN_EXCEEDANCES, _fit_tail, _mean_excess, _threshold_grid, threshold_aid
+from premiumlab.experience.tails import (
+    BASIS_CLAIMS,
+    MIN_EXCEEDANCES,
+    TABLE_MIN_EXCEEDANCES,
+    _fit_tail,
+    _gpd_covariance,
+    _mean_excess,
+    _profile_interval,
+    _stability_rows,
+    _tail_figure,
+    _threshold_grid,
+    amount_text,
+    threshold_aid,
+)
 
 from _builders import SPEC_TEXT, run_cli, small_book
 
@@ -41,7 +54,9 @@ def test_mean_excess_by_definition_with_ties():
     assert table["mean_excess"].iloc[0] == pytest.approx(2.5) and table["mean_excess"].iloc[1] == pytest.approx(3.0)
     assert np.isnan(table["mean_excess"].iloc[2])
     grid = _threshold_grid(np.arange(100.0))
-    assert grid[0] == 0.0 and (np.arange(100.0) > grid[-1]).sum() >= MIN_EXCEEDANCES
+    assert grid[0] == 0.0 and (np.arange(100.0) > grid[-1]).sum() == TABLE_MIN_EXCEEDANCES
+    k = (np.arange(100.0)[:, None] > grid).sum(axis=0)  # exceedances: spaced evenly in log k (ratios alike)
+    assert k[0] == 99 and np.all(np.diff(k) < 0)
 
 
 def test_fit_above_a_threshold_recovers_the_tail():
@@ -109,7 +124,7 @@ def test_tails_cli_text_figure_and_refusals(tmp_path):
     r = run_cli("tails", str(tmp_path / "book.csv"), "--spec", str(tmp_path / "spec.toml"), "--figure", str(figure))
     assert r.returncode == 0, r.stderr
     losses = book.loc[book["claim_amount"] > 0, "claim_amount"].to_numpy()
-    assert f"losses: {losses.size} (row totals" in r.stdout and "(the 90% quantile)" in r.stdout
+    assert f"losses: {losses.size} (per policy-period row totals)" in r.stdout and "(the 90% quantile)" in r.stdout
     assert figure.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
     again = run_cli("tails", str(tmp_path / "book.csv"), "--spec", str(tmp_path / "spec.toml"), "--figure", str(figure))
     assert again.returncode == 2 and "already exists" in again.stderr
