@@ -445,7 +445,13 @@ def tail_lines(result: TailFit) -> list[str]:
     from premiumlab.experience.tails import DEFAULT_QUANTILE, INTERVAL_LEVEL, amount_text
 
     def number(value: float | None, fmt: str = "", width: int = 0) -> str:
-        text = "n/a" if value is None or not math.isfinite(value) else amount_text(value) if not fmt else format(value, fmt)
+        text = (
+            "n/a"
+            if value is None or not math.isfinite(value)
+            else amount_text(value)
+            if not fmt
+            else format(value, fmt)
+        )
         return text.rjust(width)
 
     quantile = f" (the {DEFAULT_QUANTILE:.0%} quantile)" if result.default_threshold else ""

@@ -238,8 +238,19 @@ def _stability_rows(losses: np.ndarray) -> list[dict]:
 
 
 def amount_text(value: float) -> str:
-    """An amount as text for a label or a table: thousands separators and no exponent
-    (25000 -> "25,000", 1042700.5 -> "1,042,700"; below 100 four significant digits)."""
+    """An amount as text for a label or a table, with thousands separators and no exponent.
+
+    Parameters
+    ----------
+    value : float
+        The amount (money).
+
+    Returns
+    -------
+    str
+        Whole units from 100 up (25000 -> "25,000", 1042700.5 -> "1,042,700"), four significant
+        digits below (6.65 -> "6.65").
+    """
     return f"{value:,.0f}" if abs(value) >= 100 else f"{value:,.4g}"
 
 
@@ -258,9 +269,7 @@ def _amount_axis(ax: Axes, axis: str = "x", log: bool = False) -> None:
             label.set_horizontalalignment("right")
 
 
-def _tail_figure(
-    losses: np.ndarray, fit: ParetoFit, stability: list[dict], basis: str, cap: float | None
-) -> Figure:
+def _tail_figure(losses: np.ndarray, fit: ParetoFit, stability: list[dict], basis: str, cap: float | None) -> Figure:
     """Four panels: the mean-excess plot (at the thresholds of `_plot_grid`) with a band of 1.96
     standard errors and the threshold (and the cap) marked; the empirical survival of the losses
     above the threshold against the fitted generalised Pareto survival (log scales); and the
@@ -289,7 +298,9 @@ def _tail_figure(
     for ax in (mean_ax, shape_ax, scale_ax):
         ax.axvline(fit.threshold, color=MODEL_COLOURS[1], linestyle="--", linewidth=1, label=threshold_label)
     if cap is not None and cap <= float(np.max(losses)):
-        mean_ax.axvline(cap, color=MODEL_COLOURS[2], linestyle=":", linewidth=1, label=f"large_loss_cap {amount_text(cap)}")
+        mean_ax.axvline(
+            cap, color=MODEL_COLOURS[2], linestyle=":", linewidth=1, label=f"large_loss_cap {amount_text(cap)}"
+        )
     mean_ax.set_xlabel(f"threshold u ({per})")
     mean_ax.set_ylabel("mean excess e(u) of the losses above u (money)")
     mean_ax.set_title(f"Mean excess by threshold (down to {TABLE_MIN_EXCEEDANCES} losses above u)")
