@@ -264,7 +264,12 @@ class TailFit(Result):
     beta (money) of F(y) = 1 - (1 + xi y / beta)^(-1 / xi) for the excess y = x - u;
     share_of_losses and share_of_amount above u; basis (what the losses are);
     default_threshold (u was the default quantile); notes; mean_excess (rows of threshold,
-    exceedances, mean excess); cautions.
+    exceedances, mean excess, its standard_error and a mark: "threshold", "large_loss_cap" or "");
+    cautions. Added later, with defaults: shape_se and scale_se (standard errors, inverse expected
+    information); modified_scale beta - xi u (money) and its modified_scale_se; shape_interval
+    (the 95 % profile-likelihood interval of xi, an end None when not found); large_loss_cap (the
+    spec's, money, or None); stability (rows of threshold, exceedances, shape, shape_se,
+    modified_scale, modified_scale_se at a range of thresholds).
     """
 
     threshold: float
@@ -279,6 +284,13 @@ class TailFit(Result):
     notes: tuple[str, ...]
     mean_excess: tuple[dict, ...]
     cautions: tuple[str, ...]
+    shape_se: float = float("nan")
+    scale_se: float = float("nan")
+    modified_scale: float = float("nan")
+    modified_scale_se: float = float("nan")
+    shape_interval: tuple[float | None, float | None] = (None, None)
+    large_loss_cap: float | None = None
+    stability: tuple[dict, ...] = ()
 
 
 @dataclass(frozen=True)

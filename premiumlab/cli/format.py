@@ -473,7 +473,8 @@ def certificate_lines(result: Certificate) -> list[str]:
 
 
 def tail_lines(result: TailFit) -> list[str]:
-    """`tails`: the losses, the fit above the threshold and every tenth row of the mean-excess table.
+    """`tails`: the losses, the fit above the threshold, about ten rows of the mean-excess table and
+    the threshold-stability table.
 
     Parameters
     ----------
@@ -483,25 +484,60 @@ def tail_lines(result: TailFit) -> list[str]:
     Returns
     -------
     list[str]
-        The losses, the threshold (money) with its exceedances and shares, the generalised Pareto
-        shape and scale, about ten rows of the mean-excess table (a step of len // 10 rows, at
-        least 1), and the notes.
+        What the losses are (single claims or row totals), the threshold (money) with its
+        exceedances and shares, the generalised Pareto shape and scale with their standard errors
+        and the shape's profile interval, the modified scale beta - xi u, about ten rows of the
+        mean-excess table (a step of len // 10 rows, at least 1, plus the rows of the threshold and
+        the large-loss cap) with standard errors, the stability table and the notes.
     """
-    from premiumlab.experience.tails import DEFAULT_QUANTILE
+    import math
+
+    from premiumlab.experience.tails import DEFAULT_QUANTILE, INTERVAL_LEVEL, amount_text
+
+    def number(value: float | None, fmt: str = "", width: int = 0) -> str:
+        text = (
+            "n/a"
+            if value is None or not math.isfinite(value)
+            else amount_text(value)
+            if not fmt
+            else format(value, fmt)
+        )
+        return text.rjust(width)
 
     quantile = f" (the {DEFAULT_QUANTILE:.0%} quantile)" if result.default_threshold else ""
+    low, high = result.shape_interval
     lines = [
         f"losses: {result.losses} ({result.basis})",
-        f"threshold {result.threshold:,.6g}{quantile}: "
+        f"threshold {amount_text(result.threshold)}{quantile}: "
         f"{result.exceedances} exceedances, {result.share_of_losses:.2%} of the losses and "
         f"{result.share_of_amount:.2%} of the amount",
-        f"generalised Pareto above it: shape {result.shape:.4f}, scale {result.scale:,.6g}",
+        f"generalised Pareto above it: shape {result.shape:.4f} (standard error {number(result.shape_se, '.4f')}, "
+        f"{INTERVAL_LEVEL:.0%} profile interval {number(low, '.4f')} to {number(high, '.4f')}), "
+        f"scale {amount_text(result.scale)} (standard error {number(result.scale_se)})",
+        f"modified scale beta - shape x threshold: {number(result.modified_scale)} "
+        f"(standard error {number(result.modified_scale_se)})",
         "mean excess by threshold:",
-        f"  {'threshold':>14} {'exceedances':>12} {'mean excess':>14}",
+        f"  {'threshold':>14} {'exceedances':>12} {'mean excess':>14} {'std error':>14}",
     ]
     rows = result.mean_excess
-    for row in rows[:: max(1, len(rows) // 10)]:
-        lines.append(f"  {row['threshold']:>14,.6g} {row['exceedances']:>12d} {row['mean_excess']:>14,.6g}")
+    step = max(1, len(rows) // 10)
+    for i, row in enumerate(rows):
+        if i % step == 0 or i == len(rows) - 1 or row.get("mark"):
+            lines.append(
+                f"  {number(row['threshold'], width=14)} {row['exceedances']:>12d} {number(row['mean_excess'], width=14)} "
+                f"{number(row.get('standard_error'), width=14)}" + (f"  <- {row['mark']}" if row.get("mark") else "")
+            )
+    if result.stability:
+        lines += [
+            "shape by threshold (above a threshold that suits, shape and modified scale stay level):",
+            f"  {'threshold':>14} {'exceedances':>12} {'shape':>8} {'std error':>9} {'modified scale':>15} {'std error':>12}",
+        ]
+        for row in result.stability:
+            lines.append(
+                f"  {number(row['threshold'], width=14)} {row['exceedances']:>12d} {number(row['shape'], '.4f', 8)} "
+                f"{number(row['shape_se'], '.4f', 9)} {number(row['modified_scale'], width=15)} "
+                f"{number(row['modified_scale_se'], width=12)}"
+            )
     return lines + [f"note: {n}" for n in result.notes]
 
 

