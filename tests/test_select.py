@@ -242,3 +242,17 @@ def test_credibility_smoothing_cap_and_rounding_by_hand():
     assert capped(np.array([1.3, 0.5, 1.05]), np.ones(3), 0.10).tolist() == pytest.approx([1.1, 0.9, 1.05])
     held = rounded_within(np.array([1.10049, 1.10051, 0.5]), np.array([0.0, 0.0, 0.9]), np.array([1.1, 1.1, 1.1]), 3)
     assert held.tolist() == [1.1, 1.1, 0.9]
+
+
+def test_a_selection_that_breaks_a_promise_is_named_by_select_and_by_audit(demo_run, tmp_path):
+    """The spec promises bonus_class increasing; an override of B3 to 0.5 breaks it: select lists the
+    violation with the selections on bonus_class, and `audit --spec` names them too (exit 1)."""
+    text = "[[factor.bonus_class.override]]\nlevel = 'B3'\nrelativity = 0.5\nreason = 'A test of the audit.'\n"
+    r, out = _select(demo_run, tmp_path, text)
+    assert r.returncode == 0, r.stderr
+    fid = json.loads((out / "fidelity.json").read_text())
+    (broken,) = [v for v in fid["audit"]["violations"] if v["factor"] == "bonus_class"]
+    assert broken["selections"] == ["override B3"]
+    audit = run_cli("audit", str(out), "--spec", str(demo_run["spec"]))
+    assert audit.returncode == 1
+    assert "(selections on 'bonus_class': override B3)" in audit.stdout

@@ -26,6 +26,7 @@ SERIES_COLOURS = {
     "gbm_freq_x_sev": "#a08a2a",
     "table": "#4d8c3a",
     "current": "#3a8f8f",
+    "tail_fit": "#8c2d5a",
     "other": "#888888",
 }
 ACTUAL_COLOUR = SERIES_COLOURS["actual"]
@@ -39,6 +40,7 @@ SERIES_WORDS = {
     "gbm_freq_x_sev": "boosted frequency x severity",
     "table": "rating table",
     "current": "current table",
+    "tail_fit": "generalised Pareto fit",
 }
 
 

@@ -4,6 +4,7 @@ re-checked from their text files alone."""
 from __future__ import annotations
 
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from premiumlab._core.defaults import PLAUSIBLE_RELATIVITY
 from premiumlab._core.diagnostics import Diagnostic
@@ -11,6 +12,9 @@ from premiumlab._core.errors import InputError
 from premiumlab.evaluation.diagnostics import check_bounds
 from premiumlab.results import AuditResult, Certificate
 from rating_tables.monotone import Monotone
+
+if TYPE_CHECKING:
+    from rating_tables import RatingTable, Violation
 
 
 def audit_table(
@@ -68,7 +72,7 @@ def audit_table(
         found = [str(v) for v in rating_tables.audit_path(table_dir, promises=promises, bounds=limits)]
         flat = []
     else:
-        found = [str(v) for v in rating_tables.audit(table, promises=promises, bounds=limits)]
+        found = [_with_selections(v, table) for v in rating_tables.audit(table, promises=promises, bounds=limits)]
         flat = rating_tables.flattened(table, promises=promises)
     if run_dir is not None:
         found += _certificate_violations(run_dir)
@@ -81,6 +85,14 @@ def audit_table(
         bounds=checked,
         cautions=(DRAFT,),
     )
+
+
+def _with_selections(violation: Violation, table: RatingTable) -> str:
+    """The violation as one line; on a selected table, with the selections made on its factor
+    (an indicated table's relativities are the model's, a selected table's may break a promise
+    the model kept)."""
+    made = [s["rule"] for s in table.selections if s["factor"] == violation.factor]
+    return str(violation) + (f" (selections on '{violation.factor}': {', '.join(made)})" if made else "")
 
 
 def _certificate_violations(run_dir: str | Path) -> list[str]:

@@ -276,7 +276,7 @@ def _tail_figure(losses: np.ndarray, fit: ParetoFit, stability: list[dict], basi
     shape and the modified scale by threshold with bars of 1.96 standard errors."""
     from scipy.stats import genpareto
 
-    from premiumlab._core.plotting import MODEL_COLOURS, new_figure, plain_axes
+    from premiumlab._core.plotting import SERIES_COLOURS, new_figure, plain_axes
 
     per = "money per claim" if basis.startswith(BASIS_CLAIMS) else "money per policy-period row"
     table = _mean_excess(losses, _plot_grid(losses))
@@ -288,18 +288,20 @@ def _tail_figure(losses: np.ndarray, fit: ParetoFit, stability: list[dict], basi
         table["threshold"],
         table["mean_excess"] - band,
         table["mean_excess"] + band,
-        color=MODEL_COLOURS[0],
+        color=SERIES_COLOURS["actual"],
         alpha=0.18,
         linewidth=0,
         label="± 1.96 standard errors",
     )
-    mean_ax.plot(table["threshold"], table["mean_excess"], color=MODEL_COLOURS[0], linewidth=1, label="mean excess")
+    mean_ax.plot(
+        table["threshold"], table["mean_excess"], color=SERIES_COLOURS["actual"], linewidth=1, label="mean excess"
+    )
     threshold_label = f"threshold {amount_text(fit.threshold)}"
     for ax in (mean_ax, shape_ax, scale_ax):
-        ax.axvline(fit.threshold, color=MODEL_COLOURS[1], linestyle="--", linewidth=1, label=threshold_label)
+        ax.axvline(fit.threshold, color=SERIES_COLOURS["tail_fit"], linestyle="--", linewidth=1, label=threshold_label)
     if cap is not None and cap <= float(np.max(losses)):
         mean_ax.axvline(
-            cap, color=MODEL_COLOURS[2], linestyle=":", linewidth=1, label=f"large_loss_cap {amount_text(cap)}"
+            cap, color=SERIES_COLOURS["other"], linestyle=":", linewidth=1, label=f"large_loss_cap {amount_text(cap)}"
         )
     mean_ax.set_xlabel(f"threshold u ({per})")
     mean_ax.set_ylabel("mean excess e(u) of the losses above u (money)")
@@ -313,7 +315,7 @@ def _tail_figure(losses: np.ndarray, fit: ParetoFit, stability: list[dict], basi
     tail_ax.loglog(
         grid + fit.threshold,
         genpareto.sf(grid, fit.shape, scale=fit.scale),
-        color=MODEL_COLOURS[1],
+        color=SERIES_COLOURS["tail_fit"],
         label=f"generalised Pareto: shape {fit.shape:.3f}, scale {amount_text(fit.scale)}",
     )
     tail_ax.set_xlabel(f"loss ({per})")
@@ -328,7 +330,7 @@ def _tail_figure(losses: np.ndarray, fit: ParetoFit, stability: list[dict], basi
     ):
         value = np.array([row[key] for row in stability], dtype=float)
         se = np.array([row[f"{key}_se"] for row in stability], dtype=float)
-        ax.errorbar(u, value, yerr=1.96 * se, marker="o", color=MODEL_COLOURS[0], linewidth=1, capsize=3)
+        ax.errorbar(u, value, yerr=1.96 * se, marker="o", color=SERIES_COLOURS["actual"], linewidth=1, capsize=3)
         ax.set_xlabel(f"threshold u ({per})")
         ax.set_ylabel(label)
         ax.set_title(f"{key.replace('_', ' ').capitalize()} by threshold (± 1.96 standard errors)")

@@ -295,8 +295,10 @@ def _boosted_effects(run: Run, book: Any, train: np.ndarray, views: list[FactorV
 def factor_views(run: Run, table: Any | None, current: Any | None) -> list[FactorView]:
     """Per rating factor of the run (levels.json order): training exposure, claims and losses per
     level and the series observed one-way, GLM relativity (pure premium, else frequency), boosted
-    effect, and the table's and current table's relativity at the level (numeric factors: at the
-    band's exposure-weighted mean training value).
+    effect, and the table's and current table's effect at the level: the exposure-weighted
+    geometric mean over the level's training rows of the factor's main relativity times its
+    two-way relativities (`tabulation.row_effects`), so tables that split an effect differently
+    between main and two-way relativities draw the same line.
 
     Parameters
     ----------
@@ -310,6 +312,9 @@ def factor_views(run: Run, table: Any | None, current: Any | None) -> list[Facto
     list of FactorView
     """
     from premiumlab.book.levels import categorise
+    from premiumlab.tabulation.from_run import rating_frame
+    from premiumlab.tabulation.row_effects import factor_effects
+    from premiumlab.tabulation.selection import banded_relativity
 
     book = run.load_book()
     preds = run.predictions()
@@ -333,16 +338,19 @@ def factor_views(run: Run, table: Any | None, current: Any | None) -> list[Facto
             view.series["glm"] = np.array([float(glm["relativities"][name].get(label, 1.0)) for label in labels])
         views.append(view)
     _boosted_effects(run, book, train, views, codes)
+    rows = np.flatnonzero(train)
     for which, rating in (("table", table), ("current", current)):
         if rating is None:
             continue
-        by_name = {f.name: f for f in rating.factors}
+        effects = factor_effects(rating, rating_frame(book, run.spec, rows), run.spec.columns.exposure)
         for view in views:
-            factor = by_name.get(view.name)
-            if factor is None:
+            if view.name not in effects:
                 continue
-            reps = _representatives(book.frame[view.name].to_numpy(), codes[view.name].to_numpy(), exposure, train)
-            values = np.array([_table_value(factor, label, reps.get(k)) for k, label in enumerate(view.labels)])
+            level = codes[view.name].to_numpy()[rows]
+            known = level >= 0
+            values, _ = banded_relativity(
+                level[known], np.log(effects[view.name][known]), exposure[rows][known], len(view.labels)
+            )
             view.series[which] = _relative(values, view.labels, view.base)
     return views
 

@@ -39,6 +39,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from premiumlab._core.errors import InputError
+from premiumlab.tabulation.row_effects import two_way_products
 from premiumlab.tabulation.selection import (
     banded_relativity,
     capped,
@@ -464,9 +465,9 @@ def select(
         exposure=loaded.exposure[train],
         values=values,
         indicated=indicated_rels,
-        indicated_two_way=_two_way_products(indicated, indicated_rels),
+        indicated_two_way=two_way_products(indicated, indicated_rels),
         current=current_rels,
-        current_two_way={} if current_table is None else _two_way_products(current_table, current_rels),
+        current_two_way={} if current_table is None else two_way_products(current_table, current_rels),
     )
     spec_edges = {f.name: f.bands for f in spec.factors}
 
@@ -624,15 +625,6 @@ def _numeric(frame: pd.DataFrame, name: str) -> np.ndarray:
     import pandas as pd
 
     return pd.to_numeric(frame[name], errors="coerce").to_numpy(dtype=float)
-
-
-def _two_way_products(table: RatingTable, rels: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
-    """Per main factor in a two-way table, each row's product of the table's two-way relativities on it."""
-    out: dict[str, np.ndarray] = {}
-    for t in table.interactions:
-        for side in t.of:
-            out[side] = out.get(side, 1.0) * rels[f"rel_{t.name}"]
-    return out
 
 
 def _rel_columns(rated: pd.DataFrame) -> dict[str, np.ndarray]:

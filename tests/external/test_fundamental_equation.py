@@ -54,9 +54,14 @@ def test_the_premium_balances_the_fundamental_equation():
     assert 270.0 / premium == pytest.approx(1 - VARIABLE - PROFIT - FIXED / premium, rel=1e-12)
 
 
-def test_fixed_expense_scales_with_exposure_and_the_minimum_applies_per_policy():
+def test_fixed_expense_scales_with_exposure_and_the_minimum_applies_per_full_term():
     """Half a year: (125 x 1.08 + 40 x 0.5) / 0.8 = (135 + 20) / 0.8 = 193.75, one tenth of a year:
-    (25 x 1.08 + 4) / 0.8 = 38.75, which a minimum premium of 50.00 lifts to 50.00."""
+    (25 x 1.08 + 4) / 0.8 = 38.75. A minimum premium is an amount per full term (docs/rating-table.md):
+    50.00 does not lift the full-term premium 387.50, so neither row moves; 400.00 does, and each row
+    is charged it earned with its exposure, 200.00 and 40.00."""
     book = pd.DataFrame({"cover": ["standard", "standard"], "exposure": [0.5, 0.1]})
     gross = rate(_table(minimum_premium=50.0), book, "exposure")["gross_premium"].to_numpy()
-    np.testing.assert_allclose(gross, [193.75, 50.0], atol=0.005)
+    np.testing.assert_allclose(gross, [193.75, 38.75], atol=0.005)
+    lifted = rate(_table(minimum_premium=400.0), book, "exposure")
+    np.testing.assert_allclose(lifted["gross_premium"], [200.0, 40.0], atol=0.005)
+    assert lifted["at_minimum"].tolist() == [True, True]
