@@ -145,7 +145,7 @@ def test_report_renders_offline_in_chromium(report, tmp_path):
     assert violations == []
     assert overflow == []
     assert HOSTILE in texts and "$x$" in texts and scripts == 0
-    assert title_ok.startswith("Review of run")
+    assert title_ok.startswith("Pricing review of run")
 
 
 def test_chromium_takes_a_screenshot(report, tmp_path):

@@ -256,3 +256,39 @@ def test_a_selection_that_breaks_a_promise_is_named_by_select_and_by_audit(demo_
     audit = run_cli("audit", str(out), "--spec", str(demo_run["spec"]))
     assert audit.returncode == 1
     assert "(selections on 'bonus_class': override B3)" in audit.stdout
+
+
+def test_the_report_shows_the_selections_and_the_impact(demo_run, capped_table, tmp_path):
+    """`report --table SELECTED --current GLM --book BOOK`: the selections section lists every rule
+    with its reason and the base-rate correction; the impact section's overall change is the one
+    `premiumlab impact` computes for the same tables and book."""
+    out = tmp_path / "review.html"
+    r = run_cli(
+        "report",
+        str(demo_run["run"]),
+        "--table",
+        str(capped_table["out"]),
+        "--current",
+        str(demo_run["glm_table"]),
+        "--book",
+        str(demo_run["book"]),
+        "--out",
+        str(out),
+    )
+    assert r.returncode == 0, r.stderr
+    page = out.read_text()
+    assert "Selections made on the indicated table" in page
+    assert "Hold every band&#39;s change within 10 % of the table in force." in page
+    impact = run_cli(
+        "impact",
+        str(demo_run["book"]),
+        "--current",
+        str(demo_run["glm_table"]),
+        "--proposed",
+        str(capped_table["out"]),
+        "--out",
+        str(tmp_path / "impact.json"),
+    )
+    assert impact.returncode == 0, impact.stderr
+    change = json.loads((tmp_path / "impact.json").read_text())["overall_change"]
+    assert f"<strong>{change:+.2%}</strong>" in page

@@ -221,6 +221,81 @@ def _lift_words(differences: dict, name: str) -> dict | None:
     }
 
 
+#: The format of a selected table's fidelity.json (`premiumlab select`).
+SELECTED_FORMAT = "premiumlab.selected-fidelity"
+
+
+def _selections_section(table: Any, selected: dict | None) -> dict:
+    """The selections of a selected table: each rule with what it changed, its off-balance and
+    reason; the base-rate correction; the audit of the promises; the holdout fidelity of the
+    selected and the indicated table."""
+    if table is None:
+        return {"absent": "a rating table (`report --table TABLE`)."}
+    if table.stage != "selected" or selected is None:
+        return {"note": "The table is indicated: its relativities are the model's, rounded; no selections were made."}
+    rows = [
+        [
+            s["factor"],
+            s["rule"],
+            ", ".join(s["applies_to"][:6])
+            + (f" and {len(s['applies_to']) - 6} more" if len(s["applies_to"]) > 6 else ""),
+            f"{s['off_balance']:+.3%}",
+            s["reason"],
+        ]
+        for s in table.selections
+    ]
+    level, fid = selected["rate_level"], selected["fidelity"]
+    return {
+        "header": ["factor", "rule", "bands or levels changed", "off-balance", "reason"],
+        "rows": rows,
+        "off_balance": f"{level['off_balance']:+.3%}",
+        "rounding": f"{level['rounding_off_balance']:+.3%}",
+        "base_rate": f"{level['indicated_base_rate']:,.4f} -> {level['base_rate']:,.4f}",
+        "indicated_id": selected["indicated_table_id"],
+        "current_id": selected["current_table_id"],
+        "violations": [
+            f"{v['violation']} (selections: {', '.join(v['selections']) or 'none'})"
+            for v in selected["audit"]["violations"]
+        ],
+        "promises": ", ".join(f"{k} {v}" for k, v in selected["audit"]["promises"].items()) or "none",
+        "fidelity": [
+            [name, _number(fid[name]["mean_deviance"], ".6g"), _number(fid[name]["gini"], ".4f")]
+            for name in ("selected", "indicated")
+        ],
+        "notes": selected["notes"],
+    }
+
+
+def _impact_section(table_dir: Path | None, current_dir: Path | None, book: Path | None) -> dict:
+    """The premium dislocation of moving `book` from the current to the reviewed table
+    (`premiumlab impact`): totals, change bands, the largest increases by policy."""
+    if table_dir is None or current_dir is None or book is None:
+        return {"absent": "the impact needs `--table`, `--current` and `--book` (or run `premiumlab impact`)."}
+    from premiumlab.apply.impact import dislocation
+
+    result = dislocation(str(current_dir), str(table_dir), book, None, False, None, (0.05, 0.10, 0.25))
+    return {
+        "book": book.name,
+        "rows": f"{result.rows:,}",
+        "policies": f"{result.policies:,}",
+        "total_current": _number(result.total_current, ",.2f"),
+        "total_proposed": _number(result.total_proposed, ",.2f"),
+        "overall_change": f"{result.overall_change:+.2%}",
+        "bands": [
+            [b["band"], f"{b['count']:,}", f"{b['count_share']:.1%}", f"{b['premium_share']:.1%}"] for b in result.bands
+        ],
+        "largest": [
+            [
+                ", ".join(f"{k} {v}" for k, v in top["id"].items()) or f"row {top['row']}",
+                _number(top["current"], ",.2f"),
+                _number(top["proposed"], ",.2f"),
+                f"{top['change']:+.1%}",
+            ]
+            for top in result.largest_increases
+        ],
+    }
+
+
 def _read_fidelity(table: Path | None) -> dict | None:
     """TABLE/fidelity.json, or None without a table."""
     return None if table is None else read_json(table / FIDELITY_FILE)
@@ -462,6 +537,12 @@ def report_context(
     table = None if table_dir is None else rating_tables.load(table_dir)
     current = None if current_dir is None else rating_tables.load(current_dir)
     fidelity = _read_fidelity(table_dir)
+    selected = fidelity if fidelity is not None and fidelity.get("format") == SELECTED_FORMAT else None
+    if selected is not None:  # a selected table: the source figures are the indicated table's
+        fidelity = {
+            "source": {"model": table.provenance.get("source") if table is not None else None},
+            "fidelity": selected["fidelity"]["indicated_table_fidelity"] or {},
+        }
     diagnostics, looked = _diagnostics_rows(run, comparison, fidelity, None if table_dir is None else table_dir.name)
     views = factor_views(run, table, current)
     glm_sections = []
@@ -493,7 +574,7 @@ def report_context(
     spec = manifest["spec"]
     table_section = _table_section(table_dir, table, current, fidelity)
     return {
-        "title": f"Review of run {run.path.name}",
+        "title": f"Pricing review of run '{run.path.name}'" + ("" if table is None else f", table {table.table_id}"),
         "cautions": list(manifest["cautions"]),
         "diagnostics": diagnostics,
         "looked_at": looked,
@@ -506,6 +587,7 @@ def report_context(
             "headline": headline,
             "main_target": None if main is None else TARGET_WORDS[main],
             "table_id": None if table is None else table.table_id,
+            "measured_table": "it" if selected is None else f"the indicated table {selected['indicated_table_id']}",
             "source": None if fidelity is None else fidelity.get("source", {}).get("model"),
             "retention": None if fidelity is None else fidelity.get("fidelity", {}).get("retention"),
             "table_models": None if fidelity is None else fidelity.get("fidelity", {}).get("models"),
@@ -526,12 +608,8 @@ def report_context(
         "factors": views,
         "table": table_section,
         "audit": _audit_section(run, table_dir),
-        "impact": {
-            "absent": "The impact of the proposed table on a book is not part of this report yet"
-            + ("" if book is None else f" (book {book.name} given)")
-            + ": run `premiumlab impact` for it."
-        },
-        "selections": {"absent": "No selections are recorded in the table: selected equals indicated, rounded."},
+        "impact": _impact_section(table_dir, current_dir, book),
+        "selections": _selections_section(table, selected),
         "provenance": {
             "versions": manifest["versions"],
             "spec_sha256": _spec_hash(spec),
