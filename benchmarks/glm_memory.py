@@ -19,7 +19,9 @@ from pathlib import Path
 
 from glm_step import MOTOR_SPEC
 
-sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))
+import rating_tables  # noqa: F401  (imported before tests/ joins the path, which has a folder of that name)
+
+sys.path.append(str(Path(__file__).resolve().parents[1] / "tests"))
 from test_load import peak_run
 
 FIT = "import sys; from premiumlab.cli.app import app; sys.argv[0] = 'premiumlab'; app()"
