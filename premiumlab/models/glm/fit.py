@@ -629,8 +629,9 @@ def fit_pure_premium(
 ) -> GlmResult:
     """Tweedie GLM of amount / exposure with var_weights exposure, log link.
 
-    ``power="auto"``: profile likelihood over 1.1..1.9 on the rows with the true Tweedie density
-    and the dispersion at its maximum likelihood for each power (see `premiumlab.models.glm.tweedie`);
+    ``power="auto"``: profile likelihood over 1.1..1.9 (bounded Brent search to 0.005, with the
+    95 % profile likelihood interval) on the rows with the true Tweedie density and the dispersion
+    at its maximum likelihood for each power (see `premiumlab.models.glm.tweedie`);
     with the credibility penalty the GLM is refitted, penalty included, at each power tried (each
     fit starting from the last).
 
@@ -652,7 +653,8 @@ def fit_pure_premium(
     -------
     GlmResult
         Coefficients, relativities and row-level statistics at the chosen power; with "auto" also
-        the profile (`power_profile`: power, log-likelihood, dispersion) and a note on the choice.
+        the profile (`power_profile`: power, log-likelihood, dispersion), the interval
+        (`power_interval`) and a note on the choice.
 
     Raises
     ------
