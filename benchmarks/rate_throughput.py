@@ -101,10 +101,10 @@ def median_seconds(fn, repeats: int = 5) -> float:
     return statistics.median(times)
 
 
-def fit_lightgbm(table: RatingTable, book: pd.DataFrame, rng: np.random.Generator):
+def fit_lightgbm(table: RatingTable, book: pd.DataFrame, rng: np.random.Generator, sample_rows: int = 100_000):
     import lightgbm as lgb
 
-    sample = book.sample(100_000, random_state=7).reset_index(drop=True)
+    sample = book.sample(min(sample_rows, len(book)), random_state=7).reset_index(drop=True)
     pure = rate(table, sample, "exposure")["pure_premium"].to_numpy()
     claims = rng.poisson(0.1 * pure / pure.mean() * sample["exposure"].to_numpy())
     amount = np.zeros(claims.size)

@@ -46,7 +46,7 @@ from premiumlab.models.glm.engines import (
     fit_on_rows,
     row_statistics,
 )
-from premiumlab.models.glm.tweedie import POWER_GRID, profile_power
+from premiumlab.models.glm.tweedie import INTERVAL_LEVEL, POWER_BOUNDS, POWER_TOLERANCE, TweedieBook, profile_power
 from premiumlab.models.targets import FREQUENCY, PURE_PREMIUM, SEVERITY, Target
 
 ENGINES = ("auto", "cells", "rows")
@@ -148,6 +148,7 @@ class GlmResult:
     aliased: list[str] = field(default_factory=list)
     no_rows: list[str] = field(default_factory=list)
     power_profile: list[dict[str, float]] = field(default_factory=list)
+    power_interval: list[float] | None = None
     notes: list[str] = field(default_factory=list)
     warnings: list[dict[str, Any]] = field(default_factory=list)
 
@@ -193,6 +194,7 @@ class GlmResult:
             "power_profile": [
                 {key: _json_float(value) for key, value in entry.items()} for entry in self.power_profile
             ],
+            "power_interval": None if self.power_interval is None else [float(end) for end in self.power_interval],
             "notes": list(self.notes),
             "warnings": [dict(entry) for entry in self.warnings],
             "caution": DRAFT,
@@ -627,8 +629,9 @@ def fit_pure_premium(
 ) -> GlmResult:
     """Tweedie GLM of amount / exposure with var_weights exposure, log link.
 
-    ``power="auto"``: profile likelihood over 1.1..1.9 on the rows with the true Tweedie density
-    and the dispersion at its maximum likelihood for each power (see `premiumlab.models.glm.tweedie`);
+    ``power="auto"``: profile likelihood over 1.1..1.9 (bounded Brent search to 0.005, with the
+    95 % profile likelihood interval) on the rows with the true Tweedie density and the dispersion
+    at its maximum likelihood for each power (see `premiumlab.models.glm.tweedie`);
     with the credibility penalty the GLM is refitted, penalty included, at each power tried (each
     fit starting from the last).
 
@@ -650,7 +653,8 @@ def fit_pure_premium(
     -------
     GlmResult
         Coefficients, relativities and row-level statistics at the chosen power; with "auto" also
-        the profile (`power_profile`: power, log-likelihood, dispersion) and a note on the choice.
+        the profile (`power_profile`: power, log-likelihood, dispersion), the interval
+        (`power_interval`) and a note on the choice.
 
     Raises
     ------
@@ -665,21 +669,43 @@ def fit_pure_premium(
     fits: dict[float, EngineFit] = {}
     if fixed_power is None:
 
-        def row_means(candidate: float) -> np.ndarray:
+        def cell_means(candidate: float) -> np.ndarray:
             last = fits[next(reversed(fits))] if fits else None
             fits[candidate] = _estimate(problem, _family(PURE_PREMIUM, candidate), engine, penalty, start=last)
-            return np.exp(problem.design.linear_predictor(_full_beta(problem, fits[candidate])))
+            return np.exp(problem.cells.design.linear_predictor(_full_beta(problem, fits[candidate])))
 
         with _failures_named(problem, penalty):
-            chosen, profile = profile_power(row_means, problem.numerator / problem.weight, problem.weight)
-        notes = [f"power {chosen:g} chosen by profile likelihood over {POWER_GRID[0]:g}..{POWER_GRID[-1]:g}"]
-        if chosen in (POWER_GRID[0], POWER_GRID[-1]):
-            notes.append(f"power {chosen:g} is at the edge of the searched range; the likelihood may peak outside it")
+            profile = profile_power(cell_means, _tweedie_book(problem))
+        chosen, interval = profile.power, list(profile.interval)
+        notes = [
+            f"power {chosen:.3f} chosen by profile likelihood over {POWER_BOUNDS[0]:g}..{POWER_BOUNDS[1]:g} "
+            f"(to {POWER_TOLERANCE:g}); {INTERVAL_LEVEL:.0%} profile likelihood interval "
+            f"{interval[0]:.3f}..{interval[1]:.3f}"
+        ]
+        notes += [
+            f"the power's interval reaches {bound:g}, the edge of the searched range; the likelihood may stay high beyond it"
+            for bound in profile.interval_at_bounds
+        ]
+        points = profile.points
     else:
-        chosen, profile, notes = fixed_power, [], []
+        chosen, points, notes, interval = fixed_power, [], [], None
     result = _fit(problem, _family(PURE_PREMIUM, chosen), engine, penalty, inputs, notes, fits.get(chosen))
-    result.power_profile = profile
+    result.power_profile = points
+    result.power_interval = interval
     return result
+
+
+def _tweedie_book(problem: _Problem) -> TweedieBook:
+    """The Tweedie profile's sufficient statistics: the problem's cell sums and its rows with a loss."""
+    cells, loss = problem.cells, problem.numerator > 0
+    return TweedieBook(
+        cell_numerator=cells.numerator,
+        cell_weight=cells.weight,
+        cell_numerator_squared=cells.numerator_squared,
+        n_rows=problem.design.n_rows,
+        loss_rate=problem.numerator[loss] / problem.weight[loss],
+        loss_weight=problem.weight[loss],
+    )
 
 
 def _fixed_power(power: Any) -> float:
