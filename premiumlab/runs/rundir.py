@@ -165,10 +165,32 @@ class Run:
     def model_json(self, kind: str, target: str) -> dict:
         return read_json(self.files.model_json(kind, target))
 
+    def book_path(self, path: str | Path | None = None) -> Path:
+        """Where the run's book is: `path` when given, else run.json's `book.path_from_run` taken
+        relative to the run folder."""
+        return Path(path) if path is not None else self.path / self.manifest["book"]["path_from_run"]
+
+    def inputs(self, book: str | Path | None = None) -> tuple[Path, ...]:
+        """Everything a command that reads this run reads, for the output check
+        (`premiumlab._core.outputs.check_target`): the run folder and its book (`book_path`), which
+        is read through run.json and so is an input even when the command line does not name it.
+
+        Parameters
+        ----------
+        book : str or Path or None
+            The book given on the command line (None: the one run.json records).
+
+        Returns
+        -------
+        tuple of Path
+            The run folder, then the book.
+        """
+        return (self.path, self.book_path(book))
+
     def load_book(self, path: str | Path | None = None) -> Book:
         """The run's book (recorded relative to the run folder, or `path`), checked by its sha256,
         with the run's split."""
-        p = Path(path) if path is not None else self.path / self.manifest["book"]["path_from_run"]
+        p = self.book_path(path)
         book = load_book(p, self.spec)
         recorded = self.manifest["book"]["sha256"]
         if book.sha256 != recorded:
