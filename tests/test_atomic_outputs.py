@@ -9,8 +9,8 @@ the interrupt test sends SIGINT (Ctrl-C) at the same moment, which the command's
 
 from __future__ import annotations
 
-import hashlib
 import errno
+import hashlib
 import os
 import signal
 import subprocess
@@ -220,7 +220,7 @@ def test_a_write_failure_names_the_users_target_not_the_temporary_path(tmp_path,
 
 def test_an_error_about_an_input_keeps_the_inputs_path(tmp_path):
     """An OS error naming another file (an input that cannot be read) is not put on the target."""
-    with pytest.raises(PermissionError, match="book.csv"), atomic_output(tmp_path / "run"):
+    with pytest.raises(PermissionError, match=r"book\.csv"), atomic_output(tmp_path / "run"):
         raise PermissionError(errno.EACCES, "Permission denied", str(tmp_path / "book.csv"))
 
 
