@@ -82,6 +82,8 @@ def read_toml(path: str | Path, kind: str) -> dict:
         doc = tomllib.loads(text)
     except tomllib.TOMLDecodeError as e:
         raise InputError(f"{p}: malformed TOML: {e}") from None
+    except ValueError as e:  # an integer of more digits than Python converts (sys.get_int_max_str_digits)
+        raise InputError(f"{p}: a number cannot be read ({str(e).split(';')[0]})") from None
     except RecursionError:
         raise InputError(f"{p}: TOML nested too deeply (at most {MAX_DEPTH} levels)") from None
     _check_document(doc, p)

@@ -170,25 +170,29 @@ LEAF_EXTRAS = ("leaf_weight", "leaf_count")
 
 
 def _check_header(header: dict[str, str], names: list[str], model_text: str) -> None:
-    """Refuse a header LightGBM would read past its arrays with: `max_feature_idx` other than the
-    last feature, `tree_sizes` that are not the byte lengths of the tree sections (LightGBM cuts
-    the text by them), or a parameters section without its end line (a truncated file)."""
+    """Refuse a header LightGBM would read past its arrays with (`max_feature_idx` other than the
+    last feature) or a parameters section without its end line (a truncated file)."""
     if "max_feature_idx" in header and header["max_feature_idx"] != str(len(names) - 1):
         raise InputError(f"model text: max_feature_idx={header['max_feature_idx'][:40]} but {len(names)} feature names")
-    if "tree_sizes" in header:
-        data = model_text.encode("utf-8")
-        starts = [m.start() for m in re.finditer(rb"(?m)^Tree=", data)]
-        ends = [*starts[1:], data.find(b"\nend of trees") + 1]
-        actual = [str(b - a) for a, b in zip(starts, ends)]
-        if header["tree_sizes"].split() != actual:
-            raise InputError("model text: tree_sizes do not match the tree sections (an edited or truncated file)")
     if "\nparameters:" in model_text and "\nend of parameters" not in model_text:
         raise InputError("model text: no 'end of parameters' line; the file is truncated")
 
 
+def _check_tree_sizes(header: dict[str, str], model_text: str) -> None:
+    """Refuse `tree_sizes` that are not the byte lengths of the tree sections: LightGBM cuts the
+    text by them and reads past a section otherwise."""
+    if "tree_sizes" not in header:
+        return
+    data = model_text.encode("utf-8")
+    starts = [m.start() for m in re.finditer(rb"(?m)^Tree=", data)]
+    ends = [*starts[1:], data.find(b"\nend of trees") + 1]
+    if header["tree_sizes"].split() != [str(b - a) for a, b in zip(starts, ends)]:
+        raise InputError("model text: tree_sizes do not match the tree sections (an edited or truncated file)")
+
+
 def _check_structure(tree: Tree, features: int) -> None:
     """Refuse a tree LightGBM would not have written: a split feature outside the model's
-    features, an unknown decision type, children outside the tree, a node reached twice or never
+    features or split both as a categorical and as a number, an unknown decision type, children outside the tree, a node reached twice or never
     (a cycle or a second parent), or a categorical split whose slot or words are out of range."""
     internal = tree.split_feature.size
     where = f"model text: tree {tree.index}"
@@ -218,6 +222,9 @@ def _check_structure(tree: Tree, features: int) -> None:
         if not (seen_nodes.all() and seen_leaves.all()):
             raise InputError(f"{where}: some nodes or leaves are not reached from the root")
     categorical = np.flatnonzero(np.asarray(is_categorical(tree.decision_type)))
+    mixed = np.intersect1d(tree.split_feature[categorical], np.delete(tree.split_feature, categorical))
+    if mixed.size:
+        raise InputError(f"{where} splits feature {mixed[0]} both as a categorical and as a number")
     if categorical.size:
         bounds = tree.cat_boundaries
         if (
@@ -315,6 +322,7 @@ def parse_model(model_text: str) -> tuple[list[str], list[Tree]]:
             )
         _check_structure(tree, len(names))
         trees.append(tree)
+    _check_tree_sizes(header, model_text)
     return names, trees
 
 
