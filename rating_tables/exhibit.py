@@ -17,6 +17,7 @@ import io
 import json
 import math
 import os
+import re
 import zipfile
 from datetime import date, datetime, time
 from typing import Any
@@ -35,6 +36,9 @@ from rating_tables.table import (
 )
 
 _FORBIDDEN = set("[]:*?/\\")
+#: The characters an .xlsx cell cannot hold (openpyxl's ILLEGAL_CHARACTERS_RE, written out here so
+#: that openpyxl stays imported only when a workbook is written).
+_ILLEGAL = re.compile(r"[\x00-\x08\x0b-\x0c\x0e-\x1f]")
 _ZIP_DATE = (1980, 1, 1, 0, 0, 0)
 _CORE_PART = "docProps/core.xml"
 
@@ -106,12 +110,31 @@ class _Style:
 
     def header(self, sheet: Any, row: int, values: list[Any]) -> None:
         for col, value in enumerate(values, start=1):
-            cell = sheet.cell(row=row, column=col, value=value)
+            cell = _cell(sheet, row, col, value)
             cell.font, cell.fill = self.bold, self.fill
 
 
+def _cell(sheet: Any, row: int, column: int, value: Any) -> Any:
+    """Put `value` in a cell; text is always stored as text, never as a formula: a label from the
+    book that begins with `=`, `+`, `-`, `@`, a tab or a carriage return does not execute when the
+    workbook is opened, and the control characters that a workbook cannot hold are shown escaped
+    (`\\x07`) rather than refused (`_as_text`)."""
+    if not isinstance(value, str):
+        return sheet.cell(row=row, column=column, value=value)
+    cell = sheet.cell(row=row, column=column)
+    cell.value = _as_text(value)  # openpyxl takes a text beginning with "=" for a formula ...
+    cell.data_type = "s"  # ... so the type is set to text afterwards: no <f> element is written
+    return cell
+
+
+def _as_text(value: str) -> str:
+    """`value` with each character a workbook cannot hold (the C0 controls but tab, line feed and
+    carriage return) written as the visible escape `\\xNN`."""
+    return _ILLEGAL.sub(lambda m: f"\\x{ord(m.group()):02x}", value)
+
+
 def _sheet_name(name: str, used: set[str]) -> str:
-    base = "".join("_" if ch in _FORBIDDEN else ch for ch in name)[:28].strip("'") or "factor"
+    base = "".join("_" if ch in _FORBIDDEN else ch for ch in _as_text(name))[:28].strip("'") or "factor"
     candidate, n = base, 1
     while candidate.lower() in used:
         n += 1
@@ -151,8 +174,8 @@ def _summary(sheet: Any, table: RatingTable, style: _Style) -> None:
         style.header(sheet, row, [title, ""])
         row += 1
         for key, value in items:
-            sheet.cell(row=row, column=1, value=key)
-            sheet.cell(row=row, column=2, value=_plain(value))
+            _cell(sheet, row, 1, key)
+            _cell(sheet, row, 2, _plain(value))
             row += 1
         row += 1
     sheet.column_dimensions["A"].width = 24
@@ -222,9 +245,9 @@ def _main(sheet: Any, factor: NumericFactor | CategoricalFactor, style: _Style) 
     style.header(sheet, 1, head + [title for title, _, _ in columns])
     for i, (key, values) in enumerate(rows):
         for j, value in enumerate(key, start=1):
-            sheet.cell(row=i + 2, column=j, value=value)
+            _cell(sheet, i + 2, j, value)
         for j, ((_, _, number_format), value) in enumerate(zip(columns, values), start=len(key) + 1):
-            cell = sheet.cell(row=i + 2, column=j, value=_number(value))
+            cell = _cell(sheet, i + 2, j, _number(value))
             cell.number_format = number_format
     for j in range(1, len(head) + len(columns) + 1):
         sheet.column_dimensions[sheet.cell(row=1, column=j).column_letter].width = 20
@@ -250,9 +273,9 @@ def _grids(sheet: Any, factor: InteractionFactor, style: _Style) -> None:
         style.header(sheet, top, [f"{title}: {a} (rows) by {b} (columns)"])
         style.header(sheet, top + 1, [f"{a} \\ {b}", *cols])
         for i, label in enumerate(rows):
-            sheet.cell(row=top + 2 + i, column=1, value=label).font = style.bold
+            _cell(sheet, top + 2 + i, 1, label).font = style.bold
             for j in range(len(cols)):
-                cell = sheet.cell(row=top + 2 + i, column=2 + j, value=_number(matrix[i, j]))
+                cell = _cell(sheet, top + 2 + i, 2 + j, _number(matrix[i, j]))
                 cell.number_format = number_format
         top += len(rows) + 3
     sheet.column_dimensions["A"].width = 24

@@ -271,3 +271,38 @@ def test_exhibit_holds_summary_and_factor_sheets(tmp_path):
     grid = list(book["age__region"].iter_rows(values_only=True))
     assert grid[1] == ("age \\ region", "North", "South", "Coast")
     assert grid[2] == ("[-inf, 30)", 1.0, 1.0, 1.125)
+
+
+def test_exhibit_stores_level_names_as_text_never_as_formulas(tmp_path):
+    """Issue 11: a level name from the book beginning with `=`, `+`, `-`, `@`, a tab or a carriage
+    return is stored as text (no `<f>` formula element anywhere in the workbook), and a control
+    character the format cannot hold is shown escaped as `\\xNN` instead of failing the write."""
+    openpyxl = pytest.importorskip("openpyxl")
+    import zipfile
+
+    table = example_table()
+    bonus = table.factor("bonus")
+    keep = {bonus.fallback, bonus.base}
+    names = iter(["=1+1", "@SUM(A1)", "bell\x07"])
+    levels = tuple(level if level in keep else next(names, level) for level in bonus.levels)
+    renamed = dataclasses.replace(bonus, levels=levels)
+    table = dataclasses.replace(table, factors=tuple(renamed if f.name == "bonus" else f for f in table.factors))
+    path = tmp_path / "exhibit.xlsx"
+    write_exhibit(table, path)
+    with zipfile.ZipFile(path) as z:
+        xml = b"".join(z.read(n) for n in z.namelist() if n.endswith(".xml"))
+    assert b"<f>" not in xml and b"<f " not in xml
+    cells = [row[0] for row in openpyxl.load_workbook(path)["bonus"].iter_rows(min_row=2, values_only=True)]
+    assert cells == [level.replace("\x07", "\\x07") for level in levels]
+    assert "=1+1" in cells
+
+
+@pytest.mark.parametrize("text", ["+A1", "-B2", "\t=1", "\r=1", '=HYPERLINK("x")'])
+def test_exhibit_cell_text_is_never_a_formula(text):
+    """Each of the usual formula-leading characters gives a text cell (openpyxl data type `s`)."""
+    openpyxl = pytest.importorskip("openpyxl")
+    from rating_tables.exhibit import _cell
+
+    sheet = openpyxl.Workbook().active
+    cell = _cell(sheet, 1, 1, text)
+    assert cell.data_type == "s" and cell.value == text
