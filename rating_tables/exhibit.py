@@ -282,7 +282,9 @@ def _cover(sheet: Any, table: RatingTable, style: _Style) -> None:
         else "indicated: the relativities as the model indicated them, rounded; no selections applied"
     )
     cover.line("Stage", table.stage, words=stage)
-    cover.line("Effective date", date.fromisoformat(table.effective_date), "yyyy-mm-dd", "the date the rates take effect")
+    cover.line(
+        "Effective date", date.fromisoformat(table.effective_date), "yyyy-mm-dd", "the date the rates take effect"
+    )
     cover.line("Exposure unit", unit, words=f"one full term is 1.0 {unit}")
     base = cover.line(
         "Base rate",
