@@ -9,8 +9,8 @@ Sheets, in order:
   example is the only place with formulas: its relativities are numbers, and each premium step is
   a formula on the cover's own cells (base rate, loadings, relativities, exposure) written by this
   module, with the value the rater computes beside it for a reader that does not recalculate.
-- one sheet per factor: band (in words, bounds as numbers with an empty cell for an open end) or
-  level, indicated, selected, current and change (when the table has them), exposure, credibility,
+- one sheet per factor: band (in words, its label `[lower, upper)`, bounds as numbers with an
+  empty cell for an open end) or level, indicated, selected, current and change (when the table has them), exposure, credibility,
   the missing row last labelled `MISSING_LABEL`, and note rows (how credibility is computed, where
   the one-way statistics are); a two-way table as grids (rows: first factor's cells, columns:
   second factor's cells).
@@ -576,10 +576,10 @@ def _change(selected: float, current: float) -> float:
 def _main(sheet: Any, factor: NumericFactor | CategoricalFactor, table: RatingTable, style: _Style) -> None:
     keys: list[list[Any]]
     if isinstance(factor, NumericFactor):
-        head = ["Band", "Lower (included)", "Upper (excluded)"]
+        head = ["Band", "Band label", "Lower (included)", "Upper (excluded)"]
         keys = [
-            [band_words(lo, hi), _number(lo), _number(hi)]
-            for lo, hi in zip(factor.lower.tolist(), factor.upper.tolist())
+            [band_words(lo, hi), label, _number(lo), _number(hi)]
+            for label, lo, hi in zip(factor.labels(), factor.lower.tolist(), factor.upper.tolist())
         ]
     else:
         head = ["Level"]
@@ -600,7 +600,10 @@ def _main(sheet: Any, factor: NumericFactor | CategoricalFactor, table: RatingTa
             _cell(sheet, i, j, _number(row[name]), number_format)
     notes = []
     if isinstance(factor, NumericFactor):
-        notes.append("A band holds the values from its lower edge (included) to its upper edge (excluded).")
+        notes.append(
+            "A band holds the values from its lower edge (included) to its upper edge (excluded); its label "
+            "[lower, upper) is the one `premiumlab select` and the Selections sheet use."
+        )
     if "change" in names:
         notes.append("Change = selected relativity / current relativity - 1.")
     if "credibility" in names:

@@ -232,6 +232,7 @@ def test_factor_sheets_show_bounds_as_numbers_current_and_change(tmp_path):
     age = list(book["age"].iter_rows(values_only=True))
     assert age[0] == (
         "Band",
+        "Band label",
         "Lower (included)",
         "Upper (excluded)",
         "Selected relativity",
@@ -239,9 +240,9 @@ def test_factor_sheets_show_bounds_as_numbers_current_and_change(tmp_path):
         "Change",
         "Exposure (policy-year)",
     )
-    assert age[1][:5] == ("below 25", None, 25, 1.5, 1.4)
-    assert age[1][5] == pytest.approx(1.5 / 1.4 - 1, rel=1e-12)
-    assert age[3][:3] == ("60 and over", 60, None)
+    assert age[1][:6] == ("below 25", "[-inf, 25)", None, 25, 1.5, 1.4)
+    assert age[1][6] == pytest.approx(1.5 / 1.4 - 1, rel=1e-12)
+    assert age[3][:4] == ("60 and over", "[60, inf)", 60, None)
     assert any("one-way tables are in the run's report" in (row[0] or "") for row in age)
     region = list(book["region"].iter_rows(values_only=True))
     assert region[0][:5] == ("Level", "Indicated relativity", "Selected relativity", "Current relativity", "Change")

@@ -238,15 +238,16 @@ def test_the_exhibit_shows_the_missing_row_and_states_the_rules(tmp_path):
     age_rows = list(book["age"].iter_rows(values_only=True))
     assert age_rows[0] == (
         "Band",
+        "Band label",
         "Lower (included)",
         "Upper (excluded)",
         "Relativity (indicated, rounded)",
         "Exposure (policy-year)",
         "Credibility",
     )
-    assert age_rows[3] == ("60 and over", 60.0, None, 1.25, 300.0, 0.85)
-    assert age_rows[4] == (MISSING_LABEL, None, None, 1.3, 40.0, 0.35)
-    assert age_rows[5] == (None,) * 6  # then the note rows
+    assert age_rows[3] == ("60 and over", "[60, inf)", 60.0, None, 1.25, 300.0, 0.85)
+    assert age_rows[4] == (MISSING_LABEL, None, None, None, 1.3, 40.0, 0.35)
+    assert age_rows[5] == (None,) * 7  # then the note rows
     region_rows = list(book["region"].iter_rows(values_only=True))
     assert region_rows[4] == (MISSING_LABEL, 1.1, 25.5)
     assert list(book["bonus"].iter_rows(values_only=True))[3] == ("03", 1.25, 220.0)  # no missing row

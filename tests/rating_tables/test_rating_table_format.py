@@ -258,6 +258,7 @@ def test_exhibit_holds_cover_factor_and_selections_sheets(tmp_path):
     age = list(book["age"].iter_rows(values_only=True))
     assert age[0] == (
         "Band",
+        "Band label",
         "Lower (included)",
         "Upper (excluded)",
         "Indicated relativity",
@@ -265,7 +266,7 @@ def test_exhibit_holds_cover_factor_and_selections_sheets(tmp_path):
         "Exposure (policy-year)",
         "Credibility",
     )
-    assert age[1] == ("below 25", None, 25.0, 1.4871, 1.5, 120.0, 0.6)
+    assert age[1] == ("below 25", "[-inf, 25)", None, 25.0, 1.4871, 1.5, 120.0, 0.6)
     region = list(book["region"].iter_rows(values_only=True))
     assert region[3] == ("Coast", None, 1.5, 220.0)
     grid = list(book["age__region"].iter_rows(values_only=True))
