@@ -117,16 +117,18 @@ def write_exhibit(table: RatingTable, path: str | os.PathLike[str]) -> None:
     cover = book.active
     cover.title = COVER_SHEET
     _cover(cover, table, style)
+    notes: dict[str, list[int]] = {COVER_SHEET: []}  # per sheet, its rows of one text across the columns
     used = {COVER_SHEET.lower(), SELECTIONS_SHEET.lower()}
     for factor in table.factors:
         sheet = book.create_sheet(_sheet_name(factor.name, used))
         if isinstance(factor, InteractionFactor):
-            _grids(sheet, factor, table, style)
+            notes[sheet.title] = _grids(sheet, factor, table, style)
         else:
-            _main(sheet, factor, table, style)
-    _selections(book.create_sheet(SELECTIONS_SHEET), table, style)
+            notes[sheet.title] = _main(sheet, factor, table, style)
+    notes[SELECTIONS_SHEET] = _selections(book.create_sheet(SELECTIONS_SHEET), table, style)
     for sheet in book.worksheets:
-        _fit_columns(sheet, style)
+        _fit_columns(sheet, style, skip={1} if sheet.title == COVER_SHEET else set(notes[sheet.title]))
+        _spread_notes(sheet, notes[sheet.title], style)
         _page_setup(sheet, table.table_id)
     _save_fixed(book, datetime.combine(date.fromisoformat(table.effective_date), time()), path)
 
@@ -459,8 +461,8 @@ def _worked_example(cover: _Cover, table: RatingTable, rows: dict[str, int], pro
     cover.section(WORKED_EXAMPLE, ("Figure", "Computed", "Policy value", "Working"))
     cover.line(
         "Policy",
-        words=f"every factor at its base band or level but {policy[0].factor.name if policy else '-'} ({first}); "
-        "column B holds numbers and formulas on this sheet's cells, column C the value the rater computes",
+        words=f"every factor at its base band or level but {policy[0].factor.name if policy else '-'}, {first}. "
+        "Column B holds numbers and formulas on this sheet's cells, column C the value the rater computes.",
     )
     values = {p.factor.name: p for p in policy}
     rel_rows = []
@@ -573,7 +575,8 @@ def _change(selected: float, current: float) -> float:
     return selected / current - 1 if math.isfinite(current) else math.nan
 
 
-def _main(sheet: Any, factor: NumericFactor | CategoricalFactor, table: RatingTable, style: _Style) -> None:
+def _main(sheet: Any, factor: NumericFactor | CategoricalFactor, table: RatingTable, style: _Style) -> list[int]:
+    """Write the sheet of a main factor; returns the rows of its notes."""
     keys: list[list[Any]]
     if isinstance(factor, NumericFactor):
         head = ["Band", "Band label", "Lower (included)", "Upper (excluded)"]
@@ -609,14 +612,16 @@ def _main(sheet: Any, factor: NumericFactor | CategoricalFactor, table: RatingTa
     if "credibility" in names:
         notes.append(_CREDIBILITY_NOTE)
     notes.append(_ONE_WAY_NOTE)
-    _notes(sheet, len(keys) + 3, notes)
     sheet.freeze_panes = "B2"
     sheet.print_title_rows = "1:1"
+    return _notes(sheet, len(keys) + 3, notes)
 
 
-def _notes(sheet: Any, row: int, notes: list[str]) -> None:
+def _notes(sheet: Any, row: int, notes: list[str]) -> list[int]:
+    """Write one note per row from `row` on, in column A; returns their rows."""
     for i, note in enumerate(notes):
         _cell(sheet, row + i, 1, note)
+    return list(range(row, row + len(notes)))
 
 
 def _headings(cells: Cells) -> list[str]:
@@ -625,7 +630,8 @@ def _headings(cells: Cells) -> list[str]:
     return list(cells)
 
 
-def _grids(sheet: Any, factor: InteractionFactor, table: RatingTable, style: _Style) -> None:
+def _grids(sheet: Any, factor: InteractionFactor, table: RatingTable, style: _Style) -> list[int]:
+    """Write the grids of a two-way table; returns the rows of the grids' titles and of the notes."""
     a, b = factor.of
     rows, cols = _headings(factor.a_cells), _headings(factor.b_cells)
     grids = [
@@ -635,11 +641,12 @@ def _grids(sheet: Any, factor: InteractionFactor, table: RatingTable, style: _St
         ("Exposure", factor.exposure, _EXPOSURE),
         ("Credibility", factor.credibility, _CREDIBILITY),
     ]
-    top = 1
+    top, titles = 1, []
     for title, matrix, number_format in grids:
         if matrix is None:
             continue
         style.header(sheet, top, [f"{title}: {a} (rows) by {b} (columns)"])
+        titles.append(top)
         style.header(sheet, top + 1, [f"{a} \\ {b}", *cols])
         for i, label in enumerate(rows):
             _cell(sheet, top + 2 + i, 1, label).font = style.bold
@@ -649,8 +656,8 @@ def _grids(sheet: Any, factor: InteractionFactor, table: RatingTable, style: _St
     notes = ["A two-way table has no missing cell: a row missing on either side takes 1.0 from it."]
     if factor.credibility is not None:
         notes.append(_CREDIBILITY_NOTE)
-    _notes(sheet, top, notes)
     sheet.freeze_panes = "B3"
+    return titles + _notes(sheet, top, notes)
 
 
 # ------------------------------------------------------------------ selections
@@ -658,7 +665,8 @@ def _grids(sheet: Any, factor: InteractionFactor, table: RatingTable, style: _St
 _SELECTION_KEYS = ("factor", "rule", "detail", "applies_to", "off_balance", "reason")
 
 
-def _selections(sheet: Any, table: RatingTable, style: _Style) -> None:
+def _selections(sheet: Any, table: RatingTable, style: _Style) -> list[int]:
+    """Write the Selections sheet; returns the rows of its notes."""
     head = ["No.", "Factor", "Rule", "Detail", "Bands or levels changed", "Off-balance", "Reason"]
     other = sorted({k for s in table.selections for k in s if k not in _SELECTION_KEYS})
     style.header(sheet, 1, head + (["Other keys"] if other else []))
@@ -666,8 +674,7 @@ def _selections(sheet: Any, table: RatingTable, style: _Style) -> None:
     sheet.print_title_rows = "1:1"
     if not table.selections:
         none = "no selections: indicated relativities" if table.stage == "indicated" else "no selections recorded"
-        _cell(sheet, 2, 1, none)
-        return
+        return _notes(sheet, 2, [none])
     for i, selection in enumerate(table.selections, start=2):
         changed = selection.get("applies_to")
         row = [
@@ -685,7 +692,7 @@ def _selections(sheet: Any, table: RatingTable, style: _Style) -> None:
         if other:
             extra = {k: selection[k] for k in other if k in selection}
             _cell(sheet, i, len(head) + 1, json.dumps(extra, ensure_ascii=False) if extra else None)
-    _notes(
+    return _notes(
         sheet,
         len(table.selections) + 3,
         [
@@ -699,28 +706,40 @@ def _selections(sheet: Any, table: RatingTable, style: _Style) -> None:
 # ------------------------------------------------------------------ layout and print
 
 
-def _fit_columns(sheet: Any, style: _Style) -> None:
-    """Each column as wide as its widest text (numbers count 12 characters), 8 to `_WIDEST`;
-    text wider than that wraps. Notes under a table (column A text past the header's width on a
-    sheet of several columns) are left to overflow into the empty cells beside them."""
+def _fit_columns(sheet: Any, style: _Style, skip: set[int]) -> None:
+    """Each column as wide as its widest text (numbers count 12 characters), 8 to `_WIDEST`
+    characters; text wider than that wraps. Rows in `skip` (notes, the cover's title) do not count."""
+    from openpyxl.utils import get_column_letter
+
     widths: dict[int, int] = {}
     for row in sheet.iter_rows():
         for cell in row:
-            if cell.value is None:
+            if cell.value is None or cell.row in skip:
                 continue
+            width = 12
             if isinstance(cell.value, str) and cell.data_type == "s":
                 width = max(len(line) for line in cell.value.split("\n"))
-                if width > _WIDEST and not (cell.column == 1 and sheet.max_column > 1 and sheet.title != COVER_SHEET):
+                if width > _WIDEST:
                     cell.alignment = style.wrap
-                if cell.column == 1 and sheet.title != COVER_SHEET and width > 40:
-                    continue  # a note row: it overflows to the right
-            else:
-                width = 12
             widths[cell.column] = max(widths.get(cell.column, 0), width)
-    from openpyxl.utils import get_column_letter
-
     for column, width in widths.items():
         sheet.column_dimensions[get_column_letter(column)].width = min(max(width + 2, 8), _WIDEST)
+
+
+def _spread_notes(sheet: Any, rows: list[int], style: _Style) -> None:
+    """Merge each row of one text (a note, a grid's title) across the sheet's columns and wrap it,
+    the row tall enough for its lines (about one character per unit of column width), so that it
+    prints inside the page."""
+    from openpyxl.utils import get_column_letter
+
+    columns = max(sheet.max_column, 1)
+    width = sum(sheet.column_dimensions[get_column_letter(c)].width or 8 for c in range(1, columns + 1))
+    for row in rows:
+        cell = sheet.cell(row=row, column=1)
+        cell.alignment = style.wrap
+        if columns > 1:
+            sheet.merge_cells(start_row=row, start_column=1, end_row=row, end_column=columns)
+        sheet.row_dimensions[row].height = 15 * math.ceil(len(str(cell.value)) / max(width - 2, 1))
 
 
 def _page_setup(sheet: Any, table_id: str) -> None:
