@@ -157,8 +157,14 @@ def fit(
     return open_run(fit_run(book, spec, out, models=models, force=force, progress=progress, cluster=cluster))
 
 
-def compare(run: str | Path, *, bounds: tuple[float, float] = PLAUSIBLE_RELATIVITY) -> Comparison:
-    """Compare GLM and GBM on the holdout; write RUN/comparison.json and RUN/figures/.
+def compare(
+    run: str | Path,
+    *,
+    bounds: tuple[float, float] = PLAUSIBLE_RELATIVITY,
+    out: str | Path | None = None,
+    force: bool = False,
+) -> Comparison:
+    """Compare GLM and GBM on the holdout; write comparison.json and figures/ (in the run, or `out`).
 
     Parameters
     ----------
@@ -167,6 +173,10 @@ def compare(run: str | Path, *, bounds: tuple[float, float] = PLAUSIBLE_RELATIVI
     bounds : (float, float)
         Plausibility bounds of the GLM relativities, (least, greatest); default (0.2, 5), a
         common-practice default.
+    out : str or Path or None
+        A new folder for comparison.json and figures/ (None: RUN/comparison.json and RUN/figures/).
+    force : bool
+        Replace existing outputs (the run's earlier comparison, or `out`).
 
     Returns
     -------
@@ -177,7 +187,7 @@ def compare(run: str | Path, *, bounds: tuple[float, float] = PLAUSIBLE_RELATIVI
     """
     from premiumlab.review.comparison import compare as compare_run
 
-    return Comparison.from_summary(compare_run(run, bounds=bounds))
+    return Comparison.from_summary(compare_run(run, bounds=bounds, out=out, force=force))
 
 
 def tabulate(

@@ -4,12 +4,16 @@ A book is one `.csv` file, one `.parquet` or `.pq` file, or a folder of parts of
 name order. In a folder, the parts are the files whose suffix is one of those; entries whose name
 starts with `.` or `_` are skipped (hidden files, `._` resource forks, `_SUCCESS` and `_metadata`
 markers), as are sub-folders and files with other suffixes. A folder holding both CSV and Parquet
-parts is refused: its rows would be read under two sets of typing rules.
+parts is refused: its rows would be read under two sets of typing rules. A part whose header names
+a column twice, or (Parquet) holds a nested column (struct, list, map), is refused: readers would
+silently take one copy, rename the other or fail deep inside.
 """
 
 from __future__ import annotations
 
+import csv
 from pathlib import Path
+from typing import Any
 
 from rating_tables.errors import TableError
 
@@ -90,3 +94,70 @@ def book_parts(path: Path) -> tuple[str, list[Path]]:
             where=str(path),
         )
     return next(iter(first_of_kind)), parts
+
+
+def csv_header(part: Path) -> list[str]:
+    """The names of a CSV part's header row as written (pandas renames a repeated `x` to `x.1`).
+
+    Parameters
+    ----------
+    part : pathlib.Path
+        A CSV file, UTF-8 with or without a byte-order mark.
+
+    Returns
+    -------
+    list of str
+        The header's fields, unquoted; empty for an empty file.
+    """
+    with open(part, encoding="utf-8-sig", newline="") as fh:
+        return next(csv.reader(fh), [])
+
+
+def check_columns(part: Path, names: list[str]) -> None:
+    """Refuse a part whose header names one column more than once.
+
+    Parameters
+    ----------
+    part : pathlib.Path
+        The part, for the message.
+    names : list of str
+        Its column names as written (`csv_header`, or the Parquet schema's names).
+
+    Raises
+    ------
+    TableError
+        Naming the part, the column and its two positions (1-based).
+    """
+    first: dict[str, int] = {}
+    for i, name in enumerate(names, start=1):
+        if name in first:
+            raise TableError(
+                f"{part}: column '{name}' appears twice in the header (columns {first[name]} and {i}); "
+                "give each column its own name",
+                where=str(part),
+            )
+        first[name] = i
+
+
+def check_flat(part: Path, schema: Any) -> None:
+    """Refuse a Parquet part with a repeated column name or a nested column (struct, list, map).
+
+    Parameters
+    ----------
+    part : pathlib.Path
+        The part, for the message.
+    schema : pyarrow.Schema
+        Its schema (`pyarrow.parquet.read_schema`).
+
+    Raises
+    ------
+    TableError
+        Naming the part and the column.
+    """
+    check_columns(part, list(schema.names))
+    for field in schema:
+        if field.type.num_fields > 0:  # struct, list, map, union: a value made of values
+            raise TableError(
+                f"{part}: column '{field.name}' is nested ({field.type}); a book holds flat columns of numbers or text",
+                where=str(part),
+            )

@@ -23,7 +23,7 @@ import pyarrow as pa
 import pyarrow.csv as pa_csv
 import pyarrow.parquet as pq
 
-from rating_tables.books import book_parts, output_kind
+from rating_tables.books import book_parts, check_columns, check_flat, csv_header, output_kind
 from rating_tables.errors import TableError
 from rating_tables.rate import AT_MINIMUM, LevelCounts, added_columns, check_no_clash, rating_columns
 from rating_tables.table import RatingTable
@@ -178,8 +178,13 @@ class _Source:
         try:
             if self.kind == "csv":
                 names = pd.read_csv(part, nrows=0, dtype=str).columns
+                check_columns(part, csv_header(part))
                 return pa.schema([pa.field(str(n), pa.string()) for n in names])
-            return pa.schema([_plain_type(f) for f in pq.read_schema(part)])
+            schema = pq.read_schema(part)
+            check_flat(part, schema)
+            return pa.schema([_plain_type(f) for f in schema])
+        except TableError:
+            raise
         except (OSError, ValueError, pd.errors.ParserError) as e:
             raise TableError(f"{part}: cannot be read: {e}", where=str(part)) from None
 

@@ -9,6 +9,7 @@ the interrupt test sends SIGINT (Ctrl-C) at the same moment, which the command's
 
 from __future__ import annotations
 
+import errno
 import hashlib
 import os
 import signal
@@ -202,3 +203,33 @@ def test_an_output_inside_an_input_folder_is_refused_even_with_force(tmp_path):
         atomic_output(table_dir / "new", inputs=(table_dir,)),
     ):
         pass
+
+
+@pytest.mark.parametrize("code", [errno.ENOSPC, errno.EROFS, errno.EACCES])
+def test_a_write_failure_names_the_users_target_not_the_temporary_path(tmp_path, code):
+    """Issue 11: a full disk, a read-only file system or a refused permission met while writing
+    names the target the user gave, in one line, and leaves nothing behind."""
+    target = tmp_path / "out.csv"
+    with pytest.raises(InputError) as caught, atomic_files([target]) as tmp:
+        raise OSError(code, os.strerror(code), str(tmp / "out.csv"))
+    assert str(caught.value) == f"{target}: cannot be written ({os.strerror(code)})"
+    with pytest.raises(InputError, match=f"^{tmp_path / 'run'}: cannot be written"), atomic_output(tmp_path / "run"):
+        raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))  # a full disk names no file
+    assert list(tmp_path.iterdir()) == []
+
+
+def test_an_error_about_an_input_keeps_the_inputs_path(tmp_path):
+    """An OS error naming another file (an input that cannot be read) is not put on the target."""
+    with pytest.raises(PermissionError, match=r"book\.csv"), atomic_output(tmp_path / "run"):
+        raise PermissionError(errno.EACCES, "Permission denied", str(tmp_path / "book.csv"))
+
+
+def test_a_link_at_the_temporary_path_is_removed_not_followed(tmp_path):
+    """A link planted where the temporary folder goes is removed; what it points to is untouched."""
+    kept = tmp_path / "kept"
+    kept.mkdir()
+    (kept / "file").write_text("x")
+    (tmp_path / f".run.tmp-{os.getpid()}").symlink_to(kept)
+    with atomic_output(tmp_path / "run") as tmp:
+        (tmp / "a").write_text("y")
+    assert (kept / "file").read_text() == "x" and (tmp_path / "run" / "a").read_text() == "y"

@@ -13,12 +13,18 @@ and leaves its inputs byte-identical. The cases run two at a time (the machine h
 from __future__ import annotations
 
 import hashlib
+import json
 import os
+import shutil
 from collections.abc import Callable
 from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 
+import lightgbm as lgb
+import numpy as np
 import pandas as pd
+import pyarrow as pa
+import pyarrow.parquet as pq
 import pytest
 
 import rating_tables
@@ -112,6 +118,127 @@ def _truncate(name: str) -> Prepare:
 def _with_zone(frame: pd.DataFrame) -> pd.DataFrame:
     return frame.assign(zone=frame["region"].map({"Northmoor": "Z1", "Eastvale": "Z2", "Southby": "Z3"}))
 
+
+# ---------------------------------------------------- issue 11: runs, models, nested books, limits
+#: The run of the run-based cases: fitted once per battery (GLM and a quick boosted search) on a
+#: book whose region levels start with "=" and "@" and hold a control character, then copied.
+RUN_SPEC = SPEC_TEXT + "\n[gbm]\nfolds = 2\nmax_settings = 1\nmax_rounds = 50\n"
+HOSTILE_REGIONS = {"Northmoor": "=1+1", "Eastvale": "@SUM(A1)\x07"}
+_MADE: dict[str, object] = {}
+
+
+def _run_book() -> pd.DataFrame:
+    frame = small_book(400)
+    return frame.assign(region=frame["region"].replace(HOSTILE_REGIONS))
+
+
+def _fitted(folder: Path) -> None:
+    """run/ (fitted on runbook.csv) and runbook.csv, copied from the battery's one fitted run."""
+    source = folder.parent / "_fitted"
+    if not source.exists():
+        source.mkdir()
+        (source / "runspec.toml").write_text(RUN_SPEC)
+        _run_book().to_csv(source / "runbook.csv", index=False)
+        done = run_cli("fit", "runbook.csv", "--spec", "runspec.toml", "--out", "run", cwd=source, timeout=300)
+        assert done.returncode == 0, done.stderr
+    shutil.copytree(source / "run", folder / "run")
+    shutil.copy(source / "runbook.csv", folder / "runbook.csv")
+
+
+def in_run(name: str, edit: Callable[[bytes], bytes]) -> Prepare:
+    """The fitted run, then file `name` of it rewritten."""
+    return make(_fitted, raw(f"run/{name}", edit))
+
+
+def manifest(edit: Callable[[dict], object]) -> Prepare:
+    """The fitted run with run.json edited as JSON."""
+
+    def rewrite(data: bytes) -> bytes:
+        document = json.loads(data)
+        edit(document)
+        return json.dumps(document).encode()
+
+    return in_run("run.json", rewrite)
+
+
+def _model_text() -> str:
+    """A small LightGBM Poisson model (3 trees of 5 leaves, a categorical split at each root) on
+    invented rows; built once."""
+    if "model" not in _MADE:
+        rng = np.random.default_rng(5)
+        n = 600
+        features = pd.DataFrame(
+            {"age": rng.integers(18, 80, n).astype(float), "region": pd.Categorical(rng.choice(list("abcde"), n))}
+        )
+        counts = rng.poisson(np.exp(-1 + 0.02 * features["age"] + 0.8 * features["region"].isin(["b", "d"])))
+        params = {"objective": "poisson", "num_leaves": 5, "min_data_in_leaf": 20, "verbose": -1, "seed": 1}
+        params |= {"num_threads": 1, "min_data_per_group": 5, "cat_smooth": 1, "max_cat_to_onehot": 1}
+        _MADE["model"] = lgb.train(params, lgb.Dataset(features, counts), num_boost_round=3).model_to_string()
+    return str(_MADE["model"])
+
+
+def model(old: str = "", new: str = "", cut: int | None = None) -> Prepare:
+    """model.txt: the small model with `old` replaced by `new` once, or cut to `cut` characters
+    (negative: that many from the end)."""
+
+    def prepare(folder: Path) -> None:
+        text = _model_text()
+        if old:
+            assert old in text, old
+            text = text.replace(old, new, 1)
+        (folder / "model.txt").write_text(text if cut is None else text[:cut])
+
+    return prepare
+
+
+def _parquet_with(column: str, values: Callable[[int], pa.Array], name: str = "book.parquet") -> Prepare:
+    """book.parquet: the small book with one more column made by `values(rows)`."""
+
+    def prepare(folder: Path) -> None:
+        table = pa.Table.from_pandas(small_book(60), preserve_index=False)
+        pq.write_table(table.append_column(column, values(table.num_rows)), folder / name)
+
+    return prepare
+
+
+def _duplicate_parquet(folder: Path) -> None:
+    table = pa.Table.from_pandas(small_book(60), preserve_index=False)
+    pq.write_table(table.append_column("region", table.column("region")), folder / "book.parquet")
+
+
+def _duplicate_header(name: str) -> Prepare:
+    """CSV `name` with its 'region' column given a second time at the end (different values)."""
+
+    def edit(data: bytes) -> bytes:
+        head, *rows = data.decode().splitlines()
+        return ("\n".join([head + ",region", *(row + ",Elsewhere" for row in rows)]) + "\n").encode()
+
+    return raw(name, edit)
+
+
+def _mixed_folder(folder: Path) -> None:
+    (folder / "parts").mkdir()
+    small_book(60).iloc[:30].to_csv(folder / "parts" / "a.csv", index=False)
+    small_book(60).iloc[30:].to_parquet(folder / "parts" / "b.parquet", index=False)
+
+
+def _deep_spec(depth: int) -> Prepare:
+    return spec("[split]", "[split]\nextra = " + "[" * depth + "]" * depth + "\n")
+
+
+def _scenario(edit: Callable[[str], str] = lambda t: t) -> Prepare:
+    def prepare(folder: Path) -> None:
+        (folder / "scenario.toml").write_text(edit((ROOT / "scenarios" / "motor.toml").read_text()))
+
+    return prepare
+
+
+def _link(name: str, to: str) -> Prepare:
+    return lambda folder: (folder / name).symlink_to(to)
+
+
+TABULATE = "tabulate run --out newtable"
+CERTIFY = "certify model.txt --factor age --direction increasing"
 
 ZONE = "[factors.zone]\ntype = 'categorical'\n[factors.region]"
 FIT = "fit book.csv --spec spec.toml --out run --models glm"
@@ -633,6 +760,527 @@ CASES: list[tuple[str, str, int, str, Prepare | None]] = [
         2,
         "column:premium: the book has no column 'premium'",
         None,
+    ),
+    # ---- issue 11: outputs never over, around or inside an input (item 1)
+    (
+        "tabulate-force-onto-the-runs-own-book",
+        "tabulate run --out runbook.csv --force",
+        2,
+        "runbook.csv: is or holds the input run/../runbook.csv",
+        _fitted,
+    ),
+    ("tabulate-force-onto-the-run", "tabulate run --out run --force", 2, "run: is or holds the input run", _fitted),
+    (
+        "tabulate-force-into-the-runs-models",
+        "tabulate run --out run/models --force",
+        2,
+        "run/models: lies inside the input run",
+        _fitted,
+    ),
+    ("tabulate-into-the-run", "tabulate run --out run/table", 2, "run/table: lies inside the input run", _fitted),
+    (
+        "tabulate-force-onto-the-book-option",
+        "tabulate run --out policies.csv --book policies.csv --force",
+        2,
+        "policies.csv: is or holds the input policies.csv",
+        _fitted,
+    ),
+    (
+        "rate-force-into-the-table",
+        "rate table policies.csv --out table/factors/age.csv --force",
+        2,
+        "table/factors/age.csv: lies inside the input table",
+        None,
+    ),
+    (
+        "impact-force-onto-the-tables-manifest",
+        "impact policies.csv --current table --proposed table --out table/table.json --force",
+        2,
+        "table/table.json: lies inside the input table",
+        None,
+    ),
+    (
+        "impact-figure-into-the-table",
+        "impact policies.csv --current table --proposed table --figure table/f.png",
+        2,
+        "table/f.png: lies inside the input table",
+        None,
+    ),
+    (
+        "rate-force-onto-a-link-to-the-book",
+        "rate table policies.csv --out priced.csv --force",
+        2,
+        "priced.csv: is or holds the input policies.csv",
+        _link("priced.csv", "policies.csv"),
+    ),
+    (
+        "fit-force-onto-a-link-to-the-spec",
+        "fit book.csv --spec spec.toml --out run --force --models glm",
+        2,
+        "run: is or holds the input spec.toml",
+        _link("run", "spec.toml"),
+    ),
+    (
+        "compare-force-onto-the-runs-book",
+        "compare run --out runbook.csv --force",
+        2,
+        "runbook.csv: is or holds the input run/../runbook.csv",
+        _fitted,
+    ),
+    (
+        "compare-force-onto-the-models",
+        "compare run --out run/models --force",
+        2,
+        "run/models: is or holds the input run/models",
+        _fitted,
+    ),
+    ("compare-out-inside-the-run", "compare run --out run/cmp", 2, "run/cmp: lies inside the input run", _fitted),
+    (
+        "compare-again-without-force",
+        "compare run",
+        2,
+        "run/figures: already exists; use --force",
+        make(_fitted, lambda f: (f / "run" / "figures").mkdir()),
+    ),
+    (
+        "compare-link-in-the-run-to-the-book",
+        "compare run --force",
+        2,
+        "run/comparison.json: is or holds the input run/../runbook.csv",
+        make(_fitted, _link("run/comparison.json", "../runbook.csv")),
+    ),
+    (
+        "compare-out-exists",
+        "compare run --out cmp",
+        2,
+        "cmp: already exists; use --force",
+        make(_fitted, lambda f: (f / "cmp").mkdir()),
+    ),
+    (
+        "compare-out-under-missing-folder",
+        "compare run --out nofolder/cmp",
+        2,
+        "the folder nofolder does not exist",
+        _fitted,
+    ),
+    # ---- issue 11: hostile level names in the exhibit (item 2): the table is written, exit 0
+    ("tabulate-formula-and-control-levels-work", TABULATE + " --model glm", 0, "wrote newtable", _fitted),
+    # ---- issue 11: hand-edited run folders
+    (
+        "run-json-without-the-book",
+        TABULATE,
+        2,
+        "run/run.json: key 'book.path_from_run' is missing or not a string",
+        manifest(lambda d: d.pop("book")),
+    ),
+    (
+        "run-json-rows-of-wrong-type",
+        TABULATE,
+        2,
+        "run/run.json: key 'rows.total' is missing or not an integer",
+        manifest(lambda d: d["rows"].update(total="many")),
+    ),
+    (
+        "run-json-without-cautions",
+        "compare run --out cmp",
+        2,
+        "run/run.json: key 'cautions' is missing or not a list",
+        manifest(lambda d: d.pop("cautions")),
+    ),
+    (
+        "run-truncated-predictions",
+        TABULATE,
+        2,
+        "run/predictions.parquet: not a readable Parquet file",
+        in_run("predictions.parquet", lambda b: b[: len(b) // 2]),
+    ),
+    (
+        "run-truncated-predictions-compare",
+        "compare run --out cmp",
+        2,
+        "run/predictions.parquet: not a readable Parquet file",
+        in_run("predictions.parquet", lambda b: b[: len(b) // 2]),
+    ),
+    (
+        "run-levels-without-labels",
+        TABULATE,
+        2,
+        "run/levels.json: not a levels file written by `fit`",
+        in_run("levels.json", lambda b: b'{"age": {"base": "x"}}'),
+    ),
+    (
+        "run-truncated-boosted-model",
+        TABULATE + " --model gbm",
+        2,
+        "run/models/gbm_pure_premium.txt: model text: no 'end of",
+        in_run("models/gbm_pure_premium.txt", lambda b: b[: len(b) * 2 // 3]),
+    ),
+    (
+        "run-boosted-model-child-out-of-range",
+        TABULATE + " --model gbm",
+        2,
+        "run/models/gbm_pure_premium.txt: model text:",
+        in_run("models/gbm_pure_premium.txt", lambda b: b.replace(b"\nnum_leaves=", b"\nnum_leaves=9", 1)),
+    ),
+    # ---- issue 11: the model reader (item 4)
+    ("model-intact-works", CERTIFY, 0, "trees checked", model()),
+    ("model-empty", CERTIFY, 2, "model.txt: model text: no 'feature_names' line", model(cut=0)),
+    ("model-truncated-in-a-tree", CERTIFY, 2, "no 'end of trees' line; the file is truncated", model(cut=900)),
+    ("model-truncated-in-parameters", CERTIFY, 2, "no 'end of parameters' line; the file is truncated", model(cut=-60)),
+    (
+        "model-non-numeric-threshold",
+        CERTIFY,
+        2,
+        "tree 0 has a non-numeric 'threshold'",
+        model("threshold=0 ", "threshold=x "),
+    ),
+    ("model-non-numeric-leaves", CERTIFY, 2, "has num_leaves='abc'", model("num_leaves=5", "num_leaves=abc")),
+    ("model-30000-leaves", CERTIFY, 2, "tree 0 has num_leaves=30000; 1..", model("num_leaves=5", "num_leaves=30000")),
+    (
+        "model-leaves-of-many-digits",
+        CERTIFY,
+        2,
+        "a whole number below 10^9",
+        model("num_leaves=5", "num_leaves=5" + "0" * 400),
+    ),
+    (
+        "model-child-out-of-range",
+        CERTIFY,
+        2,
+        "tree 0 has a left_child outside the tree",
+        model("left_child=1 3", "left_child=1 9"),
+    ),
+    (
+        "model-child-back-to-the-root",
+        CERTIFY,
+        2,
+        "node 0 leads back to a node already reached",
+        model("left_child=1 3", "left_child=0 3"),
+    ),
+    (
+        "model-child-reached-twice",
+        CERTIFY,
+        2,
+        "leads back to a node already reached",
+        model("right_child=2 -3", "right_child=1 -3"),
+    ),
+    (
+        "model-negative-split-feature",
+        CERTIFY,
+        2,
+        "tree 0 splits on a feature outside 0..1",
+        model("split_feature=1 0", "split_feature=1 -1"),
+    ),
+    (
+        "model-split-feature-too-large",
+        CERTIFY,
+        2,
+        "tree 0 splits on a feature outside 0..1",
+        model("split_feature=1 0", "split_feature=1 7"),
+    ),
+    (
+        "model-fractional-split-feature",
+        CERTIFY,
+        2,
+        "'split_feature' that is not a whole number",
+        model("split_feature=1 0", "split_feature=1 0.5"),
+    ),
+    (
+        "model-categorical-threshold-out-of-range",
+        CERTIFY,
+        2,
+        "categorical threshold outside 0..0",
+        model("threshold=0 ", "threshold=3 "),
+    ),
+    (
+        "model-negative-category-word",
+        CERTIFY,
+        2,
+        "cat_boundaries or cat_threshold out of range",
+        model("cat_threshold=10", "cat_threshold=-10"),
+    ),
+    (
+        "model-category-bounds-out-of-range",
+        CERTIFY,
+        2,
+        "cat_boundaries or cat_threshold out of range",
+        model("cat_boundaries=0 1", "cat_boundaries=0 7"),
+    ),
+    (
+        "model-num-cat-disagrees",
+        CERTIFY,
+        2,
+        "tree 0 has num_cat=2 but 2 cat_boundaries",
+        model("num_cat=1", "num_cat=2"),
+    ),
+    (
+        "model-unknown-decision-type",
+        CERTIFY,
+        2,
+        "decision_type outside 0..15",
+        model("decision_type=1 2", "decision_type=1 99"),
+    ),
+    (
+        "model-nan-leaf-value",
+        CERTIFY,
+        2,
+        "missing or infinite value in 'leaf_value'",
+        model("leaf_value=0.", "leaf_value=nan 0."),
+    ),
+    (
+        "model-leaf-value-missing-one",
+        CERTIFY,
+        2,
+        "arrays that disagree with num_leaves=5",
+        model("leaf_value=0.37943515569769182 ", "leaf_value="),
+    ),
+    (
+        "model-leaf-count-missing-one",
+        CERTIFY,
+        2,
+        "arrays that disagree with num_leaves=5",
+        model("leaf_count=77 ", "leaf_count="),
+    ),
+    ("model-without-leaf-values", CERTIFY, 2, "tree 0 lacks 'leaf_value'", model("leaf_value=", "leaf_valu=")),
+    (
+        "model-tree-sizes-edited",
+        CERTIFY,
+        2,
+        "tree_sizes do not match the tree sections",
+        model("tree_sizes=666", "tree_sizes=667"),
+    ),
+    (
+        "model-max-feature-index-edited",
+        CERTIFY,
+        2,
+        "max_feature_idx=4 but 2 feature names",
+        model("max_feature_idx=1", "max_feature_idx=4"),
+    ),
+    (
+        "model-several-trees-per-iteration",
+        CERTIFY,
+        2,
+        "several trees per iteration",
+        model("num_tree_per_iteration=1", "num_tree_per_iteration=3"),
+    ),
+    ("model-linear-tree", CERTIFY, 2, "tree 0 is a linear tree", model("is_linear=0", "is_linear=1")),
+    ("model-tree-index-not-a-number", CERTIFY, 2, "has Tree='x'", model("Tree=1", "Tree=x")),
+    (
+        "model-categorical-promise",
+        "certify model.txt --factor region --direction increasing",
+        2,
+        "splits the promised feature as a categorical",
+        model(),
+    ),
+    # ---- issue 11: every read whole or refused (item 3)
+    (
+        "book-duplicate-column-csv",
+        FIT,
+        2,
+        "book.csv: column 'region' appears twice in the header (columns 7 and 9)",
+        _duplicate_header("book.csv"),
+    ),
+    (
+        "book-duplicate-column-validate",
+        "validate book.csv --spec spec.toml",
+        2,
+        "column 'region' appears twice in the header",
+        _duplicate_header("book.csv"),
+    ),
+    (
+        "rate-duplicate-column",
+        RATE,
+        2,
+        "policies.csv: column 'region' appears twice in the header",
+        _duplicate_header("policies.csv"),
+    ),
+    (
+        "book-duplicate-column-parquet",
+        "fit book.parquet --spec spec.toml --out run",
+        2,
+        "book.parquet: column 'region' appears twice",
+        _duplicate_parquet,
+    ),
+    (
+        "book-struct-column",
+        "fit book.parquet --spec spec.toml --out run",
+        2,
+        "book.parquet: column 'extra' is nested (struct<a: int64>)",
+        _parquet_with("extra", lambda n: pa.array([{"a": 1}] * n)),
+    ),
+    (
+        "book-list-column-validate",
+        "validate book.parquet --spec spec.toml",
+        2,
+        "book.parquet: column 'extra' is nested (list<",
+        _parquet_with("extra", lambda n: pa.array([[1, 2]] * n)),
+    ),
+    (
+        "rate-struct-column",
+        "rate table book.parquet --out priced.csv",
+        2,
+        "book.parquet: column 'extra' is nested",
+        _parquet_with("extra", lambda n: pa.array([{"a": 1}] * n)),
+    ),
+    (
+        "book-folder-mixing-formats",
+        "fit parts --spec spec.toml --out run",
+        2,
+        "parts: the folder mixes CSV and Parquet parts (a.csv and b.parquet)",
+        _mixed_folder,
+    ),
+    (
+        "rate-folder-mixing-formats",
+        "rate table parts --out priced.csv",
+        2,
+        "the folder mixes CSV and Parquet parts",
+        _mixed_folder,
+    ),
+    (
+        "validate-claim-count-1e26",
+        "validate book.csv --spec spec.toml",
+        1,
+        "column 'claim_count': 1 row with a claim count above 1e+06 (check the column) (rows 3)",
+        book(
+            lambda d: d.astype({"claim_count": object}).assign(
+                claim_count=lambda x: x["claim_count"].mask(x.index == 3, "1e26")
+            )
+        ),
+    ),
+    (
+        "fit-claim-count-2e6",
+        FIT,
+        2,
+        "column 'claim_count': 1 row with a claim count above 1e+06 (check the column) (rows 4)",
+        book(lambda d: d.assign(claim_count=d["claim_count"].mask(d.index == 4, 2_000_000))),
+    ),
+    (
+        "validate-absurd-amount",
+        "validate book.csv --spec spec.toml",
+        1,
+        "with a claim amount of 1e+15 or more (check the units)",
+        book(
+            lambda d: d.assign(claim_amount=d["claim_amount"].mask(d.index == d.index[d["claim_count"] > 0][0], 1e300))
+        ),
+    ),
+    (
+        "validate-infinite-amount",
+        "validate book.csv --spec spec.toml",
+        1,
+        "with a missing or non-finite claim amount",
+        book(
+            lambda d: d.astype({"claim_amount": object}).assign(
+                claim_amount=lambda x: x["claim_amount"].mask(x.index == 2, "inf")
+            )
+        ),
+    ),
+    # ---- issue 11: limits at the edge (item 5)
+    (
+        "spec-threads-too-many",
+        FIT,
+        2,
+        "key 'gbm.threads' must be <= 256, got 100000",
+        spec("[split]", "[gbm]\nthreads = 100000\n[split]"),
+    ),
+    (
+        "spec-threads-zero",
+        FIT,
+        2,
+        "key 'gbm.threads' must be >= 1, got 0",
+        spec("[split]", "[gbm]\nthreads = 0\n[split]"),
+    ),
+    (
+        "spec-relativity-decimals-400",
+        FIT,
+        2,
+        "key 'table.relativity_decimals' must be <= 12, got 400",
+        spec("[split]", "[table]\nrelativity_decimals = 400\n[split]"),
+    ),
+    (
+        "spec-premium-decimals-13",
+        FIT,
+        2,
+        "key 'table.premium_decimals' must be <= 12, got 13",
+        spec("[split]", "[table]\npremium_decimals = 13\n[split]"),
+    ),
+    (
+        "spec-seed-above-lightgbms",
+        FIT,
+        2,
+        "key 'split.seed' must be <= 2147483647, got 2147483648",
+        spec("seed = 7", "seed = 2147483648"),
+    ),
+    (
+        "spec-seed-of-300-digits",
+        FIT,
+        2,
+        "key 'split.seed' must be <= 2147483647, got 1000000000",
+        spec("seed = 7", "seed = 1" + "0" * 300),
+    ),
+    (
+        "spec-seed-of-5000-digits",
+        FIT,
+        2,
+        "spec.toml: a number cannot be read (Exceeds the limit",
+        spec("seed = 7", "seed = 1" + "0" * 5000),
+    ),
+    (
+        "spec-integer-beyond-int64",
+        FIT,
+        2,
+        "key 'table.max_bands' must be <= 9223372036854775807",
+        spec("[split]", "[table]\nmax_bands = " + str(2**70) + "\n[split]"),
+    ),
+    ("spec-nested-40-deep", FIT, 2, "spec.toml: TOML nested too deeply (at most 32 levels)", _deep_spec(40)),
+    ("spec-nested-5000-deep", FIT, 2, "spec.toml: TOML nested too deeply (at most 32 levels)", _deep_spec(5000)),
+    (
+        "spec-bare-date",
+        FIT,
+        2,
+        "key 'table.effective_date' is a bare TOML date or time (2027-01-01)",
+        spec("[split]", "[table]\neffective_date = 2027-01-01\n[split]"),
+    ),
+    (
+        "spec-date-for-a-string",
+        FIT,
+        2,
+        "key 'table.table_id' is a bare TOML date or time",
+        spec("[split]", "[table]\ntable_id = 2027-01-01\n[split]"),
+    ),
+    (
+        "spec-date-time-for-a-column",
+        FIT,
+        2,
+        "key 'columns.exposure' is a bare TOML date or time",
+        spec('exposure = "exposure"', "exposure = 1979-05-27T07:32:00Z"),
+    ),
+    (
+        "spec-time-in-a-list",
+        FIT,
+        2,
+        "key 'factors.age.bands[1]' is a bare TOML date or time",
+        spec("bands = [25, 40, 60]", "bands = [25, 07:32:00, 60]"),
+    ),
+    (
+        "simulate-policies-too-many",
+        "simulate scenario.toml --out sim.csv --policies 100000000000000",
+        2,
+        "--policies must be an integer from 1 to 50,000,000, got 100000000000000",
+        _scenario(),
+    ),
+    (
+        "simulate-seed-too-large",
+        "simulate scenario.toml --out sim.csv --policies 10 --seed " + "9" * 100,
+        2,
+        "--seed must be an integer from 0 to",
+        _scenario(),
+    ),
+    (
+        "scenario-policies-too-many",
+        "simulate scenario.toml --out sim.csv",
+        2,
+        "key 'scenario.policies' must be <= 50000000",
+        _scenario(lambda t: t.replace("policies = ", "policies = 9000000000 # ", 1)),
     ),
 ]
 IDS = [c[0] for c in CASES]

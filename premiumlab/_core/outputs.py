@@ -11,6 +11,7 @@ destroy or change an input.
 
 from __future__ import annotations
 
+import errno
 import os
 import re
 import shutil
@@ -77,18 +78,48 @@ def check_target(target: Path, force: bool, inputs: tuple[str | Path, ...] = ())
         raise InputError(f"{target}: already exists; use --force to replace it")
 
 
+#: Errors of writing that belong to the target rather than to an input: no space, no permission,
+#: a read-only file system, a quota or file size limit.
+_WRITE_ERRNOS = frozenset({errno.ENOSPC, errno.EACCES, errno.EPERM, errno.EROFS, errno.EDQUOT, errno.EFBIG})
+
+
 def _name_the_target(error: BaseException, tmp: Path, target: Path) -> None:
     """Let a one-line bad-input message about the hidden temporary path name the target instead."""
     if isinstance(error, ValueError) and len(error.args) == 1 and isinstance(error.args[0], str):
         error.args = (error.args[0].replace(str(tmp), str(target)),)
 
 
+def _write_failure(error: BaseException, tmp: Path, target: Path) -> InputError | None:
+    """The one-line error naming `target` for an OS error met while writing the temporary output
+    (about a path under `tmp`, or about no path, as a full disk is), or None for any other error
+    (one about an input keeps its own path)."""
+    if not isinstance(error, OSError) or isinstance(error, InputError):
+        return None
+    where = error.filename
+    ours = where is None or str(where).startswith(str(tmp)) or str(where).startswith(str(target))
+    if not ours or (where is None and error.errno not in _WRITE_ERRNOS):
+        return None
+    return InputError(f"{target}: cannot be written ({error.strerror or error})")
+
+
+@contextmanager
+def _naming_the_target(tmp: Path, target: Path) -> Iterator[None]:
+    """Re-raise an OS error of writing under `tmp` as one naming `target` (`_write_failure`)."""
+    try:
+        yield
+    except OSError as error:
+        failure = _write_failure(error, tmp, target)
+        if failure is None:
+            raise
+        raise failure from None
+
+
 def _discard(tmp: Path) -> None:
     """Remove a temporary output (a folder or a file), if it is there."""
-    if tmp.is_dir():
+    if tmp.is_dir() and not tmp.is_symlink():
         shutil.rmtree(tmp, ignore_errors=True)
     else:
-        tmp.unlink(missing_ok=True)
+        tmp.unlink(missing_ok=True)  # a link is removed, never followed
 
 
 def _appeared(target: Path) -> InputError:
@@ -110,12 +141,13 @@ def atomic_output(
     check_target(target, force, inputs)
     parent = target.parent
     tmp = parent / f".{target.name}.tmp-{os.getpid()}"
-    if tmp.exists():
-        shutil.rmtree(tmp) if tmp.is_dir() else tmp.unlink()
+    _discard(tmp)
     if kind == "dir":
-        tmp.mkdir()
+        with _naming_the_target(tmp, target):
+            tmp.mkdir()
     try:
-        yield tmp
+        with _naming_the_target(tmp, target):
+            yield tmp
     except BaseException as error:
         _name_the_target(error, tmp, target)
         _discard(tmp)
@@ -124,15 +156,17 @@ def atomic_output(
         _discard(tmp)
         raise _appeared(target)
     old = None
-    if target.exists() or target.is_symlink():
-        old = parent / f".{target.name}.old-{os.getpid()}"
-        os.replace(target, old)
-    try:
-        os.replace(tmp, target)
-    except BaseException:
-        if old is not None:
-            os.replace(old, target)
-        raise
+    with _naming_the_target(tmp, target):
+        if target.exists() or target.is_symlink():
+            old = parent / f".{target.name}.old-{os.getpid()}"
+            os.replace(target, old)
+        try:
+            os.replace(tmp, target)
+        except BaseException:
+            _discard(tmp)
+            if old is not None:
+                os.replace(old, target)
+            raise
     if old is not None:
         shutil.rmtree(old) if old.is_dir() and not old.is_symlink() else old.unlink()
 
@@ -147,20 +181,22 @@ def atomic_files(targets: list[Path], force: bool = False, inputs: tuple[str | P
         if t.is_dir() and not t.is_symlink():
             raise InputError(f"{t}: is a folder; the output is a file")
     tmp = parent / f".{targets[0].name}.tmp-{os.getpid()}"
-    shutil.rmtree(tmp, ignore_errors=True)
-    tmp.mkdir()
+    _discard(tmp)
+    with _naming_the_target(tmp, targets[0]):
+        tmp.mkdir()
     try:
-        yield tmp
-        for t in targets:
-            if not (tmp / t.name).exists():
-                raise InputError(f"{t}: was not written")
-            if not force and (t.exists() or t.is_symlink()):
-                raise _appeared(t)
-        for t in targets:
-            os.replace(tmp / t.name, t)
+        with _naming_the_target(tmp, targets[0]):
+            yield tmp
+            for t in targets:
+                if not (tmp / t.name).exists():
+                    raise InputError(f"{t}: was not written")
+                if not force and (t.exists() or t.is_symlink()):
+                    raise _appeared(t)
+            for t in targets:
+                os.replace(tmp / t.name, t)
     except BaseException as error:
         for t in targets:
             _name_the_target(error, tmp / t.name, t)
         raise
     finally:
-        shutil.rmtree(tmp, ignore_errors=True)
+        _discard(tmp)

@@ -20,6 +20,30 @@ from premiumlab._core.errors import InputError
 
 #: Default of a read that has none: the key must be given.
 REQUIRED: Any = object()
+#: The deepest nesting of tables and arrays a TOML input file may have (a spec needs 3).
+MAX_DEPTH = 32
+#: Every integer read is at most this in size (int64), whatever its own bound.
+INTEGER_LIMIT = 2**63 - 1
+
+
+def _check_document(doc: dict, path: Path) -> None:
+    """Refuse a document nested deeper than MAX_DEPTH tables and arrays, or holding a bare TOML date,
+    time or date-time (every date premiumlab reads is a quoted "YYYY-MM-DD" string, and a bare one
+    could not be copied into run.json), naming its dotted key; walked without recursion."""
+    stack: list[tuple[Any, str, int]] = [(doc, "", 0)]
+    while stack:
+        value, key, depth = stack.pop()
+        if depth > MAX_DEPTH:
+            raise InputError(f"{path}: TOML nested too deeply (at most {MAX_DEPTH} levels)")
+        if isinstance(value, (dt.date, dt.time)):
+            raise InputError(
+                f"{path}: key '{key}' is a bare TOML date or time ({value.isoformat()}); write dates as "
+                f'quoted strings, "YYYY-MM-DD"'
+            )
+        if isinstance(value, dict):
+            stack.extend((v, f"{key}.{k}" if key else str(k), depth + 1) for k, v in value.items())
+        elif isinstance(value, list):
+            stack.extend((v, f"{key}[{i}]", depth + 1) for i, v in enumerate(value))
 
 
 def read_toml(path: str | Path, kind: str) -> dict:
@@ -40,7 +64,8 @@ def read_toml(path: str | Path, kind: str) -> dict:
     Raises
     ------
     InputError
-        When the file is missing, a directory, unreadable, not UTF-8 or not valid TOML.
+        When the file is missing, a directory, unreadable, not UTF-8, not valid TOML, nested
+        deeper than MAX_DEPTH tables and arrays, or holding a bare TOML date or time.
     """
     p = Path(path)
     if p.is_dir():
@@ -54,9 +79,15 @@ def read_toml(path: str | Path, kind: str) -> dict:
     except OSError as e:
         raise InputError(f"{p}: cannot read {kind} ({e.strerror})") from None
     try:
-        return tomllib.loads(text)
+        doc = tomllib.loads(text)
     except tomllib.TOMLDecodeError as e:
         raise InputError(f"{p}: malformed TOML: {e}") from None
+    except ValueError as e:  # an integer of more digits than Python converts (sys.get_int_max_str_digits)
+        raise InputError(f"{p}: a number cannot be read ({str(e).split(';')[0]})") from None
+    except RecursionError:
+        raise InputError(f"{p}: TOML nested too deeply (at most {MAX_DEPTH} levels)") from None
+    _check_document(doc, p)
+    return doc
 
 
 def is_number(value: Any) -> bool:
@@ -151,13 +182,18 @@ class TomlTable:
         """A finite number within [low, high] (`low_open`/`high_open` exclude the bound), as float."""
         return _number(self, key, self.value(key, default), low, high, low_open, high_open)
 
-    def integer(self, key: str, default: Any = REQUIRED, *, low: int | None = None) -> int:
-        """An integer (not a boolean) >= `low`."""
+    def integer(self, key: str, default: Any = REQUIRED, *, low: int | None = None, high: int | None = None) -> int:
+        """An integer (not a boolean) >= `low` and <= `high` (always at most INTEGER_LIMIT in size)."""
         value = self.value(key, default)
         if not isinstance(value, int) or isinstance(value, bool):
-            raise self.error(key, f"must be an integer, got {value!r}")
+            raise self.error(key, f"must be an integer, got {_shown(value)}")
         if low is not None and value < low:
-            raise self.error(key, f"must be >= {low}, got {value!r}")
+            raise self.error(key, f"must be >= {low}, got {_shown(value)}")
+        top = INTEGER_LIMIT if high is None else min(high, INTEGER_LIMIT)
+        if value > top or value < -INTEGER_LIMIT:
+            raise self.error(
+                key, f"must be {'<= ' + str(top) if value > 0 else 'an integer of int64 size'}, got {_shown(value)}"
+            )
         return value
 
     def boolean(self, key: str, default: Any = REQUIRED) -> bool:
@@ -231,6 +267,12 @@ class TomlTable:
     def optional_table(self, key: str, *, what: str = "a table") -> TomlTable | None:
         """The sub-table at `key`, or None when the key is absent."""
         return self.table(key, what=what) if self.has(key) else None
+
+
+def _shown(value: Any) -> str:
+    """`value` for a message, cut to 40 characters (a 5,000-digit number stays one short line)."""
+    text = repr(value)
+    return text if len(text) <= 40 else f"{text[:37]}... ({len(text)} characters)"
 
 
 def _number(

@@ -103,14 +103,26 @@ def read_columns(path: str | Path) -> list[str]:
 
 
 def _part_columns(kind: str, part: Path) -> list[str]:
+    """The column names of one part, refused when one repeats or (Parquet) a column is nested
+    (`rating_tables.books.check_columns`, `check_flat`)."""
     if kind == "csv":
-        return list(cast(pd.DataFrame, _read_csv(part, nrows=0)).columns)  # no chunksize: one frame
+        names = list(cast(pd.DataFrame, _read_csv(part, nrows=0)).columns)  # no chunksize: one frame
+        try:
+            rating_tables.books.check_columns(part, rating_tables.books.csv_header(part))
+        except TableError as e:
+            raise InputError(str(e)) from None
+        return names
     import pyarrow.parquet as pq
 
     try:
-        return list(pq.read_schema(part).names)
+        schema = pq.read_schema(part)
     except Exception as e:  # pyarrow raises several types for damaged files
         raise unreadable_parquet(part, e) from None
+    try:
+        rating_tables.books.check_flat(part, schema)
+    except TableError as e:
+        raise InputError(str(e)) from None
+    return list(schema.names)
 
 
 def _read_csv(path: Path, **kwargs) -> pd.DataFrame | Iterator[pd.DataFrame]:

@@ -20,6 +20,9 @@ SHOW_ROWS = 5
 #: Money amounts must stay below this: float64 holds 15 to 16 significant digits, so from 1e15 on a
 #: sum of amounts can no longer carry cents (and squares in the deviances overflow long before 1e308).
 MONEY_LIMIT = 1e15
+#: Claim counts above this on one row are refused as implausible (a row is a policy's period, or at
+#: most a small cell of them; a count that large is a unit or column mix-up). Common practice, not a rule.
+COUNT_LIMIT = 1e6
 
 
 @dataclass(frozen=True)
@@ -195,6 +198,13 @@ def check_chunk(chunk: pd.DataFrame, offset: int, spec: Spec, out: FindingCollec
     out.add("error", c.claim_count, "with a negative claim count", count < 0, offset)
     out.add(
         "error", c.claim_count, "with a fractional claim count", np.isfinite(count) & (count != np.round(count)), offset
+    )
+    out.add(
+        "error",
+        c.claim_count,
+        f"with a claim count above {COUNT_LIMIT:g} (check the column)",
+        np.isfinite(count) & (count > COUNT_LIMIT),
+        offset,
     )
 
     amount = None

@@ -333,6 +333,7 @@ def parquet_slices(path: str | Path, chunk_rows: int = CHUNK_ROWS) -> list[tuple
             f"{path}: a CSV book is read in one process; convert it to Parquet to validate it on a cluster"
         )
     for part in parts:
+        read_columns(part)  # a part with a repeated or nested column is refused here, as in iter_book
         try:
             meta = pq.ParquetFile(part).metadata
         except Exception as e:  # pyarrow raises several types for damaged files

@@ -21,6 +21,12 @@ from rating_tables import MISSING_LABEL, Loadings
 from rating_tables.monotone import Monotone
 
 MONOTONE = tuple(m.value for m in Monotone)
+#: Bounds of spec numbers checked when the spec is read (docs/spec.md): a seed LightGBM takes (a
+#: 32-bit signed integer), LightGBM threads (far above any machine's cores; 100,000 crashed it), and
+#: decimals the rating table accepts.
+MAX_SEED = 2**31 - 1
+MAX_THREADS = 256
+MAX_DECIMALS = 12
 FACTOR_TYPES = ("numeric", "categorical")
 #: What a missing value of a factor is: its own level or band ("level"), or an error ("refuse").
 MISSING_RULES = ("level", "refuse")
@@ -424,7 +430,7 @@ def _parse_gbm(doc: TomlTable, seed: int) -> GbmOptions:
         {
             "folds": lambda t, k: t.integer(k, low=2),
             "max_settings": lambda t, k: t.integer(k, low=1),
-            "threads": lambda t, k: t.integer(k, low=1),
+            "threads": lambda t, k: t.integer(k, low=1, high=MAX_THREADS),
             "max_rounds": lambda t, k: t.integer(k, low=1),
             "early_stopping_rounds": lambda t, k: t.integer(k, low=1),
             "monotone_method": lambda t, k: t.string(k, choices=MONOTONE_METHODS),
@@ -514,7 +520,7 @@ def parse_spec(doc: dict, source: str = "spec") -> Spec:
             "split",
             {
                 "holdout": _holdout,
-                "seed": lambda t, k: t.integer(k, low=0),
+                "seed": lambda t, k: t.integer(k, low=0, high=MAX_SEED),
             },
         )
     )
@@ -547,8 +553,8 @@ def parse_spec(doc: dict, source: str = "spec") -> Spec:
                 "interactions": _interactions,
                 "sample": lambda t, k: t.integer(k, low=100),
                 "grid_points": lambda t, k: t.integer(k, low=2),
-                "relativity_decimals": lambda t, k: t.integer(k, low=0),
-                "premium_decimals": lambda t, k: t.integer(k, low=0),
+                "relativity_decimals": lambda t, k: t.integer(k, low=0, high=MAX_DECIMALS),
+                "premium_decimals": lambda t, k: t.integer(k, low=0, high=MAX_DECIMALS),
                 "target": lambda t, k: t.string(k, choices=("experience", "current_premium")),
                 "overall_change": lambda t, k: t.number(k, low=-0.9, high=10.0),
             },

@@ -218,14 +218,19 @@ def fit(
 def compare(
     run: Annotated[Path, typer.Argument(help="Run directory written by `fit`.")],
     bounds: Bounds = PLAUSIBLE_RELATIVITY,
+    out: Annotated[
+        Path | None,
+        typer.Option("--out", help="A new folder for comparison.json and figures/ (default: inside the run)."),
+    ] = None,
+    force: Force = False,
 ) -> None:
     """Compare GLM and GBM on the holdout; write comparison.json and figures/; warn of broken models."""
     from premiumlab import api
     from premiumlab.cli.format import comparison_lines, diagnostic_lines
 
-    result = api.compare(run, bounds=bounds)
+    result = api.compare(run, bounds=bounds, out=out, force=force)
     typer.echo("\n".join(comparison_lines(result)))
-    _echo_lines(diagnostic_lines(result.diagnostics, source=run / "comparison.json"))
+    _echo_lines(diagnostic_lines(result.diagnostics, source=(run if out is None else out) / "comparison.json"))
     _echo_cautions(result.cautions)
 
 

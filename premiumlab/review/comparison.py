@@ -9,6 +9,8 @@ severity against the direct Tweedie model.
 
 from __future__ import annotations
 
+from collections.abc import Iterator
+from contextlib import contextmanager
 from pathlib import Path
 
 import pandas as pd
@@ -17,6 +19,7 @@ from premiumlab._core.defaults import FALLBACK_TWEEDIE_POWER, PLAUSIBLE_RELATIVI
 from premiumlab._core.diagnostics import Diagnostic
 from premiumlab._core.errors import InputError
 from premiumlab._core.jsonio import write_json
+from premiumlab._core.outputs import atomic_files, atomic_output
 from premiumlab.evaluation.diagnostics import check_bounds, metric_diagnostics, relativity_diagnostics
 from premiumlab.evaluation.holdout import (
     holdout_metrics,
@@ -25,13 +28,22 @@ from premiumlab.evaluation.holdout import (
 )
 from premiumlab.models.targets import TARGETS
 from premiumlab.runs.diagnostics import merge_diagnostics, model_warnings
-from premiumlab.runs.rundir import model_name
+from premiumlab.runs.rundir import Run, model_name
 
 N_BOOT = 200
+#: The names of the comparison's outputs inside the run folder or `--out` (docs/run-directory.md).
+COMPARISON, FIGURES = "comparison.json", "figures"
 
 
-def compare(run_dir: str | Path, n_boot: int = N_BOOT, bounds: tuple[float, float] = PLAUSIBLE_RELATIVITY) -> dict:
-    """Write RUN/comparison.json and RUN/figures/*.png; return the comparison.
+def compare(
+    run_dir: str | Path,
+    n_boot: int = N_BOOT,
+    bounds: tuple[float, float] = PLAUSIBLE_RELATIVITY,
+    out: str | Path | None = None,
+    force: bool = False,
+) -> dict:
+    """Write comparison.json and figures/*.png (in the run, or in a new folder `out`), atomically;
+    return the comparison.
 
     Parameters
     ----------
@@ -42,6 +54,10 @@ def compare(run_dir: str | Path, n_boot: int = N_BOOT, bounds: tuple[float, floa
         of the deviance reduction and the Gini gain.
     bounds : (float, float)
         Plausibility bounds of the GLM relativities (default [0.2, 5], a common-practice default).
+    out : str or Path or None
+        A new folder for comparison.json and figures/ (None: RUN/comparison.json and RUN/figures/).
+    force : bool
+        Replace an existing `out` (or the run's earlier comparison.json and figures/).
 
     Returns
     -------
@@ -55,9 +71,40 @@ def compare(run_dir: str | Path, n_boot: int = N_BOOT, bounds: tuple[float, floa
     Raises
     ------
     InputError
-        Not a run directory, a run without a holdout, without both GLM and GBM predictions, or
-        bounds that are not 0 < least < greatest.
+        Not a run directory, a run without a holdout, without both GLM and GBM predictions,
+        bounds that are not 0 < least < greatest, or a target that exists without `force` or is,
+        holds or lies inside one of the files the comparison reads.
     """
+    from premiumlab.runs.rundir import open_run
+
+    bounds = check_bounds(bounds)
+    run = open_run(run_dir)
+    with _comparison_output(run, out, force) as (comparison_file, fig_dir):
+        return _compare(run, n_boot, bounds, comparison_file, fig_dir)
+
+
+@contextmanager
+def _comparison_output(run: Run, out: str | Path | None, force: bool) -> Iterator[tuple[Path, Path]]:
+    """(comparison.json, figures folder) to write, temporary paths moved into place on success:
+    a new folder `out` holding both, or the run's own two targets. The inputs are the run's files
+    that the comparison reads and its book, so that the default target (inside the run) is allowed
+    and `--out` can replace none of them."""
+    files = run.files
+    inputs = (files.manifest, files.levels, files.predictions, files.models, run.book_path())
+    if out is not None:
+        with atomic_output(out, force=force, inputs=(*inputs, files.path)) as tmp:
+            (tmp / FIGURES).mkdir()
+            yield tmp / COMPARISON, tmp / FIGURES
+        return
+    with (
+        atomic_output(files.figures, force=force, inputs=inputs) as fig_tmp,
+        atomic_files([files.comparison], force=force, inputs=inputs) as json_tmp,
+    ):
+        yield json_tmp / COMPARISON, fig_tmp
+
+
+def _compare(run: Run, n_boot: int, bounds: tuple[float, float], comparison_file: Path, fig_dir: Path) -> dict:
+    """The comparison of `compare`, its JSON written to `comparison_file` and its figures into `fig_dir`."""
     from premiumlab.evaluation import figures
     from premiumlab.evaluation.metrics import (
         actual_vs_expected,
@@ -68,10 +115,7 @@ def compare(run_dir: str | Path, n_boot: int = N_BOOT, bounds: tuple[float, floa
         lorenz_curve,
     )
     from premiumlab.runs.experience_step import fitted_basis
-    from premiumlab.runs.rundir import open_run
 
-    bounds = check_bounds(bounds)
-    run = open_run(run_dir)
     preds = fitted_basis(run.predictions())
     if not preds["holdout"].any():
         raise InputError(
@@ -96,8 +140,6 @@ def compare(run_dir: str | Path, n_boot: int = N_BOOT, bounds: tuple[float, floa
     }
     hold = preds[preds["holdout"]].reset_index(drop=True)
     groups = hold["policy_group"].to_numpy() if "policy_group" in hold else None
-    fig_dir = run.files.figures
-    fig_dir.mkdir(exist_ok=True)
     for target in result["metrics"]:
         mask, actual, weight, y = target_view(hold, target)
         pw = TARGETS[target].deviance_power(power)
@@ -126,7 +168,7 @@ def compare(run_dir: str | Path, n_boot: int = N_BOOT, bounds: tuple[float, floa
         figures.plot_double_lift(dl, fig_dir / f"double_lift_{target}.png", name_a=a, name_b=b)
     _actual_vs_expected(run, hold, result, fig_dir, actual_vs_expected, figures)
     _cv_figures(run, fig_dir, figures)
-    write_json(run.files.comparison, result)
+    write_json(comparison_file, result)
     return result
 
 

@@ -165,7 +165,7 @@ def _fit_run(
         period = spec.columns.period
         assert periods is not None and period is not None, "the spec refuses period_control without columns.period"
         control = period_control(periods, book.exposure, train, period)
-    with atomic_output(out, force=force) as tmp:
+    with atomic_output(out, force=force, inputs=(book_path, spec_path)) as tmp:
         run = RunDir(tmp)
         run.models.mkdir()
         preds = pd.DataFrame(

@@ -23,6 +23,7 @@ import pandas as pd
 from premiumlab._core.errors import InputError
 from premiumlab._core.jsonio import plain, read_json, write_json
 from premiumlab.book.levels import Levels
+from premiumlab.book.reading import unreadable_parquet
 from premiumlab.book.rows import Book
 from premiumlab.book.scan import load_book
 from premiumlab.book.spec import Spec, parse_spec
@@ -30,6 +31,18 @@ from premiumlab.experience.adjustments import latest_period_holdout, read_text_c
 
 MANIFEST_FORMAT = "premiumlab.run"
 MANIFEST_VERSION = 1
+#: The keys of run.json that commands read, with their JSON types (docs/run-directory.md).
+MANIFEST_KEYS: dict[str, type] = {
+    "spec": dict,
+    "book.path_from_run": str,
+    "book.sha256": str,
+    "rows.total": int,
+    "rows.train": int,
+    "rows.holdout": int,
+    "warnings": list,
+    "cautions": list,
+}
+MANIFEST_KINDS = {dict: "a table", str: "a string", int: "an integer", list: "a list"}
 
 
 def model_name(kind: str, target: str) -> str:
@@ -115,21 +128,35 @@ class RunDir:
         return sorted(path.stem[len(prefix) :] for path in self.models.glob(f"{prefix}*.json"))
 
     def read_manifest(self) -> dict:
-        """run.json, refused with a one-line error when the folder is not a run directory."""
+        """run.json, refused with a one-line error when the folder is not a run directory or a key
+        that commands read is missing or of the wrong type (`MANIFEST_KEYS`: a hand-edited file)."""
         if not self.manifest.is_file():
             raise InputError(f"{self.path}: not a run directory (no run.json); make one with `premiumlab fit`")
-        return read_json(self.manifest)
+        manifest = read_json(self.manifest)
+        for key, kind in MANIFEST_KEYS.items():
+            value: object = manifest
+            for part in key.split("."):
+                value = value.get(part) if isinstance(value, dict) else None
+            if not isinstance(value, kind) or isinstance(value, bool):
+                raise InputError(
+                    f"{self.manifest}: key '{key}' is missing or not {MANIFEST_KINDS[kind]}; "
+                    "the run folder was edited: fit again"
+                )
+        return manifest
 
     def write_manifest(self, contents: dict) -> None:
         """run.json: the format and version, then `contents`."""
         write_json(self.manifest, {"format": MANIFEST_FORMAT, "version": MANIFEST_VERSION, **contents})
 
     def read_levels(self) -> dict[str, Levels]:
-        """levels.json as Levels per factor."""
-        return {
-            name: Levels(name, tuple(v["labels"]), v["base"], None if v["edges"] is None else tuple(v["edges"]))
-            for name, v in read_json(self.levels).items()
-        }
+        """levels.json as Levels per factor (a file without its keys refused in one line)."""
+        try:
+            return {
+                name: Levels(name, tuple(v["labels"]), v["base"], None if v["edges"] is None else tuple(v["edges"]))
+                for name, v in read_json(self.levels).items()
+            }
+        except (KeyError, TypeError, AttributeError) as e:
+            raise InputError(f"{self.levels}: not a levels file written by `fit` ({type(e).__name__}: {e})") from None
 
     def write_levels(self, levels: dict[str, Levels]) -> None:
         """levels.json: labels, base and numeric band edges (null for a categorical) per factor."""
@@ -160,15 +187,41 @@ class Run:
         return self.files.path
 
     def predictions(self) -> pd.DataFrame:
-        return pd.read_parquet(self.files.predictions)
+        """predictions.parquet, refused in one line when it cannot be read whole (truncated, edited)."""
+        try:
+            return pd.read_parquet(self.files.predictions)
+        except Exception as e:  # pyarrow raises several types for damaged files
+            raise unreadable_parquet(self.files.predictions, e) from None
 
     def model_json(self, kind: str, target: str) -> dict:
         return read_json(self.files.model_json(kind, target))
 
+    def book_path(self, path: str | Path | None = None) -> Path:
+        """Where the run's book is: `path` when given, else run.json's `book.path_from_run` taken
+        relative to the run folder."""
+        return Path(path) if path is not None else self.path / self.manifest["book"]["path_from_run"]
+
+    def inputs(self, book: str | Path | None = None) -> tuple[Path, ...]:
+        """Everything a command that reads this run reads, for the output check
+        (`premiumlab._core.outputs.check_target`): the run folder and its book (`book_path`), which
+        is read through run.json and so is an input even when the command line does not name it.
+
+        Parameters
+        ----------
+        book : str or Path or None
+            The book given on the command line (None: the one run.json records).
+
+        Returns
+        -------
+        tuple of Path
+            The run folder, then the book.
+        """
+        return (self.path, self.book_path(book))
+
     def load_book(self, path: str | Path | None = None) -> Book:
         """The run's book (recorded relative to the run folder, or `path`), checked by its sha256,
         with the run's split."""
-        p = Path(path) if path is not None else self.path / self.manifest["book"]["path_from_run"]
+        p = self.book_path(path)
         book = load_book(p, self.spec)
         recorded = self.manifest["book"]["sha256"]
         if book.sha256 != recorded:

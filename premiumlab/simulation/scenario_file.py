@@ -5,7 +5,7 @@ Scenario keys (every key; anything else is refused with an `InputError` naming t
 [scenario]
   name               string, required: identifier written to truth.json
   description        string, default "": one line about the invented portfolio
-  policies           integer >= 1, required: default number of policies
+  policies           integer 1 .. 50,000,000 (MAX_POLICIES), required: default number of policies
   seed               integer >= 0, required: default seed of numpy's `default_rng`
   periods            list of consecutive integers, required: e.g. [2024, 2025], written as `year`
   base_frequency     number > 0, required: claims per policy-year where every effect is 1
@@ -130,6 +130,10 @@ from premiumlab.simulation.scenario import (
     side_stream,
 )
 
+#: The most policies a book may be drawn with (scenario `policies`, `simulate --policies`): about
+#: 10 GB of rows at the simulator's peak, beyond any test book.
+MAX_POLICIES = 50_000_000
+
 
 def _names(t: TomlTable, key: str, noun: str) -> tuple[str, ...]:
     """A list of distinct non-empty names (levels, factors); `noun` names one in messages."""
@@ -178,7 +182,7 @@ def parse_scenario(doc: dict, source: str = "scenario") -> Scenario:
     head: dict[str, Any] = dict(
         name=s.string("name", nonempty=True),
         description=s.string("description", ""),
-        policies=s.integer("policies", low=1),
+        policies=s.integer("policies", low=1, high=MAX_POLICIES),
         seed=s.integer("seed", low=0),
         periods=_periods(s),
         base_frequency=s.number("base_frequency", low=0, low_open=True),

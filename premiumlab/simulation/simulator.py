@@ -20,6 +20,7 @@ import pandas as pd
 
 from premiumlab._core.errors import InputError
 from premiumlab._core.jsonio import write_json
+from premiumlab._core.toml_schema import INTEGER_LIMIT
 from premiumlab.simulation.draw import (
     Effects,
     Rows,
@@ -30,7 +31,7 @@ from premiumlab.simulation.draw import (
     true_effects,
 )
 from premiumlab.simulation.scenario import PREMIUM_COLUMN, Factor, Scenario
-from premiumlab.simulation.scenario_file import load_scenario
+from premiumlab.simulation.scenario_file import MAX_POLICIES, load_scenario
 from premiumlab.simulation.truth import TRUTH_FILE, expected_totals, factor_truths, truth_document
 
 
@@ -89,10 +90,11 @@ def _book_column(
     return integers if missing is None else pd.arrays.IntegerArray(integers, missing)
 
 
-def _checked_override(value: Any, name: str, low: int) -> int:
-    """A caller's `policies` or `seed`: an integer >= `low`."""
-    if not isinstance(value, int) or isinstance(value, bool) or value < low:
-        raise InputError(f"{name} must be an integer >= {low}, got {value!r}")
+def _checked_override(value: Any, name: str, low: int, high: int) -> int:
+    """A caller's `policies` or `seed`: an integer from `low` to `high`."""
+    if not isinstance(value, int) or isinstance(value, bool) or not low <= value <= high:
+        shown = repr(value) if len(repr(value)) <= 40 else f"{repr(value)[:37]}..."
+        raise InputError(f"{name} must be an integer from {low} to {high:,}, got {shown}")
     return value
 
 
@@ -114,8 +116,8 @@ def generate(scenario: Scenario, policies: int | None = None, seed: int | None =
         The book (one row per policy and period), the content of truth.json and the number of
         large claims.
     """
-    n = scenario.policies if policies is None else _checked_override(policies, "policies", 1)
-    s = scenario.seed if seed is None else _checked_override(seed, "seed", 0)
+    n = scenario.policies if policies is None else _checked_override(policies, "--policies", 1, MAX_POLICIES)
+    s = scenario.seed if seed is None else _checked_override(seed, "--seed", 0, INTEGER_LIMIT)
     rng = np.random.default_rng(s)
     policy, period, exposure = exposure_rows(
         rng, n, len(scenario.periods), scenario.new_business_share, scenario.lapse_share

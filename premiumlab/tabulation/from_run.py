@@ -909,9 +909,9 @@ def tabulate(
         raise InputError(f"--model: unknown model '{model}'; use {', '.join(MODEL_CHOICES)}")
     started = time.perf_counter()
     out = Path(out)
-    inputs = (run_dir,) if book is None else (run_dir, book)
-    check_target(out, force, inputs=inputs)
     run = open_run(run_dir)
+    inputs = run.inputs(book)
+    check_target(out, force, inputs=inputs)
     spec = run.spec
     loaded = reread_book(run, book)
     preds = _checked_predictions(run, loaded)

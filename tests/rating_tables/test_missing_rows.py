@@ -236,14 +236,22 @@ def test_the_exhibit_shows_the_missing_row_and_states_the_rules(tmp_path):
     write_exhibit(table, tmp_path / "exhibit.xlsx")
     book = openpyxl.load_workbook(tmp_path / "exhibit.xlsx")
     age_rows = list(book["age"].iter_rows(values_only=True))
-    assert age_rows[0] == ("Band", "Lower", "Upper", "Selected relativity", "Exposure", "Credibility")
-    assert age_rows[3] == ("[60, inf)", 60.0, "inf", 1.25, 300.0, 0.85)
-    assert age_rows[4] == (MISSING_LABEL, None, None, 1.3, 40.0, 0.35)
-    assert len(age_rows) == 5
+    assert age_rows[0] == (
+        "Band",
+        "Band label",
+        "Lower (included)",
+        "Upper (excluded)",
+        "Relativity (indicated, rounded)",
+        "Exposure (policy-year)",
+        "Credibility",
+    )
+    assert age_rows[3] == ("60 and over", "[60, inf)", 60.0, None, 1.25, 300.0, 0.85)
+    assert age_rows[4] == (MISSING_LABEL, None, None, None, 1.3, 40.0, 0.35)
+    assert age_rows[5] == (None,) * 7  # then the note rows
     region_rows = list(book["region"].iter_rows(values_only=True))
-    assert region_rows[-1] == (MISSING_LABEL, 1.1, 25.5)
-    assert list(book["bonus"].iter_rows(values_only=True))[-1] == ("03", 1.25, 220.0)  # no missing row
-    rows = list(book["Summary"].iter_rows(values_only=True))
+    assert region_rows[4] == (MISSING_LABEL, 1.1, 25.5)
+    assert list(book["bonus"].iter_rows(values_only=True))[3] == ("03", 1.25, 220.0)  # no missing row
+    rows = [(row[0], row[4]) for row in book["Cover"].iter_rows(values_only=True)]
     start = rows.index(("Missing values and unknown levels", None))
     assert rows[start + 1 : start + 5] == [
         ("age", "a missing value is rated at the missing row, relativity 1.3"),

@@ -245,29 +245,67 @@ def test_constructor_refuses_what_load_refuses():
         CategoricalFactor("region", "none", ("A",), [1], [1], file="factors/../../x.csv")
 
 
-def test_exhibit_holds_summary_and_factor_sheets(tmp_path):
+def test_exhibit_holds_cover_factor_and_selections_sheets(tmp_path):
     openpyxl = pytest.importorskip("openpyxl")
     write_exhibit(_with_exhibit_columns(), tmp_path / "exhibit.xlsx")
     book = openpyxl.load_workbook(tmp_path / "exhibit.xlsx")
-    assert book.sheetnames == ["Summary", "age", "region", "bonus", "age__region"]
-    summary = {row[0]: row[1] for row in book["Summary"].iter_rows(values_only=True) if row[0]}
-    assert summary["Base rate"] == 200.0
-    assert summary["variable_expense"] == 0.15
-    assert summary["total_pure_premium"] == 250000.0
-    assert summary["1"].startswith("Draft for review by a qualified actuary")
+    assert book.sheetnames == ["Cover", "age", "region", "bonus", "age__region", "Selections"]
+    cover = {row[0]: row for row in book["Cover"].iter_rows(values_only=True) if row[0]}
+    assert cover["Base rate"][1] == 200.0
+    assert cover["Variable expense"][1] == 0.15
+    assert cover["total_pure_premium"][1] == 250000.0
+    assert cover["1"][4].startswith("Draft for review by a qualified actuary")
     age = list(book["age"].iter_rows(values_only=True))
     assert age[0] == (
         "Band",
-        "Lower",
-        "Upper",
+        "Band label",
+        "Lower (included)",
+        "Upper (excluded)",
         "Indicated relativity",
-        "Selected relativity",
-        "Exposure",
+        "Relativity (indicated, rounded)",
+        "Exposure (policy-year)",
         "Credibility",
     )
-    assert age[1] == ("[-inf, 25)", "-inf", 25.0, 1.4871, 1.5, 120.0, 0.6)
+    assert age[1] == ("below 25", "[-inf, 25)", None, 25.0, 1.4871, 1.5, 120.0, 0.6)
     region = list(book["region"].iter_rows(values_only=True))
     assert region[3] == ("Coast", None, 1.5, 220.0)
     grid = list(book["age__region"].iter_rows(values_only=True))
     assert grid[1] == ("age \\ region", "North", "South", "Coast")
-    assert grid[2] == ("[-inf, 30)", 1.0, 1.0, 1.125)
+    assert grid[2] == ("below 30", 1.0, 1.0, 1.125)
+
+
+def test_exhibit_stores_level_names_as_text_never_as_formulas(tmp_path):
+    """Issue 11: a level name from the book beginning with `=`, `+`, `-`, `@`, a tab or a carriage
+    return is stored as text (no `<f>` formula element outside the cover's worked example), and a control
+    character the format cannot hold is shown escaped as `\\xNN` instead of failing the write."""
+    openpyxl = pytest.importorskip("openpyxl")
+    import zipfile
+
+    table = example_table()
+    bonus = table.factor("bonus")
+    keep = {bonus.fallback, bonus.base}
+    names = iter(["=1+1", "@SUM(A1)", "bell\x07"])
+    levels = tuple(level if level in keep else next(names, level) for level in bonus.levels)
+    renamed = dataclasses.replace(bonus, levels=levels)
+    table = dataclasses.replace(table, factors=tuple(renamed if f.name == "bonus" else f for f in table.factors))
+    path = tmp_path / "exhibit.xlsx"
+    write_exhibit(table, path)
+    cover = "xl/worksheets/sheet1.xml"  # the cover, whose worked example holds the exhibit's own formulas
+    with zipfile.ZipFile(path) as z:
+        xml = b"".join(z.read(n) for n in z.namelist() if n.endswith(".xml") and n != cover)
+        assert z.read(cover).count(b"<f>") == 5
+    assert b"<f>" not in xml and b"<f " not in xml
+    cells = [row[0] for row in openpyxl.load_workbook(path)["bonus"].iter_rows(min_row=2, max_row=4, values_only=True)]
+    assert cells == [level.replace("\x07", "\\x07") for level in levels]
+    assert "=1+1" in cells
+
+
+@pytest.mark.parametrize("text", ["+A1", "-B2", "\t=1", "\r=1", '=HYPERLINK("x")'])
+def test_exhibit_cell_text_is_never_a_formula(text):
+    """Each of the usual formula-leading characters gives a text cell (openpyxl data type `s`)."""
+    openpyxl = pytest.importorskip("openpyxl")
+    from rating_tables.exhibit import _cell
+
+    sheet = openpyxl.Workbook().active
+    cell = _cell(sheet, 1, 1, text)
+    assert cell.data_type == "s" and cell.value == text

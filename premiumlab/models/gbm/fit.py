@@ -45,6 +45,7 @@ from premiumlab.models.gbm.training import (
     prepare_training,
 )
 from premiumlab.models.trees.certificate import certify
+from premiumlab.models.trees.parser import parse_model
 
 _DEFAULT_OPTIONS = GbmOptions()
 
@@ -300,6 +301,10 @@ def load_model(text_path: str | Path, json_path: str | Path) -> GbmModel:
     absent = [key for key in required if key not in meta]
     if absent:
         raise InputError(f"{json_path}: missing key {absent[0]!r}")
+    try:
+        parse_model(text)  # LightGBM aborts the process on some damaged texts: they are refused first
+    except InputError as error:
+        raise InputError(f"{text_path}: {error}") from None
     try:
         booster = lgb.Booster(model_str=text)
     except lgb.basic.LightGBMError as error:

@@ -34,6 +34,9 @@ from premiumlab._core.errors import InputError
 from premiumlab.models.trees.parser import MISSING_ZERO, ZERO_THRESHOLD, Tree, is_categorical, missing_type, parse_model
 
 LISTED_VIOLATIONS = 50  # violations listed in full; all are counted
+#: The certificate compares every pair of leaves of a tree (leaves x leaves matrices, one of int64):
+#: a tree with more leaves is refused rather than exhausting memory (4096^2 x 8 bytes = 128 MiB).
+MAX_CERTIFIED_LEAVES = 4096
 SWEEP_TOLERANCE = 1e-12
 
 
@@ -209,12 +212,18 @@ def certify(model_text: str, feature: str | int, direction: int) -> Certificate:
     Raises
     ------
     InputError
-        A direction other than +-1, an unknown feature, a model the parser refuses, or a
-        categorical split on the promised feature.
+        A direction other than +-1, an unknown feature, a model the parser refuses, a tree of
+        more than MAX_CERTIFIED_LEAVES leaves, or a categorical split on the promised feature.
     """
     _check_direction(direction)
     names, trees = parse_model(model_text)
     index = _resolve_feature(names, feature)
+    for tree in trees:
+        if tree.leaf_value.size > MAX_CERTIFIED_LEAVES:
+            raise InputError(
+                f"model text: tree {tree.index} has {tree.leaf_value.size} leaves; the certificate "
+                f"compares every pair of leaves and takes trees of at most {MAX_CERTIFIED_LEAVES}"
+            )
     pairs, violations, splitting = 0, [], 0
     for tree in trees:
         tree_pairs, tree_violations = _tree_pairs(tree, index, direction)
