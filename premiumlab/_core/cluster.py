@@ -19,15 +19,23 @@ from contextlib import contextmanager
 from typing import Any, Protocol
 
 from premiumlab._core.errors import InputError
+from rating_tables.errors import TableError
 
 #: Seconds to wait for a remote scheduler to answer.
 CONNECT_TIMEOUT = 30
 
 
 class TaskRunner(Protocol):
-    """Runs fn(shared, item) for every item and returns the results in the items' order."""
+    """Runs fn(shared, item) for every item and returns the results in the items' order.
+
+    ``workers`` is the number of processes the tasks share (1 here); `place` keeps items where the
+    tasks run, so that several maps over the same partitions of a book send them only once.
+    """
 
     description: str
+    workers: int
+
+    def place(self, items: Sequence[Any]) -> list: ...
 
     def map(
         self, fn: Callable[[Any, Any], Any], shared: Any, items: Sequence[Any], advance: Callable[[], None]
@@ -38,6 +46,11 @@ class InProcess:
     """Every task in this process, one after the other."""
 
     description = "this process"
+    workers = 1
+
+    def place(self, items: Sequence[Any]) -> list:
+        """The items themselves."""
+        return list(items)
 
     def map(
         self, fn: Callable[[Any, Any], Any], shared: Any, items: Sequence[Any], advance: Callable[[], None]
@@ -55,6 +68,11 @@ class DaskTasks:
     def __init__(self, client: Any, description: str) -> None:
         self.client = client
         self.description = description
+        self.workers = max(1, len(client.scheduler_info().get("workers", {})))
+
+    def place(self, items: Sequence[Any]) -> list:
+        """The items scattered to the workers once (futures that tasks take in their place)."""
+        return list(self.client.scatter(list(items), hash=False)) if items else []
 
     def map(
         self, fn: Callable[[Any, Any], Any], shared: Any, items: Sequence[Any], advance: Callable[[], None]
@@ -67,7 +85,7 @@ class DaskTasks:
             for _ in as_completed(futures):
                 advance()
             return self.client.gather(futures)
-        except InputError:
+        except (InputError, TableError):  # bad input found on a worker: its own one-line message
             raise
         except Exception as e:  # what a worker raised, e.g. a library it lacks
             raise InputError(

@@ -93,8 +93,9 @@ def fit(
     progress : Progress or None
         Told the experience step's totals (None: nothing is said).
     cluster : str or None
-        Where the boosted-model search runs (premiumlab._core.cluster): None for this process,
-        local:N for N local worker processes, or a Dask scheduler address.
+        Where the boosted-model search and the GLMs' passes over the rows (cells' sums, row
+        statistics) run (premiumlab._core.cluster): None for this process, local:N for N local
+        worker processes, or a Dask scheduler address. The GLMs' Newton steps run here.
 
     Returns
     -------
@@ -113,7 +114,7 @@ def fit(
     spec = load_spec(spec_path)
     out = Path(out)
     check_target(out, force, inputs=(book_path, spec_path))
-    with tasks_on(cluster if "gbm" in kinds else None) as runner:  # reached before any work is done
+    with tasks_on(cluster) as runner:  # reached before any work is done
         return _fit_run(book_path, spec_path, spec, out, kinds, force, progress, runner)
 
 
@@ -185,7 +186,7 @@ def _fit_run(
         glm_power = None
         if "glm" in kinds:
             t = time.perf_counter()
-            glm_power = fit_glms(book, cats, levels, train, spec, run, preds, has_amount, adjustment, control)
+            glm_power = fit_glms(book, cats, levels, train, spec, run, preds, has_amount, adjustment, control, runner)
             timings["glm_seconds"] = time.perf_counter() - t
         if "gbm" in kinds:
             from premiumlab.runs.gbm_step import fit_gbms
@@ -210,6 +211,7 @@ def _fit_run(
                 "seed": spec.split.seed,
                 "threads": spec.gbm.num_threads,
                 "models": kinds,
+                **({"glm_passes_ran_on": runner.description} if "glm" in kinds else {}),
                 **({"gbm_search_ran_on": runner.description} if "gbm" in kinds else {}),
                 "warnings": [str(w) for w in book.warnings],
                 "diagnostics": merge_diagnostics(diagnostics, model_warnings(run)),

@@ -12,6 +12,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 import pandas as pd
 
+from premiumlab._core.cluster import IN_PROCESS, TaskRunner
 from premiumlab._core.jsonio import write_json
 from premiumlab.book.levels import Levels
 from premiumlab.book.rows import Book
@@ -94,6 +95,7 @@ def fit_glms(
     has_amount: bool,
     adjustment: Adjustment | None = None,
     control: PeriodControl | None = None,
+    runner: TaskRunner = IN_PROCESS,
 ) -> float | None:
     """Fit the three GLMs on the training rows, write them to the run's models/ and add their
     predictions of every row to `preds`; with a period control, predict at the control's
@@ -125,6 +127,9 @@ def fit_glms(
         book as it is).
     control : PeriodControl or None
         The period as a control factor (None: no control).
+    runner : TaskRunner
+        Where the passes over the training rows run (cells' sums, row statistics): this process or
+        the workers of a Dask cluster (`premiumlab._core.cluster`); the Newton steps run here.
 
     Returns
     -------
@@ -141,10 +146,12 @@ def fit_glms(
     inputs = _glm_inputs(counts, cats, levels, train, multiplier, names)
     whole = _glm_inputs(counts, cats, levels, train, None, names) if multiplier is not None else inputs
     engine, penalty = spec.glm.engine, spec.glm.penalty
-    results = {"frequency": fit_frequency(inputs, engine=engine, penalty=penalty)}
+    results = {"frequency": fit_frequency(inputs, engine=engine, penalty=penalty, runner=runner)}
     if has_amount:
-        results["severity"] = fit_severity(inputs, engine=engine, penalty=penalty)
-        results["pure_premium"] = fit_pure_premium(whole, power=spec.glm.tweedie_power, engine=engine, penalty=penalty)
+        results["severity"] = fit_severity(inputs, engine=engine, penalty=penalty, runner=runner)
+        results["pure_premium"] = fit_pure_premium(
+            whole, power=spec.glm.tweedie_power, engine=engine, penalty=penalty, runner=runner
+        )
     for target, res in results.items():
         name = model_name("glm", target)
         preds[name] = res.predict(cats) if control is None else _at_mean_control(res, cats, control)

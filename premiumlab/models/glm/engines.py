@@ -11,16 +11,18 @@ the row statistics are computed in the form statsmodels reports for the row-leve
 from __future__ import annotations
 
 import itertools
-from collections.abc import Callable, Iterable, Iterator
-from dataclasses import dataclass
+from collections.abc import Callable, Iterable, Iterator, Sequence
+from dataclasses import dataclass, replace
 from functools import cached_property
-from typing import Protocol
+from typing import Any, Protocol
 
 import numpy as np
 import scipy.linalg
 import scipy.sparse as sp
 import statsmodels.api as sm
 from threadpoolctl import threadpool_limits
+
+from premiumlab._core.cluster import IN_PROCESS, TaskRunner
 
 CHUNK_ROWS = 1_000_000
 GROUP_LEVELS = 256
@@ -257,8 +259,134 @@ class Cells:
     numerator_squared: np.ndarray
 
 
+@dataclass(frozen=True)
+class RowChunk:
+    """Consecutive rows of a fit: their level codes, numerator and weight (a partition of the book)."""
+
+    design: OneHotDesign
+    numerator: np.ndarray
+    weight: np.ndarray
+
+
+def row_chunks(
+    design: OneHotDesign, numerator: np.ndarray, weight: np.ndarray, parts: int = 1, chunk_rows: int = CHUNK_ROWS
+) -> list[RowChunk]:
+    """The rows cut into consecutive chunks of at most `chunk_rows` rows, and at least `parts` chunks
+    when there are as many rows (one chunk per worker of a cluster).
+
+    Parameters
+    ----------
+    design : OneHotDesign
+        The rows' level codes.
+    numerator : np.ndarray
+        Per row: claim count or claim amount (money).
+    weight : np.ndarray
+        Per row: exposure units or claim count, > 0.
+    parts : int
+        The fewest chunks wanted (the workers that will share them), >= 1.
+    chunk_rows : int
+        The most rows of a chunk (bounds the memory of a pass).
+
+    Returns
+    -------
+    list[RowChunk]
+        The chunks in row order; the rows themselves (no copy) when one chunk holds them all.
+    """
+    size = max(1, min(chunk_rows, -(-design.n_rows // max(1, parts))))
+    if size >= design.n_rows:
+        return [RowChunk(design, numerator, weight)]
+    return [RowChunk(design.take(rows), numerator[rows], weight[rows]) for rows in design.chunks(size)]
+
+
+def _sums_by_cell(design: OneHotDesign, sums: np.ndarray) -> Cells:
+    """Group design rows by their level codes (cells in ascending order of the codes) and add up
+    the four columns of `sums` (numerator, weight, rows, numerator^2 / weight) per cell."""
+    key = np.zeros(design.n_rows, dtype=np.int64)
+    span = 1
+    for j, lv in enumerate(design.levels):
+        if span * len(lv) >= 2**62:
+            key = np.unique(key, return_inverse=True)[1].astype(np.int64)
+            span = int(key.max()) + 1
+        key = key * len(lv) + design.codes[:, j]
+        span *= len(lv)
+    _, first_row, cell_of_row = np.unique(key, return_index=True, return_inverse=True)
+    n_cells = len(first_row)
+    added = [np.bincount(cell_of_row, column, minlength=n_cells) for column in sums.T]
+    return Cells(design.take(first_row), *added)
+
+
+def cell_statistics(chunk: RowChunk) -> Cells:
+    """The cells of a chunk of rows with their partial sums, the one aggregation of the cells engine.
+
+    Applied to all the rows at once, chunk by chunk in one process, or to a book's partitions on
+    the workers of a Dask cluster; `combine_cells` adds the partial sums up.
+
+    Parameters
+    ----------
+    chunk : RowChunk
+        Rows: level codes, numerator a (claim count or money) and weight w (exposure or claims, > 0).
+
+    Returns
+    -------
+    Cells
+        One cell per distinct combination of levels among the chunk's rows, in ascending order of
+        the codes, with the sums over its rows of a, w, 1 (rows, as floats) and a^2 / w.
+    """
+    a, w = chunk.numerator, chunk.weight
+    return _sums_by_cell(chunk.design, np.column_stack([a, w, np.ones(len(w)), a**2 / w]))
+
+
+def combine_cells(parts: Sequence[Cells]) -> Cells:
+    """The cells of several chunks' partial sums (`cell_statistics`): the sums added up per cell.
+
+    Parameters
+    ----------
+    parts : Sequence[Cells]
+        Partial sums of chunks of rows of one design (same factors and levels), at least one.
+
+    Returns
+    -------
+    Cells
+        One cell per distinct combination of levels over the parts, in ascending order of the
+        codes (as `cell_statistics` of all the rows at once), with the parts' sums added.
+    """
+    if len(parts) == 1:
+        return parts[0]
+    first = parts[0].design
+    design = OneHotDesign(
+        first.factor_names, first.levels, first.base_codes, np.concatenate([p.design.codes for p in parts])
+    )
+    sums = np.concatenate([np.column_stack([p.numerator, p.weight, p.row_count, p.numerator_squared]) for p in parts])
+    return _sums_by_cell(design, sums)
+
+
+def _chunk_cells(_: None, chunk: RowChunk) -> Cells:
+    """`cell_statistics` as a task of a `TaskRunner` (no shared part)."""
+    return cell_statistics(chunk)
+
+
+def cells_of_chunks(chunks: Sequence[Any], runner: TaskRunner = IN_PROCESS) -> Cells:
+    """The cells of all the rows: `cell_statistics` of every chunk, run where `runner` runs its
+    tasks (here, or on the workers of a Dask cluster), added up here by `combine_cells`.
+
+    Parameters
+    ----------
+    chunks : Sequence
+        The rows' chunks (`row_chunks`), as `runner.place` holds them.
+    runner : TaskRunner
+        This process, or the workers of a Dask cluster (`premiumlab._core.cluster`).
+
+    Returns
+    -------
+    Cells
+        As `aggregate_cells`.
+    """
+    return combine_cells(runner.map(_chunk_cells, None, chunks, _nothing))
+
+
 def aggregate_cells(design: OneHotDesign, numerator: np.ndarray, weight: np.ndarray) -> Cells:
-    """Group rows by their level codes (sorted cells) and sum numerator, weight and rows per cell.
+    """Group rows by their level codes (sorted cells) and sum numerator, weight and rows per cell,
+    chunk by chunk in this process (`cell_statistics`, `combine_cells`).
 
     Parameters
     ----------
@@ -276,23 +404,11 @@ def aggregate_cells(design: OneHotDesign, numerator: np.ndarray, weight: np.ndar
         row, and the sums of numerator, weight, rows (as floats) and numerator^2 / weight over the
         rows in it.
     """
-    key = np.zeros(design.n_rows, dtype=np.int64)
-    span = 1
-    for j, lv in enumerate(design.levels):
-        if span * len(lv) >= 2**62:
-            key = np.unique(key, return_inverse=True)[1].astype(np.int64)
-            span = int(key.max()) + 1
-        key = key * len(lv) + design.codes[:, j]
-        span *= len(lv)
-    _, first_row, cell_of_row = np.unique(key, return_index=True, return_inverse=True)
-    n_cells = len(first_row)
-    return Cells(
-        design=design.take(first_row),
-        numerator=np.bincount(cell_of_row, numerator, minlength=n_cells),
-        weight=np.bincount(cell_of_row, weight, minlength=n_cells),
-        row_count=np.bincount(cell_of_row, minlength=n_cells).astype(float),
-        numerator_squared=np.bincount(cell_of_row, numerator**2 / weight, minlength=n_cells),
-    )
+    return cells_of_chunks(row_chunks(design, numerator, weight))
+
+
+def _nothing() -> None:
+    """No progress to report."""
 
 
 @dataclass(frozen=True)
@@ -802,12 +918,7 @@ def row_statistics(
     n_parameters: float,
     chunk_rows: int = CHUNK_ROWS,
 ) -> RowStatistics:
-    """Deviance, null deviance (intercept only, rate sum(a)/sum(w)), Pearson chi2, dispersion
-    (chi2 / df_resid; 1 for Poisson) and log-likelihood at that dispersion, from partial sums over
-    row chunks. Log-likelihood, deviance and variance are statsmodels' own family functions.
-
-    Pearson chi2 = sum(v (y - mu)^2 / V(mu)), with (y, mu, v) the row view of the family
-    (`Family.row_view`: counts and unit weights for Poisson, rates and var_weights w otherwise).
+    """`statistics_of_chunks` of the rows cut into chunks of `chunk_rows` rows, in this process.
 
     Parameters
     ----------
@@ -822,8 +933,7 @@ def row_statistics(
     family : Family
         The fitted family.
     n_parameters : float
-        Estimated coefficients k (a penalised fit: its effective number, `EngineFit.effective_parameters`);
-        df_resid = rows - k.
+        Estimated coefficients k (a penalised fit: its effective number); df_resid = rows - k.
     chunk_rows : int
         Rows per pass chunk (bounds the memory of a pass).
 
@@ -832,23 +942,84 @@ def row_statistics(
     RowStatistics
         The statistics as statsmodels reports them for the row-level fit.
     """
-    model_family = family.statsmodels()
-    null_rate = numerator.sum() / weight.sum()
-    deviance = null_deviance = pearson_chi2 = 0.0
-    for rows in design.chunks(chunk_rows):
-        rate = np.exp(design.linear_predictor(beta_full, rows))
-        endog, mu, var_weights = family.row_view(numerator[rows], weight[rows], rate)
-        deviance += model_family.deviance(endog, mu, var_weights)
-        pearson_chi2 += float(np.sum(var_weights * (endog - mu) ** 2 / model_family.variance(mu)))
-        _, null_mu, _ = family.row_view(numerator[rows], weight[rows], np.full(len(rate), null_rate))
-        null_deviance += model_family.deviance(endog, null_mu, var_weights)
-    n_rows = design.n_rows
-    dispersion = 1.0 if family.name == "poisson" else pearson_chi2 / (n_rows - n_parameters)
-    llf = 0.0
-    for rows in design.chunks(chunk_rows):
-        rate = np.exp(design.linear_predictor(beta_full, rows))
-        endog, mu, var_weights = family.row_view(numerator[rows], weight[rows], rate)
-        llf += model_family.loglike(endog, mu, var_weights=var_weights, scale=dispersion)
-    return RowStatistics(
-        n_rows, n_parameters, float(deviance), float(null_deviance), pearson_chi2, float(dispersion), float(llf)
+    chunks = row_chunks(design, numerator, weight, chunk_rows=chunk_rows)
+    return statistics_of_chunks(chunks, beta_full, family, n_parameters, float(numerator.sum() / weight.sum()))
+
+
+@dataclass(frozen=True)
+class _AtCoefficients:
+    """What a pass of row statistics over a chunk needs besides the chunk (sent once to the workers)."""
+
+    beta_full: np.ndarray
+    family: Family
+    null_rate: float
+    dispersion: float
+
+
+def _deviance_sums(at: _AtCoefficients, chunk: RowChunk) -> np.ndarray:
+    """[deviance, null deviance, Pearson chi2, rows] of the chunk's rows (statsmodels' family functions)."""
+    model_family = at.family.statsmodels()
+    rate = np.exp(chunk.design.linear_predictor(at.beta_full))
+    endog, mu, var_weights = at.family.row_view(chunk.numerator, chunk.weight, rate)
+    _, null_mu, _ = at.family.row_view(chunk.numerator, chunk.weight, np.full(len(rate), at.null_rate))
+    return np.array(
+        [
+            model_family.deviance(endog, mu, var_weights),
+            model_family.deviance(endog, null_mu, var_weights),
+            float(np.sum(var_weights * (endog - mu) ** 2 / model_family.variance(mu))),
+            chunk.design.n_rows,
+        ]
     )
+
+
+def _loglik_sum(at: _AtCoefficients, chunk: RowChunk) -> float:
+    """The chunk's rows' log-likelihood at the dispersion (statsmodels' family function)."""
+    rate = np.exp(chunk.design.linear_predictor(at.beta_full))
+    endog, mu, var_weights = at.family.row_view(chunk.numerator, chunk.weight, rate)
+    return float(at.family.statsmodels().loglike(endog, mu, var_weights=var_weights, scale=at.dispersion))
+
+
+def statistics_of_chunks(
+    chunks: Sequence[Any],
+    beta_full: np.ndarray,
+    family: Family,
+    n_parameters: float,
+    null_rate: float,
+    runner: TaskRunner = IN_PROCESS,
+) -> RowStatistics:
+    """Deviance, null deviance (intercept only, rate sum(a)/sum(w)), Pearson chi2, dispersion
+    (chi2 / df_resid; 1 for Poisson) and log-likelihood at that dispersion, from partial sums over
+    chunks of rows (two passes, run where `runner` runs its tasks, added up here). Log-likelihood,
+    deviance and variance are statsmodels' own family functions.
+
+    Pearson chi2 = sum(v (y - mu)^2 / V(mu)), with (y, mu, v) the row view of the family
+    (`Family.row_view`: counts and unit weights for Poisson, rates and var_weights w otherwise).
+
+    Parameters
+    ----------
+    chunks : Sequence
+        The rows' chunks (`row_chunks`), as `runner.place` holds them.
+    beta_full : np.ndarray
+        Coefficients indexed by full-space column (0 for columns not estimated).
+    family : Family
+        The fitted family.
+    n_parameters : float
+        Estimated coefficients k (a penalised fit: its effective number, `EngineFit.effective_parameters`);
+        df_resid = rows - k.
+    null_rate : float
+        The intercept-only fit's rate sum(a) / sum(w) over all the rows.
+    runner : TaskRunner
+        This process, or the workers of a Dask cluster (`premiumlab._core.cluster`).
+
+    Returns
+    -------
+    RowStatistics
+        The statistics as statsmodels reports them for the row-level fit.
+    """
+    at = _AtCoefficients(np.asarray(beta_full, dtype=float), family, null_rate, 1.0)
+    sums = runner.map(_deviance_sums, at, chunks, _nothing)
+    deviance, null_deviance, pearson_chi2, rows = (float(sum(part[i] for part in sums)) for i in range(4))
+    n_rows = int(rows)
+    dispersion = 1.0 if family.name == "poisson" else pearson_chi2 / (n_rows - n_parameters)
+    llf = float(sum(runner.map(_loglik_sum, replace(at, dispersion=dispersion), chunks, _nothing)))
+    return RowStatistics(n_rows, n_parameters, deviance, null_deviance, pearson_chi2, float(dispersion), llf)

@@ -21,6 +21,7 @@ import pandas as pd
 import scipy.stats
 
 from premiumlab._core.cautions import DRAFT
+from premiumlab._core.cluster import IN_PROCESS, TaskRunner
 from premiumlab._core.diagnostics import Diagnostic
 from premiumlab._core.errors import InputError
 from premiumlab._core.validators import ABOVE_ZERO, AT_LEAST_ZERO, COUNT, Rule, checked_array
@@ -38,13 +39,14 @@ from premiumlab.models.glm.engines import (
     EngineFit,
     Family,
     OneHotDesign,
-    aggregate_cells,
+    cells_of_chunks,
     choose_columns,
     choose_engine,
     column_major,
     fit_on_cells,
     fit_on_rows,
-    row_statistics,
+    row_chunks,
+    statistics_of_chunks,
 )
 from premiumlab.models.glm.tweedie import INTERVAL_LEVEL, POWER_BOUNDS, POWER_TOLERANCE, TweedieBook, profile_power
 from premiumlab.models.targets import FREQUENCY, PURE_PREMIUM, SEVERITY, Target
@@ -277,7 +279,8 @@ def _level_codes(factors: pd.DataFrame, name: str, levels: list[str]) -> np.ndar
 
 @dataclass(frozen=True)
 class _Problem:
-    """One model's rows: design, numerator (count or amount), weight (exposure or count)."""
+    """One model's rows: design, numerator (count or amount), weight (exposure or count), and
+    the same rows cut into `chunks` held where `runner` runs the passes over the rows."""
 
     target: Target
     design: OneHotDesign
@@ -286,6 +289,8 @@ class _Problem:
     cells: Cells
     columns: ColumnChoice
     groups: PenaltyGroups
+    chunks: list[Any]
+    runner: TaskRunner
 
     @property
     def label(self) -> str:
@@ -298,13 +303,19 @@ class _Problem:
 
 
 def _problem(
-    target: Target, inputs: GlmInputs, rows: np.ndarray, numerator: np.ndarray, weight: np.ndarray
+    target: Target,
+    inputs: GlmInputs,
+    rows: np.ndarray,
+    numerator: np.ndarray,
+    weight: np.ndarray,
+    runner: TaskRunner,
 ) -> _Problem:
     label = target.title
     design = _design(inputs)
     if not rows.all():
         design = design.take(rows)
-    cells = aggregate_cells(design, numerator[rows], weight[rows])
+    chunks = runner.place(row_chunks(design, numerator[rows], weight[rows], parts=runner.workers))
+    cells = cells_of_chunks(chunks, runner)
     for j, name in enumerate(design.factor_names):
         if not np.any(cells.design.codes[:, j] == design.base_codes[j]):
             raise InputError(
@@ -317,7 +328,7 @@ def _problem(
             f"{label}: {design.n_rows} rows for {len(columns.kept)} parameters; the fit needs more rows than parameters"
         )
     groups = penalty_groups(design, columns.kept)
-    return _Problem(target, design, numerator[rows], weight[rows], cells, columns, groups)
+    return _Problem(target, design, numerator[rows], weight[rows], cells, columns, groups, chunks, runner)
 
 
 def _design(inputs: GlmInputs) -> OneHotDesign:
@@ -397,7 +408,8 @@ def _fit(
     kept = problem.columns.kept
     penalised = bool(np.any(fit.ridge > 0))
     parameters = fit.effective_parameters if penalised else len(kept)
-    stats = row_statistics(problem.design, beta_full, problem.numerator, problem.weight, family, parameters)
+    null_rate = float(problem.numerator.sum() / problem.weight.sum())
+    stats = statistics_of_chunks(problem.chunks, beta_full, family, parameters, null_rate, problem.runner)
     std_error = np.sqrt(np.diag(fit.unit_covariance) * stats.dispersion)
     terms = problem.design.full_terms()
     without = _levels_without_claims(problem)
@@ -409,7 +421,7 @@ def _fit(
         name: {level: float(np.exp(beta_full[offset + k])) for k, level in enumerate(levels)}
         for name, levels, offset in zip(design.factor_names, design.levels, design.offsets)
     }
-    notes = list(notes)
+    notes = list(notes) + _where_notes(problem, engine)
     notes += [
         f"{term}: no rows in the {problem.label} fit; not estimated, relativity 1.0" for term in problem.columns.no_data
     ]
@@ -451,6 +463,22 @@ def _fit(
         notes=notes,
         warnings=[d.to_dict() for d in _diagnostics(problem, fit, penalised, relativities, without)],
     )
+
+
+def _where_notes(problem: _Problem, engine: str) -> list[str]:
+    """Where the fit ran, when a cluster took part: the passes over the rows on its workers, the
+    Newton steps here (on the cells, or on the rows with the rows engine)."""
+    if problem.runner is IN_PROCESS:
+        return []
+    steps = (
+        "the Newton steps ran in this process on the cells"
+        if engine == "cells"
+        else "the rows engine's Newton steps ran in this process on the rows (the cluster path falls back to this process)"
+    )
+    return [
+        f"cells and row statistics computed over {len(problem.chunks)} partitions of the rows on "
+        f"{problem.runner.description}; {steps}"
+    ]
 
 
 def _levels_without_claims(problem: _Problem) -> np.ndarray:
@@ -542,11 +570,11 @@ def _require_amount(inputs: GlmInputs, target: Target) -> None:
         raise InputError(f"claim_amount: required for the {target.title} model but not given")
 
 
-def _target_problem(target: Target, inputs: GlmInputs) -> _Problem:
+def _target_problem(target: Target, inputs: GlmInputs, runner: TaskRunner) -> _Problem:
     """The target's rows, response (its numerator) and var_weights (its weight), `premiumlab.models.targets`."""
     rows = target.rows(inputs.claim_count, inputs.claim_amount)
     numerator, weight = target.columns(inputs.exposure, inputs.claim_count, inputs.claim_amount)
-    return _problem(target, inputs, rows, numerator, weight)
+    return _problem(target, inputs, rows, numerator, weight, runner)
 
 
 def _family(target: Target, tweedie_power: float | None = None) -> Family:
@@ -554,7 +582,9 @@ def _family(target: Target, tweedie_power: float | None = None) -> Family:
     return Family(target.family, float(target.deviance_power(tweedie_power)))
 
 
-def fit_frequency(inputs: GlmInputs, engine: str = "auto", penalty: str = "credibility") -> GlmResult:
+def fit_frequency(
+    inputs: GlmInputs, engine: str = "auto", penalty: str = "credibility", runner: TaskRunner = IN_PROCESS
+) -> GlmResult:
     """Poisson GLM of claim counts, log link, offset log(exposure); relativities per claim frequency.
 
     log E[count] = log(exposure) + x'beta, so exp(x'beta) is the claim frequency (claims per
@@ -570,6 +600,10 @@ def fit_frequency(inputs: GlmInputs, engine: str = "auto", penalty: str = "credi
         "credibility": each factor's level coefficients shrunk towards the base with the penalty
         lambda_f = phi / tau_f^2 the data choose (`premiumlab.models.glm.credibility`); standard
         errors are posterior ones. "none": maximum likelihood.
+    runner : TaskRunner
+        Where the passes over the rows run (the cells' sums and the row statistics,
+        `premiumlab._core.cluster`): this process, or the workers of a Dask cluster over partitions
+        of the rows, added up here; the Newton steps always run here.
 
     Returns
     -------
@@ -583,11 +617,13 @@ def fit_frequency(inputs: GlmInputs, engine: str = "auto", penalty: str = "credi
         a fit that fails on the data.
     """
     _check_options(engine, penalty)
-    problem = _target_problem(FREQUENCY, inputs)
+    problem = _target_problem(FREQUENCY, inputs, runner)
     return _fit(problem, _family(FREQUENCY), _engine_name(engine, problem), penalty, inputs, [])
 
 
-def fit_severity(inputs: GlmInputs, engine: str = "auto", penalty: str = "credibility") -> GlmResult:
+def fit_severity(
+    inputs: GlmInputs, engine: str = "auto", penalty: str = "credibility", runner: TaskRunner = IN_PROCESS
+) -> GlmResult:
     """Gamma GLM of amount / count with var_weights count, on rows with count > 0 and amount > 0.
 
     Nil claims (count > 0, amount 0) are excluded and counted in the notes.
@@ -602,6 +638,8 @@ def fit_severity(inputs: GlmInputs, engine: str = "auto", penalty: str = "credib
         "auto" (cells when they are few, `choose_engine`), "cells" or "rows".
     penalty : str
         "credibility" or "none", as `fit_frequency`; phi is the Pearson dispersion.
+    runner : TaskRunner
+        As `fit_frequency`.
 
     Returns
     -------
@@ -620,12 +658,16 @@ def fit_severity(inputs: GlmInputs, engine: str = "auto", penalty: str = "credib
         raise InputError("claim_amount: no row has claim_count > 0 and claim_amount > 0; severity cannot be fitted")
     nil_claims = int(np.count_nonzero((inputs.claim_count > 0) & (inputs.claim_amount == 0)))
     notes = [f"{nil_claims} nil-claim rows (claim_count > 0, claim_amount 0) excluded from severity"]
-    problem = _target_problem(SEVERITY, inputs)
+    problem = _target_problem(SEVERITY, inputs, runner)
     return _fit(problem, _family(SEVERITY), _engine_name(engine, problem), penalty, inputs, notes)
 
 
 def fit_pure_premium(
-    inputs: GlmInputs, power: str | float = "auto", engine: str = "auto", penalty: str = "credibility"
+    inputs: GlmInputs,
+    power: str | float = "auto",
+    engine: str = "auto",
+    penalty: str = "credibility",
+    runner: TaskRunner = IN_PROCESS,
 ) -> GlmResult:
     """Tweedie GLM of amount / exposure with var_weights exposure, log link.
 
@@ -648,6 +690,8 @@ def fit_pure_premium(
         "auto" (cells when they are few, `choose_engine`), "cells" or "rows".
     penalty : str
         "credibility" or "none", as `fit_frequency`; phi is the Pearson dispersion.
+    runner : TaskRunner
+        As `fit_frequency`.
 
     Returns
     -------
@@ -664,7 +708,7 @@ def fit_pure_premium(
     _check_options(engine, penalty)
     fixed_power = None if power == "auto" else _fixed_power(power)
     _require_amount(inputs, PURE_PREMIUM)
-    problem = _target_problem(PURE_PREMIUM, inputs)
+    problem = _target_problem(PURE_PREMIUM, inputs, runner)
     engine = _engine_name(engine, problem)
     fits: dict[float, EngineFit] = {}
     if fixed_power is None:
