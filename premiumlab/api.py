@@ -305,6 +305,7 @@ def rate(
     annual: bool = False,
     strict_levels: bool = False,
     force: bool = False,
+    cluster: str | None = None,
 ) -> RateResult:
     """Rate policies with a table: pure and gross premium and the build-up columns.
 
@@ -316,9 +317,10 @@ def rate(
     table : str or Path
         Rating table folder.
     book : str or Path
-        Book to rate (.csv, .parquet or a folder of parts).
+        Book to rate (.csv, .parquet or a folder of parts; with `cluster`, a folder of Parquet parts).
     out : str or Path
-        Priced file to write (.csv or .parquet).
+        Priced file to write (.csv or .parquet); with `cluster`, a folder of Parquet parts, one
+        per part of the book, of the same names.
     exposure : str or None
         The book's exposure column (years); the premium is the full-term premium x exposure.
         None: the column the table remembers (`book_columns`), else `exposure`.
@@ -328,6 +330,9 @@ def rate(
         Refuse a level the table does not list, even where a fallback or base level exists.
     force : bool
         Replace an existing priced file.
+    cluster : str or None
+        Rate the book's parts on a Dask cluster (local:N or a scheduler address) whose workers
+        share this machine's file system; None: in this process.
 
     Returns
     -------
@@ -337,7 +342,7 @@ def rate(
     """
     from premiumlab.apply.rate import rate_book
 
-    return rate_book(table, book, out, exposure, annual, force=force, strict_levels=strict_levels)
+    return rate_book(table, book, out, exposure, annual, force=force, strict_levels=strict_levels, cluster=cluster)
 
 
 def impact(

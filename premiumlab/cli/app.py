@@ -68,8 +68,9 @@ Cluster = Annotated[
     str | None,
     typer.Option(
         "--cluster",
-        help="Run the heavy part on Dask (fit: the boosted-model search; validate: the "
-        "Parquet slices): local:N (N worker processes here) or a scheduler address such "
+        help="Run the heavy part on Dask (fit: the boosted-model search and the GLMs' passes over "
+        "the rows; validate: the Parquet slices; rate: the parts of a Parquet dataset, into a "
+        "folder of parts): local:N (N worker processes here) or a scheduler address such "
         "as tcp://host:8786. Needs the dask extra.",
     ),
 ]
@@ -316,12 +317,22 @@ def rate(
         typer.Option("--strict-levels", help="Refuse a level the table does not list, even with a fallback."),
     ] = False,
     force: Force = False,
+    cluster: Cluster = None,
 ) -> None:
     """Rate policies with a table: pure and gross premium and the build-up columns."""
     from premiumlab import api
     from premiumlab.cli.format import level_count_lines
 
-    result = api.rate(table, book, out=out, exposure=exposure, annual=annual, strict_levels=strict_levels, force=force)
+    result = api.rate(
+        table,
+        book,
+        out=out,
+        exposure=exposure,
+        annual=annual,
+        strict_levels=strict_levels,
+        force=force,
+        cluster=cluster,
+    )
     typer.echo(f"wrote {result.priced} ({result.rows} rows)")
     for line in level_count_lines(result.counts):
         typer.echo(line, err=True)
