@@ -140,7 +140,8 @@ def fit(
     models : str
         Model kinds, comma separated: glm, gbm.
     cluster : str or None
-        Run the boosted-model search on Dask: local:N or a scheduler address.
+        Run the GLMs' passes over the rows and the boosted-model search on Dask: local:N or a
+        scheduler address.
     force : bool
         Replace an existing run directory.
     progress : Progress or None
@@ -531,7 +532,8 @@ def demo(
     policies : int or None
         Policies in the demo book (None: the scenario's).
     cluster : str or None
-        Run the boosted-model search on Dask: local:N or a scheduler address.
+        Run the GLMs' passes over the rows and the boosted-model search on Dask: local:N or a
+        scheduler address.
     force : bool
         Replace an existing folder.
     progress : Progress or None

@@ -54,7 +54,8 @@ def run_demo(
     progress : Progress or None
         Told each step as it is done and the comparison, table and impact results (None: silent).
     cluster : str or None
-        Where the boosted-model search runs (premiumlab._core.cluster: local:N or a scheduler address).
+        Where the GLMs' passes over the rows and the boosted-model search run
+        (premiumlab._core.cluster: local:N or a scheduler address).
 
     Returns
     -------
