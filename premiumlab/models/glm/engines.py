@@ -137,8 +137,8 @@ class OneHotDesign:
         """Full-space columns of a factor's levels."""
         return self.offsets[factor] + np.arange(len(self.levels[factor]))
 
-    def take(self, rows: np.ndarray) -> OneHotDesign:
-        """The design restricted to ``rows`` (boolean mask or positions)."""
+    def take(self, rows: np.ndarray | slice) -> OneHotDesign:
+        """The design restricted to ``rows`` (boolean mask, positions or a slice)."""
         return OneHotDesign(
             self.factor_names,
             self.levels,
