@@ -261,11 +261,29 @@ class Cells:
 
 @dataclass(frozen=True)
 class RowChunk:
-    """Consecutive rows of a fit: their level codes, numerator and weight (a partition of the book)."""
+    """Consecutive rows of a fit (a partition of the book): rows `rows` of `design` (None: all of
+    them), and their numerator and weight. In one process a chunk is a view of the whole design; `standalone` is
+    the chunk with its own rows' codes only, to send to another process."""
 
     design: OneHotDesign
     numerator: np.ndarray
     weight: np.ndarray
+    rows: slice | None = None
+
+    @property
+    def codes(self) -> np.ndarray:
+        """The chunk's rows' level codes, (rows, factors)."""
+        return self.design.codes if self.rows is None else self.design.codes[self.rows]
+
+    def linear_predictor(self, beta_full: np.ndarray) -> np.ndarray:
+        """x'beta of the chunk's rows; `beta_full` is indexed by full-space column."""
+        return self.design.linear_predictor(beta_full, slice(None) if self.rows is None else self.rows)
+
+    def standalone(self) -> RowChunk:
+        """The chunk holding only its own rows' codes (a copy when it is a view of more rows)."""
+        if self.rows is None:
+            return self
+        return RowChunk(self.design.take(self.rows), self.numerator, self.weight)
 
 
 def row_chunks(
@@ -290,29 +308,31 @@ def row_chunks(
     Returns
     -------
     list[RowChunk]
-        The chunks in row order; the rows themselves (no copy) when one chunk holds them all.
+        The chunks in row order, views of the rows (no copy; `RowChunk.standalone` copies one).
     """
     size = max(1, min(chunk_rows, -(-design.n_rows // max(1, parts))))
     if size >= design.n_rows:
         return [RowChunk(design, numerator, weight)]
-    return [RowChunk(design.take(rows), numerator[rows], weight[rows]) for rows in design.chunks(size)]
+    return [RowChunk(design, numerator[rows], weight[rows], rows) for rows in design.chunks(size)]
 
 
-def _sums_by_cell(design: OneHotDesign, sums: np.ndarray) -> Cells:
-    """Group design rows by their level codes (cells in ascending order of the codes) and add up
-    the four columns of `sums` (numerator, weight, rows, numerator^2 / weight) per cell."""
-    key = np.zeros(design.n_rows, dtype=np.int64)
+def _sums_by_cell(design: OneHotDesign, codes: np.ndarray, sums: np.ndarray) -> Cells:
+    """Group rows by their level codes `codes` (of `design`'s factors; cells in ascending order of
+    the codes) and add up the four columns of `sums` (numerator, weight, rows, numerator^2 / weight)
+    per cell."""
+    key = np.zeros(len(codes), dtype=np.int64)
     span = 1
     for j, lv in enumerate(design.levels):
         if span * len(lv) >= 2**62:
             key = np.unique(key, return_inverse=True)[1].astype(np.int64)
             span = int(key.max()) + 1
-        key = key * len(lv) + design.codes[:, j]
+        key = key * len(lv) + codes[:, j]
         span *= len(lv)
     _, first_row, cell_of_row = np.unique(key, return_index=True, return_inverse=True)
     n_cells = len(first_row)
     added = [np.bincount(cell_of_row, column, minlength=n_cells) for column in sums.T]
-    return Cells(design.take(first_row), *added)
+    cells = OneHotDesign(design.factor_names, design.levels, design.base_codes, codes[first_row])
+    return Cells(cells, *added)
 
 
 def cell_statistics(chunk: RowChunk) -> Cells:
@@ -333,7 +353,7 @@ def cell_statistics(chunk: RowChunk) -> Cells:
         the codes, with the sums over its rows of a, w, 1 (rows, as floats) and a^2 / w.
     """
     a, w = chunk.numerator, chunk.weight
-    return _sums_by_cell(chunk.design, np.column_stack([a, w, np.ones(len(w)), a**2 / w]))
+    return _sums_by_cell(chunk.design, chunk.codes, np.column_stack([a, w, np.ones(len(w)), a**2 / w]))
 
 
 def combine_cells(parts: Sequence[Cells]) -> Cells:
@@ -352,12 +372,9 @@ def combine_cells(parts: Sequence[Cells]) -> Cells:
     """
     if len(parts) == 1:
         return parts[0]
-    first = parts[0].design
-    design = OneHotDesign(
-        first.factor_names, first.levels, first.base_codes, np.concatenate([p.design.codes for p in parts])
-    )
+    codes = np.concatenate([p.design.codes for p in parts])
     sums = np.concatenate([np.column_stack([p.numerator, p.weight, p.row_count, p.numerator_squared]) for p in parts])
-    return _sums_by_cell(design, sums)
+    return _sums_by_cell(parts[0].design, codes, sums)
 
 
 def _chunk_cells(_: None, chunk: RowChunk) -> Cells:
@@ -959,7 +976,7 @@ class _AtCoefficients:
 def _deviance_sums(at: _AtCoefficients, chunk: RowChunk) -> np.ndarray:
     """[deviance, null deviance, Pearson chi2, rows] of the chunk's rows (statsmodels' family functions)."""
     model_family = at.family.statsmodels()
-    rate = np.exp(chunk.design.linear_predictor(at.beta_full))
+    rate = np.exp(chunk.linear_predictor(at.beta_full))
     endog, mu, var_weights = at.family.row_view(chunk.numerator, chunk.weight, rate)
     _, null_mu, _ = at.family.row_view(chunk.numerator, chunk.weight, np.full(len(rate), at.null_rate))
     return np.array(
@@ -967,14 +984,14 @@ def _deviance_sums(at: _AtCoefficients, chunk: RowChunk) -> np.ndarray:
             model_family.deviance(endog, mu, var_weights),
             model_family.deviance(endog, null_mu, var_weights),
             float(np.sum(var_weights * (endog - mu) ** 2 / model_family.variance(mu))),
-            chunk.design.n_rows,
+            len(chunk.weight),
         ]
     )
 
 
 def _loglik_sum(at: _AtCoefficients, chunk: RowChunk) -> float:
     """The chunk's rows' log-likelihood at the dispersion (statsmodels' family function)."""
-    rate = np.exp(chunk.design.linear_predictor(at.beta_full))
+    rate = np.exp(chunk.linear_predictor(at.beta_full))
     endog, mu, var_weights = at.family.row_view(chunk.numerator, chunk.weight, rate)
     return float(at.family.statsmodels().loglike(endog, mu, var_weights=var_weights, scale=at.dispersion))
 

@@ -314,7 +314,10 @@ def _problem(
     design = _design(inputs)
     if not rows.all():
         design = design.take(rows)
-    chunks = runner.place(row_chunks(design, numerator[rows], weight[rows], parts=runner.workers))
+    chunks = row_chunks(design, numerator[rows], weight[rows], parts=runner.workers)
+    if runner is not IN_PROCESS:  # each partition is sent to a worker with its own rows only
+        chunks = [chunk.standalone() for chunk in chunks]
+    chunks = runner.place(chunks)
     cells = cells_of_chunks(chunks, runner)
     for j, name in enumerate(design.factor_names):
         if not np.any(cells.design.codes[:, j] == design.base_codes[j]):
