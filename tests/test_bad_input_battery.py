@@ -879,7 +879,7 @@ CASES: list[tuple[str, str, int, str, Prepare | None]] = [
         TABULATE,
         2,
         "run/run.json: key 'book.path_from_run' is missing or not a string",
-        manifest(lambda d: d.pop("book")),
+        manifest(lambda d: d["book"].pop("path_from_run")),
     ),
     (
         "run-json-rows-of-wrong-type",
