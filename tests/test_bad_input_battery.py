@@ -863,6 +863,14 @@ CASES: list[tuple[str, str, int, str, Prepare | None]] = [
         "the folder nofolder does not exist",
         _fitted,
     ),
+    ("compare-into-a-new-folder-works", "compare run --out cmp", 0, "pure_premium", _fitted),
+    (
+        "compare-force-replaces-its-own-works",
+        "compare run --force",
+        0,
+        "pure_premium",
+        make(_fitted, lambda f: (f / "run" / "figures").mkdir()),
+    ),
     # ---- issue 11: hostile level names in the exhibit (item 2): the table is written, exit 0
     ("tabulate-formula-and-control-levels-work", TABULATE + " --model glm", 0, "wrote newtable", _fitted),
     # ---- issue 11: hand-edited run folders
@@ -871,7 +879,7 @@ CASES: list[tuple[str, str, int, str, Prepare | None]] = [
         TABULATE,
         2,
         "run/run.json: key 'book.path_from_run' is missing or not a string",
-        manifest(lambda d: d.pop("book")),
+        manifest(lambda d: d["book"].pop("path_from_run")),
     ),
     (
         "run-json-rows-of-wrong-type",
