@@ -864,6 +864,35 @@ CASES: list[tuple[str, str, int, str, Prepare | None]] = [
         _fitted,
     ),
     ("compare-into-a-new-folder-works", "compare run --out cmp", 0, "pure_premium", _fitted),
+    # ---- issue 11: report writes like every command and reads hand-edited runs in one line
+    (
+        "report-force-onto-a-link-to-the-book",
+        "report run --force",
+        2,
+        "run/report.html: is or holds the input run/../runbook.csv",
+        make(_fitted, _link("run/report.html", "../runbook.csv")),
+    ),
+    (
+        "report-out-inside-the-table",
+        "report run --table table --out table/report.html",
+        2,
+        "table/report.html: lies inside the input table",
+        _fitted,
+    ),
+    (
+        "report-comparison-without-a-key",
+        "report run",
+        2,
+        "run/comparison.json: key 'metrics' is missing",
+        make(_fitted, lambda f: (f / "run" / "comparison.json").write_text("{}")),
+    ),
+    (
+        "report-coefficient-without-its-estimate",
+        "report run",
+        2,
+        "coefficients[0] has no 'estimate'",
+        in_run("models/glm_frequency.json", lambda b: _replace(b, '"estimate"', '"estimat"')),
+    ),
     (
         "compare-force-replaces-its-own-works",
         "compare run --force",

@@ -12,7 +12,6 @@ from __future__ import annotations
 
 import dataclasses
 import json
-import tomllib
 from html.parser import HTMLParser
 from pathlib import Path
 
@@ -330,3 +329,21 @@ def test_a_factor_held_at_base_by_the_pure_premium_glm_only_is_flagged() -> None
     assert [(d.kind, d.model, d.factor) for d in found] == [("held_at_base", "glm_pure_premium", "territory")]
     assert "tau 0.0001" in found[0].message and "tau 0.24" in found[0].message
     assert held_at_base({"pure_premium": credibility["pure_premium"]}) == []
+
+
+def test_the_report_embeds_no_file_it_did_not_draw(broken_run, tmp_path):
+    """A link planted in RUN/figures to another file (here the book) is never embedded: the report
+    draws its own figures into a private folder (issue 11: nothing from disk leaks into a document
+    that is sent out)."""
+    import base64
+
+    secret = tmp_path / "secret.png"
+    secret.write_bytes(b"\x89PNG\r\n\x1a\nnot-for-the-report-" + bytes(range(64)))
+    link = broken_run["run"] / "figures" / "zz_planted.png"
+    link.symlink_to(secret)
+    try:
+        page = premiumlab.report(broken_run["run"], out=tmp_path / "r.html").report.read_text()
+    finally:
+        link.unlink()
+    assert base64.b64encode(secret.read_bytes()).decode()[:40] not in page
+    assert "zz_planted" not in page
