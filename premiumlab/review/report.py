@@ -131,10 +131,12 @@ def render(context: dict, images: dict[str, Any]) -> str:
 
 
 def _inputs(run: Run, table: Path | None, current: Path | None, book: Path | None) -> tuple[Path, ...]:
-    """The files and folders the report reads: the run's own files, its book, the tables."""
+    """The files and folders the report reads: the run's own files (not the whole run folder, where
+    the report is written by default), its book (the one given, else the one run.json records),
+    the tables."""
     files = run.files
     read = [files.manifest, files.levels, files.predictions, files.metrics, files.comparison, files.interactions]
-    read += [files.models, files.certificate]
+    read += [files.models, files.certificate, run.book_path(book)]
     return tuple(p for p in (*read, table, current, book) if p is not None)
 
 
