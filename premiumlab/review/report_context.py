@@ -415,7 +415,7 @@ def factor_views(run: Run, table: Any | None, current: Any | None) -> list[Facto
     """
     from premiumlab.book.levels import categorise
     from premiumlab.tabulation.from_run import rating_frame
-    from premiumlab.tabulation.row_effects import factor_effects
+    from premiumlab.tabulation.row_effects import effect_parts
     from premiumlab.tabulation.selection import banded_relativity
 
     book = run.load_book()
@@ -444,15 +444,14 @@ def factor_views(run: Run, table: Any | None, current: Any | None) -> list[Facto
     for which, rating in (("table", table), ("current", current)):
         if rating is None:
             continue
-        effects = factor_effects(rating, rating_frame(book, run.spec, rows), run.spec.columns.exposure)
+        main, two_way = effect_parts(rating, rating_frame(book, run.spec, rows), exposure[rows])
         for view in views:
-            if view.name not in effects:
+            if view.name not in main:
                 continue
             level = codes[view.name].to_numpy()[rows]
             known = level >= 0
-            values, _ = banded_relativity(
-                level[known], np.log(effects[view.name][known]), exposure[rows][known], len(view.labels)
-            )
+            log_effect = (main[view.name] + two_way[view.name])[known]
+            values, _ = banded_relativity(level[known], log_effect, exposure[rows][known], len(view.labels))
             view.series[which] = _relative(values, view.labels, view.base)
     return views
 
