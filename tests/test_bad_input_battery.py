@@ -863,6 +863,43 @@ CASES: list[tuple[str, str, int, str, Prepare | None]] = [
         "the folder nofolder does not exist",
         _fitted,
     ),
+    ("compare-into-a-new-folder-works", "compare run --out cmp", 0, "pure_premium", _fitted),
+    # ---- issue 11: report writes like every command and reads hand-edited runs in one line
+    (
+        "report-force-onto-a-link-to-the-book",
+        "report run --force",
+        2,
+        "run/report.html: is or holds the input run/../runbook.csv",
+        make(_fitted, _link("run/report.html", "../runbook.csv")),
+    ),
+    (
+        "report-out-inside-the-table",
+        "report run --table table --out table/report.html",
+        2,
+        "table/report.html: lies inside the input table",
+        _fitted,
+    ),
+    (
+        "report-comparison-without-a-key",
+        "report run",
+        2,
+        "run/comparison.json: key 'metrics' is missing",
+        make(_fitted, lambda f: (f / "run" / "comparison.json").write_text("{}")),
+    ),
+    (
+        "report-coefficient-without-its-estimate",
+        "report run",
+        2,
+        "coefficients[0] has no 'estimate'",
+        in_run("models/glm_frequency.json", lambda b: _replace(b, '"estimate"', '"estimat"')),
+    ),
+    (
+        "compare-force-replaces-its-own-works",
+        "compare run --force",
+        0,
+        "pure_premium",
+        make(_fitted, lambda f: (f / "run" / "figures").mkdir()),
+    ),
     # ---- issue 11: hostile level names in the exhibit (item 2): the table is written, exit 0
     ("tabulate-formula-and-control-levels-work", TABULATE + " --model glm", 0, "wrote newtable", _fitted),
     # ---- issue 11: hand-edited run folders
@@ -871,7 +908,7 @@ CASES: list[tuple[str, str, int, str, Prepare | None]] = [
         TABULATE,
         2,
         "run/run.json: key 'book.path_from_run' is missing or not a string",
-        manifest(lambda d: d.pop("book")),
+        manifest(lambda d: d["book"].pop("path_from_run")),
     ),
     (
         "run-json-rows-of-wrong-type",

@@ -203,3 +203,39 @@ def test_refuses_unknown_feature_categorical_promise_and_bad_direction(complete_
         certify(text, "vehicle_age", 0)
     with pytest.raises(InputError, match=r"feature_names"):
         certify("not a model", 0, 1)
+
+
+def _chain_model(leaves: int) -> str:
+    """A one-tree model text whose tree is a chain: node i sends x <= i to leaf i, the rest on."""
+    internal = leaves - 1
+    lefts = " ".join(str(~i) for i in range(internal))
+    rights = " ".join([*(str(i + 1) for i in range(internal - 1)), str(~internal)])
+    tree = "\n".join(
+        [
+            "Tree=0",
+            f"num_leaves={leaves}",
+            "num_cat=0",
+            "split_feature=" + " ".join(["0"] * internal),
+            "threshold=" + " ".join(f"{i}.5" for i in range(internal)),
+            "decision_type=" + " ".join(["2"] * internal),
+            f"left_child={lefts}",
+            f"right_child={rights}",
+            "leaf_value=" + " ".join(f"{i / leaves:.6f}" for i in range(leaves)),
+            "is_linear=0",
+            "shrinkage=1",
+            "",
+            "",
+        ]
+    )
+    return f"tree\nversion=v4\nnum_class=1\nnum_tree_per_iteration=1\nmax_feature_idx=0\nfeature_names=x\n\n{tree}end of trees\n"
+
+
+def test_a_tree_too_large_for_the_pairwise_check_is_refused_not_allocated():
+    """Issue 11: a 30,000-leaf tree made the certificate allocate leaves^2 matrices (858 MiB) and
+    die; a tree above MAX_CERTIFIED_LEAVES is now refused in one line, one at the bound is checked."""
+    from premiumlab.models.trees.certificate import MAX_CERTIFIED_LEAVES
+
+    with pytest.raises(InputError, match=f"tree 0 has {MAX_CERTIFIED_LEAVES + 1} leaves"):
+        certify(_chain_model(MAX_CERTIFIED_LEAVES + 1), "x", 1)
+    small = certify(_chain_model(50), "x", 1)
+    assert small["monotone"] and small["trees_checked"] == 1

@@ -12,7 +12,6 @@ from __future__ import annotations
 
 import dataclasses
 import json
-import tomllib
 from html.parser import HTMLParser
 from pathlib import Path
 
@@ -220,14 +219,15 @@ class _Headings(HTMLParser):
 
 
 def test_report_opens_with_every_warning(broken_run, tmp_path):
-    table = tmp_path / "table"
-    table.mkdir()
+    table = premiumlab.tabulate(broken_run["run"], out=tmp_path / "table", model="glm").table
     retention = Diagnostic("retention_undefined", "table", "G_gbm - G_glm = -0.02 <= 0")
-    (table / "fidelity.json").write_text(json.dumps({"diagnostics": [retention.to_dict()]}))
+    fidelity = json.loads((table / "fidelity.json").read_text())
+    fidelity["diagnostics"] = [retention.to_dict()]  # planted: a GLM table has no retention to warn of
+    (table / "fidelity.json").write_text(json.dumps(fidelity))
     page = _Headings()
     page.feed(premiumlab.report(broken_run["run"], table=table).report.read_text())
     headings = [e for e in page.events if not e.startswith("Warnings: ")]
-    assert headings[0] == "Warnings" and headings.index("Warnings") < headings.index("<figure>")
+    assert headings[:2] == ["Summary", "Warnings"] and headings.index("Warnings") < headings.index("<figure>")
     kinds = [(row[0], row[1], row[-1]) for row in page.rows if row]
     assert ("non_convergence", "glm_frequency", "run.json") in kinds
     assert ("unseen_levels", "book", "run.json") in kinds
@@ -238,25 +238,23 @@ def test_report_opens_with_every_warning(broken_run, tmp_path):
 
 
 def test_report_says_none_when_there_is_no_warning(tmp_path):
-    """A run without diagnostics and without a comparison: "None", and the advice to run compare."""
-    run = RunDir(tmp_path / "run")
-    run.models.mkdir(parents=True)
-    run.write_manifest(
-        {
-            "spec": tomllib.loads(SPEC_TEXT),
-            "book": {"sha256": "0" * 64},
-            "rows": {"total": 1, "train": 1, "holdout": 0},
-            "warnings": [],
-            "diagnostics": [],
-            "cautions": ["Draft."],
-        }
-    )
-    run.write_levels({})
-    html = premiumlab.report(run.path).report.read_text()
+    """A run whose diagnostics and model warnings were all cleared, without a comparison: "None", and
+    the advice to run compare."""
+    (tmp_path / "spec.toml").write_text(SPEC_TEXT + TINY_SEARCH)
+    small_book(600).to_csv(tmp_path / "book.csv", index=False)
+    run = premiumlab.fit(tmp_path / "book.csv", spec=tmp_path / "spec.toml", out=tmp_path / "run").path
+    manifest = json.loads((run / "run.json").read_text())
+    manifest["diagnostics"] = []
+    (run / "run.json").write_text(json.dumps(manifest))
+    for model in (run / "models").glob("glm_*.json"):
+        m = json.loads(model.read_text())
+        m["warnings"] = []
+        model.write_text(json.dumps(m))
+    html = premiumlab.report(run).report.read_text()
     page = _Headings()
     page.feed(html)
-    assert page.events[:2] == ["Warnings", "Warnings: None"]
-    assert "premiumlab compare</code> for the holdout checks" in html
+    assert "Warnings: None" in page.events
+    assert "run `premiumlab compare RUN` for the holdout checks" in html
 
 
 def _save(tmp_path: Path, **factors) -> Path:
@@ -331,3 +329,21 @@ def test_a_factor_held_at_base_by_the_pure_premium_glm_only_is_flagged() -> None
     assert [(d.kind, d.model, d.factor) for d in found] == [("held_at_base", "glm_pure_premium", "territory")]
     assert "tau 0.0001" in found[0].message and "tau 0.24" in found[0].message
     assert held_at_base({"pure_premium": credibility["pure_premium"]}) == []
+
+
+def test_the_report_embeds_no_file_it_did_not_draw(broken_run, tmp_path):
+    """A link planted in RUN/figures to another file (here the book) is never embedded: the report
+    draws its own figures into a private folder (issue 11: nothing from disk leaks into a document
+    that is sent out)."""
+    import base64
+
+    secret = tmp_path / "secret.png"
+    secret.write_bytes(b"\x89PNG\r\n\x1a\nnot-for-the-report-" + bytes(range(64)))
+    link = broken_run["run"] / "figures" / "zz_planted.png"
+    link.symlink_to(secret)
+    try:
+        page = premiumlab.report(broken_run["run"], out=tmp_path / "r.html").report.read_text()
+    finally:
+        link.unlink()
+    assert base64.b64encode(secret.read_bytes()).decode()[:40] not in page
+    assert "zz_planted" not in page

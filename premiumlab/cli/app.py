@@ -309,7 +309,7 @@ def rate(
     book: Annotated[Path, typer.Argument(help="Book to rate (.csv, .parquet or a folder of parts).")],
     out: Annotated[Path, typer.Option("--out", help="Priced file to write (.csv or .parquet).")],
     exposure: Annotated[
-        str | None, typer.Option(help="The book's exposure column [default: the table's, else exposure].")
+        str | None, typer.Option(help="The book's exposure column (default: the table's, else 'exposure').")
     ] = None,
     annual: Annotated[bool, typer.Option("--annual", help="Price one full term per policy.")] = False,
     strict_levels: Annotated[
@@ -347,12 +347,12 @@ def impact(
     proposed: Annotated[Path, typer.Option("--proposed", help="Proposed table folder.")],
     cap: Annotated[float | None, typer.Option(help="Cap each policy's change at +-CAP (0.15 = 15 %).")] = None,
     exposure: Annotated[
-        str | None, typer.Option(help="The book's exposure column [default: the table's, else exposure].")
+        str | None, typer.Option(help="The book's exposure column (default: the table's, else 'exposure').")
     ] = None,
     policy_id: Annotated[
-        str | None, typer.Option("--policy-id", help="The book's policy id column [default: the table's].")
+        str | None, typer.Option("--policy-id", help="The book's policy id column (default: the table's).")
     ] = None,
-    period: Annotated[str | None, typer.Option(help="The book's period column [default: the table's].")] = None,
+    period: Annotated[str | None, typer.Option(help="The book's period column (default: the table's).")] = None,
     annual: Annotated[bool, typer.Option("--annual", help="Compare one full term per policy.")] = False,
     thresholds: Annotated[
         str, typer.Option(help="Increases to count, comma separated (0.1 = 10 %).")

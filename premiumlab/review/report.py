@@ -19,7 +19,7 @@ from typing import Any
 import pandas as pd
 
 from premiumlab._core.errors import InputError
-from premiumlab._core.outputs import atomic_output
+from premiumlab._core.outputs import atomic_output, check_target
 from premiumlab._core.plotting import SERIES_COLOURS, SERIES_WORDS
 from premiumlab.review.report_context import FactorView, report_context
 from premiumlab.runs.rundir import Run, open_run
@@ -131,10 +131,12 @@ def render(context: dict, images: dict[str, Any]) -> str:
 
 
 def _inputs(run: Run, table: Path | None, current: Path | None, book: Path | None) -> tuple[Path, ...]:
-    """The files and folders the report reads: the run's own files, its book, the tables."""
+    """The files and folders the report reads: the run's own files (not the whole run folder, where
+    the report is written by default), its book (the one given, else the one run.json records),
+    the tables."""
     files = run.files
     read = [files.manifest, files.levels, files.predictions, files.metrics, files.comparison, files.interactions]
-    read += [files.models, files.certificate]
+    read += [files.models, files.certificate, run.book_path(book)]
     return tuple(p for p in (*read, table, current, book) if p is not None)
 
 
@@ -181,6 +183,7 @@ def write_report(
     inputs = _inputs(run, *tables)
     if target.suffix.lower() not in (".html", ".htm"):
         raise InputError(f"{target}: the report is an HTML file; name it NAME.html")
+    check_target(target, force, inputs)  # refused before the work, not after it
     context = report_context(run, tables[0], tables[1], tables[2])
     with tempfile.TemporaryDirectory(prefix="premiumlab-report-") as folder:
         images = _draw(context, Path(folder))

@@ -18,6 +18,7 @@ import numpy as np
 import pandas as pd
 
 from premiumlab._core.diagnostics import Diagnostic
+from premiumlab._core.errors import InputError
 from premiumlab._core.jsonio import read_json
 from premiumlab.runs.diagnostics import merge_diagnostics, model_warnings
 from premiumlab.runs.rundir import Run, model_name
@@ -221,6 +222,32 @@ def _lift_words(differences: dict, name: str) -> dict | None:
     }
 
 
+#: The keys of comparison.json the report reads.
+COMPARISON_KEYS = ("metrics", "differences", "holdout_rows", "lift", "double_lift", "actual_vs_expected")
+#: The keys of a GLM model JSON the report reads, and of each of its coefficients.
+GLM_KEYS = ("family", "deviance", "df_resid", "null_deviance", "aic", "coefficients", "relativities")
+COEFFICIENT_KEYS = ("term", "estimate")
+
+
+def _require(document: dict, keys: tuple[str, ...], path: Path) -> dict:
+    """`document` when it holds every key of `keys`; else the one-line refusal of a hand-edited file."""
+    missing = [k for k in keys if not isinstance(document, dict) or k not in document]
+    if missing:
+        raise InputError(f"{path}: key '{missing[0]}' is missing; the run folder was edited: fit or compare again")
+    return document
+
+
+def _glm_model(run: Run, target: str) -> dict:
+    """A GLM model JSON of the run, with the keys the report reads checked (coefficients too)."""
+    path = run.files.model_json("glm", target)
+    model = _require(run.model_json("glm", target), GLM_KEYS, path)
+    for i, c in enumerate(model["coefficients"]):
+        missing = [k for k in COEFFICIENT_KEYS if not isinstance(c, dict) or k not in c]
+        if missing:
+            raise InputError(f"{path}: coefficients[{i}] has no '{missing[0]}'; the run folder was edited: fit again")
+    return model
+
+
 #: The format of a selected table's fidelity.json (`premiumlab select`).
 SELECTED_FORMAT = "premiumlab.selected-fidelity"
 
@@ -388,7 +415,7 @@ def factor_views(run: Run, table: Any | None, current: Any | None) -> list[Facto
     """
     from premiumlab.book.levels import categorise
     from premiumlab.tabulation.from_run import rating_frame
-    from premiumlab.tabulation.row_effects import factor_effects
+    from premiumlab.tabulation.row_effects import effect_parts
     from premiumlab.tabulation.selection import banded_relativity
 
     book = run.load_book()
@@ -400,7 +427,7 @@ def factor_views(run: Run, table: Any | None, current: Any | None) -> list[Facto
     claims = book.claim_count
     losses = preds["claim_amount"].to_numpy(float) if "claim_amount" in preds else None
     glm_target = next((t for t in ("pure_premium", "frequency") if t in run.files.model_targets("glm")), None)
-    glm = None if glm_target is None else run.model_json("glm", glm_target)
+    glm = None if glm_target is None else _glm_model(run, glm_target)
     views = []
     for name, lv in run.levels.items():
         labels = list(lv.labels)
@@ -417,15 +444,14 @@ def factor_views(run: Run, table: Any | None, current: Any | None) -> list[Facto
     for which, rating in (("table", table), ("current", current)):
         if rating is None:
             continue
-        effects = factor_effects(rating, rating_frame(book, run.spec, rows), run.spec.columns.exposure)
+        main, two_way = effect_parts(rating, rating_frame(book, run.spec, rows), exposure[rows])
         for view in views:
-            if view.name not in effects:
+            if view.name not in main:
                 continue
             level = codes[view.name].to_numpy()[rows]
             known = level >= 0
-            values, _ = banded_relativity(
-                level[known], np.log(effects[view.name][known]), exposure[rows][known], len(view.labels)
-            )
+            log_effect = (main[view.name] + two_way[view.name])[known]
+            values, _ = banded_relativity(level[known], log_effect, exposure[rows][known], len(view.labels))
             view.series[which] = _relative(values, view.labels, view.base)
     return views
 
@@ -533,7 +559,11 @@ def report_context(
     import rating_tables
 
     manifest = run.manifest
-    comparison = read_json(run.files.comparison) if run.files.comparison.exists() else None
+    comparison = (
+        _require(read_json(run.files.comparison), COMPARISON_KEYS, run.files.comparison)
+        if run.files.comparison.exists()
+        else None
+    )
     table = None if table_dir is None else rating_tables.load(table_dir)
     current = None if current_dir is None else rating_tables.load(current_dir)
     fidelity = _read_fidelity(table_dir)
@@ -549,7 +579,7 @@ def report_context(
     exposure = {v.name: v.exposure for v in views}
     labels = {v.name: v.labels for v in views}
     for target in run.files.model_targets("glm"):
-        m = run.model_json("glm", target)
+        m = _glm_model(run, target)
         glm_sections.append(
             {
                 "title": _model_title("glm", target),

@@ -31,10 +31,10 @@ from premiumlab.experience.adjustments import latest_period_holdout, read_text_c
 
 MANIFEST_FORMAT = "premiumlab.run"
 MANIFEST_VERSION = 1
-#: The keys of run.json that commands read, with their JSON types (docs/run-directory.md).
+#: The keys of run.json that commands read, with their JSON types (docs/run-directory.md);
+#: `book.path_from_run` is checked where the book is looked for (`Run.book_path`).
 MANIFEST_KEYS: dict[str, type] = {
     "spec": dict,
-    "book.path_from_run": str,
     "book.sha256": str,
     "rows.total": int,
     "rows.train": int,
@@ -138,11 +138,14 @@ class RunDir:
             for part in key.split("."):
                 value = value.get(part) if isinstance(value, dict) else None
             if not isinstance(value, kind) or isinstance(value, bool):
-                raise InputError(
-                    f"{self.manifest}: key '{key}' is missing or not {MANIFEST_KINDS[kind]}; "
-                    "the run folder was edited: fit again"
-                )
+                raise self.edited(key, kind)
         return manifest
+
+    def edited(self, key: str, kind: type) -> InputError:
+        """The refusal of run.json's `key`, missing or not of JSON type `kind`."""
+        return InputError(
+            f"{self.manifest}: key '{key}' is missing or not {MANIFEST_KINDS[kind]}; the run folder was edited: fit again"
+        )
 
     def write_manifest(self, contents: dict) -> None:
         """run.json: the format and version, then `contents`."""
@@ -199,7 +202,12 @@ class Run:
     def book_path(self, path: str | Path | None = None) -> Path:
         """Where the run's book is: `path` when given, else run.json's `book.path_from_run` taken
         relative to the run folder."""
-        return Path(path) if path is not None else self.path / self.manifest["book"]["path_from_run"]
+        if path is not None:
+            return Path(path)
+        recorded = self.manifest["book"].get("path_from_run")
+        if not isinstance(recorded, str):
+            raise self.files.edited("book.path_from_run", str)
+        return self.path / recorded
 
     def inputs(self, book: str | Path | None = None) -> tuple[Path, ...]:
         """Everything a command that reads this run reads, for the output check

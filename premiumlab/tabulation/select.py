@@ -39,7 +39,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from premiumlab._core.errors import InputError
-from premiumlab.tabulation.row_effects import two_way_products
+from premiumlab.tabulation.row_effects import effect_parts
 from premiumlab.tabulation.selection import (
     banded_relativity,
     capped,
@@ -166,10 +166,7 @@ def _two_way_mean(w: _Working, cells: np.ndarray, rows: _Rows) -> np.ndarray:
     """m_b: the exposure-weighted geometric mean, over the training rows of each band or level of
     `w`, of the product of the indicated table's two-way relativities on the factor (1 without
     any, and for a band without rows)."""
-    product = rows.indicated_two_way.get(w.factor.name)
-    if product is None:
-        return np.ones(w.relativity.size)
-    mean, weight = banded_relativity(cells, np.log(product), rows.exposure, w.relativity.size)
+    mean, weight = banded_relativity(cells, rows.indicated_two_way[w.factor.name], rows.exposure, w.relativity.size)
     return np.where(weight > 0, mean, 1.0)
 
 
@@ -192,7 +189,7 @@ def _current_effective(
         return np.ones(w.relativity.size), f"the current table does not rate '{name}': its current relativity is 1"
     if isinstance(w.factor, CategoricalFactor) != isinstance(cur, CategoricalFactor):
         raise InputError(f"--current: factor '{name}' is numeric in one table and categorical in the other")
-    log_rows = np.log(rows.current[f"rel_{name}"] * rows.current_two_way.get(name, 1.0))
+    log_rows = rows.current[name] + rows.current_two_way[name]
     mean, weight = banded_relativity(cells, log_rows, rows.exposure, w.relativity.size)
     if isinstance(w.factor, CategoricalFactor) and isinstance(cur, CategoricalFactor):
         stand_in = cur.fallback or cur.base
@@ -220,7 +217,9 @@ def _current_effective(
 
 @dataclass(frozen=True)
 class _Rows:
-    """The training rows as the rules read them."""
+    """The training rows as the rules read them: per factor, the log main relativity and the log
+    partner-averaged two-way part of its effect in the indicated and in the current table
+    (`tabulation.row_effects.effect_parts`)."""
 
     frame: pd.DataFrame
     exposure: np.ndarray
@@ -259,7 +258,7 @@ def _reband(w: _Working, rules: FactorRules, spec_edges: tuple[float, ...] | Non
     values = rows.values[name]
     known = ~np.isnan(values)
     band = _row_bands(lower, values)[known]
-    log_ind = np.log(rows.indicated[f"rel_{name}"])[known]
+    log_ind = rows.indicated[name][known]
     relativity, exposure = banded_relativity(band, log_ind, rows.exposure[known], lower.size)
     if np.isnan(relativity).any():
         empty = int(np.flatnonzero(np.isnan(relativity))[0])
@@ -458,16 +457,17 @@ def select(
     frame = rating_frame(loaded, spec, train)
     expo = spec.columns.exposure
     values = {f.name: _numeric(frame, f.name) for f in indicated.main_factors if isinstance(f, NumericFactor)}
-    indicated_rels = _rel_columns(rating_tables.rate(indicated, frame, expo))
-    current_rels = {} if current_table is None else _rel_columns(rating_tables.rate(current_table, frame, expo))
+    exposure = loaded.exposure[train]
+    indicated_main, indicated_two_way = effect_parts(indicated, frame, exposure)
+    current_main, current_two_way = ({}, {}) if current_table is None else effect_parts(current_table, frame, exposure)
     rows = _Rows(
         frame=frame,
-        exposure=loaded.exposure[train],
+        exposure=exposure,
         values=values,
-        indicated=indicated_rels,
-        indicated_two_way=two_way_products(indicated, indicated_rels),
-        current=current_rels,
-        current_two_way={} if current_table is None else two_way_products(current_table, current_rels),
+        indicated=indicated_main,
+        indicated_two_way=indicated_two_way,
+        current=current_main,
+        current_two_way=current_two_way,
     )
     spec_edges = {f.name: f.bands for f in spec.factors}
 
@@ -625,7 +625,3 @@ def _numeric(frame: pd.DataFrame, name: str) -> np.ndarray:
     import pandas as pd
 
     return pd.to_numeric(frame[name], errors="coerce").to_numpy(dtype=float)
-
-
-def _rel_columns(rated: pd.DataFrame) -> dict[str, np.ndarray]:
-    return {c: rated[c].to_numpy(dtype=float) for c in rated.columns if c.startswith("rel_")}
