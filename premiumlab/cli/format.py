@@ -14,6 +14,7 @@ from premiumlab.results import (
     AuditResult,
     Certificate,
     Comparison,
+    DemoResult,
     ImpactResult,
     SelectResult,
     SimulationResult,
@@ -141,7 +142,8 @@ def simulation_line(result: SimulationResult) -> str:
 
 def validation_text(report: ValidationReport) -> str:
     """`validate`: the counts, every finding, the profile tables (when the book has no errors) and
-    the cautions, for a `premiumlab.book.validate.ValidationReport`.
+    the missing values, for a `premiumlab.book.validate.ValidationReport` (its cautions go to
+    stderr with every command's).
 
     Parameters
     ----------
@@ -168,7 +170,6 @@ def validation_text(report: ValidationReport) -> str:
                 lines += ["", f"profile: {name}", table.to_string()]
     if report.missing is not None:
         lines += ["", *missing_value_lines(report.missing)]
-    lines += ["", *caution_lines(report.cautions)]
     return "\n".join(lines)
 
 
@@ -586,3 +587,65 @@ def result_lines(value: object) -> list[str]:
         `fidelity_lines` or `impact_lines` give them.
     """
     return _RESULT_LINES[type(value)](value)
+
+
+#: What the demo writes that a reader opens first: label and path inside the demo folder.
+DEMO_OUTPUTS = (
+    ("report", "run/report.html"),
+    ("exhibit", "table/exhibit.xlsx"),
+    ("rating table", "table/"),
+    ("GLM table", "glm_table/"),
+    ("priced book", "priced.parquet"),
+    ("impact", "impact.json"),
+    ("impact figure", "impact.png"),
+)
+
+
+def _seconds_text(seconds: float) -> str:
+    minutes, rest = divmod(round(seconds), 60)
+    return f"{seconds:.1f} s" if seconds < 60 else f"{minutes} min {rest:02d} s"
+
+
+def demo_summary_lines(result: DemoResult, steps: Iterable[tuple[str, float]] = ()) -> list[str]:
+    """`demo`: what it wrote (with paths), the time of each numbered step and the commands to try next.
+
+    Parameters
+    ----------
+    result : DemoResult
+        What `demo` returned.
+    steps : iterable of (str, float)
+        Each step's first line and its wall time in seconds, as the command line measured them;
+        the numbered `[k/n]` steps are listed.
+
+    Returns
+    -------
+    list[str]
+        "the demo wrote:" with one line per output that exists in `result.files` (label, path
+        under `result.out`), the numbered steps' times and their total, and "next:" with commands
+        that work on the demo's folder as they stand.
+    """
+    out = result.out
+    written = set(result.files)
+    lines = [f"the demo wrote, in {out}:"]
+    for label, name in DEMO_OUTPUTS:
+        if name in written or (name.endswith("/") and any(f.startswith(name) for f in written)):
+            lines.append(f"  {label:<14} {(out / name).as_posix()}{'/' if name.endswith('/') else ''}")
+    numbered = [(text.split("]", 1)[0] + "]", seconds) for text, seconds in steps if text.startswith("[")]
+    if numbered:
+        total = sum(seconds for _, seconds in numbered)
+        lines.append(
+            "time per step: "
+            + ", ".join(f"{k} {_seconds_text(s)}" for k, s in numbered)
+            + f"; in all {_seconds_text(total)}"
+        )
+    o = out.as_posix()
+    lines += [
+        "next:",
+        f"  premiumlab report {o}/run --table {o}/table --current {o}/glm_table --book {o}/book.parquet "
+        f"--out {o}/review.html",
+        f"  premiumlab select {o}/table --selections SELECTIONS.toml --run {o}/run --out {o}/selected "
+        "(docs/commands.md: select)",
+        f"  premiumlab impact {o}/book.parquet --current {o}/glm_table --proposed {o}/table --cap 0.15",
+        f"  premiumlab audit {o}/table --spec {o}/spec.toml --run {o}/run",
+    ]
+    return lines

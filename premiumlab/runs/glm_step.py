@@ -13,6 +13,7 @@ import numpy as np
 import pandas as pd
 
 from premiumlab._core.jsonio import write_json
+from premiumlab._core.progress import Progress, Silent
 from premiumlab.book.levels import Levels
 from premiumlab.book.rows import Book
 from premiumlab.book.spec import Spec
@@ -94,6 +95,7 @@ def fit_glms(
     has_amount: bool,
     adjustment: Adjustment | None = None,
     control: PeriodControl | None = None,
+    progress: Progress | None = None,
 ) -> float | None:
     """Fit the three GLMs on the training rows, write them to the run's models/ and add their
     predictions of every row to `preds`; with a period control, predict at the control's
@@ -125,6 +127,8 @@ def fit_glms(
         book as it is).
     control : PeriodControl or None
         The period as a control factor (None: no control).
+    progress : Progress or None
+        Told as each GLM is fitted (None: nothing is said).
 
     Returns
     -------
@@ -141,10 +145,14 @@ def fit_glms(
     inputs = _glm_inputs(counts, cats, levels, train, multiplier, names)
     whole = _glm_inputs(counts, cats, levels, train, None, names) if multiplier is not None else inputs
     engine, penalty = spec.glm.engine, spec.glm.penalty
+    report = progress if progress is not None else Silent()
     results = {"frequency": fit_frequency(inputs, engine=engine, penalty=penalty)}
+    report.step("fit: GLM frequency fitted")
     if has_amount:
         results["severity"] = fit_severity(inputs, engine=engine, penalty=penalty)
+        report.step("fit: GLM severity fitted")
         results["pure_premium"] = fit_pure_premium(whole, power=spec.glm.tweedie_power, engine=engine, penalty=penalty)
+        report.step(f"fit: GLM pure premium fitted, Tweedie power {results['pure_premium'].power:.2f}")
     for target, res in results.items():
         name = model_name("glm", target)
         preds[name] = res.predict(cats) if control is None else _at_mean_control(res, cats, control)
