@@ -17,7 +17,7 @@ from typing import Annotated
 import typer
 
 from premiumlab._core.defaults import PLAUSIBLE_RELATIVITY
-from premiumlab.cli.console import StepReporter, is_quiet, note, say, set_quiet, warn
+from premiumlab.cli.console import StepReporter, is_quiet, note, print_view, say, set_quiet, warn
 from premiumlab.cli.help import NamedParamsCommand, NamedParamsGroup
 
 
@@ -174,10 +174,10 @@ def validate(
 ) -> None:
     """Check a book against a spec, list every finding and print a profile (exit 1 on errors)."""
     from premiumlab import api
-    from premiumlab.cli.format import validation_text
+    from premiumlab.cli.format import validation_view
 
     report = api.validate(book, spec=spec, cluster=cluster)
-    say(validation_text(report))
+    print_view(validation_view(report))
     if is_quiet():
         warn(str(finding) for finding in report.errors)
     _echo_cautions(report.cautions)
@@ -223,10 +223,10 @@ def compare(
 ) -> None:
     """Compare GLM and GBM on the holdout; write comparison.json and figures/; warn of broken models."""
     from premiumlab import api
-    from premiumlab.cli.format import comparison_lines, diagnostic_lines
+    from premiumlab.cli.format import comparison_view, diagnostic_lines
 
     result = api.compare(run, bounds=bounds, out=out, force=force)
-    say("\n".join(comparison_lines(result)))
+    print_view(comparison_view(result))
     warn(diagnostic_lines(result.diagnostics, source=(run if out is None else out) / "comparison.json"))
     _echo_cautions(result.cautions)
 
@@ -291,7 +291,14 @@ def audit(
     from premiumlab.cli.format import audit_lines, diagnostic_lines
 
     result = api.audit(table, spec=spec, run=run, bounds=bounds, no_bounds=no_bounds)
-    say("\n".join(audit_lines(result)))
+    promises = None
+    if spec is not None:
+        from premiumlab import load_spec
+
+        promises = {
+            f.name: "increasing" if f.direction > 0 else "decreasing" for f in load_spec(spec).factors if f.direction
+        }
+    say("\n".join(audit_lines(result, promises=promises, certificate_checked=run is not None)))
     warn(diagnostic_lines(result.diagnostics))  # warnings, not violations
     _echo_cautions(result.cautions)  # a clean audit is not an approval
     if result.violations:
@@ -317,11 +324,32 @@ def rate(
     """Rate policies with a table: pure and gross premium and the build-up columns."""
     from premiumlab import api
     from premiumlab.cli.format import level_count_lines
+    from premiumlab.cli.tables import rate_summary_table
 
     result = api.rate(table, book, out=out, exposure=exposure, annual=annual, strict_levels=strict_levels, force=force)
     say(f"wrote {result.priced} ({result.rows} rows)")
+    gross, at_minimum = _priced_totals(result.priced)
+    fallback = sum(c.fallback_rows + c.missing_rows for c in result.counts)
+    print_view([rate_summary_table(result.rows, gross, at_minimum, fallback)])
     warn(level_count_lines(result.counts))
     _echo_cautions(result.cautions)
+
+
+def _priced_totals(priced: Path) -> tuple[float, int | None]:
+    """The total gross premium of a priced file and its rows at the minimum premium (None without
+    an `at_minimum` column), read from those two columns only."""
+    import pandas as pd
+
+    wanted = ("gross_premium", "at_minimum")
+    if priced.suffix.lower() in (".parquet", ".pq"):
+        import pyarrow.parquet as pq
+
+        names = pq.read_schema(priced).names
+        frame = pq.read_table(priced, columns=[c for c in wanted if c in names]).to_pandas()
+    else:
+        frame = pd.read_csv(priced, usecols=lambda c: c in wanted)
+    at_minimum = int(frame["at_minimum"].astype(str).str.lower().eq("true").sum()) if "at_minimum" in frame else None
+    return float(frame["gross_premium"].sum()), at_minimum
 
 
 @app.command(cls=NamedParamsCommand)
@@ -348,7 +376,7 @@ def impact(
 ) -> None:
     """Premium dislocation from the current to the proposed rates, optionally capped."""
     from premiumlab import api
-    from premiumlab.cli.format import impact_lines
+    from premiumlab.cli.format import impact_view
 
     result = api.impact(
         book,
@@ -364,7 +392,7 @@ def impact(
         figure=figure,
         force=force,
     )
-    say("\n".join(impact_lines(result)))
+    print_view(impact_view(result))
     _echo_cautions(result.cautions)
 
 

@@ -123,6 +123,29 @@ def warn(lines: Iterable[str]) -> None:
         typer.echo(line, err=True)
 
 
+def print_view(view: Iterable[str | RenderableType], err: bool = False) -> None:
+    """Text and rich tables in order, on stdout (or stderr); nothing under `--quiet`.
+
+    Parameters
+    ----------
+    view : iterable of str or rich renderables
+        What a command prints, e.g. `premiumlab.cli.format.impact_view`'s list.
+    err : bool
+        Print on stderr instead of stdout.
+    """
+    if _quiet:
+        return
+    previous: object = None  # a table first in the view gets its blank line too
+    for item in view:
+        if isinstance(item, str):
+            typer.echo(item, err=err)
+        else:
+            if previous != "":
+                typer.echo("", err=err)  # one blank line above each table
+            rich_console(err=err).print(item)
+        previous = item
+
+
 class StepReporter:
     """The command line's `Progress`: each finished step as a line with its wall time, and on a
     terminal a spinner while the next one runs.
@@ -179,16 +202,17 @@ class StepReporter:
             self._status.update("working on the next step")
 
     def result(self, value: object) -> None:
-        """Print a finished step's result as its text (`premiumlab.cli.format.result_lines`).
+        """Print a finished step's result as its text and tables (`premiumlab.cli.format.result_view`).
 
         Parameters
         ----------
         value : object
             A `Comparison`, `TableResult` or `ImpactResult`.
         """
-        from premiumlab.cli.format import result_lines
+        from premiumlab.cli.format import result_view
 
-        self._print("\n".join(result_lines(value)))
+        if not _quiet:
+            print_view(result_view(value), err=self.err)
 
     def _print(self, text: str) -> None:
         if not _quiet:  # while the spinner runs, rich moves what is printed above it
