@@ -78,6 +78,6 @@ def test_demo_summary_names_the_outputs_and_what_to_run_next():
     lines = demo_summary_lines(DemoResult(out=Path("demo-output"), files=files, cautions=()), steps)
     assert "  report         demo-output/run/report.html" in lines
     assert "  rating table   demo-output/table/" in lines
-    assert not any("glm_table" in line for line in lines[:7])  # not written here, so not listed
+    assert not any("glm_table" in line for line in lines[:8])  # not written here, so not listed
     assert "time per step: [1/7] 1.2 s, [2/7] 1 min 35 s; in all 1 min 36 s" in lines
     assert any(line.startswith("  premiumlab report demo-output/run --table demo-output/table") for line in lines)

@@ -199,7 +199,7 @@ class StepReporter:
         self.steps.append((first, seconds))
         self._print("\n".join([f"{first} ({seconds:.1f} s)", *rest]))
         if self._status is not None:
-            self._status.update("working on the next step")
+            self._status.update(f"working; last done: {first}")
 
     def result(self, value: object) -> None:
         """Print a finished step's result as its text and tables (`premiumlab.cli.format.result_view`).

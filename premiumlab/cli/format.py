@@ -648,13 +648,13 @@ def demo_summary_lines(result: DemoResult, steps: Iterable[tuple[str, float]] = 
     Returns
     -------
     list[str]
-        "the demo wrote:" with one line per output that exists in `result.files` (label, path
+        A blank line, "the demo wrote, in OUT:" with one line per output that exists in `result.files` (label, path
         under `result.out`), the numbered steps' times and their total, and "next:" with commands
         that work on the demo's folder as they stand.
     """
     out = result.out
     written = set(result.files)
-    lines = [f"the demo wrote, in {out}:"]
+    lines = ["", f"the demo wrote, in {out}:"]
     for label, name in DEMO_OUTPUTS:
         if name in written or (name.endswith("/") and any(f.startswith(name) for f in written)):
             lines.append(f"  {label:<14} {(out / name).as_posix()}{'/' if name.endswith('/') else ''}")
@@ -671,8 +671,7 @@ def demo_summary_lines(result: DemoResult, steps: Iterable[tuple[str, float]] = 
         "next:",
         f"  premiumlab report {o}/run --table {o}/table --current {o}/glm_table --book {o}/book.parquet "
         f"--out {o}/review.html",
-        f"  premiumlab select {o}/table --selections SELECTIONS.toml --run {o}/run --out {o}/selected "
-        "(docs/commands.md: select)",
+        f"  premiumlab select {o}/table --selections YOUR_SELECTIONS.toml --run {o}/run --out {o}/selected",
         f"  premiumlab impact {o}/book.parquet --current {o}/glm_table --proposed {o}/table --cap 0.15",
         f"  premiumlab audit {o}/table --spec {o}/spec.toml --run {o}/run",
     ]
