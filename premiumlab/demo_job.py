@@ -9,6 +9,7 @@ from the GLM table to the distilled one).
 
 from __future__ import annotations
 
+from dataclasses import replace
 from importlib import resources
 from pathlib import Path
 
@@ -91,11 +92,17 @@ def run_demo(
         report.result(Comparison.from_summary(compare(run)))
         report.step("[3/7] compared on the holdout")
         table = TableResult.from_summary(tabulate(run, tmp / "table", model="auto"))
-        report.result(table)
+        report.result(replace(table, table=out / "table"))  # the folder's name once the demo is done
         tabulate(run, tmp / "glm_table", model="glm")
-        report.step("[4/7] made table/ from the model best on the holdout and exported the GLM as glm_table/")
+        report.step(
+            "[4/7] made table/ (with exhibit.xlsx) from the model best on the holdout and exported the GLM as glm_table/"
+        )
         audit = audit_table(tmp / "table", spec, run)
-        report.step("\n".join(audit.violations) if audit.violations else "[5/7] audit: no violations in table/")
+        report.step(
+            "\n".join([f"[5/7] audit: {len(audit.violations)} violation(s) in table/", *audit.violations])
+            if audit.violations
+            else "[5/7] audit: no violations in table/"
+        )
         rate_book(tmp / "table", book, tmp / "priced.parquet", None, annual=False)  # the table's exposure column
         report.step("[6/7] rated the book into priced.parquet")
         impact = dislocation(str(tmp / "glm_table"), str(tmp / "table"), book, None, False, 0.15, (0.05, 0.10, 0.25))
@@ -103,8 +110,6 @@ def run_demo(
         plot_impact(impact.to_dict(), tmp / "impact.png")
         report.result(impact)
         write_report(run)
-        report.step(
-            "[7/7] impact of moving from the GLM table written to impact.json and impact.png; report in run/report.html"
-        )
+        report.step("[7/7] measured the impact of moving from glm_table/ to table/ and wrote the report")
         files = tuple(sorted(p.relative_to(tmp).as_posix() for p in tmp.rglob("*") if p.is_file()))
     return DemoResult(out=out, files=files, cautions=table.cautions)

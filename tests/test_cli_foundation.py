@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import hashlib
 import os
+import re
 import subprocess
 import sys
 
@@ -65,7 +66,9 @@ def test_validate_prints_a_profile_on_a_clean_book(book_file, spec_file):
     assert "0 error(s)" in r.stdout
     for part in ("profile: (overall)", "profile: age", "[25, 40)", "frequency", "severity", "loss_cost"):
         assert part in r.stdout
-    cautions = [line for line in r.stdout.splitlines() if line.startswith("caution: ")]
+    # cautions go to stderr, as with every command (they went to stdout before the terminal rework)
+    assert "caution: " not in r.stdout
+    cautions = [line for line in r.stderr.splitlines() if line.startswith("caution: ")]
     assert cautions[0].startswith("caution: Draft for review by a qualified actuary") and len(cautions) == 3
     assert "as recorded: no development, trend or large-loss cap" in cautions[2]
 
@@ -83,6 +86,45 @@ def test_help_on_every_command():
     for cmd in ("simulate", "validate", "fit", "demo"):
         r = run_cli(cmd, "--help")
         assert r.returncode == 0 and "Usage" in r.stdout
+
+
+def test_help_shows_flags_as_flags_and_arguments_in_capitals():
+    r = run_cli("impact", "--help")
+    assert r.returncode == 0, r.stderr
+    assert "Usage: premiumlab impact [OPTIONS] BOOK" in r.stdout
+    assert "<bool>" not in r.stdout and "{book}" not in r.stdout
+    assert r.stdout.count("(default:") == 3  # text in brackets is not eaten as markup by the help panel
+    force = next(line for line in r.stdout.splitlines() if "--force" in line)
+    assert "Replace an existing output" in force
+
+
+def test_version():
+    from premiumlab import __version__
+
+    r = run_cli("--version")
+    assert r.returncode == 0 and r.stdout == f"premiumlab {__version__}\n"
+
+
+def test_quiet_keeps_only_cautions_and_errors(tmp_path, book_file, spec_file):
+    r = run_cli("--quiet", "validate", str(book_file), "--spec", str(spec_file))
+    assert r.returncode == 0 and r.stdout == ""
+    assert all(line.startswith("caution: ") for line in r.stderr.splitlines()) and "caution: Draft" in r.stderr
+    df = small_book()
+    df.loc[[1], "exposure"] = 0.0
+    bad = tmp_path / "bad.csv"
+    df.to_csv(bad, index=False)
+    r = run_cli("-q", "validate", str(bad), "--spec", str(spec_file))
+    assert r.returncode == 1 and r.stdout == ""
+    assert "1 row with exposure <= 0 (rows 1)" in r.stderr and "error: error:" not in r.stderr
+
+
+def test_fit_reports_each_step_with_its_time_when_not_a_terminal(tmp_path, book_file, spec_file):
+    r = run_cli("fit", str(book_file), "--spec", str(spec_file), "--out", str(tmp_path / "run"), "--models", "glm")
+    assert r.returncode == 0, r.stderr
+    steps = [line for line in r.stderr.splitlines() if line.startswith("fit: ")]
+    assert steps[0].startswith("fit: read the book") and any("GLM frequency fitted" in s for s in steps)
+    assert all(re.search(r"\(\d+\.\d s\)$", s) for s in steps), steps
+    assert "\x1b[" not in r.stderr + r.stdout  # no colour codes into a pipe
 
 
 def test_a_reader_that_stops_early_ends_the_command_quietly(book_file, spec_file):

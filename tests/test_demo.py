@@ -28,7 +28,12 @@ def test_demo_writes_every_output_with_its_cautions(tmp_path):
     for name in OUTPUTS:
         assert (out / name).is_file(), name
     assert [line[:5] for line in r.stdout.splitlines() if line.startswith("[")] == [f"[{i}/7]" for i in range(1, 8)]
-    assert "caution: Draft for review by a qualified actuary" in r.stdout
+    # cautions on stderr as with every command; no hidden temporary folder named; what it wrote and what next
+    assert "caution: Draft for review by a qualified actuary" in r.stderr
+    assert ".tmp-" not in r.stdout + r.stderr
+    assert f"  report         {(out / 'run' / 'report.html').as_posix()}" in r.stdout
+    assert f"  exhibit        {(out / 'table' / 'exhibit.xlsx').as_posix()}" in r.stdout
+    assert "time per step: [1/7]" in r.stdout and "next:" in r.stdout
     assert "folds = 3\nmax_settings = 4" in (out / "spec.toml").read_text()
     run = json.loads((out / "run" / "run.json").read_text())
     assert run["rows"]["total"] > 4000 and run["gbm_search_ran_on"] == "this process"

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import dataclasses
 import json
+import re
 
 import pandas as pd
 
@@ -58,7 +59,9 @@ def test_the_command_states_the_counts_and_refuses_unknown_levels_when_strict(tm
     table, book = _table_and_book(tmp_path)
     done = run_cli("rate", str(table), str(book), "--out", str(tmp_path / "priced.csv"))
     assert done.returncode == 0, done.stderr
-    assert done.stdout.strip() == f"wrote {tmp_path / 'priced.csv'} (6 rows)"
+    # the first line names the file; the summary table follows (added with the terminal rework)
+    assert done.stdout.splitlines()[0] == f"wrote {tmp_path / 'priced.csv'} (6 rows)"
+    assert re.search(r"rows priced\s+6\n", done.stdout) and "total gross premium" in done.stdout
     lines = done.stderr.splitlines()
     assert lines[0] == (
         "factor 'region': 3 rows with a level the table does not list ('Islands', 'Atlantis') rated at the "

@@ -92,6 +92,10 @@ def test_audit_exits_1_and_names_an_injected_reversal(demo_run, tmp_path):
     assert not lines[-1].startswith("audit: 0 ")
     clean = run_cli("audit", str(demo_run["table"]), "--spec", str(demo_run["spec"]), "--no-bounds")
     assert clean.returncode == 0 and "audit: 0 violation(s)" in clean.stdout
+    # it says what it checked before the count: the spec's promises, and that no run was re-certified
+    checked = clean.stdout.splitlines()[0]
+    assert checked.startswith("checked: the table's structure") and "bonus_class increasing" in checked
+    assert "no run given, so no certificate re-checked" in checked
     assert clean.stderr.startswith("caution: Draft for review by a qualified actuary")
 
 

@@ -9,7 +9,11 @@ from __future__ import annotations
 import sys
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
-from typing import Protocol
+from functools import lru_cache
+from typing import TYPE_CHECKING, Protocol
+
+if TYPE_CHECKING:
+    from rich.console import Console
 
 
 class Progress(Protocol):
@@ -47,18 +51,32 @@ class Silent:
 @contextmanager
 def progress_bar(description: str, total: int) -> Iterator[Callable[[], None]]:
     """A progress bar of `total` steps; yields the callback that advances it by one."""
-    from rich.console import Console
     from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
 
-    console = Console(stderr=True)
     with Progress(
         TextColumn("{task.description}"),
         BarColumn(),
         MofNCompleteColumn(),
         TimeElapsedColumn(),
-        console=console,
+        console=stderr_console(),
         transient=True,
         disable=not sys.stderr.isatty(),
     ) as bar:
         task = bar.add_task(description, total=total)
         yield lambda: bar.advance(task)
+
+
+@lru_cache(maxsize=1)
+def stderr_console() -> Console:
+    """The one rich console on stderr, shared by the progress bars here and the command line's
+    spinner so that rich nests them instead of letting them draw over each other.
+
+    Returns
+    -------
+    rich.console.Console
+        Plain text, no colour and no wrapping when stderr is not a terminal.
+    """
+    from rich.console import Console
+
+    tty = sys.stderr.isatty()
+    return Console(stderr=True, highlight=False, no_color=not tty, width=None if tty else 240, soft_wrap=not tty)

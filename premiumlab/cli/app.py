@@ -15,12 +15,13 @@ from pathlib import Path
 from typing import Annotated
 
 import typer
-from typer.core import TyperGroup
 
 from premiumlab._core.defaults import PLAUSIBLE_RELATIVITY
+from premiumlab.cli.console import StepReporter, is_quiet, note, print_view, say, set_quiet, warn
+from premiumlab.cli.help import NamedParamsCommand, NamedParamsGroup
 
 
-class _OneLineUsage(TyperGroup):
+class _OneLineUsage(NamedParamsGroup):
     """Usage errors (a missing or unknown option, a value of the wrong type, an unknown command) as
     one line on stderr with exit code 2, like every other bad input; help is printed as before."""
 
@@ -51,8 +52,28 @@ app = typer.Typer(
 )
 
 
+def _print_version(value: bool) -> None:
+    if value:
+        from premiumlab import __version__
+
+        typer.echo(f"premiumlab {__version__}")
+        raise typer.Exit(0)
+
+
 @app.callback()
-def _before_any_command() -> None:
+def _before_any_command(
+    quiet: Annotated[
+        bool,
+        typer.Option(
+            "--quiet", "-q", help="Print only errors, warnings and cautions (on stderr); outputs are still written."
+        ),
+    ] = False,
+    version: Annotated[
+        bool,
+        typer.Option("--version", help="Print the version and exit.", callback=_print_version, is_eager=True),
+    ] = False,
+) -> None:
+    set_quiet(quiet)
     # Arrow's jemalloc pool hands freed chunks back to the system promptly, so the peak of a chunked
     # pass stays near one chunk whatever the book's length (5,000,000 rows against 1,000,000: validate
     # 1.05x, rate 1.12x, steady from run to run; with the default pool the peaks moved by up to 100 MB
@@ -123,33 +144,13 @@ def handled(fn: Callable) -> Callable:
     return wrapper
 
 
-def _echo_lines(lines: Iterable[str]) -> None:
-    for line in lines:
-        typer.echo(line, err=True)
-
-
 def _echo_cautions(cautions: Iterable[str]) -> None:
     from premiumlab.cli.format import caution_lines
 
-    _echo_lines(caution_lines(cautions))
+    warn(caution_lines(cautions))
 
 
-class _Echo:
-    """The command line's `Progress`: each step as a line, each result as its text (`cli.format`)."""
-
-    def __init__(self, err: bool) -> None:
-        self.err = err
-
-    def step(self, message: str) -> None:
-        typer.echo(message, err=self.err)
-
-    def result(self, value: object) -> None:
-        from premiumlab.cli.format import result_lines
-
-        typer.echo("\n".join(result_lines(value)), err=self.err)
-
-
-@app.command()
+@app.command(cls=NamedParamsCommand)
 @handled
 def simulate(
     scenario: Annotated[Path, typer.Argument(help="Scenario TOML file.")],
@@ -162,10 +163,10 @@ def simulate(
     from premiumlab import api
     from premiumlab.cli.format import simulation_line
 
-    typer.echo(simulation_line(api.simulate(scenario, out=out, policies=policies, seed=seed, force=force)))
+    say(simulation_line(api.simulate(scenario, out=out, policies=policies, seed=seed, force=force)))
 
 
-@app.command()
+@app.command(cls=NamedParamsCommand)
 @handled
 def validate(
     book: Annotated[Path, typer.Argument(help="Book (.csv, .parquet or a folder of parts).")],
@@ -174,15 +175,18 @@ def validate(
 ) -> None:
     """Check a book against a spec, list every finding and print a profile (exit 1 on errors)."""
     from premiumlab import api
-    from premiumlab.cli.format import validation_text
+    from premiumlab.cli.format import validation_view
 
     report = api.validate(book, spec=spec, cluster=cluster)
-    typer.echo(validation_text(report))
+    print_view(validation_view(report))
+    if is_quiet():
+        warn(str(finding) for finding in report.errors)
+    _echo_cautions(report.cautions)
     if report.errors:
         raise typer.Exit(1)
 
 
-@app.command()
+@app.command(cls=NamedParamsCommand)
 @handled
 def fit(
     book: Annotated[Path, typer.Argument(help="Book (.csv, .parquet or a folder of parts).")],
@@ -196,25 +200,18 @@ def fit(
     from premiumlab import api
     from premiumlab.cli.format import diagnostic_lines
 
-    run = api.fit(
-        book,
-        spec=spec,
-        out=out,
-        models=models,
-        cluster=cluster,
-        force=force,
-        progress=_Echo(err=True) if sys.stderr.isatty() else None,
-    )
-    typer.echo(f"wrote {run.path}")
+    with StepReporter(err=True, first="fit: reading the book") as steps:
+        run = api.fit(book, spec=spec, out=out, models=models, cluster=cluster, force=force, progress=steps)
+    say(f"wrote {run.path}")
     if run.files.interactions.is_file():
         from premiumlab._core.jsonio import read_json
         from premiumlab.cli.format import interaction_line
 
-        typer.echo(interaction_line(read_json(run.files.interactions)), err=True)
-    _echo_lines(diagnostic_lines(run.manifest.get("diagnostics", []), source=run.files.manifest))
+        note(interaction_line(read_json(run.files.interactions)))
+    warn(diagnostic_lines(run.manifest.get("diagnostics", []), source=run.files.manifest))
 
 
-@app.command()
+@app.command(cls=NamedParamsCommand)
 @handled
 def compare(
     run: Annotated[Path, typer.Argument(help="Run directory written by `fit`.")],
@@ -227,15 +224,15 @@ def compare(
 ) -> None:
     """Compare GLM and GBM on the holdout; write comparison.json and figures/; warn of broken models."""
     from premiumlab import api
-    from premiumlab.cli.format import comparison_lines, diagnostic_lines
+    from premiumlab.cli.format import comparison_view, diagnostic_lines
 
     result = api.compare(run, bounds=bounds, out=out, force=force)
-    typer.echo("\n".join(comparison_lines(result)))
-    _echo_lines(diagnostic_lines(result.diagnostics, source=(run if out is None else out) / "comparison.json"))
+    print_view(comparison_view(result))
+    warn(diagnostic_lines(result.diagnostics, source=(run if out is None else out) / "comparison.json"))
     _echo_cautions(result.cautions)
 
 
-@app.command()
+@app.command(cls=NamedParamsCommand)
 @handled
 def tabulate(
     run: Annotated[Path, typer.Argument(help="Run directory written by `fit`.")],
@@ -255,11 +252,11 @@ def tabulate(
     from premiumlab.cli.format import fidelity_lines
 
     result = api.tabulate(run, out=out, model=model, book=book, force=force)
-    typer.echo("\n".join(fidelity_lines(result)))
+    say("\n".join(fidelity_lines(result)))
     _echo_cautions(result.cautions)
 
 
-@app.command()
+@app.command(cls=NamedParamsCommand)
 @handled
 def select(
     table: Annotated[Path, typer.Argument(help="The indicated table folder (written by `tabulate`).")],
@@ -277,11 +274,11 @@ def select(
     from premiumlab.cli.format import selection_lines
 
     result = api.select(table, selections=selections, run=run, out=out, current=current, book=book, force=force)
-    typer.echo("\n".join(selection_lines(result)))
+    say("\n".join(selection_lines(result)))
     _echo_cautions(result.cautions)
 
 
-@app.command()
+@app.command(cls=NamedParamsCommand)
 @handled
 def audit(
     table: Annotated[Path, typer.Argument(help="Rating table folder.")],
@@ -295,14 +292,21 @@ def audit(
     from premiumlab.cli.format import audit_lines, diagnostic_lines
 
     result = api.audit(table, spec=spec, run=run, bounds=bounds, no_bounds=no_bounds)
-    typer.echo("\n".join(audit_lines(result)))
-    _echo_lines(diagnostic_lines(result.diagnostics))  # warnings, not violations
+    promises = None
+    if spec is not None:
+        from premiumlab import load_spec
+
+        promises = {
+            f.name: "increasing" if f.direction > 0 else "decreasing" for f in load_spec(spec).factors if f.direction
+        }
+    say("\n".join(audit_lines(result, promises=promises, certificate_checked=run is not None)))
+    warn(diagnostic_lines(result.diagnostics))  # warnings, not violations
     _echo_cautions(result.cautions)  # a clean audit is not an approval
     if result.violations:
         raise typer.Exit(1)
 
 
-@app.command()
+@app.command(cls=NamedParamsCommand)
 @handled
 def rate(
     table: Annotated[Path, typer.Argument(help="Rating table folder.")],
@@ -322,6 +326,7 @@ def rate(
     """Rate policies with a table: pure and gross premium and the build-up columns."""
     from premiumlab import api
     from premiumlab.cli.format import level_count_lines
+    from premiumlab.cli.tables import rate_summary_table
 
     result = api.rate(
         table,
@@ -333,13 +338,32 @@ def rate(
         force=force,
         cluster=cluster,
     )
-    typer.echo(f"wrote {result.priced} ({result.rows} rows)")
-    for line in level_count_lines(result.counts):
-        typer.echo(line, err=True)
+    say(f"wrote {result.priced} ({result.rows} rows)")
+    gross, at_minimum = _priced_totals(result.priced)
+    fallback = sum(c.fallback_rows + c.missing_rows for c in result.counts)
+    print_view([rate_summary_table(result.rows, gross, at_minimum, fallback)])
+    warn(level_count_lines(result.counts))
     _echo_cautions(result.cautions)
 
 
-@app.command()
+def _priced_totals(priced: Path) -> tuple[float, int | None]:
+    """The total gross premium of a priced file and its rows at the minimum premium (None without
+    an `at_minimum` column), read from those two columns only."""
+    import pandas as pd
+
+    wanted = ("gross_premium", "at_minimum")
+    if priced.is_dir() or priced.suffix.lower() in (".parquet", ".pq"):  # a folder of parts with --cluster
+        import pyarrow.dataset as ds
+
+        data = ds.dataset(priced, format="parquet")
+        frame = data.to_table(columns=[c for c in wanted if c in data.schema.names]).to_pandas()
+    else:
+        frame = pd.read_csv(priced, usecols=lambda c: c in wanted)
+    at_minimum = int(frame["at_minimum"].astype(str).str.lower().eq("true").sum()) if "at_minimum" in frame else None
+    return float(frame["gross_premium"].sum()), at_minimum
+
+
+@app.command(cls=NamedParamsCommand)
 @handled
 def impact(
     book: Annotated[Path, typer.Argument(help="Book of policies (no claim columns needed).")],
@@ -363,7 +387,7 @@ def impact(
 ) -> None:
     """Premium dislocation from the current to the proposed rates, optionally capped."""
     from premiumlab import api
-    from premiumlab.cli.format import impact_lines
+    from premiumlab.cli.format import impact_view
 
     result = api.impact(
         book,
@@ -379,11 +403,11 @@ def impact(
         figure=figure,
         force=force,
     )
-    typer.echo("\n".join(impact_lines(result)))
+    print_view(impact_view(result))
     _echo_cautions(result.cautions)
 
 
-@app.command()
+@app.command(cls=NamedParamsCommand)
 @handled
 def certify(
     model: Annotated[Path, typer.Argument(help="A LightGBM model in text format.")],
@@ -395,13 +419,13 @@ def certify(
     from premiumlab.cli.format import certificate_lines
 
     result = api.certify(model, factor=factor, direction=direction)
-    typer.echo("\n".join(certificate_lines(result)))
+    say("\n".join(certificate_lines(result)))
     _echo_cautions(result.cautions)  # a certificate is not an approval
     if result.violation_count:
         raise typer.Exit(1)
 
 
-@app.command()
+@app.command(cls=NamedParamsCommand)
 @handled
 def tails(
     book: Annotated[Path, typer.Argument(help="Book (.csv, .parquet or a folder of parts).")],
@@ -422,11 +446,11 @@ def tails(
     from premiumlab.cli.format import tail_json, tail_lines
 
     result = api.tails(book, spec=spec, threshold=threshold, figure=figure, force=force)
-    typer.echo(tail_json(result) if as_json else "\n".join(tail_lines(result)))
+    say(tail_json(result) if as_json else "\n".join(tail_lines(result)))
     _echo_cautions(result.cautions)
 
 
-@app.command()
+@app.command(cls=NamedParamsCommand)
 @handled
 def report(
     run: Annotated[Path, typer.Argument(help="Run directory written by `fit`.")],
@@ -439,10 +463,10 @@ def report(
     """Write one self-contained HTML report reviewing a run and its rating table."""
     from premiumlab import api
 
-    typer.echo(f"wrote {api.report(run, table=table, current=current, book=book, out=out, force=force).report}")
+    say(f"wrote {api.report(run, table=table, current=current, book=book, out=out, force=force).report}")
 
 
-@app.command()
+@app.command(cls=NamedParamsCommand)
 @handled
 def demo(
     out: Annotated[Path, typer.Option("--out", help="Folder for the demo outputs.")] = Path("demo-output"),
@@ -452,9 +476,9 @@ def demo(
 ) -> None:
     """Run the whole job on the built-in motor scenario."""
     from premiumlab import api
-    from premiumlab.cli.format import caution_lines
+    from premiumlab.cli.format import demo_summary_lines
 
-    result = api.demo(out=out, policies=policies, cluster=cluster, force=force, progress=_Echo(err=False))
-    for line in caution_lines(result.cautions):
-        typer.echo(line)
-    typer.echo(f"demo written to {result.out}")
+    with StepReporter(err=False, first="demo: simulating the book") as steps:
+        result = api.demo(out=out, policies=policies, cluster=cluster, force=force, progress=steps)
+    _echo_cautions(result.cautions)
+    say("\n".join(demo_summary_lines(result, steps.steps)))

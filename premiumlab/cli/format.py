@@ -14,6 +14,7 @@ from premiumlab.results import (
     AuditResult,
     Certificate,
     Comparison,
+    DemoResult,
     ImpactResult,
     SelectResult,
     SimulationResult,
@@ -22,6 +23,8 @@ from premiumlab.results import (
 )
 
 if TYPE_CHECKING:
+    from rich.table import Table
+
     from premiumlab.book.validate import ValidationReport
     from rating_tables import LevelCounts
 
@@ -140,8 +143,8 @@ def simulation_line(result: SimulationResult) -> str:
 
 
 def validation_text(report: ValidationReport) -> str:
-    """`validate`: the counts, every finding, the profile tables (when the book has no errors) and
-    the cautions, for a `premiumlab.book.validate.ValidationReport`.
+    """`validate`: the counts and every finding, for a `premiumlab.book.validate.ValidationReport`
+    (the profile is `validation_view`'s; the cautions go to stderr with every command's).
 
     Parameters
     ----------
@@ -151,25 +154,39 @@ def validation_text(report: ValidationReport) -> str:
     Returns
     -------
     str
-        The lines joined by newlines; profile figures with 4 significant digits.
+        The lines joined by newlines.
     """
-    import pandas as pd
-
     lines = [
         f"{report.path}: {report.rows} rows, {len(report.errors)} error(s), "
         f"{len(report.findings) - len(report.errors)} warning(s)"
     ]
     lines += [f"  {f}" for f in report.findings]
-    if report.profile is not None:
-        with pd.option_context(
-            "display.width", 120, "display.max_columns", 10, "display.float_format", "{:,.4g}".format
-        ):
-            for name, table in report.profile.items():
-                lines += ["", f"profile: {name}", table.to_string()]
-    if report.missing is not None:
-        lines += ["", *missing_value_lines(report.missing)]
-    lines += ["", *caution_lines(report.cautions)]
     return "\n".join(lines)
+
+
+def validation_view(report: ValidationReport) -> list[str | Table]:
+    """`validate`: the counts and findings, a profile table per factor (when the book has no errors,
+    `premiumlab.cli.tables.profile_table`) and the missing values.
+
+    Parameters
+    ----------
+    report : ValidationReport
+        What `validate` returned.
+
+    Returns
+    -------
+    list of str or rich.table.Table
+        Text and tables in the order printed.
+    """
+    from premiumlab.cli.tables import profile_table
+
+    view: list[str | Table] = [validation_text(report)]
+    if report.profile is not None:
+        for name, frame in report.profile.items():
+            view.append(profile_table(name, frame))
+    if report.missing is not None:
+        view += ["", "\n".join(missing_value_lines(report.missing))]
+    return view
 
 
 def missing_value_lines(missing: Any) -> list[str]:
@@ -204,8 +221,8 @@ def missing_value_lines(missing: Any) -> list[str]:
     return lines
 
 
-def comparison_lines(result: Comparison) -> list[str]:
-    """`compare`: a compact table of the holdout metrics and the differences with their intervals.
+def comparison_view(result: Comparison) -> list[str | Table]:
+    """`compare`: the table of the holdout metrics and the differences with their intervals.
 
     Parameters
     ----------
@@ -214,28 +231,15 @@ def comparison_lines(result: Comparison) -> list[str]:
 
     Returns
     -------
-    list[str]
-        A header, per target the null model (the training rows' constant rate) and one line per
-        model (mean deviance, D^2, Gini, balance, mean deviance / the null's), a model with a
-        `worse_than_null` diagnostic marked "!" (its warning goes to stderr), figures that are not
-        finite shown as n/a; then one line per difference with its 95 % interval.
+    list of str or rich.table.Table
+        `premiumlab.cli.tables.comparison_table` (a model with a `worse_than_null` diagnostic
+        marked "!", its warning on stderr; figures that are not finite shown as n/a), a line
+        explaining the mark when one is set, then one line per difference with its 95 % interval.
     """
-    broken = {d.model for d in result.diagnostics if d.kind == "worse_than_null"}
-    lines = [
-        f"holdout rows: {result.holdout_rows}   Tweedie power: {result.tweedie_power:.2f}",
-        f"{'target':<13} {'model':<18} {'mean dev':>11} {'D^2':>8} {'Gini':>8} {'balance':>8} {'/ null':>8}",
-    ]
-    for target, block in result.metrics.items():
-        null = block.get("null")
-        if null is not None:
-            lines.append(f"{target:<13} {'null (constant)':<18} {figure_text(null['mean_deviance'], '>11.5g')}")
-        for name, m in block["models"].items():
-            lines.append(
-                f"{target:<13} {name:<18} {figure_text(m['mean_deviance'], '>11.5g')} {figure_text(m['d2'], '>8.4f')} "
-                f"{figure_text(m['gini'], '>8.4f')} {figure_text(m['balance'], '>8.4f')} "
-                f"{figure_text(m.get('deviance_to_null'), '>8.4g')}" + (" !" if name in broken else "")
-            )
-    if broken:
+    from premiumlab.cli.tables import comparison_table
+
+    lines = []
+    if any(d.kind == "worse_than_null" for d in result.diagnostics):
         lines.append("! worse than the null model or absurd figures: see the warnings")
     lines.append("differences (paired bootstrap 95 % interval):")
     for name, d in result.differences.items():
@@ -245,7 +249,7 @@ def comparison_lines(result: Comparison) -> list[str]:
             f"{figure_text(dev['upper'], '.5g')}]; Gini gain {figure_text(gin['estimate'], '.4f')} "
             f"[{figure_text(gin['lower'], '.4f')}, {figure_text(gin['upper'], '.4f')}]"
         )
-    return lines
+    return [comparison_table(result), "\n".join(lines)]
 
 
 def selection_lines(result: SelectResult) -> list[str]:
@@ -308,7 +312,7 @@ def fidelity_lines(result: TableResult) -> list[str]:
     -------
     list[str]
         The source and why with every candidate's figures; the table written with its base rate,
-        total pure premium (money) and rounding off-balance; the indicated change when there is
+        total pure premium (money) and rounding off-balance; the exhibit's path; the indicated change when there is
         one; the mean deviance and Gini of the table and of each candidate; the retention ratios
         that are defined; the attenuation per factor; then one `warning:` line per diagnostic and
         per factor flattened below the threshold.
@@ -322,6 +326,7 @@ def fidelity_lines(result: TableResult) -> list[str]:
         f"{level['total_pure_premium']:,.2f} ({level['target']['basis']}), rounding off-balance "
         f"{level['rounding_off_balance']:+.4%}"
     )
+    lines.append(f"exhibit for filing: {(result.table / 'exhibit.xlsx').as_posix()}")
     if "indicated_overall_change" in level:
         lines.append(f"indicated overall change against the current premium: {level['indicated_overall_change']:+.2%}")
     lines.append(
@@ -349,31 +354,52 @@ def fidelity_lines(result: TableResult) -> list[str]:
     return lines
 
 
-def audit_lines(result: AuditResult) -> list[str]:
-    """`audit`: every violation, then their count and the bounds checked.
+def audit_lines(
+    result: AuditResult, promises: Mapping[str, str] | None = None, certificate_checked: bool = False
+) -> list[str]:
+    """`audit`: what was checked, every violation, then their count and the bounds checked.
 
     Parameters
     ----------
     result : AuditResult
         What `audit` returned.
+    promises : mapping of str to str, or None
+        The spec's promised directions checked, factor -> "increasing" or "decreasing" (None: no
+        spec was given).
+    certificate_checked : bool
+        A run was given and its boosted models' monotonicity certificate re-checked.
 
     Returns
     -------
     list[str]
-        One line per violation, then the count with the plausibility bounds checked (or "no
-        bounds"). The flattened promises are warnings: `diagnostic_lines` prints them.
+        "checked: ..." naming the table's own checks (bases at 1, bands in order), the promises,
+        the bounds and the certificate; one line per violation; then the count with the
+        plausibility bounds checked (or "no bounds"). The flattened promises are warnings:
+        `diagnostic_lines` prints them.
     """
+    if promises is None:
+        promised = "no spec given, so no promised direction"
+    elif promises:
+        promised = "the spec's promised directions (" + ", ".join(f"{f} {d}" for f, d in promises.items()) + ")"
+    else:
+        promised = "the spec, which promises no direction"
+    certificate = (
+        "the run's monotonicity certificate re-checked"
+        if certificate_checked
+        else "no run given, so no certificate re-checked"
+    )
+    checked = f"checked: the table's structure (bases at 1, bands in order); {promised}; {certificate}"
     if result.bounds is None:
         bounds = "no relativity bounds checked"
     else:
         low, high = result.bounds
         default = ", a common-practice default" if result.bounds == PLAUSIBLE_RELATIVITY else ""
         bounds = f"relativity bounds [{low:g}, {high:g}]{default}"
-    return [*result.violations, f"audit: {len(result.violations)} violation(s) in {result.table} ({bounds})"]
+    return [checked, *result.violations, f"audit: {len(result.violations)} violation(s) in {result.table} ({bounds})"]
 
 
-def impact_lines(result: ImpactResult) -> list[str]:
-    """`impact`: totals, change bands, shares above the thresholds, the largest increase, capping.
+def impact_view(result: ImpactResult) -> list[str | Table]:
+    """`impact`: totals, change bands, increases above the thresholds, the largest increase, capping.
 
     Parameters
     ----------
@@ -382,33 +408,26 @@ def impact_lines(result: ImpactResult) -> list[str]:
 
     Returns
     -------
-    list[str]
-        Totals (money) and the overall change, the rows per change band, the shares above each
-        threshold, the largest increase and the capping figures, when there are any.
+    list of str or rich.table.Table
+        The totals (money) and the overall change; `premiumlab.cli.tables.impact_tables` (bands by
+        rows and current premium, the increases above each threshold, with a cap the capping
+        figures named in words and the bands after capping) with the largest increase after the
+        threshold table.
     """
-    lines = [
+    from premiumlab.cli.tables import impact_tables
+
+    bands, thresholds, *capping = impact_tables(result)
+    view: list[str | Table] = [
         f"{result.rows:,} rows ({result.policies:,} policies): current total {result.total_current:,.2f}, "
         f"proposed {result.total_proposed:,.2f}, overall change {result.overall_change:+.2%}",
-        "change band              rows   share",
+        bands,
+        thresholds,
     ]
-    for b in result.bands:
-        lines.append(f"  {b['band']:<18} {b['count']:>8,}  {b['count_share']:>6.1%}")
-    for t in result.above_thresholds:
-        lines.append(f"increase above {t['threshold']:.0%}: {t['count']:,} rows ({t['count_share']:.1%})")
     if result.largest_increases:
         top = result.largest_increases[0]
         who = ", ".join(f"{k} {v}" for k, v in top["id"].items()) or f"row {top['row']} (0-based)"
-        lines.append(f"largest increase: {who}, {top['current']:,.2f} -> {top['proposed']:,.2f} ({top['change']:+.1%})")
-    if result.capping:
-        lines.append(
-            "capping: "
-            + ", ".join(
-                f"{k} {v:.6g}" if isinstance(v, float) else f"{k} {v}"
-                for k, v in result.capping.items()
-                if not isinstance(v, (list, dict))
-            )
-        )
-    return lines
+        view.append(f"largest increase: {who}, {top['current']:,.2f} -> {top['proposed']:,.2f} ({top['change']:+.1%})")
+    return view + capping
 
 
 def interaction_line(ranking: dict) -> str:
@@ -455,14 +474,20 @@ def certificate_lines(result: Certificate) -> list[str]:
     Returns
     -------
     list[str]
-        The trees and leaf pairs checked and the violation count, then one line per listed
-        violation with its two leaf values and the reversal (raw score units).
+        The trees and leaf pairs checked and the violation count; when more were found than listed,
+        how many are not printed; then one line per listed violation with its two leaf values and
+        the reversal (raw score units).
     """
     lines = [
         f"{result.model}: {result.trees_checked} trees checked, {result.trees_splitting_on_feature} split on "
         f"{result.feature}, {result.leaf_pairs_checked} leaf pairs checked, "
         f"{result.violation_count} violation(s)"
     ]
+    if result.violation_count > len(result.violations):
+        lines.append(
+            f"  the {len(result.violations)} largest listed; {result.violation_count - len(result.violations):,} more "
+            "not printed (each is counted above)"
+        )
     for v in result.violations:
         low, high = v["leaves"]
         lines.append(
@@ -559,20 +584,24 @@ def tail_json(result: TailFit) -> str:
     return json.dumps(fields, allow_nan=False)
 
 
-def _comparison_and_warning_lines(result: Comparison) -> list[str]:
-    return comparison_lines(result) + diagnostic_lines(result.diagnostics)
+def _comparison_and_warnings(result: Comparison) -> list[str | Table]:
+    return [*comparison_view(result), *diagnostic_lines(result.diagnostics)]
 
 
-#: The text of the results a long job (`demo`) reports as it goes.
-_RESULT_LINES: dict[type, Callable[[Any], list[str]]] = {
-    Comparison: _comparison_and_warning_lines,
-    TableResult: fidelity_lines,
-    ImpactResult: impact_lines,
+def _fidelity_view(result: TableResult) -> list[str | Table]:
+    return ["\n".join(fidelity_lines(result))]
+
+
+#: The text and tables of the results a long job (`demo`) reports as it goes.
+_RESULT_VIEWS: dict[type, Callable[[Any], list[str | Table]]] = {
+    Comparison: _comparison_and_warnings,
+    TableResult: _fidelity_view,
+    ImpactResult: impact_view,
 }
 
 
-def result_lines(value: object) -> list[str]:
-    """The text of a step's result, for the results `demo` reports.
+def result_view(value: object) -> list[str | Table]:
+    """The text and tables of a step's result, for the results `demo` reports.
 
     Parameters
     ----------
@@ -581,8 +610,69 @@ def result_lines(value: object) -> list[str]:
 
     Returns
     -------
-    list[str]
-        Its lines, as `comparison_lines` (then the comparison's warnings, `diagnostic_lines`),
-        `fidelity_lines` or `impact_lines` give them.
+    list of str or rich.table.Table
+        As `comparison_view` (then the comparison's warnings, `diagnostic_lines`), `fidelity_lines`
+        or `impact_view` give them.
     """
-    return _RESULT_LINES[type(value)](value)
+    return _RESULT_VIEWS[type(value)](value)
+
+
+#: What the demo writes that a reader opens first: label and path inside the demo folder.
+DEMO_OUTPUTS = (
+    ("report", "run/report.html"),
+    ("exhibit", "table/exhibit.xlsx"),
+    ("rating table", "table/"),
+    ("GLM table", "glm_table/"),
+    ("priced book", "priced.parquet"),
+    ("impact", "impact.json"),
+    ("impact figure", "impact.png"),
+)
+
+
+def _seconds_text(seconds: float) -> str:
+    minutes, rest = divmod(round(seconds), 60)
+    return f"{seconds:.1f} s" if seconds < 60 else f"{minutes} min {rest:02d} s"
+
+
+def demo_summary_lines(result: DemoResult, steps: Iterable[tuple[str, float]] = ()) -> list[str]:
+    """`demo`: what it wrote (with paths), the time of each numbered step and the commands to try next.
+
+    Parameters
+    ----------
+    result : DemoResult
+        What `demo` returned.
+    steps : iterable of (str, float)
+        Each step's first line and its wall time in seconds, as the command line measured them;
+        the numbered `[k/n]` steps are listed.
+
+    Returns
+    -------
+    list[str]
+        A blank line, "the demo wrote, in OUT:" with one line per output that exists in `result.files` (label, path
+        under `result.out`), the numbered steps' times and their total, and "next:" with commands
+        that work on the demo's folder as they stand.
+    """
+    out = result.out
+    written = set(result.files)
+    lines = ["", f"the demo wrote, in {out}:"]
+    for label, name in DEMO_OUTPUTS:
+        if name in written or (name.endswith("/") and any(f.startswith(name) for f in written)):
+            lines.append(f"  {label:<14} {(out / name).as_posix()}{'/' if name.endswith('/') else ''}")
+    numbered = [(text.split("]", 1)[0] + "]", seconds) for text, seconds in steps if text.startswith("[")]
+    if numbered:
+        total = sum(seconds for _, seconds in numbered)
+        lines.append(
+            "time per step: "
+            + ", ".join(f"{k} {_seconds_text(s)}" for k, s in numbered)
+            + f"; in all {_seconds_text(total)}"
+        )
+    o = out.as_posix()
+    lines += [
+        "next:",
+        f"  premiumlab report {o}/run --table {o}/table --current {o}/glm_table --book {o}/book.parquet "
+        f"--out {o}/review.html",
+        f"  premiumlab select {o}/table --selections YOUR_SELECTIONS.toml --run {o}/run --out {o}/selected",
+        f"  premiumlab impact {o}/book.parquet --current {o}/glm_table --proposed {o}/table --cap 0.15",
+        f"  premiumlab audit {o}/table --spec {o}/spec.toml --run {o}/run",
+    ]
+    return lines

@@ -20,7 +20,7 @@ from premiumlab._core.defaults import FALLBACK_TWEEDIE_POWER
 from premiumlab._core.errors import InputError
 from premiumlab._core.jsonio import write_json
 from premiumlab._core.outputs import atomic_output, check_target
-from premiumlab._core.progress import Progress
+from premiumlab._core.progress import Progress, Silent
 from premiumlab.book.levels import categorise, factor_levels, unseen_at_base
 from premiumlab.book.scan import load_book
 from premiumlab.book.spec import Spec, load_spec
@@ -91,7 +91,8 @@ def fit(
     force : bool
         Replace an existing `out`.
     progress : Progress or None
-        Told the experience step's totals (None: nothing is said).
+        Told as each step is done (book read, experience totals, each model fitted, holdout
+        metrics) (None: nothing is said).
     cluster : str or None
         Where the boosted-model search and the GLMs' passes over the rows (cells' sums, row
         statistics) run (premiumlab._core.cluster): None for this process, local:N for N local
@@ -140,6 +141,8 @@ def _fit_run(
         assert periods is not None, "the spec refuses split.holdout = 'latest_period' without columns.period"
         book.holdout = latest_period_holdout(periods)
     timings["load_seconds"] = time.perf_counter() - t0
+    report = progress if progress is not None else Silent()
+    report.step(f"fit: read the book, {book.n_rows:,} rows of which {int(book.holdout.sum()):,} held out")
     train = ~book.holdout
     if train.sum() == 0:
         raise InputError(f"{book_path}: every row fell in the holdout; lower split.holdout")
@@ -154,13 +157,12 @@ def _fit_run(
         adjustment = adjust_book(book, spec, Path(spec_path).parent, periods, train)
         book = adjusted_book(book, adjustment)
         timings["experience_seconds"] = time.perf_counter() - t
-        if progress is not None:
-            totals = adjustment.record["totals"]["training"]
-            progress.step(
-                f"experience: training amounts {totals['amount_observed']:,.0f} -> "
-                f"{totals['amount_adjusted']:,.0f}, counts {totals['count_observed']:,.0f} -> "
-                f"{totals['count_adjusted']:,.1f}"
-            )
+        totals = adjustment.record["totals"]["training"]
+        report.step(
+            f"experience: training amounts {totals['amount_observed']:,.0f} -> "
+            f"{totals['amount_adjusted']:,.0f}, counts {totals['count_observed']:,.0f} -> "
+            f"{totals['count_adjusted']:,.1f}"
+        )
     control = None
     if exp.period_control:
         period = spec.columns.period
@@ -186,19 +188,22 @@ def _fit_run(
         glm_power = None
         if "glm" in kinds:
             t = time.perf_counter()
-            glm_power = fit_glms(book, cats, levels, train, spec, run, preds, has_amount, adjustment, control, runner)
+            glm_power = fit_glms(
+                book, cats, levels, train, spec, run, preds, has_amount, adjustment, control, runner, progress=report
+            )
             timings["glm_seconds"] = time.perf_counter() - t
         if "gbm" in kinds:
             from premiumlab.runs.gbm_step import fit_gbms
 
             t = time.perf_counter()
-            fit_gbms(book, spec, train, glm_power, run, preds, runner)
+            fit_gbms(book, spec, train, glm_power, run, preds, runner, progress=report)
             timings["gbm_seconds"] = time.perf_counter() - t
         preds.to_parquet(run.predictions, index=False)
         if book.holdout.any():
             from premiumlab.evaluation.holdout import holdout_metrics
 
             write_json(run.metrics, holdout_metrics(fitted_basis(preds), glm_power or FALLBACK_TWEEDIE_POWER))
+            report.step("fit: holdout metrics written")
         run.write_levels(levels)
         run.write_manifest(
             {

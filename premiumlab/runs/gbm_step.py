@@ -10,6 +10,7 @@ import pandas as pd
 
 from premiumlab._core.cluster import IN_PROCESS, TaskRunner
 from premiumlab._core.jsonio import write_json
+from premiumlab._core.progress import Progress, Silent
 from premiumlab.book.gbm_options import GbmOptions
 from premiumlab.book.rows import Book
 from premiumlab.book.spec import Spec
@@ -38,6 +39,7 @@ def fit_gbms(
     run: RunDir,
     preds: pd.DataFrame,
     runner: TaskRunner = IN_PROCESS,
+    progress: Progress | None = None,
 ) -> None:
     """Fit frequency, severity and pure-premium models on the training rows (the search's fits on
     `runner`); write models, the monotonicity certificate and the interaction ranking; add
@@ -62,6 +64,9 @@ def fit_gbms(
         fitted target (per exposure unit) and, with a severity model, gbm_freq_x_sev.
     runner : TaskRunner
         Where the cross-validation search's (setting, fold) fits run (default: this process).
+    progress : Progress or None
+        Told as each boosted model is fitted and when the checks of the models are written (None:
+        nothing is said).
     """
     from premiumlab.models.gbm.fit import fit_target
     from premiumlab.models.gbm.training import GbmInputs
@@ -79,6 +84,7 @@ def fit_gbms(
     )
     options = _gbm_options(spec, glm_power)
     targets = [name for name, t in TARGETS.items() if book.claim_amount is not None or not t.needs_amount]
+    report = progress if progress is not None else Silent()
     models = {}
     for target in targets:
         model = fit_target(inputs, target, options, runner)
@@ -86,11 +92,13 @@ def fit_gbms(
         write_json(run.model_json("gbm", target), model.to_json_dict())
         preds[model_name("gbm", target)] = model.predict(features)
         models[target] = model
+        report.step(f"fit: boosted {target.replace('_', ' ')} model searched and fitted")
     if "severity" in models:
         preds["gbm_freq_x_sev"] = preds["gbm_frequency"] * preds["gbm_severity"]
     main = models.get("pure_premium", models["frequency"])
     write_json(run.certificate, _certify_run(models, features, book.holdout, spec))
     write_json(run.interactions, _rank_interactions(main, inputs, options, spec))
+    report.step("fit: monotonicity certified and interactions ranked")
 
 
 def _certify_run(models: dict[str, GbmModel], features: pd.DataFrame, holdout: np.ndarray, spec: Spec) -> dict:

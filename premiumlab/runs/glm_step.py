@@ -14,6 +14,7 @@ import pandas as pd
 
 from premiumlab._core.cluster import IN_PROCESS, TaskRunner
 from premiumlab._core.jsonio import write_json
+from premiumlab._core.progress import Progress, Silent
 from premiumlab.book.levels import Levels
 from premiumlab.book.rows import Book
 from premiumlab.book.spec import Spec
@@ -96,6 +97,7 @@ def fit_glms(
     adjustment: Adjustment | None = None,
     control: PeriodControl | None = None,
     runner: TaskRunner = IN_PROCESS,
+    progress: Progress | None = None,
 ) -> float | None:
     """Fit the three GLMs on the training rows, write them to the run's models/ and add their
     predictions of every row to `preds`; with a period control, predict at the control's
@@ -130,6 +132,8 @@ def fit_glms(
     runner : TaskRunner
         Where the passes over the training rows run (cells' sums, row statistics): this process or
         the workers of a Dask cluster (`premiumlab._core.cluster`); the Newton steps run here.
+    progress : Progress or None
+        Told as each GLM is fitted (None: nothing is said).
 
     Returns
     -------
@@ -146,12 +150,16 @@ def fit_glms(
     inputs = _glm_inputs(counts, cats, levels, train, multiplier, names)
     whole = _glm_inputs(counts, cats, levels, train, None, names) if multiplier is not None else inputs
     engine, penalty = spec.glm.engine, spec.glm.penalty
+    report = progress if progress is not None else Silent()
     results = {"frequency": fit_frequency(inputs, engine=engine, penalty=penalty, runner=runner)}
+    report.step("fit: GLM frequency fitted")
     if has_amount:
         results["severity"] = fit_severity(inputs, engine=engine, penalty=penalty, runner=runner)
+        report.step("fit: GLM severity fitted")
         results["pure_premium"] = fit_pure_premium(
             whole, power=spec.glm.tweedie_power, engine=engine, penalty=penalty, runner=runner
         )
+        report.step(f"fit: GLM pure premium fitted, Tweedie power {results['pure_premium'].power:.2f}")
     for target, res in results.items():
         name = model_name("glm", target)
         preds[name] = res.predict(cats) if control is None else _at_mean_control(res, cats, control)
