@@ -109,7 +109,7 @@ def run_demo(
         write_json(tmp / "impact.json", impact.to_dict())
         plot_impact(impact.to_dict(), tmp / "impact.png")
         report.result(impact)
-        write_report(run)
+        write_report(run, tmp / "table", current=tmp / "glm_table", book=book)  # the table, its selections, impact
         report.step("[7/7] measured the impact of moving from glm_table/ to table/ and wrote the report")
         files = tuple(sorted(p.relative_to(tmp).as_posix() for p in tmp.rglob("*") if p.is_file()))
     return DemoResult(out=out, files=files, cautions=table.cautions)
