@@ -157,6 +157,57 @@ def glm_rows(model: dict, exposure: dict[str, np.ndarray], labels: dict[str, lis
     return rows
 
 
+def factor_tests(model: dict) -> dict:
+    """The whole-factor Wald test of each factor of one GLM, from its JSON alone.
+
+    For factor f with non-base coefficients b_f and their covariance V_f (`factor_covariance`):
+    chi-square = b_f' V_f^-1 b_f on df = the number of those coefficients; p = P(chi2(df) > chi-square).
+    A small p says the factor as a whole is needed. Levels without a standard error (no claims)
+    are left out of the test and counted.
+
+    Parameters
+    ----------
+    model : dict
+        A RUN/models/glm_*.json.
+
+    Returns
+    -------
+    dict
+        `rows`: per factor [factor, chi-square, df, p-value, levels left out], as text;
+        `absent`: words when the JSON has no `factor_covariance` (a run fitted before it), else None.
+    """
+    from premiumlab.models.glm.wald import factor_wald_test
+
+    blocks = model.get("factor_covariance")
+    if blocks is None:
+        return {
+            "absent": "this model file has no factor_covariance (fitted by an older premiumlab): fit again.",
+            "rows": [],
+        }
+    estimate = {c["term"]: c["estimate"] for c in model["coefficients"]}
+    rows = []
+    for name in model["relativities"]:
+        block = blocks.get(name)
+        if block is None:
+            rows.append([name, "n/a", "0", "n/a", "every level (none has a standard error)"])
+            continue
+        try:
+            test = factor_wald_test([estimate[t] for t in block["terms"]], block["matrix"])
+        except InputError as error:
+            rows.append([name, "n/a", str(len(block["terms"])), "n/a", str(error)])
+            continue
+        left_out = sum(1 for level in model["relativities"][name] if level != model["base_levels"].get(name)) - test.df
+        rows.append(
+            [name, _number(test.chi_square, ",.2f"), str(test.df), _p_value(test.p_value), str(max(left_out, 0))]
+        )
+    return {"absent": None, "rows": rows}
+
+
+def _p_value(p: float) -> str:
+    """A p-value as text: four decimals, or "< 0.0001"."""
+    return "< 0.0001" if p < 1e-4 else _number(p, ".4f")
+
+
 def _spec_hash(spec: dict) -> str:
     """sha256 of the run's spec as canonical JSON (keys sorted, no spaces): the same spec, the same hash."""
     text = json.dumps(spec, sort_keys=True, separators=(",", ":"), ensure_ascii=True)
@@ -585,9 +636,11 @@ def report_context(
                 "title": _model_title("glm", target),
                 "family": m["family"],
                 "power": m.get("power"),
-                "fit": f"deviance {_number(m['deviance'], '.6g')} on {m['df_resid']} residual degrees of freedom; "
+                "fit": f"deviance {_number(m['deviance'], '.6g')} on {_number(m['df_resid'], ',.1f')} residual degrees of freedom; "
                 f"null deviance {_number(m['null_deviance'], '.6g')}; AIC {_number(m['aic'], '.6g')}",
                 "rows": glm_rows(m, exposure, labels),
+                "factor_tests": factor_tests(m),
+                "penalised": m.get("penalty") == "credibility",
                 "power_profile": m.get("power_profile") or [],
                 "notes": m.get("notes", []),
             }

@@ -169,3 +169,50 @@ def test_prediction_equals_statsmodels_mean_per_unit(book, references, family):
     predicted = fit_ours(book, family, "cells").predict(book.factors)
     expected = reference.predict(dense_design(book.factors), offset=np.zeros(len(book.exposure)))
     np.testing.assert_allclose(predicted, expected, rtol=1e-9)
+
+
+def _factor_tests(result: GlmResult) -> dict:
+    """Our whole-factor Wald tests from the model JSON alone (estimates and `factor_covariance`)."""
+    from premiumlab.models.glm.wald import factor_wald_test
+
+    saved = result.to_json_dict()
+    estimate = {c["term"]: c["estimate"] for c in saved["coefficients"]}
+    return {
+        name: factor_wald_test([estimate[t] for t in block["terms"]], block["matrix"])
+        for name, block in saved["factor_covariance"].items()
+    }
+
+
+@pytest.mark.parametrize("family", ["poisson", "tweedie"])
+@pytest.mark.parametrize("engine", ENGINES)
+def test_whole_factor_wald_equals_statsmodels_wald_test_terms(insurance, family, engine):
+    """Whole-factor Wald chi-square, df and p-value of each factor of MASS ``Insurance`` equal
+    statsmodels' ``GLMResults.wald_test_terms`` (chi-square form) to 1e-6 relative: the Poisson
+    frequency fit, and a Tweedie (power 1.5) fit of claims per holder, where the estimated
+    dispersion scales the covariance."""
+    inputs = insurance_inputs(insurance)
+    order = {name: list(pd.unique(insurance[name])) for name in ("District", "Group", "Age")}
+    formula = " + ".join(f"C({name}, levels={order[name]!r})" for name in order)
+    if family == "poisson":
+        ours = fit_frequency(inputs, engine=engine, penalty="none")
+        reference = smf.glm(
+            "Claims ~ " + formula, data=insurance, family=sm.families.Poisson(), offset=np.log(insurance["Holders"])
+        ).fit()
+    else:
+        inputs = GlmInputs(inputs.factors, inputs.base_levels, inputs.exposure, inputs.claim_count, inputs.claim_count)
+        ours = fit_pure_premium(inputs, power=TWEEDIE_POWER, engine=engine, penalty="none")
+        frame = insurance.assign(rate=insurance["Claims"] / insurance["Holders"])
+        reference = smf.glm(
+            "rate ~ " + formula,
+            data=frame,
+            var_weights=frame["Holders"],
+            family=sm.families.Tweedie(var_power=TWEEDIE_POWER, eql=False),
+        ).fit()
+    table = reference.wald_test_terms(skip_single=True, scalar=True).table
+    tests = _factor_tests(ours)
+    assert set(tests) == set(order)
+    for name, levels in order.items():
+        row = table.loc[f"C({name}, levels={levels!r})"]
+        assert tests[name].df == row["df_constraint"] == len(levels) - 1
+        assert tests[name].chi_square == pytest.approx(row["statistic"], rel=1e-6)
+        assert tests[name].p_value == pytest.approx(row["pvalue"], rel=1e-6)

@@ -145,6 +145,7 @@ class GlmResult:
     coefficients: list[dict[str, Any]]
     relativities: dict[str, dict[str, float]]
     base_levels: dict[str, str]
+    factor_covariance: dict[str, dict[str, Any]] = field(default_factory=dict)
     control: list[str] = field(default_factory=list)
     credibility: dict[str, dict[str, float]] = field(default_factory=dict)
     aliased: list[str] = field(default_factory=list)
@@ -186,6 +187,10 @@ class GlmResult:
                 for name, levels in self.relativities.items()
             },
             "base_levels": dict(self.base_levels),
+            "factor_covariance": {
+                name: {"terms": list(block["terms"]), "matrix": [[float(v) for v in row] for row in block["matrix"]]}
+                for name, block in self.factor_covariance.items()
+            },
             "control": list(self.control),
             "credibility": {
                 name: {key: _json_number(value) for key, value in entry.items()}
@@ -459,6 +464,7 @@ def _fit(
         ],
         relativities=relativities,
         base_levels=dict(inputs.base_levels),
+        factor_covariance=_factor_covariance(design, kept, fit.unit_covariance * stats.dispersion, std_error),
         control=list(inputs.control),
         credibility={name: asdict(entry) for name, entry in credibility.items()},
         aliased=list(problem.columns.collinear),
@@ -548,6 +554,38 @@ def _diagnostics(
         for name, levels in _by_factor(problem.design, np.flatnonzero(np.isin(terms, dropped))).items():
             found.append(_per_factor(kind, model, name, levels, message))
     return found
+
+
+def _factor_covariance(
+    design: OneHotDesign, kept: np.ndarray, covariance: np.ndarray, std_error: np.ndarray
+) -> dict[str, dict[str, Any]]:
+    """Per factor, its estimated terms with a standard error and their covariance block.
+
+    Parameters
+    ----------
+    design : OneHotDesign
+        The fit's design (full-space columns per factor).
+    kept : np.ndarray
+        Full-space column of each estimated coefficient, in `coefficients` order.
+    covariance : np.ndarray
+        Covariance of the estimated coefficients, dispersion x (X'WX + Lambda)^-1 (log scale).
+    std_error : np.ndarray
+        Their standard errors; NaN for a level without claims, which is left out of its block.
+
+    Returns
+    -------
+    dict
+        `{factor: {"terms": [factor[level], ...], "matrix": k x k list}}` for each factor with at
+        least one such term (the input of the whole-factor Wald test, `models/glm/wald.py`).
+    """
+    terms = design.full_terms()
+    out: dict[str, dict[str, Any]] = {}
+    for j, name in enumerate(design.factor_names):
+        inside = np.flatnonzero(np.isin(kept, design.columns_of(j)) & np.isfinite(std_error))
+        if len(inside):
+            block = covariance[np.ix_(inside, inside)]
+            out[name] = {"terms": [terms[kept[i]] for i in inside], "matrix": block.tolist()}
+    return out
 
 
 def _by_factor(design: OneHotDesign, columns: np.ndarray) -> dict[str, list[str]]:
