@@ -67,6 +67,15 @@ def test_plot_actual_vs_expected(book: pd.DataFrame, tmp_path: Path, factor: str
     _assert_png(figures.plot_actual_vs_expected(tables, tmp_path / f"ae_{factor}.png", factor=factor))
 
 
+def test_plot_actual_vs_expected_with_intervals(book: pd.DataFrame, tmp_path: Path) -> None:
+    """Claim-count A/E with its exact Poisson interval: one whisker per level and model."""
+    tables = {
+        m: metrics.claims_actual_to_expected(book["Claims"], book[m], book["Holders"], book["Group"]) for m in MODELS
+    }
+    path = figures.plot_actual_vs_expected(tables, tmp_path / "ae_intervals.png", factor="Group")
+    _assert_png(path)
+
+
 def test_plot_cv_curve(tmp_path: Path) -> None:
     cv_table = [
         {"num_leaves": 7, "learning_rate": 0.05, "mean_deviance": 0.512, "sd_deviance": 0.011, "rounds": 240},

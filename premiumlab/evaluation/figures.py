@@ -222,13 +222,14 @@ def plot_actual_vs_expected(
     tables: Mapping[str, pd.DataFrame], path: str | Path, *, factor: str, caution: bool = True
 ) -> Path:
     """Actual / expected per level of one factor, a line per model, over bars of exposure on a
-    second axis (tables from `metrics.actual_vs_expected`, same levels in the same order).
+    second axis (tables from `metrics.actual_vs_expected`, same levels in the same order); with
+    `lower` and `upper` columns (`metrics.claims_actual_to_expected`) each point has its interval.
 
     Parameters
     ----------
     tables : mapping of str to pandas.DataFrame
-        Per model name, its A/E table (`level`, `exposure`, `actual_to_expected`); the exposure
-        bars come from the first.
+        Per model name, its A/E table (`level`, `exposure`, `actual_to_expected`, optionally
+        `lower` and `upper`); the exposure bars come from the first.
     path : str or Path
         The PNG file to write; its folder must exist.
     factor : str
@@ -259,11 +260,23 @@ def plot_actual_vs_expected(
     ax.set_zorder(bars.get_zorder() + 1)
     ax.patch.set_visible(False)
     ax.axhline(1.0, color="#999999", linewidth=0.8)
-    for name, table in tables.items():
-        ax.plot(positions, table["actual_to_expected"], "o-", color=series_colour(name), label=_model_label(name))
+    step = 0.3 / len(tables)
+    for k, (name, table) in enumerate(tables.items()):
+        ratio = table["actual_to_expected"].to_numpy(float)
+        if {"lower", "upper"} <= set(table.columns):
+            shift = positions + (k - (len(tables) - 1) / 2) * step  # side by side, not on top of each other
+            spread = np.vstack([ratio - table["lower"].to_numpy(float), table["upper"].to_numpy(float) - ratio])
+            ax.errorbar(
+                shift, ratio, yerr=spread, fmt="o-", capsize=3, color=series_colour(name), label=_model_label(name)
+            )
+        else:
+            ax.plot(positions, ratio, "o-", color=series_colour(name), label=_model_label(name))
     level_ticks(ax, positions, labels)
     ax.set_xlabel(factor)
-    ax.set_ylabel("actual / expected (A/E, 1 = on target)")
+    intervals = all({"lower", "upper"} <= set(t.columns) for t in tables.values())
+    ax.set_ylabel(
+        "actual / expected (A/E, 1 = on target)" + ("\nwhiskers: 95 % exact Poisson interval" if intervals else "")
+    )
     target = _common_target(list(tables))
     words = "" if target is None else f" of the {target.replace('_', ' ')}"
     ax.set_title(f"Actual / expected{words} by {factor}", fontsize=11, pad=22)

@@ -18,11 +18,13 @@ from dataclasses import asdict, dataclass
 
 import numpy as np
 import pandas as pd
+from scipy.stats import chi2
 
 from premiumlab._core.errors import InputError
 from premiumlab._core.validators import (
     ABOVE_ZERO,
     AT_LEAST_ZERO,
+    COUNT,
     ArrayLike,
     checked_array,
     checked_arrays,
@@ -333,6 +335,70 @@ def actual_vs_expected(
         expected=("expected", "sum"),
     ).reset_index()
     table["actual_to_expected"] = _ratio(table["actual"].to_numpy(), table["expected"].to_numpy())
+    return table
+
+
+#: Two-sided confidence of the intervals on A/E per level.
+AE_CONFIDENCE = 0.95
+
+
+def poisson_interval(counts: ArrayLike, confidence: float = AE_CONFIDENCE) -> tuple[np.ndarray, np.ndarray]:
+    """The exact (Garwood) two-sided interval of a Poisson mean from an observed count.
+
+    lower = chi2.ppf(a / 2, 2k) / 2 (0 when k = 0), upper = chi2.ppf(1 - a / 2, 2k + 2) / 2, with
+    a = 1 - confidence: the means at which P(X >= k) and P(X <= k) are a / 2 each.
+
+    Parameters
+    ----------
+    counts : array_like
+        Observed claim counts k (whole numbers >= 0).
+    confidence : float
+        Two-sided confidence, in (0, 1).
+
+    Returns
+    -------
+    (np.ndarray, np.ndarray)
+        Lower and upper ends of the interval, in claims.
+    """
+    k = checked_array("counts", counts, COUNT)
+    if not 0 < confidence < 1:
+        raise InputError(f"confidence: {confidence!r} must lie strictly between 0 and 1")
+    alpha = 1.0 - confidence
+    lower = np.where(k > 0, chi2.ppf(alpha / 2, 2 * np.maximum(k, 1)) / 2, 0.0)
+    return lower, chi2.ppf(1 - alpha / 2, 2 * k + 2) / 2
+
+
+def claims_actual_to_expected(
+    claims: ArrayLike, frequency: ArrayLike, exposure: ArrayLike, levels: pd.Series | ArrayLike
+) -> pd.DataFrame:
+    """Actual over expected claim counts per level, with the exact Poisson interval.
+
+    The `actual_vs_expected` table of the counts (expected = sum(frequency x exposure)) with
+    `lower` and `upper` = the Garwood 95 % interval of the actual count (`poisson_interval`)
+    divided by the expected count: the interval of A/E when the expected count is taken as known.
+
+    Parameters
+    ----------
+    claims : array_like
+        Claim count of each row.
+    frequency : array_like
+        A model's predicted frequency of each row (claims per exposure unit).
+    exposure : array_like
+        Earned exposure of each row (exposure units).
+    levels : pandas.Series or array_like
+        The level or band of each row, none missing.
+
+    Returns
+    -------
+    pandas.DataFrame
+        `level`, `policies`, `exposure`, `actual`, `expected` (claims), `actual_to_expected`,
+        `lower`, `upper` (NaN where the expected count is 0).
+    """
+    table = actual_vs_expected(claims, frequency, exposure, levels)
+    lower, upper = poisson_interval(table["actual"].to_numpy())
+    expected = table["expected"].to_numpy()
+    table["lower"] = _ratio(lower, expected)
+    table["upper"] = _ratio(upper, expected)
     return table
 
 

@@ -54,7 +54,15 @@ def _draw(context: dict, folder: Path) -> dict[str, Any]:
     """Draw every figure of the report into `folder`; return their data URIs by key."""
     from premiumlab.evaluation import figures
 
-    out: dict[str, Any] = {"factors": {}, "cv": {}, "lift": {}, "lorenz": {}, "double_lift": {}, "ave": {}}
+    out: dict[str, Any] = {
+        "factors": {},
+        "cv": {},
+        "lift": {},
+        "lorenz": {},
+        "double_lift": {},
+        "ave": {},
+        "claims_ave": {},
+    }
     view: FactorView
     for k, view in enumerate(context["factors"]):
         path = figures.plot_factor_chart(
@@ -99,6 +107,11 @@ def _draw(context: dict, folder: Path) -> dict[str, Any]:
         out["ave"][factor] = _embedded(
             figures.plot_actual_vs_expected(frames, folder / f"ave_{k}.png", factor=factor, caution=False)
         )
+    for k, (factor, block) in enumerate(holdout["claims_ave"].items()):
+        path = figures.plot_actual_vs_expected(
+            block["tables"], folder / f"claims_ave_{k}.png", factor=factor, caution=False
+        )
+        out["claims_ave"][factor] = _embedded(path)
     return out
 
 

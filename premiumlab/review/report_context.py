@@ -546,6 +546,7 @@ def _holdout_section(run: Run, comparison: dict | None) -> dict:
         }
     return {
         "absent": None,
+        "claims_ave": claims_ave_tables(run, hold),
         "header": ["target", "model"] + [h for _, h, _ in METRIC_COLUMNS],
         "rows": rows,
         "differences": [_lift_words(comparison["differences"], n) for n in comparison["differences"]],
@@ -553,6 +554,62 @@ def _holdout_section(run: Run, comparison: dict | None) -> dict:
         "ginis": {t: {c: m["gini"] for c, m in b["models"].items()} for t, b in comparison["metrics"].items()},
         "holdout_rows": comparison["holdout_rows"],
     }
+
+
+def claims_ave_tables(run: Run, hold: pd.DataFrame) -> dict:
+    """Actual over expected claim counts per level of each factor on the holdout, per frequency
+    model, with the exact (Garwood) 95 % interval of the actual count over the expected count.
+
+    Parameters
+    ----------
+    run : Run
+        The run (its book, levels and spec).
+    hold : pandas.DataFrame
+        The holdout rows of predictions.parquet (with `row`, exposure, claim count and the
+        glm_/gbm_frequency columns).
+
+    Returns
+    -------
+    dict
+        `{factor: {"tables": {model: DataFrame from metrics.claims_actual_to_expected},
+        "header": [...], "rows": [[text, ...], ...]}}`; `{}` without a frequency model.
+    """
+    from premiumlab.book.levels import categorise
+    from premiumlab.evaluation.holdout import model_columns
+    from premiumlab.evaluation.metrics import claims_actual_to_expected
+    from premiumlab.models.targets import CLAIM_COUNT, EXPOSURE
+
+    models = model_columns(hold, "frequency")
+    if not models:
+        return {}
+    cats = categorise(run.load_book().frame, run.levels).iloc[hold["row"].to_numpy()].reset_index(drop=True)
+    claims, exposure = hold[CLAIM_COUNT].to_numpy(float), hold[EXPOSURE].to_numpy(float)
+    unit = run.spec.table.exposure_unit
+    out = {}
+    for factor in run.levels:
+        seen = cats[factor].notna().to_numpy()  # a level met only outside the training rows has no label
+        tables = {
+            m: claims_actual_to_expected(
+                claims[seen], hold[m].to_numpy(float)[seen], exposure[seen], cats[factor][seen]
+            )
+            for m in models
+        }
+        first = next(iter(tables.values()))
+        header = ["level", f"exposure ({unit}s)", "actual claims (count)"]
+        for m in models:
+            header += [f"{m}: expected claims (count)", f"{m}: actual / expected", f"{m}: 95 % interval"]
+        rows = []
+        for i, level in enumerate(first["level"]):
+            row = [str(level), _number(first["exposure"].iloc[i], ",.1f"), _number(first["actual"].iloc[i], ",.0f")]
+            for t in tables.values():
+                row += [
+                    _number(t["expected"].iloc[i], ",.1f"),
+                    _number(t["actual_to_expected"].iloc[i], ".3f"),
+                    f"[{_number(t['lower'].iloc[i], '.3f')}, {_number(t['upper'].iloc[i], '.3f')}]",
+                ]
+            rows.append(row)
+        out[factor] = {"tables": tables, "header": header, "rows": rows}
+    return out
 
 
 def _boosted_section(run: Run) -> list[dict]:

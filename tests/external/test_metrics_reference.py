@@ -124,3 +124,55 @@ def test_lorenz_area_equals_numpy_trapezoid(insurance: pd.DataFrame) -> None:
         assert curve.iloc[0].tolist() == [0.0, 0.0]
         assert curve.iloc[-1].tolist() == pytest.approx([1.0, 1.0], abs=1e-15)
     assert len(metrics.lorenz_curve(insurance["Claims"], insurance["age_rate"], insurance["Holders"])) == 4 + 1
+
+
+@pytest.mark.parametrize("count", [0, 1, 2, 5, 10, 37, 250])
+def test_garwood_interval_ends_have_tail_probability_0025_under_scipy_poisson(count: int) -> None:
+    """The exact Poisson interval is defined by its tails (Garwood 1936): at the lower end
+    P(X >= k) = 0.025 and at the upper end P(X <= k) = 0.025, checked with scipy.stats.poisson
+    to 1e-9 relative."""
+    from scipy.stats import poisson
+
+    (lower,), (upper,) = metrics.poisson_interval([count])
+    assert poisson.cdf(count, upper) == pytest.approx(0.025, rel=1e-9)
+    if count == 0:
+        assert lower == 0.0
+    else:
+        assert poisson.sf(count - 1, lower) == pytest.approx(0.025, rel=1e-9)
+
+
+def test_garwood_interval_equals_the_published_table() -> None:
+    """95 % exact limits of a Poisson mean as tabulated (e.g. Ulm 1990, Am. J. Epidemiol. 131;
+    Sahai & Khurshid 1993): k = 0: (0, 3.689); 1: (0.0253, 5.572); 2: (0.2422, 7.225);
+    5: (1.624, 11.668); 10: (4.795, 18.390). Recalled from memory, to the printed decimals."""
+    lower, upper = metrics.poisson_interval([0, 1, 2, 5, 10])
+    np.testing.assert_allclose(lower, [0.0, 0.0253, 0.2422, 1.624, 4.795], atol=6e-4)
+    np.testing.assert_allclose(upper, [3.689, 5.572, 7.225, 11.668, 18.390], atol=6e-4)
+
+
+def test_claims_actual_to_expected_of_a_statsmodels_poisson_fit_is_one_per_fitted_level(
+    insurance: pd.DataFrame,
+) -> None:
+    """A Poisson log-link GLM with a factor reproduces each level's claim count (its score
+    equations), so A/E is 1 at every level of a fitted factor (statsmodels fit on MASS
+    Insurance, to 1e-8); the interval is the Garwood interval of the count over expected."""
+    import statsmodels.api as sm
+    import statsmodels.formula.api as smf
+
+    fit = smf.glm(
+        "Claims ~ C(Age) + C(Group)",
+        data=insurance,
+        family=sm.families.Poisson(),
+        offset=np.log(insurance["Holders"]),
+    ).fit()
+    frequency = fit.fittedvalues.to_numpy() / insurance["Holders"].to_numpy()
+    table = metrics.claims_actual_to_expected(insurance["Claims"], frequency, insurance["Holders"], insurance["Age"])
+    np.testing.assert_allclose(table["actual_to_expected"], 1.0, rtol=1e-8)
+    lower, upper = metrics.poisson_interval(table["actual"])
+    np.testing.assert_allclose(table["lower"], lower / table["expected"], rtol=1e-12)
+    np.testing.assert_allclose(table["upper"], upper / table["expected"], rtol=1e-12)
+    assert (table["lower"] < 1).all() and (table["upper"] > 1).all()
+    by_district = metrics.claims_actual_to_expected(
+        insurance["Claims"], frequency, insurance["Holders"], insurance["District"]
+    )
+    assert not np.allclose(by_district["actual_to_expected"], 1.0, rtol=1e-3)  # an unfitted factor is not balanced
