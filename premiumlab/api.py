@@ -485,6 +485,7 @@ def report(
     table: str | Path | None = None,
     current: str | Path | None = None,
     book: str | Path | None = None,
+    tails: str | Path | None = None,
     out: str | Path | None = None,
     force: bool = False,
 ) -> ReportResult:
@@ -499,7 +500,9 @@ def report(
     current : str or Path or None
         The current rating table: current relativities and the change per band or level.
     book : str or Path or None
-        A book for the impact section (named in it; the impact is not computed yet).
+        A book for the impact section.
+    tails : str or Path or None
+        The JSON object `tails --json` printed, saved to a file: the large-loss tail section.
     out : str or Path or None
         HTML file to write; None for RUN/report.html.
     force : bool
@@ -512,7 +515,7 @@ def report(
     """
     from premiumlab.review.report import write_report
 
-    return ReportResult(report=write_report(run, table, current=current, book=book, out=out, force=force))
+    return ReportResult(report=write_report(run, table, current=current, book=book, tails=tails, out=out, force=force))
 
 
 def demo(

@@ -457,13 +457,16 @@ def report(
     table: Annotated[Path | None, typer.Option("--table", help="A rating table made from the run.")] = None,
     current: Annotated[Path | None, typer.Option("--current", help="The current rating table.")] = None,
     book: Annotated[Path | None, typer.Option("--book", help="A book for the impact section.")] = None,
+    tails: Annotated[
+        Path | None, typer.Option("--tails", help="The output of `tails --json`, saved to a file.")
+    ] = None,
     out: Annotated[Path | None, typer.Option("--out", help="HTML file to write (default RUN/report.html).")] = None,
     force: Force = False,
 ) -> None:
     """Write one self-contained HTML report reviewing a run and its rating table."""
     from premiumlab import api
 
-    say(f"wrote {api.report(run, table=table, current=current, book=book, out=out, force=force).report}")
+    say(f"wrote {api.report(run, table=table, current=current, book=book, tails=tails, out=out, force=force).report}")
 
 
 @app.command(cls=NamedParamsCommand)

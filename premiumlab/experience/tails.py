@@ -24,6 +24,7 @@ trended for severity to the future policy period, so that u reads as a cap in th
 
 from __future__ import annotations
 
+from collections.abc import Mapping, Sequence
 from dataclasses import asdict, dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING
@@ -269,6 +270,69 @@ def _amount_axis(ax: Axes, axis: str = "x", log: bool = False) -> None:
             label.set_horizontalalignment("right")
 
 
+def _loss_words(basis: str) -> str:
+    """What one loss is, in money: per claim or per policy-period row."""
+    return "money per claim" if basis.startswith(BASIS_CLAIMS) else "money per policy-period row"
+
+
+def _mean_excess_panel(ax: Axes, table: pd.DataFrame, threshold: float, cap: float | None, per: str) -> None:
+    """The mean-excess plot of `table` (threshold, mean_excess, standard_error) with a band of 1.96
+    standard errors, the threshold and (when inside the table's range) the cap marked."""
+    from premiumlab._core.plotting import SERIES_COLOURS
+
+    band = 1.96 * table["standard_error"].to_numpy(float)
+    mean = table["mean_excess"].to_numpy(float)
+    colour = SERIES_COLOURS["actual"]
+    ax.fill_between(
+        table["threshold"],
+        mean - band,
+        mean + band,
+        color=colour,
+        alpha=0.18,
+        linewidth=0,
+        label="± 1.96 standard errors",
+    )
+    ax.plot(table["threshold"], mean, color=colour, linewidth=1, label="mean excess")
+    if cap is not None and cap <= float(table["threshold"].max()):
+        ax.axvline(
+            cap, color=SERIES_COLOURS["other"], linestyle=":", linewidth=1, label=f"large_loss_cap {amount_text(cap)}"
+        )
+    ax.set_xlabel(f"threshold u ({per})")
+    ax.set_ylabel("mean excess e(u) of the losses above u (money)")
+    ax.set_title(f"Mean excess by threshold (down to {TABLE_MIN_EXCEEDANCES} losses above u)", fontsize=10)
+
+
+def _stability_panels(shape_ax: Axes, scale_ax: Axes, stability: Sequence[Mapping], per: str) -> None:
+    """The shape and the modified scale by threshold with bars of 1.96 standard errors."""
+    from premiumlab._core.plotting import SERIES_COLOURS
+
+    u = np.array([row["threshold"] for row in stability], dtype=float)
+    for ax, key, label in (
+        (shape_ax, "shape", "shape ξ of the excesses over u"),
+        (scale_ax, "modified_scale", "modified scale β − ξu (money)"),
+    ):
+        value = np.array([row[key] for row in stability], dtype=float)
+        se = np.array([row[f"{key}_se"] for row in stability], dtype=float)
+        ax.errorbar(u, value, yerr=1.96 * se, marker="o", color=SERIES_COLOURS["actual"], linewidth=1, capsize=3)
+        ax.set_xlabel(f"threshold u ({per})")
+        ax.set_ylabel(label)
+        ax.set_title(f"{key.replace('_', ' ').capitalize()} by threshold (± 1.96 standard errors)", fontsize=10)
+
+
+def _mark_threshold(axes: Sequence[Axes], threshold: float) -> None:
+    """A dashed line at the threshold on each of `axes`."""
+    from premiumlab._core.plotting import SERIES_COLOURS
+
+    for ax in axes:
+        ax.axvline(
+            threshold,
+            color=SERIES_COLOURS["tail_fit"],
+            linestyle="--",
+            linewidth=1,
+            label=f"threshold {amount_text(threshold)}",
+        )
+
+
 def _tail_figure(losses: np.ndarray, fit: ParetoFit, stability: list[dict], basis: str, cap: float | None) -> Figure:
     """Four panels: the mean-excess plot (at the thresholds of `_plot_grid`) with a band of 1.96
     standard errors and the threshold (and the cap) marked; the empirical survival of the losses
@@ -278,34 +342,12 @@ def _tail_figure(losses: np.ndarray, fit: ParetoFit, stability: list[dict], basi
 
     from premiumlab._core.plotting import SERIES_COLOURS, new_figure, plain_axes
 
-    per = "money per claim" if basis.startswith(BASIS_CLAIMS) else "money per policy-period row"
-    table = _mean_excess(losses, _plot_grid(losses))
+    per = _loss_words(basis)
     fig = new_figure(width=11.0, height=8.6)
     fig.suptitle(f"Tail of {fit.losses:,} losses: {basis}", fontsize=10)
     (mean_ax, tail_ax), (shape_ax, scale_ax) = fig.subplots(2, 2)
-    band = 1.96 * table["standard_error"].to_numpy()
-    mean_ax.fill_between(
-        table["threshold"],
-        table["mean_excess"] - band,
-        table["mean_excess"] + band,
-        color=SERIES_COLOURS["actual"],
-        alpha=0.18,
-        linewidth=0,
-        label="± 1.96 standard errors",
-    )
-    mean_ax.plot(
-        table["threshold"], table["mean_excess"], color=SERIES_COLOURS["actual"], linewidth=1, label="mean excess"
-    )
-    threshold_label = f"threshold {amount_text(fit.threshold)}"
-    for ax in (mean_ax, shape_ax, scale_ax):
-        ax.axvline(fit.threshold, color=SERIES_COLOURS["tail_fit"], linestyle="--", linewidth=1, label=threshold_label)
-    if cap is not None and cap <= float(np.max(losses)):
-        mean_ax.axvline(
-            cap, color=SERIES_COLOURS["other"], linestyle=":", linewidth=1, label=f"large_loss_cap {amount_text(cap)}"
-        )
-    mean_ax.set_xlabel(f"threshold u ({per})")
-    mean_ax.set_ylabel("mean excess e(u) of the losses above u (money)")
-    mean_ax.set_title(f"Mean excess by threshold (down to {TABLE_MIN_EXCEEDANCES} losses above u)")
+    _mark_threshold((mean_ax, shape_ax, scale_ax), fit.threshold)
+    _mean_excess_panel(mean_ax, _mean_excess(losses, _plot_grid(losses)), fit.threshold, cap, per)
     mean_ax.legend(frameon=False, fontsize=8)
 
     excess = np.sort(np.asarray(losses, dtype=float)[np.asarray(losses) > fit.threshold]) - fit.threshold
@@ -323,17 +365,7 @@ def _tail_figure(losses: np.ndarray, fit: ParetoFit, stability: list[dict], basi
     tail_ax.set_title(f"Tail above the threshold ({fit.exceedances:,} losses)")
     tail_ax.legend(frameon=False, fontsize=8)
 
-    u = np.array([row["threshold"] for row in stability], dtype=float)
-    for ax, key, label in (
-        (shape_ax, "shape", "shape ξ of the excesses over u"),
-        (scale_ax, "modified_scale", "modified scale β − ξu (money)"),
-    ):
-        value = np.array([row[key] for row in stability], dtype=float)
-        se = np.array([row[f"{key}_se"] for row in stability], dtype=float)
-        ax.errorbar(u, value, yerr=1.96 * se, marker="o", color=SERIES_COLOURS["actual"], linewidth=1, capsize=3)
-        ax.set_xlabel(f"threshold u ({per})")
-        ax.set_ylabel(label)
-        ax.set_title(f"{key.replace('_', ' ').capitalize()} by threshold (± 1.96 standard errors)")
+    _stability_panels(shape_ax, scale_ax, stability, per)
     shape_ax.legend(frameon=False, fontsize=8)
     for ax, log in ((mean_ax, False), (tail_ax, True), (shape_ax, False), (scale_ax, False)):
         plain_axes(ax)
@@ -341,6 +373,46 @@ def _tail_figure(losses: np.ndarray, fit: ParetoFit, stability: list[dict], basi
     _amount_axis(mean_ax, "y")
     _amount_axis(scale_ax, "y")
     return fig
+
+
+def plot_tail_tables(result: Mapping, path: str | Path, *, caution: bool = True) -> Path:
+    """The figure of a `tails` result from its tables alone (the `tails --json` object): the
+    mean-excess plot at the table's thresholds with a band of 1.96 standard errors, and the shape
+    and the modified scale by threshold with bars of 1.96 standard errors; the threshold and the
+    cap marked. (The losses themselves are not in the result, so their tail is not drawn.)
+
+    Parameters
+    ----------
+    result : mapping
+        A `TailFit.to_dict()` (keys threshold, basis, losses, large_loss_cap, mean_excess, stability).
+    path : str or Path
+        The PNG file to write; its folder must exist.
+    caution : bool
+        Add the draft caution as a footer.
+
+    Returns
+    -------
+    Path
+        `path`, written.
+    """
+    from premiumlab._core.plotting import new_figure, plain_axes, save_figure
+
+    per = _loss_words(result["basis"])
+    fig = new_figure(width=15.0, height=4.8)
+    fig.suptitle(f"Tail of {result['losses']:,} losses: {result['basis']}", fontsize=10)
+    mean_ax, shape_ax, scale_ax = fig.subplots(1, 3)
+    _mark_threshold((mean_ax, shape_ax, scale_ax), float(result["threshold"]))
+    _mean_excess_panel(
+        mean_ax, pd.DataFrame(list(result["mean_excess"])), float(result["threshold"]), result["large_loss_cap"], per
+    )
+    _stability_panels(shape_ax, scale_ax, result["stability"], per)
+    mean_ax.legend(frameon=False, fontsize=8)
+    for ax in (mean_ax, shape_ax, scale_ax):
+        plain_axes(ax)
+        _amount_axis(ax, "x")
+    _amount_axis(mean_ax, "y")
+    _amount_axis(scale_ax, "y")
+    return save_figure(fig, path, caution=caution)
 
 
 def _plot_tail(

@@ -29,6 +29,8 @@ SECTIONS = (
     ("summary", "Summary"),
     ("warnings", "Warnings"),
     ("book", "The book"),
+    ("experience", "Experience adjustments"),
+    ("tails", "Large-loss tail"),
     ("glms", "GLM baselines"),
     ("boosted", "Boosted models"),
     ("holdout", "Holdout comparison"),
@@ -64,6 +66,10 @@ def _draw(context: dict, folder: Path) -> dict[str, Any]:
         "claims_ave": {},
     }
     view: FactorView
+    if not context["tails"]["absent"]:
+        from premiumlab.experience.tails import plot_tail_tables
+
+        out["tails"] = _embedded(plot_tail_tables(context["tails"]["result"], folder / "tails.png", caution=False))
     for k, view in enumerate(context["factors"]):
         path = figures.plot_factor_chart(
             view.labels, view.exposure, view.series, folder / f"factor_{k}.png", factor=view.name, caution=False
@@ -143,14 +149,17 @@ def render(context: dict, images: dict[str, Any]) -> str:
     return env.get_template("report.html.j2").render(c=context, images=images, sections=SECTIONS, legend=legend)
 
 
-def _inputs(run: Run, table: Path | None, current: Path | None, book: Path | None) -> tuple[Path, ...]:
+def _inputs(
+    run: Run, table: Path | None, current: Path | None, book: Path | None, tails: Path | None
+) -> tuple[Path, ...]:
     """The files and folders the report reads: the run's own files (not the whole run folder, where
     the report is written by default), its book (the one given, else the one run.json records),
     the tables."""
     files = run.files
     read = [files.manifest, files.levels, files.predictions, files.metrics, files.comparison, files.interactions]
+    read += [files.experience]
     read += [files.models, files.certificate, run.book_path(book)]
-    return tuple(p for p in (*read, table, current, book) if p is not None)
+    return tuple(p for p in (*read, table, current, book, tails) if p is not None)
 
 
 def write_report(
@@ -159,6 +168,7 @@ def write_report(
     *,
     current: str | Path | None = None,
     book: str | Path | None = None,
+    tails: str | Path | None = None,
     out: str | Path | None = None,
     force: bool = False,
 ) -> Path:
@@ -173,7 +183,9 @@ def write_report(
     current : str or Path or None
         The current rating table: current relativities and the change per row of the table.
     book : str or Path or None
-        A book for the impact section (named; the impact itself is not computed yet).
+        A book for the impact section.
+    tails : str or Path or None
+        The JSON object `tails --json` printed, saved to a file: the report's tails section.
     out : str or Path or None
         The HTML file to write; None for RUN/report.html.
     force : bool
@@ -191,13 +203,13 @@ def write_report(
         that is or lies inside an input.
     """
     run = open_run(run_dir)
-    tables = [None if p is None else Path(p) for p in (table, current, book)]
+    tables = [None if p is None else Path(p) for p in (table, current, book, tails)]
     target = run.files.report if out is None else Path(out)
     inputs = _inputs(run, *tables)
     if target.suffix.lower() not in (".html", ".htm"):
         raise InputError(f"{target}: the report is an HTML file; name it NAME.html")
     check_target(target, force, inputs)  # refused before the work, not after it
-    context = report_context(run, tables[0], tables[1], tables[2])
+    context = report_context(run, *tables)
     with tempfile.TemporaryDirectory(prefix="premiumlab-report-") as folder:
         images = _draw(context, Path(folder))
     page = render(context, images)

@@ -280,11 +280,13 @@ GLM_KEYS = ("family", "deviance", "df_resid", "null_deviance", "aic", "coefficie
 COEFFICIENT_KEYS = ("term", "estimate")
 
 
-def _require(document: dict, keys: tuple[str, ...], path: Path) -> dict:
+def _require(
+    document: dict, keys: tuple[str, ...], path: Path, advice: str = "the run folder was edited: fit or compare again"
+) -> dict:
     """`document` when it holds every key of `keys`; else the one-line refusal of a hand-edited file."""
     missing = [k for k in keys if not isinstance(document, dict) or k not in document]
     if missing:
-        raise InputError(f"{path}: key '{missing[0]}' is missing; the run folder was edited: fit or compare again")
+        raise InputError(f"{path}: key '{missing[0]}' is missing; {advice}")
     return document
 
 
@@ -612,6 +614,242 @@ def claims_ave_tables(run: Run, hold: pd.DataFrame) -> dict:
     return out
 
 
+#: The keys of experience.json the report reads, and of each of its totals.
+EXPERIENCE_KEYS = ("order", "applied", "not_applied", "periods", "large_losses", "catastrophe", "totals")
+TOTAL_KEYS = (
+    "rows",
+    "count_observed",
+    "amount_observed",
+    "amount_developed_trended",
+    "count_adjusted",
+    "amount_adjusted",
+)
+
+
+def _share(value: Any) -> str:
+    """A share (0.05) as a percentage with two decimals; "n/a" when missing."""
+    return "n/a" if value is None else _number(100 * float(value), ".2f") + " %"
+
+
+def experience_section(run: Run) -> dict:
+    """What the experience adjustments did (RUN/experience.json, docs/run-directory.md): the totals
+    observed -> developed and trended -> adjusted on the training and all rows, the factors applied
+    per period, the large-loss cap and its excess load, the catastrophe load.
+
+    Returns
+    -------
+    dict
+        `absent` (words) without experience.json; else `order`, `applied`, `not_applied`,
+        `totals` (header and rows), `periods` (header and rows), `loads` (header and rows).
+    """
+    path = run.files.experience
+    if not path.is_file():
+        return {
+            "absent": "the run made no experience adjustments (spec [experience]): claim counts and amounts "
+            "were taken as given, not developed, trended or capped."
+        }
+    record = _require(read_json(path), EXPERIENCE_KEYS, path)
+    for block in record["totals"].values():
+        _require(block, TOTAL_KEYS, path)
+    totals = [
+        [
+            name,
+            f"{block['rows']:,}",
+            _number(block["count_observed"], ",.0f"),
+            _number(block["count_adjusted"], ",.1f"),
+            _number(block["amount_observed"], ",.0f"),
+            _number(block["amount_developed_trended"], ",.0f"),
+            _number(block["amount_adjusted"], ",.0f"),
+            _number(block["amount_adjusted"] / block["amount_observed"], ".4f") if block["amount_observed"] else "n/a",
+        ]
+        for name, block in record["totals"].items()
+    ]
+    period_keys = (
+        ("rows", ",.0f"),
+        ("years_to_future", ".3f"),
+        ("development", ".4f"),
+        ("count_development", ".4f"),
+        ("severity_trend", ".4f"),
+        ("frequency_trend", ".4f"),
+        ("amount_multiplier", ".4f"),
+        ("count_multiplier", ".4f"),
+    )
+    periods = [[str(p)] + [_number(v.get(k), f) for k, f in period_keys] for p, v in record["periods"].items()]
+    large, cat = record["large_losses"], record["catastrophe"]
+    loads = [
+        ["large-loss cap (money)", "n/a" if large["cap"] is None else _number(large["cap"], ",.0f"), large["basis"]],
+        ["losses capped (count)", _number(large["losses_capped"], ",.0f"), ""],
+        ["excess over the cap, training (money)", _number(large["excess_training"], ",.0f"), ""],
+        ["excess load (share of capped losses)", _share(large["excess_load"]), f"from {large['excess_load_from']}"],
+        ["catastrophe claims (count)", _number(cat["claims"], ",.0f"), cat["column"] or "no catastrophe column"],
+        ["catastrophe amount, training (money)", _number(cat["amount_training"], ",.0f"), ""],
+        ["catastrophe load (share of non-catastrophe losses)", _share(cat["load"]), ""],
+    ]
+    return {
+        "absent": None,
+        "order": record["order"],
+        "applied": record["applied"],
+        "not_applied": record["not_applied"],
+        "totals": {
+            "header": [
+                "which rows",
+                "rows (count)",
+                "claims observed (count)",
+                "claims adjusted (count)",
+                "losses observed (money)",
+                "losses developed and trended (money)",
+                "losses adjusted (money)",
+                "adjusted / observed losses",
+            ],
+            "rows": totals,
+        },
+        "periods": {
+            "header": [
+                "period",
+                "rows (count)",
+                "years to the future period",
+                "development factor",
+                "count development factor",
+                "severity trend factor",
+                "frequency trend factor",
+                "amount multiplier",
+                "count multiplier",
+            ],
+            "rows": periods,
+        },
+        "loads": {"header": ["adjustment", "value", "note"], "rows": loads},
+    }
+
+
+#: The keys of a `tails --json` result the report reads.
+TAILS_KEYS = (
+    "threshold",
+    "exceedances",
+    "losses",
+    "shape",
+    "shape_se",
+    "shape_interval",
+    "scale",
+    "scale_se",
+    "modified_scale",
+    "modified_scale_se",
+    "basis",
+    "notes",
+    "mean_excess",
+    "stability",
+    "large_loss_cap",
+    "share_of_losses",
+    "share_of_amount",
+)
+
+
+#: What to do about a file that is not a `tails --json` result.
+TAILS_ADVICE = "give the JSON that `premiumlab tails BOOK --spec SPEC --json` prints, saved to a file"
+
+
+def tails_section(path: Path | None) -> dict:
+    """A `tails --json` result given to `report --tails FILE.json`: the fit above the threshold
+    with standard errors and the shape's profile interval, the mean-excess table with standard
+    errors, the threshold-stability table (docs/commands.md, tails).
+
+    Parameters
+    ----------
+    path : Path or None
+        The JSON object `premiumlab tails BOOK --spec SPEC --json` printed, saved to a file.
+
+    Returns
+    -------
+    dict
+        `absent` (words) without a file; else `result` (the JSON, for the figure), `basis`, `fit`
+        (header and rows), `mean_excess` and `stability` (header and rows), `notes`.
+    """
+    if path is None:
+        return {
+            "absent": "no tails result was given (`premiumlab tails BOOK --spec SPEC --json > T.json`, then `report --tails T.json`)."
+        }
+    result = _require(read_json(path), TAILS_KEYS, path, TAILS_ADVICE)
+    for key in ("mean_excess", "stability"):
+        if not isinstance(result[key], list) or not result[key]:
+            raise InputError(f"{path}: key '{key}' must be a non-empty list; {TAILS_ADVICE}")
+    low, high = result["shape_interval"]
+    fit = [
+        ["threshold u (money)", _number(result["threshold"], ",.0f"), ""],
+        [
+            "losses above u (count)",
+            f"{result['exceedances']:,} of {result['losses']:,}",
+            _share(result["share_of_losses"]),
+        ],
+        ["share of the amount above u", _share(result["share_of_amount"]), ""],
+        ["shape xi", _number(result["shape"], ".4f"), f"standard error {_number(result['shape_se'], '.4f')}"],
+        ["shape xi, 95 % profile interval", f"[{_number(low, '.4f')}, {_number(high, '.4f')}]", ""],
+        [
+            "scale beta (money)",
+            _number(result["scale"], ",.0f"),
+            f"standard error {_number(result['scale_se'], ',.0f')}",
+        ],
+        [
+            "modified scale beta - xi u (money)",
+            _number(result["modified_scale"], ",.0f"),
+            f"standard error {_number(result['modified_scale_se'], ',.0f')}",
+        ],
+        [
+            "large-loss cap of the spec (money)",
+            "none" if result["large_loss_cap"] is None else _number(result["large_loss_cap"], ",.0f"),
+            "",
+        ],
+    ]
+    mean_excess = [
+        [
+            _number(r["threshold"], ",.0f"),
+            f"{r['exceedances']:,}",
+            _number(r["mean_excess"], ",.0f"),
+            _number(r["standard_error"], ",.0f"),
+            r.get("mark") or "",
+        ]
+        for r in result["mean_excess"]
+    ]
+    stability = [
+        [
+            _number(r["threshold"], ",.0f"),
+            f"{r['exceedances']:,}",
+            _number(r["shape"], ".4f"),
+            _number(r["shape_se"], ".4f"),
+            _number(r["modified_scale"], ",.0f"),
+            _number(r["modified_scale_se"], ",.0f"),
+        ]
+        for r in result["stability"]
+    ]
+    return {
+        "absent": None,
+        "file": path.name,
+        "result": result,
+        "basis": result["basis"],
+        "notes": list(result["notes"]),
+        "fit": {"header": ["quantity", "value", "standard error or note"], "rows": fit},
+        "mean_excess": {
+            "header": [
+                "threshold u (money)",
+                "losses above u (count)",
+                "mean excess (money)",
+                "standard error (money)",
+                "mark",
+            ],
+            "rows": mean_excess,
+        },
+        "stability": {
+            "header": [
+                "threshold u (money)",
+                "losses above u (count)",
+                "shape xi",
+                "standard error",
+                "modified scale (money)",
+                "standard error (money)",
+            ],
+            "rows": stability,
+        },
+    }
+
+
 def _boosted_section(run: Run) -> list[dict]:
     """Per boosted model: the CV table, the chosen setting and rounds, gain importance per factor."""
     from premiumlab.models.gbm.fit import load_model
@@ -642,7 +880,11 @@ def _boosted_section(run: Run) -> list[dict]:
 
 
 def report_context(
-    run: Run, table_dir: Path | None = None, current_dir: Path | None = None, book: Path | None = None
+    run: Run,
+    table_dir: Path | None = None,
+    current_dir: Path | None = None,
+    book: Path | None = None,
+    tails: Path | None = None,
 ) -> dict:
     """Every number the report shows, section by section (docs/commands.md, report).
 
@@ -655,14 +897,15 @@ def report_context(
     current_dir : Path or None
         The current rating table, for the current relativities and the change per level.
     book : Path or None
-        A book for the impact of moving from `current_dir` to `table_dir` (not computed yet: the
-        section says so).
+        A book for the impact of moving from `current_dir` to `table_dir`.
+    tails : Path or None
+        A `tails --json` result saved to a file, for the tails section.
 
     Returns
     -------
     dict
-        Keys `title`, `cautions`, `diagnostics`, `summary`, `book`, `glms`, `boosted`, `holdout`,
-        `interactions`, `factors`, `table`, `audit`, `impact`, `provenance`.
+        Keys `title`, `cautions`, `diagnostics`, `summary`, `book`, `experience`, `tails`, `glms`,
+        `boosted`, `holdout`, `interactions`, `factors`, `table`, `audit`, `impact`, `provenance`.
     """
     import rating_tables
 
@@ -740,6 +983,8 @@ def report_context(
             "warnings": manifest["warnings"],
             "factors": [_one_way_rows(v) for v in views],
         },
+        "experience": experience_section(run),
+        "tails": tails_section(tails),
         "glms": glm_sections,
         "boosted": _boosted_section(run),
         "holdout": holdout,
