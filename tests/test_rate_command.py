@@ -61,7 +61,7 @@ def test_the_command_states_the_counts_and_refuses_unknown_levels_when_strict(tm
     assert done.returncode == 0, done.stderr
     # the first line names the file; the summary table follows (added with the terminal rework)
     assert done.stdout.splitlines()[0] == f"wrote {tmp_path / 'priced.csv'} (6 rows)"
-    assert re.search(r"rows priced\s+6\n", done.stdout) and "total gross premium" in done.stdout
+    assert re.search(r"rows priced \(count\)\s+6\n", done.stdout) and "total gross premium" in done.stdout
     lines = done.stderr.splitlines()
     assert lines[0] == (
         "factor 'region': 3 rows with a level the table does not list ('Islands', 'Atlantis') rated at the "

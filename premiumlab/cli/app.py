@@ -249,10 +249,10 @@ def tabulate(
 ) -> None:
     """Distil a run's model into a banded multiplicative rating table, with its fidelity."""
     from premiumlab import api
-    from premiumlab.cli.format import fidelity_lines
+    from premiumlab.cli.format import fidelity_view
 
     result = api.tabulate(run, out=out, model=model, book=book, force=force)
-    say("\n".join(fidelity_lines(result)))
+    print_view(fidelity_view(result))
     _echo_cautions(result.cautions)
 
 
@@ -443,10 +443,13 @@ def tails(
 ) -> None:
     """Large-loss threshold aid: mean excess by threshold and a generalised Pareto fit above U."""
     from premiumlab import api
-    from premiumlab.cli.format import tail_json, tail_lines
+    from premiumlab.cli.format import tail_json, tail_view
 
     result = api.tails(book, spec=spec, threshold=threshold, figure=figure, force=force)
-    say(tail_json(result) if as_json else "\n".join(tail_lines(result)))
+    if as_json:
+        say(tail_json(result))
+    else:
+        print_view(tail_view(result))
     _echo_cautions(result.cautions)
 
 

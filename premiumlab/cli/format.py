@@ -185,11 +185,11 @@ def validation_view(report: ValidationReport) -> list[str | Table]:
         for name, frame in report.profile.items():
             view.append(profile_table(name, frame))
     if report.missing is not None:
-        view += ["", "\n".join(missing_value_lines(report.missing))]
+        view += ["", *missing_value_view(report.missing)]
     return view
 
 
-def missing_value_lines(missing: Any) -> list[str]:
+def missing_value_view(missing: Any) -> list[str | Table]:
     """`validate`: per factor with missing values, their share of rows and exposure and the claim
     frequency ratio of those rows to the others with its 95 % interval, flagged when it excludes 1.
 
@@ -200,25 +200,20 @@ def missing_value_lines(missing: Any) -> list[str]:
 
     Returns
     -------
-    list[str]
-        A header and one line per factor with missing values, or one line saying there are none.
+    list of str or rich.table.Table
+        A heading and the table (`premiumlab.cli.tables.missing_values_table`), or one line saying
+        there are none.
     """
+    from premiumlab.cli.tables import missing_values_table
+
     lost = missing[missing["rows_missing"] > 0]
     if lost.empty:
         return ["missing values: none"]
-    lines = [
+    return [
         "missing values (claim frequency of the rows with the value missing over the others, "
         "exact conditional Poisson 95 % interval):",
-        f"  {'factor':<20} {'rows':>8} {'% rows':>7} {'% expo':>7} {'ratio':>7} {'95 % interval':>17}",
+        missing_values_table(lost),
     ]
-    for name, row in lost.iterrows():
-        flag = "  differs" if row["differs"] else ""
-        lines.append(
-            f"  {name:<20} {int(row['rows_missing']):>8} {row['share_of_rows']:>7.2%} "
-            f"{row['share_of_exposure']:>7.2%} {row['frequency_ratio']:>7.3g} "
-            f"{'[' + format(row['ratio_lower'], '.3g') + ', ' + format(row['ratio_upper'], '.3g') + ']':>17}{flag}"
-        )
-    return lines
 
 
 def comparison_view(result: Comparison) -> list[str | Table]:
@@ -300,7 +295,7 @@ def selection_lines(result: SelectResult) -> list[str]:
     return lines
 
 
-def fidelity_lines(result: TableResult) -> list[str]:
+def fidelity_view(result: TableResult) -> list[str | Table]:
     """`tabulate`: source, rate level, fidelity, retention, attenuation and warnings.
 
     Parameters
@@ -310,13 +305,16 @@ def fidelity_lines(result: TableResult) -> list[str]:
 
     Returns
     -------
-    list[str]
+    list of str or rich.table.Table
         The source and why with every candidate's figures; the table written with its base rate,
         total pure premium (money) and rounding off-balance; the exhibit's path; the indicated change when there is
-        one; the mean deviance and Gini of the table and of each candidate; the retention ratios
-        that are defined; the attenuation per factor; then one `warning:` line per diagnostic and
-        per factor flattened below the threshold.
+        one; the table of the mean deviance and Gini of the table and of each candidate
+        (`premiumlab.cli.tables.fidelity_table`); the retention ratios that are defined; the
+        attenuation per factor; then one `warning:` line per diagnostic and per factor flattened
+        below the threshold.
     """
+    from premiumlab.cli.tables import fidelity_table
+
     level, fid, src, att = result.rate_level, result.fidelity, result.source, result.attenuation
     chosen = "chosen" if src["requested"] == "auto" else "requested with --model"
     deviances = ", ".join(f"{name} {s['mean_deviance']:.6g}" for name, s in src["candidates"].items())
@@ -333,9 +331,8 @@ def fidelity_lines(result: TableResult) -> list[str]:
         f"fidelity on the {fid['subset']} rows ({fid['rows']:,} rows, {fid['policies']:,} policies, "
         f"Tweedie power {fid['tweedie_power']:.2f}):"
     )
-    for name, s in fid["models"].items():
-        mark = "  <- source" if name == src["model"] else ""
-        lines.append(f"  {name:<12} mean deviance {s['mean_deviance']:.6g}  Gini {s['gini']:.4f}{mark}")
+    view: list[str | Table] = ["\n".join(lines), fidelity_table(fid["models"], src["model"])]
+    lines = []
     r = fid["retention"]
     if r.get("gini_table_over_source") is not None:
         lines.append(f"  retention G_table/G_{r['source']} = {r['gini_table_over_source']:.3f}")
@@ -351,7 +348,7 @@ def fidelity_lines(result: TableResult) -> list[str]:
         "(a common-practice threshold): the table flattens the source's effect"
         for n in att["flattened"]
     ]
-    return lines
+    return [*view, "\n".join(lines)]
 
 
 def audit_lines(
@@ -497,7 +494,7 @@ def certificate_lines(result: Certificate) -> list[str]:
     return lines
 
 
-def tail_lines(result: TailFit) -> list[str]:
+def tail_view(result: TailFit) -> list[str | Table]:
     """`tails`: the losses, the fit above the threshold, about ten rows of the mean-excess table and
     the threshold-stability table.
 
@@ -508,26 +505,22 @@ def tail_lines(result: TailFit) -> list[str]:
 
     Returns
     -------
-    list[str]
+    list of str or rich.table.Table
         What the losses are (single claims or row totals), the threshold (money) with its
         exceedances and shares, the generalised Pareto shape and scale with their standard errors
-        and the shape's profile interval, the modified scale beta - xi u, about ten rows of the
-        mean-excess table (a step of len // 10 rows, at least 1, plus the rows of the threshold and
-        the large-loss cap) with standard errors, the stability table and the notes.
+        and the shape's profile interval, the modified scale beta - xi u; the mean-excess table
+        (about ten rows: a step of len // 10 rows, at least 1, plus the rows of the threshold and
+        the large-loss cap) with standard errors; the stability table; the notes.
     """
     import math
 
+    from premiumlab.cli.tables import mean_excess_table, stability_table
     from premiumlab.experience.tails import DEFAULT_QUANTILE, INTERVAL_LEVEL, amount_text
 
-    def number(value: float | None, fmt: str = "", width: int = 0) -> str:
-        text = (
-            "n/a"
-            if value is None or not math.isfinite(value)
-            else amount_text(value)
-            if not fmt
-            else format(value, fmt)
-        )
-        return text.rjust(width)
+    def number(value: float | None, fmt: str = "") -> str:
+        if value is None or not math.isfinite(value):
+            return "n/a"
+        return amount_text(value) if not fmt else format(value, fmt)
 
     quantile = f" (the {DEFAULT_QUANTILE:.0%} quantile)" if result.default_threshold else ""
     low, high = result.shape_interval
@@ -541,29 +534,16 @@ def tail_lines(result: TailFit) -> list[str]:
         f"scale {amount_text(result.scale)} (standard error {number(result.scale_se)})",
         f"modified scale beta - shape x threshold: {number(result.modified_scale)} "
         f"(standard error {number(result.modified_scale_se)})",
-        "mean excess by threshold:",
-        f"  {'threshold':>14} {'exceedances':>12} {'mean excess':>14} {'std error':>14}",
     ]
     rows = result.mean_excess
     step = max(1, len(rows) // 10)
-    for i, row in enumerate(rows):
-        if i % step == 0 or i == len(rows) - 1 or row.get("mark"):
-            lines.append(
-                f"  {number(row['threshold'], width=14)} {row['exceedances']:>12d} {number(row['mean_excess'], width=14)} "
-                f"{number(row.get('standard_error'), width=14)}" + (f"  <- {row['mark']}" if row.get("mark") else "")
-            )
+    shown = [row for i, row in enumerate(rows) if i % step == 0 or i == len(rows) - 1 or row.get("mark")]
+    view: list[str | Table] = ["\n".join(lines), mean_excess_table(shown)]
     if result.stability:
-        lines += [
-            "shape by threshold (above a threshold that suits, shape and modified scale stay level):",
-            f"  {'threshold':>14} {'exceedances':>12} {'shape':>8} {'std error':>9} {'modified scale':>15} {'std error':>12}",
-        ]
-        for row in result.stability:
-            lines.append(
-                f"  {number(row['threshold'], width=14)} {row['exceedances']:>12d} {number(row['shape'], '.4f', 8)} "
-                f"{number(row['shape_se'], '.4f', 9)} {number(row['modified_scale'], width=15)} "
-                f"{number(row['modified_scale_se'], width=12)}"
-            )
-    return lines + [f"note: {n}" for n in result.notes]
+        view.append(stability_table(result.stability))
+    if result.notes:
+        view.append("\n".join(f"note: {n}" for n in result.notes))
+    return view
 
 
 def tail_json(result: TailFit) -> str:
@@ -588,14 +568,10 @@ def _comparison_and_warnings(result: Comparison) -> list[str | Table]:
     return [*comparison_view(result), *diagnostic_lines(result.diagnostics)]
 
 
-def _fidelity_view(result: TableResult) -> list[str | Table]:
-    return ["\n".join(fidelity_lines(result))]
-
-
 #: The text and tables of the results a long job (`demo`) reports as it goes.
 _RESULT_VIEWS: dict[type, Callable[[Any], list[str | Table]]] = {
     Comparison: _comparison_and_warnings,
-    TableResult: _fidelity_view,
+    TableResult: fidelity_view,
     ImpactResult: impact_view,
 }
 
@@ -611,7 +587,7 @@ def result_view(value: object) -> list[str | Table]:
     Returns
     -------
     list of str or rich.table.Table
-        As `comparison_view` (then the comparison's warnings, `diagnostic_lines`), `fidelity_lines`
+        As `comparison_view` (then the comparison's warnings, `diagnostic_lines`), `fidelity_view`
         or `impact_view` give them.
     """
     return _RESULT_VIEWS[type(value)](value)

@@ -82,6 +82,17 @@ PROFILE_FORMATS: Mapping[str, Format] = {
 }
 
 
+#: `validate`'s profile columns with their units in the header.
+PROFILE_HEADERS: Mapping[str, str] = {
+    "exposure": "exposure (exposure units)",
+    "claims": "claims (count)",
+    "amount": "amount (money)",
+    "frequency": "frequency (claims per exposure unit)",
+    "severity": "severity (money per claim)",
+    "loss_cost": "loss cost (money per exposure unit)",
+}
+
+
 def profile_table(name: str, frame: pd.DataFrame) -> Table:
     """`validate`: one profile table (a factor's levels, or the whole book) with one format per column.
 
@@ -101,7 +112,7 @@ def profile_table(name: str, frame: pd.DataFrame) -> Table:
     """
     columns = [
         ("level" if frame.index.name else "", None),
-        *((str(c), PROFILE_FORMATS.get(str(c), _finite(",.4g"))) for c in frame.columns),
+        *((PROFILE_HEADERS.get(str(c), str(c)), PROFILE_FORMATS.get(str(c), _finite(",.4g"))) for c in frame.columns),
     ]
     rows = ([label, *values] for label, values in zip(frame.index, frame.itertuples(index=False), strict=True))
     return table(f"profile: {name}", columns, rows)
@@ -177,9 +188,9 @@ def impact_band_table(bands: Sequence[Mapping[str, Any]], title: str) -> Table:
     """
     columns: list[tuple[str, Format | None]] = [
         ("change", None),
-        ("rows", COUNT),
+        ("rows (count)", COUNT),
         ("% rows", SHARE),
-        ("current premium", MONEY),
+        ("current premium (money)", MONEY),
         ("% premium", SHARE),
     ]
     rows = ([b["band"], b["count"], b["count_share"], b.get("current_premium"), b.get("premium_share")] for b in bands)
@@ -189,10 +200,10 @@ def impact_band_table(bands: Sequence[Mapping[str, Any]], title: str) -> Table:
 #: How each capping figure is named and formatted in `impact`'s capping table.
 CAPPING_FIGURES: tuple[tuple[str, str, Format], ...] = (
     ("cap", "cap on each policy's change (+-)", SHARE),
-    ("capped_up", "rows held down at +cap", COUNT),
-    ("capped_down", "rows held up at -cap", COUNT),
-    ("total_proposed", "total proposed premium, uncapped", MONEY),
-    ("total_capped", "total premium after capping", MONEY),
+    ("capped_up", "rows held down at +cap (count)", COUNT),
+    ("capped_down", "rows held up at -cap (count)", COUNT),
+    ("total_proposed", "total proposed premium, uncapped (money)", MONEY),
+    ("total_capped", "total premium after capping (money)", MONEY),
     ("off_balance", "off-balance of the capping", CHANGE),
     ("correction_factor", "base-rate correction to restore the total", _finite(".5f")),
 )
@@ -233,7 +244,7 @@ def impact_tables(result: ImpactResult) -> list[Table]:
     out.append(
         table(
             "increases above a threshold",
-            [("increase above", None), ("rows", COUNT), ("% rows", SHARE), ("% premium", SHARE)],
+            [("increase above", None), ("rows (count)", COUNT), ("% rows", SHARE), ("% premium", SHARE)],
             (
                 [f"{t['threshold']:.0%}", t["count"], t["count_share"], t.get("premium_share")]
                 for t in result.above_thresholds
@@ -269,9 +280,148 @@ def rate_summary_table(rows: int, gross_total: float, at_minimum: int | None, fa
         One row per figure.
     """
     figures: list[list[str]] = [
-        ["rows priced", COUNT(rows)],
-        ["total gross premium", MONEY(gross_total)],
-        ["rows at the minimum premium", "n/a" if at_minimum is None else COUNT(at_minimum)],
-        ["rows rated at a fallback level or missing row", COUNT(fallback_rows)],
+        ["rows priced (count)", COUNT(rows)],
+        ["total gross premium (money)", MONEY(gross_total)],
+        ["rows at the minimum premium (count)", "n/a" if at_minimum is None else COUNT(at_minimum)],
+        ["rows rated at a fallback level or missing row (count)", COUNT(fallback_rows)],
     ]
     return table("rated", [("figure", None), ("value", lambda v: str(v))], figures)
+
+
+#: A share with two decimals (the missing values' shares of rows and exposure).
+SHARE_2 = _finite(".2%")
+#: An interval's ends and a ratio to three significant digits.
+RATIO = _finite(".3g")
+
+
+def missing_values_table(lost: pd.DataFrame) -> Table:
+    """`validate`: per factor with missing values, their rows, shares of rows and exposure and the
+    claim frequency ratio of those rows to the others with its 95 % interval, flagged when it excludes 1.
+
+    Parameters
+    ----------
+    lost : pandas.DataFrame
+        The rows of `premiumlab.book.validate.missing_experience` with `rows_missing` > 0, indexed
+        by factor.
+
+    Returns
+    -------
+    rich.table.Table
+        Factor, rows (count), % of rows, % of exposure, frequency ratio, its interval, flag.
+    """
+    columns: list[tuple[str, Format | None]] = [
+        ("factor", None),
+        ("rows missing (count)", COUNT),
+        ("% rows", SHARE_2),
+        ("% exposure", SHARE_2),
+        ("frequency ratio", RATIO),
+        ("95 % interval", None),
+        ("", None),
+    ]
+    rows = (
+        [
+            name,
+            row["rows_missing"],
+            row["share_of_rows"],
+            row["share_of_exposure"],
+            row["frequency_ratio"],
+            f"[{RATIO(row['ratio_lower'])}, {RATIO(row['ratio_upper'])}]",
+            "differs" if row["differs"] else "",
+        ]
+        for name, row in lost.iterrows()
+    )
+    return table(None, columns, rows)
+
+
+def fidelity_table(models: Mapping[str, Mapping[str, float]], source: str) -> Table:
+    """`tabulate`: the mean deviance and Gini of the table and of each candidate on the holdout.
+
+    Parameters
+    ----------
+    models : mapping
+        `fidelity["models"]`: per name, `mean_deviance` and `gini`.
+    source : str
+        The source model, marked.
+
+    Returns
+    -------
+    rich.table.Table
+        Model, mean deviance, Gini and "<- source" beside the source.
+    """
+    columns: list[tuple[str, Format | None]] = [
+        ("model", None),
+        ("mean deviance", _finite(".6g")),
+        ("Gini", RATE),
+        ("", None),
+    ]
+    rows = ([name, s["mean_deviance"], s["gini"], "<- source" if name == source else ""] for name, s in models.items())
+    return table(None, columns, rows)
+
+
+def mean_excess_table(rows: Sequence[Mapping[str, Any]]) -> Table:
+    """`tails`: rows of the mean-excess table.
+
+    Parameters
+    ----------
+    rows : sequence of mappings
+        `TailFit.mean_excess` rows (threshold, exceedances, mean_excess, standard_error, mark).
+
+    Returns
+    -------
+    rich.table.Table
+        Threshold (money), losses above it (count), mean excess and its standard error (money), mark.
+    """
+    columns: list[tuple[str, Format | None]] = [
+        ("threshold (money)", AMOUNT),
+        ("losses above (count)", COUNT),
+        ("mean excess (money)", AMOUNT),
+        ("standard error (money)", AMOUNT),
+        ("", None),
+    ]
+    return table(
+        "mean excess by threshold",
+        columns,
+        (
+            [
+                r["threshold"],
+                r["exceedances"],
+                r["mean_excess"],
+                r.get("standard_error"),
+                f"<- {r['mark']}" if r.get("mark") else "",
+            ]
+            for r in rows
+        ),
+    )
+
+
+def stability_table(rows: Sequence[Mapping[str, Any]]) -> Table:
+    """`tails`: the threshold-stability table.
+
+    Parameters
+    ----------
+    rows : sequence of mappings
+        `TailFit.stability` rows (threshold, exceedances, shape, shape_se, modified_scale,
+        modified_scale_se).
+
+    Returns
+    -------
+    rich.table.Table
+        Threshold (money), losses above it (count), shape and its standard error, modified scale
+        and its standard error (money).
+    """
+    columns: list[tuple[str, Format | None]] = [
+        ("threshold (money)", AMOUNT),
+        ("losses above (count)", COUNT),
+        ("shape", RATE),
+        ("standard error", RATE),
+        ("modified scale (money)", AMOUNT),
+        ("standard error (money)", AMOUNT),
+    ]
+    return table(
+        "shape by threshold (above a threshold that suits, shape and modified scale stay level)",
+        columns,
+        (
+            [r["threshold"], r["exceedances"], r["shape"], r["shape_se"], r["modified_scale"], r["modified_scale_se"]]
+            for r in rows
+        ),
+    )

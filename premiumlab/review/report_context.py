@@ -208,6 +208,23 @@ def _p_value(p: float) -> str:
     return "< 0.0001" if p < 1e-4 else _number(p, ".4f")
 
 
+def spec_exposure_unit(run: Run) -> str:
+    """The run's exposure unit in the plural for table headers.
+
+    Parameters
+    ----------
+    run : Run
+        The run (its spec's `[table] exposure_unit`, "policy-year" by default).
+
+    Returns
+    -------
+    str
+        The unit with an "s" added unless it ends in one ("policy-years").
+    """
+    unit = run.spec.table.exposure_unit
+    return unit if unit.endswith("s") else unit + "s"
+
+
 def _spec_hash(spec: dict) -> str:
     """sha256 of the run's spec as canonical JSON (keys sorted, no spaces): the same spec, the same hash."""
     text = json.dumps(spec, sort_keys=True, separators=(",", ":"), ensure_ascii=True)
@@ -239,9 +256,14 @@ def _diagnostics_rows(
     return rows, [name for name, _ in sources]
 
 
+#: Units added to the shown header of a factor file's column (the file keeps its own names).
+TABLE_COLUMN_UNITS = {"exposure": "exposure units", "change": "%"}
+
+
 def _table_rows(frame: pd.DataFrame) -> dict:
-    """A factor file as a table to show: its columns as written (an added column shows up as it is)
-    and its rows as text; numbers of the relativity columns to three decimals."""
+    """A factor file as a table to show: its columns as written, with the unit of the exposure and
+    change columns in brackets (an added column shows up as it is), and its rows as text; numbers
+    of the relativity columns to three decimals."""
     shown = frame.copy()
     for column in shown.columns:
         if pd.api.types.is_float_dtype(shown[column]):
@@ -253,7 +275,8 @@ def _table_rows(frame: pd.DataFrame) -> dict:
             ]
         else:
             shown[column] = shown[column].map(lambda v: "" if pd.isna(v) else str(v))
-    return {"columns": list(shown.columns), "rows": shown.to_numpy(dtype=object).tolist()}
+    columns = [f"{c} ({TABLE_COLUMN_UNITS[c]})" if c in TABLE_COLUMN_UNITS else str(c) for c in shown.columns]
+    return {"columns": columns, "rows": shown.to_numpy(dtype=object).tolist()}
 
 
 def _lift_words(differences: dict, name: str) -> dict | None:
@@ -326,7 +349,7 @@ def _selections_section(table: Any, selected: dict | None) -> dict:
     ]
     level, fid = selected["rate_level"], selected["fidelity"]
     return {
-        "header": ["factor", "rule", "bands or levels changed", "off-balance", "reason"],
+        "header": ["factor", "rule", "bands or levels changed", "off-balance (% of pure premium)", "reason"],
         "rows": rows,
         "off_balance": f"{level['off_balance']:+.3%}",
         "rounding": f"{level['rounding_off_balance']:+.3%}",
@@ -586,7 +609,7 @@ def claims_ave_tables(run: Run, hold: pd.DataFrame) -> dict:
         return {}
     cats = categorise(run.load_book().frame, run.levels).iloc[hold["row"].to_numpy()].reset_index(drop=True)
     claims, exposure = hold[CLAIM_COUNT].to_numpy(float), hold[EXPOSURE].to_numpy(float)
-    unit = run.spec.table.exposure_unit
+    unit = spec_exposure_unit(run)
     out = {}
     for factor in run.levels:
         seen = cats[factor].notna().to_numpy()  # a level met only outside the training rows has no label
@@ -597,7 +620,7 @@ def claims_ave_tables(run: Run, hold: pd.DataFrame) -> dict:
             for m in models
         }
         first = next(iter(tables.values()))
-        header = ["level", f"exposure ({unit}s)", "actual claims (count)"]
+        header = ["level", f"exposure ({unit})", "actual claims (count)"]
         for m in models:
             header += [f"{m}: expected claims (count)", f"{m}: actual / expected", f"{m}: 95 % interval"]
         rows = []
@@ -635,6 +658,11 @@ def experience_section(run: Run) -> dict:
     """What the experience adjustments did (RUN/experience.json, docs/run-directory.md): the totals
     observed -> developed and trended -> adjusted on the training and all rows, the factors applied
     per period, the large-loss cap and its excess load, the catastrophe load.
+
+    Parameters
+    ----------
+    run : Run
+        The run (its experience.json, when the spec set adjustments).
 
     Returns
     -------
@@ -956,7 +984,9 @@ def report_context(
     total_exposure = float(sum(v.exposure.sum() for v in views[:1]))
     spec = manifest["spec"]
     table_section = _table_section(table_dir, table, current, fidelity)
+    unit = spec_exposure_unit(run)
     return {
+        "unit": unit,
         "title": f"Pricing review of run '{run.path.name}'" + ("" if table is None else f", table {table.table_id}"),
         "cautions": list(manifest["cautions"]),
         "diagnostics": diagnostics,
