@@ -64,7 +64,7 @@ def test_validate_prints_a_profile_on_a_clean_book(book_file, spec_file):
     r = run_cli("validate", str(book_file), "--spec", str(spec_file))
     assert r.returncode == 0, r.stderr
     assert "0 error(s)" in r.stdout
-    for part in ("profile: (overall)", "profile: age", "[25, 40)", "frequency", "severity", "loss_cost"):
+    for part in ("profile: (overall)", "profile: age", "[25, 40)", "frequency", "severity", "loss cost"):
         assert part in r.stdout
     # cautions go to stderr, as with every command (they went to stdout before the terminal rework)
     assert "caution: " not in r.stdout
