@@ -132,8 +132,9 @@ def _fit_run(
     """`fit` once its inputs are checked and the boosted-model search's `runner` is ready."""
     timings: dict[str, float] = {}
     t0 = time.perf_counter()
-    book = load_book(book_path, spec)
     exp = spec.experience
+    # compact rows (codes and policy keys) unless the boosted models or the experience step need the text
+    book = load_book(book_path, spec, compact=kinds == ["glm"] and not exp.configured)
     periods = None
     if exp.configured or exp.period_control or spec.split.out_of_time:
         periods = read_text_column(book_path, spec.columns.period) if spec.columns.period else None
