@@ -20,6 +20,7 @@ import pandas as pd
 
 from premiumlab._core.cluster import TaskRunner
 from premiumlab._core.errors import InputError
+from premiumlab._core.memory import return_freed_memory
 from premiumlab._core.progress import progress_bar
 from premiumlab.book.bands import assign_bands
 from premiumlab.book.levels import cut_levels
@@ -453,6 +454,7 @@ def scan_book(
             tally.merge(_Tally.of_chunk(spec, typed))
             if keep_rows:
                 parts.append(typed if dictionaries is None else _compact(typed, off, spec, dictionaries))
+
     if tally.totals[0] == 0:
         raise InputError(f"{p}: the book has no rows")
     _book_checks(tally, p, out)
@@ -486,7 +488,10 @@ def load_book(path: str | Path, spec: Spec, compact: bool = False) -> Book:
     InputError
         With the message of the first error finding, or when the book cannot be read.
     """
-    dictionaries: dict[str, dict[str, int]] | None = {} if compact else None
+    dictionaries: dict[str, dict[str, int]] | None = None
+    if compact:
+        dictionaries = {}
+        return_freed_memory()  # else the holes between the chunks' kept arrays grow with the book
     typed, _, findings = scan_book(path, spec, dictionaries=dictionaries)
     errors = [f for f in findings if f.level == "error"]
     if errors:
@@ -501,7 +506,7 @@ def load_book(path: str | Path, spec: Spec, compact: bool = False) -> Book:
     else:
         policy = typed.policy if typed.policy is not None else np.arange(n).astype(str).astype(object)
         holdout = holdout_flags(policy, spec.split.seed, spec.split.holdout)
-    frame = pd.DataFrame({f.name: typed.factors.pop(f.name) for f in spec.factors})
+    frame = pd.DataFrame({f.name: typed.factors.pop(f.name) for f in spec.factors}, copy=False)  # no second copy
     return Book(
         path=str(path),
         frame=frame,

@@ -19,9 +19,10 @@ from premiumlab._core.cluster import TaskRunner, parse_cluster, tasks_on
 from premiumlab._core.defaults import FALLBACK_TWEEDIE_POWER
 from premiumlab._core.errors import InputError
 from premiumlab._core.jsonio import write_json
-from premiumlab._core.outputs import atomic_output, check_target
+from premiumlab._core.outputs import atomic_output, check_target, write_parquet_in_slices
 from premiumlab._core.progress import Progress, Silent
 from premiumlab.book.levels import categorise, factor_levels, unseen_at_base
+from premiumlab.book.reading import CHUNK_ROWS
 from premiumlab.book.scan import load_book
 from premiumlab.book.spec import Spec, load_spec
 from premiumlab.experience.adjustments import latest_period_holdout, read_text_column
@@ -199,7 +200,7 @@ def _fit_run(
             t = time.perf_counter()
             fit_gbms(book, spec, train, glm_power, run, preds, runner, progress=report)
             timings["gbm_seconds"] = time.perf_counter() - t
-        preds.to_parquet(run.predictions, index=False)
+        write_parquet_in_slices(preds, run.predictions, CHUNK_ROWS)
         if book.holdout.any():
             from premiumlab.evaluation.holdout import holdout_metrics
 
