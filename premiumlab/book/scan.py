@@ -20,7 +20,7 @@ import pandas as pd
 
 from premiumlab._core.cluster import TaskRunner
 from premiumlab._core.errors import InputError
-from premiumlab._core.memory import return_freed_memory
+from premiumlab._core.memory import returning_freed_memory
 from premiumlab._core.progress import progress_bar
 from premiumlab.book.bands import assign_bands
 from premiumlab.book.levels import cut_levels
@@ -491,8 +491,10 @@ def load_book(path: str | Path, spec: Spec, compact: bool = False) -> Book:
     dictionaries: dict[str, dict[str, int]] | None = None
     if compact:
         dictionaries = {}
-        return_freed_memory()  # else the holes between the chunks' kept arrays grow with the book
-    typed, _, findings = scan_book(path, spec, dictionaries=dictionaries)
+        with returning_freed_memory():  # else the holes between the chunks' kept arrays grow with the book
+            typed, _, findings = scan_book(path, spec, dictionaries=dictionaries)
+    else:
+        typed, _, findings = scan_book(path, spec)
     errors = [f for f in findings if f.level == "error"]
     if errors:
         raise InputError(errors[0].message)

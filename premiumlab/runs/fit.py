@@ -180,7 +180,8 @@ def _fit_run(
                 "exposure": book.exposure,
                 "claim_count": observed.claim_count,
                 "policy_group": pd.factorize(book.policy)[0].astype(np.int64),
-            }
+            },
+            copy=False,  # the book's arrays, not copies of them (columns are only ever added)
         )
         if has_amount:
             preds["claim_amount"] = observed.claim_amount
