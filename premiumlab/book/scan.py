@@ -308,7 +308,7 @@ def _compact(t: TypedChunk, offset: int, spec: Spec, dictionaries: dict[str, dic
     """A typed chunk made compact: each categorical factor as int32 codes into its level list in
     `dictionaries` (grown in order of first appearance, shared by every chunk), the policy ids (the
     row numbers as text when the spec names no policy column) as their uint64 keys (`policy_keys`),
-    no period and no current premium (8 to 9 bytes a row per column instead of a pointer to text)."""
+    no period and no current premium (4 or 8 bytes a row per column instead of a pointer to text)."""
     factors = dict(t.factors)
     for f in spec.factors:
         if f.type == "categorical":
@@ -454,7 +454,6 @@ def scan_book(
             tally.merge(_Tally.of_chunk(spec, typed))
             if keep_rows:
                 parts.append(typed if dictionaries is None else _compact(typed, off, spec, dictionaries))
-
     if tally.totals[0] == 0:
         raise InputError(f"{p}: the book has no rows")
     _book_checks(tally, p, out)
