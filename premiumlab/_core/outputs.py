@@ -19,6 +19,8 @@ from collections.abc import Iterator
 from contextlib import contextmanager
 from pathlib import Path
 
+import pandas as pd
+
 from premiumlab._core.errors import InputError
 
 _LEFTOVER = re.compile(r"^\.(?P<name>.+)\.(?P<kind>tmp|old)-(?P<pid>\d+)$")
@@ -200,3 +202,27 @@ def atomic_files(targets: list[Path], force: bool = False, inputs: tuple[str | P
         raise
     finally:
         _discard(tmp)
+
+
+def write_parquet_in_slices(frame: pd.DataFrame, path: Path, slice_rows: int) -> None:
+    """Write `frame` (without its index) to the Parquet file `path`, `slice_rows` rows at a time, one
+    row group each, so that the Arrow copy held at once is one slice, not the whole frame;
+    `pandas.read_parquet` reads back the frame `frame.to_parquet(path, index=False)` would write.
+
+    Parameters
+    ----------
+    frame : pandas.DataFrame
+        The rows to write; its index is not written.
+    path : Path
+        The file to write (inside an `atomic_output` folder).
+    slice_rows : int
+        Rows converted and written at a time, >= 1.
+    """
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    schema = pa.Schema.from_pandas(frame.iloc[:0], preserve_index=False)
+    with pq.ParquetWriter(path, schema) as writer:
+        for start in range(0, len(frame), slice_rows):
+            piece = frame.iloc[start : start + slice_rows]
+            writer.write_table(pa.Table.from_pandas(piece, schema=schema, preserve_index=False))

@@ -152,9 +152,42 @@ def factor_levels(book: Book, spec: Spec, train: np.ndarray) -> dict[str, Levels
         The levels of each factor by name, in spec order.
     """
     return {
-        f.name: cut_levels(f, book.frame[f.name].to_numpy()[train], book.exposure[train], spec.source)
+        f.name: cut_levels(f, *_train_values(book.frame[f.name], book.exposure, train), spec.source)
         for f in spec.factors
     }
+
+
+def _train_values(column: pd.Series, exposure: np.ndarray, train: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(values, exposure) of a factor's training rows for `cut_levels`: the rows themselves, or for a
+    Categorical column (a compact book) the levels met in training with their summed exposure."""
+    if not isinstance(column.dtype, pd.CategoricalDtype):
+        return column.to_numpy()[train], exposure[train]
+    codes = column.cat.codes.to_numpy()[train]
+    k = len(column.cat.categories)
+    met = np.bincount(codes, minlength=k) > 0
+    summed = np.bincount(codes, weights=exposure[train], minlength=k)
+    return np.asarray(column.cat.categories, dtype=object)[met], summed[met]
+
+
+def factor_codes(levels: Levels, column: pd.Series) -> np.ndarray:
+    """`levels.codes` of a factor's column: of its values, or for a Categorical column (a compact
+    book) of its categories, taken by each row's code (one look-up per level, not per row).
+
+    Parameters
+    ----------
+    levels : Levels
+        The factor's cut.
+    column : pandas.Series
+        The factor's column of a typed book (`Book.frame`).
+
+    Returns
+    -------
+    ndarray of int64
+        The position of each row's band or level in `levels.labels`, -1 where it has none.
+    """
+    if not isinstance(column.dtype, pd.CategoricalDtype):
+        return levels.codes(column.to_numpy())
+    return levels.codes(np.asarray(column.cat.categories, dtype=object))[column.cat.codes.to_numpy()]
 
 
 def categorise(book_frame: pd.DataFrame, levels: dict[str, Levels]) -> pd.DataFrame:
@@ -163,7 +196,8 @@ def categorise(book_frame: pd.DataFrame, levels: dict[str, Levels]) -> pd.DataFr
     Parameters
     ----------
     book_frame : pandas.DataFrame
-        The factor columns of a typed book (`Book.frame`), numeric factors as floats.
+        The factor columns of a typed book (`Book.frame`), numeric factors as floats, categorical
+        ones as text or Categoricals.
     levels : dict of str to Levels
         The cut of each factor to categorise (`factor_levels`); the columns come out in its order.
 
@@ -175,7 +209,7 @@ def categorise(book_frame: pd.DataFrame, levels: dict[str, Levels]) -> pd.DataFr
         levels (a level or a missing value unseen in the training rows) is NaN.
     """
     cols = {
-        name: pd.Categorical.from_codes(lv.codes(book_frame[name].to_numpy()), categories=list(lv.labels), ordered=True)
+        name: pd.Categorical.from_codes(factor_codes(lv, book_frame[name]), categories=list(lv.labels), ordered=True)
         for name, lv in levels.items()
     }
     return pd.DataFrame(cols)

@@ -39,7 +39,9 @@ class Finding:
 
 @dataclass
 class Book:
-    """A validated book, typed: numeric factors float64, categorical factors as strings."""
+    """A validated book, typed: numeric factors float64, categorical factors as strings and policy ids
+    as text; or, compact (`scan.load_book(compact=True)`), categorical factors as pandas
+    Categoricals, policy ids as uint64 keys (`split.policy_keys`) and no current premium."""
 
     path: str
     frame: pd.DataFrame

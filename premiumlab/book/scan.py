@@ -4,7 +4,8 @@
 workers), types and checks every chunk (`rows.check_chunk`), and sums what the book-level checks
 need into a tally: no repeated (policy, period) pair, claims somewhere, no one-level factor, no two
 factors identical up to relabelling, thin and very many levels. `load_book` keeps the typed rows
-for `fit`; `validate` keeps only the tally, so its memory does not grow with the book.
+for `fit` (compact ones when asked: categorical factors as integer codes, policy ids as 64-bit
+keys); `validate` keeps only the tally, so its memory does not grow with the book.
 """
 
 from __future__ import annotations
@@ -19,6 +20,7 @@ import pandas as pd
 
 from premiumlab._core.cluster import TaskRunner
 from premiumlab._core.errors import InputError
+from premiumlab._core.memory import returning_freed_memory
 from premiumlab._core.progress import progress_bar
 from premiumlab.book.bands import assign_bands
 from premiumlab.book.levels import cut_levels
@@ -26,7 +28,7 @@ from premiumlab.book.quantiles import book_quantile_edges
 from premiumlab.book.reading import CHUNK_ROWS, book_parts, book_sha256, iter_book, read_columns, unreadable_parquet
 from premiumlab.book.rows import Book, Finding, FindingCollector, TypedChunk, as_text, check_chunk, to_number
 from premiumlab.book.spec import Factor, Spec
-from premiumlab.book.split import holdout_flags
+from premiumlab.book.split import held_out, holdout_flags, policy_keys
 from rating_tables import MISSING_LABEL
 
 #: A level or band holding less than this share of the exposure is reported as thin.
@@ -302,6 +304,23 @@ def _concat(parts: list[TypedChunk]) -> TypedChunk:
     )
 
 
+def _compact(t: TypedChunk, offset: int, spec: Spec, dictionaries: dict[str, dict[str, int]]) -> TypedChunk:
+    """A typed chunk made compact: each categorical factor as int32 codes into its level list in
+    `dictionaries` (grown in order of first appearance, shared by every chunk), the policy ids (the
+    row numbers as text when the spec names no policy column) as their uint64 keys (`policy_keys`),
+    no period and no current premium (4 or 8 bytes a row per column instead of a pointer to text)."""
+    factors = dict(t.factors)
+    for f in spec.factors:
+        if f.type == "categorical":
+            codes, uniques = pd.factorize(t.factors[f.name], use_na_sentinel=False)
+            known = dictionaries[f.name]
+            chunk_to_book = np.array([known.setdefault(u, len(known)) for u in uniques], dtype=np.int32)
+            factors[f.name] = chunk_to_book[codes]
+    n = len(t.exposure)
+    policy = t.policy if t.policy is not None else np.arange(offset, offset + n).astype(str).astype(object)
+    return replace(t, factors=factors, policy=policy_keys(policy, spec.split.seed), period=None, premium=None)
+
+
 def parquet_slices(path: str | Path, chunk_rows: int = CHUNK_ROWS) -> list[tuple[str, list[int], int]]:
     """(file, row groups, first row) of each slice of about `chunk_rows` rows of a Parquet book (a
     file or a folder of parts), in book order; a slice never splits a row group.
@@ -363,7 +382,12 @@ def _scan_slice(job: tuple[Spec, list[str]], piece: tuple[str, list[int], int]) 
 
 
 def scan_book(
-    path: str | Path, spec: Spec, keep_rows: bool = True, chunk_rows: int = CHUNK_ROWS, runner: TaskRunner | None = None
+    path: str | Path,
+    spec: Spec,
+    keep_rows: bool = True,
+    chunk_rows: int = CHUNK_ROWS,
+    runner: TaskRunner | None = None,
+    dictionaries: dict[str, dict[str, int]] | None = None,
 ) -> tuple[TypedChunk | None, BookSummary, list[Finding]]:
     """Read the whole book chunk by chunk, typing it and collecting every finding.
 
@@ -385,6 +409,11 @@ def scan_book(
     runner : TaskRunner or None
         Where to check the slices of a Parquet book when `keep_rows` is False; None reads the
         book here, chunk by chunk.
+    dictionaries : dict of str to dict of str to int, or None
+        With the rows kept: None keeps them as typed; a dict, filled here with each categorical
+        factor's levels in order of first appearance (level -> code), keeps them compact (`_compact`:
+        categorical factors as codes into those levels, policy ids as their keys, no period and no
+        current premium).
 
     Returns
     -------
@@ -411,6 +440,8 @@ def scan_book(
     out = FindingCollector(str(p))
     tally = _Tally(spec)
     parts = []
+    if dictionaries is not None:
+        dictionaries.update({f.name: {} for f in spec.factors if f.type == "categorical"})
     if runner is not None and not keep_rows:
         slices = parquet_slices(p, chunk_rows)
         with progress_bar(f"checking {len(slices)} slices of the book", len(slices)) as advance:
@@ -422,14 +453,14 @@ def scan_book(
             typed = check_chunk(chunk, off, spec, out)
             tally.merge(_Tally.of_chunk(spec, typed))
             if keep_rows:
-                parts.append(typed)
+                parts.append(typed if dictionaries is None else _compact(typed, off, spec, dictionaries))
     if tally.totals[0] == 0:
         raise InputError(f"{p}: the book has no rows")
     _book_checks(tally, p, out)
     return (_concat(parts) if keep_rows else None), tally.summary(), out.findings()
 
 
-def load_book(path: str | Path, spec: Spec) -> Book:
+def load_book(path: str | Path, spec: Spec, compact: bool = False) -> Book:
     """Read, check and type a book; the first error stops with `InputError` (exit 2).
 
     Parameters
@@ -438,6 +469,11 @@ def load_book(path: str | Path, spec: Spec) -> Book:
         A book file or a folder of book parts.
     spec : Spec
         The pricing spec: columns, factors and the holdout split.
+    compact : bool
+        False: factors as typed (categorical ones as text) and policy ids as text. True, for the
+        GLM-only `fit` without experience adjustments: categorical factors as pandas Categoricals
+        (their levels in order of first appearance, integer codes), policy ids as their uint64 keys
+        (`split.policy_keys`, hashed once), and no current premium; the holdout flags are the same.
 
     Returns
     -------
@@ -451,14 +487,27 @@ def load_book(path: str | Path, spec: Spec) -> Book:
     InputError
         With the message of the first error finding, or when the book cannot be read.
     """
-    typed, _, findings = scan_book(path, spec)
+    dictionaries: dict[str, dict[str, int]] | None = None
+    if compact:
+        dictionaries = {}
+        with returning_freed_memory():  # else the holes between the chunks' kept arrays grow with the book
+            typed, _, findings = scan_book(path, spec, dictionaries=dictionaries)
+    else:
+        typed, _, findings = scan_book(path, spec)
     errors = [f for f in findings if f.level == "error"]
     if errors:
         raise InputError(errors[0].message)
     assert typed is not None  # scan_book keeps the rows by default
     n = len(typed.exposure)
-    policy = typed.policy if typed.policy is not None else np.arange(n).astype(str).astype(object)
-    frame = pd.DataFrame({f.name: typed.factors[f.name] for f in spec.factors})
+    if dictionaries is not None:
+        assert typed.policy is not None  # _compact keys every row
+        policy, holdout = typed.policy, held_out(typed.policy, spec.split.holdout)
+        for name, known in dictionaries.items():
+            typed.factors[name] = pd.Categorical.from_codes(typed.factors[name], categories=list(known))
+    else:
+        policy = typed.policy if typed.policy is not None else np.arange(n).astype(str).astype(object)
+        holdout = holdout_flags(policy, spec.split.seed, spec.split.holdout)
+    frame = pd.DataFrame({f.name: typed.factors.pop(f.name) for f in spec.factors}, copy=False)  # no second copy
     return Book(
         path=str(path),
         frame=frame,
@@ -467,7 +516,7 @@ def load_book(path: str | Path, spec: Spec) -> Book:
         claim_amount=typed.amount,
         current_premium=typed.premium,
         policy=policy,
-        holdout=holdout_flags(policy, spec.split.seed, spec.split.holdout),
+        holdout=holdout,
         sha256=book_sha256(path),
         warnings=[f for f in findings if f.level == "warning"],
     )

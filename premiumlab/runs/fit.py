@@ -19,9 +19,10 @@ from premiumlab._core.cluster import TaskRunner, parse_cluster, tasks_on
 from premiumlab._core.defaults import FALLBACK_TWEEDIE_POWER
 from premiumlab._core.errors import InputError
 from premiumlab._core.jsonio import write_json
-from premiumlab._core.outputs import atomic_output, check_target
+from premiumlab._core.outputs import atomic_output, check_target, write_parquet_in_slices
 from premiumlab._core.progress import Progress, Silent
 from premiumlab.book.levels import categorise, factor_levels, unseen_at_base
+from premiumlab.book.reading import CHUNK_ROWS
 from premiumlab.book.scan import load_book
 from premiumlab.book.spec import Spec, load_spec
 from premiumlab.experience.adjustments import latest_period_holdout, read_text_column
@@ -132,8 +133,9 @@ def _fit_run(
     """`fit` once its inputs are checked and the boosted-model search's `runner` is ready."""
     timings: dict[str, float] = {}
     t0 = time.perf_counter()
-    book = load_book(book_path, spec)
     exp = spec.experience
+    # compact rows (codes and policy keys) unless the boosted models or the experience step need the text
+    book = load_book(book_path, spec, compact=kinds == ["glm"] and not exp.configured)
     periods = None
     if exp.configured or exp.period_control or spec.split.out_of_time:
         periods = read_text_column(book_path, spec.columns.period) if spec.columns.period else None
@@ -178,7 +180,8 @@ def _fit_run(
                 "exposure": book.exposure,
                 "claim_count": observed.claim_count,
                 "policy_group": pd.factorize(book.policy)[0].astype(np.int64),
-            }
+            },
+            copy=False,  # the book's arrays, not copies of them (columns are only ever added)
         )
         if has_amount:
             preds["claim_amount"] = observed.claim_amount
@@ -198,7 +201,7 @@ def _fit_run(
             t = time.perf_counter()
             fit_gbms(book, spec, train, glm_power, run, preds, runner, progress=report)
             timings["gbm_seconds"] = time.perf_counter() - t
-        preds.to_parquet(run.predictions, index=False)
+        write_parquet_in_slices(preds, run.predictions, CHUNK_ROWS)
         if book.holdout.any():
             from premiumlab.evaluation.holdout import holdout_metrics
 
