@@ -31,10 +31,12 @@ class TaskRunner(Protocol):
 
     ``workers`` is the number of processes the tasks share (1 here); `place` keeps items where the
     tasks run, so that several maps over the same partitions of a book send them only once.
+    ``client`` is the Dask client for a library's own Dask interface (LightGBM's), None here.
     """
 
     description: str
     workers: int
+    client: Any
 
     def place(self, items: Sequence[Any]) -> list: ...
 
@@ -48,6 +50,7 @@ class InProcess:
 
     description = "this process"
     workers = 1
+    client = None
 
     def place(self, items: Sequence[Any]) -> list:
         """The items themselves."""

@@ -440,6 +440,8 @@ def _parse_gbm(doc: TomlTable, seed: int) -> GbmOptions:
             "cat_l2": _rows_or_auto,
             "min_data_per_group": lambda t, k: t.integer(k, low=1),
             "max_cat_threshold": lambda t, k: t.integer(k, low=1),
+            "cluster_rows": lambda t, k: t.integer(k, low=1),
+            "search_rows": lambda t, k: t.integer(k, low=1),
         },
     )
     if "threads" in given:
