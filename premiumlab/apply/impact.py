@@ -79,7 +79,7 @@ def _gross_premiums(table: RatingTable, frame: pd.DataFrame, exposure: str | Non
 
 
 @dataclass(frozen=True)
-class _Sides:
+class RatedSides:
     """What every part of the book is rated with: the loaded tables and the book's columns."""
 
     proposed: RatingTable
@@ -165,7 +165,7 @@ def dislocation(
         c for c in (book_column(table, k, v) for k, v in (("policy_id", policy_id), ("period", period))) if c
     )
     by_column = current.startswith(COLUMN_PREFIX)
-    sides = _Sides(
+    sides = RatedSides(
         proposed=table,
         current=None if by_column else rating_tables.load(current),
         current_column=current[len(COLUMN_PREFIX) :] if by_column else None,
@@ -186,12 +186,12 @@ def dislocation(
     return _summary(sides, premiums, cap, thresholds)
 
 
-def premium_rows(sides: _Sides, frame: pd.DataFrame, where: str) -> pd.DataFrame:
+def premium_rows(sides: RatedSides, frame: pd.DataFrame, where: str) -> pd.DataFrame:
     """The rows the dislocation is summarised from, for a whole book or one part of it.
 
     Parameters
     ----------
-    sides : _Sides
+    sides : RatedSides
         The tables (or current premium column) and the book's exposure and id columns.
     frame : pandas.DataFrame
         Book rows (a whole book or one part), as `_read_frame` reads them.
@@ -220,7 +220,7 @@ def premium_rows(sides: _Sides, frame: pd.DataFrame, where: str) -> pd.DataFrame
     return rows
 
 
-def _premiums_of_part(sides: _Sides, part: str) -> pd.DataFrame:
+def _premiums_of_part(sides: RatedSides, part: str) -> pd.DataFrame:
     """`premium_rows` of one part of a Parquet dataset (here or on a Dask worker); a row the part
     refuses is named by the part and its 0-based row in it."""
     try:
@@ -229,7 +229,9 @@ def _premiums_of_part(sides: _Sides, part: str) -> pd.DataFrame:
         raise InputError(str(e) if str(e).startswith(part) else f"{part}: {e}") from None
 
 
-def _summary(sides: _Sides, premiums: pd.DataFrame, cap: float | None, thresholds: tuple[float, ...]) -> ImpactResult:
+def _summary(
+    sides: RatedSides, premiums: pd.DataFrame, cap: float | None, thresholds: tuple[float, ...]
+) -> ImpactResult:
     """`rating_tables.impact` of the joined premium rows, with the proposed table's cautions."""
     import rating_tables
 
