@@ -17,6 +17,14 @@ Rating: `rate_throughput`'s table (8 factors and a two-way table) on a book of N
 (300 trees x 31 leaves, fitted on a 100,000-policy sample, not tuned here) and against a bare
 numpy/pandas rater of the same table (`bare_rate`: band lookup by searchsorted, level codes, one
 product; no checks, fallbacks or loadings).
+Dask (`--cluster local:2`, two single-threaded worker processes started by the command, their
+start-up included): on the motor scenario's book of N policies written as four Parquet parts,
+`fit --models glm` and `validate` in one process against `local:2`; `rate` of the rating book
+above, written as four Parquet parts, into one file against into a folder of parts on `local:2`.
+Boosted search: `gbm_search.bare_search` (lightgbm.train on each fold's subset of one binned
+Dataset, early stopping on the same deviance) against premiumlab's `cross_validate` in one
+process, 2 settings x 3 folds, up to 300 rounds, one thread, on `gbm_overhead.invented_book` of N
+rows; the fold deviances must be identical.
 """
 
 from __future__ import annotations
@@ -42,6 +50,10 @@ sys.path.insert(0, str(Path(__file__).parent))
 
 import glm_fit
 import rate_throughput
+
+ROOT = Path(__file__).resolve().parents[1]
+PARTS = 4
+CLUSTER = "local:2"
 
 FIXED_POWER = glm_fit.TWEEDIE_POWER
 FAMILIES = ("poisson", "gamma", "tweedie")
@@ -149,6 +161,62 @@ def bare_rate(table, book: pd.DataFrame, exposure: str) -> np.ndarray:
     return product * book[exposure].to_numpy()
 
 
+# --- Dask and the boosted search -------------------------------------------------------------
+
+
+def in_parts(frame: pd.DataFrame, folder: Path) -> Path:
+    """`frame` written as PARTS Parquet parts of about equal rows into `folder`."""
+    folder.mkdir()
+    for k, rows in enumerate(np.array_split(np.arange(len(frame)), PARTS)):
+        frame.iloc[rows].to_parquet(folder / f"part-{k:02d}.parquet", index=False)
+    return folder
+
+
+def cluster_setup(policies: int, folder: Path) -> None:
+    """The motor scenario's book and the rating book, each as PARTS Parquet parts, and the table."""
+    import premiumlab
+    from rating_tables import save
+
+    premiumlab.simulate(ROOT / "scenarios" / "motor.toml", out=folder / "motor.parquet", policies=policies, seed=5)
+    in_parts(pd.read_parquet(folder / "motor.parquet"), folder / "motor")
+    table, book, _ = rating_setup(policies)
+    save(table, folder / "table")
+    in_parts(book, folder / "rating_book")
+
+
+def cluster_work(name: str, folder: Path) -> Callable[[], object]:
+    """The command measured as `name` (`fit_glm`, `validate` or `rate`, suffixed `_here` or `_cluster`)."""
+    import premiumlab
+
+    cluster = CLUSTER if name.endswith("_cluster") else None
+    spec = ROOT / "scenarios" / "motor_spec.toml"
+    if name.startswith("fit_glm"):
+        return lambda: premiumlab.fit(
+            folder / "motor", spec=spec, out=folder / name, models="glm", cluster=cluster, force=True
+        )
+    if name.startswith("validate"):
+        return lambda: premiumlab.validate(folder / "motor", spec=spec, cluster=cluster)
+    out = folder / (name if cluster else f"{name}.parquet")
+    return lambda: premiumlab.rate(folder / "table", folder / "rating_book", out=out, cluster=cluster, force=True)
+
+
+def search_work(name: str, policies: int) -> Callable[[], list[float]]:
+    """The boosted search measured as `name` (`search_premiumlab` or `search_bare`)."""
+    import gbm_overhead
+    import gbm_search
+
+    from premiumlab.book.gbm_options import GbmOptions
+    from premiumlab.models.gbm.search import cross_validate, select_settings
+    from premiumlab.models.gbm.training import prepare_training
+
+    options = GbmOptions(folds=3, max_settings=2, num_threads=1, max_rounds=300, tweedie_power=1.5)
+    data = prepare_training(gbm_overhead.invented_book(policies), "pure_premium", options)
+    settings = select_settings(options)
+    if name == "search_bare":
+        return lambda: gbm_search.bare_search(data, settings, options)
+    return lambda: [d for row in cross_validate(data, settings, options) for d in row["fold_deviances"]]
+
+
 # --- children --------------------------------------------------------------------------------
 
 
@@ -161,7 +229,16 @@ def measure(name: str, policies: int, repeats: int, folder: Path) -> dict:
 
     import premiumlab.models.glm.fit  # noqa: F401
 
-    if name.startswith("glm_"):
+    if name.startswith(("fit_glm", "validate", "rate_here", "rate_cluster")):
+        seconds, _ = median_of(cluster_work(name, folder), repeats)
+    elif name.startswith("search_"):
+        seconds, deviances = median_of(search_work(name, policies), repeats)
+        other = folder / "fold_deviances.json"
+        if name == "search_premiumlab":
+            other.write_text(json.dumps(deviances))
+        else:
+            extra["fold deviances identical"] = float(json.loads(other.read_text()) == deviances)
+    elif name.startswith("glm_"):
         inputs = glm_book(policies)
         profile_file = folder / "profile_powers.json"
         if name == "glm_premiumlab_fixed":
@@ -219,6 +296,10 @@ PAIRS = (  # (label, ours, theirs); theirs / ours is the ratio
     ("GLM fits with the power profile: glum / premiumlab", "glm_premiumlab_profile", "glm_glum_profile"),
     ("Rating: LightGBM predict / rating_tables.rate", "rate_table", "rate_lightgbm"),
     ("Rating: bare numpy rater / rating_tables.rate", "rate_table", "rate_bare"),
+    ("fit --models glm: one process / local:2", "fit_glm_cluster", "fit_glm_here"),
+    ("validate: one process / local:2", "validate_cluster", "validate_here"),
+    ("rate, 4 Parquet parts: one process / local:2", "rate_cluster", "rate_here"),
+    ("Boosted search (2 x 3 folds): bare LightGBM / premiumlab", "search_premiumlab", "search_bare"),
 )
 
 
@@ -235,6 +316,7 @@ def main() -> None:
     load = os.getloadavg()[0]
     with tempfile.TemporaryDirectory() as folder:
         child("rate_lightgbm_fit", args.policies, 1, Path(folder))
+        cluster_setup(args.policies, Path(folder))
         figures: dict[str, dict] = {}
         lines = []
         for label, ours, theirs in PAIRS:

@@ -360,6 +360,7 @@ def impact(
     out: str | Path | None = None,
     figure: str | Path | None = None,
     force: bool = False,
+    cluster: str | None = None,
 ) -> ImpactResult:
     """Premium dislocation from the current to the proposed rates, optionally capped.
 
@@ -392,6 +393,9 @@ def impact(
         Also write the dislocation figure (.png).
     force : bool
         Replace existing outputs.
+    cluster : str or None
+        Rate a Parquet dataset's parts on a Dask cluster (local:N or a scheduler address); the
+        summary is computed here on the premiums they return, equal to the one-process impact.
 
     Returns
     -------
@@ -411,6 +415,7 @@ def impact(
         parse_thresholds(thresholds),
         policy_id=policy_id,
         period=period,
+        cluster=cluster,
     )
     write_impact(
         result,

@@ -75,7 +75,7 @@ def test_rate_cluster_through_the_command_line_and_its_refusals(tmp_path):
     assert sorted(p.name for p in (tmp_path / "priced").iterdir()) == ["part-00.parquet", "part-01.parquet"]
     single = tmp_path / "book.parquet"
     pd.read_parquet(book).to_parquet(single, index=False)
-    with pytest.raises(InputError, match="--cluster rates a Parquet dataset"):
+    with pytest.raises(InputError, match="rate --cluster reads a Parquet dataset"):
         premiumlab.rate(table, single, out=tmp_path / "other", cluster="local:2")
     assert not (tmp_path / "other").exists()
     bad = run_cli("rate", str(table), str(book), "--out", str(tmp_path / "again"), "--cluster", "local:zero")

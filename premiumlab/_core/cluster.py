@@ -16,6 +16,7 @@ from __future__ import annotations
 import logging
 from collections.abc import Callable, Iterator, Sequence
 from contextlib import contextmanager
+from pathlib import Path
 from typing import Any, Protocol
 
 from premiumlab._core.errors import InputError
@@ -30,10 +31,12 @@ class TaskRunner(Protocol):
 
     ``workers`` is the number of processes the tasks share (1 here); `place` keeps items where the
     tasks run, so that several maps over the same partitions of a book send them only once.
+    ``client`` is the Dask client for a library's own Dask interface (LightGBM's), None here.
     """
 
     description: str
     workers: int
+    client: Any
 
     def place(self, items: Sequence[Any]) -> list: ...
 
@@ -47,6 +50,7 @@ class InProcess:
 
     description = "this process"
     workers = 1
+    client = None
 
     def place(self, items: Sequence[Any]) -> list:
         """The items themselves."""
@@ -166,3 +170,30 @@ def _check_worker_versions(client: Any, where: str) -> None:
             f"--cluster: workers of the Dask scheduler at {where} run premiumlab "
             f"{', '.join(other)}, this machine {here}; install the same version everywhere"
         )
+
+
+def dataset_parts(book: Path, command: str) -> list[Path]:
+    """The parts of a Parquet dataset in name order, which `command --cluster` hands to the workers
+    one by one; InputError naming `book` for a single file or a CSV book.
+
+    Parameters
+    ----------
+    book : pathlib.Path
+        A folder of .parquet (or .pq) parts (`rating_tables.books.book_parts`).
+    command : str
+        The command, named in the message.
+
+    Returns
+    -------
+    list of pathlib.Path
+        The part files, at least one.
+    """
+    from rating_tables.books import book_parts
+
+    kind, parts = book_parts(book)
+    if not book.is_dir() or kind != "parquet":
+        raise InputError(
+            f"{book}: {command} --cluster reads a Parquet dataset (a folder of .parquet parts) part by part; "
+            f"give {command} a single file or a CSV book without --cluster"
+        )
+    return parts

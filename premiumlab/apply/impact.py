@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from collections.abc import Sequence
+from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING
 
@@ -11,11 +12,14 @@ import pandas as pd
 
 from premiumlab._core.errors import InputError
 from premiumlab.results import ImpactResult
+from rating_tables.errors import TableError
 
 if TYPE_CHECKING:
     from rating_tables.table import RatingTable
 
 COLUMN_PREFIX = "column:"
+#: Columns of `premium_rows` holding the current and proposed premiums (names no factor can take).
+CURRENT, PROPOSED = "\x00current", "\x00proposed"
 
 
 def _read_frame(path: str | Path) -> pd.DataFrame:
@@ -74,6 +78,23 @@ def _gross_premiums(table: RatingTable, frame: pd.DataFrame, exposure: str | Non
     return rating_tables.rate(table, frame, None if annual else exposure, annual=annual)["gross_premium"].to_numpy()
 
 
+@dataclass(frozen=True)
+class RatedSides:
+    """What every part of the book is rated with: the loaded tables and the book's columns."""
+
+    proposed: RatingTable
+    current: RatingTable | None  # None: the current premium is the book column `current_column`
+    current_column: str | None
+    exposure: str | None
+    annual: bool
+    id_columns: tuple[str, ...]
+
+    @property
+    def tables(self) -> list[RatingTable]:
+        """The tables, the proposed first (`_impact_groups` breaks the change down by their factors)."""
+        return [self.proposed] if self.current is None else [self.proposed, self.current]
+
+
 def dislocation(
     current: str,
     proposed: str,
@@ -84,6 +105,7 @@ def dislocation(
     thresholds: tuple[float, ...],
     policy_id: str | None = None,
     period: str | None = None,
+    cluster: str | None = None,
 ) -> ImpactResult:
     """Per-policy change from `current` to `proposed` premiums (tables or `column:NAME`); each
     table is loaded once.
@@ -111,6 +133,12 @@ def dislocation(
         counts the policies. None: the proposed table's remembered column, if any.
     period : str or None
         The book's period column, shown beside the policy id. None: the table's, if any.
+    cluster : str or None
+        Rate the parts of a Parquet dataset on a Dask cluster (`premiumlab._core.cluster`: local:N
+        or a scheduler address): each worker reads a part and returns its premiums (current and
+        proposed), the factor columns of the breakdown and the id columns (`premium_rows`); this
+        process joins them in book order and computes the summary on them exactly as without a
+        cluster. None: read and rate the whole book here.
 
     Returns
     -------
@@ -127,29 +155,95 @@ def dislocation(
             "period and cannot be put on a full-term basis by the rater; compare two tables with --annual, "
             "or drop --annual"
         )
+    if cluster is not None:
+        from premiumlab._core.cluster import dataset_parts, parse_cluster
+
+        parse_cluster(cluster)
+        parts = dataset_parts(Path(book), "impact")
     table = rating_tables.load(proposed)
-    frame = _read_frame(book)
-    exposure = book_column(table, "exposure", exposure)
     id_columns = tuple(
         c for c in (book_column(table, k, v) for k, v in (("policy_id", policy_id), ("period", period))) if c
     )
-    absent = [c for c in id_columns if c not in frame.columns]
-    if absent:
-        raise InputError(f"{book}: the book has no column '{absent[0]}' (the policy id or period column)")
-    if current.startswith(COLUMN_PREFIX):
-        tables, now = [table], _column_premiums(current, frame)
+    by_column = current.startswith(COLUMN_PREFIX)
+    sides = RatedSides(
+        proposed=table,
+        current=None if by_column else rating_tables.load(current),
+        current_column=current[len(COLUMN_PREFIX) :] if by_column else None,
+        exposure=book_column(table, "exposure", exposure),
+        annual=annual,
+        id_columns=id_columns,
+    )
+    if cluster is None:
+        premiums = premium_rows(sides, _read_frame(book), str(book))
     else:
-        current_table = rating_tables.load(current)
-        tables, now = [table, current_table], _gross_premiums(current_table, frame, exposure, annual)
-    groups = _impact_groups(frame, tables)
+        from premiumlab._core.cluster import tasks_on
+
+        with tasks_on(cluster) as runner:
+            pieces = runner.map(_premiums_of_part, sides, [str(p) for p in parts], lambda: None)
+        premiums = pd.concat(pieces, ignore_index=True)
+        if premiums.empty:
+            raise InputError(f"{book}: the book has no rows")
+    return _summary(sides, premiums, cap, thresholds)
+
+
+def premium_rows(sides: RatedSides, frame: pd.DataFrame, where: str) -> pd.DataFrame:
+    """The rows the dislocation is summarised from, for a whole book or one part of it.
+
+    Parameters
+    ----------
+    sides : RatedSides
+        The tables (or current premium column) and the book's exposure and id columns.
+    frame : pandas.DataFrame
+        Book rows (a whole book or one part), as `_read_frame` reads them.
+    where : str
+        The book or part, named in the message of a missing id column.
+
+    Returns
+    -------
+    pandas.DataFrame
+        One row per book row: the factor columns of the breakdown (`_impact_groups`), the id
+        columns, then `CURRENT` and `PROPOSED`, the gross premiums (money) rated by the tables
+        (or the current premium column).
+    """
+    absent = [c for c in sides.id_columns if c not in frame.columns]
+    if absent:
+        raise InputError(f"{where}: the book has no column '{absent[0]}' (the policy id or period column)")
+    if sides.current is None:
+        now = _column_premiums(COLUMN_PREFIX + str(sides.current_column), frame)
+    else:
+        now = _gross_premiums(sides.current, frame, sides.exposure, sides.annual)
+    rows = pd.concat(
+        [_impact_groups(frame, sides.tables), frame[list(sides.id_columns)].reset_index(drop=True)], axis=1
+    )
+    rows[CURRENT] = now
+    rows[PROPOSED] = _gross_premiums(sides.proposed, frame, sides.exposure, sides.annual)
+    return rows
+
+
+def _premiums_of_part(sides: RatedSides, part: str) -> pd.DataFrame:
+    """`premium_rows` of one part of a Parquet dataset (here or on a Dask worker); a row the part
+    refuses is named by the part and its 0-based row in it."""
+    try:
+        return premium_rows(sides, _read_frame(part), part)
+    except (InputError, TableError) as e:  # its rows are numbered from the part's first row
+        raise InputError(str(e) if str(e).startswith(part) else f"{part}: {e}") from None
+
+
+def _summary(
+    sides: RatedSides, premiums: pd.DataFrame, cap: float | None, thresholds: tuple[float, ...]
+) -> ImpactResult:
+    """`rating_tables.impact` of the joined premium rows, with the proposed table's cautions."""
+    import rating_tables
+
+    groups = list(dict.fromkeys(f.name for table in sides.tables for f in table.main_factors))
     result = rating_tables.impact(
-        now,
-        _gross_premiums(table, frame, exposure, annual),
-        pd.concat([groups, frame[list(id_columns)].reset_index(drop=True)], axis=1),
-        list(groups.columns),
+        premiums[CURRENT].to_numpy(),
+        premiums[PROPOSED].to_numpy(),
+        premiums,
+        groups,
         thresholds=thresholds,
         cap=cap,
-        id_columns=id_columns,
+        id_columns=sides.id_columns,
     )
     return ImpactResult(
         rows=result["rows"],
@@ -162,7 +256,7 @@ def dislocation(
         by_factor=result["by_factor"],
         largest_increases=tuple(result["largest_increases"]),
         capping=result["capping"],
-        cautions=tuple(table.cautions),
+        cautions=tuple(sides.proposed.cautions),
     )
 
 

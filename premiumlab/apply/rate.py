@@ -6,7 +6,6 @@ from __future__ import annotations
 from pathlib import Path
 from typing import Any
 
-from premiumlab._core.errors import InputError
 from premiumlab.results import RateResult
 
 
@@ -63,10 +62,10 @@ def rate_book(
     exposure_column = None if annual else exposure
     out = Path(out)
     if cluster is not None:
-        from premiumlab._core.cluster import parse_cluster, tasks_on
+        from premiumlab._core.cluster import dataset_parts, parse_cluster, tasks_on
 
         parse_cluster(cluster)
-        parts = _parquet_parts(Path(book))
+        parts = dataset_parts(Path(book), "rate")
         with (
             atomic_output(out, force=force, kind="dir", inputs=(book, table_dir)) as tmp,
             tasks_on(cluster) as runner,
@@ -95,19 +94,6 @@ def rate_book(
             strict_levels=strict_levels,
         )
     return RateResult(priced=out, rows=rated_file.rows, counts=rated_file.counts, cautions=tuple(rated_file.cautions))
-
-
-def _parquet_parts(book: Path) -> list[Path]:
-    """The parts of a Parquet dataset in name order; InputError for anything else."""
-    from rating_tables.books import book_parts
-
-    kind, parts = book_parts(book)
-    if not book.is_dir() or kind != "parquet":
-        raise InputError(
-            f"{book}: --cluster rates a Parquet dataset (a folder of .parquet parts) part by part; "
-            "rate a single file or a CSV book without --cluster"
-        )
-    return parts
 
 
 def _rate_part(job: tuple[Any, str | None, bool, bool], piece: tuple[str, str]) -> Any:

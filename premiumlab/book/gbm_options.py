@@ -63,6 +63,12 @@ class GbmOptions:
     target's most-levelled categorical; cat_l2 (None; "auto"): LightGBM's cat_l2 in rows, None for
     the cat_smooth used; min_data_per_group (100) and max_cat_threshold (32): LightGBM's, in rows
     and levels.
+
+    On a Dask cluster (`fit --cluster`; `premiumlab.models.gbm.fit`): a target with at least
+    cluster_rows (1,000,000) training rows has its final model trained by LightGBM's Dask interface
+    (data-parallel, the rows spread over the workers), and its search run on a seeded sample of
+    whole policies of about search_rows (250,000) rows. Below it, or without a cluster, every
+    step uses every training row and the model files do not depend on where the search ran.
     """
 
     folds: int = 5
@@ -79,6 +85,8 @@ class GbmOptions:
     cat_l2: float | None = None
     min_data_per_group: int = 100
     max_cat_threshold: int = 32
+    cluster_rows: int = 1_000_000
+    search_rows: int = 250_000
 
     @property
     def variance_power(self) -> float:

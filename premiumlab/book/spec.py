@@ -131,6 +131,7 @@ class TableOptions:
     interactions: tuple[tuple[str, str], ...] = ()
     sample: int = 20000
     grid_points: int = 100
+    grid_rows: int = 1_000_000
     relativity_decimals: int = 3
     premium_decimals: int = 2
     target: str = "experience"
@@ -440,6 +441,8 @@ def _parse_gbm(doc: TomlTable, seed: int) -> GbmOptions:
             "cat_l2": _rows_or_auto,
             "min_data_per_group": lambda t, k: t.integer(k, low=1),
             "max_cat_threshold": lambda t, k: t.integer(k, low=1),
+            "cluster_rows": lambda t, k: t.integer(k, low=1),
+            "search_rows": lambda t, k: t.integer(k, low=1),
         },
     )
     if "threads" in given:
@@ -553,6 +556,7 @@ def parse_spec(doc: dict, source: str = "spec") -> Spec:
                 "interactions": _interactions,
                 "sample": lambda t, k: t.integer(k, low=100),
                 "grid_points": lambda t, k: t.integer(k, low=2),
+                "grid_rows": lambda t, k: t.integer(k, low=1000),
                 "relativity_decimals": lambda t, k: t.integer(k, low=0, high=MAX_DECIMALS),
                 "premium_decimals": lambda t, k: t.integer(k, low=0, high=MAX_DECIMALS),
                 "target": lambda t, k: t.string(k, choices=("experience", "current_premium")),

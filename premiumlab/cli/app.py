@@ -91,7 +91,7 @@ Cluster = Annotated[
         "--cluster",
         help="Run the heavy part on Dask (fit: the boosted-model search and the GLMs' passes over "
         "the rows; validate: the Parquet slices; rate: the parts of a Parquet dataset, into a "
-        "folder of parts): local:N (N worker processes here) or a scheduler address such "
+        "folder of parts; impact: the rating of a Parquet dataset's parts): local:N (N worker processes here) or a scheduler address such "
         "as tcp://host:8786. Needs the dask extra.",
     ),
 ]
@@ -384,6 +384,7 @@ def impact(
     out: Annotated[Path | None, typer.Option("--out", help="Also write the summary as JSON.")] = None,
     figure: Annotated[Path | None, typer.Option("--figure", help="Also write the dislocation figure (.png).")] = None,
     force: Force = False,
+    cluster: Cluster = None,
 ) -> None:
     """Premium dislocation from the current to the proposed rates, optionally capped."""
     from premiumlab import api
@@ -402,6 +403,7 @@ def impact(
         out=out,
         figure=figure,
         force=force,
+        cluster=cluster,
     )
     print_view(impact_view(result))
     _echo_cautions(result.cautions)

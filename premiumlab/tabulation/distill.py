@@ -69,7 +69,9 @@ class ScoreBooster:
     model_codes: dict[str, np.ndarray]
 
 
-def _summed_curve(boosters: list[ScoreBooster], factor: FactorValues, exposure: np.ndarray, points: int) -> Curve:
+def _summed_curve(
+    boosters: list[ScoreBooster], factor: FactorValues, exposure: np.ndarray, points: int, grid_rows: np.ndarray | None
+) -> Curve:
     """The factor's effect curve on the summed raw score of `boosters`: the sum of their curves."""
     curves = []
     for booster in boosters:
@@ -77,7 +79,8 @@ def _summed_curve(boosters: list[ScoreBooster], factor: FactorValues, exposure: 
         if factor.name not in names:
             raise InputError(f"boosted model: factor '{factor.name}' is not one of its features ({', '.join(names)})")
         coded = factor if factor.levels is None else replace(factor, model_codes=booster.model_codes[factor.name])
-        curves.append(effect_curve(booster.trees, booster.sample, names.index(factor.name), coded, exposure, points))
+        feature = names.index(factor.name)
+        curves.append(effect_curve(booster.trees, booster.sample, feature, coded, exposure, points, grid_rows))
     missing = None if curves[0].missing_effect is None else float(sum(c.missing_effect or 0.0 for c in curves))
     return replace(curves[0], effect=np.sum([c.effect for c in curves], axis=0), missing_effect=missing)
 
@@ -90,6 +93,7 @@ def distil(
     claim_count: np.ndarray,
     options: TableOptions,
     level_effects: dict[str, np.ndarray] | None = None,
+    grid_rows: np.ndarray | None = None,
 ) -> Distillation:
     """Curves -> credibility of unordered levels -> bands -> pooled refit (module docstring).
 
@@ -113,6 +117,9 @@ def distil(
     level_effects : dict[str, np.ndarray] or None
         Per unordered categorical whose level effects come from another model (module docstring,
         step 2): the log relativity of each of its levels, indexed as `levels`.
+    grid_rows : np.ndarray or None
+        Mask of the training rows the numeric factors' grid quantiles are taken from
+        (`effects.grid_sample`); None: every row.
 
     Returns
     -------
@@ -122,7 +129,7 @@ def distil(
     curves, bandings, credibility = {}, {}, {}
     shift = np.zeros(len(response))
     for factor in factors:
-        curve = _summed_curve(boosters, factor, exposure, options.grid_points)
+        curve = _summed_curve(boosters, factor, exposure, options.grid_points, grid_rows)
         replaced = (level_effects or {}).get(factor.name)
         if replaced is not None:
             points = np.asarray(curve.points, dtype=np.int64)

@@ -5,7 +5,9 @@
 - Grid (`quantile_grid`, `cell_exposure`): at most `points` exposure-weighted quantiles of the
   training values, q_k = the smallest value whose cumulative exposure share exceeds k / points,
   k = 0 .. points-1. Grid point g_i stands for the cell [g_i, g_{i+1}) (the first from -inf, the
-  last to inf); its weight is the training exposure in that cell.
+  last to inf); its weight is the training exposure in that cell. On a large book the quantiles
+  are taken from a uniform sample of the training rows (`grid_sample`), the cells' exposure
+  still from every row.
 - Curve (`effect_curve`): the exact partial dependence of the raw (log) score on one factor over
   the sample (`premiumlab.models.trees.partial_dependence`), known up to an additive constant.
   A factor whose training rows hold missing values has its effect at the missing value beside the
@@ -43,6 +45,32 @@ def exposure_sample(exposure: np.ndarray, size: int, seed: int) -> np.ndarray:
     """
     p = np.asarray(exposure, dtype=float)
     return np.random.default_rng(seed).choice(p.size, size=size, replace=True, p=p / p.sum())
+
+
+def grid_sample(rows: int, size: int, seed: int) -> np.ndarray | None:
+    """The training rows whose values a numeric factor's grid quantiles are taken from: None (every
+    row) when there are at most `size`, else a mask of `size` rows drawn uniformly without
+    replacement with numpy's generator seeded by `seed`.
+
+    Parameters
+    ----------
+    rows : int
+        Training rows.
+    size : int
+        Most rows to take them from (`[table] grid_rows`).
+    seed : int
+        Seed of the draw.
+
+    Returns
+    -------
+    np.ndarray or None
+        Boolean mask over the training rows, or None for all of them.
+    """
+    if rows <= size:
+        return None
+    mask = np.zeros(rows, dtype=bool)
+    mask[np.random.default_rng(seed).choice(rows, size=size, replace=False)] = True
+    return mask
 
 
 def quantile_grid(values: np.ndarray, weights: np.ndarray, points: int) -> np.ndarray:
@@ -132,7 +160,13 @@ class FactorValues:
 
 
 def effect_curve(
-    trees: Trees, sample: np.ndarray, feature: int, factor: FactorValues, exposure: np.ndarray, grid_points: int
+    trees: Trees,
+    sample: np.ndarray,
+    feature: int,
+    factor: FactorValues,
+    exposure: np.ndarray,
+    grid_points: int,
+    grid_rows: np.ndarray | None = None,
 ) -> Curve:
     """The factor's partial dependence on the log score over its grid (numeric) or its levels with
     training exposure (categorical), with the exposure each point stands for, and at the missing
@@ -156,6 +190,9 @@ def effect_curve(
         Exposure of each training row, in the book's exposure unit.
     grid_points : int
         Most grid points of a numeric factor (`quantile_grid`, on the values present).
+    grid_rows : np.ndarray or None
+        Mask of the training rows the numeric grid's quantiles are taken from (`grid_sample`);
+        None: every row. The cells' exposure is always summed over every row.
 
     Returns
     -------
@@ -167,7 +204,8 @@ def effect_curve(
     if factor.levels is None:
         missing = np.isnan(factor.values)
         values, weights = factor.values[~missing], exposure[~missing]
-        grid = quantile_grid(values, weights, grid_points)
+        quantiled = ~missing if grid_rows is None else grid_rows & ~missing
+        grid = quantile_grid(factor.values[quantiled], exposure[quantiled], grid_points)
         at = np.append(grid, np.nan) if missing.any() else grid
         effect = partial_dependence(trees, sample, feature, at)
         return Curve(

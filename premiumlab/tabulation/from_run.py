@@ -48,7 +48,7 @@ from premiumlab.experience.cautions import cautions_for
 from premiumlab.runs.rundir import Run, model_name, open_run
 from premiumlab.tabulation.banding import Banding
 from premiumlab.tabulation.distill import distil
-from premiumlab.tabulation.effects import Curve, FactorValues, exposure_sample
+from premiumlab.tabulation.effects import Curve, FactorValues, exposure_sample, grid_sample
 from premiumlab.tabulation.refit import band_exposure, credible_two_way, refit, round_relativity
 from premiumlab.tabulation.source import (
     AUTO,
@@ -225,7 +225,9 @@ def _gbm_bands(run: Run, book: Book, preds: pd.DataFrame, train: np.ndarray, sou
         for model in models
     ]
     glm_levels = _glm_level_effects(run, factors)
-    result = distil(boosters, factors, book.exposure[rows], stored[rows], book.claim_count[rows], opts, glm_levels)
+    grid_rows = grid_sample(rows.size, opts.grid_rows, spec.split.seed)
+    exposure = book.exposure[rows]
+    result = distil(boosters, factors, exposure, stored[rows], book.claim_count[rows], opts, glm_levels, grid_rows)
     fit = result.pooled.fit
     notes = {
         "method": "partial dependence on the raw score (summed over the boosters of a product), credibility "
@@ -248,6 +250,7 @@ def _gbm_bands(run: Run, book: Book, preds: pd.DataFrame, train: np.ndarray, sou
         "sample_policies": int(opts.sample),
         "seed": spec.split.seed,
         "grid_points": {n: int(c.points.size) for n, c in result.curves.items()},
+        "grid_rows": int(rows.size if grid_rows is None else opts.grid_rows),
         "bands_before_pooling": {n: b.n_bands for n, b in result.initial.items()},
         "bands": {n: b.n_bands for n, b in result.pooled.bandings.items()},
         "merges": result.pooled.merges,

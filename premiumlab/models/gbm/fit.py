@@ -34,7 +34,7 @@ from premiumlab._core.cluster import IN_PROCESS, TaskRunner
 from premiumlab._core.errors import InputError
 from premiumlab._core.jsonio import read_json
 from premiumlab.book.gbm_options import GbmOptions
-from premiumlab.models.gbm.search import cross_validate, select_settings
+from premiumlab.models.gbm.search import cross_validate, search_sample, select_settings
 from premiumlab.models.gbm.training import (
     BALANCE_TOLERANCE,
     JSON_FORMAT,
@@ -71,6 +71,8 @@ class GbmModel:
     constraint_notes: list[str] = field(default_factory=list)
     hessian_scale: float = 1.0  # LightGBM weight = weight / hessian_scale (row units)
     categorical_smoothing: dict | None = None  # how cat_smooth was estimated; None if the options gave it
+    trained_on: str = IN_PROCESS.description  # where the final model was trained
+    search_rows: int | None = None  # rows the search ran on; None: every training row
 
     def encode(self, features: pd.DataFrame) -> np.ndarray:
         """Features -> the float64 matrix the booster reads (categoricals as fixed level codes)."""
@@ -112,6 +114,8 @@ class GbmModel:
             "constraint_notes": self.constraint_notes,
             "hessian_scale": self.hessian_scale,
             "categorical_smoothing": self.categorical_smoothing,
+            "trained_on": self.trained_on,
+            "search_rows": self.training_rows if self.search_rows is None else self.search_rows,
             "caution": DRAFT,
         }
 
@@ -170,6 +174,78 @@ def fit_final(
     booster = lgb.train(params, data.dataset(), num_boost_round=rounds, keep_training_booster=True)
     balance = _training_balance(booster, data)
     booster.free_dataset()
+    return _fitted(booster, data, params, rounds, balance, cv_table, chosen)
+
+
+def fit_final_on_cluster(
+    data: TrainingData, setting: dict, rounds: int, runner: TaskRunner, cv_table: list[dict], chosen: int
+) -> GbmModel:
+    """`fit_final` trained by LightGBM's Dask interface (`lightgbm.dask`, `tree_learner = "data"`):
+    the rows are cut into one block per worker, each worker builds the histograms of its rows and
+    LightGBM adds them up over its own network between the workers, so every split is chosen on
+    all the rows. The bin edges are found from each worker's rows, so the trees may differ slightly
+    from a one-process fit's. Balance as in `fit_final`, from the booster's predictions here.
+
+    Parameters
+    ----------
+    data : TrainingData
+        The encoded training data of one target (held here; the blocks are sent to the workers).
+    setting : dict
+        LightGBM parameters laid over `data.base_params`.
+    rounds : int
+        Boosting rounds, >= 1.
+    runner : TaskRunner
+        A runner on a Dask cluster (`runner.client` not None).
+    cv_table : list[dict]
+        The cross-validation table to keep with the model.
+    chosen : int
+        Index of `setting` in `cv_table`.
+
+    Returns
+    -------
+    GbmModel
+        As `fit_final`, with `trained_on` naming the cluster. LightGBM's Dask interface trains each
+        worker with as many threads as the worker has, not `num_threads`.
+    """
+    import dask.array as da
+    from lightgbm.dask import DaskLGBMRegressor
+
+    params = {**data.base_params, **setting}
+    n = len(data.label)
+    block = -(-n // max(1, runner.workers))
+    columns = data.matrix.shape[1]
+    weight = data.weight / data.hessian_scale
+    x, y, w = (
+        da.from_array(a, chunks=(block, columns) if a.ndim == 2 else (block,))
+        for a in (data.matrix, data.label, weight)
+    )
+    threads = {k: v for k, v in params.items() if k != "num_threads"}  # the interface sets the workers' own
+    model = DaskLGBMRegressor(client=runner.client, n_estimators=rounds, tree_learner="data", **threads)
+    try:
+        model.fit(x, y, sample_weight=w, feature_name=data.feature_names, categorical_feature=data.categorical_indices)
+    except Exception as e:  # what LightGBM or a worker raised: one line naming the cluster
+        raise InputError(
+            f"--cluster: the {data.target} model's training on {runner.description} failed ({type(e).__name__}: {e})"
+        ) from None
+    booster = lgb.Booster(model_str=model.booster_.model_to_string())
+    predicted = booster.predict(data.matrix, num_threads=params["num_threads"])
+    balance = float(np.sum(data.weight * predicted) / np.sum(data.weight * data.label))
+    fitted = _fitted(booster, data, params, rounds, balance, cv_table, chosen)
+    fitted.trained_on = f"{runner.description} (lightgbm.dask, data-parallel)"
+    return fitted
+
+
+def _fitted(
+    booster: lgb.Booster,
+    data: TrainingData,
+    params: dict,
+    rounds: int,
+    balance: float,
+    cv_table: list[dict] | None,
+    chosen: int,
+) -> GbmModel:
+    """The model of a trained booster, rebalanced when its training balance is off by more than
+    BALANCE_TOLERANCE."""
     rebalanced = abs(balance - 1.0) > BALANCE_TOLERANCE
     return GbmModel(
         booster=booster,
@@ -192,10 +268,18 @@ def fit_final(
 
 
 def _tuned_fit(data: TrainingData, options: GbmOptions, runner: TaskRunner) -> GbmModel:
+    """The search (on a sample of `options.search_rows` rows when the final fit runs on a Dask
+    cluster: `runner.client` given and at least `options.cluster_rows` rows), then the final fit."""
     settings = select_settings(options)
-    table = cross_validate(data, settings, options, runner)
+    on_cluster = runner.client is not None and len(data.label) >= options.cluster_rows
+    searched = search_sample(data, options.search_rows, options.seed) if on_cluster else data
+    table = cross_validate(searched, settings, options, runner)
     chosen = int(np.argmin([row["mean_deviance"] for row in table]))
-    return fit_final(data, settings[chosen], table[chosen]["rounds"], table, chosen)
+    if not on_cluster:
+        return fit_final(data, settings[chosen], table[chosen]["rounds"], table, chosen)
+    model = fit_final_on_cluster(data, settings[chosen], table[chosen]["rounds"], runner, table, chosen)
+    model.search_rows = len(searched.label)
+    return model
 
 
 def _uncertified_factors(model: GbmModel) -> list[str]:
@@ -329,4 +413,6 @@ def load_model(text_path: str | Path, json_path: str | Path) -> GbmModel:
         constraint_notes=meta["constraint_notes"],
         hessian_scale=meta.get("hessian_scale", 1.0),
         categorical_smoothing=meta.get("categorical_smoothing"),
+        trained_on=meta.get("trained_on", IN_PROCESS.description),
+        search_rows=meta.get("search_rows"),
     )

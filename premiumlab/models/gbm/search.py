@@ -9,7 +9,7 @@ are switched off). The (setting, fold) fits are independent tasks handed to a `T
 from __future__ import annotations
 
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from functools import cached_property
 
 import lightgbm as lgb
@@ -47,6 +47,37 @@ def fold_of_group(groups: np.ndarray, folds: int, seed: int) -> np.ndarray:
     hash_key = f"{seed % 10**16:016d}"
     hashes = pd.util.hash_array(np.asarray(groups), hash_key=hash_key, categorize=False)
     return (hashes % np.uint64(folds)).astype(np.int64)
+
+
+def search_sample(data: TrainingData, rows: int, seed: int) -> TrainingData:
+    """The training data of whole policies drawn in a seeded order until at least `rows` rows are
+    taken (all of them when there are fewer), in their original order; what the search runs on
+    when the final model is trained on a Dask cluster.
+
+    Parameters
+    ----------
+    data : TrainingData
+        The encoded training data of one target.
+    rows : int
+        The least rows to take, >= 1.
+    seed : int
+        Seed of numpy's generator that orders the policies.
+
+    Returns
+    -------
+    TrainingData
+        `data` restricted to the drawn policies' rows (same parameters, hessian scale and
+        categories).
+    """
+    codes, uniques = pd.factorize(data.groups)
+    order = np.random.default_rng(seed).permutation(len(uniques))
+    taken = np.cumsum(np.bincount(codes, minlength=len(uniques))[order])
+    drawn = np.zeros(len(uniques), dtype=bool)
+    drawn[order[: int(np.searchsorted(taken, rows)) + 1]] = True
+    keep = drawn[codes]
+    return replace(
+        data, matrix=data.matrix[keep], label=data.label[keep], weight=data.weight[keep], groups=data.groups[keep]
+    )
 
 
 def select_settings(options: GbmOptions) -> list[dict]:

@@ -113,6 +113,8 @@ def _check_options(options: GbmOptions) -> None:
         "early_stopping_rounds",
         "min_data_per_group",
         "max_cat_threshold",
+        "cluster_rows",
+        "search_rows",
     ):
         value = getattr(options, name)
         low = 2 if name == "folds" else 1
