@@ -202,3 +202,24 @@ def test_unknown_level_and_bad_inputs_are_named(book, models):
         )
     with pytest.raises(InputError, match=r"monotone_method: 'strict'"):
         fit_target(inputs, "frequency", GbmOptions(monotone_method="strict"))
+
+
+def test_a_search_job_that_built_its_dataset_can_still_be_copied_to_another_worker(book):
+    """Dask copies a scattered search job between workers (pickle, via __getstate__); once a task has
+    built the job's binned LightGBM Dataset, which holds a pointer, the copy leaves it out and builds
+    it again: pickling succeeds, and a fold fitted on a copy gives the same deviance and rounds as on
+    the original (exact)."""
+    import copy
+    import pickle
+
+    from premiumlab.models.gbm.search import _fold_task, _SearchJob
+
+    _, inputs = book
+    job = _SearchJob(prepare_training(inputs, "frequency", OPTIONS), OPTIONS)
+    task = ({"num_leaves": 7, "learning_rate": 0.1}, 0)
+    first = _fold_task(job, task)
+    assert "binned" in job.__dict__
+    assert len(pickle.dumps(job)) > 0
+    moved = copy.copy(job)
+    assert "binned" not in moved.__dict__
+    assert _fold_task(moved, task) == first

@@ -147,6 +147,14 @@ class _SearchJob:
     def binned(self) -> tuple[lgb.Dataset, np.ndarray]:
         return (self.data.dataset().construct(), fold_of_group(self.data.groups, self.options.folds, self.options.seed))
 
+    def __getstate__(self) -> dict:
+        """The job without its binned Dataset, which holds a pointer into LightGBM and cannot be
+        serialised: Dask may copy a worker's job to another worker after a task has built it (seen
+        under load as "ctypes objects containing pointers cannot be pickled"); it is built again there."""
+        state = dict(self.__dict__)
+        state.pop("binned", None)
+        return state
+
 
 def _fold_task(job: _SearchJob, task: tuple[dict, int]) -> tuple[float, int]:
     """One task of the search, run here or on a Dask worker: setting `task[0]` on fold `task[1]`."""
